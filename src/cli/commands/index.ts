@@ -1,0 +1,6 @@
+import type { Command } from 'commander';
+
+
+
+/** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [];

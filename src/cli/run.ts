@@ -1,0 +1,58 @@
+import { CommanderError } from 'commander';
+import { SondeError } from '../errors.js';
+import { createProgram } from './program.js';
+
+/** Where the CLI writes; tests pass their own to capture output in-process. */
+export interface CliIo {
+  stdout: (text: string) => void;
+  stderr: (text: string) => void;
+}
+
+const processIo: CliIo = {
+  stdout: (text) => process.stdout.write(text),
+  stderr: (text) => process.stderr.write(text),
+};
+
+let currentIo: CliIo = processIo;
+
+/** The output sink of the command now running (commands print through this, never console.log). */
+export function cliIo(): CliIo {
+  return currentIo;
+}
+
+/**
+ * Parses `argv` (without node and script) and runs the command. This is the one place that catches
+ * errors and decides the exit code: 0 success, 2 usage error, 1 runtime error.
+ */
+export async function runCli(argv: readonly string[], io: CliIo = processIo): Promise<number> {
+  const program = createProgram();
+  program.configureOutput({ writeOut: io.stdout, writeErr: io.stderr });
+  const verbose = argv.includes('--verbose');
+  const previous = currentIo;
+  currentIo = io;
+  try {
+    await program.parseAsync([...argv], { from: 'user' });
+    return 0;
+  } catch (error) {
+    return reportError(error, io, verbose);
+  } finally {
+    currentIo = previous;
+  }
+}
+
+function reportError(error: unknown, io: CliIo, verbose: boolean): number {
+  if (error instanceof CommanderError) {
+    // help and version "errors" are normal exits
+    if (error.code === 'commander.helpDisplayed' || error.code === 'commander.version' || error.code === 'commander.help') return 0;
+    return error.exitCode === 0 ? 0 : 2; // commander already printed its message
+  }
+  if (error instanceof SondeError) {
+    io.stderr(`sonde: ${error.message}${error.hint ? ` (${error.hint})` : ''}\n`);
+    if (verbose && error.stack) io.stderr(`${error.stack}\n`);
+    return error.exitCode;
+  }
+  const message = error instanceof Error ? error.message : String(error);
+  io.stderr(`sonde: unexpected error: ${message.split('\n')[0]}${verbose ? '' : ' (run with --verbose for details)'}\n`);
+  if (verbose && error instanceof Error && error.stack) io.stderr(`${error.stack}\n`);
+  return 1;
+}
