@@ -1,0 +1,29 @@
+import type { LoadedModel } from './load-model.js';
+import { encodeModel, makeValueInfo, type ValueInfoProto } from './onnx.js';
+
+/**
+ * Returns ONNX bytes of `model` with `names` added as graph outputs (after the existing ones, skipping
+ * names that already are outputs). Nodes and initializers are untouched, so weights stay
+ * byte-identical. Output types are taken from the model's value_info when present; the runtime infers
+ * them otherwise.
+ */
+export function exposeTensors(model: LoadedModel, names: readonly string[]): Uint8Array {
+  const graph = model.proto.graph!;
+  const original = graph.output ?? [];
+  const known = new Map<string, ValueInfoProto>();
+  for (const info of graph.valueInfo ?? []) if (info.name) known.set(info.name, info);
+  const present = new Set(original.map((o) => o.name ?? ''));
+  const extra: ValueInfoProto[] = [];
+  for (const name of names) {
+    if (present.has(name)) continue;
+    present.add(name);
+    const info = known.get(name);
+    extra.push(info?.type?.tensorType ? { name, type: { tensorType: { elemType: info.type.tensorType.elemType } } } : makeValueInfo(name));
+  }
+  graph.output = [...original, ...extra];
+  try {
+    return encodeModel(model.proto);
+  } finally {
+    graph.output = original;
+  }
+}

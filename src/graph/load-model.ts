@@ -1,0 +1,146 @@
+import { createHash } from 'node:crypto';
+import { readFileSync, statSync } from 'node:fs';
+import { basename, dirname, isAbsolute, relative, resolve } from 'node:path';
+import { RuntimeFailure, UsageError } from '../errors.js';
+import { decodeModel, ONNX_DTYPE_NAMES, toNumber, type ModelProto, type TensorProto } from './onnx.js';
+
+/** One dimension of a declared input: a number, or the `dim_param` name of a dynamic axis. */
+export type Dim = number | string;
+
+/** A model read from disk, its external weights resolved, ready to instrument. */
+export interface LoadedModel {
+  /** Absolute path of the .onnx file. */
+  path: string;
+  /** File name without folder, for manifests. */
+  fileName: string;
+  /** SHA-256 (hex) of the .onnx file's bytes — the pairing key between snapshots. */
+  sha256: string;
+  /** The decoded model; external data already inlined into `rawData`. */
+  proto: ModelProto;
+  /** The single non-initializer graph input. */
+  input: { name: string; dims: Dim[]; elemType: number };
+  /** Graph output names, in declaration order. */
+  outputs: string[];
+  /** opset version of the default ("" or "ai.onnx") domain. */
+  opset: number;
+  /** Number of parameters (elements of all initializers). */
+  parameterCount: number;
+}
+
+/**
+ * Reads, decodes and validates an ONNX model. Weights stored in external data files are read from
+ * paths relative to the model's folder and inlined, so that the model can be handed to the runtime
+ * as bytes after instrumentation.
+ * @throws UsageError when the file is missing, not ONNX, truncated, has no graph, or has zero or
+ *   several non-initializer inputs; RuntimeFailure when it cannot be read.
+ */
+export function loadModel(path: string): LoadedModel {
+  const absolute = resolve(path);
+  let bytes: Buffer;
+  try {
+    if (statSync(absolute).isDirectory()) {
+      throw new UsageError('E_MODEL_READ', `model ${path} is a directory, not an .onnx file`);
+    }
+    bytes = readFileSync(absolute);
+  } catch (error) {
+    if (error instanceof UsageError) throw error;
+    const code = (error as NodeJS.ErrnoException).code;
+    if (code === 'ENOENT') throw new UsageError('E_MODEL_MISSING', `model ${path} does not exist`, { hint: 'check the path' });
+    throw new RuntimeFailure('E_MODEL_READ', `cannot read model ${path}: ${(error as Error).message}`);
+  }
+  if (bytes.length === 0) throw new UsageError('E_MODEL_FORMAT', `model ${path} is empty (0 bytes)`);
+  let proto: ModelProto;
+  try {
+    proto = decodeModel(bytes);
+  } catch (error) {
+    throw new UsageError('E_MODEL_FORMAT', `model ${path} is not a valid ONNX file (${(error as Error).message.split('\n')[0]})`, {
+      hint: 'the file may be truncated or not an ONNX model',
+    });
+  }
+  const graph = proto.graph;
+  if (!graph || !graph.node || graph.node.length === 0) {
+    throw new UsageError('E_MODEL_FORMAT', `model ${path} is not a valid ONNX file (no graph or no nodes)`);
+  }
+  const opsetEntry = (proto.opsetImport ?? []).find((o) => !o.domain || o.domain === 'ai.onnx');
+  if (!opsetEntry) throw new UsageError('E_MODEL_FORMAT', `model ${path} declares no opset for the default ONNX domain`);
+  inlineExternalData(proto, dirname(absolute), path);
+
+  const initializerNames = new Set((graph.initializer ?? []).map((t) => t.name ?? ''));
+  const inputs = (graph.input ?? []).filter((i) => !initializerNames.has(i.name ?? ''));
+  if (inputs.length !== 1) {
+    throw new UsageError('E_MODEL_INPUTS', `model ${path} has ${inputs.length} data inputs (${inputs.map((i) => i.name).join(', ') || 'none'}); Sonde needs exactly one`);
+  }
+  const input = inputs[0]!;
+  const tensorType = input.type?.tensorType;
+  const elemType = tensorType?.elemType ?? 0;
+  if (elemType !== 1) {
+    throw new UsageError('E_MODEL_INPUTS', `model ${path}: input "${input.name}" has element type ${ONNX_DTYPE_NAMES[elemType] ?? elemType}; Sonde feeds float32 inputs`);
+  }
+  const dims: Dim[] = (tensorType?.shape?.dim ?? []).map((d) => (d.dimParam ? d.dimParam : d.dimValue !== null && d.dimValue !== undefined && toNumber(d.dimValue) > 0 ? toNumber(d.dimValue) : '?'));
+  let parameterCount = 0;
+  for (const t of graph.initializer ?? []) parameterCount += (t.dims ?? []).reduce<number>((a, d) => a * toNumber(d), 1);
+  const names = new Set<string>();
+  for (const node of graph.node) {
+    for (const name of node.output ?? []) {
+      if (name && names.has(name)) throw new UsageError('E_MODEL_FORMAT', `model ${path}: tensor "${name}" is produced by two nodes`);
+      if (name) names.add(name);
+    }
+  }
+  for (const node of graph.node) {
+    for (const name of node.input ?? []) {
+      if (name && !names.has(name) && !initializerNames.has(name) && name !== input.name) {
+        throw new UsageError('E_MODEL_FORMAT', `model ${path}: node "${node.name ?? node.opType}" reads tensor "${name}", which nothing produces (missing initializer?)`);
+      }
+    }
+  }
+  return {
+    path: absolute,
+    fileName: basename(absolute),
+    sha256: createHash('sha256').update(bytes).digest('hex'),
+    proto,
+    input: { name: input.name ?? '', dims, elemType },
+    outputs: (graph.output ?? []).map((o) => o.name ?? ''),
+    opset: toNumber(opsetEntry.version),
+    parameterCount,
+  };
+}
+
+/** Reads each initializer whose data lives in an external file and stores it inline (raw_data). */
+function inlineExternalData(proto: ModelProto, folder: string, modelPath: string): void {
+  const cache = new Map<string, Buffer>();
+  for (const tensor of proto.graph?.initializer ?? []) {
+    if (tensor.dataLocation !== 1) continue; // 1 = EXTERNAL in TensorProto.DataLocation
+    const entries = new Map((tensor.externalData ?? []).map((e) => [e.key ?? '', e.value ?? '']));
+    const location = entries.get('location');
+    if (!location) throw new UsageError('E_MODEL_EXTERNAL', `model ${modelPath}: initializer "${tensor.name}" is external but names no location`);
+    const file = resolve(folder, location);
+    const rel = relative(folder, file);
+    if (isAbsolute(location) || rel.startsWith('..')) {
+      throw new UsageError('E_MODEL_EXTERNAL', `model ${modelPath}: external data location "${location}" of "${tensor.name}" is outside the model's folder`);
+    }
+    let data = cache.get(file);
+    if (!data) {
+      try {
+        data = readFileSync(file);
+      } catch {
+        throw new UsageError('E_MODEL_EXTERNAL', `model ${modelPath}: external data file "${location}" for "${tensor.name}" cannot be read (looked in ${folder})`, {
+          hint: 'keep the external data files next to the model',
+        });
+      }
+      cache.set(file, data);
+    }
+    const offset = Number(entries.get('offset') ?? 0);
+    const length = entries.has('length') ? Number(entries.get('length')) : data.length - offset;
+    if (!(offset >= 0 && length >= 0 && offset + length <= data.length)) {
+      throw new UsageError('E_MODEL_EXTERNAL', `model ${modelPath}: external data of "${tensor.name}" (offset ${offset}, length ${length}) exceeds "${location}" (${data.length} bytes)`);
+    }
+    tensor.rawData = data.subarray(offset, offset + length);
+    tensor.dataLocation = 0;
+    tensor.externalData = [];
+  }
+}
+
+/** Element count of an initializer (product of dims). */
+export function tensorElementCount(tensor: TensorProto): number {
+  return (tensor.dims ?? []).reduce<number>((a, d) => a * toNumber(d), 1);
+}

@@ -1,0 +1,124 @@
+import { UsageError } from '../errors.js';
+import { loadModel, type Dim, type LoadedModel } from '../graph/load-model.js';
+import { exposeTensors } from '../graph/instrument.js';
+import { ACTIVATION_OPS, LINEAR_OPS, MERGE_OPS, POOLING_OPS } from '../graph/select.js';
+import { analyseGraph, type GraphStructure } from '../graph/structure.js';
+import { probeOutputs } from '../session/network-session.js';
+
+/** A tensor Sonde can record: a float32 node output whose first axis is the batch. */
+export interface LayerInfo {
+  /** ONNX tensor name. */
+  name: string;
+  /** Operator type of the producing node. */
+  op: string;
+  /** Position among recordable tensors in topological order, 0-based. */
+  depth: number;
+  /** Per-stimulus shape (batch axis dropped), from the probe run. */
+  shape: number[];
+  /** Elements per stimulus (product of `shape`). */
+  elements: number;
+  /** Whether the default selector records it. */
+  default: boolean;
+  /** Whether it is a declared graph output of the model. */
+  isOutput: boolean;
+}
+
+/** The result of `inspectModel`. */
+export interface ModelInspection {
+  model: LoadedModel;
+  structure: GraphStructure;
+  /** The data input with its concrete per-run shape (batch axis included, as probed). */
+  input: { name: string; declared: Dim[]; shape: number[] };
+  /** Every recordable tensor, in topological order. */
+  layers: LayerInfo[];
+  /** Node outputs that are not recordable (non-float, or without a batch axis). */
+  skipped: number;
+}
+
+/** Options of `inspectModel`. */
+export interface InspectOptions {
+  /** Full input shape (batch first) for models with dynamic non-batch axes, e.g. [1, 3, 224, 224]. */
+  inputShape?: number[];
+}
+
+/**
+ * Loads a model and finds every recordable tensor with its per-stimulus shape, by one probe run on a
+ * batch of zeros with every node output exposed.
+ * @throws UsageError when the input has dynamic non-batch axes and no `inputShape` is given, or when
+ *   `inputShape` does not fit the declared input.
+ */
+export async function inspectModel(modelOrPath: string | LoadedModel, options: InspectOptions = {}): Promise<ModelInspection> {
+  const model = typeof modelOrPath === 'string' ? loadModel(modelOrPath) : modelOrPath;
+  const structure = analyseGraph(model);
+  const inputShape = resolveInputShape(model, options.inputShape);
+  // A batch of 2 (when the batch axis is free) tells batched tensors from constants of leading size 1.
+  const batchIsDynamic = typeof model.input.dims[0] !== 'number';
+  const probeBatch = batchIsDynamic ? 2 : inputShape[0]!;
+  const probeShape = [probeBatch, ...inputShape.slice(1)];
+  const allOutputs = structure.nodes.flatMap((n) => n.outputs);
+  const bytes = exposeTensors(model, allOutputs);
+  const elements = probeShape.reduce((a, b) => a * b, 1);
+  const shapes = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName);
+  const declaredOutputs = new Set(model.outputs);
+  const layers: LayerInfo[] = [];
+  let skipped = 0;
+  const isActivation = (tensor: string): boolean => !structure.initializers.has(tensor) && (structure.producer.has(tensor) || tensor === model.input.name);
+  for (const node of structure.nodes) {
+    for (const name of node.outputs) {
+      const probed = shapes.get(name);
+      if (!probed || probed.type !== 'float32' || probed.dims.length === 0 || probed.dims[0] !== probeBatch) {
+        skipped += 1;
+        continue;
+      }
+      const shape = probed.dims.slice(1);
+      const batchedInputs = node.inputs.filter((i) => i && isActivation(i) && isBatched(i, shapes, probeBatch, model.input.name));
+      const isMerge = MERGE_OPS.has(node.opType) && batchedInputs.length >= 2;
+      const isDefault = ACTIVATION_OPS.has(node.opType) || POOLING_OPS.has(node.opType) || LINEAR_OPS.has(node.opType) || isMerge || declaredOutputs.has(name);
+      layers.push({
+        name,
+        op: node.opType,
+        depth: layers.length,
+        shape,
+        elements: shape.reduce((a, b) => a * b, 1),
+        default: isDefault,
+        isOutput: declaredOutputs.has(name),
+      });
+    }
+  }
+  return { model, structure, input: { name: model.input.name, declared: model.input.dims, shape: inputShape }, layers, skipped };
+}
+
+function isBatched(name: string, shapes: Map<string, { type: string; dims: number[] }>, batch: number, inputName: string): boolean {
+  if (name === inputName) return true;
+  const probed = shapes.get(name);
+  return probed !== undefined && probed.dims.length > 0 && probed.dims[0] === batch;
+}
+
+/**
+ * The concrete input shape to run with (batch axis set to 1 when dynamic): the declared dims, with
+ * `override` filling dynamic axes. Throws when dynamic non-batch axes are left open.
+ */
+export function resolveInputShape(model: LoadedModel, override: number[] | undefined): number[] {
+  const declared = model.input.dims;
+  if (override) {
+    if (override.length !== declared.length) {
+      throw new UsageError('E_INPUT_SHAPE', `--input-shape ${override.join('x')} has ${override.length} axes but input "${model.input.name}" has ${declared.length} ([${declared.join(', ')}])`);
+    }
+    override.forEach((d, i) => {
+      if (!Number.isInteger(d) || d <= 0) throw new UsageError('E_INPUT_SHAPE', `--input-shape ${override.join('x')}: axis ${i} must be a positive integer`);
+      const fixed = declared[i];
+      if (i > 0 && typeof fixed === 'number' && fixed !== d) {
+        throw new UsageError('E_INPUT_SHAPE', `--input-shape ${override.join('x')}: axis ${i} is fixed to ${fixed} by the model`);
+      }
+    });
+    return override.slice();
+  }
+  const open = declared.map((d, i) => (i > 0 && typeof d !== 'number' ? i : -1)).filter((i) => i >= 0);
+  if (open.length > 0) {
+    throw new UsageError('E_INPUT_SHAPE', `input "${model.input.name}" of ${model.fileName} has dynamic axes [${declared.join(', ')}]; Sonde needs a concrete shape for them`, {
+      hint: `pass --input-shape, e.g. --input-shape ${declared.map((d, i) => (i === 0 ? 1 : typeof d === 'number' ? d : 224)).join('x')}`,
+    });
+  }
+  if (declared.length === 0) throw new UsageError('E_INPUT_SHAPE', `input "${model.input.name}" of ${model.fileName} declares no shape`, { hint: 'pass --input-shape' });
+  return declared.map((d, i) => (i === 0 ? (typeof d === 'number' ? d : 1) : (d as number)));
+}
