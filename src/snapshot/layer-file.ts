@@ -1,0 +1,129 @@
+import {
+  Field, FixedSizeList, Float16, Float32, Int32, makeData, RecordBatch, RecordBatchFileWriter, Schema, Struct,
+  type Data, type DataType,
+} from 'apache-arrow';
+import { float32ToFloat16 } from './float16.js';
+import { HashingFileSink } from './arrow-sink.js';
+import type { ActivationDtype, KeepMode } from './manifest.js';
+
+/** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
+export const SHAPE_METADATA_KEY = 'sonde.shape';
+
+/** What a layer file holds. */
+export interface LayerFileLayout {
+  name: string;
+  /** Per-stimulus shape, batch axis dropped. */
+  shape: number[];
+  dtype: ActivationDtype;
+  keep: KeepMode;
+}
+
+/** Channels of a per-stimulus shape: the first axis (C of C×H×W, or the length of a vector). */
+export function channelCount(shape: readonly number[]): number {
+  return shape.length === 0 ? 1 : shape[0]!;
+}
+
+/** Elements per channel (H·W for a feature map, 1 for a vector). */
+export function spatialSize(shape: readonly number[]): number {
+  let s = 1;
+  for (let i = 1; i < shape.length; i++) s *= shape[i]!;
+  return s;
+}
+
+/** The Arrow schema of a layer file: `index` int32, `channel_mean` FixedSizeList<float32>[C], and `activation` unless keep = channels. */
+export function layerSchema(layout: LayerFileLayout): Schema {
+  const channels = channelCount(layout.shape);
+  const elements = layout.shape.reduce((a, b) => a * b, 1);
+  const fields: Field[] = [
+    new Field('index', new Int32(), false),
+    new Field('channel_mean', new FixedSizeList(channels, new Field('item', new Float32(), false)), false),
+  ];
+  if (layout.keep === 'full') {
+    const item = layout.dtype === 'float16' ? new Float16() : new Float32();
+    fields.push(
+      new Field('activation', new FixedSizeList(elements, new Field('item', item, false)), false, new Map([[SHAPE_METADATA_KEY, JSON.stringify(layout.shape)]])),
+    );
+  }
+  return new Schema(fields, new Map([['sonde.layer', layout.name], ['sonde.format', '1']]));
+}
+
+/**
+ * Writes one layer's Arrow IPC file, batch by batch. Activation buffers are handed to Arrow as views,
+ * not copied (float16 storage converts once). Channel means are computed here, in doubles.
+ */
+export class LayerFileWriter {
+  readonly layout: LayerFileLayout;
+  private readonly schema: Schema;
+  private readonly sink: HashingFileSink;
+  private readonly writer: RecordBatchFileWriter;
+  private readonly channels: number;
+  private readonly spatial: number;
+  private readonly elements: number;
+  rows = 0;
+
+  constructor(path: string, layout: LayerFileLayout) {
+    this.layout = layout;
+    this.schema = layerSchema(layout);
+    this.channels = channelCount(layout.shape);
+    this.spatial = spatialSize(layout.shape);
+    this.elements = this.channels * this.spatial;
+    this.sink = new HashingFileSink(path);
+    this.writer = new RecordBatchFileWriter();
+    this.writer.reset(this.sink, this.schema);
+  }
+
+  /**
+   * Appends `rows` stimuli. `activation` holds rows × elements values, row-major (the runtime's output
+   * buffer); `firstIndex` is the global index of the first row.
+   */
+  write(firstIndex: number, rows: number, activation: Float32Array): void {
+    const index = new Int32Array(rows);
+    for (let r = 0; r < rows; r++) index[r] = firstIndex + r;
+    const means = computeChannelMeans(activation, rows, this.channels, this.spatial);
+    const children: Data[] = [
+      makeData({ type: new Int32(), length: rows, nullCount: 0, data: index }),
+      fixedSizeList(new Float32(), this.channels, rows, means),
+    ];
+    if (this.layout.keep === 'full') {
+      const values = activation.length === rows * this.elements ? activation : activation.subarray(0, rows * this.elements);
+      children.push(this.layout.dtype === 'float16' ? fixedSizeList(new Float16(), this.elements, rows, float32ToFloat16(values)) : fixedSizeList(new Float32(), this.elements, rows, values));
+    }
+    const struct = makeData({ type: new Struct(this.schema.fields), length: rows, nullCount: 0, children });
+    this.writer.write(new RecordBatch(this.schema, struct));
+    this.rows += rows;
+  }
+
+  /** Writes the footer, flushes, renames to the final name; returns hash and size. */
+  finish(): { sha256: string; bytes: number; rows: number } {
+    this.writer.finish();
+    this.writer.close();
+    return { ...this.sink.commit(), rows: this.rows };
+  }
+
+  /** Abandons the file (deletes the temporary). */
+  discard(): void {
+    this.sink.discard();
+  }
+}
+
+function fixedSizeList<T extends Float32 | Float16>(item: T, size: number, rows: number, values: Float32Array | Uint16Array): Data {
+  const child = makeData({ type: item as DataType, length: rows * size, nullCount: 0, data: values } as never) as Data;
+  return makeData({ type: new FixedSizeList(size, new Field('item', item, false)), length: rows, nullCount: 0, child } as never) as Data;
+}
+
+/**
+ * Spatial mean of each channel for each row: out[r*C + c] = mean over positions of
+ * activation[(r*C + c)*S + s]. For a vector tensor (S = 1) it is the vector itself.
+ */
+export function computeChannelMeans(activation: Float32Array, rows: number, channels: number, spatial: number, out: Float32Array = new Float32Array(rows * channels)): Float32Array {
+  const inverse = 1 / spatial;
+  for (let r = 0; r < rows; r++) {
+    for (let c = 0; c < channels; c++) {
+      const start = (r * channels + c) * spatial; // layout: i = ((r*C + c)*S + s)
+      let sum = 0;
+      for (let s = 0; s < spatial; s++) sum += activation[start + s]!;
+      out[r * channels + c] = sum * inverse;
+    }
+  }
+  return out;
+}

@@ -1,0 +1,167 @@
+import { open } from 'node:fs/promises';
+import { readFileSync } from 'node:fs';
+import { join, resolve } from 'node:path';
+import { RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
+import { RuntimeFailure, UsageError, closestHint } from '../errors.js';
+import { float16ToFloat32 } from './float16.js';
+import { channelCount, spatialSize } from './layer-file.js';
+import { assertComplete, assertInside, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
+
+/** One record batch of a layer, as typed arrays. */
+export interface LayerBatch {
+  /** Global stimulus indices of the rows. */
+  index: Int32Array;
+  rows: number;
+  /** rows × C spatial channel means (row-major). */
+  channelMeans: Float32Array;
+  /** rows × elements activations (row-major, float16 widened to float32), or null for keep = channels or when not requested. */
+  activation: Float32Array | null;
+}
+
+/** Options of `Snapshot.readLayer`. */
+export interface ReadLayerOptions {
+  /** Also read the `activation` column (default true when the layer kept it). */
+  activation?: boolean;
+}
+
+/** A recorded snapshot opened for reading. */
+export interface Snapshot {
+  /** Absolute path of the snapshot folder. */
+  folder: string;
+  manifest: SnapshotManifest;
+  /** Stimulus ids and label sets, in index order. */
+  stimuli: { ids: string[]; labels: string[][] };
+  /** Categories present in the labels, sorted. */
+  categories: string[];
+  /** The manifest entry of a layer. @throws UsageError with close names when absent. */
+  layer(name: string): ManifestLayer;
+  /** Channels and elements per channel of a layer. */
+  layerGeometry(name: string): { channels: number; spatial: number; elements: number };
+  /** Streams a layer's record batches in file order; memory holds one batch at a time. */
+  readLayer(name: string, options?: ReadLayerOptions): AsyncGenerator<LayerBatch>;
+  /** Reads all channel means of a layer into one [N, C] array. */
+  readChannelMeans(name: string): Promise<Float32Array>;
+}
+
+/**
+ * Opens a complete snapshot folder: validates the manifest (format version, paths inside the folder)
+ * and loads the stimulus table. Layers are read lazily.
+ * @throws UsageError for a missing or malformed snapshot; RuntimeFailure for an incomplete one.
+ */
+export function openSnapshot(folder: string, options: { allowIncomplete?: boolean } = {}): Snapshot {
+  const root = resolve(folder);
+  const manifest = readManifest(root);
+  if (!options.allowIncomplete) assertComplete(manifest, folder);
+  const baselineRoot = manifest.baseline ? resolve(root, manifest.baseline.path) : null;
+  const stimuliPath = join(root, 'stimuli.arrow');
+  let ids: string[];
+  let labels: string[][];
+  try {
+    const table = tableFromIPC(readFileSync(stimuliPath));
+    ids = (table.getChild('id')?.toArray() ?? []) as string[];
+    const labelColumn = table.getChild('labels');
+    labels = [];
+    for (let i = 0; i < table.numRows; i++) {
+      const value = labelColumn?.get(i) as { toArray(): string[] } | null;
+      labels.push(value ? Array.from(value.toArray()) : []);
+    }
+  } catch (error) {
+    throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow cannot be read (${(error as Error).message.split('\n')[0]})`);
+  }
+  if (ids.length !== manifest.stimuli.count) {
+    throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow has ${ids.length} rows but the manifest says ${manifest.stimuli.count}`);
+  }
+  const byName = new Map(manifest.layers.map((l) => [l.name, l]));
+  const categories = [...new Set(labels.flat())].sort();
+  const layer = (name: string): ManifestLayer => {
+    const entry = byName.get(name);
+    if (!entry) {
+      throw new UsageError('E_LAYER_MISSING', `layer "${name}" is not in snapshot ${folder} (${manifest.layers.length} layers)`, {
+        hint: closestHint(name, [...byName.keys()]) || undefined,
+      });
+    }
+    return entry;
+  };
+  const fileOf = (entry: ManifestLayer): string => {
+    if (entry.from === 'baseline') {
+      if (!baselineRoot) throw new UsageError('E_MANIFEST', `${folder}: layer "${entry.name}" comes from a baseline but the manifest names none`);
+      return assertInside(baselineRoot, entry.file, `baseline layer "${entry.name}" file`);
+    }
+    return assertInside(root, entry.file, `layer "${entry.name}" file`);
+  };
+  const layerGeometry = (name: string) => {
+    const entry = layer(name);
+    const channels = channelCount(entry.shape);
+    const spatial = spatialSize(entry.shape);
+    return { channels, spatial, elements: channels * spatial };
+  };
+  async function* readLayer(name: string, readOptions: ReadLayerOptions = {}): AsyncGenerator<LayerBatch> {
+    const entry = layer(name);
+    const { channels, elements } = layerGeometry(name);
+    const wantActivation = entry.keep === 'full' && readOptions.activation !== false;
+    const path = fileOf(entry);
+    let handle;
+    try {
+      handle = await open(path, 'r');
+    } catch {
+      throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} of "${name}" cannot be opened`, { hint: 'the snapshot may be damaged; run `sonde check`' });
+    }
+    try {
+      let reader;
+      try {
+        reader = await RecordBatchReader.from(handle);
+        await reader.open();
+      } catch (error) {
+        throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} of "${name}" is not a readable Arrow file (${(error as Error).message.split('\n')[0]})`);
+      }
+      if (!reader.isFile()) throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} is not in Arrow IPC file format`);
+      const count = reader.numRecordBatches;
+      for (let b = 0; b < count; b++) {
+        let batch: RecordBatch | null;
+        try {
+          batch = await reader.readRecordBatch(b);
+        } catch (error) {
+          throw new RuntimeFailure('E_LAYER_READ', `layer file ${path}: batch ${b} cannot be read (${(error as Error).message.split('\n')[0]})`);
+        }
+        if (!batch) break;
+        yield toLayerBatch(batch, channels, elements, wantActivation, path);
+      }
+    } finally {
+      await handle.close();
+    }
+  }
+  async function readChannelMeans(name: string): Promise<Float32Array> {
+    const { channels } = layerGeometry(name);
+    const out = new Float32Array(manifest.stimuli.count * channels);
+    for await (const batch of readLayer(name, { activation: false })) {
+      for (let r = 0; r < batch.rows; r++) {
+        const n = batch.index[r]!;
+        if (n < 0 || n >= manifest.stimuli.count) throw new RuntimeFailure('E_LAYER_READ', `layer "${name}" holds stimulus index ${n} outside 0..${manifest.stimuli.count - 1}`);
+        out.set(batch.channelMeans.subarray(r * channels, (r + 1) * channels), n * channels);
+      }
+    }
+    return out;
+  }
+  return { folder: root, manifest, stimuli: { ids, labels }, categories, layer, layerGeometry, readLayer, readChannelMeans };
+}
+
+function toLayerBatch(batch: RecordBatch, channels: number, elements: number, wantActivation: boolean, path: string): LayerBatch {
+  const rows = batch.numRows;
+  const indexData = batch.getChild('index')?.data[0];
+  const meanData = batch.getChild('channel_mean')?.data[0]?.children[0];
+  if (!indexData || !meanData) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path} lacks the index or channel_mean column`);
+  const index = (indexData.values as Int32Array).subarray(indexData.offset, indexData.offset + rows);
+  const meanOffset = (batch.getChild('channel_mean')!.data[0]!.offset + meanData.offset) * 1;
+  const channelMeans = (meanData.values as Float32Array).subarray(meanOffset * channels, (meanOffset + rows) * channels);
+  let activation: Float32Array | null = null;
+  if (wantActivation) {
+    const column = batch.getChild('activation')?.data[0];
+    const child = column?.children[0];
+    if (!column || !child) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path} lacks the activation column`);
+    const start = (column.offset + child.offset) * elements;
+    const values = child.values as Float32Array | Uint16Array;
+    activation = values instanceof Uint16Array ? float16ToFloat32(values.subarray(start, start + rows * elements)) : values.subarray(start, start + rows * elements);
+  }
+  if (channelMeans.length !== rows * channels) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path}: channel_mean has ${channelMeans.length / rows} values per row, manifest says ${channels}`);
+  return { index, rows, channelMeans, activation };
+}
