@@ -1,0 +1,30 @@
+/**
+ * The analysis core: pure numeric functions over typed arrays and plain objects (no files, no process,
+ * no Arrow). Statistics, signal detection, tuning, layer diffs, signatures and depth profiles.
+ */
+
+export { normalCdf, normalQuantile } from './normal.js';
+export {
+  accuracyMaximisingThreshold,
+  detectFromScores,
+  detectionStats,
+  type DetectionCounts,
+  type DetectionOptions,
+  type DetectionStats,
+  type RateCorrection,
+  type ScoreDetection,
+  type ThresholdChoice,
+} from './signal-detection.js';
+export { describe, mean, median, quantile, quantileSorted, standardDeviation, variance, type Description } from './describe.js';
+export { averageRanks, linearFit, pearson, spearman, type LinearFit } from './correlation.js';
+export { bootstrapInterval, bootstrapIntervals, type BootstrapInterval, type BootstrapOptions } from './bootstrap.js';
+export { computeTuning, tuningColumn, type TuningInput, type TuningTable } from './tuning.js';
+export {
+  LayerDiffAccumulator,
+  type ChannelMeans,
+  type LayerDiffMetrics,
+  type LayerDiffOptions,
+} from './layer-diff.js';
+export { fitSignature, type SignatureFit, type SignatureInput } from './signature.js';
+export { fitDepthProfile, type DepthPoint, type DepthProfile, type DepthProfileOptions } from './depth-profile.js';
+export { sparkline, type SparklineOptions } from './sparkline.js';

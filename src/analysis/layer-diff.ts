@@ -1,0 +1,531 @@
+/**
+ * Streaming comparison of one layer's activations between a baseline and a modulated run, fed batch
+ * by batch (memory stays bounded by the per-stimulus summaries, never the activations).
+ *
+ * Layout of a batch: each row is one stimulus of E = C·S elements, channel-major:
+ * channel k of stimulus n occupies [n*E + k*S, n*E + (k+1)*S) (C×H×W row-major, S = H·W; S = 1 for a
+ * vector or for channel-means-only input).
+ *
+ * Accumulation is in doubles: per channel and stimulus plain sums over S elements, combined into the
+ * pooled totals with compensated (Neumaier) summation; the pooled Pearson moments and the per-channel
+ * across-stimulus moments are combined with the exact pairwise update of Chan, Golub & LeVeque (1979,
+ * "Updating formulae and a pairwise algorithm for computing sample variances"), which also makes
+ * `merge` of disjoint stimulus sets exact up to rounding.
+ */
+
+import { UsageError } from '../errors.js';
+import { median } from './describe.js';
+
+/** Shape and options of one layer's accumulator. */
+export interface LayerDiffOptions {
+  /** E, elements per stimulus (must equal channels × spatial). */
+  elements: number;
+  /** C, channels (feature maps, or vector entries when spatial = 1). */
+  channels: number;
+  /** S, elements per channel: H·W, or 1 for a vector or channel-means-only input. */
+  spatial: number;
+  /** A channel counts as up / down when its activity ratio is beyond 1 ± tolerance; default 0.01. */
+  tolerance?: number;
+  /** Layer name, used in error messages only. */
+  layer?: string;
+  /** Expected number of stimuli, to size the per-stimulus buffers once (they grow if exceeded). */
+  expectedStimuli?: number;
+}
+
+/** Metrics of one layer, baseline a versus modulated b. */
+export interface LayerDiffMetrics {
+  /** Stimuli accumulated. */
+  stimuli: number;
+  /** E, C, S as given. */
+  elements: number;
+  channels: number;
+  spatial: number;
+  /** ‖b − a‖ / ‖a‖ over all elements of all stimuli. 0 when ‖a‖ = ‖b − a‖ = 0; +Infinity when only ‖a‖ = 0. */
+  relativeChange: number;
+  /** Median over stimuli of the per-stimulus ‖b_n − a_n‖ / ‖a_n‖ (same zero rule per stimulus). */
+  relativeChangeMedian: number;
+  /** Per-stimulus relative changes that had ‖a_n‖ = 0 (they are 0 or +Infinity by the zero rule, and counted here). */
+  zeroNormStimuli: number;
+  /** ⟨a, b⟩ / (‖a‖‖b‖) over all elements; NaN when either norm is 0. */
+  cosine: number;
+  /** Pearson correlation of a and b over all elements of all stimuli; NaN when either has zero variance. */
+  pearson: number;
+  /**
+   * Per channel: mean of b over stimuli and positions ÷ mean of a. NaN where the baseline mean is exactly 0
+   * (excluded, counted in `channelRatioExcluded`). [C].
+   */
+  channelRatio: Float64Array;
+  /** Channels excluded from the ratio statistics because their baseline mean is exactly 0. */
+  channelRatioExcluded: number;
+  /** Mean of channelRatio over the included channels. */
+  channelRatioMean: number;
+  /** Sample sd (n − 1) of channelRatio over the included channels (NaN with fewer than 2). */
+  channelRatioSd: number;
+  /** Fraction of included channels with ratio > 1 + tolerance (NaN if any included ratio is NaN). */
+  fractionUp: number;
+  /** Fraction of included channels with ratio < 1 − tolerance (NaN if any included ratio is NaN). */
+  fractionDown: number;
+  /**
+   * Per channel d_k = (mean_n b_nk − mean_n a_nk) / sd_n(a_nk), with a_nk, b_nk stimulus n's channel means and
+   * sd the sample sd (n − 1) across stimuli of the baseline. NaN where sd is exactly 0 (excluded). [C].
+   */
+  channelEffectSize: Float64Array;
+  /** Layer effect size: mean of |d_k| over the channels with sd ≠ 0 (NaN with fewer than 2 stimuli). */
+  effectSize: number;
+  /** Channels excluded from `effectSize` because their baseline sd across stimuli is exactly 0. */
+  effectSizeExcluded: number;
+  /** NaN/±Infinity elements seen in the baseline and the modulated activations. */
+  nonFinite: { base: number; mod: number };
+  /** The tolerance used for fractionUp / fractionDown. */
+  tolerance: number;
+}
+
+/** Per-stimulus channel means of both sides, [N, C] row-major (views into the accumulator). */
+export interface ChannelMeans {
+  /** N. */
+  stimuli: number;
+  /** C. */
+  channels: number;
+  /** Baseline a_nk at n*C + k. */
+  base: Float32Array;
+  /** Modulated b_nk at n*C + k. */
+  mod: Float32Array;
+}
+
+// Indices into the compensated pooled sums: value at 2*i, Neumaier compensation at 2*i + 1.
+const AA = 0;
+const BB = 1;
+const AB = 2;
+const DD = 3;
+
+/**
+ * Accumulates the diff of one layer over batches of stimuli; `finish()` gives the metrics at any time.
+ *
+ * NaN/Inf policy: non-finite elements are counted per side and are not skipped, so every metric they
+ * touch comes out NaN (pooled norms, cosine, Pearson, the affected channels' ratios and effect sizes, and
+ * the statistics over channels that include them).
+ */
+export class LayerDiffAccumulator {
+  /** E. */
+  readonly elements: number;
+  /** C. */
+  readonly channels: number;
+  /** S. */
+  readonly spatial: number;
+  /** Ratio tolerance. */
+  readonly tolerance: number;
+  /** Layer name for messages ("layer" when not given). */
+  readonly layer: string;
+
+  private stimuli = 0;
+  private readonly pooled = new Float64Array(8);
+  // Pooled Pearson moments over all elements: count, means, centred sums of squares and co-moment.
+  private pearsonCount = 0;
+  private pearsonMeanA = 0;
+  private pearsonMeanB = 0;
+  private pearsonM2A = 0;
+  private pearsonM2B = 0;
+  private pearsonCoMoment = 0;
+  // Per channel across stimuli: Welford mean and M2 of a_nk, running mean of b_nk.
+  private readonly channelMeanA: Float64Array;
+  private readonly channelM2A: Float64Array;
+  private readonly channelMeanB: Float64Array;
+  private nonFiniteBase = 0;
+  private nonFiniteMod = 0;
+  private zeroNormStimuli = 0;
+  // Per-stimulus vectors, grown by doubling.
+  private capacity: number;
+  private stimulusChange: Float64Array;
+  private meansA: Float32Array;
+  private meansB: Float32Array;
+
+  /**
+   * @param options elements, channels, spatial, tolerance (default 0.01), layer name, expectedStimuli.
+   * @throws UsageError when a size is not a positive integer, elements ≠ channels × spatial, or the
+   *   tolerance is negative or not finite.
+   */
+  constructor(options: LayerDiffOptions) {
+    const { elements, channels, spatial } = options;
+    this.layer = options.layer ?? 'layer';
+    this.tolerance = options.tolerance ?? 0.01;
+    for (const [name, value] of [
+      ['elements', elements],
+      ['channels', channels],
+      ['spatial', spatial],
+    ] as const) {
+      if (!Number.isInteger(value) || value < 1) {
+        throw new UsageError('E_DIFF_SHAPE', `${this.layer}: ${name} = ${String(value)} is not a positive integer`);
+      }
+    }
+    if (elements !== channels * spatial) {
+      throw new UsageError(
+        'E_DIFF_SHAPE',
+        `${this.layer}: elements = ${elements} but channels × spatial = ${channels} × ${spatial} = ${channels * spatial}`,
+        { hint: 'spatial is H·W for a C×H×W tensor, 1 for a vector' },
+      );
+    }
+    if (!(this.tolerance >= 0) || !Number.isFinite(this.tolerance)) {
+      throw new UsageError('E_DIFF_OPTION', `${this.layer}: tolerance = ${String(this.tolerance)} is not a finite number ≥ 0`, {
+        hint: 'use e.g. 0.01 for ±1%',
+      });
+    }
+    this.elements = elements;
+    this.channels = channels;
+    this.spatial = spatial;
+    this.channelMeanA = new Float64Array(channels);
+    this.channelM2A = new Float64Array(channels);
+    this.channelMeanB = new Float64Array(channels);
+    const expected = options.expectedStimuli;
+    this.capacity = expected !== undefined && Number.isInteger(expected) && expected > 0 ? expected : 64;
+    this.stimulusChange = new Float64Array(this.capacity);
+    this.meansA = new Float32Array(this.capacity * channels);
+    this.meansB = new Float32Array(this.capacity * channels);
+  }
+
+  /** Stimuli accumulated so far. */
+  get count(): number {
+    return this.stimuli;
+  }
+
+  /**
+   * Adds a batch of `rows` stimuli, the same stimuli in the same order on both sides.
+   *
+   * @param base baseline activations, exactly rows × E values (pass a subarray for part of a buffer).
+   * @param mod modulated activations, same layout.
+   * @param rows number of stimuli in the batch (0 is a no-op).
+   * @throws UsageError when rows is not a non-negative integer or a side's length is not rows × E.
+   */
+  add(base: Float32Array, mod: Float32Array, rows: number): void {
+    if (!Number.isInteger(rows) || rows < 0) {
+      throw new UsageError('E_DIFF_BATCH', `${this.layer}: batch rows = ${String(rows)} is not a non-negative integer`);
+    }
+    const E = this.elements;
+    for (const [side, data] of [
+      ['baseline', base],
+      ['modulated', mod],
+    ] as const) {
+      if (data.length !== rows * E) {
+        throw new UsageError(
+          'E_DIFF_BATCH',
+          `${this.layer}: ${side} batch has ${data.length} values but rows × elements = ${rows} × ${E} = ${rows * E}`,
+          { hint: 'pass exactly the batch (use subarray for part of a buffer)' },
+        );
+      }
+    }
+    this.reserve(this.stimuli + rows);
+    for (let n = 0; n < rows; n++) this.addStimulus(base, mod, n * E);
+  }
+
+  private addStimulus(base: Float32Array, mod: Float32Array, offset: number): void {
+    const C = this.channels;
+    const S = this.spatial;
+    const n = this.stimuli;
+    const seen = n + 1;
+    const meanRow = n * C; // [N, C]: i = n*C + k
+    const meansA = this.meansA;
+    const meansB = this.meansB;
+    const channelMeanA = this.channelMeanA;
+    const channelM2A = this.channelM2A;
+    const channelMeanB = this.channelMeanB;
+    let sumA = 0;
+    let sumB = 0;
+    let sumAA = 0;
+    let sumBB = 0;
+    let sumAB = 0;
+    let sumDD = 0;
+    // Two copies of the channel loop so that the S = 1 case carries no inner loop (branch hoisted).
+    if (S === 1) {
+      for (let k = 0; k < C; k++) {
+        const a = base[offset + k]!;
+        const b = mod[offset + k]!;
+        const d = b - a;
+        sumA += a;
+        sumB += b;
+        sumAA += a * a;
+        sumBB += b * b;
+        sumAB += a * b;
+        sumDD += d * d;
+        if (!Number.isFinite(a)) this.nonFiniteBase++;
+        if (!Number.isFinite(b)) this.nonFiniteMod++;
+        meansA[meanRow + k] = a;
+        meansB[meanRow + k] = b;
+        const delta = a - channelMeanA[k]!;
+        channelMeanA[k] += delta / seen;
+        channelM2A[k] += delta * (a - channelMeanA[k]!);
+        channelMeanB[k] += (b - channelMeanB[k]!) / seen;
+      }
+    } else {
+      for (let k = 0; k < C; k++) {
+        const start = offset + k * S; // channel k of this stimulus: [start, start + S)
+        const end = start + S;
+        let ca = 0;
+        let cb = 0;
+        let caa = 0;
+        let cbb = 0;
+        let cab = 0;
+        let cdd = 0;
+        for (let i = start; i < end; i++) {
+          const a = base[i]!;
+          const b = mod[i]!;
+          const d = b - a;
+          ca += a;
+          cb += b;
+          caa += a * a;
+          cbb += b * b;
+          cab += a * b;
+          cdd += d * d;
+        }
+        // A float32 squared never overflows a double, so a non-finite sum of squares means a non-finite input.
+        if (!Number.isFinite(caa)) this.nonFiniteBase += countNonFinite(base, start, end);
+        if (!Number.isFinite(cbb)) this.nonFiniteMod += countNonFinite(mod, start, end);
+        sumA += ca;
+        sumB += cb;
+        sumAA += caa;
+        sumBB += cbb;
+        sumAB += cab;
+        sumDD += cdd;
+        const am = ca / S;
+        const bm = cb / S;
+        meansA[meanRow + k] = am;
+        meansB[meanRow + k] = bm;
+        const delta = am - channelMeanA[k]!;
+        channelMeanA[k] += delta / seen;
+        channelM2A[k] += delta * (am - channelMeanA[k]!);
+        channelMeanB[k] += (bm - channelMeanB[k]!) / seen;
+      }
+    }
+    if (sumAA === 0) this.zeroNormStimuli++;
+    this.stimulusChange[n] = relativeNorm(sumDD, sumAA);
+    addCompensated(this.pooled, AA, sumAA);
+    addCompensated(this.pooled, BB, sumBB);
+    addCompensated(this.pooled, AB, sumAB);
+    addCompensated(this.pooled, DD, sumDD);
+    // This stimulus' centred moments (clamped at 0 against cancellation), merged into the pooled ones.
+    const E = this.elements;
+    const meanA = sumA / E;
+    const meanB = sumB / E;
+    const m2A = Math.max(0, sumAA - sumA * meanA);
+    const m2B = Math.max(0, sumBB - sumB * meanB);
+    // Cauchy–Schwarz bound, so that rounding cannot push |r| above 1 or break a = b → r = 1.
+    const bound = Math.sqrt(m2A * m2B);
+    const coMoment = Math.max(-bound, Math.min(bound, sumAB - sumA * meanB));
+    this.mergePearson(E, meanA, meanB, m2A, m2B, coMoment);
+    this.stimuli = seen;
+  }
+
+  private mergePearson(count: number, meanA: number, meanB: number, m2A: number, m2B: number, coMoment: number): void {
+    const before = this.pearsonCount;
+    const total = before + count;
+    const dA = meanA - this.pearsonMeanA;
+    const dB = meanB - this.pearsonMeanB;
+    const weight = (before * count) / total;
+    this.pearsonM2A += m2A + dA * dA * weight;
+    this.pearsonM2B += m2B + dB * dB * weight;
+    this.pearsonCoMoment += coMoment + dA * dB * weight;
+    this.pearsonMeanA += (dA * count) / total;
+    this.pearsonMeanB += (dB * count) / total;
+    this.pearsonCount = total;
+  }
+
+  /**
+   * Folds in another accumulator's statistics, computed over a disjoint set of stimuli (a shard). The
+   * pooled sums and moments combine by exact formulas; the per-stimulus vectors are concatenated, this
+   * accumulator's stimuli first. `other` is not modified.
+   *
+   * @param other an accumulator with the same elements, channels, spatial and tolerance.
+   * @returns this, for chaining.
+   * @throws UsageError when the shapes or tolerances differ, or `other` is this accumulator.
+   */
+  merge(other: LayerDiffAccumulator): this {
+    if (other === this) throw new UsageError('E_DIFF_MERGE', `${this.layer}: cannot merge an accumulator with itself`);
+    if (
+      other.elements !== this.elements ||
+      other.channels !== this.channels ||
+      other.spatial !== this.spatial ||
+      other.tolerance !== this.tolerance
+    ) {
+      throw new UsageError(
+        'E_DIFF_MERGE',
+        `${this.layer}: cannot merge shape ${other.channels}×${other.spatial} (tolerance ${other.tolerance}) into ${this.channels}×${this.spatial} (tolerance ${this.tolerance})`,
+      );
+    }
+    const n = this.stimuli;
+    const m = other.stimuli;
+    if (m === 0) return this;
+    const total = n + m;
+    this.reserve(total);
+    const C = this.channels;
+    for (let k = 0; k < C; k++) {
+      const delta = other.channelMeanA[k]! - this.channelMeanA[k]!;
+      this.channelM2A[k] += other.channelM2A[k]! + (delta * delta * n * m) / total;
+      this.channelMeanA[k] += (delta * m) / total;
+      this.channelMeanB[k] += ((other.channelMeanB[k]! - this.channelMeanB[k]!) * m) / total;
+    }
+    for (let i = 0; i < 4; i++) {
+      addCompensated(this.pooled, i, other.pooled[2 * i]!);
+      addCompensated(this.pooled, i, other.pooled[2 * i + 1]!);
+    }
+    this.mergePearson(
+      other.pearsonCount,
+      other.pearsonMeanA,
+      other.pearsonMeanB,
+      other.pearsonM2A,
+      other.pearsonM2B,
+      other.pearsonCoMoment,
+    );
+    this.stimulusChange.set(other.stimulusChange.subarray(0, m), n);
+    this.meansA.set(other.meansA.subarray(0, m * C), n * C);
+    this.meansB.set(other.meansB.subarray(0, m * C), n * C);
+    this.nonFiniteBase += other.nonFiniteBase;
+    this.nonFiniteMod += other.nonFiniteMod;
+    this.zeroNormStimuli += other.zeroNormStimuli;
+    this.stimuli = total;
+    return this;
+  }
+
+  /**
+   * The per-stimulus channel means a_nk and b_nk accumulated so far (e.g. for the signature bootstrap).
+   *
+   * @returns views [N, C] into the accumulator's buffers; valid until the next `add` or `merge`
+   *   (copy them with `slice()` to keep them).
+   * @throws never.
+   */
+  channelMeans(): ChannelMeans {
+    const size = this.stimuli * this.channels;
+    return {
+      stimuli: this.stimuli,
+      channels: this.channels,
+      base: this.meansA.subarray(0, size),
+      mod: this.meansB.subarray(0, size),
+    };
+  }
+
+  /**
+   * The layer's metrics over everything added so far. Does not reset; more batches may follow.
+   *
+   * @returns the metrics (see `LayerDiffMetrics` for each definition and its edge cases).
+   * @throws UsageError when no stimulus has been added.
+   */
+  finish(): LayerDiffMetrics {
+    const N = this.stimuli;
+    if (N === 0) {
+      throw new UsageError('E_DIFF_EMPTY', `${this.layer}: no stimuli were added to the diff`, {
+        hint: 'check that both snapshots hold rows for this layer',
+      });
+    }
+    const C = this.channels;
+    const sumAA = this.pooled[2 * AA]! + this.pooled[2 * AA + 1]!;
+    const sumBB = this.pooled[2 * BB]! + this.pooled[2 * BB + 1]!;
+    const sumAB = this.pooled[2 * AB]! + this.pooled[2 * AB + 1]!;
+    const sumDD = this.pooled[2 * DD]! + this.pooled[2 * DD + 1]!;
+    const cosine = sumAA > 0 && sumBB > 0 ? clampUnit(sumAB / Math.sqrt(sumAA * sumBB)) : Number.NaN;
+    const pearson =
+      this.pearsonM2A > 0 && this.pearsonM2B > 0
+        ? clampUnit(this.pearsonCoMoment / Math.sqrt(this.pearsonM2A * this.pearsonM2B))
+        : Number.NaN;
+
+    const channelRatio = new Float64Array(C);
+    const channelEffectSize = new Float64Array(C);
+    let ratioExcluded = 0;
+    let ratioCount = 0;
+    let ratioMean = 0;
+    let ratioM2 = 0;
+    let up = 0;
+    let down = 0;
+    let ratioNaN = false;
+    let effectExcluded = 0;
+    let effectSum = 0;
+    for (let k = 0; k < C; k++) {
+      const meanA = this.channelMeanA[k]!;
+      const meanB = this.channelMeanB[k]!;
+      if (meanA === 0) {
+        channelRatio[k] = Number.NaN;
+        ratioExcluded++;
+      } else {
+        const ratio = meanB / meanA;
+        channelRatio[k] = ratio;
+        ratioCount++;
+        const delta = ratio - ratioMean;
+        ratioMean += delta / ratioCount;
+        ratioM2 += delta * (ratio - ratioMean);
+        if (Number.isNaN(ratio)) ratioNaN = true;
+        if (ratio > 1 + this.tolerance) up++;
+        else if (ratio < 1 - this.tolerance) down++;
+      }
+      const sd = Math.sqrt(this.channelM2A[k]! / (N - 1));
+      if (sd === 0) {
+        channelEffectSize[k] = Number.NaN;
+        effectExcluded++;
+      } else {
+        const d = (meanB - meanA) / sd;
+        channelEffectSize[k] = d;
+        effectSum += Math.abs(d);
+      }
+    }
+    const effectCount = C - effectExcluded;
+    return {
+      stimuli: N,
+      elements: this.elements,
+      channels: C,
+      spatial: this.spatial,
+      relativeChange: relativeNorm(sumDD, sumAA),
+      relativeChangeMedian: median(this.stimulusChange.subarray(0, N)),
+      zeroNormStimuli: this.zeroNormStimuli,
+      cosine,
+      pearson,
+      channelRatio,
+      channelRatioExcluded: ratioExcluded,
+      channelRatioMean: ratioCount > 0 ? ratioMean : Number.NaN,
+      channelRatioSd: ratioCount > 1 ? Math.sqrt(ratioM2 / (ratioCount - 1)) : Number.NaN,
+      fractionUp: ratioCount > 0 && !ratioNaN ? up / ratioCount : Number.NaN,
+      fractionDown: ratioCount > 0 && !ratioNaN ? down / ratioCount : Number.NaN,
+      channelEffectSize,
+      effectSize: effectCount > 0 ? effectSum / effectCount : Number.NaN,
+      effectSizeExcluded: effectExcluded,
+      nonFinite: { base: this.nonFiniteBase, mod: this.nonFiniteMod },
+      tolerance: this.tolerance,
+    };
+  }
+
+  private reserve(stimuli: number): void {
+    if (stimuli <= this.capacity) return;
+    let capacity = this.capacity * 2;
+    while (capacity < stimuli) capacity *= 2;
+    const C = this.channels;
+    const change = new Float64Array(capacity);
+    change.set(this.stimulusChange.subarray(0, this.stimuli));
+    const meansA = new Float32Array(capacity * C);
+    meansA.set(this.meansA.subarray(0, this.stimuli * C));
+    const meansB = new Float32Array(capacity * C);
+    meansB.set(this.meansB.subarray(0, this.stimuli * C));
+    this.stimulusChange = change;
+    this.meansA = meansA;
+    this.meansB = meansB;
+    this.capacity = capacity;
+  }
+}
+
+/** √(diff²) / √(base²) with the zero rule: 0/0 → 0 (nothing changed), x/0 → +Infinity; NaN propagates. */
+function relativeNorm(sumDiffSquares: number, sumBaseSquares: number): number {
+  if (sumBaseSquares === 0) return sumDiffSquares === 0 ? 0 : sumDiffSquares > 0 ? Number.POSITIVE_INFINITY : Number.NaN;
+  return Math.sqrt(sumDiffSquares) / Math.sqrt(sumBaseSquares);
+}
+
+/** Neumaier's compensated addition (Neumaier 1974) into sums[2i] with its running error in sums[2i + 1]. */
+function addCompensated(sums: Float64Array, i: number, value: number): void {
+  const sum = sums[2 * i]!;
+  const next = sum + value;
+  if (Math.abs(sum) >= Math.abs(value)) sums[2 * i + 1] += sum - next + value;
+  else sums[2 * i + 1] += value - next + sum;
+  sums[2 * i] = next;
+}
+
+function countNonFinite(data: Float32Array, start: number, end: number): number {
+  let count = 0;
+  for (let i = start; i < end; i++) if (!Number.isFinite(data[i]!)) count++;
+  return count;
+}
+
+function clampUnit(value: number): number {
+  return value > 1 ? 1 : value < -1 ? -1 : value;
+}
