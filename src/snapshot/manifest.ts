@@ -2,7 +2,7 @@
  * The snapshot manifest (`manifest.json`): the contract every reader of a snapshot relies on.
  * FORMAT_VERSION changes whenever a field changes meaning; readers refuse versions they do not know.
  */
-import { existsSync, readFileSync } from 'node:fs';
+import { closeSync, existsSync, fsyncSync, openSync, readFileSync, renameSync, writeSync } from 'node:fs';
 import { isAbsolute, join, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 
@@ -129,5 +129,27 @@ export function assertComplete(manifest: SnapshotManifest, folder: string): void
     throw new RuntimeFailure('E_SNAPSHOT_INCOMPLETE', `snapshot ${folder} is incomplete${manifest.error ? ` (${manifest.error})` : ' (the recording did not finish)'}`, {
       hint: 'record it again',
     });
+  }
+}
+
+/**
+ * Writes `manifest.json` atomically (temporary file, fsync, rename), so a reader sees either the old or
+ * the new manifest, never a torn one.
+ */
+export function writeManifest(folder: string, manifest: SnapshotManifest): void {
+  const path = join(folder, 'manifest.json');
+  const temporary = `${path}.partial`;
+  try {
+    const fd = openSync(temporary, 'w');
+    try {
+      writeSync(fd, `${JSON.stringify(manifest, null, 2)}\n`);
+      fsyncSync(fd);
+    } finally {
+      closeSync(fd);
+    }
+    renameSync(temporary, path);
+  } catch (error) {
+    const code = (error as NodeJS.ErrnoException).code;
+    throw new RuntimeFailure('E_WRITE', `cannot write ${path}: ${code === 'ENOSPC' ? 'the disk is full' : (error as Error).message}`);
   }
 }

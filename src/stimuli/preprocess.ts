@@ -21,6 +21,7 @@ export function parseChannelList(text: string, channels: number, option: string)
   if (values.some((v) => !Number.isFinite(v)) || text.trim() === '') {
     throw new UsageError('E_PREPROCESS', `${option} "${text}" must be comma-separated numbers, e.g. 0.485,0.456,0.406`);
   }
+  if (channels <= 0) return values; // count checked later against the model
   if (values.length === 1) return new Array<number>(channels).fill(values[0]!);
   if (values.length !== channels) {
     throw new UsageError('E_PREPROCESS', `${option} "${text}" has ${values.length} values but the model input has ${channels} channels`);

@@ -1,7 +1,7 @@
 import type { Command } from 'commander';
+import { registerLayers } from './layers.js';
+import { registerRecord } from './record.js';
 import { registerStimuli } from './stimuli.js';
 
-
-
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerStimuli];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerLayers, registerRecord, registerStimuli];

@@ -1,0 +1,37 @@
+import Table from 'cli-table3';
+import type { Command } from 'commander';
+import { inspectModel } from '../../pipeline/inspect-model.js';
+import { parseShape } from '../../stimuli/preprocess.js';
+import { megabytes } from '../options.js';
+import { cliIo } from '../run.js';
+
+/** `sonde layers MODEL`: every recordable tensor with depth, op, shape, size, default selection. */
+export function registerLayers(program: Command): void {
+  program
+    .command('layers')
+    .description('list the recordable tensors of an ONNX model, in topological order')
+    .argument('<model>', 'ONNX model file')
+    .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes, e.g. 1x3x224x224')
+    .option('--json', 'print JSON instead of a table')
+    .action(async (modelPath: string, opts: { inputShape?: string; json?: boolean }) => {
+      const inspection = await inspectModel(modelPath, opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {});
+      const io = cliIo();
+      if (opts.json) {
+        const json = {
+          model: inspection.model.fileName,
+          input: { name: inspection.input.name, shape: inspection.input.shape },
+          layers: inspection.layers.map((l) => ({ name: l.name, op: l.op, depth: l.depth, shape: l.shape, elements: l.elements, default: l.default })),
+        };
+        io.stdout(`${JSON.stringify(json, null, 2)}\n`);
+        return;
+      }
+      const table = new Table({ head: ['depth', 'tensor', 'op', 'shape', 'elements', 'default'], style: { head: [], border: [], compact: true } });
+      for (const l of inspection.layers) table.push([l.depth, l.name, l.op, l.shape.join('×'), l.elements, l.default ? 'yes' : '']);
+      io.stdout(`${table.toString()}\n`);
+      const defaults = inspection.layers.filter((l) => l.default);
+      const bytes = (list: typeof defaults) => list.reduce((s, l) => s + l.elements * 4, 0);
+      io.stdout(
+        `${inspection.layers.length} recordable tensors (${defaults.length} by default); activations per stimulus: ${megabytes(bytes(defaults))} default, ${megabytes(bytes(inspection.layers))} all; ${inspection.model.parameterCount.toLocaleString('en-US')} parameters; input ${inspection.input.name} [${inspection.input.shape.join(', ')}]\n`,
+      );
+    });
+}

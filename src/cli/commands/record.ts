@@ -1,0 +1,78 @@
+import type { Command } from 'commander';
+import { recordSnapshot, displayPath } from '../../pipeline/record-snapshot.js';
+import { parseChannelList, parseShape, parseSize } from '../../stimuli/preprocess.js';
+import { UsageError } from '../../errors.js';
+import { megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
+import { createProgressBar } from '../progress.js';
+import { cliIo } from '../run.js';
+
+interface RecordCliOptions {
+  stimuli: string;
+  out: string;
+  labels?: string;
+  layers?: string;
+  keep: string;
+  dtype: string;
+  batch: number;
+  threads: number;
+  size?: string;
+  mean?: string;
+  std?: string;
+  bgr?: boolean;
+  inputShape?: string;
+  force?: boolean;
+}
+
+/** `sonde record MODEL --stimuli SRC --out DIR`: record a snapshot. */
+export function registerRecord(program: Command): void {
+  program
+    .command('record')
+    .description('run a model over stimuli and record every selected layer into an Arrow snapshot')
+    .argument('<model>', 'ONNX model file')
+    .requiredOption('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W]')
+    .requiredOption('--out <dir>', 'snapshot folder (a bare name goes under snapshots/)')
+    .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
+    .option('--layers <selector>', 'default | all | op:Relu,Conv | name globs, joined by +', 'default')
+    .option('--keep <what>', 'full (activations and channel means) or channels (channel means only)', 'full')
+    .option('--dtype <type>', 'activation storage: float32 or float16', 'float32')
+    .option('--batch <n>', 'stimuli per batch', positiveInteger, 16)
+    .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
+    .option('--size <HxW>', 'image size (default: the model input size)')
+    .option('--mean <a,b,c>', 'per-channel mean after scaling to [0,1] (default: model sidecar, else 0)')
+    .option('--std <a,b,c>', 'per-channel std after scaling to [0,1] (default: model sidecar, else 1)')
+    .option('--bgr', 'feed channels in BGR order')
+    .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
+    .option('--force', 'replace a complete snapshot already in --out')
+    .action(async (modelPath: string, opts: RecordCliOptions) => {
+      const io = cliIo();
+      if (opts.keep !== 'full' && opts.keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${opts.keep}"`);
+      if (opts.dtype !== 'float32' && opts.dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${opts.dtype}"`);
+      const bar = createProgressBar('record');
+      try {
+        const summary = await recordSnapshot({
+          model: modelPath,
+          stimuli: opts.stimuli,
+          out: opts.out,
+          layers: opts.layers,
+          keep: opts.keep,
+          dtype: opts.dtype,
+          batch: opts.batch,
+          threads: opts.threads,
+          ...(opts.labels ? { labels: opts.labels } : {}),
+          ...(opts.size ? { size: parseSize(opts.size) } : {}),
+          ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
+          ...(opts.std ? { std: parseChannelList(opts.std, 0, '--std') } : {}),
+          ...(opts.bgr ? { bgr: true } : {}),
+          ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
+          ...(opts.force ? { force: true } : {}),
+          onProgress: (p) => bar.update(p.done, p.total, megabytes(p.bytesWritten)),
+        });
+        bar.stop();
+        io.stdout(
+          `recorded ${summary.stimuli} stimuli × ${summary.layers} layers into ${displayPath(summary.folder)}: ${megabytes(summary.bytesWritten)} in ${summary.wallSeconds.toFixed(2)} s (${summary.stimuliPerSecond.toFixed(1)} stimuli/s)\n`,
+        );
+      } finally {
+        bar.stop();
+      }
+    });
+}

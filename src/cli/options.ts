@@ -1,0 +1,27 @@
+import { InvalidArgumentError } from 'commander';
+
+/** commander parser for positive integers; the message names the option through commander. */
+export function positiveInteger(value: string): number {
+  const n = Number(value);
+  if (!Number.isInteger(n) || n <= 0) throw new InvalidArgumentError(`"${value}" is not a positive integer.`);
+  return n;
+}
+
+/** commander parser for non-negative integers. */
+export function nonNegativeInteger(value: string): number {
+  const n = Number(value);
+  if (!Number.isInteger(n) || n < 0) throw new InvalidArgumentError(`"${value}" is not a non-negative integer.`);
+  return n;
+}
+
+/** commander parser for finite numbers. */
+export function finiteNumber(value: string): number {
+  const n = Number(value);
+  if (value.trim() === '' || !Number.isFinite(n)) throw new InvalidArgumentError(`"${value}" is not a number.`);
+  return n;
+}
+
+/** Formats a byte count as MB with one decimal. */
+export function megabytes(bytes: number): string {
+  return `${(bytes / 1e6).toFixed(bytes < 1e5 ? 3 : 1)} MB`;
+}

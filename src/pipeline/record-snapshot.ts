@@ -1,0 +1,274 @@
+import { createHash } from 'node:crypto';
+import { relative } from 'node:path';
+import { UsageError } from '../errors.js';
+import { exposeTensors } from '../graph/instrument.js';
+import { loadModel, type LoadedModel } from '../graph/load-model.js';
+import { selectLayers } from '../graph/select.js';
+import { readSidecar } from '../graph/sidecar.js';
+import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
+import { LayerFileWriter } from '../snapshot/layer-file.js';
+import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
+import { writeStimuliFile } from '../snapshot/stimuli-file.js';
+import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
+import type { Preprocessing } from '../stimuli/preprocess.js';
+import { TOOL_VERSION } from '../version.js';
+import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
+import { prepareOutFolder, resolveOutFolder, slugify } from './output-folder.js';
+
+/** Progress of a recording, reported after every batch. */
+export interface RecordProgress {
+  done: number;
+  total: number;
+  elapsedSeconds: number;
+  bytesWritten: number;
+}
+
+/** Options of `recordSnapshot`. Only `model`, `stimuli` and `out` are required. */
+export interface RecordOptions {
+  /** Path of the .onnx model (or a model already loaded). */
+  model: string | LoadedModel;
+  /** Folder of category subfolders, a `path,label` CSV, or a float32 `.npy` [N,C,H,W]. */
+  stimuli: string;
+  /** For `.npy` stimuli: a CSV with one `label` column, in row order. */
+  labels?: string;
+  /** Output folder; a bare name goes under `snapshots/`. */
+  out: string;
+  /** Layer selector (`default`, `all`, `op:Relu,Conv`, globs, names joined by `+`). Default `default`. */
+  layers?: string;
+  /** `full` (default) keeps activations and channel means; `channels` only channel means. */
+  keep?: KeepMode;
+  /** Storage of activations: `float32` (default) or `float16`. */
+  dtype?: ActivationDtype;
+  /** Stimuli per batch (default 16). */
+  batch?: number;
+  /** Runtime intra-op threads; 0 (default) lets the runtime choose. */
+  threads?: number;
+  /** Image size HxW; defaults to the model's input size. */
+  size?: [number, number];
+  /** Per-channel mean/std applied after scaling pixels to [0,1]; default from the model's sidecar, else 0 and 1. */
+  mean?: number[];
+  std?: number[];
+  /** Feed BGR instead of RGB. */
+  bgr?: boolean;
+  /** Full input shape for models with dynamic spatial axes. */
+  inputShape?: number[];
+  /** Replace a complete snapshot already in `out`. */
+  force?: boolean;
+  /** Called after every batch. */
+  onProgress?: (progress: RecordProgress) => void;
+  /** Internal: extends the run (modulation inputs, graph changes, manifest fields). */
+  extension?: RecordExtension;
+}
+
+/** Hooks the modulation pipeline uses to extend a plain recording. */
+export interface RecordExtension {
+  /** Rewrites the model before outputs are exposed (e.g. inserts gain inputs). */
+  transformModel?(model: LoadedModel, inspection: ModelInspection): LoadedModel;
+  /** Extra feeds for the batch of `rows` stimuli starting at `firstStimulus`. */
+  extraFeeds?(firstStimulus: number, rows: number): Record<string, FloatTensor>;
+  /** Stored in the manifest's `modulation` field. */
+  manifestModulation?: unknown;
+  /** Stored in the manifest's `baseline` field. */
+  manifestBaseline?: SnapshotManifest['baseline'];
+}
+
+/** What `recordSnapshot` returns. */
+export interface RecordSummary {
+  folder: string;
+  manifest: SnapshotManifest;
+  stimuli: number;
+  layers: number;
+  bytesWritten: number;
+  wallSeconds: number;
+  stimuliPerSecond: number;
+}
+
+/**
+ * Records a snapshot: runs the model over every stimulus with the selected tensors exposed, and writes
+ * one Arrow file per layer, `stimuli.arrow` and `manifest.json` (marked complete last). Reading the
+ * next batch and writing the previous one overlap the runtime's computation of the current one;
+ * memory holds about two batches.
+ * @throws UsageError for bad options or inputs (before anything is marked complete); RuntimeFailure
+ *   for runtime or write failures (the manifest then says `complete: false` with the error).
+ */
+export async function recordSnapshot(options: RecordOptions): Promise<RecordSummary> {
+  const started = performance.now();
+  const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
+  const sidecar = readSidecar(model.path);
+  const keep = options.keep ?? 'full';
+  const dtype = options.dtype ?? 'float32';
+  if (keep !== 'full' && keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${String(keep)}"`);
+  if (dtype !== 'float32' && dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${String(dtype)}"`);
+  const requestedBatch = options.batch ?? 16;
+  if (!Number.isInteger(requestedBatch) || requestedBatch <= 0) throw new UsageError('E_BATCH', `--batch must be a positive integer, got ${requestedBatch}`);
+  let inputShape = options.inputShape;
+  const declared = model.input.dims;
+  if (!inputShape && options.size && declared.length === 4 && (typeof declared[2] !== 'number' || typeof declared[3] !== 'number') && typeof declared[1] === 'number') {
+    inputShape = [1, declared[1], options.size[0], options.size[1]];
+  }
+  const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
+  const selected = selectLayers(inspection.layers, options.layers);
+  const [, channels, height, width] = inspection.input.shape.length === 4 ? inspection.input.shape : [0, 0, 0, 0];
+  if (inspection.input.shape.length !== 4) {
+    throw new UsageError('E_INPUT_SHAPE', `input "${model.input.name}" has shape [${inspection.input.shape.join(', ')}]; Sonde feeds NCHW image batches`);
+  }
+  if (options.size && (options.size[0] !== height || options.size[1] !== width)) {
+    throw new UsageError('E_STIMULI_SHAPE', `--size ${options.size.join('x')} does not match the model input ${height}x${width}`);
+  }
+  const preprocessing: Preprocessing = {
+    size: [height!, width!],
+    mean: options.mean ?? sidecar?.preprocessing?.mean ?? new Array<number>(channels!).fill(0),
+    std: options.std ?? sidecar?.preprocessing?.std ?? new Array<number>(channels!).fill(1),
+    bgr: options.bgr ?? sidecar?.preprocessing?.bgr ?? false,
+  };
+  for (const [key, list] of [['--mean', preprocessing.mean], ['--std', preprocessing.std]] as const) {
+    if (list.length !== channels) throw new UsageError('E_PREPROCESS', `${key} has ${list.length} values but the model input has ${channels} channels`);
+  }
+  if (preprocessing.std.some((s) => s === 0)) throw new UsageError('E_PREPROCESS', '--std values must not be 0');
+  const source = openStimulusSource(options.stimuli, { preprocessing, channels: channels!, ...(options.labels ? { labelsFile: options.labels } : {}) });
+  const fixedBatch = typeof declared[0] === 'number' ? declared[0] : null;
+  const batch = fixedBatch ?? requestedBatch;
+
+  const folder = resolveOutFolder(options.out);
+  prepareOutFolder(folder, options.force ?? false);
+  const transformed = options.extension?.transformModel ? options.extension.transformModel(model, inspection) : model;
+  const layerEntries: ManifestLayer[] = selected.map((layer) => ({
+    name: layer.name,
+    op: layer.op,
+    depth: layer.depth,
+    shape: layer.shape,
+    dtype,
+    keep,
+    file: `layers/${String(layer.depth).padStart(3, '0')}-${slugify(layer.name)}.arrow`,
+  }));
+  const manifest: SnapshotManifest = {
+    format: FORMAT_VERSION,
+    tool: { name: 'sonde', version: TOOL_VERSION },
+    model: { file: model.fileName, sha256: model.sha256, input: { name: model.input.name, shape: inspection.input.shape.slice(1) } },
+    stimuli: { source: source.description, count: source.count, digest: '', listingDigest: listingDigest(source), categories: [...new Set(source.labels.flat())].sort() },
+    preprocessing: source.kind === 'npy' ? null : preprocessing,
+    modulation: options.extension?.manifestModulation ?? null,
+    baseline: options.extension?.manifestBaseline ?? null,
+    run: { mode: 'full', batch, threads: options.threads ?? 0 },
+    created: new Date().toISOString(),
+    layers: layerEntries,
+    complete: false,
+  };
+  writeManifest(folder, manifest);
+
+  const writers = selected.map((layer, i) => new LayerFileWriter(`${folder}/${layerEntries[i]!.file}`, { name: layer.name, shape: layer.shape, dtype, keep }));
+  try {
+    const session = await createNetworkSession(exposeTensors(transformed, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: model.fileName });
+    let bytesWritten = 0;
+    const digest = createHash('sha256');
+    try {
+      await runBatches({
+        source,
+        batch,
+        fixedBatch,
+        inputName: model.input.name,
+        shape: [channels!, height!, width!],
+        digest,
+        extraFeeds: options.extension?.extraFeeds?.bind(options.extension),
+        run: (feeds) => session.run(feeds, selected.map((l) => l.name)),
+        write: (first, rows, outputs) => {
+          selected.forEach((layer, i) => {
+            const tensor = outputs[layer.name];
+            if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
+            checkShape(layer, tensor, rows, fixedBatch);
+            writers[i]!.write(first, rows, tensor.data);
+          });
+          bytesWritten += selected.reduce((sum, l) => sum + rows * ((keep === 'full' ? l.elements * (dtype === 'float16' ? 2 : 4) : 0) + channelsOf(l) * 4), 0);
+          options.onProgress?.({ done: first + rows, total: source.count, elapsedSeconds: (performance.now() - started) / 1000, bytesWritten });
+        },
+      });
+    } finally {
+      await session.close();
+    }
+    let total = 0;
+    writers.forEach((writer, i) => {
+      const result = writer.finish();
+      Object.assign(layerEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows });
+      total += result.bytes;
+    });
+    const stimuliFile = writeStimuliFile(`${folder}/stimuli.arrow`, source.ids, source.labels);
+    total += stimuliFile.bytes;
+    const wallSeconds = (performance.now() - started) / 1000;
+    manifest.stimuli.digest = digest.digest('hex');
+    manifest.run.wallSeconds = Math.round(wallSeconds * 1000) / 1000;
+    manifest.complete = true;
+    writeManifest(folder, manifest);
+    return { folder, manifest, stimuli: source.count, layers: selected.length, bytesWritten: total, wallSeconds, stimuliPerSecond: source.count / wallSeconds };
+  } catch (error) {
+    for (const writer of writers) writer.discard();
+    manifest.error = error instanceof Error ? error.message.split('\n')[0] : String(error);
+    try {
+      writeManifest(folder, manifest);
+    } catch {
+      // the original error matters more
+    }
+    throw error;
+  }
+}
+
+function channelsOf(layer: LayerInfo): number {
+  return layer.shape.length === 0 ? 1 : layer.shape[0]!;
+}
+
+function checkShape(layer: LayerInfo, tensor: FloatTensor, rows: number, fixedBatch: number | null): void {
+  const expected = (fixedBatch ?? rows) * layer.elements;
+  if (tensor.data.length !== expected) {
+    throw new UsageError('E_RUNTIME_OUTPUT', `"${layer.name}" came back with shape [${tensor.dims.join(', ')}], expected [${fixedBatch ?? rows}, ${layer.shape.join(', ')}] (shapes that depend on the batch are not supported)`);
+  }
+}
+
+interface BatchLoop {
+  source: StimulusSource;
+  batch: number;
+  fixedBatch: number | null;
+  inputName: string;
+  shape: [number, number, number];
+  digest: ReturnType<typeof createHash>;
+  extraFeeds: ((first: number, rows: number) => Record<string, FloatTensor>) | undefined;
+  run: (feeds: Record<string, FloatTensor>) => Promise<Record<string, FloatTensor>>;
+  write: (first: number, rows: number, outputs: Record<string, FloatTensor>) => void;
+}
+
+/**
+ * The pipelined loop: while the runtime computes batch k, the stimuli of batch k+1 are decoded and the
+ * outputs of batch k−1 are written. At most two input and two output batches are alive.
+ */
+async function runBatches(loop: BatchLoop): Promise<void> {
+  const [c, h, w] = loop.shape;
+  const per = c * h * w;
+  const count = loop.source.count;
+  const batches = Math.ceil(count / loop.batch);
+  const readBatch = async (k: number): Promise<{ first: number; rows: number; data: Float32Array }> => {
+    const first = k * loop.batch;
+    const rows = Math.min(loop.batch, count - first);
+    const data = new Float32Array((loop.fixedBatch ?? rows) * per); // padded with zeros for fixed-batch models
+    await loop.source.read(first, rows, data);
+    return { first, rows, data };
+  };
+  let nextInput = batches > 0 ? readBatch(0) : null;
+  let pending: { first: number; rows: number; outputs: Record<string, FloatTensor> } | null = null;
+  for (let k = 0; k < batches; k++) {
+    const input = await nextInput!;
+    nextInput = k + 1 < batches ? readBatch(k + 1) : null;
+    nextInput?.catch(() => undefined); // surfaced when awaited
+    loop.digest.update(new Uint8Array(input.data.buffer, 0, input.rows * per * 4));
+    const feeds: Record<string, FloatTensor> = { [loop.inputName]: { data: input.data, dims: [loop.fixedBatch ?? input.rows, c, h, w] } };
+    if (loop.extraFeeds) Object.assign(feeds, loop.extraFeeds(input.first, loop.fixedBatch ?? input.rows));
+    const running = loop.run(feeds);
+    running.catch(() => undefined);
+    if (pending) loop.write(pending.first, pending.rows, pending.outputs);
+    pending = { first: input.first, rows: input.rows, outputs: await running };
+  }
+  if (pending) loop.write(pending.first, pending.rows, pending.outputs);
+}
+
+/** For messages: a path relative to the working folder. */
+export function displayPath(path: string): string {
+  const rel = relative(process.cwd(), path);
+  return rel.startsWith('..') ? path : rel || '.';
+}
