@@ -45,7 +45,8 @@ export function readValuesFile(path: string, label: string): number[] {
   }
   let bytes: Uint8Array;
   try {
-    bytes = readFileSync(path);
+    // a plain copy: parseNpy's `slice` would share memory (and offsets) with a Node Buffer
+    bytes = new Uint8Array(readFileSync(path));
   } catch (error) {
     const code = error instanceof Error && 'code' in error ? (error as NodeJS.ErrnoException).code : undefined;
     if (code === 'ENOENT' || code === 'ENOTDIR') {
