@@ -1,6 +1,6 @@
 import { createHash } from 'node:crypto';
 import { relative } from 'node:path';
-import { UsageError } from '../errors.js';
+import { closestHint, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
@@ -35,6 +35,8 @@ export interface RecordOptions {
   out: string;
   /** Layer selector (`default`, `all`, `op:Relu,Conv`, globs, names joined by `+`). Default `default`. */
   layers?: string;
+  /** Exact tensor names to record (instead of `layers`), e.g. the layers of a baseline. */
+  layerNames?: readonly string[];
   /** `full` (default) keeps activations and channel means; `channels` only channel means. */
   keep?: KeepMode;
   /** Storage of activations: `float32` (default) or `float16`. */
@@ -70,6 +72,8 @@ export interface RecordExtension {
   manifestModulation?: unknown;
   /** Stored in the manifest's `baseline` field. */
   manifestBaseline?: SnapshotManifest['baseline'];
+  /** Last check before the manifest is marked complete (e.g. the stimuli digest matches the baseline's). */
+  beforeComplete?(manifest: SnapshotManifest): void;
 }
 
 /** What `recordSnapshot` returns. */
@@ -107,7 +111,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
     inputShape = [1, declared[1], options.size[0], options.size[1]];
   }
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
-  const selected = selectLayers(inspection.layers, options.layers);
+  const selected = options.layerNames ? pickLayers(inspection.layers, options.layerNames, model.fileName) : selectLayers(inspection.layers, options.layers);
   const [, channels, height, width] = inspection.input.shape.length === 4 ? inspection.input.shape : [0, 0, 0, 0];
   if (inspection.input.shape.length !== 4) {
     throw new UsageError('E_INPUT_SHAPE', `input "${model.input.name}" has shape [${inspection.input.shape.join(', ')}]; Sonde feeds NCHW image batches`);
@@ -162,16 +166,12 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
     let bytesWritten = 0;
     const digest = createHash('sha256');
     try {
-      await runBatches({
-        source,
-        batch,
-        fixedBatch,
-        inputName: model.input.name,
-        shape: [channels!, height!, width!],
-        digest,
-        extraFeeds: options.extension?.extraFeeds?.bind(options.extension),
-        run: (feeds) => session.run(feeds, selected.map((l) => l.name)),
-        write: (first, rows, outputs) => {
+      const batches = Math.ceil(source.count / batch);
+      await runPipelined(
+        batches,
+        stimulusBatches(source, batch, fixedBatch, model.input.name, [channels!, height!, width!], digest, options.extension?.extraFeeds?.bind(options.extension)),
+        (feeds) => session.run(feeds, selected.map((l) => l.name)),
+        (first, rows, outputs) => {
           selected.forEach((layer, i) => {
             const tensor = outputs[layer.name];
             if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
@@ -181,7 +181,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
           bytesWritten += selected.reduce((sum, l) => sum + rows * ((keep === 'full' ? l.elements * (dtype === 'float16' ? 2 : 4) : 0) + channelsOf(l) * 4), 0);
           options.onProgress?.({ done: first + rows, total: source.count, elapsedSeconds: (performance.now() - started) / 1000, bytesWritten });
         },
-      });
+      );
     } finally {
       await session.close();
     }
@@ -196,6 +196,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
     const wallSeconds = (performance.now() - started) / 1000;
     manifest.stimuli.digest = digest.digest('hex');
     manifest.run.wallSeconds = Math.round(wallSeconds * 1000) / 1000;
+    options.extension?.beforeComplete?.(manifest);
     manifest.complete = true;
     writeManifest(folder, manifest);
     return { folder, manifest, stimuli: source.count, layers: selected.length, bytesWritten: total, wallSeconds, stimuliPerSecond: source.count / wallSeconds };
@@ -211,6 +212,16 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   }
 }
 
+/** The layers named in `names`, in depth order. @throws UsageError naming a tensor the model lacks. */
+export function pickLayers(layers: readonly LayerInfo[], names: readonly string[], modelName: string): LayerInfo[] {
+  const byName = new Map(layers.map((l) => [l.name, l]));
+  for (const name of names) {
+    if (!byName.has(name)) throw new UsageError('E_SELECTOR', `tensor "${name}" is not a recordable tensor of ${modelName}`, { hint: closestHint(name, [...byName.keys()]) || undefined });
+  }
+  const wanted = new Set(names);
+  return layers.filter((l) => wanted.has(l.name));
+}
+
 function channelsOf(layer: LayerInfo): number {
   return layer.shape.length === 0 ? 1 : layer.shape[0]!;
 }
@@ -222,49 +233,56 @@ function checkShape(layer: LayerInfo, tensor: FloatTensor, rows: number, fixedBa
   }
 }
 
-interface BatchLoop {
-  source: StimulusSource;
-  batch: number;
-  fixedBatch: number | null;
-  inputName: string;
-  shape: [number, number, number];
-  digest: ReturnType<typeof createHash>;
-  extraFeeds: ((first: number, rows: number) => Record<string, FloatTensor>) | undefined;
-  run: (feeds: Record<string, FloatTensor>) => Promise<Record<string, FloatTensor>>;
-  write: (first: number, rows: number, outputs: Record<string, FloatTensor>) => void;
+/** One batch of network feeds, covering stimuli [first, first + rows). */
+export interface FeedBatch {
+  first: number;
+  rows: number;
+  feeds: Record<string, FloatTensor>;
 }
 
 /**
- * The pipelined loop: while the runtime computes batch k, the stimuli of batch k+1 are decoded and the
- * outputs of batch k−1 are written. At most two input and two output batches are alive.
+ * The pipelined loop: while the runtime computes batch k, the feeds of batch k+1 are prepared and the
+ * outputs of batch k−1 are written. At most two feed batches and two output batches are alive.
  */
-async function runBatches(loop: BatchLoop): Promise<void> {
-  const [c, h, w] = loop.shape;
-  const per = c * h * w;
-  const count = loop.source.count;
-  const batches = Math.ceil(count / loop.batch);
-  const readBatch = async (k: number): Promise<{ first: number; rows: number; data: Float32Array }> => {
-    const first = k * loop.batch;
-    const rows = Math.min(loop.batch, count - first);
-    const data = new Float32Array((loop.fixedBatch ?? rows) * per); // padded with zeros for fixed-batch models
-    await loop.source.read(first, rows, data);
-    return { first, rows, data };
-  };
+export async function runPipelined(
+  batches: number,
+  readBatch: (k: number) => Promise<FeedBatch>,
+  run: (feeds: Record<string, FloatTensor>) => Promise<Record<string, FloatTensor>>,
+  write: (first: number, rows: number, outputs: Record<string, FloatTensor>) => void,
+): Promise<void> {
   let nextInput = batches > 0 ? readBatch(0) : null;
+  nextInput?.catch(() => undefined);
   let pending: { first: number; rows: number; outputs: Record<string, FloatTensor> } | null = null;
   for (let k = 0; k < batches; k++) {
     const input = await nextInput!;
     nextInput = k + 1 < batches ? readBatch(k + 1) : null;
     nextInput?.catch(() => undefined); // surfaced when awaited
-    loop.digest.update(new Uint8Array(input.data.buffer, 0, input.rows * per * 4));
-    const feeds: Record<string, FloatTensor> = { [loop.inputName]: { data: input.data, dims: [loop.fixedBatch ?? input.rows, c, h, w] } };
-    if (loop.extraFeeds) Object.assign(feeds, loop.extraFeeds(input.first, loop.fixedBatch ?? input.rows));
-    const running = loop.run(feeds);
+    const running = run(input.feeds);
     running.catch(() => undefined);
-    if (pending) loop.write(pending.first, pending.rows, pending.outputs);
+    if (pending) write(pending.first, pending.rows, pending.outputs);
     pending = { first: input.first, rows: input.rows, outputs: await running };
   }
-  if (pending) loop.write(pending.first, pending.rows, pending.outputs);
+  if (pending) write(pending.first, pending.rows, pending.outputs);
+}
+
+/** Reads stimulus batches as input feeds, hashing the exact input bytes in order (the stimuli digest). */
+function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: number | null, inputName: string, shape: [number, number, number], digest: ReturnType<typeof createHash>, extraFeeds: RecordExtension['extraFeeds']) {
+  const [c, h, w] = shape;
+  const per = c * h * w;
+  let hashed = 0;
+  return async (k: number): Promise<FeedBatch> => {
+    const first = k * batch;
+    const rows = Math.min(batch, source.count - first);
+    const padded = fixedBatch ?? rows;
+    const data = new Float32Array(padded * per); // zero padding for fixed-batch models
+    await source.read(first, rows, data);
+    if (hashed !== k) throw new Error('stimulus batches must be read in order');
+    hashed += 1;
+    digest.update(new Uint8Array(data.buffer, 0, rows * per * 4));
+    const feeds: Record<string, FloatTensor> = { [inputName]: { data, dims: [padded, c, h, w] } };
+    if (extraFeeds) Object.assign(feeds, extraFeeds(first, padded));
+    return { first, rows, feeds };
+  };
 }
 
 /** For messages: a path relative to the working folder. */

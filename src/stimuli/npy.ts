@@ -81,7 +81,8 @@ export function parseNpy(bytes: Uint8Array, source = '.npy input'): NpyTensor {
     throw new UsageError('E_NPY', `${source}: data is truncated (shape [${shape.join(', ')}] needs ${byteLength} bytes, file has ${bytes.length - dataStart})`);
   }
   // copy into a fresh buffer: the data offset need not be aligned for the element size
-  const copy = bytes.slice(dataStart, dataStart + byteLength);
+  // (Uint8Array.prototype.slice: a Node Buffer's own slice() returns a view into a shared pool)
+  const copy = Uint8Array.prototype.slice.call(bytes, dataStart, dataStart + byteLength);
   const data = new Ctor(copy.buffer, 0, count);
   return { descr: descr as NpyDescr, shape, data };
 }

@@ -1,5 +1,6 @@
 import type { Command } from 'commander';
 import { recordSnapshot, displayPath } from '../../pipeline/record-snapshot.js';
+import { recordModulated } from '../../pipeline/record-modulated.js';
 import { parseChannelList, parseShape, parseSize } from '../../stimuli/preprocess.js';
 import { UsageError } from '../../errors.js';
 import { megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
@@ -21,6 +22,9 @@ interface RecordCliOptions {
   bgr?: boolean;
   inputShape?: string;
   force?: boolean;
+  modulate?: string;
+  from?: string;
+  fullRun?: boolean;
 }
 
 /** `sonde record MODEL --stimuli SRC --out DIR`: record a snapshot. */
@@ -43,13 +47,17 @@ export function registerRecord(program: Command): void {
     .option('--bgr', 'feed channels in BGR order')
     .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
     .option('--force', 'replace a complete snapshot already in --out')
+    .option('--modulate <spec>', 'modulation spec (YAML or JSON) to inject')
+    .option('--from <baseline>', 'baseline snapshot to pair with; only the part downstream of the sites is re-run when possible')
+    .option('--full-run', 'with --from: run the whole network instead of replaying the downstream part')
     .action(async (modelPath: string, opts: RecordCliOptions) => {
       const io = cliIo();
       if (opts.keep !== 'full' && opts.keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${opts.keep}"`);
       if (opts.dtype !== 'float32' && opts.dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${opts.dtype}"`);
       const bar = createProgressBar('record');
       try {
-        const summary = await recordSnapshot({
+        if (opts.from && !opts.modulate) throw new UsageError('E_FROM', '--from needs --modulate (a baseline is paired with a modulated run)');
+        const common = {
           model: modelPath,
           stimuli: opts.stimuli,
           out: opts.out,
@@ -65,11 +73,14 @@ export function registerRecord(program: Command): void {
           ...(opts.bgr ? { bgr: true } : {}),
           ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
           ...(opts.force ? { force: true } : {}),
-          onProgress: (p) => bar.update(p.done, p.total, megabytes(p.bytesWritten)),
-        });
+          onProgress: (p: { done: number; total: number; bytesWritten: number }) => bar.update(p.done, p.total, megabytes(p.bytesWritten)),
+        } as const;
+        const summary = opts.modulate
+          ? await recordModulated({ ...common, modulate: opts.modulate, ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}) })
+          : await recordSnapshot(common);
         bar.stop();
         io.stdout(
-          `recorded ${summary.stimuli} stimuli × ${summary.layers} layers into ${displayPath(summary.folder)}: ${megabytes(summary.bytesWritten)} in ${summary.wallSeconds.toFixed(2)} s (${summary.stimuliPerSecond.toFixed(1)} stimuli/s)\n`,
+          `recorded ${summary.stimuli} stimuli × ${summary.layers} layers into ${displayPath(summary.folder)}: ${megabytes(summary.bytesWritten)} in ${summary.wallSeconds.toFixed(2)} s (${summary.stimuliPerSecond.toFixed(1)} stimuli/s)${summary.manifest.run.mode === 'tail' ? '; replayed the downstream part from the baseline' : summary.manifest.run.reason ? `; full run: ${summary.manifest.run.reason}` : ''}\n`,
         );
       } finally {
         bar.stop();

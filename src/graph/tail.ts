@@ -1,0 +1,72 @@
+import type { LoadedModel } from './load-model.js';
+import { makeValueInfo, type NodeProto } from './onnx.js';
+import type { GraphStructure } from './structure.js';
+
+/** The part of a network downstream of one or more sites, as a model of its own. */
+export interface TailGraph {
+  /** The tail as a model: its inputs are the boundary tensors, its outputs the requested tensors it computes. */
+  model: LoadedModel;
+  /** Tensors the tail reads that are computed upstream (the sites included): they must be fed. */
+  boundary: string[];
+  /** Tensors computed by the tail (every descendant of the sites). */
+  computed: Set<string>;
+}
+
+/**
+ * Extracts the subgraph of nodes that depend on any of `sites`. Everything else of the network is
+ * upstream or on a parallel path and keeps its baseline values. `batchShapes` gives the per-stimulus
+ * shape of each boundary tensor (from the probe), used to declare the tail's inputs.
+ * Returns null when nothing depends on the sites (e.g. a site that is only a graph output).
+ */
+export function extractTail(model: LoadedModel, structure: GraphStructure, sites: readonly string[], outputs: readonly string[]): TailGraph | null {
+  const inTail = new Uint8Array(structure.nodes.length);
+  const computed = new Set<string>();
+  const queue = [...sites];
+  while (queue.length > 0) {
+    const tensor = queue.pop()!;
+    for (const consumer of structure.consumers.get(tensor) ?? []) {
+      if (inTail[consumer]) continue;
+      inTail[consumer] = 1;
+      for (const out of structure.nodes[consumer]!.outputs) {
+        computed.add(out);
+        queue.push(out);
+      }
+    }
+  }
+  // A site computed by the tail (downstream of another site) stays computed; the others are fed.
+  const boundary: string[] = [];
+  const boundarySet = new Set<string>();
+  const protoNodes = model.proto.graph?.node ?? [];
+  const byOutput = new Map<string, NodeProto>();
+  for (const node of protoNodes) for (const out of node.output ?? []) if (out) byOutput.set(out, node);
+  const tailNodes: NodeProto[] = [];
+  structure.nodes.forEach((node, i) => {
+    if (!inTail[i]) return;
+    const proto = byOutput.get(node.outputs[0]!);
+    if (proto) tailNodes.push(proto);
+    for (const input of node.inputs) {
+      if (!input || computed.has(input) || structure.initializers.has(input) || boundarySet.has(input)) continue;
+      boundarySet.add(input);
+      boundary.push(input);
+    }
+  });
+  for (const site of sites) {
+    if (!computed.has(site) && !boundarySet.has(site)) {
+      boundarySet.add(site);
+      boundary.push(site);
+    }
+  }
+  if (tailNodes.length === 0) return null;
+  const used = new Set(tailNodes.flatMap((n) => n.input ?? []));
+  const graph = model.proto.graph!;
+  const tailOutputs = [...new Set([...outputs.filter((o) => computed.has(o)), ...sites.filter((s) => !computed.has(s))])];
+  const newGraph = Object.assign(Object.create(Object.getPrototypeOf(graph)), graph, {
+    node: tailNodes,
+    initializer: (graph.initializer ?? []).filter((t) => used.has(t.name ?? '')),
+    input: boundary.map((name) => makeValueInfo(name, 1)),
+    output: tailOutputs.map((name) => makeValueInfo(name)),
+    valueInfo: [],
+  });
+  const proto = Object.assign(Object.create(Object.getPrototypeOf(model.proto)), model.proto, { graph: newGraph });
+  return { model: { ...model, proto, outputs: tailOutputs }, boundary, computed };
+}
