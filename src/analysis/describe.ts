@@ -1,5 +1,6 @@
 /**
- * Descriptive statistics of one sample: mean and variance by Welford's method, median, and quantiles
+ * Descriptive statistics of one sample: variance by Welford's method, mean by compensated summation,
+ * median, and quantiles
  * by linear interpolation (Hyndman & Fan type 7, the default of R's `quantile`).
  *
  * NaN policy for this file: values are never skipped. A NaN anywhere makes the result NaN; ±Infinity
@@ -28,7 +29,8 @@ export interface Description {
 }
 
 /**
- * Mean, sample variance (n − 1), sd, min, max in one pass (Welford 1962, Technometrics 4:419), in doubles.
+ * Mean, sample variance (n − 1), sd, min, max in one pass, in doubles: the variance by Welford's update
+ * (Welford 1962, Technometrics 4:419), the mean from a compensated sum (as `mean`).
  *
  * @param values the sample.
  * @returns the description; see field docs for small n.
@@ -43,11 +45,16 @@ export function describe(values: ArrayLike<number>): Description {
   let max = Number.NEGATIVE_INFINITY;
   let nonFinite = 0;
   let sawNaN = false;
+  let sum = 0;
+  let compensation = 0;
   for (let i = 0; i < n; i++) {
     const x = values[i]!;
     const delta = x - mean;
     mean += delta / (i + 1);
     m2 += delta * (x - mean);
+    const next = sum + x;
+    compensation += Math.abs(sum) >= Math.abs(x) ? sum - next + x : x - next + sum;
+    sum = next;
     if (x < min) min = x;
     if (x > max) max = x;
     if (!Number.isFinite(x)) {
@@ -59,7 +66,7 @@ export function describe(values: ArrayLike<number>): Description {
   const variance = n < 2 ? Number.NaN : m2 / (n - 1);
   return {
     n,
-    mean,
+    mean: finiteMean(sum, compensation, n, mean),
     variance,
     sd: Math.sqrt(variance),
     min: sawNaN ? Number.NaN : min,
@@ -69,18 +76,32 @@ export function describe(values: ArrayLike<number>): Description {
 }
 
 /**
- * Arithmetic mean by Welford's running update (stable for long samples of similar values).
+ * Arithmetic mean: a compensated sum (Neumaier 1974) divided by n, correct to about one rounding.
  *
  * @param values the sample.
- * @returns the mean; NaN for an empty sample or when any value is NaN.
+ * @returns the mean; NaN for an empty sample or when any value is NaN; ±Infinity per IEEE with infinite values.
  * @throws never.
  */
 export function mean(values: ArrayLike<number>): number {
   const n = values.length;
   if (n === 0) return Number.NaN;
-  let m = 0;
-  for (let i = 0; i < n; i++) m += (values[i]! - m) / (i + 1);
-  return m;
+  let sum = 0;
+  let compensation = 0;
+  for (let i = 0; i < n; i++) {
+    const x = values[i]!;
+    const next = sum + x;
+    compensation += Math.abs(sum) >= Math.abs(x) ? sum - next + x : x - next + sum;
+    sum = next;
+  }
+  return finiteMean(sum, compensation, n, sum / n);
+}
+
+/**
+ * (sum + compensation) / n; when the plain sum is not finite (an infinity or NaN in the data, where the
+ * compensation term is meaningless), the IEEE fallback is returned instead.
+ */
+function finiteMean(sum: number, compensation: number, n: number, fallback: number): number {
+  return Number.isFinite(sum) ? (sum + compensation) / n : fallback;
 }
 
 /**
