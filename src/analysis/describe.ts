@@ -1,7 +1,6 @@
 /**
  * Descriptive statistics of one sample: variance by Welford's method, mean by compensated summation,
- * median, and quantiles
- * by linear interpolation (Hyndman & Fan type 7, the default of R's `quantile`).
+ * median, and quantiles by linear interpolation (Hyndman & Fan type 7, the default of R's `quantile`).
  *
  * NaN policy for this file: values are never skipped. A NaN anywhere makes the result NaN; ±Infinity
  * follows IEEE arithmetic (e.g. the mean is ±Infinity, the variance NaN). Callers that want to drop bad
