@@ -11,9 +11,11 @@ export function createProgram(): Command {
     .description('Record every layer of an ONNX network, inject modulations, and diff the snapshots layer by layer.')
     .version(TOOL_VERSION)
     .option('--verbose', 'print stack traces and extra diagnostics')
-    .showHelpAfterError('(run with --help for usage)')
     .exitOverride();
   for (const register of COMMANDS) register(program);
-  for (const command of program.commands) command.exitOverride();
+  for (const command of program.commands) {
+    command.exitOverride();
+    for (const sub of command.commands) sub.exitOverride();
+  }
   return program;
 }

@@ -26,7 +26,12 @@ export function cliIo(): CliIo {
  */
 export async function runCli(argv: readonly string[], io: CliIo = processIo): Promise<number> {
   const program = createProgram();
-  program.configureOutput({ writeOut: io.stdout, writeErr: io.stderr });
+  const output = { writeOut: io.stdout, writeErr: io.stderr, outputError: (text: string, write: (t: string) => void) => write(`sonde: ${text.replace(/^error: /, '')}`) };
+  program.configureOutput(output);
+  for (const command of program.commands) {
+    command.configureOutput(output);
+    for (const sub of command.commands) sub.configureOutput(output);
+  }
   const verbose = argv.includes('--verbose');
   const previous = currentIo;
   currentIo = io;
