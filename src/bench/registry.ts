@@ -1,0 +1,4 @@
+import type { Benchmark } from './types.js';
+
+/** Every benchmark by name. Add one: write `src/bench/<name>.ts` exporting a Benchmark, list it here. */
+export const BENCHMARKS: Record<string, Benchmark> = {};
