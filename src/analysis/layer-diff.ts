@@ -30,6 +30,12 @@ export interface LayerDiffOptions {
   layer?: string;
   /** Expected number of stimuli, to size the per-stimulus buffers once (they grow if exceeded). */
   expectedStimuli?: number;
+  /**
+   * Keep the per-stimulus channel means of both sides for `channelMeans()` (default true). They take
+   * N·C·8 bytes, which for a wide vector layer (spatial = 1) is as much as the activations themselves;
+   * pass false for layers that need no signature to keep memory bounded.
+   */
+  keepChannelMeans?: boolean;
 }
 
 /** Metrics of one layer, baseline a versus modulated b. */
@@ -116,6 +122,8 @@ export class LayerDiffAccumulator {
   readonly tolerance: number;
   /** Layer name for messages ("layer" when not given). */
   readonly layer: string;
+  /** Whether per-stimulus channel means are kept. */
+  readonly keepChannelMeans: boolean;
 
   private stimuli = 0;
   private readonly pooled = new Float64Array(8);
@@ -140,13 +148,15 @@ export class LayerDiffAccumulator {
   private meansB: Float32Array;
 
   /**
-   * @param options elements, channels, spatial, tolerance (default 0.01), layer name, expectedStimuli.
+   * @param options elements, channels, spatial, tolerance (default 0.01), layer name, expectedStimuli,
+   *   keepChannelMeans (default true).
    * @throws UsageError when a size is not a positive integer, elements ≠ channels × spatial, or the
    *   tolerance is negative or not finite.
    */
   constructor(options: LayerDiffOptions) {
     const { elements, channels, spatial } = options;
     this.layer = options.layer ?? 'layer';
+    this.keepChannelMeans = options.keepChannelMeans ?? true;
     this.tolerance = options.tolerance ?? 0.01;
     for (const [name, value] of [
       ['elements', elements],
@@ -178,8 +188,8 @@ export class LayerDiffAccumulator {
     const expected = options.expectedStimuli;
     this.capacity = expected !== undefined && Number.isInteger(expected) && expected > 0 ? expected : 64;
     this.stimulusChange = new Float64Array(this.capacity);
-    this.meansA = new Float32Array(this.capacity * channels);
-    this.meansB = new Float32Array(this.capacity * channels);
+    this.meansA = new Float32Array(this.keepChannelMeans ? this.capacity * channels : channels);
+    this.meansB = new Float32Array(this.keepChannelMeans ? this.capacity * channels : channels);
   }
 
   /** Stimuli accumulated so far. */
@@ -221,7 +231,9 @@ export class LayerDiffAccumulator {
     const S = this.spatial;
     const n = this.stimuli;
     const seen = n + 1;
-    const meanRow = n * C; // [N, C]: i = n*C + k
+    const inverseSeen = 1 / seen;
+    // [N, C]: i = n*C + k; without kept means, row 0 is scratch space that is overwritten each stimulus.
+    const meanRow = this.keepChannelMeans ? n * C : 0;
     const meansA = this.meansA;
     const meansB = this.meansB;
     const channelMeanA = this.channelMeanA;
@@ -245,15 +257,16 @@ export class LayerDiffAccumulator {
         sumBB += b * b;
         sumAB += a * b;
         sumDD += d * d;
-        if (!Number.isFinite(a)) this.nonFiniteBase++;
-        if (!Number.isFinite(b)) this.nonFiniteMod++;
         meansA[meanRow + k] = a;
         meansB[meanRow + k] = b;
         const delta = a - channelMeanA[k]!;
-        channelMeanA[k] += delta / seen;
+        channelMeanA[k] += delta * inverseSeen;
         channelM2A[k] += delta * (a - channelMeanA[k]!);
-        channelMeanB[k] += (b - channelMeanB[k]!) / seen;
+        channelMeanB[k] += (b - channelMeanB[k]!) * inverseSeen;
       }
+      // As below: a non-finite sum of squares means a non-finite input; count only then.
+      if (!Number.isFinite(sumAA)) this.nonFiniteBase += countNonFinite(base, offset, offset + C);
+      if (!Number.isFinite(sumBB)) this.nonFiniteMod += countNonFinite(mod, offset, offset + C);
     } else {
       for (let k = 0; k < C; k++) {
         const start = offset + k * S; // channel k of this stimulus: [start, start + S)
@@ -289,9 +302,9 @@ export class LayerDiffAccumulator {
         meansA[meanRow + k] = am;
         meansB[meanRow + k] = bm;
         const delta = am - channelMeanA[k]!;
-        channelMeanA[k] += delta / seen;
+        channelMeanA[k] += delta * inverseSeen;
         channelM2A[k] += delta * (am - channelMeanA[k]!);
-        channelMeanB[k] += (bm - channelMeanB[k]!) / seen;
+        channelMeanB[k] += (bm - channelMeanB[k]!) * inverseSeen;
       }
     }
     if (sumAA === 0) this.zeroNormStimuli++;
@@ -332,7 +345,7 @@ export class LayerDiffAccumulator {
    * pooled sums and moments combine by exact formulas; the per-stimulus vectors are concatenated, this
    * accumulator's stimuli first. `other` is not modified.
    *
-   * @param other an accumulator with the same elements, channels, spatial and tolerance.
+   * @param other an accumulator with the same elements, channels, spatial, tolerance and keepChannelMeans.
    * @returns this, for chaining.
    * @throws UsageError when the shapes or tolerances differ, or `other` is this accumulator.
    */
@@ -342,11 +355,12 @@ export class LayerDiffAccumulator {
       other.elements !== this.elements ||
       other.channels !== this.channels ||
       other.spatial !== this.spatial ||
-      other.tolerance !== this.tolerance
+      other.tolerance !== this.tolerance ||
+      other.keepChannelMeans !== this.keepChannelMeans
     ) {
       throw new UsageError(
         'E_DIFF_MERGE',
-        `${this.layer}: cannot merge shape ${other.channels}×${other.spatial} (tolerance ${other.tolerance}) into ${this.channels}×${this.spatial} (tolerance ${this.tolerance})`,
+        `${this.layer}: cannot merge shape ${other.channels}×${other.spatial} (tolerance ${other.tolerance}, keepChannelMeans ${other.keepChannelMeans}) into ${this.channels}×${this.spatial} (tolerance ${this.tolerance}, keepChannelMeans ${this.keepChannelMeans})`,
       );
     }
     const n = this.stimuli;
@@ -374,8 +388,10 @@ export class LayerDiffAccumulator {
       other.pearsonCoMoment,
     );
     this.stimulusChange.set(other.stimulusChange.subarray(0, m), n);
-    this.meansA.set(other.meansA.subarray(0, m * C), n * C);
-    this.meansB.set(other.meansB.subarray(0, m * C), n * C);
+    if (this.keepChannelMeans) {
+      this.meansA.set(other.meansA.subarray(0, m * C), n * C);
+      this.meansB.set(other.meansB.subarray(0, m * C), n * C);
+    }
     this.nonFiniteBase += other.nonFiniteBase;
     this.nonFiniteMod += other.nonFiniteMod;
     this.zeroNormStimuli += other.zeroNormStimuli;
@@ -388,9 +404,14 @@ export class LayerDiffAccumulator {
    *
    * @returns views [N, C] into the accumulator's buffers; valid until the next `add` or `merge`
    *   (copy them with `slice()` to keep them).
-   * @throws never.
+   * @throws UsageError when the accumulator was made with `keepChannelMeans: false`.
    */
   channelMeans(): ChannelMeans {
+    if (!this.keepChannelMeans) {
+      throw new UsageError('E_DIFF_OPTION', `${this.layer}: channel means were not kept (keepChannelMeans: false)`, {
+        hint: 'create the accumulator with keepChannelMeans: true for layers that need a signature',
+      });
+    }
     const size = this.stimuli * this.channels;
     return {
       stimuli: this.stimuli,
@@ -491,16 +512,18 @@ export class LayerDiffAccumulator {
     if (stimuli <= this.capacity) return;
     let capacity = this.capacity * 2;
     while (capacity < stimuli) capacity *= 2;
-    const C = this.channels;
     const change = new Float64Array(capacity);
     change.set(this.stimulusChange.subarray(0, this.stimuli));
-    const meansA = new Float32Array(capacity * C);
-    meansA.set(this.meansA.subarray(0, this.stimuli * C));
-    const meansB = new Float32Array(capacity * C);
-    meansB.set(this.meansB.subarray(0, this.stimuli * C));
     this.stimulusChange = change;
-    this.meansA = meansA;
-    this.meansB = meansB;
+    if (this.keepChannelMeans) {
+      const C = this.channels;
+      const meansA = new Float32Array(capacity * C);
+      meansA.set(this.meansA.subarray(0, this.stimuli * C));
+      const meansB = new Float32Array(capacity * C);
+      meansB.set(this.meansB.subarray(0, this.stimuli * C));
+      this.meansA = meansA;
+      this.meansB = meansB;
+    }
     this.capacity = capacity;
   }
 }

@@ -291,6 +291,21 @@ describe('LayerDiffAccumulator', () => {
     expect(zero.finish().relativeChange).toBe(Number.POSITIVE_INFINITY);
   });
 
+  it('LayerDiffAccumulator({ keepChannelMeans: false }) gives the same metrics without keeping the means', () => {
+    const { base, mod } = makeLayer(10, N, 6, 1);
+    const kept = stream(base, mod, N, 3, 6, 1).finish();
+    const lean = new LayerDiffAccumulator({ elements: 6, channels: 6, spatial: 1, keepChannelMeans: false });
+    for (let start = 0; start < N; start += 4) {
+      const rows = Math.min(4, N - start);
+      lean.add(base.subarray(start * 6, (start + rows) * 6), mod.subarray(start * 6, (start + rows) * 6), rows);
+    }
+    const metrics = lean.finish();
+    for (const key of ['relativeChange', 'relativeChangeMedian', 'cosine', 'pearson', 'channelRatioMean', 'effectSize'] as const) {
+      expectClose(metrics[key], kept[key], 1e-12, key);
+    }
+    expect(() => lean.channelMeans()).toThrow(/channel means were not kept/);
+  });
+
   it('LayerDiffAccumulator rejects inconsistent shapes, batches and merges', () => {
     expect(() => new LayerDiffAccumulator({ elements: 10, channels: 3, spatial: 3 })).toThrow(UsageError);
     expect(() => new LayerDiffAccumulator({ elements: 9, channels: 3, spatial: 3, tolerance: -1 })).toThrow(/tolerance = -1/);
