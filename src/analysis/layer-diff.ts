@@ -144,6 +144,8 @@ export class LayerDiffAccumulator {
   // Per-stimulus vectors, grown by doubling.
   private capacity: number;
   private stimulusChange: Float64Array;
+  private stimulusDiffSquared: Float64Array;
+  private stimulusBaseSquared: Float64Array;
   private meansA: Float32Array;
   private meansB: Float32Array;
 
@@ -188,6 +190,8 @@ export class LayerDiffAccumulator {
     const expected = options.expectedStimuli;
     this.capacity = expected !== undefined && Number.isInteger(expected) && expected > 0 ? expected : 64;
     this.stimulusChange = new Float64Array(this.capacity);
+    this.stimulusDiffSquared = new Float64Array(this.capacity);
+    this.stimulusBaseSquared = new Float64Array(this.capacity);
     this.meansA = new Float32Array(this.keepChannelMeans ? this.capacity * channels : channels);
     this.meansB = new Float32Array(this.keepChannelMeans ? this.capacity * channels : channels);
   }
@@ -309,6 +313,8 @@ export class LayerDiffAccumulator {
     }
     if (sumAA === 0) this.zeroNormStimuli++;
     this.stimulusChange[n] = relativeNorm(sumDD, sumAA);
+    this.stimulusDiffSquared[n] = sumDD;
+    this.stimulusBaseSquared[n] = sumAA;
     addCompensated(this.pooled, AA, sumAA);
     addCompensated(this.pooled, BB, sumBB);
     addCompensated(this.pooled, AB, sumAB);
@@ -388,6 +394,8 @@ export class LayerDiffAccumulator {
       other.pearsonCoMoment,
     );
     this.stimulusChange.set(other.stimulusChange.subarray(0, m), n);
+    this.stimulusDiffSquared.set(other.stimulusDiffSquared.subarray(0, m), n);
+    this.stimulusBaseSquared.set(other.stimulusBaseSquared.subarray(0, m), n);
     if (this.keepChannelMeans) {
       this.meansA.set(other.meansA.subarray(0, m * C), n * C);
       this.meansB.set(other.meansB.subarray(0, m * C), n * C);
@@ -427,6 +435,14 @@ export class LayerDiffAccumulator {
    * @returns the metrics (see `LayerDiffMetrics` for each definition and its edge cases).
    * @throws UsageError when no stimulus has been added.
    */
+  /**
+   * Per stimulus n: Σ(b − a)² and Σa² over its elements (views, length N), so that the pooled relative
+   * change sqrt(Σ_n diffSquared / Σ_n baseSquared) can be bootstrapped over stimuli.
+   */
+  perStimulusNorms(): { diffSquared: Float64Array; baseSquared: Float64Array } {
+    return { diffSquared: this.stimulusDiffSquared.subarray(0, this.stimuli), baseSquared: this.stimulusBaseSquared.subarray(0, this.stimuli) };
+  }
+
   finish(): LayerDiffMetrics {
     const N = this.stimuli;
     if (N === 0) {
@@ -515,6 +531,12 @@ export class LayerDiffAccumulator {
     const change = new Float64Array(capacity);
     change.set(this.stimulusChange.subarray(0, this.stimuli));
     this.stimulusChange = change;
+    const diffSquared = new Float64Array(capacity);
+    diffSquared.set(this.stimulusDiffSquared.subarray(0, this.stimuli));
+    this.stimulusDiffSquared = diffSquared;
+    const baseSquared = new Float64Array(capacity);
+    baseSquared.set(this.stimulusBaseSquared.subarray(0, this.stimuli));
+    this.stimulusBaseSquared = baseSquared;
     if (this.keepChannelMeans) {
       const C = this.channels;
       const meansA = new Float32Array(capacity * C);

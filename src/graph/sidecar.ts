@@ -6,7 +6,7 @@ export interface ModelSidecar {
   /** Preprocessing the network was trained with; used as defaults for `record`. */
   preprocessing?: { size?: [number, number]; mean?: number[]; std?: number[]; bgr?: boolean };
   /** The readout: output tensor name and the category of each of its units, in order. */
-  outputs?: { name: string; kinds: string[] };
+  outputs?: { name: string; kinds: string[]; threshold?: number };
   /** Tensors worth recording, with a short stage label. */
   layers?: Array<{ name: string; stage?: string }>;
 }

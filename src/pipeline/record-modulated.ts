@@ -200,6 +200,7 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
     stimuli: baseline.manifest.stimuli,
     preprocessing: baseline.manifest.preprocessing,
     modulation: run.manifestModulation,
+    readout: baseline.manifest.readout ?? null,
     baseline: run.manifestBaseline,
     run: { mode: 'tail', batch: baseline.manifest.run.batch, threads: options.threads ?? 0 },
     created: new Date().toISOString(),

@@ -152,6 +152,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
     stimuli: { source: source.description, count: source.count, digest: '', listingDigest: listingDigest(source), categories: [...new Set(source.labels.flat())].sort() },
     preprocessing: source.kind === 'npy' ? null : preprocessing,
     modulation: options.extension?.manifestModulation ?? null,
+    readout: sidecar?.outputs ? { name: sidecar.outputs.name, kinds: sidecar.outputs.kinds, ...(sidecar.outputs.threshold !== undefined ? { threshold: sidecar.outputs.threshold } : {}) } : null,
     baseline: options.extension?.manifestBaseline ?? null,
     run: { mode: 'full', batch, threads: options.threads ?? 0 },
     created: new Date().toISOString(),

@@ -48,6 +48,8 @@ export interface SnapshotManifest {
   preprocessing: { size: [number, number]; mean: number[]; std: number[]; bgr: boolean } | null;
   /** The resolved modulation (vectors, seeds), or null for a baseline. */
   modulation: unknown;
+  /** The model's readout (from its sidecar): output tensor, category of each unit, decision threshold. */
+  readout?: { name: string; kinds: string[]; threshold?: number } | null;
   /** The baseline this snapshot pairs with, when recorded with `--from`. */
   baseline: { path: string; manifestSha256: string } | null;
   /** How the modulated values were computed. */

@@ -1,7 +1,8 @@
 import type { Command } from 'commander';
+import { registerDiff } from './diff.js';
 import { registerLayers } from './layers.js';
 import { registerRecord } from './record.js';
 import { registerStimuli } from './stimuli.js';
 
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerLayers, registerRecord, registerStimuli];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerLayers, registerRecord, registerDiff, registerStimuli];

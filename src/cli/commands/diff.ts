@@ -1,0 +1,77 @@
+import { writeFileSync } from 'node:fs';
+import type { Command } from 'commander';
+import { UsageError } from '../../errors.js';
+import { diffSnapshots, type DiffOptions, type DiffReport, type SchemeComparison } from '../../pipeline/diff-snapshots.js';
+import { diffToCsv, renderComparison, renderDiffReport, reportToJson } from '../../report/diff-table.js';
+import { finiteNumber, nonNegativeInteger } from '../options.js';
+import { createProgressBar } from '../progress.js';
+import { cliIo } from '../run.js';
+import { tuningLookup } from './tuning-lookup.js';
+
+interface DiffCliOptions {
+  vs?: string;
+  floor?: string;
+  tuning?: string;
+  target?: string;
+  task?: string;
+  bootstrap: number;
+  seed: number;
+  tolerance: number;
+  threshold?: string;
+  json?: boolean;
+  csv?: string;
+}
+
+/** `sonde diff BASE MOD`: layer-by-layer propagation of a modulation and its effect on the task. */
+export function registerDiff(program: Command): void {
+  program
+    .command('diff')
+    .description('compare a modulated snapshot with its baseline layer by layer (and a second scheme with --vs)')
+    .argument('<base>', 'baseline snapshot folder')
+    .argument('<mod>', 'modulated snapshot folder (recorded with --from BASE)')
+    .option('--vs <mod2>', 'a second modulated snapshot, compared side by side with MOD')
+    .option('--floor <snapshot>', 'a pairing that should show no effect (gain-1 re-run, shuffled control): its change is the noise floor')
+    .option('--tuning <table>', 'tuning table (from `sonde tune`) for the feature-similarity-gain signature')
+    .option('--target <category>', 'attended category (signature, and default task detect:CATEGORY)')
+    .option('--task <task>', 'detect:CATEGORY[,CATEGORY…], detect:all or labels')
+    .option('--threshold <value>', 'decision threshold: a number, "best" (accuracy-maximising on the baseline) or "auto" (model sidecar, else best)', 'auto')
+    .option('--bootstrap <n>', 'bootstrap resamples over stimuli (0: none)', nonNegativeInteger, 1000)
+    .option('--seed <n>', 'bootstrap seed', nonNegativeInteger, 0)
+    .option('--tolerance <x>', 'channel ratio tolerance for up/down', finiteNumber, 0.01)
+    .option('--json', 'print the full report as JSON')
+    .option('--csv <file>', 'also write one CSV row per layer')
+    .action(async (basePath: string, modPath: string, opts: DiffCliOptions) => {
+      const io = cliIo();
+      if (opts.tuning && !opts.target) throw new UsageError('E_TARGET', '--tuning needs --target CATEGORY (the attended category)');
+      let threshold: DiffOptions['threshold'] = 'auto';
+      if (opts.threshold !== undefined && opts.threshold !== 'auto') {
+        if (opts.threshold === 'best') threshold = 'best';
+        else if (Number.isFinite(Number(opts.threshold))) threshold = Number(opts.threshold);
+        else throw new UsageError('E_THRESHOLD', `--threshold must be a number, "best" or "auto", got "${opts.threshold}"`);
+      }
+      const bar = createProgressBar('diff');
+      const options: DiffOptions = {
+        base: basePath,
+        mod: modPath,
+        bootstrap: opts.bootstrap,
+        seed: opts.seed,
+        tolerance: opts.tolerance,
+        threshold,
+        onLayer: (done, total, name) => bar.update(done, total, name),
+        ...(opts.floor ? { floor: opts.floor } : {}),
+        ...(opts.target ? { target: opts.target } : {}),
+        ...(opts.task ? { task: opts.task } : {}),
+        ...(opts.tuning && opts.target ? { tuning: tuningLookup(opts.tuning, opts.target) } : {}),
+      };
+      let result: DiffReport | SchemeComparison;
+      try {
+        result = opts.vs ? await diffSnapshots({ ...options, vs: opts.vs }) : await diffSnapshots(options);
+      } finally {
+        bar.stop();
+      }
+      const single = 'verdict' in result && 'layers' in result && !('a' in result) ? (result as DiffReport) : null;
+      if (opts.csv) writeFileSync(opts.csv, diffToCsv(single ?? (result as SchemeComparison).a));
+      if (opts.json) io.stdout(reportToJson(result));
+      else io.stdout(single ? renderDiffReport(single) : renderComparison(result as SchemeComparison, [modPath, opts.vs!]));
+    });
+}

@@ -1,0 +1,458 @@
+import { UsageError } from '../errors.js';
+import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
+import { fitDepthProfile, type DepthProfile } from '../analysis/depth-profile.js';
+import { LayerDiffAccumulator, type LayerDiffMetrics } from '../analysis/layer-diff.js';
+import { fitSignature, type SignatureFit } from '../analysis/signature.js';
+import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
+import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
+import type { ManifestLayer } from '../snapshot/manifest.js';
+import { alignBatches } from './align-batches.js';
+
+/** Per-channel tuning values of one layer for the target category (e.g. from a tuning table). */
+export type TuningLookup = (layer: string) => Float64Array | undefined;
+
+/** Options of `diffSnapshots`. */
+export interface DiffOptions {
+  /** Baseline snapshot (folder or opened). */
+  base: string | Snapshot;
+  /** Modulated snapshot. */
+  mod: string | Snapshot;
+  /** A second modulated snapshot to compare side by side with `mod`. */
+  vs?: string | Snapshot;
+  /** A pairing that should show no effect (e.g. a gain-1 re-run or a shuffled control): its metrics are the noise floor. */
+  floor?: string | Snapshot;
+  /** Tuning values per layer for `target`: enables the feature-similarity-gain signature. */
+  tuning?: TuningLookup;
+  /** Attended category (for the signature and as the default detection task). */
+  target?: string;
+  /** `detect:CATEGORY` (one readout unit) or `labels` (every category with a readout unit). */
+  task?: string;
+  /** Bootstrap resamples over stimuli (default 1000; 0 disables). */
+  bootstrap?: number;
+  /** Seed of the bootstrap (default 0). */
+  seed?: number;
+  /** Channel ratio tolerance for "up"/"down" (default 0.01). */
+  tolerance?: number;
+  /** Decision threshold on readout scores: a number, `best` (accuracy-maximising on the baseline), or `auto` (the model's threshold if its sidecar gives one, else `best`). */
+  threshold?: number | 'best' | 'auto';
+  /** Called as each layer finishes. */
+  onLayer?: (done: number, total: number, name: string) => void;
+}
+
+/** One layer of the diff. */
+export interface LayerDiffRow {
+  name: string;
+  op: string;
+  depth: number;
+  /** Position among the snapshot's recorded layers (0-based): the unit of depth profiles. */
+  ordinal: number;
+  /** This layer is a modulation site. */
+  site: boolean;
+  /** Depth below the (first) site in recorded layers; negative above it. */
+  belowSite: number;
+  relativeChange: number;
+  relativeChangeMedian: number;
+  cosine: number;
+  pearson: number;
+  channelRatioMean: number;
+  channelRatioSd: number;
+  fractionUp: number;
+  fractionDown: number;
+  effectSize: number;
+  nonFinite: { base: number; mod: number };
+  /** Noise floor of relativeChange for this layer. */
+  floor: number;
+  aboveFloor: boolean;
+  /** Bootstrap interval of relativeChange over stimuli, when bootstrapping. */
+  relativeChangeCi: [number, number] | null;
+  /** Feature-similarity-gain signature at this layer (with a tuning table). */
+  signature: (Omit<SignatureFit, 'normalisedRank' | 'ratio'>) | null;
+  /** The values were identical files (upstream of the modulation, referenced from the baseline). */
+  unchanged: boolean;
+}
+
+/** Detection read-out of one category. */
+export interface TaskCategory {
+  category: string;
+  unit: number;
+  threshold: number;
+  signalTrials: number;
+  noiseTrials: number;
+  base: DetectionStats;
+  mod: DetectionStats;
+  /** mod − base, in percentage points for rates and accuracy, in units for d′ and c. */
+  change: { hitRatePp: number; falseAlarmRatePp: number; accuracyPp: number; dPrime: number; criterion: number };
+  ci: { dPrime: [number, number]; accuracyPp: [number, number] } | null;
+}
+
+/** Task read-out: per category and averaged over categories. */
+export interface TaskReport {
+  kind: 'detect';
+  readout: string;
+  thresholdRule: string;
+  categories: TaskCategory[];
+  base: DetectionStats;
+  mod: DetectionStats;
+  change: TaskCategory['change'];
+  ci: TaskCategory['ci'];
+}
+
+/** The whole diff. */
+export interface DiffReport {
+  base: { folder: string; modulation: null };
+  mod: { folder: string; modulation: unknown };
+  sites: string[];
+  stimuli: number;
+  layers: LayerDiffRow[];
+  floor: { source: 'snapshot' | 'dtype'; description: string };
+  /** Deepest layer below the site whose relative change stays above the floor. */
+  survival: { layer: string | null; belowSite: number | null };
+  depthProfile: DepthProfile;
+  task: TaskReport | null;
+  verdict: string;
+}
+
+/** The result of `diffSnapshots` with `vs`: both diffs and a per-layer comparison. */
+export interface SchemeComparison {
+  a: DiffReport;
+  b: DiffReport;
+  layers: Array<{ name: string; depth: number; a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean }>;
+  task: { a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean } | null;
+  verdict: string;
+}
+
+/**
+ * Checks that two snapshots can be compared: same model file hash, same stimuli (content digest) and
+ * the same layers.
+ * @throws UsageError with a one-line reason otherwise.
+ */
+export function assertPaired(base: Snapshot, mod: Snapshot): void {
+  const a = base.manifest;
+  const b = mod.manifest;
+  if (a.model.sha256 !== b.model.sha256) throw new UsageError('E_PAIRING', `${mod.folder} was recorded from another model than ${base.folder} (${b.model.file} vs ${a.model.file}, different sha256)`);
+  if (a.stimuli.digest !== b.stimuli.digest) throw new UsageError('E_PAIRING', `${mod.folder} was recorded on other stimuli than ${base.folder} (stimuli digests differ)`);
+  const names = (m: typeof a) => m.layers.map((l) => l.name).join('\n');
+  if (names(a) !== names(b)) throw new UsageError('E_PAIRING', `${mod.folder} recorded other layers than ${base.folder} (${b.layers.length} vs ${a.layers.length})`, { hint: 'record the modulated run with --from BASELINE' });
+}
+
+/** Names of the modulated sites recorded in a snapshot's manifest. */
+export function modulationSites(snapshot: Snapshot): string[] {
+  const modulation = snapshot.manifest.modulation as { modulations?: Array<{ site?: string }> } | null;
+  return (modulation?.modulations ?? []).map((m) => m.site ?? '').filter((s) => s.length > 0);
+}
+
+/** Numerical floor of relative change for a storage type: four units of roundoff (common practice). */
+export function dtypeFloor(dtype: string): number {
+  return dtype === 'float16' ? 4 * 2 ** -11 : 4 * 2 ** -24;
+}
+
+/**
+ * Diffs a modulated snapshot against its baseline, layer by layer, streaming both batch by batch
+ * (memory: one batch per side plus per-stimulus summaries). See `DiffReport` for what is measured.
+ * @throws UsageError when the snapshots do not pair or an option is malformed.
+ */
+export async function diffSnapshots(options: DiffOptions & { vs?: undefined }): Promise<DiffReport>;
+export async function diffSnapshots(options: DiffOptions & { vs: string | Snapshot }): Promise<SchemeComparison>;
+export async function diffSnapshots(options: DiffOptions): Promise<DiffReport | SchemeComparison>;
+export async function diffSnapshots(options: DiffOptions): Promise<DiffReport | SchemeComparison> {
+  const base = typeof options.base === 'string' ? openSnapshot(options.base) : options.base;
+  const mod = typeof options.mod === 'string' ? openSnapshot(options.mod) : options.mod;
+  if (options.vs !== undefined) {
+    const other = typeof options.vs === 'string' ? openSnapshot(options.vs) : options.vs;
+    assertPaired(base, other);
+    const a = await diffOne(base, mod, options);
+    const b = await diffOne(base, other, options);
+    return compareSchemes(a, b);
+  }
+  return diffOne(base, mod, options);
+}
+
+async function diffOne(base: Snapshot, mod: Snapshot, options: DiffOptions): Promise<DiffReport> {
+  assertPaired(base, mod);
+  const resamples = options.bootstrap ?? 1000;
+  if (!Number.isInteger(resamples) || resamples < 0) throw new UsageError('E_BOOTSTRAP', `--bootstrap must be a non-negative integer, got ${resamples}`);
+  const seed = options.seed ?? 0;
+  const tolerance = options.tolerance ?? 0.01;
+  const sites = modulationSites(mod);
+  const layers = base.manifest.layers;
+  const siteOrdinal = Math.min(...sites.map((s) => layers.findIndex((l) => l.name === s)).filter((i) => i >= 0), Number.POSITIVE_INFINITY);
+  const floorSnapshot = options.floor === undefined ? null : typeof options.floor === 'string' ? openSnapshot(options.floor) : options.floor;
+  if (floorSnapshot) assertPaired(base, floorSnapshot);
+  const rows: LayerDiffRow[] = [];
+  for (let ordinal = 0; ordinal < layers.length; ordinal++) {
+    const entry = layers[ordinal]!;
+    const tuning = options.tuning?.(entry.name);
+    const { metrics, means, norms } = await accumulateLayer(base, mod, entry, tolerance, tuning !== undefined);
+    let floor = dtypeFloor(mod.layer(entry.name).dtype === 'float16' || entry.dtype === 'float16' ? 'float16' : 'float32');
+    if (floorSnapshot) floor = Math.max(floor, (await accumulateLayer(base, floorSnapshot, entry, tolerance, false)).metrics.relativeChange);
+    let ci: [number, number] | null = null;
+    if (resamples > 0 && metrics.stimuli > 1) {
+      const [interval] = bootstrapIntervals(metrics.stimuli, (idx, out) => {
+        let dd = 0;
+        let aa = 0;
+        for (let i = 0; i < idx.length; i++) {
+          dd += norms.diffSquared[idx[i]!]!;
+          aa += norms.baseSquared[idx[i]!]!;
+        }
+        out[0] = aa > 0 ? Math.sqrt(dd / aa) : dd > 0 ? Infinity : 0;
+      }, 1, { resamples, seed: `${seed}:${entry.name}` });
+      ci = [interval!.low, interval!.high];
+    }
+    let signature: LayerDiffRow['signature'] = null;
+    if (tuning && means) {
+      const fit = fitSignature({ baseChannelMeans: means.base, modChannelMeans: means.mod, stimuli: means.stimuli, channels: means.channels, tuning, tolerance, ...(resamples > 0 ? { bootstrap: { resamples, seed: `${seed}:sig:${entry.name}` } } : {}) });
+      const { normalisedRank: _r, ratio: _q, ...rest } = fit;
+      signature = rest;
+    }
+    rows.push({
+      name: entry.name,
+      op: entry.op,
+      depth: entry.depth,
+      ordinal,
+      site: sites.includes(entry.name),
+      belowSite: Number.isFinite(siteOrdinal) ? ordinal - siteOrdinal : Number.NaN,
+      relativeChange: metrics.relativeChange,
+      relativeChangeMedian: metrics.relativeChangeMedian,
+      cosine: metrics.cosine,
+      pearson: metrics.pearson,
+      channelRatioMean: metrics.channelRatioMean,
+      channelRatioSd: metrics.channelRatioSd,
+      fractionUp: metrics.fractionUp,
+      fractionDown: metrics.fractionDown,
+      effectSize: metrics.effectSize,
+      nonFinite: metrics.nonFinite,
+      floor,
+      aboveFloor: metrics.relativeChange > floor,
+      relativeChangeCi: ci,
+      signature,
+      unchanged: mod.layer(entry.name).from === 'baseline',
+    });
+    options.onLayer?.(ordinal + 1, layers.length, entry.name);
+  }
+  const below = rows.filter((r) => r.belowSite > 0);
+  const surviving = below.filter((r) => r.aboveFloor);
+  const deepest = surviving.length > 0 ? surviving[surviving.length - 1]! : null;
+  const depthProfile = fitDepthProfile(below.map((r) => ({ depth: r.belowSite, value: r.relativeChange })), { floor: Math.max(...below.map((r) => r.floor), 0) });
+  const task = await taskReadout(base, mod, options, resamples, seed);
+  const report: DiffReport = {
+    base: { folder: base.folder, modulation: null },
+    mod: { folder: mod.folder, modulation: mod.manifest.modulation },
+    sites,
+    stimuli: base.manifest.stimuli.count,
+    layers: rows,
+    floor: floorSnapshot ? { source: 'snapshot', description: `relative change of ${floorSnapshot.folder} against the baseline (at least the dtype floor)` } : { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
+    survival: { layer: deepest?.name ?? null, belowSite: deepest?.belowSite ?? null },
+    depthProfile,
+    task,
+    verdict: '',
+  };
+  report.verdict = verdictOf(report);
+  return report;
+}
+
+/** Streams one layer of two snapshots through a LayerDiffAccumulator. */
+async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLayer, tolerance: number, keepMeans: boolean) {
+  const geometry = base.layerGeometry(entry.name);
+  const modEntry = mod.layer(entry.name);
+  const full = entry.keep === 'full' && modEntry.keep === 'full';
+  const spatial = full ? geometry.spatial : 1;
+  const width = full ? geometry.elements : geometry.channels;
+  const accumulator = new LayerDiffAccumulator({ elements: width, channels: geometry.channels, spatial, tolerance, layer: entry.name, expectedStimuli: base.manifest.stimuli.count, keepChannelMeans: keepMeans });
+  const sameFile = modEntry.from === 'baseline' && entry.sha256 !== undefined && modEntry.sha256 === entry.sha256;
+  if (sameFile) {
+    // identical bytes: read once and compare the data with itself
+    for await (const batch of base.readLayer(entry.name, { activation: full })) {
+      const values = full ? batch.activation! : batch.channelMeans;
+      accumulator.add(values, values, batch.rows);
+    }
+  } else {
+    const left = base.readLayer(entry.name, { activation: full });
+    const right = mod.readLayer(entry.name, { activation: full });
+    for await (const part of alignBatches(left, right, width, geometry.channels, entry.name)) accumulator.add(part.a, part.b, part.rows);
+  }
+  return { metrics: accumulator.finish(), means: keepMeans ? accumulator.channelMeans() : null, norms: accumulator.perStimulusNorms() };
+}
+
+/** Resolves the readout layer and the unit of each category. */
+function readoutOf(base: Snapshot): { layer: string; kinds: string[]; threshold: number | undefined } {
+  const readout = base.manifest.readout;
+  if (readout) return { layer: readout.name, kinds: readout.kinds, threshold: readout.threshold };
+  const last = base.manifest.layers[base.manifest.layers.length - 1]!;
+  const units = base.layerGeometry(last.name).channels;
+  if (units === base.categories.length) return { layer: last.name, kinds: base.categories, threshold: undefined };
+  throw new UsageError('E_TASK', `cannot tell which readout unit belongs to which category: the snapshot's model has no sidecar naming its outputs, and its last layer "${last.name}" has ${units} units for ${base.categories.length} categories`, {
+    hint: 'write MODEL.json beside the model with {"outputs": {"name": ..., "kinds": [...]}} and record again',
+  });
+}
+
+async function taskReadout(base: Snapshot, mod: Snapshot, options: DiffOptions, resamples: number, seed: number): Promise<TaskReport | null> {
+  const taskText = options.task ?? (options.target ? `detect:${options.target}` : undefined);
+  if (!taskText) return null;
+  const readout = readoutOf(base);
+  let categories: string[];
+  if (taskText === 'labels' || taskText === 'detect:all') categories = readout.kinds.filter((k) => base.categories.includes(k));
+  else if (taskText.startsWith('detect:')) {
+    categories = taskText.slice(7).split(',').map((c) => c.trim()).filter((c) => c.length > 0);
+    for (const category of categories) {
+      if (!readout.kinds.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: "${category}" has no readout unit (units: ${readout.kinds.join(', ')})`);
+      if (!base.categories.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: no stimulus is labelled "${category}"`);
+    }
+  } else throw new UsageError('E_TASK', `--task must be detect:CATEGORY[,CATEGORY…], detect:all or labels, got "${taskText}"`);
+  if (categories.length === 0) throw new UsageError('E_TASK', `--task ${taskText}: no category has both a readout unit and labelled stimuli`);
+  const units = base.layerGeometry(readout.layer).channels;
+  const baseScores = await base.readChannelMeans(readout.layer);
+  const modScores = await mod.readChannelMeans(readout.layer);
+  const n = base.manifest.stimuli.count;
+  const rule = options.threshold ?? 'auto';
+  const perCategory: TaskCategory[] = [];
+  const columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number }> = [];
+  for (const category of categories) {
+    const unit = readout.kinds.indexOf(category);
+    const a = new Float64Array(n);
+    const b = new Float64Array(n);
+    const signal = new Uint8Array(n);
+    for (let i = 0; i < n; i++) {
+      a[i] = baseScores[i * units + unit]!;
+      b[i] = modScores[i * units + unit]!;
+      signal[i] = base.stimuli.labels[i]!.includes(category) ? 1 : 0;
+    }
+    const threshold = typeof rule === 'number' ? rule : rule === 'auto' && readout.threshold !== undefined ? readout.threshold : accuracyMaximisingThreshold(a, signal).threshold;
+    const sb = detectFromScores(a, signal, threshold);
+    const sm = detectFromScores(b, signal, threshold);
+    columns.push({ a, b, signal, threshold });
+    perCategory.push({
+      category,
+      unit,
+      threshold,
+      signalTrials: sb.counts.signalTrials,
+      noiseTrials: sb.counts.noiseTrials,
+      base: pick(sb),
+      mod: pick(sm),
+      change: changeOf(sb, sm),
+      ci: resamples > 0 ? bootstrapChange([columns[columns.length - 1]!], resamples, `${seed}:task:${category}`) : null,
+    });
+  }
+  const average = (f: (s: DetectionStats) => number, side: 'base' | 'mod') => perCategory.reduce((sum, c) => sum + f(c[side]), 0) / perCategory.length;
+  const meanStats = (side: 'base' | 'mod'): DetectionStats => ({
+    hitRate: average((s) => s.hitRate, side),
+    falseAlarmRate: average((s) => s.falseAlarmRate, side),
+    dPrime: average((s) => s.dPrime, side),
+    criterion: average((s) => s.criterion, side),
+    accuracy: average((s) => s.accuracy, side),
+    adjustedHitRate: average((s) => s.adjustedHitRate, side),
+    adjustedFalseAlarmRate: average((s) => s.adjustedFalseAlarmRate, side),
+    corrected: perCategory.some((c) => c[side].corrected),
+  });
+  const baseMean = meanStats('base');
+  const modMean = meanStats('mod');
+  return {
+    kind: 'detect',
+    readout: readout.layer,
+    thresholdRule: typeof rule === 'number' ? `fixed threshold ${rule}` : rule === 'auto' && readout.threshold !== undefined ? `the model's threshold ${readout.threshold} (sidecar)` : 'accuracy-maximising threshold on the baseline, held fixed for the modulated run',
+    categories: perCategory,
+    base: baseMean,
+    mod: modMean,
+    change: changeOf(baseMean, modMean),
+    ci: resamples > 0 ? bootstrapChange(columns, resamples, `${seed}:task`) : null,
+  };
+}
+
+function pick(s: DetectionStats): DetectionStats {
+  return { hitRate: s.hitRate, falseAlarmRate: s.falseAlarmRate, adjustedHitRate: s.adjustedHitRate, adjustedFalseAlarmRate: s.adjustedFalseAlarmRate, dPrime: s.dPrime, criterion: s.criterion, accuracy: s.accuracy, corrected: s.corrected };
+}
+
+function changeOf(a: DetectionStats, b: DetectionStats): TaskCategory['change'] {
+  return {
+    hitRatePp: 100 * (b.hitRate - a.hitRate),
+    falseAlarmRatePp: 100 * (b.falseAlarmRate - a.falseAlarmRate),
+    accuracyPp: 100 * (b.accuracy - a.accuracy),
+    dPrime: b.dPrime - a.dPrime,
+    criterion: b.criterion - a.criterion,
+  };
+}
+
+/** Paired bootstrap over stimuli of the mean change in d′ and accuracy across the given categories. */
+function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number }>, resamples: number, seed: string): TaskCategory['ci'] {
+  const n = columns[0]!.a.length;
+  if (n < 2) return null;
+  const a = new Float64Array(n);
+  const b = new Float64Array(n);
+  const s = new Uint8Array(n);
+  const intervals: BootstrapInterval[] = bootstrapIntervals(n, (idx, out) => {
+    let dp = 0;
+    let acc = 0;
+    for (const column of columns) {
+      for (let i = 0; i < idx.length; i++) {
+        a[i] = column.a[idx[i]!]!;
+        b[i] = column.b[idx[i]!]!;
+        s[i] = column.signal[idx[i]!]!;
+      }
+      let signals = 0;
+      for (let i = 0; i < n; i++) signals += s[i]!;
+      if (signals === 0 || signals === n) {
+        out[0] = Number.NaN;
+        out[1] = Number.NaN;
+        return;
+      }
+      const sa = detectFromScores(a, s, column.threshold);
+      const sb = detectFromScores(b, s, column.threshold);
+      dp += sb.dPrime - sa.dPrime;
+      acc += 100 * (sb.accuracy - sa.accuracy);
+    }
+    out[0] = dp / columns.length;
+    out[1] = acc / columns.length;
+  }, 2, { resamples, seed });
+  return { dPrime: [intervals[0]!.low, intervals[0]!.high], accuracyPp: [intervals[1]!.low, intervals[1]!.high] };
+}
+
+function formatSigned(value: number, digits = 2): string {
+  return `${value >= 0 ? '+' : ''}${value.toFixed(digits)}`;
+}
+
+/** One line saying how far the change propagates and what it does to the task. */
+export function verdictOf(report: DiffReport): string {
+  const parts: string[] = [];
+  const profile = report.depthProfile;
+  const site = report.sites[0] ?? 'the site';
+  const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
+  if (report.sites.length === 0) parts.push('no modulation site recorded in the manifest');
+  else if (profile.halfDepth !== null) parts.push(`${subject} halves every ${profile.halfDepth.toFixed(1)} layers below ${site}`);
+  else if (profile.doublingDepth !== null) parts.push(`${subject} doubles every ${profile.doublingDepth.toFixed(1)} layers below ${site}`);
+  else if (Number.isFinite(profile.rate)) parts.push(`${subject} keeps its size below ${site}`);
+  else parts.push(`too few layers below ${site} to fit a depth profile`);
+  if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${report.survival.belowSite} layers below)`);
+  else if (report.sites.length > 0) parts.push('does not rise above the noise floor below the site');
+  const siteRow = report.layers.find((l) => l.site && l.signature);
+  const lastSignature = [...report.layers].reverse().find((l) => l.signature && l.belowSite > 0);
+  if (siteRow?.signature && lastSignature?.signature) {
+    parts.push(`signature slope ${siteRow.signature.slope.toFixed(3)} at the site, ${lastSignature.signature.slope.toFixed(3)} at ${lastSignature.name}`);
+  }
+  if (report.task) {
+    const ci = report.task.ci;
+    parts.push(`detection d′ ${formatSigned(report.task.change.dPrime)}${ci ? ` [${ci.dPrime[0].toFixed(2)}, ${ci.dPrime[1].toFixed(2)}]` : ''}, accuracy ${formatSigned(report.task.change.accuracyPp, 1)} pp`);
+  }
+  return parts.join('; ');
+}
+
+/** Side-by-side comparison of two schemes against the same baseline. */
+export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
+  const layers = a.layers.map((la, i) => {
+    const lb = b.layers[i]!;
+    const larger: 'a' | 'b' | 'equal' = la.relativeChange > lb.relativeChange ? 'a' : lb.relativeChange > la.relativeChange ? 'b' : 'equal';
+    const separated = la.relativeChangeCi !== null && lb.relativeChangeCi !== null && (la.relativeChangeCi[0] > lb.relativeChangeCi[1] || lb.relativeChangeCi[0] > la.relativeChangeCi[1]);
+    return { name: la.name, depth: la.depth, a: la.relativeChange, b: lb.relativeChange, larger, separated };
+  });
+  let task: SchemeComparison['task'] = null;
+  if (a.task && b.task) {
+    const da = a.task.change.dPrime;
+    const db = b.task.change.dPrime;
+    const separated = a.task.ci !== null && b.task.ci !== null && (a.task.ci.dPrime[0] > b.task.ci.dPrime[1] || b.task.ci.dPrime[0] > a.task.ci.dPrime[1]);
+    task = { a: da, b: db, larger: da > db ? 'a' : db > da ? 'b' : 'equal', separated };
+  }
+  const below = layers.filter((_, i) => a.layers[i]!.belowSite > 0);
+  const aWins = below.filter((l) => l.larger === 'a').length;
+  const bWins = below.filter((l) => l.larger === 'b').length;
+  const parts = [`below the site, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
+  if (task) parts.push(`detection d′ change A ${formatSigned(task.a)} vs B ${formatSigned(task.b)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
+  return { a, b, layers, task, verdict: parts.join('; ') };
+}
