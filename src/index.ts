@@ -1,0 +1,41 @@
+/**
+ * Sonde's public library API. The CLI (`bin/sonde`) is a thin shell over these functions.
+ *
+ * Data flows one way: stimuli → session → snapshot → analysis → report.
+ */
+export { SondeError, UsageError, RuntimeFailure } from './errors.js';
+export { TOOL_VERSION } from './version.js';
+
+// graph: load, inspect, instrument, inject
+export { loadModel, type LoadedModel, type Dim } from './graph/load-model.js';
+export { analyseGraph, type GraphStructure, type GraphNode } from './graph/structure.js';
+export { exposeTensors } from './graph/instrument.js';
+export { injectModulations, modulationInputNames, modulationInputDims, type InjectionSite } from './graph/inject.js';
+export { extractTail, type TailGraph } from './graph/tail.js';
+export { selectLayers, globToRegExp } from './graph/select.js';
+export { readSidecar, sidecarPath, type ModelSidecar } from './graph/sidecar.js';
+
+// session
+export { createNetworkSession, type NetworkSession, type NetworkSessionOptions, type FloatTensor } from './session/network-session.js';
+
+// stimuli
+export { openStimulusSource, type StimulusSource, type StimulusSourceOptions } from './stimuli/source.js';
+export { parseNpy, formatNpy, type NpyTensor } from './stimuli/npy.js';
+export type { Preprocessing } from './stimuli/preprocess.js';
+
+// snapshot
+export { openSnapshot, type Snapshot, type LayerBatch, type ReadLayerOptions } from './snapshot/snapshot.js';
+export { readManifest, FORMAT_VERSION, type SnapshotManifest, type ManifestLayer, type KeepMode, type ActivationDtype } from './snapshot/manifest.js';
+
+// pipelines
+export { inspectModel, type ModelInspection, type LayerInfo, type InspectOptions } from './pipeline/inspect-model.js';
+export { recordSnapshot, type RecordOptions, type RecordSummary, type RecordProgress } from './pipeline/record-snapshot.js';
+export { recordModulated, type RecordModulatedOptions } from './pipeline/record-modulated.js';
+export { diffSnapshots, assertPaired, type DiffOptions, type DiffReport, type LayerDiffRow, type TaskReport, type SchemeComparison } from './pipeline/diff-snapshots.js';
+
+// modulation and analysis (pure)
+export * as modulation from './modulation/index.js';
+export * as analysis from './analysis/index.js';
+
+// report
+export { renderDiffReport, renderComparison, diffToCsv, reportToJson } from './report/diff-table.js';
