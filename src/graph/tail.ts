@@ -33,6 +33,26 @@ export function extractTail(model: LoadedModel, structure: GraphStructure, sites
       }
     }
   }
+  // Static tensors (initializers, and outputs of nodes fed only by static tensors, e.g. Constant) are
+  // computed inside the tail wherever tail nodes read them, instead of being fed.
+  const isStatic = new Uint8Array(structure.nodes.length);
+  const staticTensors = new Set(structure.initializers);
+  structure.nodes.forEach((node, i) => {
+    if (node.inputs.every((input) => !input || staticTensors.has(input))) {
+      isStatic[i] = 1;
+      for (const out of node.outputs) staticTensors.add(out);
+    }
+  });
+  const needStatic = (tensor: string): void => {
+    const p = structure.producer.get(tensor);
+    if (p === undefined || !isStatic[p] || inTail[p]) return;
+    inTail[p] = 1;
+    for (const input of structure.nodes[p]!.inputs) if (input) needStatic(input);
+  };
+  structure.nodes.forEach((node, i) => {
+    if (inTail[i]) for (const input of node.inputs) if (input) needStatic(input);
+  });
+  for (const tensor of staticTensors) if (!structure.initializers.has(tensor)) computed.add(tensor);
   // A site computed by the tail (downstream of another site) stays computed; the others are fed.
   const boundary: string[] = [];
   const boundarySet = new Set<string>();
