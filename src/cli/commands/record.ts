@@ -1,6 +1,7 @@
 import type { Command } from 'commander';
 import { recordSnapshot, displayPath } from '../../pipeline/record-snapshot.js';
 import { recordModulated } from '../../pipeline/record-modulated.js';
+import { loadModulationTables } from '../../pipeline/tables.js';
 import { parseChannelList, parseShape, parseSize } from '../../stimuli/preprocess.js';
 import { UsageError } from '../../errors.js';
 import { megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
@@ -25,6 +26,8 @@ interface RecordCliOptions {
   modulate?: string;
   from?: string;
   fullRun?: boolean;
+  tuning?: string;
+  sensitivity?: string;
 }
 
 /** `sonde record MODEL --stimuli SRC --out DIR`: record a snapshot. */
@@ -49,6 +52,8 @@ export function registerRecord(program: Command): void {
     .option('--force', 'replace a complete snapshot already in --out')
     .option('--modulate <spec>', 'modulation spec (YAML or JSON) to inject')
     .option('--from <baseline>', 'baseline snapshot to pair with; only the part downstream of the sites is re-run when possible')
+    .option('--tuning <file.arrow>', 'tuning table for the tuning kind and lesion top (from `sonde tune`)')
+    .option('--sensitivity <file.arrow>', 'sensitivity table for the sensitivity kind (from `sonde sense`)')
     .option('--full-run', 'with --from: run the whole network instead of replaying the downstream part')
     .action(async (modelPath: string, opts: RecordCliOptions) => {
       const io = cliIo();
@@ -75,8 +80,10 @@ export function registerRecord(program: Command): void {
           ...(opts.force ? { force: true } : {}),
           onProgress: (p: { done: number; total: number; bytesWritten: number }) => bar.update(p.done, p.total, megabytes(p.bytesWritten)),
         } as const;
+        if ((opts.tuning || opts.sensitivity) && !opts.modulate) throw new UsageError('E_TABLES', '--tuning and --sensitivity need --modulate (they feed the tuning, sensitivity and lesion-top kinds)');
+        const loaded = opts.tuning || opts.sensitivity ? loadModulationTables({ ...(opts.tuning ? { tuning: opts.tuning } : {}), ...(opts.sensitivity ? { sensitivity: opts.sensitivity } : {}) }) : null;
         const summary = opts.modulate
-          ? await recordModulated({ ...common, modulate: opts.modulate, ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}) })
+          ? await recordModulated({ ...common, modulate: opts.modulate, ...(loaded ? { tables: loaded.tables, categories: loaded.categories } : {}), ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}) })
           : await recordSnapshot(common);
         bar.stop();
         io.stdout(

@@ -1,0 +1,118 @@
+/**
+ * `sonde sense MODEL --site TENSOR --readout OUTPUT[:CATEGORY|INDEX] --out FILE.arrow`: causal gain (or
+ * offset) sensitivities of every channel of a site for each readout category, by central finite
+ * differences through the injected gain input (see src/pipeline/sense.ts).
+ */
+import Table from 'cli-table3';
+import type { Command } from 'commander';
+import { InvalidArgumentError } from 'commander';
+import { UsageError } from '../../errors.js';
+import { displayPath } from '../../pipeline/record-snapshot.js';
+import { ALL_ACTIVATIONS, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, senseSites } from '../../pipeline/sense.js';
+import { parseChannelList, parseShape } from '../../stimuli/preprocess.js';
+import { nonNegativeInteger, positiveInteger } from '../options.js';
+import { createProgressBar } from '../progress.js';
+import { cliIo } from '../run.js';
+
+interface SenseCliOptions {
+  stimuli?: string;
+  labels?: string;
+  from?: string;
+  site: string[];
+  readout?: string;
+  kind: string;
+  step: string;
+  secondStep?: boolean;
+  stimuliOf?: string;
+  out: string;
+  rows: number;
+  batch: number;
+  threads: number;
+  inputShape?: string;
+  mean?: string;
+  std?: string;
+  bgr?: boolean;
+  json?: boolean;
+}
+
+/** Registers `sonde sense`. */
+export function registerSense(program: Command): void {
+  program
+    .command('sense')
+    .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by central differences')
+    .argument('<model>', 'ONNX model file')
+    .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect, [])
+    .requiredOption('--out <file.arrow>', 'write the sensitivity table here')
+    .option('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W] (optional with --from)')
+    .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
+    .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
+    .option('--readout <output[:category|index]>', 'readout tensor, optionally one unit (default: the first graph output, every unit)')
+    .option('--kind <kind>', 'gain (multiplicative, at g = 1) or offset (additive, at b = 0)', 'gain')
+    .option('--step <h>', `central-difference step h > 0 (default ${DEFAULT_STEP})`, String(DEFAULT_STEP))
+    .option('--second-step', 'also evaluate at h/2 and fold the difference into fd_error (twice the cost)')
+    .option('--stimuli-of <category|each>', 'average only over stimuli containing CATEGORY; each: every readout category over the stimuli containing it')
+    .option('--rows <n>', `perturbed rows per downstream run (default ${DEFAULT_ROWS_PER_RUN})`, positiveInteger, DEFAULT_ROWS_PER_RUN)
+    .option('--batch <n>', 'stimuli per run of the whole network (without --from)', positiveInteger, 16)
+    .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
+    .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
+    .option('--mean <a,b,c>', 'per-channel mean after scaling to [0,1] (default: model sidecar, else 0)')
+    .option('--std <a,b,c>', 'per-channel std after scaling to [0,1] (default: model sidecar, else 1)')
+    .option('--bgr', 'feed channels in BGR order')
+    .option('--json', 'print JSON instead of a table')
+    .action(async (modelPath: string, opts: SenseCliOptions) => {
+      const io = cliIo();
+      if (opts.site.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --site TENSOR (or --site ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
+      if (opts.kind !== 'gain' && opts.kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${opts.kind}"`);
+      const step = Number(opts.step);
+      if (opts.step.trim() === '' || !Number.isFinite(step) || step <= 0) {
+        throw new UsageError('E_SENSE_STEP', `--step ${JSON.stringify(opts.step)} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${DEFAULT_STEP})` });
+      }
+      const bar = createProgressBar('sense');
+      let result;
+      try {
+        result = await senseSites({
+          model: modelPath,
+          site: opts.site,
+          kind: opts.kind,
+          step,
+          rowsPerRun: opts.rows,
+          batch: opts.batch,
+          threads: opts.threads,
+          out: opts.out,
+          ...(opts.stimuli !== undefined ? { stimuli: opts.stimuli } : {}),
+          ...(opts.labels !== undefined ? { labels: opts.labels } : {}),
+          ...(opts.from !== undefined ? { from: opts.from } : {}),
+          ...(opts.readout !== undefined ? { readout: opts.readout } : {}),
+          ...(opts.secondStep ? { secondStep: true } : {}),
+          ...(opts.stimuliOf !== undefined ? { stimuliOf: opts.stimuliOf } : {}),
+          ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
+          ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
+          ...(opts.std ? { std: parseChannelList(opts.std, 0, '--std') } : {}),
+          ...(opts.bgr ? { bgr: true } : {}),
+          onProgress: (p) => bar.update(p.rowsDone, p.rowsTotal, p.site),
+        });
+      } finally {
+        bar.stop();
+      }
+      for (const warning of result.warnings) io.stderr(`sonde: warning: ${warning}\n`);
+      if (opts.json) {
+        const sites = result.sites.map(({ sensitivity: _s, fdError: _e, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
+        io.stdout(`${JSON.stringify({ readout: result.readout, source: result.source, file: result.file, sites }, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
+        return;
+      }
+      const table = new Table({ head: ['site', 'channels', 'categories', 'stimuli', 'max |s|', 'worst fd_error', 'rows', 'downstream share', 'fwd-pass eq./channel', 'seconds'], style: { head: [], border: [], compact: true } });
+      for (const s of result.sites) {
+        let largest = 0;
+        for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
+        table.push([s.layer, s.channels, s.categories.length, s.stimuliUsed, largest.toPrecision(3), `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
+      }
+      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), step ${step}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out)}\n`);
+      io.stdout(`${table.toString()}\n`);
+      io.stdout(`values are central secants (y(+h) − y(−h)) / 2h; worst fd_error is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%); forward-pass equivalents from Conv/Gemm/MatMul multiply-adds\n`);
+    });
+}
+
+function collect(value: string, previous: string[]): string[] {
+  if (value.trim() === '') throw new InvalidArgumentError('names no tensor.');
+  return [...previous, value];
+}

@@ -1,0 +1,102 @@
+/**
+ * `sonde tune SOURCE`: the tuning table of a labelled snapshot (SOURCE a snapshot folder, with --out),
+ * or an existing tuning table (SOURCE an .arrow file); with --against, how tuning agrees with a
+ * sensitivity table, layer by layer.
+ */
+import { existsSync, statSync } from 'node:fs';
+import Table from 'cli-table3';
+import type { Command } from 'commander';
+import { UsageError } from '../../errors.js';
+import { sparkline } from '../../analysis/sparkline.js';
+import { compareTables, type TableComparison } from '../../pipeline/compare-tables.js';
+import { displayPath } from '../../pipeline/record-snapshot.js';
+import { SELECTIVE_INDEX, summariseLayer, tuneSnapshot, type LayerTuningSummary } from '../../pipeline/tune.js';
+import { readSensitivityTable, readTuningTable, type TuningTableBlock } from '../../snapshot/tables.js';
+import { cliIo } from '../run.js';
+
+interface TuneCliOptions {
+  out?: string;
+  layers?: string;
+  singleLabel?: boolean;
+  against?: string;
+  json?: boolean;
+}
+
+const TABLE_STYLE = { head: [] as string[], border: [] as string[], compact: true };
+
+/** Registers `sonde tune`. */
+export function registerTune(program: Command): void {
+  program
+    .command('tune')
+    .description('per layer, channel and category: mean response, standard error, count and tuning value (z-score across categories) of a labelled snapshot')
+    .argument('<source>', 'a labelled baseline snapshot folder, or a tuning table (.arrow) made earlier')
+    .option('--out <file.arrow>', 'write the tuning table here (needed when SOURCE is a snapshot)')
+    .option('--layers <selector>', 'layers to tune: all | globs | names joined by + (default: every layer with a channel axis)')
+    .option('--single-label', 'use only stimuli with exactly one label (default: multi-label stimuli count for each label)')
+    .option('--against <sens.arrow>', 'also correlate tuning with a sensitivity table (Pearson and Spearman across channels, per layer)')
+    .option('--json', 'print JSON instead of tables')
+    .action(async (source: string, opts: TuneCliOptions) => {
+      const io = cliIo();
+      const isTable = existsSync(source) && statSync(source).isFile();
+      let blocks: TuningTableBlock[];
+      let summaries: LayerTuningSummary[];
+      let header: Record<string, unknown> = {};
+      if (isTable) {
+        if (opts.layers !== undefined || opts.singleLabel) throw new UsageError('E_USAGE', `${source} is a tuning table; --layers and --single-label apply when tuning a snapshot`);
+        if (opts.against === undefined) throw new UsageError('E_USAGE', `${source} is already a tuning table; pass --against SENS.arrow to compare it, or a snapshot folder to tune`);
+        blocks = readTuningTable(source).blocks;
+        summaries = blocks.map((b) => summariseLayer(b.layer, b.op ?? '', b.depth ?? -1, { ...b, nonFinite: new Int32Array(b.channels), stimuliUsed: 0, stimuliSkipped: 0 }));
+      } else {
+        if (opts.out === undefined) throw new UsageError('E_USAGE', 'sonde tune SNAPSHOT needs --out FILE.arrow (where the tuning table goes)');
+        const result = await tuneSnapshot({ snapshot: source, out: opts.out, ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) });
+        blocks = result.blocks;
+        summaries = result.summaries;
+        header = { snapshot: source, out: opts.out, categories: result.categories, counts: result.counts, stimuliUsed: result.stimuliUsed, stimuliSkipped: result.stimuliSkipped, bytes: result.file?.bytes };
+      }
+      const comparison = opts.against !== undefined ? compareTables(blocks, readSensitivityTable(opts.against).blocks) : null;
+      if (opts.json) {
+        io.stdout(`${JSON.stringify({ ...header, selectiveIndex: SELECTIVE_INDEX, layers: summaries, ...(comparison ? { comparison } : {}) }, jsonNumbers, 2)}\n`);
+        return;
+      }
+      if (!isTable) {
+        const counts = Object.entries(header['counts'] as Record<string, number>).map(([c, n]) => `${c} ${n}`).join(', ');
+        io.stdout(`tuned ${summaries.length} layers of ${source} for ${(header['categories'] as string[]).length} categories (stimuli per category: ${counts}; ${String(header['stimuliSkipped'])} stimuli without a category used) → ${displayPath(opts.out!)}\n`);
+        io.stdout(`${tuningTable(summaries)}\n`);
+        io.stdout(`across depth: selective ${sparkline(summaries.map((s) => s.selectiveFraction), { min: 0, max: 1 })}  mean selectivity ${sparkline(summaries.map((s) => s.meanSelectivity), { min: 0, max: 1 })}  (selective: index ≥ ${SELECTIVE_INDEX.toFixed(2)}, preferred category ≥ 2× the others)\n`);
+      }
+      if (comparison) io.stdout(`${comparisonText(comparison, opts.against!)}\n`);
+    });
+}
+
+function tuningTable(summaries: readonly LayerTuningSummary[]): string {
+  const table = new Table({ head: ['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], style: TABLE_STYLE });
+  for (const s of summaries) {
+    table.push([s.depth, s.layer, s.op, s.channels, `${(100 * s.selectiveFraction).toFixed(0)}%`, fixed(s.meanSelectivity, 3), s.zeroVarianceChannels || '', s.nonFiniteChannels || '']);
+  }
+  return table.toString();
+}
+
+function comparisonText(comparison: TableComparison, path: string): string {
+  const table = new Table({ head: ['depth', 'layer', 'channels', 'pooled r', 'pooled ρ', ...comparison.categories.map((c) => `r ${c}`)], style: TABLE_STYLE });
+  for (const l of comparison.layers) {
+    table.push([l.depth, l.layer, l.channels, fixed(l.pooled.pearson, 3), fixed(l.pooled.spearman, 3), ...l.byCategory.map((c) => fixed(c.pearson, 2))]);
+  }
+  const pooled = comparison.layers.map((l) => l.pooled.pearson);
+  const trend = comparison.depthTrend;
+  const lines = [
+    `tuning vs sensitivity (${displayPath(path)}; sensitivities ${comparison.sensitivityScale === 'normalised' ? 'z-scored across categories' : 'raw, one shared category'})`,
+    table.toString(),
+    `pooled r across depth: ${sparkline(pooled, { min: -1, max: 1 })}${Number.isFinite(trend.slope) ? `  trend ${trend.slope >= 0 ? '+' : ''}${trend.slope.toPrecision(3)} per depth step` : ''}`,
+  ];
+  if (comparison.unmatched.length > 0) lines.push(`not in the tuning table: ${comparison.unmatched.join(', ')}`);
+  return lines.join('\n');
+}
+
+function fixed(x: number, digits: number): string {
+  return Number.isFinite(x) ? x.toFixed(digits) : 'NaN';
+}
+
+/** JSON replacer: NaN/±Infinity become null (JSON has no such numbers). */
+function jsonNumbers(_key: string, value: unknown): unknown {
+  return typeof value === 'number' && !Number.isFinite(value) ? null : value;
+}

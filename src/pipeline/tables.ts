@@ -1,0 +1,83 @@
+/**
+ * `loadModulationTables`: reads a tuning table and/or a sensitivity table and turns them into the
+ * lookups the modulation resolver needs for the `tuning` and `sensitivity` kinds and for `lesion` with
+ * `top` (`ResolveContext['tables']`), plus the category list in table order.
+ */
+import { UsageError } from '../errors.js';
+import type { ResolveContext, TableLookup } from '../modulation/types.js';
+import { readSensitivityTable, readTuningTable, type SensitivityTableBlock, type TuningTableBlock } from '../snapshot/tables.js';
+
+/** Paths of the tables to load. */
+export interface ModulationTablePaths {
+  /** A tuning table (`sonde tune ... --out`). */
+  tuning?: string;
+  /** A sensitivity table (`sonde sense ... --out`). */
+  sensitivity?: string;
+}
+
+/** What `loadModulationTables` returns. */
+export interface ModulationTables {
+  /** The lookups for `ResolveContext.tables`. */
+  tables: NonNullable<ResolveContext['tables']>;
+  /** Category names in table order (the tuning table's when both are given). */
+  categories: string[];
+  /** Layers (sites) each table covers. */
+  layers: { tuning: string[]; sensitivity: string[] };
+}
+
+/**
+ * Loads the tables and builds the resolver's lookups: `(site, category)` → that category's values of
+ * every channel of the site (tuning values t_kc, or the sensitivity values), or undefined when the table
+ * lacks the site or category (the resolver then names the command that makes a table).
+ * @param paths `tuning` and/or `sensitivity` file paths.
+ * @returns lookups, the category list and the covered layers.
+ * @throws UsageError when neither path is given, a file is missing or malformed (see
+ *   `readTuningTable` / `readSensitivityTable`), or both are given and their categories differ (both
+ *   lists named).
+ */
+export function loadModulationTables(paths: ModulationTablePaths): ModulationTables {
+  if (paths.tuning === undefined && paths.sensitivity === undefined) {
+    throw new UsageError('E_TABLES', 'loadModulationTables needs a tuning or a sensitivity table path');
+  }
+  const tables: NonNullable<ResolveContext['tables']> = {};
+  const layers = { tuning: [] as string[], sensitivity: [] as string[] };
+  let categories: string[] | undefined;
+  if (paths.tuning !== undefined) {
+    const file = readTuningTable(paths.tuning);
+    tables.tuning = lookupOf(file.blocks, (b) => b.tuning);
+    categories = file.categories;
+    layers.tuning = file.blocks.map((b) => b.layer);
+  }
+  if (paths.sensitivity !== undefined) {
+    const file = readSensitivityTable(paths.sensitivity);
+    tables.sensitivity = lookupOf(file.blocks, (b) => b.sensitivity);
+    layers.sensitivity = file.blocks.map((b) => b.layer);
+    if (categories === undefined) categories = file.categories;
+    else if (!sameSet(categories, file.categories)) {
+      throw new UsageError('E_TABLES', `--tuning ${paths.tuning} has categories ${categories.join(', ')} but --sensitivity ${paths.sensitivity} has ${file.categories.join(', ')}; one modulation run needs one category list`, {
+        hint: 'sense with a readout whose units are the label categories (a model sidecar with outputs.kinds)',
+      });
+    }
+  }
+  return { tables, categories: categories!, layers };
+}
+
+/** A lookup over blocks: column c of the block's [C, K] values. */
+function lookupOf<B extends TuningTableBlock | SensitivityTableBlock>(blocks: readonly B[], values: (block: B) => Float64Array): TableLookup {
+  const byLayer = new Map(blocks.map((b) => [b.layer, b]));
+  return (site, category) => {
+    const block = byLayer.get(site);
+    if (!block) return undefined;
+    const K = block.categories.length;
+    const c = block.categories.indexOf(category);
+    if (c < 0) return undefined;
+    const grid = values(block);
+    const column = new Float64Array(block.channels);
+    for (let k = 0; k < block.channels; k++) column[k] = grid[k * K + c]!; // [C, K]: i = k*K + c
+    return column;
+  };
+}
+
+function sameSet(a: readonly string[], b: readonly string[]): boolean {
+  return a.length === b.length && a.every((x) => b.includes(x));
+}
