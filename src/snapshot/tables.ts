@@ -18,7 +18,7 @@
  */
 import { readFileSync } from 'node:fs';
 import {
-  Bool, Field, Float64, Int32, makeData, RecordBatch, RecordBatchFileWriter, Schema, Struct, tableFromIPC, Utf8, vectorFromArray,
+  Bool, DataType, Field, Float64, Int32, makeData, RecordBatch, RecordBatchFileWriter, Schema, Struct, tableFromIPC, Type, Utf8, vectorFromArray,
   type Data, type Table,
 } from 'apache-arrow';
 import { UsageError } from '../errors.js';
@@ -403,8 +403,18 @@ function requireColumns(table: Table, path: string, fields: readonly Field[]): R
   return columns;
 }
 
-function sameTypeFamily(actual: { typeId: number }, expected: { typeId: number }): boolean {
-  return actual.typeId === expected.typeId;
+/**
+ * Whether a column written by another tool can stand for the expected type: any string encoding
+ * (utf8, large utf8, string view, or a dictionary of strings — Polars' categoricals) for utf8, any
+ * integer width for int32, any float width for float64, bool for bool.
+ */
+function sameTypeFamily(actual: DataType, expected: DataType): boolean {
+  const family = (type: DataType): number => {
+    if (DataType.isDictionary(type)) return family(type.dictionary);
+    if (type.typeId === Type.LargeUtf8 || type.typeId === Type.Utf8View) return Type.Utf8;
+    return type.typeId;
+  };
+  return family(actual) === family(expected);
 }
 
 interface Grid {
