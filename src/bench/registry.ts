@@ -1,4 +1,7 @@
+import { benchRecordOverhead } from './record-overhead.js';
 import type { Benchmark } from './types.js';
 
 /** Every benchmark by name. Add one: write `src/bench/<name>.ts` exporting a Benchmark, list it here. */
-export const BENCHMARKS: Record<string, Benchmark> = {};
+export const BENCHMARKS: Record<string, Benchmark> = {
+  'record-overhead': benchRecordOverhead,
+};

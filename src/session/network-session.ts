@@ -2,6 +2,8 @@
  * The only module that imports onnxruntime-node. A thin, typed wrapper: create a session from model
  * bytes, feed float32 tensors, fetch named outputs as Float32Arrays.
  */
+import { createRequire } from 'node:module';
+import { Worker } from 'node:worker_threads';
 import * as ort from 'onnxruntime-node';
 import { RuntimeFailure, UsageError } from '../errors.js';
 
@@ -17,6 +19,8 @@ export interface NetworkSessionOptions {
   threads?: number;
   /** Label for error messages (the model file). */
   label?: string;
+  /** Run the session in a worker thread (default true), so the caller's thread stays free while it computes. */
+  inWorker?: boolean;
 }
 
 /** A loaded network ready to run batches. */
@@ -25,7 +29,7 @@ export interface NetworkSession {
   readonly outputNames: readonly string[];
   /**
    * Runs one batch. `fetch` selects outputs (default: all). Resolves with fresh arrays owned by the
-   * caller. The runtime computes on its own threads, so the JS thread is free while this is pending.
+   * caller; the input arrays stay the caller's (they are copied).
    */
   run(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, FloatTensor>>;
   /** Releases native resources. */
@@ -34,7 +38,10 @@ export interface NetworkSession {
 
 /**
  * Creates a runtime session from ONNX bytes (CPU execution provider, all graph optimisations,
- * sequential execution so results do not depend on scheduling).
+ * sequential execution so results do not depend on scheduling). By default the session lives in a
+ * worker thread: onnxruntime-node's `run` blocks the thread it is called on, so a session on the main
+ * thread would leave no room to read and write while the network computes. Outputs come back as
+ * transferred buffers (no copy); inputs are copied, so callers may reuse them.
  * @throws RuntimeFailure when the runtime rejects the model (the message is the runtime's first line).
  */
 export async function createNetworkSession(bytes: Uint8Array, options: NetworkSessionOptions = {}): Promise<NetworkSession> {
@@ -42,21 +49,30 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
   if (!Number.isInteger(threads) || threads < 0) {
     throw new UsageError('E_THREADS', `--threads must be a non-negative integer, got ${threads}`);
   }
-  let session: ort.InferenceSession;
-  try {
-    session = await ort.InferenceSession.create(bytes, {
-      executionProviders: ['cpu'],
-      graphOptimizationLevel: 'all',
-      executionMode: 'sequential',
-      intraOpNumThreads: threads,
-      interOpNumThreads: 1,
-    });
-  } catch (error) {
-    throw new RuntimeFailure('E_RUNTIME_LOAD', `the ONNX runtime rejected ${options.label ?? 'the model'}: ${firstLine(error)}`, {
-      hint: 'check that the model is valid (onnx.checker) and uses operators the CPU runtime supports',
-    });
+  const sessionOptions: ort.InferenceSession.SessionOptions = {
+    executionProviders: ['cpu'],
+    graphOptimizationLevel: 'all',
+    executionMode: 'sequential',
+    intraOpNumThreads: threads,
+    interOpNumThreads: 1,
+  };
+  const label = options.label ?? 'the model';
+  if (options.inWorker === false) {
+    let session: ort.InferenceSession;
+    try {
+      session = await ort.InferenceSession.create(bytes, sessionOptions);
+    } catch (error) {
+      throw rejected(label, error);
+    }
+    return new OrtNetworkSession(session, label);
   }
-  return new OrtNetworkSession(session, options.label ?? 'the model');
+  return WorkerNetworkSession.create(bytes, sessionOptions, label);
+}
+
+function rejected(label: string, error: unknown): RuntimeFailure {
+  return new RuntimeFailure('E_RUNTIME_LOAD', `the ONNX runtime rejected ${label}: ${firstLine(error)}`, {
+    hint: 'check that the model is valid (onnx.checker) and uses operators the CPU runtime supports',
+  });
 }
 
 class OrtNetworkSession implements NetworkSession {
@@ -94,6 +110,116 @@ class OrtNetworkSession implements NetworkSession {
     await this.session.release();
   }
 }
+
+// The worker is plain CommonJS evaluated from a string, so it runs the same from compiled code and
+// from TypeScript sources under the test runner; it loads onnxruntime-node from the path resolved here.
+const WORKER_SOURCE = `
+const { parentPort, workerData } = require('node:worker_threads');
+const ort = require(workerData.ortPath);
+let session = null;
+const first = (e) => String(e && e.message ? e.message : e).split('\\n')[0].trim();
+parentPort.on('message', async (m) => {
+  try {
+    if (m.type === 'create') {
+      session = await ort.InferenceSession.create(m.bytes, m.options);
+      parentPort.postMessage({ id: m.id, inputNames: session.inputNames, outputNames: session.outputNames });
+    } else if (m.type === 'run') {
+      const feeds = {};
+      for (const name of Object.keys(m.feeds)) feeds[name] = new ort.Tensor('float32', m.feeds[name].data, m.feeds[name].dims);
+      const results = m.fetch ? await session.run(feeds, m.fetch) : await session.run(feeds);
+      const out = {};
+      const transfer = [];
+      for (const name of Object.keys(results)) {
+        const t = results[name];
+        if (t.type !== 'float32') throw new Error('output "' + name + '" is ' + t.type + '; Sonde records float32 tensors only');
+        out[name] = { data: t.data, dims: t.dims.slice() };
+        if (!transfer.includes(t.data.buffer)) transfer.push(t.data.buffer);
+      }
+      parentPort.postMessage({ id: m.id, out }, transfer);
+    } else if (m.type === 'close') {
+      if (session) await session.release();
+      session = null;
+      parentPort.postMessage({ id: m.id });
+    }
+  } catch (e) {
+    parentPort.postMessage({ id: m.id, error: first(e) });
+  }
+});
+`;
+
+interface WorkerReply {
+  id: number;
+  error?: string;
+  out?: Record<string, FloatTensor>;
+  inputNames?: string[];
+  outputNames?: string[];
+}
+
+class WorkerNetworkSession implements NetworkSession {
+  private nextId = 1;
+  private readonly pending = new Map<number, { resolve: (reply: WorkerReply) => void; reject: (error: Error) => void }>();
+  inputNames: readonly string[] = [];
+  outputNames: readonly string[] = [];
+
+  private constructor(private readonly worker: Worker, private readonly label: string) {
+    worker.on('message', (reply: WorkerReply) => {
+      const waiter = this.pending.get(reply.id);
+      if (!waiter) return;
+      this.pending.delete(reply.id);
+      waiter.resolve(reply);
+    });
+    worker.on('error', (error) => this.failAll(new RuntimeFailure('E_RUNTIME_WORKER', `the runtime worker for ${label} failed: ${firstLine(error)}`)));
+    worker.on('exit', (code) => {
+      if (this.pending.size > 0) this.failAll(new RuntimeFailure('E_RUNTIME_WORKER', `the runtime worker for ${label} exited (code ${code})`));
+    });
+  }
+
+  static async create(bytes: Uint8Array, options: ort.InferenceSession.SessionOptions, label: string): Promise<WorkerNetworkSession> {
+    const worker = new Worker(WORKER_SOURCE, { eval: true, workerData: { ortPath: ORT_PATH } });
+    worker.unref();
+    const session = new WorkerNetworkSession(worker, label);
+    const reply = await session.call({ type: 'create', bytes, options });
+    if (reply.error) {
+      await worker.terminate();
+      throw rejected(label, reply.error);
+    }
+    session.inputNames = reply.inputNames ?? [];
+    session.outputNames = reply.outputNames ?? [];
+    return session;
+  }
+
+  private failAll(error: Error): void {
+    for (const waiter of this.pending.values()) waiter.reject(error);
+    this.pending.clear();
+  }
+
+  private call(message: Record<string, unknown>): Promise<WorkerReply> {
+    const id = this.nextId++;
+    return new Promise((resolve, reject) => {
+      this.pending.set(id, { resolve, reject });
+      this.worker.ref();
+      this.worker.postMessage({ ...message, id });
+    }).finally(() => {
+      if (this.pending.size === 0) this.worker.unref();
+    }) as Promise<WorkerReply>;
+  }
+
+  async run(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, FloatTensor>> {
+    const reply = await this.call({ type: 'run', feeds, fetch: fetch ? [...fetch] : undefined });
+    if (reply.error) throw new RuntimeFailure('E_RUNTIME_RUN', `running ${this.label} failed: ${reply.error}`);
+    return reply.out!;
+  }
+
+  async close(): Promise<void> {
+    try {
+      await this.call({ type: 'close' });
+    } finally {
+      await this.worker.terminate();
+    }
+  }
+}
+
+const ORT_PATH = createRequire(import.meta.url).resolve('onnxruntime-node');
 
 /**
  * Runs the model once and returns every output's element type and dims, whatever its type
