@@ -18,7 +18,7 @@ interface SenseCliOptions {
   stimuli?: string;
   labels?: string;
   from?: string;
-  site: string[];
+  site?: string[];
   readout?: string;
   kind: string;
   step: string;
@@ -41,17 +41,17 @@ export function registerSense(program: Command): void {
     .command('sense')
     .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by central differences')
     .argument('<model>', 'ONNX model file')
-    .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect, [])
+    .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect)
     .requiredOption('--out <file.arrow>', 'write the sensitivity table here')
     .option('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W] (optional with --from)')
     .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
     .option('--readout <output[:category|index]>', 'readout tensor, optionally one unit (default: the first graph output, every unit)')
     .option('--kind <kind>', 'gain (multiplicative, at g = 1) or offset (additive, at b = 0)', 'gain')
-    .option('--step <h>', `central-difference step h > 0 (default ${DEFAULT_STEP})`, String(DEFAULT_STEP))
+    .option('--step <h>', 'central-difference step h > 0', String(DEFAULT_STEP))
     .option('--second-step', 'also evaluate at h/2 and fold the difference into fd_error (twice the cost)')
     .option('--stimuli-of <category|each>', 'average only over stimuli containing CATEGORY; each: every readout category over the stimuli containing it')
-    .option('--rows <n>', `perturbed rows per downstream run (default ${DEFAULT_ROWS_PER_RUN})`, positiveInteger, DEFAULT_ROWS_PER_RUN)
+    .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run', positiveInteger, DEFAULT_ROWS_PER_RUN)
     .option('--batch <n>', 'stimuli per run of the whole network (without --from)', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
@@ -61,7 +61,7 @@ export function registerSense(program: Command): void {
     .option('--json', 'print JSON instead of a table')
     .action(async (modelPath: string, opts: SenseCliOptions) => {
       const io = cliIo();
-      if (opts.site.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --site TENSOR (or --site ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
+      if (opts.site === undefined || opts.site.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --site TENSOR (or --site ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
       if (opts.kind !== 'gain' && opts.kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${opts.kind}"`);
       const step = Number(opts.step);
       if (opts.step.trim() === '' || !Number.isFinite(step) || step <= 0) {
@@ -112,7 +112,7 @@ export function registerSense(program: Command): void {
     });
 }
 
-function collect(value: string, previous: string[]): string[] {
+function collect(value: string, previous: string[] | undefined): string[] {
   if (value.trim() === '') throw new InvalidArgumentError('names no tensor.');
-  return [...previous, value];
+  return [...(previous ?? []), value];
 }
