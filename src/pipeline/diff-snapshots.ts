@@ -273,8 +273,8 @@ async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLay
   return { metrics: accumulator.finish(), means: keepMeans ? accumulator.channelMeans() : null, norms: accumulator.perStimulusNorms() };
 }
 
-/** Resolves the readout layer and the unit of each category. */
-function readoutOf(base: Snapshot): { layer: string; kinds: string[]; threshold: number | undefined } {
+/** Resolves the readout layer and the unit of each category (from the manifest's readout, else the last layer when its width equals the category count). */
+export function readoutOf(base: Snapshot): { layer: string; kinds: string[]; threshold: number | undefined } {
   const readout = base.manifest.readout;
   if (readout) return { layer: readout.name, kinds: readout.kinds, threshold: readout.threshold };
   const last = base.manifest.layers[base.manifest.layers.length - 1]!;
@@ -289,16 +289,7 @@ async function taskReadout(base: Snapshot, mod: Snapshot, options: DiffOptions, 
   const taskText = options.task ?? (options.target ? `detect:${options.target}` : undefined);
   if (!taskText) return null;
   const readout = readoutOf(base);
-  let categories: string[];
-  if (taskText === 'labels' || taskText === 'detect:all') categories = readout.kinds.filter((k) => base.categories.includes(k));
-  else if (taskText.startsWith('detect:')) {
-    categories = taskText.slice(7).split(',').map((c) => c.trim()).filter((c) => c.length > 0);
-    for (const category of categories) {
-      if (!readout.kinds.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: "${category}" has no readout unit (units: ${readout.kinds.join(', ')})`);
-      if (!base.categories.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: no stimulus is labelled "${category}"`);
-    }
-  } else throw new UsageError('E_TASK', `--task must be detect:CATEGORY[,CATEGORY…], detect:all or labels, got "${taskText}"`);
-  if (categories.length === 0) throw new UsageError('E_TASK', `--task ${taskText}: no category has both a readout unit and labelled stimuli`);
+  const categories = parseDetectionTask(taskText, readout.kinds, base.categories);
   const units = base.layerGeometry(readout.layer).channels;
   const baseScores = await base.readChannelMeans(readout.layer);
   const modScores = await mod.readChannelMeans(readout.layer);
@@ -316,7 +307,7 @@ async function taskReadout(base: Snapshot, mod: Snapshot, options: DiffOptions, 
       b[i] = modScores[i * units + unit]!;
       signal[i] = base.stimuli.labels[i]!.includes(category) ? 1 : 0;
     }
-    const threshold = typeof rule === 'number' ? rule : rule === 'auto' && readout.threshold !== undefined ? readout.threshold : accuracyMaximisingThreshold(a, signal).threshold;
+    const threshold = chooseThreshold(rule, readout.threshold, a, signal);
     const sb = detectFromScores(a, signal, threshold);
     const sm = detectFromScores(b, signal, threshold);
     columns.push({ a, b, signal, threshold });
@@ -355,6 +346,32 @@ async function taskReadout(base: Snapshot, mod: Snapshot, options: DiffOptions, 
     change: changeOf(baseMean, modMean),
     ci: resamples > 0 ? bootstrapChange(columns, resamples, `${seed}:task`) : null,
   };
+}
+
+/**
+ * Categories of a detection task: `detect:A,B`, `detect:all` or `labels` (every category that has a
+ * readout unit and labelled stimuli).
+ * @throws UsageError naming a category without a readout unit or without stimuli.
+ */
+export function parseDetectionTask(taskText: string, kinds: readonly string[], present: readonly string[]): string[] {
+  let categories: string[];
+  if (taskText === 'labels' || taskText === 'detect:all') categories = kinds.filter((k) => present.includes(k));
+  else if (taskText.startsWith('detect:')) {
+    categories = taskText.slice(7).split(',').map((c) => c.trim()).filter((c) => c.length > 0);
+    for (const category of categories) {
+      if (!kinds.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: "${category}" has no readout unit (units: ${kinds.join(', ')})`);
+      if (!present.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: no stimulus is labelled "${category}"`);
+    }
+  } else throw new UsageError('E_TASK', `--task must be detect:CATEGORY[,CATEGORY…], detect:all or labels, got "${taskText}"`);
+  if (categories.length === 0) throw new UsageError('E_TASK', `--task ${taskText}: no category has both a readout unit and labelled stimuli`);
+  return categories;
+}
+
+/** The decision threshold of a category under `rule` (see DiffOptions.threshold). */
+export function chooseThreshold(rule: number | 'best' | 'auto', modelThreshold: number | undefined, scores: Float64Array, signal: Uint8Array): number {
+  if (typeof rule === 'number') return rule;
+  if (rule === 'auto' && modelThreshold !== undefined) return modelThreshold;
+  return accuracyMaximisingThreshold(scores, signal).threshold;
 }
 
 function pick(s: DetectionStats): DetectionStats {

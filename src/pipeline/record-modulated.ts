@@ -151,10 +151,11 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
   });
 }
 
-type TailPlan = { tail: NonNullable<ReturnType<typeof extractTail>> } | { reason: string };
+/** Either a replayable tail or the reason why the whole network must run. */
+export type TailPlan = { tail: NonNullable<ReturnType<typeof extractTail>> } | { reason: string };
 
 /** Decides whether the tail can be replayed from `baseline`, and why not. */
-function planTail(model: LoadedModel, inspection: ModelInspection, baseline: Snapshot, sites: string[], layerNames: string[]): TailPlan {
+export function planTail(model: LoadedModel, inspection: ModelInspection, baseline: Snapshot, sites: string[], layerNames: string[]): TailPlan {
   const tail = extractTail(model, inspection.structure, sites, layerNames);
   if (!tail) return { reason: 'nothing downstream of the sites' };
   for (const name of tail.boundary) {
