@@ -28,3 +28,4 @@ export {
 export { fitSignature, type SignatureFit, type SignatureInput } from './signature.js';
 export { fitDepthProfile, type DepthPoint, type DepthProfile, type DepthProfileOptions } from './depth-profile.js';
 export { sparkline, type SparklineOptions } from './sparkline.js';
+export { signFlipTest, type SignFlipResult } from './sign-flip.js';
