@@ -1,0 +1,124 @@
+import Table from 'cli-table3';
+import type { Command } from 'commander';
+import { UsageError } from '../../errors.js';
+import { sweepModulations } from '../../pipeline/sweep.js';
+import { fixed, signed } from '../../report/format.js';
+import { nonNegativeInteger, positiveInteger } from '../options.js';
+import { createProgressBar } from '../progress.js';
+import { cliIo } from '../run.js';
+
+interface SweepCliOptions {
+  from: string;
+  sites: string;
+  schemes?: string;
+  strengths: string;
+  task: string;
+  tuning?: string;
+  sensitivity?: string;
+  controlSeeds: number;
+  depthProfile?: boolean;
+  match?: string;
+  out: string;
+  restart?: boolean;
+  threads: number;
+  vectors: number;
+  shard?: string;
+  json?: boolean;
+}
+
+/** Parses "0,0.1,0.2" or a range "0:1:0.25" (start:stop:step, inclusive). */
+export function parseStrengths(text: string): number[] {
+  const range = /^\s*(-?[\d.]+):(-?[\d.]+):([\d.]+)\s*$/.exec(text);
+  if (range) {
+    const [start, stop, step] = [Number(range[1]), Number(range[2]), Number(range[3])];
+    if (!(step > 0) || !Number.isFinite(start) || !Number.isFinite(stop)) throw new UsageError('E_STRENGTHS', `--strengths ${text}: a range is start:stop:step with step > 0`);
+    const values: number[] = [];
+    for (let i = 0; start + i * step <= stop + 1e-9; i++) values.push(Number((start + i * step).toFixed(10)));
+    return values;
+  }
+  const values = text.split(',').map((s) => Number(s.trim()));
+  if (text.trim() === '' || values.some((v) => !Number.isFinite(v))) throw new UsageError('E_STRENGTHS', `--strengths "${text}" must be numbers like 0,0.1,0.2 or a range like 0:1:0.1`);
+  return values;
+}
+
+/** `sonde sweep MODEL --from BASE ...`: task performance over sites × schemes × strengths × categories. */
+export function registerSweep(program: Command): void {
+  program
+    .command('sweep')
+    .description('sweep modulation schemes and strengths over sites and cued categories, replaying only the downstream part')
+    .argument('<model>', 'ONNX model file (the baseline\'s)')
+    .requiredOption('--from <baseline>', 'baseline snapshot (sites and everything downstream recorded at full resolution)')
+    .requiredOption('--sites <list>', 'comma-separated site tensors, or all-activations')
+    .option('--schemes <list>', 'tuning,sensitivity,uniform,shuffled (default: those whose tables are given)')
+    .option('--strengths <list>', 'strengths β: list or start:stop:step', '0,0.1,0.2,0.3,0.4,0.5')
+    .requiredOption('--task <task>', 'detect:CATEGORY[,CATEGORY…] or detect:all (each cued in turn)')
+    .option('--tuning <table>', 'tuning table (sonde tune) for the tuning and shuffled schemes')
+    .option('--sensitivity <table>', 'sensitivity table (sonde sense) for the sensitivity scheme')
+    .option('--control-seeds <n>', 'seeds of the shuffled control', positiveInteger, 3)
+    .option('--depth-profile', 'also measure relative change and signature slope per layer below the site')
+    .option('--match <target>', 'calibrate: smallest strength reaching dprime:+X or accuracy:+Xpp')
+    .requiredOption('--out <dir>', 'result folder (cells.arrow, sweep.json; cells.jsonl lets an interrupted sweep resume)')
+    .option('--restart', 'ignore finished cells in --out and start again')
+    .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
+    .option('--vectors <n>', 'gain vectors per runtime call', positiveInteger, 16)
+    .option('--shard <k/n>', 'only the k-th of n interleaved parts of the cells (job arrays)')
+    .option('--json', 'print sweep.json to stdout')
+    .action(async (model: string, opts: SweepCliOptions) => {
+      const io = cliIo();
+      let shard: { index: number; count: number } | undefined;
+      if (opts.shard) {
+        const m = /^(\d+)\/(\d+)$/.exec(opts.shard);
+        if (!m || Number(m[1]) < 1 || Number(m[1]) > Number(m[2])) throw new UsageError('E_SHARD', `--shard must be K/N with 1 ≤ K ≤ N, got "${opts.shard}"`);
+        shard = { index: Number(m[1]), count: Number(m[2]) };
+      }
+      const bar = createProgressBar('sweep');
+      let result;
+      try {
+        result = await sweepModulations({
+          model,
+          from: opts.from,
+          sites: opts.sites === 'all-activations' ? 'all-activations' : opts.sites.split(',').map((s) => s.trim()).filter((s) => s.length > 0),
+          strengths: parseStrengths(opts.strengths),
+          task: opts.task,
+          controlSeeds: opts.controlSeeds,
+          out: opts.out,
+          threads: opts.threads,
+          vectorsPerRun: opts.vectors,
+          onProgress: (p) => bar.update(p.cellsDone, p.cellsTotal, 'cells'),
+          ...(opts.schemes ? { schemes: opts.schemes.split(',').map((s) => s.trim()) } : {}),
+          ...(opts.tuning ? { tuning: opts.tuning } : {}),
+          ...(opts.sensitivity ? { sensitivity: opts.sensitivity } : {}),
+          ...(opts.depthProfile ? { depthProfile: true } : {}),
+          ...(opts.match ? { match: opts.match } : {}),
+          ...(opts.restart ? { restart: true } : {}),
+          ...(shard ? { shard } : {}),
+        });
+      } finally {
+        bar.stop();
+      }
+      if (opts.json) {
+        io.stdout(`${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
+        return;
+      }
+      const table = new Table({ head: ['site', 'scheme', ...result.strengths.map((s) => `β=${s}`)], style: { head: [], border: [], compact: true } });
+      for (const site of result.sites) {
+        for (const scheme of result.schemes) {
+          const row = result.strengths.map((strength) => {
+            const chosen = result.cells.filter((c) => c.site === site && c.scheme === scheme && c.strength === strength);
+            return chosen.length === 0 ? '' : signed(chosen.reduce((s, c) => s + c.change.dPrime, 0) / chosen.length);
+          });
+          table.push([site, scheme, ...row]);
+        }
+      }
+      io.stdout(`mean change in detection d′ over ${result.categories.length} cued categories (threshold fixed on the baseline):\n${table.toString()}\n`);
+      const best = new Table({ head: ['site', 'best scheme', 'strength', 'Δd′', 'Δaccuracy', 'site activity change'], style: { head: [], border: [], compact: true } });
+      for (const b of result.best) best.push([b.site, b.scheme, fixed(b.strength, 2), signed(b.dPrimeChange), `${signed(b.accuracyPp, 1)} pp`, `${fixed(100 * b.siteActivityChange, 1)} %`]);
+      io.stdout(`${best.toString()}\n`);
+      if (result.calibration.length > 0) {
+        const cal = new Table({ head: ['site', 'scheme', 'target', 'strength', 'site activity change', `in ${100 * result.band.low}–${100 * result.band.high} % band`], style: { head: [], border: [], compact: true } });
+        for (const c of result.calibration) cal.push([c.site, c.scheme, c.target, c.strength === null ? 'not reached' : fixed(c.strength, 3), c.siteActivityChange === null ? '' : `${fixed(100 * c.siteActivityChange, 1)} %`, c.withinBand === null ? '' : c.withinBand ? 'yes' : 'no']);
+        io.stdout(`${cal.toString()}\n`);
+      }
+      io.stdout(`${result.summary}\nresults: ${opts.out}/cells.arrow, ${opts.out}/sweep.json\n`);
+    });
+}

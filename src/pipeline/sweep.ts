@@ -1,0 +1,511 @@
+import { appendFileSync, closeSync, existsSync, fsyncSync, mkdirSync, openSync, readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { linearFit } from '../analysis/correlation.js';
+import { detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
+import { signFlipTest } from '../analysis/sign-flip.js';
+import { RuntimeFailure, UsageError } from '../errors.js';
+import { exposeTensors } from '../graph/instrument.js';
+import { injectModulations, modulationInputNames, type InjectionSite } from '../graph/inject.js';
+import { loadModel, type LoadedModel } from '../graph/load-model.js';
+import { resolveModulations } from '../modulation/resolve.js';
+import { validateModulationSpec } from '../modulation/spec.js';
+import type { ResolveContext } from '../modulation/types.js';
+import { createRandom } from '../random.js';
+import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
+import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
+import { writeSweepTable } from '../snapshot/sweep-table.js';
+import { chooseThreshold, parseDetectionTask, readoutOf } from './diff-snapshots.js';
+import { inspectModel } from './inspect-model.js';
+import { assertSameModel, planTail, siteShapes } from './record-modulated.js';
+import { runPipelined } from './record-snapshot.js';
+import { ALL_ACTIVATIONS, chooseSites } from './sense.js';
+import type { SweepBest, SweepCalibration, SweepCell, SweepDepthPoint, SweepDetection, SweepResult } from './sweep-types.js';
+import { loadModulationTables } from './tables.js';
+
+/** Schemes a sweep knows. */
+export const SWEEP_SCHEMES = ['tuning', 'sensitivity', 'uniform', 'shuffled'] as const;
+export type SweepScheme = (typeof SWEEP_SCHEMES)[number];
+
+/**
+ * Rule-of-thumb band of attention-related firing-rate changes (5–30 %; from memory, see
+ * shared DOMAIN notes). Calibrated strengths are reported against it.
+ */
+export const ATTENTION_BAND = { low: 0.05, high: 0.3, source: 'typical attention-related firing-rate changes, roughly 5–30 % (from memory; DOMAIN notes)' };
+
+/** Options of `sweepModulations`. */
+export interface SweepOptions {
+  model: string | LoadedModel;
+  /** Baseline snapshot the modulated runs replay from (sites recorded at full float32 resolution). */
+  from: string | Snapshot;
+  /** Site tensors, or `all-activations`. */
+  sites: string | readonly string[];
+  /** Schemes (default: every scheme whose table is given, plus uniform and shuffled when tuning is). */
+  schemes?: readonly string[];
+  /** Strengths β: tuning/sensitivity/shuffled use g = max(0, 1 + β·v); uniform uses g = 1 + β. */
+  strengths: readonly number[];
+  /** `detect:CATEGORY[,…]` or `detect:all`: the cued categories (each is attended in turn). */
+  task: string;
+  /** Tuning table (`sonde tune`), needed by `tuning` and `shuffled`. */
+  tuning?: string;
+  /** Sensitivity table (`sonde sense`), needed by `sensitivity`. */
+  sensitivity?: string;
+  /** Seeds of the shuffled control (default 3). */
+  controlSeeds?: number;
+  /** Also measure per-layer relative change and signature slope below the site. */
+  depthProfile?: boolean;
+  /** Calibration target: `dprime:+0.5` or `accuracy:+10pp`. */
+  match?: string;
+  /** Output folder: `cells.arrow`, `sweep.json`, and `cells.jsonl` (progress, for resuming). */
+  out: string;
+  /** Start afresh instead of skipping the cells already in `out/cells.jsonl`. */
+  restart?: boolean;
+  /** Gain vectors evaluated per runtime call (default 16). */
+  vectorsPerRun?: number;
+  /** Runtime threads (0: the runtime chooses). */
+  threads?: number;
+  /** Decision threshold rule, as in `diffSnapshots` (default `auto`). */
+  threshold?: number | 'best' | 'auto';
+  /** Called after each finished group of cells. */
+  onProgress?: (progress: { cellsDone: number; cellsTotal: number; elapsedSeconds: number }) => void;
+  /** Only this shard of the cells (1-based k of n), for job arrays. */
+  shard?: { index: number; count: number };
+}
+
+interface PlannedCell {
+  key: string;
+  site: string;
+  scheme: SweepScheme;
+  strength: number;
+  category: string;
+  seed: number;
+  gain: Float32Array;
+}
+
+/** Stable identity of a cell, used to skip finished cells on resume. */
+export function cellKey(site: string, scheme: string, strength: number, category: string, seed: number): string {
+  return JSON.stringify([site, scheme, strength, category, seed]);
+}
+
+/** Parses `dprime:+0.5` / `accuracy:+10pp`. */
+export function parseMatchTarget(text: string): { measure: 'dPrime' | 'accuracyPp'; value: number } {
+  const match = /^(dprime|accuracy):([+-]?\d+(?:\.\d+)?)(pp)?$/.exec(text.trim());
+  if (!match || (match[1] === 'accuracy') !== (match[3] === 'pp')) {
+    throw new UsageError('E_MATCH', `--match "${text}" must be dprime:+X (d′ change) or accuracy:+Xpp (accuracy change in percentage points)`);
+  }
+  return { measure: match[1] === 'dprime' ? 'dPrime' : 'accuracyPp', value: Number(match[2]) };
+}
+
+/**
+ * Sweeps modulation schemes and strengths over sites and cued categories. Every cell is a modulated
+ * run of the network part downstream of the site, fed with the baseline's recorded values; several gain
+ * vectors share one runtime call (rows = vectors × stimuli). For each cell the detection read-out of the
+ * cued category is measured with the baseline's decision threshold held fixed.
+ * @throws UsageError for bad options, a scheme without its table, or a site whose downstream part
+ *   needs tensors the baseline did not record at full resolution.
+ */
+export async function sweepModulations(options: SweepOptions): Promise<SweepResult> {
+  const started = performance.now();
+  const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
+  const baseline = typeof options.from === 'string' ? openSnapshot(options.from) : options.from;
+  assertSameModel(baseline, model, baseline.folder);
+  if (options.strengths.length === 0 || options.strengths.some((s) => !Number.isFinite(s))) {
+    throw new UsageError('E_STRENGTHS', `--strengths must be finite numbers, got ${options.strengths.join(',') || 'none'}`);
+  }
+  const inspection = await inspectModel(model);
+  const readout = readoutOf(baseline);
+  const categories = parseDetectionTask(options.task, readout.kinds, baseline.categories);
+  const tables = options.tuning || options.sensitivity ? loadModulationTables({ ...(options.tuning ? { tuning: options.tuning } : {}), ...(options.sensitivity ? { sensitivity: options.sensitivity } : {}) }) : null;
+  const schemes = resolveSchemes(options.schemes, options);
+  const sites = (typeof options.sites === 'string' && options.sites === ALL_ACTIVATIONS ? chooseSites(ALL_ACTIVATIONS, inspection, readout.layer) : chooseSites(options.sites, inspection, readout.layer)).filter(
+    (site) => typeof options.sites !== 'string' || options.sites !== ALL_ACTIVATIONS || baseline.manifest.layers.some((l) => l.name === site && l.keep === 'full'),
+  );
+  const seeds = options.controlSeeds ?? 3;
+  if (!Number.isInteger(seeds) || seeds < 1) throw new UsageError('E_SEEDS', `--control-seeds must be a positive integer, got ${seeds}`);
+  const match = options.match ? parseMatchTarget(options.match) : null;
+  mkdirSync(options.out, { recursive: true });
+  const progressPath = join(options.out, 'cells.jsonl');
+  const done = new Map<string, SweepCell>();
+  if (!options.restart && existsSync(progressPath)) {
+    for (const line of readFileSync(progressPath, 'utf8').split('\n')) {
+      if (!line.trim()) continue;
+      try {
+        const cell = JSON.parse(line, (_k, v: unknown) => (v === null ? Number.NaN : v)) as SweepCell;
+        done.set(cellKey(cell.site, cell.scheme, cell.strength, cell.category, cell.seed), cell);
+      } catch {
+        // a torn last line from an interruption: that cell is simply redone
+      }
+    }
+  } else writeFileSync(progressPath, '');
+
+  // thresholds and baseline detection per category (from the baseline's recorded readout)
+  const n = baseline.manifest.stimuli.count;
+  const units = baseline.layerGeometry(readout.layer).channels;
+  const baseScores = await baseline.readChannelMeans(readout.layer);
+  const perCategory = new Map<string, { unit: number; signal: Uint8Array; threshold: number; base: DetectionStats }>();
+  for (const category of categories) {
+    const unit = readout.kinds.indexOf(category);
+    const scores = new Float64Array(n);
+    const signal = new Uint8Array(n);
+    for (let i = 0; i < n; i++) {
+      scores[i] = baseScores[i * units + unit]!;
+      signal[i] = baseline.stimuli.labels[i]!.includes(category) ? 1 : 0;
+    }
+    const threshold = chooseThreshold(options.threshold ?? 'auto', readout.threshold, scores, signal);
+    perCategory.set(category, { unit, signal, threshold, base: detectFromScores(scores, signal, threshold) });
+  }
+
+  const context: ResolveContext = { sites: siteShapes(inspection.layers), siteNames: inspection.layers.map((l) => l.name), categories: tables?.categories ?? categories, ...(tables ? { tables: tables.tables } : {}) };
+  const planned: PlannedCell[] = [];
+  for (const site of sites) {
+    for (const scheme of schemes) {
+      for (const category of categories) {
+        for (const strength of options.strengths) {
+          for (const seed of scheme === 'shuffled' ? Array.from({ length: seeds }, (_, i) => i + 1) : [0]) {
+            planned.push({ key: cellKey(site, scheme, strength, category, seed), site, scheme, strength, category, seed, gain: gainVector(site, scheme, strength, category, seed, context) });
+          }
+        }
+      }
+    }
+  }
+  const mine = options.shard ? planned.filter((_, i) => i % options.shard!.count === options.shard!.index - 1) : planned;
+  const todo = mine.filter((c) => !done.has(c.key));
+  let finished = mine.length - todo.length;
+  const perRun = options.vectorsPerRun ?? 16;
+  if (!Number.isInteger(perRun) || perRun < 1) throw new UsageError('E_VECTORS', `vectors per run must be a positive integer, got ${perRun}`);
+  const siteWeights = new Map<string, Float64Array>();
+  for (const site of sites) {
+    const { channels } = baseline.layerGeometry(site);
+    const means = await baseline.readChannelMeans(site);
+    const weight = new Float64Array(channels);
+    for (let i = 0; i < n; i++) for (let k = 0; k < channels; k++) weight[k] += Math.max(0, means[i * channels + k]!) / n;
+    siteWeights.set(site, weight);
+  }
+  const tuningFor = (layer: string, category: string): Float64Array | undefined => tables?.tables.tuning?.(layer, category);
+  for (const site of sites) {
+    const cells = todo.filter((c) => c.site === site);
+    if (cells.length === 0) continue;
+    for (let first = 0; first < cells.length; first += perRun) {
+      const group = cells.slice(first, first + perRun);
+      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)! });
+      const fd = openSync(progressPath, 'a');
+      try {
+        for (const cell of results) {
+          appendFileSync(fd, `${JSON.stringify(cell)}\n`);
+          done.set(cellKey(cell.site, cell.scheme, cell.strength, cell.category, cell.seed), cell);
+        }
+        fsyncSync(fd);
+      } finally {
+        closeSync(fd);
+      }
+      finished += results.length;
+      options.onProgress?.({ cellsDone: finished, cellsTotal: mine.length, elapsedSeconds: (performance.now() - started) / 1000 });
+    }
+  }
+  const cells = mine.map((c) => done.get(c.key)!);
+  const result = summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match });
+  writeSweepTable(join(options.out, 'cells.arrow'), cells);
+  writeFileSync(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
+  return result;
+}
+
+function resolveSchemes(requested: readonly string[] | undefined, options: SweepOptions): SweepScheme[] {
+  const list = requested ?? [...(options.tuning ? ['tuning'] : []), ...(options.sensitivity ? ['sensitivity'] : []), 'uniform', ...(options.tuning ? ['shuffled'] : [])];
+  for (const scheme of list) {
+    if (!(SWEEP_SCHEMES as readonly string[]).includes(scheme)) throw new UsageError('E_SCHEME', `--schemes: unknown scheme "${scheme}" (known: ${SWEEP_SCHEMES.join(', ')})`);
+    if ((scheme === 'tuning' || scheme === 'shuffled') && !options.tuning) throw new UsageError('E_SCHEME', `--schemes ${scheme} needs --tuning TABLE`, { hint: 'make one with: sonde tune BASELINE --out tuning.arrow' });
+    if (scheme === 'sensitivity' && !options.sensitivity) throw new UsageError('E_SCHEME', '--schemes sensitivity needs --sensitivity TABLE', { hint: 'make one with: sonde sense MODEL --from BASELINE --site SITE --out sens.arrow' });
+  }
+  return [...new Set(list)] as SweepScheme[];
+}
+
+/** The per-channel gain of one cell. */
+function gainVector(site: string, scheme: SweepScheme, strength: number, category: string, seed: number, context: ResolveContext): Float32Array {
+  const channels = context.sites.get(site)!.channels;
+  if (scheme === 'uniform') return new Float32Array(channels).fill(Math.max(0, 1 + strength));
+  const kind = scheme === 'sensitivity' ? 'sensitivity' : 'tuning';
+  const spec = validateModulationSpec({ site, kind, target: category, strength }, { source: 'sweep' });
+  const gain = resolveModulations(spec, context)[0]!.gain;
+  if (scheme !== 'shuffled') return gain;
+  // same gains, permuted across channels (Fisher–Yates with a seeded stream): no relation to tuning
+  const shuffled = gain.slice();
+  const rng = createRandom(seed).fork(site).fork(category);
+  for (let i = shuffled.length - 1; i > 0; i--) {
+    const j = rng.int(i + 1);
+    const t = shuffled[i]!;
+    shuffled[i] = shuffled[j]!;
+    shuffled[j] = t;
+  }
+  return shuffled;
+}
+
+interface GroupRun {
+  model: LoadedModel;
+  inspection: Awaited<ReturnType<typeof inspectModel>>;
+  baseline: Snapshot;
+  site: string;
+  group: PlannedCell[];
+  perCategory: Map<string, { unit: number; signal: Uint8Array; threshold: number; base: DetectionStats }>;
+  readout: string;
+  units: number;
+  depthProfile: boolean;
+  tuningFor: (layer: string, category: string) => Float64Array | undefined;
+  threads: number;
+  weights: Float64Array;
+}
+
+/** One pass over the baseline's stimuli evaluating a group of gain vectors at one site. */
+async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
+  const { baseline, site, group } = run;
+  const layers = baseline.manifest.layers;
+  const siteOrdinal = layers.findIndex((l) => l.name === site);
+  const profileLayers = run.depthProfile ? layers.filter((l, i) => i >= siteOrdinal && l.keep === 'full') : [];
+  const plan = planTail(run.model, run.inspection, baseline, [site], [run.readout, ...profileLayers.map((l) => l.name)]);
+  if (!('tail' in plan)) {
+    throw new UsageError('E_SWEEP_TAIL', `sweep at "${site}": ${plan.reason}`, { hint: 'record the baseline with --keep full --dtype float32 and the default (or a wider) --layers selector' });
+  }
+  const tail = plan.tail;
+  const profiled = profileLayers.filter((l) => tail.computed.has(l.name) || l.name === site);
+  const fetch = [...new Set([run.readout, ...profiled.map((l) => l.name)])];
+  const siteShape = baseline.layer(site).shape;
+  const injection: InjectionSite = { site, shape: siteShape, spatial: false };
+  const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), fetch), { threads: run.threads, label: `${run.model.fileName} downstream of ${site}` });
+  const M = group.length;
+  const C = siteShape[0]!;
+  const n = baseline.manifest.stimuli.count;
+  const scores = group.map(() => new Float64Array(n));
+  const geometry = profiled.map((l) => baseline.layerGeometry(l.name));
+  const sums = group.map(() => profiled.map((_, li) => ({ dd: 0, aa: 0, modMeans: new Float64Array(geometry[li]!.channels), baseMeans: new Float64Array(geometry[li]!.channels) })));
+  const boundaryStreams = tail.boundary.map((name) => baseline.readLayer(name));
+  const profileStreams = profiled.map((l) => baseline.readLayer(l.name));
+  const names = modulationInputNames(site);
+  const count = Math.ceil(n / baseline.manifest.run.batch);
+  const pendingBase: LayerBatch[][] = [];
+  try {
+    await runPipelined(
+      count,
+      async () => {
+        const parts = await Promise.all(boundaryStreams.map((s) => s.next()));
+        const baseParts = await Promise.all(profileStreams.map((s) => s.next()));
+        const firstBatch = parts[0]!.value as LayerBatch | undefined;
+        if (!firstBatch) throw new RuntimeFailure('E_LAYER_READ', `baseline ${baseline.folder} ended early`);
+        const rows = firstBatch.rows;
+        const feeds: Record<string, FloatTensor> = {};
+        parts.forEach((part, i) => {
+          const batch = part.value as LayerBatch;
+          const name = tail.boundary[i]!;
+          if (!batch || batch.rows !== rows || batch.index[0] !== firstBatch.index[0]) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${name}" is not aligned with the others`);
+          const per = batch.activation!.length / rows;
+          const replicated = new Float32Array(M * rows * per);
+          for (let m = 0; m < M; m++) replicated.set(batch.activation!, m * rows * per); // rows: m*rows + i
+          feeds[name === site ? `${site}::raw` : name] = { data: replicated, dims: [M * rows, ...baseline.layer(name).shape] };
+        });
+        const gain = new Float32Array(M * rows * C);
+        for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(group[m]!.gain, (m * rows + i) * C);
+        const dims = [M * rows, C, ...siteShape.slice(1).map(() => 1)];
+        feeds[names.gain] = { data: gain, dims };
+        feeds[names.offset] = { data: new Float32Array(M * rows * C), dims };
+        pendingBase.push(baseParts.map((p) => (p.value as LayerBatch)));
+        return { first: firstBatch.index[0]!, rows, feeds };
+      },
+      (feeds) => session.run(feeds, fetch),
+      (first, rows, outputs) => {
+        const readout = outputs[run.readout]!.data;
+        group.forEach((cell, m) => {
+          const unit = run.perCategory.get(cell.category)!.unit;
+          for (let i = 0; i < rows; i++) scores[m]![first + i] = readout[(m * rows + i) * run.units + unit]!;
+        });
+        const baseBatches = pendingBase.shift()!;
+        profiled.forEach((layer, li) => {
+          const { channels, spatial, elements } = geometry[li]!;
+          const a = baseBatches[li]!.activation!;
+          const b = outputs[layer.name]!.data;
+          for (let m = 0; m < M; m++) {
+            const acc = sums[m]![li]!;
+            for (let i = 0; i < rows; i++) {
+              const aBase = i * elements;
+              const bBase = (m * rows + i) * elements;
+              for (let k = 0; k < channels; k++) {
+                let sa = 0;
+                let sb = 0;
+                for (let s = 0; s < spatial; s++) {
+                  const av = a[aBase + k * spatial + s]!;
+                  const bv = b[bBase + k * spatial + s]!;
+                  const d = bv - av;
+                  acc.dd += d * d;
+                  acc.aa += av * av;
+                  sa += av;
+                  sb += bv;
+                }
+                acc.baseMeans[k] += sa / spatial;
+                acc.modMeans[k] += sb / spatial;
+              }
+            }
+          }
+        });
+      },
+    );
+  } finally {
+    await Promise.all([...boundaryStreams, ...profileStreams].map((s) => s.return(undefined)));
+    await session.close();
+  }
+  return group.map((cell, m) => {
+    const info = run.perCategory.get(cell.category)!;
+    const mod = detectFromScores(scores[m]!, info.signal, info.threshold);
+    let activity = 0;
+    let weight = 0;
+    for (let k = 0; k < C; k++) {
+      activity += run.weights[k]! * Math.abs(cell.gain[k]! - 1);
+      weight += run.weights[k]!;
+    }
+    const result: SweepCell = {
+      site: cell.site,
+      scheme: cell.scheme,
+      strength: cell.strength,
+      category: cell.category,
+      seed: cell.seed,
+      base: detection(info.base),
+      mod: detection(mod),
+      change: {
+        dPrime: mod.dPrime - info.base.dPrime,
+        criterion: mod.criterion - info.base.criterion,
+        hitRatePp: 100 * (mod.hitRate - info.base.hitRate),
+        falseAlarmRatePp: 100 * (mod.falseAlarmRate - info.base.falseAlarmRate),
+        accuracyPp: 100 * (mod.accuracy - info.base.accuracy),
+      },
+      siteActivityChange: weight > 0 ? activity / weight : Number.NaN,
+    };
+    if (run.depthProfile) {
+      result.depthProfile = profiled.map((layer, li): SweepDepthPoint => {
+        const acc = sums[m]![li]!;
+        const tuning = run.tuningFor(layer.name, cell.category);
+        let slope = Number.NaN;
+        if (tuning && tuning.length === acc.baseMeans.length) {
+          const order = Array.from(tuning, (t, k) => ({ t, k })).sort((x, y) => y.t - x.t || x.k - y.k);
+          const rank: number[] = [];
+          const ratio: number[] = [];
+          order.forEach(({ k }, r) => {
+            if (acc.baseMeans[k]! > 0) {
+              rank.push(order.length > 1 ? r / (order.length - 1) : 0);
+              ratio.push(acc.modMeans[k]! / acc.baseMeans[k]!);
+            }
+          });
+          if (rank.length >= 2) slope = linearFit(rank, ratio).slope;
+        }
+        return { layer: layer.name, depth: layer.depth, belowSite: layers.indexOf(layer) - siteOrdinal, relativeChange: acc.aa > 0 ? Math.sqrt(acc.dd / acc.aa) : acc.dd > 0 ? Infinity : 0, signatureSlope: slope };
+      });
+    }
+    return result;
+  });
+}
+
+function detection(s: DetectionStats): SweepDetection {
+  return { hitRate: s.hitRate, falseAlarmRate: s.falseAlarmRate, dPrime: s.dPrime, criterion: s.criterion, accuracy: s.accuracy };
+}
+
+interface SummaryInput {
+  model: LoadedModel;
+  baseline: Snapshot;
+  sites: string[];
+  schemes: SweepScheme[];
+  strengths: readonly number[];
+  categories: string[];
+  controlSeeds: number[];
+  match: ReturnType<typeof parseMatchTarget> | null;
+  matchText: string | undefined;
+}
+
+/** Mean over categories (and control seeds) of a cell measure, per site × scheme × strength. */
+function curve(cells: readonly SweepCell[], site: string, scheme: string, strengths: readonly number[], pick: (c: SweepCell) => number): number[] {
+  return strengths.map((strength) => {
+    const chosen = cells.filter((c) => c.site === site && c.scheme === scheme && c.strength === strength);
+    return chosen.length === 0 ? Number.NaN : chosen.reduce((s, c) => s + pick(c), 0) / chosen.length;
+  });
+}
+
+function summarise(cells: SweepCell[], input: SummaryInput): SweepResult {
+  const strengths = [...input.strengths];
+  const best: SweepBest[] = input.sites.map((site) => {
+    let top: SweepBest | null = null;
+    for (const scheme of input.schemes.filter((s) => s !== 'shuffled')) {
+      const dp = curve(cells, site, scheme, strengths, (c) => c.change.dPrime);
+      const acc = curve(cells, site, scheme, strengths, (c) => c.change.accuracyPp);
+      const act = curve(cells, site, scheme, strengths, (c) => c.siteActivityChange);
+      dp.forEach((value, i) => {
+        if (Number.isFinite(value) && (top === null || value > top.dPrimeChange)) top = { site, scheme, strength: strengths[i]!, dPrimeChange: value, accuracyPp: acc[i]!, siteActivityChange: act[i]! };
+      });
+    }
+    return top ?? { site, scheme: input.schemes[0] ?? 'none', strength: Number.NaN, dPrimeChange: Number.NaN, accuracyPp: Number.NaN, siteActivityChange: Number.NaN };
+  });
+  const calibration: SweepCalibration[] = [];
+  if (input.match) {
+    const order = strengths.map((s, i) => ({ s, i })).sort((a, b) => Math.abs(a.s) - Math.abs(b.s));
+    for (const site of input.sites) {
+      for (const scheme of input.schemes) {
+        const measure = curve(cells, site, scheme, strengths, (c) => c.change[input.match!.measure]);
+        const activity = curve(cells, site, scheme, strengths, (c) => c.siteActivityChange);
+        let strength: number | null = null;
+        let implied: number | null = null;
+        // walk strengths by size; interpolate linearly between the last point below and the first reaching the target
+        for (let j = 0; j < order.length; j++) {
+          const here = measure[order[j]!.i]!;
+          if (!(here >= input.match.value)) continue;
+          if (j === 0) {
+            strength = order[0]!.s;
+            implied = activity[order[0]!.i]!;
+          } else {
+            const prev = order[j - 1]!;
+            const before = measure[prev.i]!;
+            const t = Number.isFinite(before) && here !== before ? (input.match.value - before) / (here - before) : 1;
+            strength = prev.s + t * (order[j]!.s - prev.s);
+            implied = activity[prev.i]! + t * (activity[order[j]!.i]! - activity[prev.i]!);
+          }
+          break;
+        }
+        calibration.push({ site, scheme, target: input.matchText!, strength, siteActivityChange: implied, withinBand: implied === null ? null : implied >= ATTENTION_BAND.low && implied <= ATTENTION_BAND.high });
+      }
+    }
+  }
+  let control: SweepResult['control'] = null;
+  if (input.schemes.includes('tuning') && input.schemes.includes('shuffled')) {
+    // per category: mean over sites and non-zero strengths of (tuning Δd′ − mean shuffled Δd′)
+    const differences: number[] = [];
+    let meanTuning = 0;
+    let meanShuffled = 0;
+    for (const category of input.categories) {
+      const pick = (scheme: string) => cells.filter((c) => c.category === category && c.scheme === scheme && c.strength !== 0 && Number.isFinite(c.change.dPrime));
+      const t = pick('tuning');
+      const s = pick('shuffled');
+      if (t.length === 0 || s.length === 0) continue;
+      const mt = t.reduce((a, c) => a + c.change.dPrime, 0) / t.length;
+      const ms = s.reduce((a, c) => a + c.change.dPrime, 0) / s.length;
+      meanTuning += mt;
+      meanShuffled += ms;
+      differences.push(mt - ms);
+    }
+    if (differences.length > 0) {
+      const test = signFlipTest(differences);
+      control = { meanTuning: meanTuning / differences.length, meanShuffled: meanShuffled / differences.length, difference: test.mean, pValue: test.pValue, test: `paired sign-flip test across ${differences.length} cued categories (one-sided, ${test.exact ? 'exact' : 'Monte Carlo'})` };
+    }
+  }
+  const lines: string[] = [];
+  const ranked = [...best].filter((b) => Number.isFinite(b.dPrimeChange)).sort((a, b) => b.dPrimeChange - a.dPrimeChange);
+  if (ranked[0]) lines.push(`largest gain in detection: ${ranked[0].scheme} at ${ranked[0].site}, strength ${ranked[0].strength}, d′ ${ranked[0].dPrimeChange >= 0 ? '+' : ''}${ranked[0].dPrimeChange.toFixed(2)} (${ranked[0].accuracyPp >= 0 ? '+' : ''}${ranked[0].accuracyPp.toFixed(1)} pp), site activity changed by ${(100 * ranked[0].siteActivityChange).toFixed(1)} %`);
+  if (control) lines.push(`tuning-based gain vs shuffled control: mean Δd′ ${control.meanTuning.toFixed(3)} vs ${control.meanShuffled.toFixed(3)}, p = ${control.pValue.toPrecision(2)} (${control.test})`);
+  for (const c of calibration.filter((x) => x.strength !== null)) lines.push(`${c.target} at ${c.site} with ${c.scheme}: strength ${c.strength!.toFixed(3)}, site activity ${(100 * c.siteActivityChange!).toFixed(1)} % (${c.withinBand ? 'inside' : 'outside'} the ${100 * ATTENTION_BAND.low}–${100 * ATTENTION_BAND.high} % band)`);
+  return {
+    kind: 'sweep',
+    model: { file: input.model.fileName, sha256: input.model.sha256 },
+    baseline: input.baseline.folder,
+    sites: input.sites,
+    schemes: input.schemes,
+    strengths,
+    categories: input.categories,
+    controlSeeds: input.schemes.includes('shuffled') ? input.controlSeeds : [],
+    cells,
+    best,
+    calibration,
+    band: ATTENTION_BAND,
+    control,
+    summary: lines.join('\n'),
+  };
+}

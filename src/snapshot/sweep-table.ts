@@ -1,0 +1,41 @@
+import { renameSync, writeFileSync } from 'node:fs';
+import { tableFromArrays, tableToIPC } from 'apache-arrow';
+import type { SweepCell } from '../pipeline/sweep-types.js';
+import { writeFailure } from './arrow-sink.js';
+
+/**
+ * Writes sweep cells as an Arrow IPC file, one row per cell: `site`, `scheme`, `category` utf8,
+ * `strength` float64, `seed` int32, `base_*` and `mod_*` (hit_rate, false_alarm_rate, d_prime,
+ * criterion, accuracy) float64, `d_prime_change`, `accuracy_change_pp`, `site_activity_change` float64.
+ * Written under a temporary name and renamed.
+ */
+export function writeSweepTable(path: string, cells: readonly SweepCell[]): void {
+  const f64 = (pick: (c: SweepCell) => number) => Float64Array.from(cells, pick);
+  const table = tableFromArrays({
+    site: cells.map((c) => c.site),
+    scheme: cells.map((c) => c.scheme),
+    category: cells.map((c) => c.category),
+    strength: f64((c) => c.strength),
+    seed: Int32Array.from(cells, (c) => c.seed),
+    base_hit_rate: f64((c) => c.base.hitRate),
+    base_false_alarm_rate: f64((c) => c.base.falseAlarmRate),
+    base_d_prime: f64((c) => c.base.dPrime),
+    base_criterion: f64((c) => c.base.criterion),
+    base_accuracy: f64((c) => c.base.accuracy),
+    mod_hit_rate: f64((c) => c.mod.hitRate),
+    mod_false_alarm_rate: f64((c) => c.mod.falseAlarmRate),
+    mod_d_prime: f64((c) => c.mod.dPrime),
+    mod_criterion: f64((c) => c.mod.criterion),
+    mod_accuracy: f64((c) => c.mod.accuracy),
+    d_prime_change: f64((c) => c.change.dPrime),
+    accuracy_change_pp: f64((c) => c.change.accuracyPp),
+    site_activity_change: f64((c) => c.siteActivityChange),
+  });
+  const temporary = `${path}.partial`;
+  try {
+    writeFileSync(temporary, tableToIPC(table, 'file'));
+    renameSync(temporary, path);
+  } catch (error) {
+    throw writeFailure(path, error);
+  }
+}

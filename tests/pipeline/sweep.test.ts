@@ -1,0 +1,92 @@
+import { readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import pl from 'nodejs-polars';
+import { beforeAll, describe, expect, it } from 'vitest';
+import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
+import { recordModulated } from '../../src/pipeline/record-modulated.js';
+import { diffSnapshots } from '../../src/pipeline/diff-snapshots.js';
+import { sweepModulations, parseMatchTarget } from '../../src/pipeline/sweep.js';
+import { tuneSnapshot } from '../../src/pipeline/tune.js';
+import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+
+let dir: string;
+let model: string;
+let stim: { npy: string; labels: string };
+const kinds = ['alpha', 'beta', 'gamma'];
+
+beforeAll(async () => {
+  dir = tempFolder();
+  model = join(dir, 'net.onnx');
+  writeFileSync(model, buildTinyNet({ bias: true, seed: 41, classes: 3 }));
+  writeFileSync(join(dir, 'net.json'), JSON.stringify({ outputs: { name: 'logits', kinds, threshold: 0 } }));
+  const labels = Array.from({ length: 30 }, (_, i) => [kinds[i % 3]!, ...(i % 5 === 0 ? [kinds[(i + 2) % 3]!] : [])].join(';'));
+  stim = writeStimuliNpy(dir, [30, 3, 16, 16], 43, labels);
+  await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'base'), batch: 8, threads: 1 });
+  await tuneSnapshot({ snapshot: join(dir, 'base'), out: join(dir, 'tuning.arrow') });
+});
+
+describe('sweepModulations', () => {
+  it('sweepModulations at strength 0 reproduces the baseline read-out exactly for every scheme', async () => {
+    const result = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], strengths: [0, 0.5], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), out: join(dir, 'sw0'), threads: 1, controlSeeds: 2 });
+    const zero = result.cells.filter((c) => c.strength === 0);
+    expect(zero.length).toBe(3 * (1 + 1 + 2)); // 3 categories × (tuning + uniform + 2 shuffled seeds)
+    for (const cell of zero) {
+      expect(cell.mod).toEqual(cell.base);
+      expect(cell.change.dPrime).toBe(0);
+      expect(cell.siteActivityChange).toBe(0);
+    }
+    expect(result.schemes).toEqual(['tuning', 'uniform', 'shuffled']);
+  });
+
+  it('sweepModulations cells equal a recorded modulated run diffed against the baseline (same gains, same read-out)', async () => {
+    const result = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], schemes: ['tuning'], strengths: [0.8], task: 'detect:beta', tuning: join(dir, 'tuning.arrow'), out: join(dir, 'sw1'), threads: 1, depthProfile: true });
+    const cell = result.cells[0]!;
+    const spec = join(dir, 'tuning-spec.json');
+    writeFileSync(spec, JSON.stringify({ site: 'relu1', kind: 'tuning', target: 'beta', strength: 0.8 }));
+    const mod = await recordModulated({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'mod-tuning'), modulate: spec, from: join(dir, 'base'), tables: (await import('../../src/pipeline/tables.js')).loadModulationTables({ tuning: join(dir, 'tuning.arrow') }).tables, threads: 1 });
+    const diff = await diffSnapshots({ base: join(dir, 'base'), mod: mod.folder, task: 'detect:beta', bootstrap: 0 });
+    expect(cell.mod.hitRate).toBe(diff.task!.mod.hitRate);
+    expect(cell.mod.falseAlarmRate).toBe(diff.task!.mod.falseAlarmRate);
+    expect(cell.change.dPrime).toBeCloseTo(diff.task!.change.dPrime, 12);
+    for (const point of cell.depthProfile!) {
+      const row = diff.layers.find((l) => l.name === point.layer)!;
+      expect(point.relativeChange, point.layer).toBeCloseTo(row.relativeChange, 6);
+    }
+  });
+
+  it('sweepModulations resumed after an interruption equals an uninterrupted sweep', async () => {
+    const common = { model, from: join(dir, 'base'), sites: ['relu0', 'relu1'], strengths: [0, 0.3, 0.6], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), threads: 1, vectorsPerRun: 4, controlSeeds: 2 } as const;
+    const whole = await sweepModulations({ ...common, out: join(dir, 'sw-whole') });
+    let calls = 0;
+    await expect(sweepModulations({ ...common, out: join(dir, 'sw-part'), onProgress: () => { if (++calls === 3) throw new Error('interrupted'); } })).rejects.toThrow('interrupted');
+    const lines = readFileSync(join(dir, 'sw-part', 'cells.jsonl'), 'utf8').trim().split('\n').length;
+    expect(lines).toBeGreaterThan(0);
+    expect(lines).toBeLessThan(whole.cells.length);
+    const resumed = await sweepModulations({ ...common, out: join(dir, 'sw-part') });
+    expect(JSON.stringify(resumed.cells)).toBe(JSON.stringify(whole.cells));
+  });
+
+  it('sweepModulations writes an Arrow table Polars reads, one row per cell, and calibrates against a target', async () => {
+    const result = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], schemes: ['uniform'], strengths: [0, 0.5, 1, 2], task: 'detect:all', out: join(dir, 'sw-cal'), threads: 1, match: 'accuracy:+0pp' });
+    const frame = pl.readIPC(readFileSync(join(dir, 'sw-cal', 'cells.arrow')));
+    expect(frame.height).toBe(result.cells.length);
+    expect(frame.columns).toContain('d_prime_change');
+    // +0 pp is reached at strength 0 already: the smallest strength is 0 with no activity change
+    expect(result.calibration[0]!.strength).toBe(0);
+    expect(result.calibration[0]!.siteActivityChange).toBe(0);
+    expect(parseMatchTarget('dprime:+0.5')).toEqual({ measure: 'dPrime', value: 0.5 });
+    expect(() => parseMatchTarget('dprime:+0.5pp')).toThrow(/--match/);
+  });
+
+  it('sonde sweep refuses a scheme without its table and an unknown scheme (exit 2)', async () => {
+    const missing = await runSonde(['sweep', model, '--from', join(dir, 'base'), '--sites', 'relu1', '--schemes', 'tuning', '--task', 'detect:alpha', '--out', join(dir, 'x')]);
+    expect(missing.code).toBe(2);
+    expect(missing.stderr).toMatch(/needs --tuning/);
+    const unknown = await runSonde(['sweep', model, '--from', join(dir, 'base'), '--sites', 'relu1', '--schemes', 'magic', '--task', 'detect:alpha', '--out', join(dir, 'x')]);
+    expect(unknown.code).toBe(2);
+    expect(unknown.stderr).toMatch(/unknown scheme "magic"/);
+    const ok = await runSonde(['sweep', model, '--from', join(dir, 'base'), '--sites', 'relu1', '--schemes', 'uniform', '--strengths', '0:0.4:0.2', '--task', 'detect:alpha', '--out', join(dir, 'x2')]);
+    expect(ok.code, ok.stderr).toBe(0);
+    expect(ok.stdout).toMatch(/β=0\.4/);
+  });
+});
