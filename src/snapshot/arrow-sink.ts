@@ -1,5 +1,5 @@
 import { createHash, type Hash } from 'node:crypto';
-import { closeSync, fsyncSync, openSync, renameSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, fstatSync, fsyncSync, ftruncateSync, openSync, readSync, renameSync, rmSync, writeSync } from 'node:fs';
 import { AsyncByteQueue } from 'apache-arrow';
 import { RuntimeFailure } from '../errors.js';
 
@@ -7,6 +7,10 @@ import { RuntimeFailure } from '../errors.js';
  * A byte sink for apache-arrow's IPC writers that writes straight to a file descriptor (no queueing in
  * memory) and hashes what it writes. The file is created under a temporary name and renamed over the
  * final name only by `commit`, so a crash never leaves a half-written file under the final name.
+ *
+ * Resuming (`resumeAt`): an interrupted `.partial` file is truncated to a byte length known to be a
+ * complete prefix (a checkpoint), that prefix is hashed again, and writing continues after it, so the
+ * finished file and its SHA-256 are the same as an uninterrupted write of the same bytes.
  */
 export class HashingFileSink extends AsyncByteQueue {
   private fd: number;
@@ -14,27 +18,84 @@ export class HashingFileSink extends AsyncByteQueue {
   private bytesWritten = 0;
   private readonly temporaryPath: string;
 
-  constructor(readonly finalPath: string) {
+  /**
+   * @param finalPath the name the file gets on `commit`; it is written as `finalPath.partial`.
+   * @param options `resumeAt`: keep the first `resumeAt` bytes of an existing `.partial` file (truncating
+   *   anything after them) and append after them.
+   * @throws RuntimeFailure when the file cannot be opened, or (resuming) is missing or shorter than
+   *   `resumeAt`.
+   */
+  constructor(readonly finalPath: string, options: { resumeAt?: number } = {}) {
     super();
     this.temporaryPath = `${finalPath}.partial`;
+    const resumeAt = options.resumeAt;
+    if (resumeAt === undefined) {
+      try {
+        this.fd = openSync(this.temporaryPath, 'w');
+      } catch (error) {
+        throw writeFailure(this.temporaryPath, error);
+      }
+      return;
+    }
     try {
-      this.fd = openSync(this.temporaryPath, 'w');
+      this.fd = openSync(this.temporaryPath, 'r+');
     } catch (error) {
+      throw new RuntimeFailure('E_RESUME', `cannot resume ${this.temporaryPath}: ${(error as NodeJS.ErrnoException).code === 'ENOENT' ? 'the file is missing' : (error as Error).message}`, {
+        hint: 'record again without --resume',
+      });
+    }
+    const size = fstatSync(this.fd).size;
+    if (size < resumeAt) {
+      closeSync(this.fd);
+      throw new RuntimeFailure('E_RESUME', `cannot resume ${this.temporaryPath}: it holds ${size} bytes but the checkpoint says ${resumeAt}`, { hint: 'record again without --resume' });
+    }
+    try {
+      ftruncateSync(this.fd, resumeAt);
+      const chunk = new Uint8Array(Math.min(resumeAt, 1 << 22) || 1);
+      let at = 0;
+      while (at < resumeAt) {
+        const read = readSync(this.fd, chunk, 0, Math.min(chunk.length, resumeAt - at), at);
+        if (read <= 0) throw new Error(`unexpected end of file at byte ${at}`);
+        this.hash.update(chunk.subarray(0, read));
+        at += read;
+      }
+    } catch (error) {
+      closeSync(this.fd);
       throw writeFailure(this.temporaryPath, error);
     }
+    this.bytesWritten = resumeAt;
+  }
+
+  /** Bytes in the file so far. */
+  get byteLength(): number {
+    return this.bytesWritten;
   }
 
   override write(value: ArrayBufferView | Uint8Array | ArrayBuffer): void {
     const bytes = value instanceof Uint8Array ? value : ArrayBuffer.isView(value) ? new Uint8Array(value.buffer, value.byteOffset, value.byteLength) : new Uint8Array(value);
     if (bytes.byteLength === 0) return;
     try {
+      if (writeFault) {
+        const fault = writeFault(this.temporaryPath, this.bytesWritten, bytes.byteLength);
+        if (fault) throw fault;
+      }
       let offset = 0;
-      while (offset < bytes.byteLength) offset += writeSync(this.fd, bytes, offset, bytes.byteLength - offset);
+      // explicit positions: after a resume the descriptor's own offset is not at the end
+      while (offset < bytes.byteLength) offset += writeSync(this.fd, bytes, offset, bytes.byteLength - offset, this.bytesWritten + offset);
     } catch (error) {
       throw writeFailure(this.temporaryPath, error);
     }
     this.hash.update(bytes);
     this.bytesWritten += bytes.byteLength;
+  }
+
+  /** Flushes what was written so far to disk (a checkpoint); the file stays open. */
+  sync(): void {
+    try {
+      fsyncSync(this.fd);
+    } catch (error) {
+      throw writeFailure(this.temporaryPath, error);
+    }
   }
 
   // The writer calls close() on its sink when it finishes; the file is closed by commit()/discard().
@@ -63,6 +124,22 @@ export class HashingFileSink extends AsyncByteQueue {
     this.fd = -1;
     rmSync(this.temporaryPath, { force: true });
   }
+}
+
+/**
+ * A fault to inject into every sink write: returns an error to throw (e.g. one with code ENOSPC) or null.
+ * Receives the temporary path, the bytes already in the file and the size of the write.
+ */
+export type WriteFault = (path: string, byteOffset: number, byteLength: number) => NodeJS.ErrnoException | null;
+
+let writeFault: WriteFault | null = null;
+
+/**
+ * Test hook: makes sink writes fail as `fault` decides (disk-full and I/O-error tests); null removes it.
+ * Production code never sets it.
+ */
+export function injectWriteFault(fault: WriteFault | null): void {
+  writeFault = fault;
 }
 
 /** Turns a file-system error into a one-line RuntimeFailure naming the file. */

@@ -1,9 +1,10 @@
 import {
-  Field, FixedSizeList, Float16, Float32, Int32, makeData, RecordBatch, RecordBatchFileWriter, Schema, Struct,
+  Field, FixedSizeList, Float16, Float32, Int32, makeData, RecordBatch, Schema, Struct,
   type Data, type DataType,
 } from 'apache-arrow';
 import { float32ToFloat16 } from './float16.js';
 import { HashingFileSink } from './arrow-sink.js';
+import { ResumableFileWriter, scanRecordBatches } from './resume.js';
 import type { ActivationDtype, KeepMode } from './manifest.js';
 
 /** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
@@ -55,21 +56,42 @@ export class LayerFileWriter {
   readonly layout: LayerFileLayout;
   private readonly schema: Schema;
   private readonly sink: HashingFileSink;
-  private readonly writer: RecordBatchFileWriter;
+  private readonly writer: ResumableFileWriter;
   private readonly channels: number;
   private readonly spatial: number;
   private readonly elements: number;
   rows = 0;
 
-  constructor(path: string, layout: LayerFileLayout) {
+  /**
+   * @param path final file name (written as `path.partial` until `finish`).
+   * @param layout what the file holds.
+   * @param options `resumeAt`: continue an interrupted `path.partial` after its first `resumeAt` bytes
+   *   (a checkpoint from `checkpoint()`); the rows already there count in `rows`.
+   * @throws RuntimeFailure when the file cannot be created, or the partial file does not hold complete
+   *   record batches up to `resumeAt`.
+   */
+  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number } = {}) {
     this.layout = layout;
     this.schema = layerSchema(layout);
     this.channels = channelCount(layout.shape);
     this.spatial = spatialSize(layout.shape);
     this.elements = this.channels * this.spatial;
-    this.sink = new HashingFileSink(path);
-    this.writer = new RecordBatchFileWriter();
-    this.writer.reset(this.sink, this.schema);
+    this.writer = new ResumableFileWriter();
+    if (options.resumeAt === undefined) {
+      this.sink = new HashingFileSink(path);
+      this.writer.reset(this.sink, this.schema);
+    } else {
+      const scanned = scanRecordBatches(`${path}.partial`, options.resumeAt);
+      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt });
+      this.writer.resume(this.sink, this.schema, options.resumeAt, scanned.blocks);
+      this.rows = scanned.rows.reduce((a, b) => a + b, 0);
+    }
+  }
+
+  /** Flushes the batches written so far to disk and returns the file's byte length (a resume point). */
+  checkpoint(): number {
+    this.sink.sync();
+    return this.sink.byteLength;
   }
 
   /**
@@ -88,6 +110,30 @@ export class LayerFileWriter {
       const values = activation.length === rows * this.elements ? activation : activation.subarray(0, rows * this.elements);
       children.push(this.layout.dtype === 'float16' ? fixedSizeList(new Float16(), this.elements, rows, float32ToFloat16(values)) : fixedSizeList(new Float32(), this.elements, rows, values));
     }
+    const struct = makeData({ type: new Struct(this.schema.fields), length: rows, nullCount: 0, children });
+    this.writer.write(new RecordBatch(this.schema, struct));
+    this.rows += rows;
+  }
+
+  /**
+   * Appends `rows` stimuli given as stored columns, without recomputing anything (used to re-batch
+   * existing files: channel means stay as recorded, float16 activations stay bit-identical).
+   * @param firstIndex global index of the first row (rows get consecutive indices).
+   * @param channelMeans rows × C values.
+   * @param activation rows × E values (float32 values, or float16 bit patterns for a float16 layout);
+   *   null exactly when the layout keeps channel means only.
+   * @throws RangeError when a length or the activation's storage type does not fit the layout.
+   */
+  writeColumns(firstIndex: number, rows: number, channelMeans: Float32Array, activation: Float32Array | Uint16Array | null): void {
+    if (channelMeans.length !== rows * this.channels) throw new RangeError(`${this.layout.name}: ${channelMeans.length} channel means for ${rows} rows of ${this.channels} channels`);
+    const index = new Int32Array(rows);
+    for (let r = 0; r < rows; r++) index[r] = firstIndex + r;
+    const children: Data[] = [makeData({ type: new Int32(), length: rows, nullCount: 0, data: index }), fixedSizeList(new Float32(), this.channels, rows, channelMeans)];
+    if (this.layout.keep === 'full') {
+      const wanted = this.layout.dtype === 'float16' ? Uint16Array : Float32Array;
+      if (!(activation instanceof wanted) || activation.length !== rows * this.elements) throw new RangeError(`${this.layout.name}: activation must be ${rows * this.elements} ${this.layout.dtype} values`);
+      children.push(fixedSizeList(this.layout.dtype === 'float16' ? new Float16() : new Float32(), this.elements, rows, activation));
+    } else if (activation !== null) throw new RangeError(`${this.layout.name}: keeps channel means only, got activations`);
     const struct = makeData({ type: new Struct(this.schema.fields), length: rows, nullCount: 0, children });
     this.writer.write(new RecordBatch(this.schema, struct));
     this.rows += rows;
