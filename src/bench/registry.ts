@@ -1,7 +1,9 @@
 import { benchRecordOverhead } from './record-overhead.js';
+import { benchSensitivityCost } from './sensitivity-cost.js';
 import type { Benchmark } from './types.js';
 
 /** Every benchmark by name. Add one: write `src/bench/<name>.ts` exporting a Benchmark, list it here. */
 export const BENCHMARKS: Record<string, Benchmark> = {
   'record-overhead': benchRecordOverhead,
+  'sensitivity-cost': benchSensitivityCost,
 };

@@ -22,7 +22,10 @@
  * Cost: only the part of the network downstream of the site runs, on batches of up to `rowsPerRun`
  * perturbed (stimulus, channel, sign) rows, each row fed with the stimulus's recorded boundary tensors
  * (replicated). The boundary tensors come from a baseline snapshot (`from`, recorded at full float32
- * resolution) or from one unmodulated run of the whole instrumented network per stimulus batch.
+ * resolution) or from one unmodulated run of the whole instrumented network per stimulus batch. For the
+ * gain kind, a channel that is exactly 0 everywhere at the site for a stimulus (a silent ReLU map) is not
+ * perturbed: 0·(1 ± h) = 0, so its rows would repeat the unperturbed one bit for bit, and that row's
+ * readout is used for them.
  */
 import { RuntimeFailure, UsageError, closestHint } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
@@ -104,6 +107,8 @@ export interface SiteSensitivity extends SensitivityTableBlock {
   /** Downstream runs and rows they held. */
   runs: number;
   rows: number;
+  /** Perturbed rows not run (gain kind): channels exactly 0 at the site for a stimulus, whose rows would equal the unperturbed one. */
+  skippedRows: number;
   /** Runs of the whole network (no baseline) and the stimuli they held. */
   prefixRuns: number;
   /** Seconds spent in downstream runs, in whole-network runs, and in all (wall). */
@@ -431,6 +436,8 @@ class RowBuffer {
   readonly stimulus: Int32Array;
   readonly channel: Int32Array;
   readonly variant: Int8Array;
+  /** For an unperturbed row: the channels skipped for its stimulus (all zero at the site), else null. */
+  readonly skipped: (Int32Array | null)[];
   rows = 0;
 
   constructor(readonly capacity: number, readonly perRow: readonly number[], readonly channels: number) {
@@ -440,6 +447,7 @@ class RowBuffer {
     this.stimulus = new Int32Array(capacity);
     this.channel = new Int32Array(capacity);
     this.variant = new Int8Array(capacity);
+    this.skipped = new Array<Int32Array | null>(capacity).fill(null);
   }
 
   /** Restores identity in the perturbed entries and empties the buffer. */
@@ -451,6 +459,7 @@ class RowBuffer {
         this.gain[r * C + k] = 1; // [R, C]: i = r*C + k
         this.offset[r * C + k] = 0;
       }
+      this.skipped[r] = null;
     }
     this.rows = 0;
   }
@@ -489,6 +498,9 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   let prefixSeconds = 0;
   let prefixRuns = 0;
   let prefixStimuli = 0;
+  let skippedRows = 0;
+  const siteIndex = boundary.indexOf(site);
+  const siteSpatial = perRow[siteIndex]! / C;
 
   const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), [readout.tensor]), { threads: run.threads, label: `${run.model.fileName} (downstream of ${site})` });
   const buffers = [new RowBuffer(capacity, perRow, C), new RowBuffer(capacity, perRow, C)];
@@ -505,6 +517,17 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
       const yBase = r * Kout; // [R, Kout]: i = r*Kout + u
       if (v < 0) {
         for (let c = 0; c < K; c++) if (weights.weights[wBase + c]) sumIdentity[c] += y[yBase + units[c]!]!;
+        // A channel that is exactly 0 at the site stays 0 under any gain: its perturbed rows equal this one.
+        const skipped = buffer.skipped[r];
+        if (skipped) {
+          for (let j = 0; j < skipped.length; j++) {
+            const kk = skipped[j]!;
+            for (let vv = 0; vv < variants; vv++) {
+              const base = (vv * C + kk) * K;
+              for (let c = 0; c < K; c++) if (weights.weights[wBase + c]) sumPerturbed[base + c] += y[yBase + units[c]!]!;
+            }
+          }
+        }
       } else {
         const base = (v * C + k) * K;
         for (let c = 0; c < K; c++) if (weights.weights[wBase + c]) sumPerturbed[base + c] += y[yBase + units[c]!]!;
@@ -531,7 +554,7 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     buffer.clear();
     runs++;
     rowsDone += rows;
-    run.onProgress?.({ site, rowsDone, rowsTotal });
+    run.onProgress?.({ site, rowsDone: rowsDone + skippedRows, rowsTotal });
   };
 
   const flush = async (): Promise<void> => {
@@ -543,7 +566,7 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     current = 1 - current;
   };
 
-  const addRow = async (stimulus: StimulusValues, k: number, v: number): Promise<void> => {
+  const addRow = async (stimulus: StimulusValues, k: number, v: number, skipped: Int32Array | null = null): Promise<void> => {
     let buffer = buffers[current]!;
     if (buffer.rows === buffer.capacity) {
       await flush(); // waits for the other buffer's run, so the buffer switched to is empty
@@ -554,6 +577,7 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     buffer.stimulus[r] = stimulus.index;
     buffer.channel[r] = k;
     buffer.variant[r] = v;
+    buffer.skipped[r] = skipped;
     if (k >= 0) {
       const delta = VARIANT_SIGN[v]! * step;
       if (kind === 'gain') buffer.gain[r * C + k] = 1 + delta;
@@ -565,8 +589,34 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     let needed = false;
     for (let c = 0; c < K; c++) if (weights.weights[stimulus.index * K + c]) needed = true;
     if (!needed) return;
-    await addRow(stimulus, -1, -1);
-    for (let k = 0; k < C; k++) for (let v = 0; v < variants; v++) await addRow(stimulus, k, v);
+    // Gain kind: a channel whose site values are all exactly 0 for this stimulus gives x·(1 ± h) = 0 =
+    // x·1, so its perturbed runs would repeat the unperturbed one bit for bit; they are not run.
+    let skipped: Int32Array | null = null;
+    if (kind === 'gain') {
+      const values = stimulus.values[siteIndex]!;
+      const dead: number[] = [];
+      for (let k = 0; k < C; k++) {
+        let zero = true;
+        for (let p = k * siteSpatial, end = p + siteSpatial; p < end; p++) {
+          if (values[p] !== 0) {
+            zero = false;
+            break;
+          }
+        }
+        if (zero) dead.push(k);
+      }
+      if (dead.length > 0) skipped = Int32Array.from(dead);
+    }
+    await addRow(stimulus, -1, -1, skipped);
+    let next = 0;
+    for (let k = 0; k < C; k++) {
+      if (skipped && next < skipped.length && skipped[next] === k) {
+        next++;
+        skippedRows += variants;
+        continue;
+      }
+      for (let v = 0; v < variants; v++) await addRow(stimulus, k, v);
+    }
   };
 
   try {
@@ -621,6 +671,7 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     worstErrorRatio: 0,
     runs,
     rows: rowsDone,
+    skippedRows,
     prefixRuns,
     tailSeconds,
     prefixSeconds,
