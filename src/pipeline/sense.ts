@@ -207,7 +207,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     const block = await senseOneSite({ site, layer, tail, model, inspection, readout, weights, kind, step, secondStep: options.secondStep ?? false, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress });
     block.downstreamShare = downstreamShare(estimate, tail.computed);
     block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare + block.prefixStimuli) / (block.channels * block.stimuliUsed);
-    const check = errorCheck(block, warnRatio);
+    const check = errorCheck(block, warnRatio, options.secondStep ?? false);
     block.worstErrorRatio = check.worst;
     if (check.warning) {
       block.warning = check.warning;
@@ -746,7 +746,7 @@ async function* boundaryStream(run: SiteRun, boundary: readonly string[]): Async
 }
 
 /** Finds the worst fd_error relative to its category's largest |sensitivity| and words a warning. */
-function errorCheck(block: SiteSensitivity, ratio: number): { worst: number; warning?: string } {
+function errorCheck(block: SiteSensitivity, ratio: number, secondStep: boolean): { worst: number; warning?: string } {
   const { channels: C, categories } = block;
   const K = categories.length;
   let worst = 0;
@@ -769,6 +769,6 @@ function errorCheck(block: SiteSensitivity, ratio: number): { worst: number; war
   const k = Math.floor(worstAt / K);
   const c = worstAt % K;
   const pct = (x: number) => `${(100 * x).toPrecision(2)}%`;
-  const warning = `site "${block.layer}": fd_error exceeds ${pct(ratio)} of its category's largest |sensitivity| for ${over} of ${C * K} values (worst ${Number.isFinite(worst) ? pct(worst) : 'NaN'} at channel ${k}, category "${categories[c]}"); a step of ${block.step} may cross ReLU kinks — compare another --step${block.fdError.length > 0 ? ' or use --second-step' : ''}`;
+  const warning = `site "${block.layer}": fd_error exceeds ${pct(ratio)} of its category's largest |sensitivity| for ${over} of ${C * K} values (worst ${Number.isFinite(worst) ? pct(worst) : 'NaN'} at channel ${k}, category "${categories[c]}"); the readout is not linear over ±${block.step} (curvature or ReLU kinks); compare a smaller --step${secondStep ? '' : ' or use --second-step'}`;
   return { worst, warning };
 }

@@ -45,6 +45,25 @@ function scalarOutputModel(): Uint8Array {
   return onnxProto.onnx.ModelProto.encode(model).finish();
 }
 
+/** input [N, 2, 4, 4] → Relu "act" → GlobalAveragePool → Flatten → Mul(v, v) "square": its fd_error is h/2 of the largest sensitivity. */
+function quadraticModel(): Uint8Array {
+  return onnxProto.onnx.ModelProto.encode({
+    irVersion: 8,
+    opsetImport: [{ domain: '', version: 13 }],
+    graph: {
+      name: 'quadratic',
+      node: [
+        { name: 'r', opType: 'Relu', input: ['input'], output: ['act'] },
+        { name: 'g', opType: 'GlobalAveragePool', input: ['act'], output: ['gap'] },
+        { name: 'f', opType: 'Flatten', input: ['gap'], output: ['v'] },
+        { name: 'm', opType: 'Mul', input: ['v', 'v'], output: ['square'] },
+      ],
+      input: [{ name: 'input', type: { tensorType: { elemType: 1, shape: { dim: [{ dimParam: 'batch' }, { dimValue: 2 }, { dimValue: 4 }, { dimValue: 4 }] } } } }],
+      output: [{ name: 'square', type: { tensorType: { elemType: 1 } } }],
+    },
+  }).finish();
+}
+
 /** Every failure is one line on stderr, no stack, exit code 2. */
 async function expectUsageError(args: string[], pattern: RegExp): Promise<void> {
   const result = await runSonde(args);
@@ -118,6 +137,23 @@ describe('sonde tune / sonde sense (CLI)', () => {
     expect(parsed.readout).toMatchObject({ units: [1], categories: ['cat'] });
     expect(parsed.sites[0]).toMatchObject({ kind: 'offset', prefixRuns: 1, rows: 8 * (1 + 4 * 8) });
     expect(existsSync(out)).toBe(true);
+  });
+});
+
+describe('sonde sense (warnings)', () => {
+  it('sonde sense warns on stderr, in one line, when fd_error is large against the category maximum, and still succeeds', async () => {
+    const folder = join(dir, 'quadratic');
+    mkdirSync(folder);
+    const quadratic = join(folder, 'quadratic.onnx');
+    writeFileSync(quadratic, quadraticModel());
+    const input = writeStimuliNpy(folder, [4, 2, 4, 4], 29);
+    const warned = await runSonde(['sense', quadratic, '--stimuli', input.npy, '--site', 'act', '--step', '0.2', '--out', join(folder, 'q.arrow'), '--threads', '1']);
+    expect(warned.code, warned.stderr).toBe(0);
+    expect(warned.stderr.trim().split('\n')).toHaveLength(1);
+    expect(warned.stderr).toMatch(/^sonde: warning: site "act": fd_error exceeds 5\.0% .*--second-step/);
+    const quiet = await runSonde(['sense', quadratic, '--stimuli', input.npy, '--site', 'act', '--out', join(folder, 'q2.arrow'), '--threads', '1']);
+    expect(quiet.code).toBe(0);
+    expect(quiet.stderr).toBe('');
   });
 });
 

@@ -1,4 +1,4 @@
-import { readFileSync, writeFileSync } from 'node:fs';
+import { mkdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import onnxProto from 'onnx-proto';
 import { beforeAll, describe, expect, it } from 'vitest';
@@ -33,6 +33,26 @@ function relativeToCategoryMax(a: Float64Array, b: Float64Array, reference: Floa
     }
   }
   return worst;
+}
+
+/** input [N, 2, 4, 4] → Relu "act" → GlobalAveragePool → Flatten "v" → Mul(v, v) "square" [N, 2]. */
+function quadraticModel(): Uint8Array {
+  const model: onnxProto.onnx.IModelProto = {
+    irVersion: 8,
+    opsetImport: [{ domain: '', version: 13 }],
+    graph: {
+      name: 'quadratic',
+      node: [
+        { name: 'r', opType: 'Relu', input: ['input'], output: ['act'] },
+        { name: 'g', opType: 'GlobalAveragePool', input: ['act'], output: ['gap'] },
+        { name: 'f', opType: 'Flatten', input: ['gap'], output: ['v'] },
+        { name: 'm', opType: 'Mul', input: ['v', 'v'], output: ['square'] },
+      ],
+      input: [{ name: 'input', type: { tensorType: { elemType: 1, shape: { dim: [{ dimParam: 'batch' }, { dimValue: 2 }, { dimValue: 4 }, { dimValue: 4 }] } } } }],
+      output: [{ name: 'square', type: { tensorType: { elemType: 1 } } }],
+    },
+  };
+  return onnxProto.onnx.ModelProto.encode(model).finish();
 }
 
 interface Fixture {
@@ -223,6 +243,42 @@ describe('senseSites (exact properties on small networks)', () => {
     let largest = 0;
     for (const v of a.sensitivity) largest = Math.max(largest, Math.abs(v));
     for (let i = 0; i < a.sensitivity.length; i++) expect(Math.abs(a.sensitivity[i]! - b.sensitivity[i]!) / largest).toBeLessThanOrEqual(1e-5);
+  });
+
+  it('senseSites on a quadratic readout gives the exact 2·m², the error estimate h·m², and warns when that exceeds 5%', async () => {
+    // y_c = (g_c·m_c)² with m_c the spatial mean of channel c: ∂y_c/∂g_k = 2m_c² δ_kc at g = 1. A central
+    // difference is exact for a quadratic; the one-sided ones give m²(2 ± h), so |D₊ − D₋|/2 = h·m², i.e.
+    // h/2 of the largest sensitivity: 10% at h = 0.2 (warned), 0.5% at h = 0.01 (not warned).
+    const folder = join(dir, 'quadratic');
+    mkdirSync(folder);
+    const quadratic = join(folder, 'quadratic.onnx');
+    writeFileSync(quadratic, quadraticModel());
+    const input = writeStimuliNpy(folder, [4, 2, 4, 4], 29);
+    const pixels = parseNpy(readFileSync(input.npy)).data as Float32Array; // uniform [0, 1): Relu is the identity
+    const m2 = [0, 1].map((c) => {
+      let sum = 0;
+      for (let n = 0; n < 4; n++) {
+        let mean = 0;
+        for (let p = 0; p < 16; p++) mean += pixels[(n * 2 + c) * 16 + p]! / 16;
+        sum += mean * mean;
+      }
+      return sum / 4;
+    });
+    for (const step of [0.2, 0.01]) {
+      const result = await senseSites({ model: quadratic, stimuli: input.npy, site: 'act', step, threads: 1 });
+      const s = result.sites[0]!;
+      for (let k = 0; k < 2; k++) {
+        for (let c = 0; c < 2; c++) {
+          const i = k * 2 + c;
+          expect(s.sensitivity[i]).toBeCloseTo(k === c ? 2 * m2[c]! : 0, 4);
+          expect(s.fdError[i]).toBeCloseTo(k === c ? step * m2[c]! : 0, 4);
+        }
+      }
+      if (step === 0.2) {
+        expect(result.warnings).toHaveLength(1);
+        expect(result.warnings[0]).toMatch(/site "act": fd_error exceeds 5\.0% of its category's largest \|sensitivity\| for 2 of 4 values/);
+      } else expect(result.warnings).toEqual([]);
+    }
   });
 
   it('senseSites results do not depend on how rows are batched (7 rows per run vs 256)', async () => {
