@@ -195,6 +195,15 @@ describe('sonde tune / sonde sense (bad input)', () => {
     }
   });
 
+  it('sonde sense --from a baseline that lacks a tensor the downstream part reads, or with a fixed-batch model, says what to do', async () => {
+    const partial = join(dir, 'partial');
+    expect((await runSonde(['record', model, '--stimuli', stim.npy, '--labels', stim.labels, '--out', partial, '--layers', 'relu2', '--threads', '1'])).code).toBe(0);
+    await expectUsageError(['sense', model, '--from', partial, '--site', 'relu1', '--out', join(dir, 's8.arrow')], /--from .*partial: the part downstream of the site reads "relu1", and the baseline did not record it/);
+    const fixed = join(dir, 'fixed.onnx');
+    writeFileSync(fixed, buildTinyNet({ batch: 1, seed: 3 }));
+    await expectUsageError(['sense', fixed, '--stimuli', stim.npy, '--site', 'relu1', '--out', join(dir, 's9.arrow')], /fixed\.onnx has a fixed batch axis \(1\)/);
+  });
+
   it('sonde sense --stimuli-of a category no stimulus carries names the labels there are', async () => {
     await expectUsageError(['sense', model, '--stimuli', stim.npy, '--labels', stim.labels, '--site', 'relu1', '--stimuli-of', 'cow', '--out', join(dir, 's6.arrow')], /--stimuli-of "cow": no stimulus carries this category \(labels: bird, cat, dog/);
     await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu1', '--stimuli-of', 'cat', '--out', join(dir, 's7.arrow')], /--stimuli-of cat: the stimuli carry no labels/);
