@@ -1,5 +1,5 @@
 import { createHash } from 'node:crypto';
-import { readFileSync } from 'node:fs';
+import { existsSync, readFileSync, renameSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
@@ -18,8 +18,9 @@ import { writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource } from '../stimuli/source.js';
 import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
-import { prepareOutFolder, resolveOutFolder } from './output-folder.js';
-import { recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
+import { openOutputFolder, resolveOutFolder } from './output-folder.js';
+import { removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
+import { assertSameRecording, displayPath, markIncomplete, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
 
 /** Options of `recordModulated`: a recording plus the modulation and, optionally, its baseline. */
 export interface RecordModulatedOptions extends RecordOptions {
@@ -115,6 +116,13 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
     if (listingDigest(source) !== baseline.manifest.stimuli.listingDigest) {
       throw new UsageError('E_PAIRING', `--stimuli ${options.stimuli} lists other stimuli (or labels) than --from ${options.from} (${source.count} vs ${baseline.manifest.stimuli.count})`);
     }
+    const baseShard = baseline.manifest.shard ?? null;
+    if (options.shard && (!baseShard || baseShard.index !== options.shard.index || baseShard.count !== options.shard.count)) {
+      throw new UsageError('E_PAIRING', `--shard ${options.shard.index}/${options.shard.count} needs --from to be the same shard of a sharded baseline; ${options.from} is ${baseShard ? `shard ${baseShard.index}/${baseShard.count}` : 'a whole recording'}`, {
+        hint: 'record the baseline with the same --shard, or drop --shard (a modulated run from a shard baseline is that shard)',
+      });
+    }
+    if (baseShard && !options.shard) options = { ...options, shard: { index: baseShard.index, count: baseShard.count } };
     const layerNames = baseline.manifest.layers.map((l) => l.name);
     const plan = options.fullRun ? { reason: 'full run requested' } : planTail(model, inspection, baseline, resolved.map((r) => r.site), layerNames);
     if ('tail' in plan) {
@@ -184,7 +192,6 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
   const started = performance.now();
   const { options, baseline, tail } = run;
   const folder = resolveOutFolder(options.out);
-  prepareOutFolder(folder, options.force ?? false);
   const byName = new Map(run.inspection.layers.map((l) => [l.name, l]));
   const siteNames = new Set(run.resolved.map((r) => r.site));
   // Layers the tail changes: its computed tensors and the sites themselves; the rest keep baseline values.
@@ -206,22 +213,71 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
     run: { mode: 'tail', batch: baseline.manifest.run.batch, threads: options.threads ?? 0 },
     created: new Date().toISOString(),
     layers,
+    ...(baseline.manifest.shard ? { shard: baseline.manifest.shard } : {}),
     complete: false,
   };
-  writeManifest(folder, manifest);
-  const changedEntries = layers.filter((l) => l.from !== 'baseline');
-  const writers = changedEntries.map((l) => new LayerFileWriter(join(folder, l.file), { name: l.name, shape: l.shape, dtype: l.dtype, keep: l.keep }));
-  const injected = injectModulations(tail.model, run.sites);
-  const fetch = changedEntries.map((l) => l.name);
+  const opened = openOutputFolder(folder, { force: options.force ?? false, resume: options.resume ?? false, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
   try {
+    if (opened.complete) {
+      assertSameRecording(opened.complete, manifest, folder);
+      removeProgress(folder);
+      options.onNotice?.(`${displayPath(folder)} already holds this complete snapshot; nothing to resume`);
+      return { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, stimuliPerSecond: 0 };
+    }
+    const checkpoint = opened.resume?.progress ?? null;
+    if (opened.resume) {
+      assertSameRecording(opened.resume.manifest, manifest, folder);
+      manifest.created = opened.resume.manifest.created;
+      if (checkpoint) options.onNotice?.(`resuming ${displayPath(folder)} after ${checkpoint.stimuli} of ${manifest.stimuli.count} stimuli (${checkpoint.batches} batches)`);
+      else removeProgress(folder);
+    }
+    writeManifest(folder, manifest);
+    return await replayInto(folder, manifest, checkpoint, run, byName, siteNames, started);
+  } finally {
+    opened.lock.release();
+  }
+}
+
+async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint: ProgressRecord | null, run: TailRun, byName: Map<string, LayerInfo>, siteNames: Set<string>, started: number): Promise<RecordSummary> {
+  const { options, baseline, tail } = run;
+  const changedEntries = manifest.layers.filter((l) => l.from !== 'baseline');
+  const count = baseline.manifest.stimuli.count;
+  const batchRows = baseline.manifest.run.batch;
+  const doneBatches = checkpoint?.batches ?? 0;
+  const doneRows = checkpoint?.stimuli ?? 0;
+  const writers: LayerFileWriter[] = [];
+  const checkpointSeconds = options.checkpointSeconds ?? 2;
+  let lastCheckpoint = performance.now();
+  try {
+    for (const l of changedEntries) {
+      const path = join(folder, l.file);
+      const layout = { name: l.name, shape: l.shape, dtype: l.dtype, keep: l.keep };
+      if (checkpoint) {
+        const at = checkpoint.files[l.file];
+        if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${l.file}`, { hint: 'record again without --resume' });
+        if (!existsSync(`${path}.partial`) && existsSync(path)) renameSync(path, `${path}.partial`);
+        const writer = new LayerFileWriter(path, layout, { resumeAt: at });
+        if (writer.rows !== doneRows) throw new RuntimeFailure('E_RESUME', `${path}.partial holds ${writer.rows} rows at the checkpoint, expected ${doneRows}`, { hint: 'record again without --resume' });
+        writers.push(writer);
+      } else writers.push(new LayerFileWriter(path, layout));
+    }
+    const takeCheckpoint = (batches: number, stimuli: number) => {
+      const files: Record<string, number> = {};
+      writers.forEach((writer, i) => (files[changedEntries[i]!.file] = writer.checkpoint()));
+      writeProgress(folder, { format: 1, batches, stimuli, files });
+      lastCheckpoint = performance.now();
+    };
+    if (!checkpoint) takeCheckpoint(0, 0);
+    const injected = injectModulations(tail.model, run.sites);
+    const fetch = changedEntries.map((l) => l.name);
     const session = await createNetworkSession(exposeTensors(injected, fetch), { threads: options.threads ?? 0, label: `${run.model.fileName} (downstream part)` });
-    const streams = tail.boundary.map((name) => baseline.readLayer(name));
-    const count = baseline.manifest.stimuli.count;
-    const batchRows = baseline.manifest.run.batch;
+    const firstIndex = baseline.firstIndex;
+    const streams = tail.boundary.map((name) => baseline.readLayer(name, doneRows > 0 ? { range: [firstIndex + doneRows, firstIndex + count] } : {}));
     let bytesWritten = 0;
+    let batchesDone = doneBatches;
     try {
       await runPipelined(
-        Math.ceil(count / batchRows),
+        Math.ceil(count / batchRows) - doneBatches,
         async () => {
           const parts = await Promise.all(streams.map((s) => s.next()));
           const first: LayerBatch | undefined = parts[0]?.value as LayerBatch | undefined;
@@ -246,7 +302,10 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
             writers[i]!.write(first, rows, tensor.data);
             bytesWritten += tensor.data.byteLength;
           });
-          options.onProgress?.({ done: first + rows, total: count, elapsedSeconds: (performance.now() - started) / 1000, bytesWritten });
+          batchesDone += 1;
+          const done = first + rows - firstIndex;
+          if (done === count || (performance.now() - lastCheckpoint) / 1000 >= checkpointSeconds) takeCheckpoint(batchesDone, done);
+          options.onProgress?.({ done, total: count, elapsedSeconds: (performance.now() - started) / 1000, bytesWritten });
         },
       );
     } finally {
@@ -259,20 +318,16 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
       Object.assign(changedEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows });
       total += result.bytes;
     });
-    total += writeStimuliFile(join(folder, 'stimuli.arrow'), baseline.stimuli.ids, baseline.stimuli.labels).bytes;
+    total += writeStimuliFile(join(folder, 'stimuli.arrow'), baseline.stimuli.ids, baseline.stimuli.labels, { firstIndex, ...(baseline.stimuli.digests ? { digests: baseline.stimuli.digests } : {}) }).bytes;
     const wallSeconds = (performance.now() - started) / 1000;
     manifest.run.wallSeconds = Math.round(wallSeconds * 1000) / 1000;
     manifest.complete = true;
+    delete manifest.error;
     writeManifest(folder, manifest);
-    return { folder, manifest, stimuli: count, layers: layers.length, bytesWritten: total, wallSeconds, stimuliPerSecond: count / wallSeconds };
+    removeProgress(folder);
+    return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: count, layers: manifest.layers.length, bytesWritten: total, wallSeconds, stimuliPerSecond: (count - doneRows) / wallSeconds };
   } catch (error) {
-    for (const writer of writers) writer.discard();
-    manifest.error = error instanceof Error ? error.message.split('\n')[0] : String(error);
-    try {
-      writeManifest(folder, manifest);
-    } catch {
-      // keep the original error
-    }
-    throw error;
+    for (const writer of writers) writer.suspend();
+    throw markIncomplete(folder, manifest, error);
   }
 }

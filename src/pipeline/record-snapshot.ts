@@ -1,19 +1,22 @@
 import { createHash } from 'node:crypto';
+import { existsSync, renameSync } from 'node:fs';
 import { relative } from 'node:path';
-import { closestHint, UsageError } from '../errors.js';
+import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import { LayerFileWriter } from '../snapshot/layer-file.js';
-import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
-import { writeStimuliFile } from '../snapshot/stimuli-file.js';
+import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
+import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import type { Preprocessing } from '../stimuli/preprocess.js';
 import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
-import { prepareOutFolder, resolveOutFolder, slugify } from './output-folder.js';
+import { openOutputFolder, resolveOutFolder, slugify } from './output-folder.js';
+import { DigestLog, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
+import { shardRange, type ShardSpec } from './shard.js';
 
 /** Progress of a recording, reported after every batch. */
 export interface RecordProgress {
@@ -56,6 +59,17 @@ export interface RecordOptions {
   inputShape?: number[];
   /** Replace a complete snapshot already in `out`. */
   force?: boolean;
+  /**
+   * Continue an interrupted recording in `out` from its last checkpoint (the options must describe the
+   * same recording); a complete snapshot there is left as it is, a missing one is recorded afresh.
+   */
+  resume?: boolean;
+  /** Record only shard K of N of the stimuli (see `src/pipeline/shard.ts`); indices stay global. */
+  shard?: ShardSpec;
+  /** Seconds between checkpoints (default 2; 0: after every batch). */
+  checkpointSeconds?: number;
+  /** Receives one-line notices: a stale lock taken over, where a resume continues. */
+  onNotice?: (text: string) => void;
   /** Called after every batch. */
   onProgress?: (progress: RecordProgress) => void;
   /** Internal: extends the run (modulation inputs, graph changes, manifest fields). */
@@ -79,6 +93,8 @@ export interface RecordExtension {
 /** What `recordSnapshot` returns. */
 export interface RecordSummary {
   folder: string;
+  /** With `resume`: stimuli that were already recorded at the checkpoint, or `complete` when nothing was left to do. */
+  resumed?: number | 'complete';
   manifest: SnapshotManifest;
   stimuli: number;
   layers: number;
@@ -133,44 +149,126 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const fixedBatch = typeof declared[0] === 'number' ? declared[0] : null;
   const batch = fixedBatch ?? requestedBatch;
 
-  const folder = resolveOutFolder(options.out);
-  prepareOutFolder(folder, options.force ?? false);
-  const transformed = options.extension?.transformModel ? options.extension.transformModel(model, inspection) : model;
-  const layerEntries: ManifestLayer[] = selected.map((layer) => ({
-    name: layer.name,
-    op: layer.op,
-    depth: layer.depth,
-    shape: layer.shape,
-    dtype,
-    keep,
-    file: `layers/${String(layer.depth).padStart(3, '0')}-${slugify(layer.name)}.arrow`,
-  }));
-  const manifest: SnapshotManifest = {
-    format: FORMAT_VERSION,
-    tool: { name: 'sonde', version: TOOL_VERSION },
-    model: { file: model.fileName, sha256: model.sha256, input: { name: model.input.name, shape: inspection.input.shape.slice(1) } },
-    stimuli: { source: source.description, count: source.count, digest: '', listingDigest: listingDigest(source), categories: [...new Set(source.labels.flat())].sort() },
-    preprocessing: source.kind === 'npy' ? null : preprocessing,
-    modulation: options.extension?.manifestModulation ?? null,
-    readout: sidecar?.outputs ? { name: sidecar.outputs.name, kinds: sidecar.outputs.kinds, ...(sidecar.outputs.threshold !== undefined ? { threshold: sidecar.outputs.threshold } : {}) } : null,
-    baseline: options.extension?.manifestBaseline ?? null,
-    run: { mode: 'full', batch, threads: options.threads ?? 0 },
-    created: new Date().toISOString(),
-    layers: layerEntries,
-    complete: false,
-  };
-  writeManifest(folder, manifest);
+  const range = options.shard ? shardRange(options.shard.index, options.shard.count, source.count) : { start: 0, end: source.count };
+  const rowsTotal = range.end - range.start;
+  const shard: ShardInfo | null = options.shard ? { index: options.shard.index, count: options.shard.count, stimuli: [range.start, range.end - 1], total: source.count } : null;
+  const checkpointSeconds = options.checkpointSeconds ?? 2;
+  if (!(checkpointSeconds >= 0) || !Number.isFinite(checkpointSeconds)) throw new UsageError('E_CHECKPOINT', `--checkpoint-every must be a number of seconds ≥ 0, got ${checkpointSeconds}`);
 
-  const writers = selected.map((layer, i) => new LayerFileWriter(`${folder}/${layerEntries[i]!.file}`, { name: layer.name, shape: layer.shape, dtype, keep }));
+  const folder = resolveOutFolder(options.out);
+  const opened = openOutputFolder(folder, { force: options.force ?? false, resume: options.resume ?? false, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
   try {
-    const session = await createNetworkSession(exposeTensors(transformed, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: model.fileName });
+    const transformed = options.extension?.transformModel ? options.extension.transformModel(model, inspection) : model;
+    const layerEntries: ManifestLayer[] = selected.map((layer) => ({
+      name: layer.name,
+      op: layer.op,
+      depth: layer.depth,
+      shape: layer.shape,
+      dtype,
+      keep,
+      file: `layers/${String(layer.depth).padStart(3, '0')}-${slugify(layer.name)}.arrow`,
+    }));
+    const manifest: SnapshotManifest = {
+      format: FORMAT_VERSION,
+      tool: { name: 'sonde', version: TOOL_VERSION },
+      model: { file: model.fileName, sha256: model.sha256, input: { name: model.input.name, shape: inspection.input.shape.slice(1) } },
+      stimuli: { source: source.description, count: rowsTotal, digest: '', listingDigest: listingDigest(source), categories: [...new Set(source.labels.flat())].sort() },
+      preprocessing: source.kind === 'npy' ? null : preprocessing,
+      modulation: options.extension?.manifestModulation ?? null,
+      readout: sidecar?.outputs ? { name: sidecar.outputs.name, kinds: sidecar.outputs.kinds, ...(sidecar.outputs.threshold !== undefined ? { threshold: sidecar.outputs.threshold } : {}) } : null,
+      baseline: options.extension?.manifestBaseline ?? null,
+      run: { mode: 'full', batch, threads: options.threads ?? 0 },
+      created: new Date().toISOString(),
+      layers: layerEntries,
+      ...(shard ? { shard } : {}),
+      complete: false,
+    };
+    if (opened.complete) {
+      assertSameRecording(opened.complete, manifest, folder);
+      removeProgress(folder);
+      options.onNotice?.(`${displayPath(folder)} already holds this complete snapshot; nothing to resume`);
+      return { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, stimuliPerSecond: 0 };
+    }
+    const checkpoint = opened.resume?.progress ?? null;
+    if (opened.resume) {
+      assertSameRecording(opened.resume.manifest, manifest, folder);
+      manifest.created = opened.resume.manifest.created;
+      if (checkpoint && checkpoint.stimuli > rowsTotal) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json says ${checkpoint.stimuli} stimuli are done, but the recording has ${rowsTotal}`, { hint: 'record again without --resume' });
+      if (checkpoint) options.onNotice?.(`resuming ${displayPath(folder)} after ${checkpoint.stimuli} of ${rowsTotal} stimuli (${checkpoint.batches} batches)`);
+      else {
+        options.onNotice?.(`${displayPath(folder)} reached no checkpoint; recording it from the start`);
+        removeProgress(folder);
+      }
+    }
+    writeManifest(folder, manifest);
+    return await recordInto(folder, manifest, checkpoint, { options, model: transformed, source, selected, batch, fixedBatch, range, channels: channels!, height: height!, width: width!, started, checkpointSeconds, keep, dtype });
+  } finally {
+    opened.lock.release();
+  }
+}
+
+interface RecordRun {
+  options: RecordOptions;
+  model: LoadedModel;
+  source: StimulusSource;
+  selected: LayerInfo[];
+  batch: number;
+  fixedBatch: number | null;
+  range: { start: number; end: number };
+  channels: number;
+  height: number;
+  width: number;
+  started: number;
+  checkpointSeconds: number;
+  keep: KeepMode;
+  dtype: ActivationDtype;
+}
+
+/** The recording proper, into a locked folder whose manifest (complete: false) is written. */
+async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint: ProgressRecord | null, run: RecordRun): Promise<RecordSummary> {
+  const { options, source, selected, batch, fixedBatch, range } = run;
+  const layerEntries = manifest.layers;
+  const { keep, dtype } = run;
+  const rowsTotal = range.end - range.start;
+  const doneBatches = checkpoint?.batches ?? 0;
+  const doneRows = checkpoint?.stimuli ?? 0;
+  if (doneRows !== Math.min(rowsTotal, doneBatches * batch)) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json: ${doneBatches} batches of ${batch} cannot hold ${doneRows} stimuli`, { hint: 'record again without --resume' });
+  const writers: LayerFileWriter[] = [];
+  let digests: DigestLog | null = null;
+  let lastCheckpoint = performance.now();
+  try {
+    selected.forEach((layer, i) => {
+      const file = layerEntries[i]!.file;
+      const path = `${folder}/${file}`;
+      const layout = { name: layer.name, shape: layer.shape, dtype, keep };
+      if (checkpoint) {
+        const at = checkpoint.files[file];
+        if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${file}`, { hint: 'record again without --resume' });
+        // killed after the file was finished and renamed, before the manifest was: take it back
+        if (!existsSync(`${path}.partial`) && existsSync(path)) renameSync(path, `${path}.partial`);
+        writers.push(new LayerFileWriter(path, layout, { resumeAt: at }));
+        if (writers[i]!.rows !== doneRows) throw new RuntimeFailure('E_RESUME', `${path}.partial holds ${writers[i]!.rows} rows at the checkpoint, expected ${doneRows}`, { hint: 'record again without --resume' });
+      } else writers.push(new LayerFileWriter(path, layout));
+    });
+    digests = new DigestLog(folder, rowsTotal, doneRows);
+    const log = digests;
+    const takeCheckpoint = (batches: number, stimuli: number) => {
+      const files: Record<string, number> = {};
+      writers.forEach((writer, i) => (files[layerEntries[i]!.file] = writer.checkpoint()));
+      log.sync();
+      writeProgress(folder, { format: 1, batches, stimuli, files });
+      lastCheckpoint = performance.now();
+    };
+    if (!checkpoint) takeCheckpoint(0, 0);
+    const session = await createNetworkSession(exposeTensors(run.model, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: run.model.fileName });
     let bytesWritten = 0;
-    const digest = createHash('sha256');
+    let batchesDone = doneBatches;
     try {
-      const batches = Math.ceil(source.count / batch);
+      const batches = Math.ceil(rowsTotal / batch);
+      const read = stimulusBatches(source, batch, fixedBatch, range, run.model.input.name, [run.channels, run.height, run.width], log.digests, options.extension?.extraFeeds?.bind(options.extension));
       await runPipelined(
-        batches,
-        stimulusBatches(source, batch, fixedBatch, model.input.name, [channels!, height!, width!], digest, options.extension?.extraFeeds?.bind(options.extension)),
+        batches - doneBatches,
+        (k) => read(k + doneBatches),
         (feeds) => session.run(feeds, selected.map((l) => l.name)),
         (first, rows, outputs) => {
           selected.forEach((layer, i) => {
@@ -179,8 +277,12 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
             checkShape(layer, tensor, rows, fixedBatch);
             writers[i]!.write(first, rows, tensor.data);
           });
+          log.append(first - range.start, rows);
+          batchesDone += 1;
+          const done = first + rows - range.start;
+          if (done === rowsTotal || (performance.now() - lastCheckpoint) / 1000 >= run.checkpointSeconds) takeCheckpoint(batchesDone, done);
           bytesWritten += selected.reduce((sum, l) => sum + rows * ((keep === 'full' ? l.elements * (dtype === 'float16' ? 2 : 4) : 0) + channelsOf(l) * 4), 0);
-          options.onProgress?.({ done: first + rows, total: source.count, elapsedSeconds: (performance.now() - started) / 1000, bytesWritten });
+          options.onProgress?.({ done, total: rowsTotal, elapsedSeconds: (performance.now() - run.started) / 1000, bytesWritten });
         },
       );
     } finally {
@@ -192,25 +294,76 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
       Object.assign(layerEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows });
       total += result.bytes;
     });
-    const stimuliFile = writeStimuliFile(`${folder}/stimuli.arrow`, source.ids, source.labels);
+    const stimuliFile = writeStimuliFile(`${folder}/stimuli.arrow`, source.ids.slice(range.start, range.end), source.labels.slice(range.start, range.end), { digests: log.digests, firstIndex: range.start });
     total += stimuliFile.bytes;
-    const wallSeconds = (performance.now() - started) / 1000;
-    manifest.stimuli.digest = digest.digest('hex');
+    const wallSeconds = (performance.now() - run.started) / 1000;
+    manifest.stimuli.digest = stimuliDigest(log.digests);
     manifest.run.wallSeconds = Math.round(wallSeconds * 1000) / 1000;
     options.extension?.beforeComplete?.(manifest);
     manifest.complete = true;
+    delete manifest.error;
     writeManifest(folder, manifest);
-    return { folder, manifest, stimuli: source.count, layers: selected.length, bytesWritten: total, wallSeconds, stimuliPerSecond: source.count / wallSeconds };
+    log.close();
+    removeProgress(folder);
+    return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: rowsTotal, layers: selected.length, bytesWritten: total, wallSeconds, stimuliPerSecond: (rowsTotal - doneRows) / wallSeconds };
   } catch (error) {
-    for (const writer of writers) writer.discard();
-    manifest.error = error instanceof Error ? error.message.split('\n')[0] : String(error);
-    try {
-      writeManifest(folder, manifest);
-    } catch {
-      // the original error matters more
-    }
-    throw error;
+    // keep the partial files and the last checkpoint: `--resume` continues from there
+    for (const writer of writers) writer.suspend();
+    digests?.close();
+    throw markIncomplete(folder, manifest, error);
   }
+}
+
+/**
+ * Records the error in the manifest (which stays `complete: false`) and returns the error to throw: a
+ * write failure's message says that the snapshot was left incomplete and can be resumed.
+ */
+export function markIncomplete(folder: string, manifest: SnapshotManifest, error: unknown): unknown {
+  manifest.complete = false;
+  manifest.error = error instanceof Error ? error.message.split('\n')[0] : String(error);
+  try {
+    writeManifest(folder, manifest);
+  } catch {
+    // the original error matters more
+  }
+  if (error instanceof SondeError && error.code === 'E_WRITE') {
+    return new RuntimeFailure('E_WRITE', `${error.message}; snapshot ${displayPath(folder)} is left marked incomplete`, { hint: 'free space or fix the cause, then run the same command with --resume' });
+  }
+  return error;
+}
+
+/**
+ * Throws unless `stored` (an interrupted or finished recording) and `wanted` (what these options would
+ * record) describe the same recording: model, stimuli, preprocessing, modulation, baseline, batch size,
+ * layers and shard. Creation time, threads and timings may differ.
+ * @throws UsageError naming the first field that differs.
+ */
+export function assertSameRecording(stored: SnapshotManifest, wanted: SnapshotManifest, folder: string): void {
+  const layerKey = (m: SnapshotManifest) => m.layers.map((l) => ({ name: l.name, op: l.op, depth: l.depth, shape: l.shape, dtype: l.dtype, keep: l.keep, file: l.file, from: l.from ?? null }));
+  const checks: Array<[string, unknown, unknown]> = [
+    ['the model', stored.model.sha256, wanted.model.sha256],
+    ['the model input', stored.model.input, wanted.model.input],
+    ['the stimulus listing', [stored.stimuli.listingDigest, stored.stimuli.count], [wanted.stimuli.listingDigest, wanted.stimuli.count]],
+    ['the preprocessing', stored.preprocessing, wanted.preprocessing],
+    ['the modulation', stored.modulation, wanted.modulation],
+    ['the baseline', stored.baseline?.manifestSha256 ?? null, wanted.baseline?.manifestSha256 ?? null],
+    ['the run mode', stored.run.mode, wanted.run.mode],
+    ['--batch', stored.run.batch, wanted.run.batch],
+    ['the layers (or --keep/--dtype)', layerKey(stored), layerKey(wanted)],
+    ['--shard', stored.shard ?? null, wanted.shard ?? null],
+  ];
+  for (const [what, a, b] of checks) {
+    if (JSON.stringify(a) !== JSON.stringify(b)) {
+      throw new UsageError('E_RESUME', `--resume: ${folder} was recorded with other ${what.replace(/^the /, '')} than these options give (${short(a)} vs ${short(b)})`, {
+        hint: 'resume with the options of the interrupted run, or record into a new folder',
+      });
+    }
+  }
+}
+
+function short(value: unknown): string {
+  const text = JSON.stringify(value) ?? 'none';
+  return text.length > 60 ? `${text.slice(0, 57)}...` : text;
 }
 
 /** The layers named in `names`, in depth order. @throws UsageError naming a tensor the model lacks. */
@@ -266,20 +419,23 @@ export async function runPipelined(
   if (pending) write(pending.first, pending.rows, pending.outputs);
 }
 
-/** Reads stimulus batches as input feeds, hashing the exact input bytes in order (the stimuli digest). */
-function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: number | null, inputName: string, shape: [number, number, number], digest: ReturnType<typeof createHash>, extraFeeds: RecordExtension['extraFeeds']) {
+/**
+ * Reads the stimulus batches of `range` as input feeds (batch k covers local rows [k·batch, …)), and
+ * stores the SHA-256 of each stimulus's exact input bytes at its local row in `digests`.
+ */
+function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: number | null, range: { start: number; end: number }, inputName: string, shape: [number, number, number], digests: Uint8Array, extraFeeds: RecordExtension['extraFeeds']) {
   const [c, h, w] = shape;
   const per = c * h * w;
-  let hashed = 0;
   return async (k: number): Promise<FeedBatch> => {
-    const first = k * batch;
-    const rows = Math.min(batch, source.count - first);
+    const first = range.start + k * batch;
+    const rows = Math.min(batch, range.end - first);
     const padded = fixedBatch ?? rows;
     const data = new Float32Array(padded * per); // zero padding for fixed-batch models
     await source.read(first, rows, data);
-    if (hashed !== k) throw new Error('stimulus batches must be read in order');
-    hashed += 1;
-    digest.update(new Uint8Array(data.buffer, 0, rows * per * 4));
+    for (let r = 0; r < rows; r++) {
+      const digest = createHash('sha256').update(new Uint8Array(data.buffer, r * per * 4, per * 4)).digest();
+      digests.set(digest, (first - range.start + r) * STIMULUS_DIGEST_BYTES);
+    }
     const feeds: Record<string, FloatTensor> = { [inputName]: { data, dims: [padded, c, h, w] } };
     if (extraFeeds) Object.assign(feeds, extraFeeds(first, padded));
     return { first, rows, feeds };

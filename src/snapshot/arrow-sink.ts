@@ -114,6 +114,16 @@ export class HashingFileSink extends AsyncByteQueue {
     return { sha256: this.hash.digest('hex'), bytes: this.bytesWritten };
   }
 
+  /** Closes the temporary file and keeps it (after an error, so that a resume can continue it). */
+  suspend(): void {
+    try {
+      if (this.fd >= 0) closeSync(this.fd);
+    } catch {
+      // already closed
+    }
+    this.fd = -1;
+  }
+
   /** Closes and deletes the temporary file (after an error). */
   discard(): void {
     try {

@@ -146,6 +146,11 @@ export class LayerFileWriter {
     return { ...this.sink.commit(), rows: this.rows };
   }
 
+  /** Stops writing and keeps `path.partial` as it is on disk (a later resume truncates it to its checkpoint). */
+  suspend(): void {
+    this.sink.suspend();
+  }
+
   /** Abandons the file (deletes the temporary). */
   discard(): void {
     this.sink.discard();

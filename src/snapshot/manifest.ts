@@ -6,8 +6,24 @@ import { closeSync, existsSync, fsyncSync, openSync, readFileSync, renameSync, w
 import { isAbsolute, join, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 
-/** Version of the snapshot layout written by this build. */
-export const FORMAT_VERSION = 1;
+/**
+ * Version of the snapshot layout written by this build.
+ * 2: `stimuli.digest` is the SHA-256 over the per-stimulus SHA-256 digests of the input bytes (kept in
+ * `stimuli.arrow`, column `sha256`), so shards can be merged; manifests may carry `shard`.
+ */
+export const FORMAT_VERSION = 2;
+
+/** Where a shard snapshot sits in the whole stimulus listing (see `src/pipeline/shard.ts`). */
+export interface ShardInfo {
+  /** K, 1-based. */
+  index: number;
+  /** N, the number of shards. */
+  count: number;
+  /** First and last global stimulus index this shard holds (inclusive). */
+  stimuli: [number, number];
+  /** Stimuli in the whole listing. */
+  total: number;
+}
 
 /** `full`: activations and channel means; `channels`: channel means only. */
 export type KeepMode = 'full' | 'channels';
@@ -44,6 +60,11 @@ export interface SnapshotManifest {
   format: number;
   tool: { name: 'sonde'; version: string };
   model: { file: string; sha256: string; input: { name: string; shape: number[] } };
+  /**
+   * `count`: stimuli in this snapshot (a shard's own); `digest`: SHA-256 over the per-stimulus digests in
+   * index order; `listingDigest`: SHA-256 over ids and labels of the whole listing (shards share it);
+   * `categories`: the categories of the whole listing.
+   */
   stimuli: { source: string; count: number; digest: string; listingDigest: string; categories: string[] };
   preprocessing: { size: [number, number]; mean: number[]; std: number[]; bgr: boolean } | null;
   /** The resolved modulation (vectors, seeds), or null for a baseline. */
@@ -56,6 +77,8 @@ export interface SnapshotManifest {
   run: { mode: 'full' | 'tail'; reason?: string; batch: number; threads: number; wallSeconds?: number };
   created: string;
   layers: ManifestLayer[];
+  /** Set when this snapshot holds one shard of a listing (`record --shard K/N`); absent or null otherwise. */
+  shard?: ShardInfo | null;
   /** True only after every file is flushed and renamed; written last. */
   complete: boolean;
   /** The error that stopped an incomplete recording, if known. */
@@ -80,34 +103,97 @@ export function readManifest(folder: string): SnapshotManifest {
   return validateManifest(parsed, folder);
 }
 
-/** Checks the structure of a parsed manifest; see `readManifest`. */
+/**
+ * Checks the structure of a parsed manifest; see `readManifest`.
+ * @param value what JSON.parse returned.
+ * @param folder the snapshot folder (messages, and the root every layer file must resolve inside).
+ * @returns the manifest, typed.
+ * @throws UsageError naming the first field that is missing, of the wrong type or out of range, an
+ *   unknown format version, a duplicate layer name or file, or a path escaping the folder.
+ */
 export function validateManifest(value: unknown, folder: string): SnapshotManifest {
   const where = `${folder}/manifest.json`;
+  const fail = (message: string): never => {
+    throw new UsageError('E_MANIFEST', `${where}: ${message}`);
+  };
   if (typeof value !== 'object' || value === null || Array.isArray(value)) throw new UsageError('E_MANIFEST', `${where} is not a JSON object`);
   const m = value as Record<string, unknown>;
   if (m.format !== FORMAT_VERSION) {
-    throw new UsageError('E_MANIFEST_VERSION', `${where} has format ${JSON.stringify(m.format)}; this Sonde reads format ${FORMAT_VERSION}`, {
+    throw new UsageError('E_MANIFEST_VERSION', `${where} has format ${JSON.stringify(m.format) ?? 'missing'}; this Sonde reads format ${FORMAT_VERSION}`, {
       hint: 'record the snapshot again with this version',
     });
   }
-  const model = m.model as Record<string, unknown> | undefined;
-  if (!model || typeof model.sha256 !== 'string' || typeof model.file !== 'string') throw new UsageError('E_MANIFEST', `${where}: "model" must have "file" and "sha256"`);
-  const stimuli = m.stimuli as Record<string, unknown> | undefined;
-  if (!stimuli || typeof stimuli.count !== 'number' || !Number.isInteger(stimuli.count) || stimuli.count < 0 || typeof stimuli.digest !== 'string') {
-    throw new UsageError('E_MANIFEST', `${where}: "stimuli" must have an integer "count" and a "digest"`);
+  const model = record(m.model);
+  if (!model || typeof model.sha256 !== 'string' || typeof model.file !== 'string') fail('"model" must have "file" and "sha256"');
+  const stimuli = record(m.stimuli);
+  if (!stimuli || !isCount(stimuli.count) || typeof stimuli.digest !== 'string') {
+    fail('"stimuli" must have an integer "count" and a "digest"');
   }
-  if (!Array.isArray(m.layers)) throw new UsageError('E_MANIFEST', `${where}: "layers" must be an array`);
-  m.layers.forEach((layer: unknown, i: number) => {
-    const l = layer as Record<string, unknown>;
-    if (typeof l !== 'object' || l === null || typeof l.name !== 'string' || typeof l.file !== 'string' || !Array.isArray(l.shape) || !l.shape.every((d) => Number.isInteger(d) && (d as number) >= 0)) {
-      throw new UsageError('E_MANIFEST', `${where}: layers[${i}] must have "name", "file" and an integer "shape"`);
+  if (stimuli!.listingDigest !== undefined && typeof stimuli!.listingDigest !== 'string') fail('"stimuli.listingDigest" must be a string');
+  if (stimuli!.categories !== undefined && !(Array.isArray(stimuli!.categories) && stimuli!.categories.every((c) => typeof c === 'string'))) fail('"stimuli.categories" must be a list of strings');
+  const run = record(m.run);
+  if (run && !(Number.isSafeInteger(run.batch) && (run.batch as number) > 0)) fail(`"run.batch" must be a positive integer, got ${JSON.stringify(run.batch)}`);
+  const baseline = m.baseline;
+  if (baseline !== undefined && baseline !== null) {
+    const b = record(baseline);
+    if (!b || typeof b.path !== 'string' || b.path === '' || b.path.includes('\0') || typeof b.manifestSha256 !== 'string') fail('"baseline" must be null or have a "path" and a "manifestSha256"');
+  }
+  if (m.shard !== undefined && m.shard !== null) validateShard(m.shard, stimuli!.count as number, fail);
+  if (!Array.isArray(m.layers)) fail('"layers" must be an array');
+  const names = new Set<string>();
+  const files = new Set<string>();
+  (m.layers as unknown[]).forEach((layer: unknown, i: number) => {
+    const l = record(layer);
+    if (!l || typeof l.name !== 'string' || typeof l.file !== 'string' || !Array.isArray(l.shape) || !l.shape.every((d) => Number.isSafeInteger(d) && (d as number) >= 1)) {
+      fail(`layers[${i}] must have "name", "file" and a "shape" of positive integers`);
     }
-    if (l.keep !== 'full' && l.keep !== 'channels') throw new UsageError('E_MANIFEST', `${where}: layers[${i}].keep must be "full" or "channels"`);
-    if (l.dtype !== 'float32' && l.dtype !== 'float16') throw new UsageError('E_MANIFEST', `${where}: layers[${i}].dtype must be "float32" or "float16"`);
-    assertInside(folder, l.file, `${where}: layers[${i}].file`);
+    const entry = l!;
+    const shape = entry.shape as number[];
+    if (shape.length > 8 || shape.reduce((a, b) => a * b, 1) > 2 ** 31 - 1) fail(`layers[${i}].shape [${shape.join(', ')}] is absurdly large`);
+    if (entry.keep !== 'full' && entry.keep !== 'channels') fail(`layers[${i}].keep must be "full" or "channels"`);
+    if (entry.dtype !== 'float32' && entry.dtype !== 'float16') fail(`layers[${i}].dtype must be "float32" or "float16"`);
+    if (entry.from !== undefined && entry.from !== 'baseline') fail(`layers[${i}].from must be "baseline" when present`);
+    if (entry.from === 'baseline' && (m.baseline === null || m.baseline === undefined)) fail(`layers[${i}] comes from a baseline but "baseline" is null`);
+    for (const key of ['rows', 'bytes'] as const) {
+      if (entry[key] !== undefined && !isCount(entry[key])) fail(`layers[${i}].${key} must be a non-negative integer`);
+    }
+    if (entry.sha256 !== undefined && !(typeof entry.sha256 === 'string' && /^[0-9a-f]{64}$/.test(entry.sha256))) fail(`layers[${i}].sha256 must be 64 hex digits`);
+    if (names.has(entry.name as string)) fail(`layers[${i}].name ${JSON.stringify(entry.name)} appears twice`);
+    names.add(entry.name as string);
+    if (entry.from !== 'baseline') {
+      if (files.has(entry.file as string)) fail(`layers[${i}].file ${JSON.stringify(entry.file)} is used by two layers`);
+      files.add(entry.file as string);
+      assertInside(folder, entry.file as string, `${where}: layers[${i}].file`);
+    } else {
+      // resolved against the baseline folder by the reader; still never absolute or climbing out of it
+      if (isAbsolute(entry.file as string) || (entry.file as string).split(/[\\/]/).includes('..')) {
+        throw new UsageError('E_MANIFEST_PATH', `${where}: layers[${i}].file "${String(entry.file)}" must be a plain path inside the baseline folder`);
+      }
+    }
   });
-  if (typeof m.complete !== 'boolean') throw new UsageError('E_MANIFEST', `${where}: "complete" must be true or false`);
+  if (typeof m.complete !== 'boolean') fail('"complete" must be true or false');
   return m as unknown as SnapshotManifest;
+}
+
+function record(value: unknown): Record<string, unknown> | null {
+  return typeof value === 'object' && value !== null && !Array.isArray(value) ? (value as Record<string, unknown>) : null;
+}
+
+function isCount(value: unknown): boolean {
+  return Number.isSafeInteger(value) && (value as number) >= 0;
+}
+
+function validateShard(value: unknown, count: number, fail: (message: string) => never): void {
+  const s = record(value);
+  const range = s?.stimuli;
+  if (!s || !Number.isSafeInteger(s.index) || !Number.isSafeInteger(s.count) || !isCount(s.total) || !Array.isArray(range) || range.length !== 2 || !range.every((x) => isCount(x))) {
+    fail('"shard" must be null or { index, count, stimuli: [first, last], total } with integers');
+  }
+  const [first, last] = range as [number, number];
+  const { index, count: shards, total } = s as { index: number; count: number; total: number };
+  if (index < 1 || index > shards) fail(`"shard.index" ${index} is outside 1..${shards}`);
+  if (first > last || last >= total) fail(`"shard.stimuli" [${first}, ${last}] is not a range inside 0..${total - 1}`);
+  if (last - first + 1 !== count) fail(`"shard.stimuli" [${first}, ${last}] holds ${last - first + 1} stimuli but "stimuli.count" is ${count}`);
 }
 
 /**

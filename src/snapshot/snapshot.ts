@@ -1,7 +1,7 @@
-import { open } from 'node:fs/promises';
+import { open, type FileHandle } from 'node:fs/promises';
 import { readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
-import { RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
+import { Message, RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
 import { RuntimeFailure, UsageError, closestHint } from '../errors.js';
 import { float16ToFloat32 } from './float16.js';
 import { channelCount, spatialSize } from './layer-file.js';
@@ -16,12 +16,21 @@ export interface LayerBatch {
   channelMeans: Float32Array;
   /** rows × elements activations (row-major, float16 widened to float32), or null for keep = channels or when not requested. */
   activation: Float32Array | null;
+  /** With `raw`, for a float16 layer: the stored float16 bit patterns (and `activation` is null). */
+  activationFloat16?: Uint16Array;
 }
 
 /** Options of `Snapshot.readLayer`. */
 export interface ReadLayerOptions {
   /** Also read the `activation` column (default true when the layer kept it). */
   activation?: boolean;
+  /**
+   * Only the rows with global index in [start, end): batches outside are skipped without reading their
+   * bodies, batches that straddle a bound are sliced (views).
+   */
+  range?: [number, number];
+  /** Float16 layers: hand out the stored bit patterns (`activationFloat16`) instead of widening. */
+  raw?: boolean;
 }
 
 /** A recorded snapshot opened for reading. */
@@ -29,8 +38,13 @@ export interface Snapshot {
   /** Absolute path of the snapshot folder. */
   folder: string;
   manifest: SnapshotManifest;
-  /** Stimulus ids and label sets, in index order. */
-  stimuli: { ids: string[]; labels: string[][] };
+  /**
+   * Stimulus ids and label sets, in index order; `digests` (N × 32 bytes): the per-stimulus SHA-256 of
+   * the input bytes, when stimuli.arrow has them (format 2).
+   */
+  stimuli: { ids: string[]; labels: string[][]; digests?: Uint8Array };
+  /** Global index of this snapshot's first stimulus: the shard's first, 0 for a whole listing. */
+  firstIndex: number;
   /** Categories present in the labels, sorted. */
   categories: string[];
   /** The manifest entry of a layer. @throws UsageError with close names when absent. */
@@ -56,6 +70,7 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
   const stimuliPath = join(root, 'stimuli.arrow');
   let ids: string[];
   let labels: string[][];
+  let digests: Uint8Array | undefined;
   try {
     const table = tableFromIPC(readFileSync(stimuliPath));
     ids = (table.getChild('id')?.toArray() ?? []) as string[];
@@ -65,12 +80,22 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
       const value = labelColumn?.get(i) as { toArray(): string[] } | null;
       labels.push(value ? Array.from(value.toArray()) : []);
     }
+    const digestColumn = table.getChild('sha256');
+    if (digestColumn) {
+      digests = new Uint8Array(table.numRows * 32);
+      for (let i = 0; i < table.numRows; i++) {
+        const hex = String(digestColumn.get(i));
+        if (!/^[0-9a-f]{64}$/.test(hex)) throw new Error(`row ${i} has no valid sha256`);
+        digests.set(Buffer.from(hex, 'hex'), i * 32);
+      }
+    }
   } catch (error) {
     throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow cannot be read (${(error as Error).message.split('\n')[0]})`);
   }
   if (ids.length !== manifest.stimuli.count) {
     throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow has ${ids.length} rows but the manifest says ${manifest.stimuli.count}`);
   }
+  const firstIndex = manifest.shard ? manifest.shard.stimuli[0] : 0;
   const byName = new Map(manifest.layers.map((l) => [l.name, l]));
   const categories = [...new Set(labels.flat())].sort();
   const layer = (name: string): ManifestLayer => {
@@ -99,6 +124,8 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
     const entry = layer(name);
     const { channels, elements } = layerGeometry(name);
     const wantActivation = entry.keep === 'full' && readOptions.activation !== false;
+    const raw = readOptions.raw === true && entry.dtype === 'float16';
+    const range = readOptions.range;
     const path = fileOf(entry);
     let handle;
     try {
@@ -116,7 +143,15 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
       }
       if (!reader.isFile()) throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} is not in Arrow IPC file format`);
       const count = reader.numRecordBatches;
+      let rowAt = firstIndex; // global index of the next batch's first row, if the file is in order
       for (let b = 0; b < count; b++) {
+        if (range) {
+          const rows = await batchRows(handle, reader.footer?.getRecordBatch(b) ?? null, path, b);
+          const start = rowAt;
+          rowAt += rows;
+          if (start + rows <= range[0]) continue;
+          if (start >= range[1]) break;
+        }
         let batch: RecordBatch | null;
         try {
           batch = await reader.readRecordBatch(b);
@@ -124,7 +159,8 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
           throw new RuntimeFailure('E_LAYER_READ', `layer file ${path}: batch ${b} cannot be read (${(error as Error).message.split('\n')[0]})`);
         }
         if (!batch) break;
-        yield toLayerBatch(batch, channels, elements, wantActivation, path);
+        const whole = toLayerBatch(batch, channels, elements, wantActivation, path, raw);
+        yield range ? sliceBatch(whole, range, channels, elements, path) : whole;
       }
     } finally {
       await handle.close();
@@ -135,33 +171,72 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
     const out = new Float32Array(manifest.stimuli.count * channels);
     for await (const batch of readLayer(name, { activation: false })) {
       for (let r = 0; r < batch.rows; r++) {
-        const n = batch.index[r]!;
-        if (n < 0 || n >= manifest.stimuli.count) throw new RuntimeFailure('E_LAYER_READ', `layer "${name}" holds stimulus index ${n} outside 0..${manifest.stimuli.count - 1}`);
+        const n = batch.index[r]! - firstIndex;
+        if (n < 0 || n >= manifest.stimuli.count) throw new RuntimeFailure('E_LAYER_READ', `layer "${name}" holds stimulus index ${batch.index[r]} outside ${firstIndex}..${firstIndex + manifest.stimuli.count - 1}`);
         out.set(batch.channelMeans.subarray(r * channels, (r + 1) * channels), n * channels);
       }
     }
     return out;
   }
-  return { folder: root, manifest, stimuli: { ids, labels }, categories, layer, layerGeometry, readLayer, readChannelMeans };
+  return { folder: root, manifest, stimuli: { ids, labels, ...(digests ? { digests } : {}) }, firstIndex, categories, layer, layerGeometry, readLayer, readChannelMeans };
 }
 
-function toLayerBatch(batch: RecordBatch, channels: number, elements: number, wantActivation: boolean, path: string): LayerBatch {
+/** Rows of record batch `b`, from its message header alone (the body is not read). */
+async function batchRows(handle: FileHandle, block: { offset: number; metaDataLength: number } | null, path: string, b: number): Promise<number> {
+  if (!block) throw new RuntimeFailure('E_LAYER_READ', `layer file ${path}: the footer lists no batch ${b}`);
+  const metadata = new Uint8Array(Math.max(0, block.metaDataLength - 8));
+  const { bytesRead } = await handle.read(metadata, 0, metadata.length, block.offset + 8);
+  try {
+    if (bytesRead !== metadata.length) throw new Error('cut off');
+    return Number((Message.decode(metadata).header() as { length: number }).length);
+  } catch (error) {
+    throw new RuntimeFailure('E_LAYER_READ', `layer file ${path}: the header of batch ${b} cannot be read (${(error as Error).message.split('\n')[0]})`);
+  }
+}
+
+/** The rows of `batch` with global index in [range[0], range[1]) (views; the file's rows are in index order). */
+function sliceBatch(batch: LayerBatch, range: [number, number], channels: number, elements: number, path: string): LayerBatch {
+  let from = 0;
+  while (from < batch.rows && batch.index[from]! < range[0]) from++;
+  let to = from;
+  while (to < batch.rows && batch.index[to]! < range[1]) to++;
+  for (let r = from + 1; r < to; r++) {
+    if (batch.index[r] !== batch.index[r - 1]! + 1) throw new RuntimeFailure('E_LAYER_READ', `layer file ${path}: stimulus indices are not consecutive (${batch.index[r - 1]} then ${batch.index[r]})`);
+  }
+  if (from === 0 && to === batch.rows) return batch;
+  const rows = to - from;
+  return {
+    index: batch.index.subarray(from, to),
+    rows,
+    channelMeans: batch.channelMeans.subarray(from * channels, to * channels),
+    activation: batch.activation ? batch.activation.subarray(from * elements, to * elements) : null,
+    ...(batch.activationFloat16 ? { activationFloat16: batch.activationFloat16.subarray(from * elements, to * elements) } : {}),
+  };
+}
+
+function toLayerBatch(batch: RecordBatch, channels: number, elements: number, wantActivation: boolean, path: string, raw = false): LayerBatch {
   const rows = batch.numRows;
   const indexData = batch.getChild('index')?.data[0];
   const meanData = batch.getChild('channel_mean')?.data[0]?.children[0];
   if (!indexData || !meanData) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path} lacks the index or channel_mean column`);
+  const meanWidth = (batch.getChild('channel_mean')!.type as { listSize?: number }).listSize;
+  if (meanWidth !== channels) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path}: channel_mean has ${String(meanWidth)} values per row, the manifest says ${channels}`);
   const index = (indexData.values as Int32Array).subarray(indexData.offset, indexData.offset + rows);
   const meanOffset = (batch.getChild('channel_mean')!.data[0]!.offset + meanData.offset) * 1;
   const channelMeans = (meanData.values as Float32Array).subarray(meanOffset * channels, (meanOffset + rows) * channels);
   let activation: Float32Array | null = null;
+  let activationFloat16: Uint16Array | undefined;
   if (wantActivation) {
     const column = batch.getChild('activation')?.data[0];
     const child = column?.children[0];
     if (!column || !child) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path} lacks the activation column`);
     const start = (column.offset + child.offset) * elements;
     const values = child.values as Float32Array | Uint16Array;
-    activation = values instanceof Uint16Array ? float16ToFloat32(values.subarray(start, start + rows * elements)) : values.subarray(start, start + rows * elements);
+    if (values instanceof Uint16Array && raw) activationFloat16 = values.subarray(start, start + rows * elements);
+    else activation = values instanceof Uint16Array ? float16ToFloat32(values.subarray(start, start + rows * elements)) : values.subarray(start, start + rows * elements);
+    const width = (column.type as { listSize?: number }).listSize;
+    if (width !== elements) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path}: activation has ${String(width)} values per row, the manifest shape says ${elements}`);
   }
   if (channelMeans.length !== rows * channels) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path}: channel_mean has ${channelMeans.length / rows} values per row, manifest says ${channels}`);
-  return { index, rows, channelMeans, activation };
+  return { index, rows, channelMeans, activation, ...(activationFloat16 ? { activationFloat16 } : {}) };
 }

@@ -82,7 +82,7 @@ describe('recordSnapshot', () => {
       expect(Array.from(frame.getColumn('index').toArray() as number[])).toEqual([0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10]);
     }
     const stimuliFrame = pl.readIPC(readFileSync(join(snap.folder, 'stimuli.arrow')));
-    expect(stimuliFrame.columns).toEqual(['index', 'id', 'labels']);
+    expect(stimuliFrame.columns).toEqual(['index', 'id', 'labels', 'sha256']);
     expect(stimuliFrame.height).toBe(11);
   });
 

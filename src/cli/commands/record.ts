@@ -4,7 +4,8 @@ import { recordModulated } from '../../pipeline/record-modulated.js';
 import { loadModulationTables } from '../../pipeline/tables.js';
 import { parseChannelList, parseShape, parseSize } from '../../stimuli/preprocess.js';
 import { UsageError } from '../../errors.js';
-import { megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
+import { finiteNumber, megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
+import { parseShard } from '../../pipeline/shard.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo } from '../run.js';
 
@@ -28,6 +29,9 @@ interface RecordCliOptions {
   fullRun?: boolean;
   tuning?: string;
   sensitivity?: string;
+  resume?: boolean;
+  shard?: string;
+  checkpointEvery: number;
 }
 
 /** `sonde record MODEL --stimuli SRC --out DIR`: record a snapshot. */
@@ -55,6 +59,9 @@ export function registerRecord(program: Command): void {
     .option('--tuning <file.arrow>', 'tuning table for the tuning kind and lesion top (from `sonde tune`)')
     .option('--sensitivity <file.arrow>', 'sensitivity table for the sensitivity kind (from `sonde sense`)')
     .option('--full-run', 'with --from: run the whole network instead of replaying the downstream part')
+    .option('--resume', 'continue an interrupted recording in --out from its last checkpoint (same options); a complete one is left alone')
+    .option('--shard <K/N>', 'record only shard K of N of the stimuli (contiguous, balanced; 1-based K), e.g. $SLURM_ARRAY_TASK_ID/8')
+    .option('--checkpoint-every <seconds>', 'seconds between resume checkpoints (0: after every batch)', finiteNumber, 2)
     .action(async (modelPath: string, opts: RecordCliOptions) => {
       const io = cliIo();
       if (opts.keep !== 'full' && opts.keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${opts.keep}"`);
@@ -78,6 +85,10 @@ export function registerRecord(program: Command): void {
           ...(opts.bgr ? { bgr: true } : {}),
           ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
           ...(opts.force ? { force: true } : {}),
+          ...(opts.resume ? { resume: true } : {}),
+          ...(opts.shard !== undefined ? { shard: parseShard(opts.shard) } : {}),
+          checkpointSeconds: opts.checkpointEvery,
+          onNotice: (text: string) => io.stderr(`sonde: ${text}\n`),
           onProgress: (p: { done: number; total: number; bytesWritten: number }) => bar.update(p.done, p.total, megabytes(p.bytesWritten)),
         } as const;
         if ((opts.tuning || opts.sensitivity) && !opts.modulate) throw new UsageError('E_TABLES', '--tuning and --sensitivity need --modulate (they feed the tuning, sensitivity and lesion-top kinds)');
@@ -86,8 +97,9 @@ export function registerRecord(program: Command): void {
           ? await recordModulated({ ...common, modulate: opts.modulate, ...(loaded ? { tables: loaded.tables, categories: loaded.categories } : {}), ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}) })
           : await recordSnapshot(common);
         bar.stop();
+        if (summary.resumed === 'complete') return;
         io.stdout(
-          `recorded ${summary.stimuli} stimuli × ${summary.layers} layers into ${displayPath(summary.folder)}: ${megabytes(summary.bytesWritten)} in ${summary.wallSeconds.toFixed(2)} s (${summary.stimuliPerSecond.toFixed(1)} stimuli/s)${summary.manifest.run.mode === 'tail' ? '; replayed the downstream part from the baseline' : summary.manifest.run.reason ? `; full run: ${summary.manifest.run.reason}` : ''}\n`,
+          `recorded ${summary.manifest.shard ? `shard ${summary.manifest.shard.index}/${summary.manifest.shard.count}: ` : ''}${typeof summary.resumed === 'number' && summary.resumed > 0 ? `${summary.stimuli - summary.resumed} more of ` : ''}${summary.stimuli} stimuli × ${summary.layers} layers into ${displayPath(summary.folder)}: ${megabytes(summary.bytesWritten)} in ${summary.wallSeconds.toFixed(2)} s (${summary.stimuliPerSecond.toFixed(1)} stimuli/s)${summary.manifest.run.mode === 'tail' ? '; replayed the downstream part from the baseline' : summary.manifest.run.reason ? `; full run: ${summary.manifest.run.reason}` : ''}\n`,
         );
       } finally {
         bar.stop();
