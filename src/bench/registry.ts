@@ -1,3 +1,4 @@
+import { benchDiffThroughput } from './diff-throughput.js';
 import { benchRecordOverhead } from './record-overhead.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
 import type { Benchmark } from './types.js';
@@ -5,5 +6,6 @@ import type { Benchmark } from './types.js';
 /** Every benchmark by name. Add one: write `src/bench/<name>.ts` exporting a Benchmark, list it here. */
 export const BENCHMARKS: Record<string, Benchmark> = {
   'record-overhead': benchRecordOverhead,
+  'diff-throughput': benchDiffThroughput,
   'sensitivity-cost': benchSensitivityCost,
 };

@@ -261,13 +261,13 @@ async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLay
   const sameFile = modEntry.from === 'baseline' && entry.sha256 !== undefined && modEntry.sha256 === entry.sha256;
   if (sameFile) {
     // identical bytes: read once and compare the data with itself
-    for await (const batch of base.readLayer(entry.name, { activation: full })) {
+    for await (const batch of base.readLayer(entry.name, { activation: full, reuse: true })) {
       const values = full ? batch.activation! : batch.channelMeans;
       accumulator.add(values, values, batch.rows);
     }
   } else {
-    const left = base.readLayer(entry.name, { activation: full });
-    const right = mod.readLayer(entry.name, { activation: full });
+    const left = base.readLayer(entry.name, { activation: full, reuse: true });
+    const right = mod.readLayer(entry.name, { activation: full, reuse: true });
     for await (const part of alignBatches(left, right, width, geometry.channels, entry.name)) accumulator.add(part.a, part.b, part.rows);
   }
   return { metrics: accumulator.finish(), means: keepMeans ? accumulator.channelMeans() : null, norms: accumulator.perStimulusNorms() };

@@ -3,6 +3,7 @@ import { readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { Message, RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
 import { RuntimeFailure, UsageError, closestHint } from '../errors.js';
+import { LayerBlockFile } from './block-reader.js';
 import { float16ToFloat32 } from './float16.js';
 import { channelCount, spatialSize } from './layer-file.js';
 import { assertComplete, assertInside, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
@@ -31,6 +32,11 @@ export interface ReadLayerOptions {
   range?: [number, number];
   /** Float16 layers: hand out the stored bit patterns (`activationFloat16`) instead of widening. */
   raw?: boolean;
+  /**
+   * Reuse two read buffers in turn (fastest, no garbage): a batch's arrays are then valid only until the
+   * batch after the next one is requested. Default false: every batch owns its memory.
+   */
+  reuse?: boolean;
 }
 
 /** A recorded snapshot opened for reading. */
@@ -127,6 +133,19 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
     const raw = readOptions.raw === true && entry.dtype === 'float16';
     const range = readOptions.range;
     const path = fileOf(entry);
+    let blocks: LayerBlockFile | null = null;
+    try {
+      blocks = LayerBlockFile.open(path);
+    } catch (error) {
+      const code = (error as NodeJS.ErrnoException).code;
+      if (code === 'ENOENT' || code === 'EACCES') throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} of "${name}" cannot be opened`, { hint: 'the snapshot may be damaged; run `sonde check`' });
+      throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} of "${name}" is not a readable Arrow file (${(error as Error).message.split('\n')[0]})`, { hint: 'run `sonde check` on the snapshot' });
+    }
+    if (blocks) {
+      // Sonde's own layout: positioned reads, viewed in place, the next batch read ahead
+      yield* readBlocks(blocks, { channels, elements, wantActivation, raw, range, reuse: readOptions.reuse === true, path, firstIndex });
+      return;
+    }
     let handle;
     try {
       handle = await open(path, 'r');
@@ -239,4 +258,67 @@ function toLayerBatch(batch: RecordBatch, channels: number, elements: number, wa
   }
   if (channelMeans.length !== rows * channels) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${path}: channel_mean has ${channelMeans.length / rows} values per row, manifest says ${channels}`);
   return { index, rows, channelMeans, activation, ...(activationFloat16 ? { activationFloat16 } : {}) };
+}
+
+interface BlockReadOptions {
+  channels: number;
+  elements: number;
+  wantActivation: boolean;
+  raw: boolean;
+  range: [number, number] | undefined;
+  reuse: boolean;
+  path: string;
+  firstIndex: number;
+}
+
+/** Streams the batches of a layer file in Sonde's layout, reading one batch ahead. */
+async function* readBlocks(file: LayerBlockFile, o: BlockReadOptions): AsyncGenerator<LayerBatch> {
+  try {
+    const buffers: Array<Uint8Array | undefined> = [undefined, undefined];
+    const wanted: number[] = [];
+    if (o.range) {
+      let rowAt = o.firstIndex;
+      for (let b = 0; b < file.count; b++) {
+        const rows = await file.rows(b);
+        const start = rowAt;
+        rowAt += rows;
+        if (start + rows <= o.range[0]) continue;
+        if (start >= o.range[1]) break;
+        wanted.push(b);
+      }
+    } else for (let b = 0; b < file.count; b++) wanted.push(b);
+    const start = (j: number) => {
+      const promise = file.read(wanted[j]!, o.wantActivation, o.reuse ? buffers[j % 2] : undefined).then((result) => {
+        if (o.reuse) buffers[j % 2] = result.buffer;
+        return result.batch;
+      });
+      promise.catch(() => undefined);
+      return promise;
+    };
+    let next = wanted.length > 0 ? start(0) : null;
+    for (let j = 0; j < wanted.length; j++) {
+      let raw;
+      try {
+        raw = await next!;
+      } catch (error) {
+        throw new RuntimeFailure('E_LAYER_READ', `layer file ${o.path}: batch ${wanted[j]} cannot be read (${(error as Error).message.split('\n')[0]})`, { hint: 'run `sonde check` on the snapshot' });
+      }
+      next = j + 1 < wanted.length ? start(j + 1) : null;
+      if (raw.channelMeans.length !== raw.rows * o.channels) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${o.path}: channel_mean has ${raw.channelMeans.length / Math.max(1, raw.rows)} values per row, the manifest says ${o.channels}`);
+      let activation: Float32Array | null = null;
+      let activationFloat16: Uint16Array | undefined;
+      if (o.wantActivation) {
+        if (!raw.activation) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${o.path} lacks the activation column`);
+        if (raw.activation.length !== raw.rows * o.elements) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer file ${o.path}: activation has ${raw.activation.length / Math.max(1, raw.rows)} values per row, the manifest shape says ${o.elements}`);
+        if (raw.activation instanceof Uint16Array) {
+          if (o.raw) activationFloat16 = raw.activation;
+          else activation = float16ToFloat32(raw.activation);
+        } else activation = raw.activation;
+      }
+      const batch: LayerBatch = { index: raw.index, rows: raw.rows, channelMeans: raw.channelMeans, activation, ...(activationFloat16 ? { activationFloat16 } : {}) };
+      yield o.range ? sliceBatch(batch, o.range, o.channels, o.elements, o.path) : batch;
+    }
+  } finally {
+    file.close();
+  }
 }
