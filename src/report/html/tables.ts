@@ -1,0 +1,218 @@
+/**
+ * The report's HTML tables, one function per table. Every value from an input passes through `html`
+ * (escaped); numbers that JSON turned into null show as "–".
+ */
+import type { TableComparison } from '../../pipeline/compare-tables.js';
+import type { DiffReport, SchemeComparison, TaskReport } from '../../pipeline/diff-snapshots.js';
+import type { SweepResult } from '../../pipeline/sweep-types.js';
+import type { TaskCurvePoint } from './chart-data.js';
+import { num, type TuningSummaries } from './inputs.js';
+import { html, SafeHtml, type HtmlValue } from './markup.js';
+
+/** Fixed-point number, "–" for null/NaN, "∞" for infinities. */
+export function fmt(value: unknown, digits = 3): string {
+  const x = num(value);
+  if (Number.isNaN(x)) return '–';
+  if (!Number.isFinite(x)) return x > 0 ? '∞' : '−∞';
+  return x.toFixed(digits);
+}
+
+/** Signed fixed-point ("+0.42", "−1.30"; a value that rounds to zero is "+0.00"), "–" for null/NaN. */
+export function sgn(value: unknown, digits = 2): string {
+  const x = num(value);
+  if (Number.isNaN(x)) return '–';
+  if (!Number.isFinite(x)) return x > 0 ? '+∞' : '−∞';
+  const text = Math.abs(x).toFixed(digits);
+  return `${x < 0 && Number(text) !== 0 ? '−' : '+'}${text}`;
+}
+
+/** Three significant digits, scientific outside [0.01, 1000); for values spanning decades. */
+export function sci(value: unknown): string {
+  const x = num(value);
+  if (Number.isNaN(x)) return '–';
+  if (!Number.isFinite(x)) return x > 0 ? '∞' : '−∞';
+  if (x === 0) return '0';
+  const m = Math.abs(x);
+  return m >= 0.01 && m < 1000 ? x.toPrecision(3) : x.toExponential(2);
+}
+
+/** A fraction as a percentage: 0.083 → "8.3 %"; "–" for null/NaN. */
+export function pct(value: unknown, digits = 1): string {
+  const x = num(value);
+  return Number.isFinite(x) ? `${(100 * x).toFixed(digits)} %` : '–';
+}
+
+function interval(ci: readonly unknown[] | null | undefined, f: (v: unknown) => string): string {
+  return Array.isArray(ci) && ci.length === 2 ? ` [${f(ci[0])}, ${f(ci[1])}]` : '';
+}
+
+interface Row {
+  cells: readonly HtmlValue[];
+  /** A CSS class of this module's choosing (never input text). */
+  className?: 'site' | 'mean';
+}
+
+const NUM = new SafeHtml(' class="num"');
+const NONE = new SafeHtml('');
+
+/** A table: header cells and rows of cells; `numeric` columns are right-aligned. */
+function table(head: readonly string[], rows: readonly Row[], numeric: readonly number[], caption?: HtmlValue): SafeHtml {
+  const align = (i: number) => (numeric.includes(i) ? NUM : NONE);
+  const headCells = head.map((h, i) => html`<th${align(i)}>${h}</th>`);
+  const body = rows.map((row) => html`<tr${row.className ? new SafeHtml(` class="${row.className}"`) : NONE}>${row.cells.map((c, i) => html`<td${align(i)}>${c}</td>`)}</tr>`);
+  return html`<div class="table-wrap"><table>${caption ? html`<caption>${caption}</caption>` : ''}<thead><tr>${headCells}</tr></thead><tbody>${body}</tbody></table></div>`;
+}
+
+/**
+ * Per-layer table of one diff: depth (◆ at the site), layer, op, relative change with its bootstrap
+ * interval, cosine, channel ratio, fraction of channels up/down, effect size, signature slope (when a
+ * tuning table was given) and whether the change is above the noise floor.
+ * @param diff a diff report.
+ */
+export function diffLayerTable(diff: DiffReport): SafeHtml {
+  const withSignature = diff.layers.some((l) => l.signature);
+  const head = ['depth', 'layer', 'op', 'relative change [95 % CI]', 'cosine', 'channel ratio', 'up / down', 'effect size'];
+  if (withSignature) head.push('signature slope');
+  head.push('vs floor');
+  const rows: Row[] = diff.layers.map((l) => {
+    const cells: HtmlValue[] = [
+      `${fmt(l.depth, 0)}${l.site ? ' ◆' : ''}`,
+      l.name,
+      l.op,
+      `${sci(l.relativeChange)}${interval(l.relativeChangeCi, sci)}`,
+      fmt(l.cosine, 4),
+      `${fmt(l.channelRatioMean)} ± ${fmt(l.channelRatioSd, 2)}`,
+      `${pct(l.fractionUp, 0)} / ${pct(l.fractionDown, 0)}`,
+      fmt(l.effectSize, 2),
+    ];
+    if (withSignature) cells.push(l.signature ? `${fmt(l.signature.slope)}${interval(l.signature.ci?.slope, fmt)}` : '');
+    cells.push(l.unchanged ? 'same file' : l.aboveFloor ? 'above' : 'below');
+    return l.site ? { cells, className: 'site' } : { cells };
+  });
+  const numeric = withSignature ? [0, 3, 4, 5, 6, 7, 8] : [0, 3, 4, 5, 6, 7];
+  return table(head, rows, numeric, `◆ modulation site · channel ratio = modulated ÷ baseline channel mean (mean ± sd over channels) · floor: ${diff.floor?.description ?? 'not given'}`);
+}
+
+function profileText(diff: DiffReport): string {
+  const p = diff.depthProfile;
+  if (!p) return '–';
+  const r2 = Number.isFinite(num(p.r2)) ? ` (r² ${fmt(p.r2, 2)})` : '';
+  if (p.halfDepth !== null && Number.isFinite(num(p.halfDepth))) return `halves every ${fmt(p.halfDepth, 1)} layers${r2}`;
+  if (p.doublingDepth !== null && Number.isFinite(num(p.doublingDepth))) return `doubles every ${fmt(p.doublingDepth, 1)} layers${r2}`;
+  return Number.isFinite(num(p.rate)) ? 'keeps its size' : 'too few layers to fit';
+}
+
+/**
+ * One row per diff run: how far the change survives above the floor, its depth profile and the task
+ * change.
+ * @param runs labelled diff reports (the label names the site).
+ */
+export function diffSummaryTable(runs: ReadonlyArray<{ label: string; diff: DiffReport }>): SafeHtml {
+  const rows: Row[] = runs.map(({ label, diff }) => ({
+    cells: [
+      label,
+      diff.survival?.layer ? `${diff.survival.layer} (${fmt(diff.survival.belowSite, 0)} below)` : 'not above the floor',
+      profileText(diff),
+      diff.task ? `${sgn(diff.task.change.dPrime)}${interval(diff.task.ci?.dPrime, (v) => fmt(v, 2))}` : '–',
+      diff.task ? `${sgn(diff.task.change.accuracyPp, 1)} pp` : '–',
+    ],
+  }));
+  return table(['run', 'above the floor down to', 'depth profile', 'Δd′ [95 % CI]', 'Δaccuracy'], rows, [3, 4]);
+}
+
+/**
+ * The detection read-out of one diff: per category and the mean, baseline → modulated.
+ * @param task the diff's task report.
+ */
+export function taskTable(task: TaskReport): SafeHtml {
+  const arrow = (a: unknown, b: unknown, d = 2) => `${fmt(a, d)} → ${fmt(b, d)}`;
+  const rows: Row[] = task.categories.map((c) => ({
+    cells: [c.category, fmt(c.threshold, 2), arrow(c.base.hitRate, c.mod.hitRate), arrow(c.base.falseAlarmRate, c.mod.falseAlarmRate), arrow(c.base.dPrime, c.mod.dPrime), arrow(c.base.criterion, c.mod.criterion), `${pct(c.base.accuracy)} → ${pct(c.mod.accuracy)}`, `${sgn(c.change.dPrime)}${interval(c.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(c.change.accuracyPp, 1)} pp`],
+  }));
+  rows.push({
+    className: 'mean',
+    cells: ['mean', '', arrow(task.base.hitRate, task.mod.hitRate), arrow(task.base.falseAlarmRate, task.mod.falseAlarmRate), arrow(task.base.dPrime, task.mod.dPrime), arrow(task.base.criterion, task.mod.criterion), `${pct(task.base.accuracy)} → ${pct(task.mod.accuracy)}`, `${sgn(task.change.dPrime)}${interval(task.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(task.change.accuracyPp, 1)} pp`],
+  });
+  return table(['category', 'threshold', 'hit rate', 'false alarms', 'd′', 'criterion', 'accuracy', 'Δd′ [95 % CI]', 'Δaccuracy'], rows, [1, 2, 3, 4, 5, 6, 7, 8], `detection from "${task.readout}" · ${task.thresholdRule} · base → modulated`);
+}
+
+/**
+ * Side-by-side relative change of two schemes, per layer.
+ * @param comparison the scheme comparison.
+ * @param labels what A and B are called on the page.
+ */
+export function comparisonTable(comparison: SchemeComparison, labels: readonly [string, string]): SafeHtml {
+  const rows: Row[] = comparison.layers.map((l, i) => {
+    const site = comparison.a.layers[i]?.site === true || comparison.b.layers[i]?.site === true;
+    const cells = [`${fmt(l.depth, 0)}${site ? ' ◆' : ''}`, l.name, sci(l.a), sci(l.b), l.larger === 'equal' ? '=' : l.larger === 'a' ? 'A' : 'B', l.separated ? 'yes' : 'no'];
+    return site ? { cells, className: 'site' } : { cells };
+  });
+  return table(['depth', 'layer', 'A: relative change', 'B: relative change', 'larger', 'intervals apart'], rows, [0, 2, 3], html`A = ${labels[0]} · B = ${labels[1]}`);
+}
+
+/**
+ * The best cell of every site (largest mean d′ change) from a sweep.
+ * @param sweep the sweep result.
+ */
+export function bestCellsTable(sweep: SweepResult): SafeHtml {
+  const rows: Row[] = (sweep.best ?? []).map((b) => ({ cells: [b.site, b.scheme, fmt(b.strength, 2), sgn(b.dPrimeChange), `${sgn(b.accuracyPp, 1)} pp`, pct(b.siteActivityChange)] }));
+  return table(['site', 'best scheme', 'strength', 'Δd′', 'Δaccuracy', 'activity change'], rows, [2, 3, 4, 5], 'means over cued categories (and control seeds); activity change: mean |gain − 1| at the site');
+}
+
+/**
+ * Per site and scheme: the strength with the largest mean d′ change, that change, and the change at the
+ * largest strength swept.
+ * @param points rows from `taskCurves`.
+ */
+export function sweepTaskTable(points: readonly TaskCurvePoint[]): SafeHtml {
+  const groups = new Map<string, TaskCurvePoint[]>();
+  for (const p of points) {
+    const key = JSON.stringify([p.site, p.scheme]);
+    groups.set(key, [...(groups.get(key) ?? []), p]);
+  }
+  const rows: Row[] = [...groups.values()].map((list) => {
+    const finite = list.filter((p) => Number.isFinite(p.dPrimeChange));
+    const best = finite.reduce<TaskCurvePoint | null>((acc, p) => (acc === null || p.dPrimeChange > acc.dPrimeChange ? p : acc), null);
+    const last = list[list.length - 1]!;
+    const spread = last.high > last.low ? ` (${sgn(last.low)} … ${sgn(last.high)})` : '';
+    return { cells: [list[0]!.site, list[0]!.scheme, best ? fmt(best.strength, 2) : '–', best ? sgn(best.dPrimeChange) : '–', best ? `${sgn(best.accuracyPp, 1)} pp` : '–', `${sgn(last.dPrimeChange)}${spread}`] };
+  });
+  const top = points.length > 0 ? Math.max(...points.map((p) => p.strength).filter(Number.isFinite)) : Number.NaN;
+  return table(['site', 'scheme', 'best strength', 'Δd′', 'Δaccuracy', `Δd′ at ${fmt(top, 2)}`], rows, [2, 3, 4, 5], 'means over cued categories and control seeds; in brackets the range over control seeds');
+}
+
+/**
+ * Calibration of a sweep: per site and scheme, the smallest strength reaching the target and the
+ * activity change it implies, against the rule-of-thumb band.
+ * @param sweep the sweep result.
+ * @returns the table, or null when the sweep has no calibration.
+ */
+export function calibrationTable(sweep: SweepResult): SafeHtml | null {
+  const list = sweep.calibration ?? [];
+  if (list.length === 0) return null;
+  const rows: Row[] = list.map((c) => ({ cells: [c.site, c.scheme, c.target, c.strength === null ? 'not reached' : fmt(c.strength, 3), c.siteActivityChange === null ? '–' : pct(c.siteActivityChange), c.withinBand === null ? '–' : c.withinBand ? 'inside' : 'outside'] }));
+  const band = sweep.band ? `band ${pct(sweep.band.low, 0)}–${pct(sweep.band.high, 0)} (${sweep.band.source})` : 'no band given';
+  return table(['site', 'scheme', 'target', 'strength', 'implied activity change', 'band'], rows, [3, 4], band);
+}
+
+/**
+ * Per-layer tuning–sensitivity agreement: pooled Pearson r and Spearman ρ, and r per category.
+ * @param agreement the table comparison.
+ */
+export function agreementTable(agreement: TableComparison): SafeHtml {
+  const categories = agreement.categories ?? [];
+  const rows: Row[] = agreement.layers.map((l) => ({ cells: [fmt(l.depth, 0), l.layer, fmt(l.channels, 0), fmt(l.pooled.pearson), fmt(l.pooled.spearman), ...categories.map((c) => fmt(l.byCategory?.find((b) => b.category === c)?.pearson, 2))] }));
+  const numeric = [0, 2, 3, 4, ...categories.map((_, i) => 5 + i)];
+  const scale = agreement.sensitivityScale === 'raw' ? 'raw sensitivities (one shared category)' : 'sensitivities z-scored across categories';
+  return table(['depth', 'layer', 'channels', 'pooled r', 'pooled ρ', ...categories.map((c) => `r ${c}`)], rows, numeric, `tuning value vs ${scale}, across channels`);
+}
+
+/**
+ * Per-layer tuning summary: fraction of selective channels, mean selectivity, flagged channels.
+ * @param tuning tuning summaries.
+ */
+export function tuningTable(tuning: TuningSummaries): SafeHtml {
+  const rows: Row[] = tuning.layers.map((l) => ({ cells: [fmt(l.depth, 0), l.layer, l.op ?? '', fmt(l.channels, 0), pct(l.selectiveFraction, 0), fmt(l.meanSelectivity), fmt(l.zeroVarianceChannels, 0), fmt(l.nonFiniteChannels, 0)] }));
+  const index = Number.isFinite(num(tuning.selectiveIndex)) ? `selective: index ≥ ${fmt(tuning.selectiveIndex, 2)} (preferred category at least twice the others)` : undefined;
+  return table(['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], rows, [0, 3, 4, 5, 6, 7], index);
+}
