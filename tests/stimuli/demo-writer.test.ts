@@ -71,7 +71,7 @@ describe('makeStimulusSet', () => {
       expect(mismatches).toBe(0);
     }
     const description = JSON.parse(await readFile(join(out, 'set.json'), 'utf8')) as Record<string, unknown>;
-    expect(description).toMatchObject({ seed: 5, count: 4, cued: 'cross', clutter: 0.5, noise: 0.1, generatorVersion: 1, format: 'png' });
+    expect(description).toMatchObject({ seed: 5, count: 4, cued: 'cross', clutter: 0.6, noise: 0.18, generatorVersion: 1, format: 'png' });
     expect(summary.kindCounts.cross).toBe(2);
   });
 

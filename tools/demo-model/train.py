@@ -20,6 +20,7 @@ import json
 import os
 import sys
 import time
+from collections import OrderedDict
 
 import numpy as np
 import torch
@@ -36,22 +37,51 @@ STAGES = [  # (in channels, out channels, stride, max-pool after); 3x3 kernels, 
 ]
 
 
+INPUT_CENTRE = 0.5  # the graph maps raw [0, 1] pixels to (x - 0.5) / 0.25 itself
+INPUT_SCALE = 0.25
+
+
 class GlyphNet(nn.Module):
-    def __init__(self, kinds):
+    """Conv (+ BatchNorm while training) + ReLU stages, global average pooling, linear readout."""
+
+    def __init__(self, kinds, batchnorm):
         super().__init__()
-        self.stages = nn.ModuleList()
-        for cin, cout, stride, pool in STAGES:
-            layers = [nn.Conv2d(cin, cout, 3, stride=stride, padding=1), nn.ReLU()]
+        self.stages = []
+        for number, (cin, cout, stride, pool) in enumerate(STAGES, start=1):
+            layers = OrderedDict(conv=nn.Conv2d(cin, cout, 3, stride=stride, padding=1))
+            if batchnorm:
+                layers["norm"] = nn.BatchNorm2d(cout)
+            layers["relu"] = nn.ReLU()
             if pool:
-                layers.append(nn.MaxPool2d(2))
-            self.stages.append(nn.Sequential(*layers))
-        self.classifier = nn.Linear(STAGES[-1][1], kinds)
+                layers["pool"] = nn.MaxPool2d(2)
+            stage = nn.Sequential(layers)
+            self.add_module(f"conv{number}", stage)  # ONNX tensor names follow: /conv3/relu/Relu_output_0
+            self.stages.append(stage)
+        self.readout = nn.Linear(STAGES[-1][1], kinds)
 
     def forward(self, x):
+        x = (x - INPUT_CENTRE) / INPUT_SCALE
         for stage in self.stages:
             x = stage(x)
         x = x.mean(dim=(2, 3))
-        return self.classifier(x)
+        return self.readout(x)
+
+
+def fold_batchnorm(trained, kinds):
+    """A BatchNorm-free copy of `trained` (eval mode): each BN is folded into the convolution before it,
+    w' = w * g / sqrt(v + eps), b' = (b - m) * g / sqrt(v + eps) + beta."""
+    folded = GlyphNet(kinds, batchnorm=False)
+    with torch.no_grad():
+        for source, target in zip(trained.stages, folded.stages):
+            if not hasattr(source, "norm"):
+                target.conv.load_state_dict(source.conv.state_dict())
+                continue
+            norm = source.norm
+            scale = norm.weight / torch.sqrt(norm.running_var + norm.eps)
+            target.conv.weight.copy_(source.conv.weight * scale[:, None, None, None])
+            target.conv.bias.copy_((source.conv.bias - norm.running_mean) * scale + norm.bias)
+        folded.readout.load_state_dict(trained.readout.state_dict())
+    return folded.eval()
 
 
 def load_set(folder, kinds=None):
@@ -100,6 +130,7 @@ def main():
     parser.add_argument("--lr", type=float, default=2e-3)
     parser.add_argument("--threads", type=int, default=2)
     parser.add_argument("--constant-lr", action="store_true")
+    parser.add_argument("--no-batchnorm", action="store_true")
     parser.add_argument("--eval", nargs="*", default=[])
     args = parser.parse_args()
 
@@ -109,7 +140,7 @@ def main():
     description, kinds, pixels, targets = load_set(args.data)
     print(f"data: {len(pixels)} displays, kinds {kinds}, per-kind prevalence {targets.mean(0).numpy().round(3)}", flush=True)
 
-    model = GlyphNet(len(kinds))
+    model = GlyphNet(len(kinds), batchnorm=not args.no_batchnorm)
     optimiser = torch.optim.Adam(model.parameters(), lr=args.lr)
     steps_per_epoch = (len(pixels) + args.batch - 1) // args.batch
     if args.constant_lr:
@@ -144,6 +175,14 @@ def main():
 
     wall = time.time() - started
     model.eval()
+    trained = model
+    model = fold_batchnorm(trained, len(kinds))
+    with torch.no_grad():
+        probe = pixels[:256].float() / 255
+        gap = (model(probe) - trained(probe)).abs().max().item()
+    print(f"folded BatchNorm into the convolutions: max |logit difference| on 256 displays = {gap:.2e}")
+    if gap > 1e-3:
+        sys.exit("BatchNorm folding changed the logits; not exporting")
     for folder in args.eval:
         kind, h, f, acc = cued_accuracy(model, folder, kinds)
         print(f"  {kind:9s} H {h:.3f}  F {f:.3f}  accuracy {acc:.3f}")
@@ -160,23 +199,88 @@ def main():
         dynamic_axes={"input": {0: "batch"}, "logits": {0: "batch"}},
         do_constant_folding=True,
     )
-    data_description = {k: description[k] for k in description if k != "format"}
-    training = {
-        "seed": args.seed,
-        "command": " ".join(["/usr/bin/python3", "tools/demo-model/train.py"] + sys.argv[1:]),
-        "data": data_description,
-        "epochs": args.epochs,
-        "batch": args.batch,
-        "learningRate": args.lr,
-        "threads": args.threads,
-        "wallSeconds": round(wall, 1),
-        "lossPerEpoch": history,
-        "torch": torch.__version__,
+    data_command = (
+        f"./bin/sonde stimuli make --out {args.data} --count {description['count']} --seed {description['seed']}"
+        f" --clutter {description['clutter']} --noise {description['noise']} --format npy"
+    )
+    sidecar = {
+        "input": {"name": "input", "shape": ["batch", 3, 64, 64], "dtype": "float32"},
+        "preprocessing": {"size": [64, 64], "scale": "0-1", "mean": [0.0, 0.0, 0.0], "std": [1.0, 1.0, 1.0]},
+        "outputs": {"name": "logits", "kinds": kinds},
+        "layers": describe_layers(onnx_path),
+        "notes": "RGB in [0, 1] (no mean/std to apply: the graph computes (x - 0.5) / 0.25 itself). "
+        "BatchNorm was used in training and is folded into the convolutions. Multi-label: one logit per kind, "
+        "sigmoid > 0.5 (logit > 0) means present.",
+        "training": {
+            "seed": args.seed,
+            "command": " ".join(["/usr/bin/python3", "tools/demo-model/train.py"] + sys.argv[1:]),
+            "dataCommand": data_command,
+            "dataSeed": description["seed"],
+            "data": {k: description[k] for k in description if k != "format"},
+            "epochs": args.epochs,
+            "batch": args.batch,
+            "learningRate": args.lr,
+            "threads": args.threads,
+            "wallSeconds": round(wall, 1),
+            "lossPerEpoch": history,
+            "torch": torch.__version__,
+        },
     }
-    with open(os.path.join(args.out, "training.json"), "w") as f:
-        json.dump(training, f, indent=2)
+    with open(os.path.join(args.out, "glyphnet.json"), "w") as f:
+        json.dump(sidecar, f, indent=2)
         f.write("\n")
-    print(f"wrote {onnx_path} ({os.path.getsize(onnx_path)} bytes) in {wall:.0f} s")
+    if args.eval:
+        write_reference(model, args.eval[0], kinds, os.path.join(args.out, "reference-logits.json"))
+    print(f"wrote {onnx_path} ({os.path.getsize(onnx_path)} bytes) and glyphnet.json; training took {wall:.0f} s")
+
+
+OPTION_FIELDS = ["seed", "count", "kinds", "clutter", "noise", "contrast", "glyphRadius", "maxGlyphs", "cued"]
+
+
+def write_reference(model, folder, kinds, path, count=8):
+    """Logits of the exported (folded, eval-mode) PyTorch model on the first `count` displays of `folder`,
+    with the generator options that rebuild those displays; the ONNX runtime test compares against them."""
+    description, _, pixels, _ = load_set(folder, kinds)
+    with torch.no_grad():
+        logits = model(pixels[:count].float() / 255)
+    reference = {
+        "source": "PyTorch " + torch.__version__ + ", tools/demo-model/train.py, BatchNorm folded, eval mode",
+        "set": {k: description[k] for k in OPTION_FIELDS},
+        "indices": list(range(count)),
+        "logits": [[round(float(v), 6) for v in row] for row in logits],
+    }
+    with open(path, "w") as f:
+        json.dump(reference, f, indent=1)
+        f.write("\n")
+
+
+def describe_layers(onnx_path):
+    """The tensors worth recording, read from the exported graph: each conv stage's ReLU output, the max-pool
+    outputs, the global average pool and the logits, with a short stage label and the per-display shape."""
+    import onnx
+
+    model = onnx.shape_inference.infer_shapes(onnx.load(onnx_path))
+    shapes = {}
+    for info in list(model.graph.value_info) + list(model.graph.output):
+        dims = [d.dim_value if d.HasField("dim_value") else d.dim_param for d in info.type.tensor_type.shape.dim]
+        shapes[info.name] = dims[1:]
+    layers = []
+    stage = 0
+    for node in model.graph.node:
+        name = node.output[0]
+        if node.op_type == "Relu":
+            stage += 1
+            label = f"conv{stage}"
+        elif node.op_type == "MaxPool":
+            label = f"pool{stage}"
+        elif node.op_type == "ReduceMean":
+            label = "global-pool"
+        elif node.op_type == "Gemm":
+            label = "logits"
+        else:
+            continue
+        layers.append({"name": name, "stage": label, "shape": shapes.get(name)})
+    return layers
 
 
 if __name__ == "__main__":

@@ -26,13 +26,13 @@ export interface DemoDisplayOptions {
   count?: number;
   /** Glyph kinds that may appear (a non-empty subset of DEMO_KINDS, no repeats). Default: all eight. */
   kinds?: readonly DemoKind[];
-  /** Clutter level in [0, 1]: scales the number of small fragments and the background texture. Default 0.5. */
+  /** Clutter level in [0, 1]: scales the number of small fragments and the background texture. Default 0.6. */
   clutter?: number;
-  /** Standard deviation of the Gaussian pixel noise, in intensity units, in [0, 1]. Default 0.1. */
+  /** Standard deviation of the Gaussian pixel noise, in intensity units, in [0, 1]. Default 0.18. */
   noise?: number;
-  /** Luminance contrast of objects against the background, in [0, 1]. Default 0.3. */
+  /** Luminance contrast of objects against the background, in [0, 1]. Default 0.26. */
   contrast?: number;
-  /** Range [min, max] of glyph radii in pixels, 2 ≤ min ≤ max ≤ 16. Default [5, 9]. */
+  /** Range [min, max] of glyph radii in pixels, 2 ≤ min ≤ max ≤ 16. Default [4.5, 8.5]. */
   glyphRadius?: readonly [number, number];
   /** Most glyphs in one display (1–3; at least one is always drawn). Default 3. */
   maxGlyphs?: number;
@@ -57,10 +57,10 @@ export interface ResolvedDisplayOptions {
 export const DEFAULT_DISPLAY_OPTIONS: Readonly<Omit<ResolvedDisplayOptions, 'count'>> = {
   seed: 0,
   kinds: DEMO_KINDS,
-  clutter: 0.5,
-  noise: 0.1,
-  contrast: 0.3,
-  glyphRadius: [5, 9],
+  clutter: 0.6,
+  noise: 0.18,
+  contrast: 0.26,
+  glyphRadius: [4.5, 8.5],
   maxGlyphs: 3,
   cued: null,
 };
