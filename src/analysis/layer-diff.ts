@@ -98,6 +98,36 @@ export interface ChannelMeans {
   mod: Float32Array;
 }
 
+/** Everything a `LayerDiffAccumulator` holds (see `exportState`); arrays over stimuli have length N. */
+export interface LayerDiffState {
+  elements: number;
+  channels: number;
+  spatial: number;
+  tolerance: number;
+  layer: string;
+  keepChannelMeans: boolean;
+  /** N. */
+  stimuli: number;
+  /** Compensated pooled sums Σa², Σb², Σab, Σ(b−a)², each as value and compensation. [8]. */
+  pooled: Float64Array;
+  /** Pooled Pearson moments: count, mean a, mean b, M2 a, M2 b, co-moment. [6]. */
+  pearson: Float64Array;
+  /** Per channel across stimuli: mean and M2 of a_nk, mean of b_nk. [C] each. */
+  channelMeanA: Float64Array;
+  channelM2A: Float64Array;
+  channelMeanB: Float64Array;
+  nonFiniteBase: number;
+  nonFiniteMod: number;
+  zeroNormStimuli: number;
+  /** Per stimulus: relative change, Σ(b−a)², Σa². [N] each. */
+  stimulusChange: Float64Array;
+  stimulusDiffSquared: Float64Array;
+  stimulusBaseSquared: Float64Array;
+  /** Per-stimulus channel means [N, C], or null without keepChannelMeans. */
+  meansA: Float32Array | null;
+  meansB: Float32Array | null;
+}
+
 // Indices into the compensated pooled sums: value at 2*i, Neumaier compensation at 2*i + 1.
 const AA = 0;
 const BB = 1;
@@ -199,6 +229,82 @@ export class LayerDiffAccumulator {
   /** Stimuli accumulated so far. */
   get count(): number {
     return this.stimuli;
+  }
+
+  /**
+   * The complete internal state (copies), e.g. to store a shard's partial statistics and `merge` them
+   * elsewhere; `fromState` is its inverse: `fromState(a.exportState())` accumulates and finishes exactly
+   * like `a`.
+   * @returns plain numbers and typed arrays trimmed to the stimuli seen.
+   */
+  exportState(): LayerDiffState {
+    const N = this.stimuli;
+    const C = this.channels;
+    return {
+      elements: this.elements,
+      channels: C,
+      spatial: this.spatial,
+      tolerance: this.tolerance,
+      layer: this.layer,
+      keepChannelMeans: this.keepChannelMeans,
+      stimuli: N,
+      pooled: this.pooled.slice(),
+      pearson: Float64Array.of(this.pearsonCount, this.pearsonMeanA, this.pearsonMeanB, this.pearsonM2A, this.pearsonM2B, this.pearsonCoMoment),
+      channelMeanA: this.channelMeanA.slice(),
+      channelM2A: this.channelM2A.slice(),
+      channelMeanB: this.channelMeanB.slice(),
+      nonFiniteBase: this.nonFiniteBase,
+      nonFiniteMod: this.nonFiniteMod,
+      zeroNormStimuli: this.zeroNormStimuli,
+      stimulusChange: this.stimulusChange.slice(0, N),
+      stimulusDiffSquared: this.stimulusDiffSquared.slice(0, N),
+      stimulusBaseSquared: this.stimulusBaseSquared.slice(0, N),
+      meansA: this.keepChannelMeans ? this.meansA.slice(0, N * C) : null,
+      meansB: this.keepChannelMeans ? this.meansB.slice(0, N * C) : null,
+    };
+  }
+
+  /**
+   * Rebuilds an accumulator from `exportState()`.
+   * @throws UsageError when the state's sizes are inconsistent (wrong array lengths, bad shape).
+   */
+  static fromState(state: LayerDiffState): LayerDiffAccumulator {
+    const N = state.stimuli;
+    const C = state.channels;
+    const accumulator = new LayerDiffAccumulator({ elements: state.elements, channels: C, spatial: state.spatial, tolerance: state.tolerance, layer: state.layer, keepChannelMeans: state.keepChannelMeans, expectedStimuli: Math.max(N, 1) });
+    const lengths: Array<[string, number, number]> = [
+      ['pooled', state.pooled.length, 8],
+      ['pearson', state.pearson.length, 6],
+      ['channelMeanA', state.channelMeanA.length, C],
+      ['channelM2A', state.channelM2A.length, C],
+      ['channelMeanB', state.channelMeanB.length, C],
+      ['stimulusChange', state.stimulusChange.length, N],
+      ['stimulusDiffSquared', state.stimulusDiffSquared.length, N],
+      ['stimulusBaseSquared', state.stimulusBaseSquared.length, N],
+      ['meansA', state.meansA?.length ?? 0, state.keepChannelMeans ? N * C : 0],
+      ['meansB', state.meansB?.length ?? 0, state.keepChannelMeans ? N * C : 0],
+    ];
+    if (!Number.isSafeInteger(N) || N < 0) throw new UsageError('E_DIFF_STATE', `${state.layer}: state has ${String(N)} stimuli`);
+    for (const [name, got, wanted] of lengths) {
+      if (got !== wanted) throw new UsageError('E_DIFF_STATE', `${state.layer}: state field ${name} has ${got} values, expected ${wanted}`);
+    }
+    accumulator.stimuli = N;
+    accumulator.pooled.set(state.pooled);
+    [accumulator.pearsonCount, accumulator.pearsonMeanA, accumulator.pearsonMeanB, accumulator.pearsonM2A, accumulator.pearsonM2B, accumulator.pearsonCoMoment] = Array.from(state.pearson) as [number, number, number, number, number, number];
+    accumulator.channelMeanA.set(state.channelMeanA);
+    accumulator.channelM2A.set(state.channelM2A);
+    accumulator.channelMeanB.set(state.channelMeanB);
+    accumulator.nonFiniteBase = state.nonFiniteBase;
+    accumulator.nonFiniteMod = state.nonFiniteMod;
+    accumulator.zeroNormStimuli = state.zeroNormStimuli;
+    accumulator.stimulusChange.set(state.stimulusChange);
+    accumulator.stimulusDiffSquared.set(state.stimulusDiffSquared);
+    accumulator.stimulusBaseSquared.set(state.stimulusBaseSquared);
+    if (state.meansA && state.meansB) {
+      accumulator.meansA.set(state.meansA);
+      accumulator.meansB.set(state.meansB);
+    }
+    return accumulator;
   }
 
   /**

@@ -1,0 +1,307 @@
+/**
+ * `checkSnapshot`: verifies a snapshot folder against its manifest and says exactly what is wrong —
+ * manifest schema and format version, paths inside the folder, each file's size and SHA-256, each layer
+ * file's Arrow schema (index int32, channel_mean FixedSizeList<float32>[C], activation
+ * FixedSizeList<float32|float16>[E] with the shape in its field metadata), row counts and the index
+ * column (consecutive global indices from the snapshot's first stimulus), `stimuli.arrow` (rows, index,
+ * listing digest, per-stimulus digests against the stimuli digest), and the pairing with a baseline
+ * (present, unchanged since — its manifest hash —, same model and stimuli, same layers).
+ *
+ * Reading is streamed: one record batch at a time, files hashed in 4 MiB chunks. Nothing is written.
+ */
+import { createHash } from 'node:crypto';
+import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, statSync } from 'node:fs';
+import { open } from 'node:fs/promises';
+import { join, resolve } from 'node:path';
+import { DataType, RecordBatchReader, tableFromIPC, type Field, type Schema } from 'apache-arrow';
+import { SondeError } from '../errors.js';
+import { listingDigest } from '../stimuli/source.js';
+import { readLockOwner, isStale, LOCK_FILE } from './lock.js';
+import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
+import { assertInside, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
+import { STIMULUS_DIGEST_BYTES, stimuliDigest } from './stimuli-file.js';
+
+/** One thing that is wrong. */
+export interface CheckProblem {
+  /** What it concerns: `manifest.json`, a file path relative to the snapshot, or `baseline`. */
+  subject: string;
+  /** One line saying what is wrong. */
+  message: string;
+}
+
+/** The result of `checkSnapshot`. */
+export interface CheckReport {
+  folder: string;
+  /** True when there are no problems. */
+  ok: boolean;
+  /** What the manifest says (false also when it cannot be read). */
+  complete: boolean;
+  problems: CheckProblem[];
+  /** Observations that are not errors (leftover temporary files, a shard's listing digest). */
+  notes: string[];
+  /** What was verified. */
+  checked: { layerFiles: number; bytes: number; stimuli: number; baseline: boolean };
+}
+
+/**
+ * Checks a snapshot folder (see the file comment).
+ * @param folder the snapshot folder.
+ * @returns every problem found, in the order checked; never throws for bad content.
+ * Edge cases: an incomplete snapshot is one problem (its files are partial and not checked further); a
+ * layer referenced from the baseline is checked in the baseline's folder.
+ */
+export async function checkSnapshot(folder: string): Promise<CheckReport> {
+  const root = resolve(folder);
+  const problems: CheckProblem[] = [];
+  const notes: string[] = [];
+  const checked = { layerFiles: 0, bytes: 0, stimuli: 0, baseline: false };
+  const report = (complete: boolean): CheckReport => ({ folder: root, ok: problems.length === 0, complete, problems, notes, checked });
+  const problem = (subject: string, message: string) => problems.push({ subject, message });
+
+  const manifestPath = join(root, 'manifest.json');
+  if (!existsSync(root) || !statSync(root).isDirectory()) {
+    problem(folder, 'is not a folder');
+    return report(false);
+  }
+  if (!existsSync(manifestPath)) {
+    problem('manifest.json', 'is missing: this folder is not a snapshot');
+    return report(false);
+  }
+  let manifest: SnapshotManifest;
+  try {
+    manifest = validateManifest(JSON.parse(readFileSync(manifestPath, 'utf8')), folder);
+  } catch (error) {
+    problem('manifest.json', error instanceof SyntaxError ? `is not valid JSON (${error.message})` : firstLine(error));
+    return report(false);
+  }
+  noteLeftovers(root, notes);
+  if (!manifest.complete) {
+    problem('manifest.json', `says the snapshot is incomplete${manifest.error ? ` (${manifest.error})` : ' (the recording did not finish)'}${existsSync(join(root, 'progress.json')) ? '; `sonde record ... --resume` can continue it' : ''}`);
+    return report(false);
+  }
+  const firstIndex = manifest.shard ? manifest.shard.stimuli[0] : 0;
+  const count = manifest.stimuli.count;
+  let baselineRoot: string | null = null;
+  if (manifest.baseline) {
+    baselineRoot = resolve(root, manifest.baseline.path);
+    checked.baseline = true;
+    checkBaseline(manifest, baselineRoot, problem);
+  }
+
+  for (const entry of manifest.layers) {
+    let path: string;
+    let subject = entry.file;
+    try {
+      if (entry.from === 'baseline') {
+        if (!baselineRoot) continue;
+        path = assertInside(baselineRoot, entry.file, `baseline layer "${entry.name}" file`);
+        subject = `baseline ${entry.file}`;
+      } else path = assertInside(root, entry.file, `layer "${entry.name}" file`);
+    } catch (error) {
+      problem(entry.file, firstLine(error));
+      continue;
+    }
+    if (!existsSync(path) || !statSync(path).isFile()) {
+      problem(subject, `is missing (layer "${entry.name}")`);
+      continue;
+    }
+    checked.layerFiles++;
+    const size = statSync(path).size;
+    checked.bytes += size;
+    if (entry.bytes === undefined || entry.sha256 === undefined || entry.rows === undefined) problem(subject, `layer "${entry.name}" has no recorded size, SHA-256 or row count in the manifest`);
+    if (entry.bytes !== undefined && size !== entry.bytes) problem(subject, `is ${size} bytes, the manifest says ${entry.bytes} (truncated or changed after recording)`);
+    else if (entry.sha256 !== undefined && hashFile(path) !== entry.sha256) problem(subject, 'SHA-256 differs from the manifest (the file changed after recording)');
+    await checkLayerFile(path, subject, entry, firstIndex, count, problem);
+  }
+  checkStimuli(root, manifest, firstIndex, problem, notes);
+  checked.stimuli = count;
+  return report(true);
+}
+
+function firstLine(error: unknown): string {
+  const text = error instanceof SondeError || error instanceof Error ? error.message : String(error);
+  return (text.split('\n')[0] ?? '').replace(/^.*?manifest\.json: /, '');
+}
+
+/** SHA-256 of a file, read in 4 MiB chunks. */
+function hashFile(path: string): string {
+  const hash = createHash('sha256');
+  const fd = openSync(path, 'r');
+  try {
+    const chunk = new Uint8Array(1 << 22);
+    for (;;) {
+      const read = readSync(fd, chunk, 0, chunk.length, null);
+      if (read <= 0) break;
+      hash.update(chunk.subarray(0, read));
+    }
+  } finally {
+    closeSync(fd);
+  }
+  return hash.digest('hex');
+}
+
+function noteLeftovers(root: string, notes: string[]): void {
+  const leftovers: string[] = [];
+  for (const name of ['progress.json', 'stimuli.digests.partial', 'manifest.json.partial', 'stimuli.arrow.partial']) if (existsSync(join(root, name))) leftovers.push(name);
+  if (existsSync(join(root, 'layers'))) {
+    for (const name of readdirSync(join(root, 'layers'))) if (name.endsWith('.partial')) leftovers.push(`layers/${name}`);
+  }
+  if (leftovers.length > 0) notes.push(`temporary files left by an interrupted write: ${leftovers.join(', ')}`);
+  const owner = existsSync(join(root, LOCK_FILE)) ? readLockOwner(join(root, LOCK_FILE)) : null;
+  if (owner) notes.push(isStale(owner) ? `stale lock of pid ${owner.pid} (no longer running)` : `locked by pid ${owner.pid} on ${owner.host} since ${owner.started}: it may be writing right now`);
+}
+
+function checkBaseline(manifest: SnapshotManifest, baselineRoot: string, problem: (s: string, m: string) => void): void {
+  const path = join(baselineRoot, 'manifest.json');
+  if (!existsSync(path)) {
+    problem('baseline', `${manifest.baseline!.path} (${baselineRoot}) is missing or not a snapshot`);
+    return;
+  }
+  const bytes = readFileSync(path);
+  if (createHash('sha256').update(bytes).digest('hex') !== manifest.baseline!.manifestSha256) {
+    problem('baseline', `${manifest.baseline!.path}: its manifest changed since this snapshot was recorded (manifest SHA-256 differs); the pairing no longer holds`);
+  }
+  let base: SnapshotManifest;
+  try {
+    base = validateManifest(JSON.parse(bytes.toString('utf8')), baselineRoot);
+  } catch (error) {
+    problem('baseline', firstLine(error));
+    return;
+  }
+  if (!base.complete) problem('baseline', `${manifest.baseline!.path} is incomplete`);
+  if (base.model.sha256 !== manifest.model.sha256) problem('baseline', `${manifest.baseline!.path} was recorded from another model`);
+  if (base.stimuli.digest !== manifest.stimuli.digest) problem('baseline', `${manifest.baseline!.path} was recorded on other stimuli (stimuli digests differ)`);
+  if (base.layers.map((l) => l.name).join('\n') !== manifest.layers.map((l) => l.name).join('\n')) problem('baseline', `${manifest.baseline!.path} recorded other layers`);
+}
+
+function describeType(type: DataType): string {
+  return String(type);
+}
+
+/** Schema and rows of one layer file. */
+async function checkLayerFile(path: string, subject: string, entry: ManifestLayer, firstIndex: number, count: number, problem: (s: string, m: string) => void): Promise<void> {
+  const channels = channelCount(entry.shape);
+  const elements = channels * spatialSize(entry.shape);
+  const handle = await open(path, 'r');
+  try {
+    let reader;
+    try {
+      reader = await RecordBatchReader.from(handle);
+      await reader.open();
+    } catch (error) {
+      problem(subject, `is not a readable Arrow file (${firstLine(error)})`);
+      return;
+    }
+    if (!reader.isFile()) {
+      problem(subject, 'is not in Arrow IPC file format');
+      return;
+    }
+    const schemaProblem = layerSchemaProblem(reader.schema, entry, channels, elements);
+    if (schemaProblem) {
+      problem(subject, schemaProblem);
+      return;
+    }
+    let rows = 0;
+    let next = firstIndex;
+    for (let b = 0; b < reader.numRecordBatches; b++) {
+      let batch;
+      try {
+        batch = await reader.readRecordBatch(b);
+      } catch (error) {
+        problem(subject, `batch ${b} cannot be read (${firstLine(error)})`);
+        return;
+      }
+      if (!batch) break;
+      const index = batch.getChild('index')!.toArray() as Int32Array;
+      for (let r = 0; r < index.length; r++) {
+        if (index[r] !== next) {
+          problem(subject, `row ${rows + r} has stimulus index ${index[r]}, expected ${next} (indices must run ${firstIndex}..${firstIndex + count - 1} in order)`);
+          return;
+        }
+        next++;
+      }
+      rows += batch.numRows;
+    }
+    if (entry.rows !== undefined && rows !== entry.rows) problem(subject, `holds ${rows} rows, the manifest says ${entry.rows}`);
+    if (rows !== count) problem(subject, `holds ${rows} rows, the snapshot has ${count} stimuli`);
+  } finally {
+    await handle.close();
+  }
+}
+
+function layerSchemaProblem(schema: Schema, entry: ManifestLayer, channels: number, elements: number): string | null {
+  const names = schema.fields.map((f) => f.name);
+  const wanted = entry.keep === 'full' ? ['index', 'channel_mean', 'activation'] : ['index', 'channel_mean'];
+  if (names.join(',') !== wanted.join(',')) return `has columns [${names.join(', ')}], expected [${wanted.join(', ')}] (keep = ${entry.keep})`;
+  const [index, means, activation] = schema.fields as [Field, Field, Field | undefined];
+  if (!DataType.isInt(index.type) || index.type.bitWidth !== 32) return `column index is ${describeType(index.type)}, expected int32`;
+  const list = (field: Field, width: number, item: 'float32' | 'float16'): string | null => {
+    if (!DataType.isFixedSizeList(field.type)) return `column ${field.name} is ${describeType(field.type)}, expected a fixed-size list of ${width} ${item}`;
+    if (field.type.listSize !== width) return `column ${field.name} has ${field.type.listSize} values per row, the manifest shape [${entry.shape.join(', ')}] gives ${width}`;
+    const child = field.type.children[0]!.type;
+    const precision = DataType.isFloat(child) ? child.precision : -1;
+    if (precision !== (item === 'float16' ? 0 : 1)) return `column ${field.name} holds ${describeType(child)}, expected ${item}`;
+    return null;
+  };
+  const meanProblem = list(means, channels, 'float32');
+  if (meanProblem) return meanProblem;
+  if (activation) {
+    const activationProblem = list(activation, elements, entry.dtype);
+    if (activationProblem) return activationProblem;
+    const shape = activation.metadata.get(SHAPE_METADATA_KEY);
+    if (shape !== JSON.stringify(entry.shape)) return `column activation carries shape ${shape ?? 'none'}, the manifest says ${JSON.stringify(entry.shape)}`;
+  }
+  return null;
+}
+
+function checkStimuli(root: string, manifest: SnapshotManifest, firstIndex: number, problem: (s: string, m: string) => void, notes: string[]): void {
+  const path = join(root, 'stimuli.arrow');
+  if (!existsSync(path)) {
+    problem('stimuli.arrow', 'is missing');
+    return;
+  }
+  let table;
+  try {
+    table = tableFromIPC(readFileSync(path));
+  } catch (error) {
+    problem('stimuli.arrow', `is not a readable Arrow file (${firstLine(error)})`);
+    return;
+  }
+  const count = manifest.stimuli.count;
+  if (table.numRows !== count) problem('stimuli.arrow', `holds ${table.numRows} rows, the manifest says ${count} stimuli`);
+  const index = table.getChild('index');
+  const ids = table.getChild('id');
+  const labelColumn = table.getChild('labels');
+  if (!index || !ids || !labelColumn) {
+    problem('stimuli.arrow', `lacks the ${['index', 'id', 'labels'].filter((n) => !table.getChild(n)).join(', ')} column`);
+    return;
+  }
+  for (let i = 0; i < table.numRows; i++) {
+    if (index.get(i) !== firstIndex + i) {
+      problem('stimuli.arrow', `row ${i} has index ${String(index.get(i))}, expected ${firstIndex + i}`);
+      break;
+    }
+  }
+  if (manifest.shard) notes.push('the listing digest covers the whole listing and is checked when the shards are merged');
+  else {
+    const idList = (ids.toArray() as string[]).map(String);
+    const labels: string[][] = [];
+    for (let i = 0; i < table.numRows; i++) labels.push(Array.from((labelColumn.get(i) as { toArray(): string[] } | null)?.toArray() ?? []).map(String));
+    if (listingDigest({ ids: idList, labels }) !== manifest.stimuli.listingDigest) problem('stimuli.arrow', 'ids and labels do not match the listing digest in the manifest');
+  }
+  const digests = table.getChild('sha256');
+  if (!digests) {
+    problem('stimuli.arrow', 'has no per-stimulus sha256 column, so the stimuli digest cannot be verified');
+    return;
+  }
+  const bytes = new Uint8Array(table.numRows * STIMULUS_DIGEST_BYTES);
+  for (let i = 0; i < table.numRows; i++) {
+    const hex = String(digests.get(i));
+    if (!/^[0-9a-f]{64}$/.test(hex)) {
+      problem('stimuli.arrow', `row ${i} has no valid sha256`);
+      return;
+    }
+    bytes.set(Buffer.from(hex, 'hex'), i * STIMULUS_DIGEST_BYTES);
+  }
+  if (stimuliDigest(bytes) !== manifest.stimuli.digest) problem('stimuli.arrow', 'the per-stimulus digests do not give the stimuli digest in the manifest');
+}
