@@ -168,23 +168,153 @@ export async function diffSnapshots(options: DiffOptions): Promise<DiffReport | 
 }
 
 async function diffOne(base: Snapshot, mod: Snapshot, options: DiffOptions): Promise<DiffReport> {
+  return finishDiff(await collectDiff(base, mod, options), options);
+}
+
+/** One layer's statistics gathered by `collectDiff`. */
+export interface CollectedLayer {
+  name: string;
+  op: string;
+  depth: number;
+  /** Storage types of the two sides (they set the roundoff floor). */
+  baseDtype: string;
+  modDtype: string;
+  /** The modulated side references the baseline's file. */
+  unchanged: boolean;
+  /** Baseline versus modulated. */
+  accumulator: LayerDiffAccumulator;
+  /** Baseline versus the floor snapshot, when one is given. */
+  floor: LayerDiffAccumulator | null;
+  /** Tuning values for the signature, when a tuning lookup gives them. */
+  tuning: Float64Array | null;
+}
+
+/** The read-out scores gathered by `collectDiff` for the detection task. */
+export interface CollectedTask {
+  /** Readout layer and the category of each unit. */
+  readout: string;
+  kinds: string[];
+  modelThreshold: number | undefined;
+  /** The task's categories (validated). */
+  categories: string[];
+  /** Units of the readout layer. */
+  units: number;
+  /** [N, units] channel means of the readout layer, both sides, and each stimulus's labels. */
+  baseScores: Float32Array;
+  modScores: Float32Array;
+  labels: string[][];
+}
+
+/**
+ * Everything a diff needs from the snapshots, gathered over all stimuli or over one index range (a
+ * shard): the per-layer accumulators and the read-out scores. `finishDiff` turns it into the report;
+ * collections of disjoint consecutive ranges combine exactly (see src/pipeline/partial-stats.ts).
+ */
+export interface DiffCollection {
+  base: { folder: string };
+  mod: { folder: string; modulation: unknown };
+  floor: { folder: string } | null;
+  sites: string[];
+  /** Stimuli gathered. */
+  stimuli: number;
+  layers: CollectedLayer[];
+  task: CollectedTask | null;
+}
+
+/**
+ * Reads two paired snapshots (and the floor snapshot) layer by layer into accumulators.
+ * @param base, mod the snapshots.
+ * @param options the diff options (tolerance, floor, tuning, task, bootstrap checked here).
+ * @param range global stimulus indices [start, end) to gather; default all.
+ * @returns the collection (see `DiffCollection`).
+ * @throws UsageError when the snapshots do not pair or an option is malformed.
+ */
+export async function collectDiff(base: Snapshot, mod: Snapshot, options: DiffOptions, range?: [number, number]): Promise<DiffCollection> {
   assertPaired(base, mod);
   const resamples = options.bootstrap ?? 1000;
   if (!Number.isInteger(resamples) || resamples < 0) throw new UsageError('E_BOOTSTRAP', `--bootstrap must be a non-negative integer, got ${resamples}`);
-  const seed = options.seed ?? 0;
   const tolerance = options.tolerance ?? 0.01;
-  const sites = modulationSites(mod);
   const layers = base.manifest.layers;
-  const siteOrdinal = Math.min(...sites.map((s) => layers.findIndex((l) => l.name === s)).filter((i) => i >= 0), Number.POSITIVE_INFINITY);
   const floorSnapshot = options.floor === undefined ? null : typeof options.floor === 'string' ? openSnapshot(options.floor) : options.floor;
   if (floorSnapshot) assertPaired(base, floorSnapshot);
-  const rows: LayerDiffRow[] = [];
+  const taskText = options.task ?? (options.target ? `detect:${options.target}` : undefined);
+  let task: CollectedTask | null = null;
+  let readout: ReturnType<typeof readoutOf> | null = null;
+  let categories: string[] = [];
+  if (taskText) {
+    readout = readoutOf(base);
+    categories = parseDetectionTask(taskText, readout.kinds, base.categories);
+  }
+  const collected: CollectedLayer[] = [];
   for (let ordinal = 0; ordinal < layers.length; ordinal++) {
     const entry = layers[ordinal]!;
     const tuning = options.tuning?.(entry.name);
-    const { metrics, means, norms } = await accumulateLayer(base, mod, entry, tolerance, tuning !== undefined);
-    let floor = dtypeFloor(mod.layer(entry.name).dtype === 'float16' || entry.dtype === 'float16' ? 'float16' : 'float32');
-    if (floorSnapshot) floor = Math.max(floor, (await accumulateLayer(base, floorSnapshot, entry, tolerance, false)).metrics.relativeChange);
+    const accumulator = await accumulateLayer(base, mod, entry, tolerance, tuning !== undefined, range);
+    const floor = floorSnapshot ? await accumulateLayer(base, floorSnapshot, entry, tolerance, false, range) : null;
+    const modEntry = mod.layer(entry.name);
+    collected.push({ name: entry.name, op: entry.op, depth: entry.depth, baseDtype: entry.dtype, modDtype: modEntry.dtype, unchanged: modEntry.from === 'baseline', accumulator, floor, tuning: tuning ?? null });
+    options.onLayer?.(ordinal + 1, layers.length, entry.name);
+  }
+  if (readout) {
+    const first = range ? range[0] : base.firstIndex;
+    const end = range ? range[1] : base.firstIndex + base.manifest.stimuli.count;
+    task = {
+      readout: readout.layer,
+      kinds: readout.kinds,
+      modelThreshold: readout.threshold,
+      categories,
+      units: base.layerGeometry(readout.layer).channels,
+      baseScores: await readMeans(base, readout.layer, first, end),
+      modScores: await readMeans(mod, readout.layer, first, end),
+      labels: base.stimuli.labels.slice(first - base.firstIndex, end - base.firstIndex),
+    };
+  }
+  return {
+    base: { folder: base.folder },
+    mod: { folder: mod.folder, modulation: mod.manifest.modulation },
+    floor: floorSnapshot ? { folder: floorSnapshot.folder } : null,
+    sites: modulationSites(mod),
+    stimuli: collected[0]?.accumulator.count ?? 0,
+    layers: collected,
+    task,
+  };
+}
+
+/** Channel means of a layer for global stimuli [first, end), [end − first, C]. */
+async function readMeans(snapshot: Snapshot, layer: string, first: number, end: number): Promise<Float32Array> {
+  const { channels } = snapshot.layerGeometry(layer);
+  const out = new Float32Array((end - first) * channels);
+  let filled = 0;
+  for await (const batch of snapshot.readLayer(layer, { activation: false, range: [first, end] })) {
+    if (batch.index[0] !== first + filled) throw new UsageError('E_PAIRING', `layer "${layer}" of ${snapshot.folder}: stimulus ${batch.index[0]} where ${first + filled} was expected`);
+    out.set(batch.channelMeans, filled * channels);
+    filled += batch.rows;
+  }
+  if (filled !== end - first) throw new UsageError('E_PAIRING', `layer "${layer}" of ${snapshot.folder} holds ${filled} of stimuli ${first}..${end - 1}`);
+  return out;
+}
+
+/**
+ * Turns a collection into the diff report: per-layer metrics, noise floor, bootstrap intervals,
+ * signatures, survival, depth profile, detection read-out and verdict.
+ * @param collection from `collectDiff` (or merged partial collections).
+ * @param options bootstrap, seed, tolerance and threshold as given to `collectDiff`.
+ * @returns the report.
+ * @throws UsageError when a layer holds no stimuli.
+ */
+export async function finishDiff(collection: DiffCollection, options: Pick<DiffOptions, 'bootstrap' | 'seed' | 'tolerance' | 'threshold'>): Promise<DiffReport> {
+  const resamples = options.bootstrap ?? 1000;
+  const seed = options.seed ?? 0;
+  const tolerance = options.tolerance ?? 0.01;
+  const sites = collection.sites;
+  const siteOrdinal = Math.min(...sites.map((s) => collection.layers.findIndex((l) => l.name === s)).filter((i) => i >= 0), Number.POSITIVE_INFINITY);
+  const rows: LayerDiffRow[] = [];
+  for (let ordinal = 0; ordinal < collection.layers.length; ordinal++) {
+    const layer = collection.layers[ordinal]!;
+    const metrics = layer.accumulator.finish();
+    const norms = layer.accumulator.perStimulusNorms();
+    let floor = dtypeFloor(layer.modDtype === 'float16' || layer.baseDtype === 'float16' ? 'float16' : 'float32');
+    if (layer.floor) floor = Math.max(floor, layer.floor.finish().relativeChange);
     let ci: [number, number] | null = null;
     if (resamples > 0 && metrics.stimuli > 1) {
       const [interval] = bootstrapIntervals(metrics.stimuli, (idx, out) => {
@@ -195,21 +325,22 @@ async function diffOne(base: Snapshot, mod: Snapshot, options: DiffOptions): Pro
           aa += norms.baseSquared[idx[i]!]!;
         }
         out[0] = aa > 0 ? Math.sqrt(dd / aa) : dd > 0 ? Infinity : 0;
-      }, 1, { resamples, seed: `${seed}:${entry.name}` });
+      }, 1, { resamples, seed: `${seed}:${layer.name}` });
       ci = [interval!.low, interval!.high];
     }
     let signature: LayerDiffRow['signature'] = null;
-    if (tuning && means) {
-      const fit = fitSignature({ baseChannelMeans: means.base, modChannelMeans: means.mod, stimuli: means.stimuli, channels: means.channels, tuning, tolerance, ...(resamples > 0 ? { bootstrap: { resamples, seed: `${seed}:sig:${entry.name}` } } : {}) });
+    if (layer.tuning) {
+      const means = layer.accumulator.channelMeans();
+      const fit = fitSignature({ baseChannelMeans: means.base, modChannelMeans: means.mod, stimuli: means.stimuli, channels: means.channels, tuning: layer.tuning, tolerance, ...(resamples > 0 ? { bootstrap: { resamples, seed: `${seed}:sig:${layer.name}` } } : {}) });
       const { normalisedRank: _r, ratio: _q, ...rest } = fit;
       signature = rest;
     }
     rows.push({
-      name: entry.name,
-      op: entry.op,
-      depth: entry.depth,
+      name: layer.name,
+      op: layer.op,
+      depth: layer.depth,
       ordinal,
-      site: sites.includes(entry.name),
+      site: sites.includes(layer.name),
       belowSite: Number.isFinite(siteOrdinal) ? ordinal - siteOrdinal : Number.NaN,
       relativeChange: metrics.relativeChange,
       relativeChangeMedian: metrics.relativeChangeMedian,
@@ -225,22 +356,21 @@ async function diffOne(base: Snapshot, mod: Snapshot, options: DiffOptions): Pro
       aboveFloor: metrics.relativeChange > floor,
       relativeChangeCi: ci,
       signature,
-      unchanged: mod.layer(entry.name).from === 'baseline',
+      unchanged: layer.unchanged,
     });
-    options.onLayer?.(ordinal + 1, layers.length, entry.name);
   }
   const below = rows.filter((r) => r.belowSite > 0);
   const surviving = below.filter((r) => r.aboveFloor);
   const deepest = surviving.length > 0 ? surviving[surviving.length - 1]! : null;
   const depthProfile = fitDepthProfile(below.map((r) => ({ depth: r.belowSite, value: r.relativeChange })), { floor: Math.max(...below.map((r) => r.floor), 0) });
-  const task = await taskReadout(base, mod, options, resamples, seed);
+  const task = collection.task ? taskReadout(collection.task, options.threshold ?? 'auto', resamples, seed) : null;
   const report: DiffReport = {
-    base: { folder: base.folder, modulation: null },
-    mod: { folder: mod.folder, modulation: mod.manifest.modulation },
+    base: { folder: collection.base.folder, modulation: null },
+    mod: { folder: collection.mod.folder, modulation: collection.mod.modulation },
     sites,
-    stimuli: base.manifest.stimuli.count,
+    stimuli: collection.stimuli,
     layers: rows,
-    floor: floorSnapshot ? { source: 'snapshot', description: `relative change of ${floorSnapshot.folder} against the baseline (at least the dtype floor)` } : { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
+    floor: collection.floor ? { source: 'snapshot', description: `relative change of ${collection.floor.folder} against the baseline (at least the dtype floor)` } : { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
     survival: { layer: deepest?.name ?? null, belowSite: deepest?.belowSite ?? null },
     depthProfile,
     task,
@@ -250,27 +380,29 @@ async function diffOne(base: Snapshot, mod: Snapshot, options: DiffOptions): Pro
   return report;
 }
 
-/** Streams one layer of two snapshots through a LayerDiffAccumulator. */
-async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLayer, tolerance: number, keepMeans: boolean) {
+/** Streams one layer of two snapshots through a LayerDiffAccumulator (rows in `range` only, when given). */
+async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLayer, tolerance: number, keepMeans: boolean, range?: [number, number]): Promise<LayerDiffAccumulator> {
   const geometry = base.layerGeometry(entry.name);
   const modEntry = mod.layer(entry.name);
   const full = entry.keep === 'full' && modEntry.keep === 'full';
   const spatial = full ? geometry.spatial : 1;
   const width = full ? geometry.elements : geometry.channels;
-  const accumulator = new LayerDiffAccumulator({ elements: width, channels: geometry.channels, spatial, tolerance, layer: entry.name, expectedStimuli: base.manifest.stimuli.count, keepChannelMeans: keepMeans });
+  const expected = range ? range[1] - range[0] : base.manifest.stimuli.count;
+  const accumulator = new LayerDiffAccumulator({ elements: width, channels: geometry.channels, spatial, tolerance, layer: entry.name, expectedStimuli: expected, keepChannelMeans: keepMeans });
+  const read = { activation: full, reuse: true, ...(range ? { range } : {}) };
   const sameFile = modEntry.from === 'baseline' && entry.sha256 !== undefined && modEntry.sha256 === entry.sha256;
   if (sameFile) {
     // identical bytes: read once and compare the data with itself
-    for await (const batch of base.readLayer(entry.name, { activation: full, reuse: true })) {
+    for await (const batch of base.readLayer(entry.name, read)) {
       const values = full ? batch.activation! : batch.channelMeans;
       accumulator.add(values, values, batch.rows);
     }
   } else {
-    const left = base.readLayer(entry.name, { activation: full, reuse: true });
-    const right = mod.readLayer(entry.name, { activation: full, reuse: true });
+    const left = base.readLayer(entry.name, read);
+    const right = mod.readLayer(entry.name, read);
     for await (const part of alignBatches(left, right, width, geometry.channels, entry.name)) accumulator.add(part.a, part.b, part.rows);
   }
-  return { metrics: accumulator.finish(), means: keepMeans ? accumulator.channelMeans() : null, norms: accumulator.perStimulusNorms() };
+  return accumulator;
 }
 
 /** Resolves the readout layer and the unit of each category (from the manifest's readout, else the last layer when its width equals the category count). */
@@ -285,16 +417,10 @@ export function readoutOf(base: Snapshot): { layer: string; kinds: string[]; thr
   });
 }
 
-async function taskReadout(base: Snapshot, mod: Snapshot, options: DiffOptions, resamples: number, seed: number): Promise<TaskReport | null> {
-  const taskText = options.task ?? (options.target ? `detect:${options.target}` : undefined);
-  if (!taskText) return null;
-  const readout = readoutOf(base);
-  const categories = parseDetectionTask(taskText, readout.kinds, base.categories);
-  const units = base.layerGeometry(readout.layer).channels;
-  const baseScores = await base.readChannelMeans(readout.layer);
-  const modScores = await mod.readChannelMeans(readout.layer);
-  const n = base.manifest.stimuli.count;
-  const rule = options.threshold ?? 'auto';
+function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', resamples: number, seed: number): TaskReport {
+  const { categories, units, baseScores, modScores, labels } = collected;
+  const readout = { layer: collected.readout, kinds: collected.kinds, threshold: collected.modelThreshold };
+  const n = labels.length;
   const perCategory: TaskCategory[] = [];
   const columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number }> = [];
   for (const category of categories) {
@@ -305,7 +431,7 @@ async function taskReadout(base: Snapshot, mod: Snapshot, options: DiffOptions, 
     for (let i = 0; i < n; i++) {
       a[i] = baseScores[i * units + unit]!;
       b[i] = modScores[i * units + unit]!;
-      signal[i] = base.stimuli.labels[i]!.includes(category) ? 1 : 0;
+      signal[i] = labels[i]!.includes(category) ? 1 : 0;
     }
     const threshold = chooseThreshold(rule, readout.threshold, a, signal);
     const sb = detectFromScores(a, signal, threshold);
