@@ -78,6 +78,42 @@ const ZERO_VARIANCE_RELATIVE = 1e-12;
  * NaN/Inf inputs are counted per channel and make that channel's means, tuning and selectivity NaN.
  */
 export function computeTuning(input: TuningInput): TuningTable {
+  return tuningFromMoments(accumulateTuning(input));
+}
+
+/**
+ * What `computeTuning` accumulates before it derives the table: per channel × category the count, mean
+ * and centred sum of squares (M2) of the channel means. Moments of disjoint stimulus sets combine
+ * exactly with `mergeTuningMoments` (the shard map-reduce form of tuning).
+ */
+export interface TuningMoments {
+  /** C. */
+  channels: number;
+  /** The K categories. */
+  categories: string[];
+  /** Whether only one-label stimuli were used. */
+  singleLabel: boolean;
+  /** n_c per category, [K]. */
+  count: Int32Array;
+  /** Running mean of channel k over category c's stimuli, [C, K] (k*K + c). */
+  mean: Float64Array;
+  /** Centred sum of squares for the same, [C, K]. */
+  m2: Float64Array;
+  /** NaN/Inf inputs per channel among the stimuli used, [C]. */
+  nonFinite: Int32Array;
+  stimuliUsed: number;
+  stimuliSkipped: number;
+  /** Labels that occur but are not categories, sorted (for the empty-category hint). */
+  otherLabels: string[];
+}
+
+/**
+ * Accumulates tuning moments (Welford per channel and category) without deriving the table.
+ * @param input as for `computeTuning`.
+ * @returns the moments; a category may still be empty here.
+ * @throws UsageError for a shape or label-length mismatch, fewer than two categories, or a repeated one.
+ */
+export function accumulateTuning(input: TuningInput): TuningMoments {
   const { channelMeans, stimuli: N, channels: C, labels, categories } = input;
   const singleLabel = input.singleLabel ?? false;
   checkShape(channelMeans, N, C, labels);
@@ -121,10 +157,71 @@ export function computeTuning(input: TuningInput): TuningTable {
       }
     }
   }
+  const otherLabels = [...new Set(labels.flat())].filter((l) => !categoryIndex.has(l)).sort();
+  return { channels: C, categories: [...categories], singleLabel, count, mean, m2, nonFinite, stimuliUsed, stimuliSkipped: N - stimuliUsed, otherLabels };
+}
+
+/**
+ * Moments of `b` (a disjoint set of stimuli) folded into a copy of `a`: counts add, means and M2 combine
+ * by the pairwise update of Chan, Golub & LeVeque (1979), exact up to rounding.
+ * @throws UsageError when the channels, categories or singleLabel differ.
+ */
+export function mergeTuningMoments(a: TuningMoments, b: TuningMoments): TuningMoments {
+  if (a.channels !== b.channels || a.categories.join('\n') !== b.categories.join('\n') || a.singleLabel !== b.singleLabel) {
+    throw new UsageError('E_TUNING_MERGE', `cannot merge tuning moments of ${b.channels} channels × [${b.categories.join(', ')}] into ${a.channels} × [${a.categories.join(', ')}]`);
+  }
+  const C = a.channels;
+  const K = a.categories.length;
+  const count = new Int32Array(K);
+  const mean = new Float64Array(C * K);
+  const m2 = new Float64Array(C * K);
+  for (let c = 0; c < K; c++) {
+    const na = a.count[c]!;
+    const nb = b.count[c]!;
+    const n = na + nb;
+    count[c] = n;
+    for (let k = 0, j = c; k < C; k++, j += K) {
+      // [C, K]: j = k*K + c
+      if (nb === 0) {
+        mean[j] = a.mean[j]!;
+        m2[j] = a.m2[j]!;
+      } else if (na === 0) {
+        mean[j] = b.mean[j]!;
+        m2[j] = b.m2[j]!;
+      } else {
+        const delta = b.mean[j]! - a.mean[j]!;
+        mean[j] = a.mean[j]! + (delta * nb) / n;
+        m2[j] = a.m2[j]! + b.m2[j]! + (delta * delta * na * nb) / n;
+      }
+    }
+  }
+  const nonFinite = new Int32Array(C);
+  for (let k = 0; k < C; k++) nonFinite[k] = a.nonFinite[k]! + b.nonFinite[k]!;
+  return {
+    channels: C,
+    categories: [...a.categories],
+    singleLabel: a.singleLabel,
+    count,
+    mean,
+    m2,
+    nonFinite,
+    stimuliUsed: a.stimuliUsed + b.stimuliUsed,
+    stimuliSkipped: a.stimuliSkipped + b.stimuliSkipped,
+    otherLabels: [...new Set([...a.otherLabels, ...b.otherLabels])].sort(),
+  };
+}
+
+/**
+ * Derives the tuning table from moments (the second half of `computeTuning`).
+ * @throws UsageError when a category has no stimuli (named, with the labels that do occur).
+ */
+export function tuningFromMoments(moments: TuningMoments): TuningTable {
+  const { channels: C, categories, count, mean, m2, nonFinite, stimuliUsed, singleLabel } = moments;
+  const K = categories.length;
+  const N = moments.stimuliUsed + moments.stimuliSkipped;
   for (let c = 0; c < K; c++) {
     if (count[c] === 0) {
-      const present = [...new Set(labels.flat())].filter((l) => !categoryIndex.has(l));
-      const near = closestHint(categories[c]!, present);
+      const near = closestHint(categories[c]!, moments.otherLabels);
       throw new UsageError(
         'E_TUNING_EMPTY_CATEGORY',
         `tuning category "${categories[c]}" has no stimuli${singleLabel ? ' with a single label' : ''} among ${N}`,
