@@ -1,11 +1,13 @@
 import { benchDiffThroughput } from './diff-throughput.js';
 import { benchRecordOverhead } from './record-overhead.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
+import { benchTailReplay } from './tail-replay.js';
 import type { Benchmark } from './types.js';
 
 /** Every benchmark by name. Add one: write `src/bench/<name>.ts` exporting a Benchmark, list it here. */
 export const BENCHMARKS: Record<string, Benchmark> = {
   'record-overhead': benchRecordOverhead,
   'diff-throughput': benchDiffThroughput,
+  'tail-replay': benchTailReplay,
   'sensitivity-cost': benchSensitivityCost,
 };

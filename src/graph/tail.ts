@@ -16,9 +16,11 @@ export interface TailGraph {
  * Extracts the subgraph of nodes that depend on any of `sites`. Everything else of the network is
  * upstream or on a parallel path and keeps its baseline values. `batchShapes` gives the per-stimulus
  * shape of each boundary tensor (from the probe), used to declare the tail's inputs.
+ * Tensors in `recompute` (upstream of the sites, e.g. not recorded in a baseline) have their producing
+ * nodes added to the tail, so that their inputs are fed instead of them.
  * Returns null when nothing depends on the sites (e.g. a site that is only a graph output).
  */
-export function extractTail(model: LoadedModel, structure: GraphStructure, sites: readonly string[], outputs: readonly string[]): TailGraph | null {
+export function extractTail(model: LoadedModel, structure: GraphStructure, sites: readonly string[], outputs: readonly string[], recompute: ReadonlySet<string> = new Set()): TailGraph | null {
   const inTail = new Uint8Array(structure.nodes.length);
   const computed = new Set<string>();
   const queue = [...sites];
@@ -32,6 +34,15 @@ export function extractTail(model: LoadedModel, structure: GraphStructure, sites
         queue.push(out);
       }
     }
+  }
+  // Upstream tensors the caller cannot feed are recomputed inside the tail from their own inputs
+  // (they are not affected by the modulation, so this reproduces their baseline values).
+  const helpers = new Set<string>();
+  for (const tensor of recompute) {
+    const p = structure.producer.get(tensor);
+    if (p === undefined || inTail[p]) continue;
+    inTail[p] = 1;
+    for (const out of structure.nodes[p]!.outputs) helpers.add(out);
   }
   // Static tensors (initializers, and outputs of nodes fed only by static tensors, e.g. Constant) are
   // computed inside the tail wherever tail nodes read them, instead of being fed.
@@ -65,7 +76,7 @@ export function extractTail(model: LoadedModel, structure: GraphStructure, sites
     const proto = byOutput.get(node.outputs[0]!);
     if (proto) tailNodes.push(proto);
     for (const input of node.inputs) {
-      if (!input || computed.has(input) || structure.initializers.has(input) || boundarySet.has(input)) continue;
+      if (!input || computed.has(input) || helpers.has(input) || structure.initializers.has(input) || boundarySet.has(input)) continue;
       boundarySet.add(input);
       boundary.push(input);
     }

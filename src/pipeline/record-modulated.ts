@@ -164,15 +164,27 @@ export type TailPlan = { tail: NonNullable<ReturnType<typeof extractTail>> } | {
 
 /** Decides whether the tail can be replayed from `baseline`, and why not. */
 export function planTail(model: LoadedModel, inspection: ModelInspection, baseline: Snapshot, sites: string[], layerNames: string[]): TailPlan {
-  const tail = extractTail(model, inspection.structure, sites, layerNames);
-  if (!tail) return { reason: 'nothing downstream of the sites' };
-  for (const name of tail.boundary) {
-    const entry = baseline.manifest.layers.find((l) => l.name === name);
-    if (!entry) return { reason: `the downstream part needs "${name}", which the baseline did not record` };
-    if (entry.keep !== 'full') return { reason: `the baseline kept only channel means of "${name}"` };
-    if (entry.dtype !== 'float32') return { reason: `the baseline stored "${name}" as ${entry.dtype}` };
+  const recorded = new Map(baseline.manifest.layers.map((l) => [l.name, l]));
+  const recompute = new Set<string>();
+  // Grow the tail upstream over tensors the baseline cannot feed, until every boundary tensor is recorded.
+  for (let round = 0; round <= inspection.structure.nodes.length; round++) {
+    const tail = extractTail(model, inspection.structure, sites, layerNames, recompute);
+    if (!tail) return { reason: 'nothing downstream of the sites' };
+    let grown = false;
+    for (const name of tail.boundary) {
+      const entry = recorded.get(name);
+      if (entry && entry.keep === 'full' && entry.dtype === 'float32') continue;
+      if (sites.includes(name)) {
+        if (!entry) return { reason: `the baseline did not record the site "${name}"` };
+        return { reason: entry.keep !== 'full' ? `the baseline kept only channel means of the site "${name}"` : `the baseline stored the site "${name}" as ${entry.dtype}` };
+      }
+      if (!inspection.structure.producer.has(name)) return { reason: `the downstream part needs "${name}", which the baseline did not record at full float32 resolution` };
+      recompute.add(name);
+      grown = true;
+    }
+    if (!grown) return { tail };
   }
-  return { tail };
+  return { reason: 'the downstream part could not be separated from the rest of the network' };
 }
 
 interface TailRun {
