@@ -11,6 +11,7 @@
 import { UsageError } from '../errors.js';
 import { computeTuning, type TuningTable } from '../analysis/tuning.js';
 import { selectLayers } from '../graph/select.js';
+import type { ManifestLayer } from '../snapshot/manifest.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { writeTuningTable, type TuningTableBlock } from '../snapshot/tables.js';
 
@@ -86,23 +87,9 @@ export async function tuneSnapshot(options: TuneOptions): Promise<TuneResult> {
       hint: 'record it from a class folder, a path,label CSV, or a .npy with --labels',
     });
   }
-  const categories = options.categories ?? snapshot.categories;
-  if (categories.length < 2) {
-    throw new UsageError('E_TUNE_LABELS', `snapshot ${folder} has ${categories.length} category (${categories.map((c) => JSON.stringify(c)).join(', ')}); tuning needs at least 2`, {
-      hint: 'a z-score across categories is undefined for one category',
-    });
-  }
-  const candidates = snapshot.manifest.layers.map((l) => ({ name: l.name, op: l.op, default: l.shape.length >= 1 }));
-  const selected = options.layers === undefined ? candidates.filter((l) => l.default) : selectLayers(candidates, options.layers);
-  if (selected.length === 0) throw new UsageError('E_SELECTOR', `snapshot ${folder} has no layer with a channel axis to tune`);
-  const blocks: TuningTableBlock[] = [];
-  const summaries: LayerTuningSummary[] = [];
-  let last: TuningTable | null = null;
-  for (const entry of selected) {
-    const layer = snapshot.layer(entry.name);
-    if (layer.shape.length === 0) {
-      throw new UsageError('E_TUNE_LAYER', `layer "${layer.name}" of ${folder} is a scalar per stimulus (no channel axis); tuning needs channels`, { hint: 'leave it out of --layers' });
-    }
+  const { categories, layers } = planTuning(snapshot, options, folder);
+  const tables: Array<{ layer: ManifestLayer; table: TuningTable }> = [];
+  for (const layer of layers) {
     const { channels } = snapshot.layerGeometry(layer.name);
     const channelMeans = await snapshot.readChannelMeans(layer.name);
     const table = computeTuning({
@@ -113,19 +100,61 @@ export async function tuneSnapshot(options: TuneOptions): Promise<TuneResult> {
       categories,
       singleLabel: options.singleLabel ?? false,
     });
-    last = table;
+    tables.push({ layer, table });
+  }
+  return assembleTuneResult({ folder: snapshot.folder, model: snapshot.manifest.model }, tables, categories, options);
+}
+
+/**
+ * The categories and layers a tuning run covers, checked.
+ * @throws UsageError as `tuneSnapshot` does for labels, categories and layers.
+ */
+export function planTuning(snapshot: Snapshot, options: Pick<TuneOptions, 'categories' | 'layers'>, folder: string): { categories: string[]; layers: ManifestLayer[] } {
+  const categories = options.categories ?? snapshot.categories;
+  if (categories.length < 2) {
+    throw new UsageError('E_TUNE_LABELS', `snapshot ${folder} has ${categories.length} category (${categories.map((c) => JSON.stringify(c)).join(', ')}); tuning needs at least 2`, {
+      hint: 'a z-score across categories is undefined for one category',
+    });
+  }
+  const candidates = snapshot.manifest.layers.map((l) => ({ name: l.name, op: l.op, default: l.shape.length >= 1 }));
+  const selected = options.layers === undefined ? candidates.filter((l) => l.default) : selectLayers(candidates, options.layers);
+  if (selected.length === 0) throw new UsageError('E_SELECTOR', `snapshot ${folder} has no layer with a channel axis to tune`);
+  const layers = selected.map((entry) => {
+    const layer = snapshot.layer(entry.name);
+    if (layer.shape.length === 0) {
+      throw new UsageError('E_TUNE_LAYER', `layer "${layer.name}" of ${folder} is a scalar per stimulus (no channel axis); tuning needs channels`, { hint: 'leave it out of --layers' });
+    }
+    return layer;
+  });
+  return { categories: [...categories], layers };
+}
+
+/**
+ * Builds the result of a tuning run from its per-layer tables (sorted by depth, summaries, counts) and
+ * writes the table file when `options.out` is given.
+ * @param source the snapshot folder and model (file metadata).
+ * @param tables one tuning table per layer.
+ * @param categories the categories tuned for.
+ * @param options singleLabel and out.
+ * @throws RuntimeFailure when the table cannot be written.
+ */
+export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out'>): TuneResult {
+  const blocks: TuningTableBlock[] = [];
+  const summaries: LayerTuningSummary[] = [];
+  for (const { layer, table } of tables) {
     blocks.push({ layer: layer.name, depth: layer.depth, op: layer.op, ...table });
     summaries.push(summariseLayer(layer.name, layer.op, layer.depth, table));
   }
+  const last = tables[tables.length - 1]!.table;
   blocks.sort((a, b) => (a.depth ?? 0) - (b.depth ?? 0));
   summaries.sort((a, b) => a.depth - b.depth);
   const counts: Record<string, number> = {};
-  categories.forEach((c, i) => (counts[c] = last!.count[i]!));
-  const result: TuneResult = { blocks, summaries, categories: [...categories], counts, stimuliUsed: last!.stimuliUsed, stimuliSkipped: last!.stimuliSkipped };
+  categories.forEach((c, i) => (counts[c] = last.count[i]!));
+  const result: TuneResult = { blocks, summaries, categories: [...categories], counts, stimuliUsed: last.stimuliUsed, stimuliSkipped: last.stimuliSkipped };
   if (options.out !== undefined) {
     const written = writeTuningTable(options.out, blocks, {
-      'sonde.snapshot': snapshot.folder,
-      'sonde.model': `${snapshot.manifest.model.file} sha256:${snapshot.manifest.model.sha256}`,
+      'sonde.snapshot': source.folder,
+      'sonde.model': `${source.model.file} sha256:${source.model.sha256}`,
       'sonde.single_label': String(options.singleLabel ?? false),
     });
     result.file = { path: options.out, ...written };
