@@ -100,7 +100,7 @@ export function makeDiff(options: DiffFixtureOptions = {}): DiffReport {
   const below = layers.filter((l) => l.belowSite > 0);
   const report: DiffReport = {
     base: { folder: 'snapshots/base', modulation: null },
-    mod: { folder: options.folder ?? 'snapshots/mod-tuning', modulation: { spec: 'mod.json', modulations: [{ kind: options.kind ?? 'tuning', site: names[siteOrdinal]!, strength: options.strength ?? 0.5, target: categories[0]! }] } },
+    mod: { folder: options.folder ?? 'snapshots/mod-tuning', modulation: { spec: 'mod.json', modulations: [{ kind: options.kind ?? 'tuning', site: names[siteOrdinal]!, details: { strength: options.strength ?? 0.5, target: categories[0]! } }] } },
     sites: [names[siteOrdinal]!],
     stimuli: 120,
     layers,

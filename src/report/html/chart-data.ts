@@ -42,21 +42,26 @@ interface ModulationSource {
   site?: unknown;
   strength?: unknown;
   target?: unknown;
+  /** Kind-specific details of a resolved modulation record (strength, target, …). */
+  details?: { strength?: unknown; target?: unknown };
 }
 
 /**
  * A short label for a diff's modulated run: `kind strength → target @ site` for each recorded modulation
- * (as far as the manifest says), else the modulated folder's base name.
+ * (as far as the manifest's resolved records say: strength and target live in their `details`), else the
+ * modulated folder's base name.
  * @param diff a diff report.
  * @returns the label (plain text; escaped wherever it is shown).
  */
 export function runLabel(diff: DiffReport): string {
   const modulation = diff.mod?.modulation as { modulations?: ModulationSource[] } | null | undefined;
   const parts = (Array.isArray(modulation?.modulations) ? modulation!.modulations : []).map((m) => {
+    const strength = m.details?.strength ?? m.strength;
+    const target = m.details?.target ?? m.target;
     const words: string[] = [];
     if (typeof m.kind === 'string') words.push(m.kind);
-    if (typeof m.strength === 'number') words.push(`${m.strength}`);
-    if (typeof m.target === 'string') words.push(`→ ${m.target}`);
+    if (typeof strength === 'number') words.push(`${strength}`);
+    if (typeof target === 'string') words.push(`→ ${target}`);
     if (typeof m.site === 'string') words.push(`@ ${m.site}`);
     return words.join(' ');
   }).filter((p) => p.length > 0);

@@ -60,7 +60,7 @@ export function relativeChangeSpec(data: RelativeChangeData): TopLevelSpec {
     return out;
   });
   const scale = { domain: data.series, range: seriesColours(data.series.length) };
-  const color = { field: 'series', type: 'nominal', scale, legend: { title: 'modulated run', orient: 'bottom', direction: 'vertical', columns: 1, symbolType: 'stroke', symbolStrokeWidth: 3, symbolOpacity: 1, symbolDash: [] } } as const;
+  const color = { field: 'series', type: 'nominal', scale, legend: { title: 'modulated run', orient: 'bottom', direction: 'vertical', columns: 1, symbolType: 'stroke', symbolStrokeWidth: 3, symbolOpacity: 1, symbolDash: [], labelLimit: 520 } } as const;
   const x = { field: 'depth', type: 'quantitative', title: 'depth (layer position in the graph)', axis: { tickMinStep: 1, format: 'd' } } as const;
   const y = { field: 'value', type: 'quantitative', scale: { type: 'log', domain: range }, title: 'relative change ‖mod − base‖ / ‖base‖', axis: { format: '~g' } } as const;
   return {

@@ -83,8 +83,10 @@ export function assertInertSvg(svg: string, idPrefix: string): void {
 }
 
 /**
- * Makes one rendered SVG safe and unique within a page: checks it (`assertInertSvg`), prefixes its ids
- * and the references to them, and drops the xlink namespace declaration when nothing uses it.
+ * Makes one rendered SVG safe and unique within a page: checks it (`assertInertSvg`), renames its ids to
+ * `PREFIX-1`, `PREFIX-2`… (in order of appearance) together with the `url(#…)` references to them, and
+ * drops the xlink namespace declaration when nothing uses it. A reference to an id the SVG does not
+ * define is renamed to `PREFIX-missing-…` (it pointed at nothing before, and still does).
  * @param svg the SVG text from vega.
  * @param idPrefix a prefix unique to this chart in the page (letters, digits, `-`).
  * @returns the SVG text.
@@ -92,7 +94,11 @@ export function assertInertSvg(svg: string, idPrefix: string): void {
  */
 export function sanitiseSvg(svg: string, idPrefix: string): string {
   assertInertSvg(svg, idPrefix);
-  let out = svg.replace(/\sid="([^"]+)"/g, (_m, id: string) => ` id="${idPrefix}-${id}"`).replace(/url\(#([^)]+)\)/g, (_m, id: string) => `url(#${idPrefix}-${id})`);
+  // vega numbers clip paths with a process-wide counter: renumber per chart so the page is reproducible
+  const renamed = new Map<string, string>();
+  for (const match of svg.matchAll(/\sid="([^"]+)"/g)) if (!renamed.has(match[1]!)) renamed.set(match[1]!, `${idPrefix}-${renamed.size + 1}`);
+  const rename = (id: string) => renamed.get(id) ?? `${idPrefix}-missing-${id}`;
+  let out = svg.replace(/\sid="([^"]+)"/g, (_m, id: string) => ` id="${rename(id)}"`).replace(/url\(#([^)]+)\)/g, (_m, id: string) => `url(#${rename(id)})`);
   if (!/\sxlink:[a-z]+=/.test(out)) out = out.replace(/\sxmlns:xlink="[^"]*"/, '');
   return out;
 }

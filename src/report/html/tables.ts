@@ -97,9 +97,13 @@ function profileText(diff: DiffReport): string {
   const p = diff.depthProfile;
   if (!p) return '–';
   const r2 = Number.isFinite(num(p.r2)) ? ` (r² ${fmt(p.r2, 2)})` : '';
-  if (p.halfDepth !== null && Number.isFinite(num(p.halfDepth))) return `halves every ${fmt(p.halfDepth, 1)} layers${r2}`;
-  if (p.doublingDepth !== null && Number.isFinite(num(p.doublingDepth))) return `doubles every ${fmt(p.doublingDepth, 1)} layers${r2}`;
-  return Number.isFinite(num(p.rate)) ? 'keeps its size' : 'too few layers to fit';
+  // a half- or doubling depth a hundred times longer than the fitted stretch is rounding, not a trend
+  const span = 100 * Math.max(1, num(p.used) || 1);
+  const half = num(p.halfDepth);
+  const doubling = num(p.doublingDepth);
+  if (Number.isFinite(half) && half <= span) return `halves every ${fmt(half, 1)} layers${r2}`;
+  if (Number.isFinite(doubling) && doubling <= span) return `doubles every ${fmt(doubling, 1)} layers${r2}`;
+  return Number.isFinite(num(p.rate)) ? `keeps its size (rate ${sci(p.rate)} per layer)` : 'too few layers to fit';
 }
 
 /**
