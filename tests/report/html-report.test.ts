@@ -4,6 +4,10 @@ import { beforeAll, describe, expect, it } from 'vitest';
 import { diffSnapshots } from '../../src/pipeline/diff-snapshots.js';
 import { recordModulated } from '../../src/pipeline/record-modulated.js';
 import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
+import { sweepModulations } from '../../src/pipeline/sweep.js';
+import { tuneSnapshot } from '../../src/pipeline/tune.js';
+import { propagationMatrix } from '../../src/report/html/chart-data.js';
+import { readReportInput } from '../../src/report/html/inputs.js';
 import { reportToJson } from '../../src/report/diff-table.js';
 import { buildHtmlReport, renderHtmlReport, writeHtmlReport, type HtmlReport } from '../../src/report/html/html-report.js';
 import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
@@ -151,5 +155,33 @@ describe('buildHtmlReport on a recorded network', () => {
     expect(rows.find((cells) => cells[1] === 'relu0')![0]).toBe(`${diff.layers.find((l) => l.site)!.depth} ◆`);
     // the run is labelled from the recorded modulation
     expect(report.html).toContain('uniform 1.3 @ relu0');
+  });
+
+  it('buildHtmlReport(sweep.json of a real --depth-profile sweep) draws all sweep charts; uniform gain 1 + β changes the site by exactly β', async () => {
+    // at the site tensor itself a uniform gain g gives ‖g·a − a‖/‖a‖ = |g − 1| for any network (exact
+    // algebra); the sweep's uniform scheme uses g = 1 + β (src/pipeline/sweep.ts)
+    const dir = tempFolder('sonde-report-sweep-');
+    const model = join(dir, 'net.onnx');
+    const kinds = ['alpha', 'beta', 'gamma'];
+    writeFileSync(model, buildTinyNet({ bias: true, seed: 41, classes: 3 }));
+    writeFileSync(join(dir, 'net.json'), JSON.stringify({ outputs: { name: 'logits', kinds, threshold: 0 } }));
+    const labels = Array.from({ length: 18 }, (_, i) => kinds[i % 3]!);
+    const stim = writeStimuliNpy(dir, [18, 3, 16, 16], 43, labels);
+    await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'base'), batch: 9, threads: 1 });
+    await tuneSnapshot({ snapshot: join(dir, 'base'), out: join(dir, 'tuning.arrow') });
+    await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu0', 'relu1'], strengths: [0, 0.25, 0.5], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), out: join(dir, 'sweep'), threads: 1, controlSeeds: 2, depthProfile: true, match: 'dprime:+0.1' });
+    const path = join(dir, 'sweep', 'sweep.json');
+    const report = await buildHtmlReport([path]);
+    expect(report.inputs).toEqual([{ name: 'sweep.json', kind: 'sweep' }]);
+    expect(report.charts).toBe(3); // task vs strength, propagation matrix, depth profiles
+    expect(report.warnings).toEqual([]);
+    const [input] = readReportInput(path);
+    const { cells, strengthByScheme } = propagationMatrix((input as Extract<typeof input, { kind: 'sweep' }>).sweep);
+    expect(strengthByScheme.get('uniform')).toBe(0.5);
+    for (const site of ['relu0', 'relu1']) {
+      const atSite = cells.find((c) => c.scheme === 'uniform' && c.site === site && c.belowSite === 0)!;
+      expect(Math.abs(atSite.relativeChange - 0.5), site).toBeLessThan(1e-6);
+    }
+    expect(report.html).toContain('<h3>Calibration</h3>');
   });
 });

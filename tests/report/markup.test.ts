@@ -3,8 +3,9 @@ import { escapeHtml, html, joinHtml, SafeHtml } from '../../src/report/html/mark
 
 describe('escapeHtml', () => {
   it('escapeHtml(text) replaces the five characters HTML gives meaning to in text and quoted attributes', () => {
-    // HTML Living Standard, "Serializing HTML fragments" (escapingString: & < > and " in attribute mode);
-    // the apostrophe is escaped too so single-quoted attributes are safe (OWASP XSS cheat sheet, rule 1).
+    // HTML Living Standard, "Serializing HTML fragments" (escaping a string: & < > in text, " in attribute
+    // mode); the apostrophe as well, so single-quoted attributes are safe (OWASP XSS Prevention Cheat Sheet,
+    // output encoding for HTML contexts). Both from memory.
     expect(escapeHtml(`<script>alert("x") & 'y'</script>`)).toBe('&lt;script&gt;alert(&quot;x&quot;) &amp; &#39;y&#39;&lt;/script&gt;');
   });
 
