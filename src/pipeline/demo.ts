@@ -15,6 +15,7 @@ import { sweepModulations } from './sweep.js';
 import type { SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
 import { tuneSnapshot } from './tune.js';
+import { writeHtmlReport } from '../report/html/html-report.js';
 
 /** The built-in demo network, relative to the package. */
 export const DEMO_MODEL = new URL('../../models/demo/glyphnet.onnx', import.meta.url).pathname;
@@ -140,6 +141,10 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
     writeFileSync(files[`diff-${label}`]!, json(report));
     diffs.push({ label, site, report });
   }
+
+  step('writing the HTML report');
+  files.report = join(folder, 'report.html');
+  await writeHtmlReport({ inputs: [files['diff-early']!, files['diff-late']!, files.sweep, files.agreement], out: files.report, title: 'Sonde demo: attention-like gain in a glyph-detection network' });
 
   const ranked = [...sweep.best].filter((b) => Number.isFinite(b.dPrimeChange)).sort((a, b) => b.dPrimeChange - a.dPrimeChange);
   const top = ranked[0] ?? sweep.best[0]!;

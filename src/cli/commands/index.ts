@@ -1,4 +1,7 @@
 import type { Command } from 'commander';
+import { registerCheck } from './check.js';
+import { registerMerge } from './merge.js';
+import { registerDemo } from './demo.js';
 import { registerDiff } from './diff.js';
 import { registerLayers } from './layers.js';
 import { registerRecord } from './record.js';
@@ -9,4 +12,4 @@ import { registerSweep } from './sweep.js';
 import { registerTune } from './tune.js';
 
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerReport];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerCheck, registerMerge, registerReport];
