@@ -10,7 +10,6 @@ import { cliIo } from '../run.js';
 interface ReportCliOptions {
   out: string;
   title?: string;
-  verbose?: boolean;
 }
 
 /** Registers `sonde report`. */
