@@ -7,6 +7,8 @@ import { finiteNumber, nonNegativeInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo } from '../run.js';
 import { tuningLookup } from './tuning-lookup.js';
+import { diffPartial, writePartial } from '../../pipeline/partial-stats.js';
+import { parseShard } from '../../pipeline/shard.js';
 
 interface DiffCliOptions {
   vs?: string;
@@ -20,6 +22,8 @@ interface DiffCliOptions {
   threshold?: string;
   json?: boolean;
   csv?: string;
+  shard?: string;
+  partial?: string;
 }
 
 /** `sonde diff BASE MOD`: layer-by-layer propagation of a modulation and its effect on the task. */
@@ -40,6 +44,8 @@ export function registerDiff(program: Command): void {
     .option('--tolerance <x>', 'channel ratio tolerance for up/down', finiteNumber, 0.01)
     .option('--json', 'print the full report as JSON')
     .option('--csv <file>', 'also write one CSV row per layer')
+    .option('--shard <K/N>', 'with --partial: accumulate only shard K of N of the stimuli')
+    .option('--partial <file.json>', 'write mergeable partial statistics instead of the report (combine them with `sonde merge`)')
     .action(async (basePath: string, modPath: string, opts: DiffCliOptions) => {
       const io = cliIo();
       if (opts.tuning && !opts.target) throw new UsageError('E_TARGET', '--tuning needs --target CATEGORY (the attended category)');
@@ -63,6 +69,20 @@ export function registerDiff(program: Command): void {
         ...(opts.task ? { task: opts.task } : {}),
         ...(opts.tuning && opts.target ? { tuning: tuningLookup(opts.tuning, opts.target) } : {}),
       };
+      if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });
+      if (opts.partial !== undefined) {
+        if (opts.vs !== undefined) throw new UsageError('E_PARTIAL', '--partial cannot be combined with --vs; write one partial diff per modulated snapshot');
+        const shard = opts.shard !== undefined ? parseShard(opts.shard) : { index: 1, count: 1 };
+        let partial;
+        try {
+          partial = await diffPartial(options, shard);
+        } finally {
+          bar.stop();
+        }
+        const written = writePartial(opts.partial, partial);
+        io.stdout(`wrote partial diff statistics of shard ${shard.index}/${shard.count} (stimuli ${partial.shard.stimuli[0]}..${partial.shard.stimuli[1]}) to ${opts.partial} (${written.bytes} bytes)\n`);
+        return;
+      }
       let result: DiffReport | SchemeComparison;
       try {
         result = opts.vs ? await diffSnapshots({ ...options, vs: opts.vs }) : await diffSnapshots(options);

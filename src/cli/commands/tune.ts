@@ -13,6 +13,8 @@ import { displayPath } from '../../pipeline/record-snapshot.js';
 import { SELECTIVE_INDEX, summariseLayer, tuneSnapshot, type LayerTuningSummary } from '../../pipeline/tune.js';
 import { readSensitivityTable, readTuningTable, type TuningTableBlock } from '../../snapshot/tables.js';
 import { cliIo } from '../run.js';
+import { tunePartial, writePartial } from '../../pipeline/partial-stats.js';
+import { parseShard } from '../../pipeline/shard.js';
 
 interface TuneCliOptions {
   out?: string;
@@ -20,6 +22,8 @@ interface TuneCliOptions {
   singleLabel?: boolean;
   against?: string;
   json?: boolean;
+  shard?: string;
+  partial?: string;
 }
 
 const TABLE_STYLE = { head: [] as string[], border: [] as string[], compact: true };
@@ -35,8 +39,19 @@ export function registerTune(program: Command): void {
     .option('--single-label', 'use only stimuli with exactly one label (default: multi-label stimuli count for each label)')
     .option('--against <sens.arrow>', 'also correlate tuning with a sensitivity table (Pearson and Spearman across channels, per layer)')
     .option('--json', 'print JSON instead of tables')
+    .option('--shard <K/N>', 'with --partial: accumulate only shard K of N of the stimuli')
+    .option('--partial <file.json>', 'write mergeable partial statistics (counts, means, sums of squares) instead of the table; combine with `sonde merge … --out T.arrow`')
     .action(async (source: string, opts: TuneCliOptions) => {
       const io = cliIo();
+      if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });
+      if (opts.partial !== undefined) {
+        if (opts.against !== undefined || opts.out !== undefined) throw new UsageError('E_PARTIAL', '--partial writes statistics only; --out and --against apply when the parts are merged');
+        const shard = opts.shard !== undefined ? parseShard(opts.shard) : { index: 1, count: 1 };
+        const partial = await tunePartial({ snapshot: source, ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) }, shard);
+        const written = writePartial(opts.partial, partial);
+        io.stdout(`wrote partial tuning statistics of shard ${shard.index}/${shard.count} (stimuli ${partial.shard.stimuli[0]}..${partial.shard.stimuli[1]}) to ${opts.partial} (${written.bytes} bytes)\n`);
+        return;
+      }
       const isTable = existsSync(source) && statSync(source).isFile();
       let blocks: TuningTableBlock[];
       let summaries: LayerTuningSummary[];

@@ -1,0 +1,36 @@
+/**
+ * The partial-statistics half of `sonde merge`: reads the files, combines them (src/pipeline/
+ * partial-stats.ts) and prints what the unsharded command prints — the diff report (table or JSON), or
+ * for tuning the table file written to --out and its summary.
+ */
+import { UsageError } from '../../errors.js';
+import { mergePartials, readPartial } from '../../pipeline/partial-stats.js';
+import { displayPath } from '../../pipeline/record-snapshot.js';
+import { SELECTIVE_INDEX } from '../../pipeline/tune.js';
+import { renderDiffReport, reportToJson } from '../../report/diff-table.js';
+import { cliIo } from '../run.js';
+
+/**
+ * Combines partial-statistics files and prints or writes the result.
+ * @param parts paths of the files.
+ * @param options `out`: the tuning table for tune partials (required there); `json`: print JSON.
+ * @throws UsageError for unreadable or mismatched parts, or tune partials without `out`.
+ */
+export async function mergePartialFiles(parts: readonly string[], options: { out?: string; json: boolean }): Promise<void> {
+  const io = cliIo();
+  const files = parts.map((p) => readPartial(p));
+  if (files[0]!.of === 'tune' && options.out === undefined) throw new UsageError('E_MERGE', 'merging tune partials needs --out FILE.arrow (where the tuning table goes)');
+  if (files[0]!.of === 'diff' && options.out !== undefined) throw new UsageError('E_MERGE', 'merging diff partials prints the report; --out applies to snapshots and tuning tables');
+  const merged = await mergePartials(files, parts, options.out !== undefined ? { out: options.out } : {});
+  if (merged.of === 'diff') {
+    io.stdout(options.json ? reportToJson(merged.report) : renderDiffReport(merged.report));
+    return;
+  }
+  const r = merged.result;
+  const summary = { out: options.out, parts: parts.length, categories: r.categories, counts: r.counts, stimuliUsed: r.stimuliUsed, stimuliSkipped: r.stimuliSkipped, bytes: r.file?.bytes, selectiveIndex: SELECTIVE_INDEX, layers: r.summaries };
+  if (options.json) io.stdout(`${JSON.stringify(summary, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
+  else {
+    const counts = Object.entries(r.counts).map(([c, n]) => `${c} ${n}`).join(', ');
+    io.stdout(`merged ${parts.length} tune partials: ${r.summaries.length} layers, ${r.categories.length} categories (stimuli per category: ${counts}) → ${displayPath(options.out!)}\n`);
+  }
+}
