@@ -33,9 +33,19 @@ export { recordSnapshot, type RecordOptions, type RecordSummary, type RecordProg
 export { recordModulated, type RecordModulatedOptions } from './pipeline/record-modulated.js';
 export { diffSnapshots, assertPaired, type DiffOptions, type DiffReport, type LayerDiffRow, type TaskReport, type SchemeComparison } from './pipeline/diff-snapshots.js';
 
+export { tuneSnapshot, type TuneOptions, type TuneResult } from './pipeline/tune.js';
+export { senseSites, type SenseOptions, type SenseResult } from './pipeline/sense.js';
+export { compareTables, type TableComparison } from './pipeline/compare-tables.js';
+export { loadModulationTables } from './pipeline/tables.js';
+export { sweepModulations, type SweepOptions } from './pipeline/sweep.js';
+export type { SweepResult, SweepCell } from './pipeline/sweep-types.js';
+export { runDemo, type DemoOptions, type DemoResult } from './pipeline/demo.js';
+export { readTuningTable, readSensitivityTable, writeTuningTable, writeSensitivityTable } from './snapshot/tables.js';
+
 // modulation and analysis (pure)
 export * as modulation from './modulation/index.js';
 export * as analysis from './analysis/index.js';
 
 // report
+export { renderHtmlReport, writeHtmlReport, buildHtmlReport } from './report/html/html-report.js';
 export { renderDiffReport, renderComparison, diffToCsv, reportToJson } from './report/diff-table.js';

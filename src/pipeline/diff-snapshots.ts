@@ -558,7 +558,11 @@ export function verdictOf(report: DiffReport): string {
   const profile = report.depthProfile;
   const site = report.sites[0] ?? 'the site';
   const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
+  // a rate so small that the change would take far longer than the measured stretch to halve or double is "constant"
+  const span = Math.max(1, ...report.layers.map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
+  const negligible = Number.isFinite(profile.rate) && Math.abs(profile.rate) * span < 1e-3;
   if (report.sites.length === 0) parts.push('no modulation site recorded in the manifest');
+  else if (negligible) parts.push(`${subject} keeps its size below ${site}`);
   else if (profile.halfDepth !== null) parts.push(`${subject} halves every ${profile.halfDepth.toFixed(1)} layers below ${site}`);
   else if (profile.doublingDepth !== null) parts.push(`${subject} doubles every ${profile.doublingDepth.toFixed(1)} layers below ${site}`);
   else if (Number.isFinite(profile.rate)) parts.push(`${subject} keeps its size below ${site}`);
