@@ -1,5 +1,5 @@
 import { join } from 'node:path';
-import { readFileSync } from 'node:fs';
+import { readFileSync, rmSync } from 'node:fs';
 import { recordSnapshot } from '../pipeline/record-snapshot.js';
 import { createNetworkSession } from '../session/network-session.js';
 import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
@@ -33,7 +33,9 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
     const record = async (layers: string): Promise<{ seconds: number; bytes: number }> => {
       const start = performance.now();
       const summary = await recordSnapshot({ model, stimuli: path, out: join(work.folder, `snap${out++}`), layers, batch: BATCH, threads: THREADS });
-      return { seconds: (performance.now() - start) / 1000, bytes: summary.bytesWritten };
+      const seconds = (performance.now() - start) / 1000;
+      rmSync(summary.folder, { recursive: true, force: true }); // so the next run does not wait on this one's writeback
+      return { seconds, bytes: summary.bytesWritten };
     };
     await bare(); // warm-up
     await record('default');

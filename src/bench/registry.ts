@@ -1,6 +1,7 @@
 import { benchDiffThroughput } from './diff-throughput.js';
 import { benchRecordOverhead } from './record-overhead.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
+import { benchSweepThroughput } from './sweep-throughput.js';
 import { benchTailReplay } from './tail-replay.js';
 import type { Benchmark } from './types.js';
 
@@ -10,4 +11,5 @@ export const BENCHMARKS: Record<string, Benchmark> = {
   'diff-throughput': benchDiffThroughput,
   'tail-replay': benchTailReplay,
   'sensitivity-cost': benchSensitivityCost,
+  'sweep-throughput': benchSweepThroughput,
 };
