@@ -42,6 +42,7 @@ import type { Preprocessing } from '../stimuli/preprocess.js';
 import { downstreamShare, estimateMacs } from './compute-share.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertSameModel, siteShapes } from './record-modulated.js';
+import { shardRange, type ShardSpec } from './shard.js';
 
 /** Default central-difference step h (DOMAIN.md: float32 compromise 1e-3…1e-2). */
 export const DEFAULT_STEP = 0.01;
@@ -94,6 +95,12 @@ export interface SenseOptions {
   warnRatio?: number;
   /** Write the sensitivity table here. */
   out?: string;
+  /**
+   * Measure over shard K of N of the stimuli only (the split of src/pipeline/shard.ts): the result's
+   * blocks carry `sums`, the partial statistics `sonde merge` combines; their sensitivities cover only
+   * the shard and no warnings are raised.
+   */
+  shard?: ShardSpec;
   /** Called after every downstream run. */
   onProgress?: (progress: { site: string; rowsDone: number; rowsTotal: number }) => void;
 }
@@ -127,6 +134,20 @@ export interface SiteSensitivity extends SensitivityTableBlock {
   prefixStimuli: number;
   /** Stimuli that entered at least one category's average. */
   stimuliUsed: number;
+  /** With `shard`: the readout sums the averages are made of (see `sensitivityFromSums`). */
+  sums?: SensitivitySums;
+}
+
+/** Readout sums of one site over some stimuli: what shards add up. */
+export interface SensitivitySums {
+  /** 2 (±h) or 4 (±h, ±h/2). */
+  variants: number;
+  /** Σ over stimuli of readout c with channel k perturbed by variant v, [V, C, K]: i = (v*C + k)*K + c. */
+  perturbed: Float64Array;
+  /** Σ of the unperturbed readout per category, [K]. */
+  identity: Float64Array;
+  /** Stimuli per category, [K]. */
+  counts: Int32Array;
 }
 
 /** The readout a sensitivity refers to. */
@@ -193,6 +214,18 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   }
   const labels = baseline ? baseline.stimuli.labels : source!.labels;
   const weights = stimulusWeights(labels, readout.categories, options.stimuliOf);
+  const range: [number, number] = options.shard ? ((r) => [r.start, r.end] as [number, number])(shardRange(options.shard.index, options.shard.count, labels.length)) : [0, labels.length];
+  if (options.shard) {
+    // only the shard's stimuli enter the sums; the other rows of the weights are cleared
+    const K = readout.categories.length;
+    weights.counts.fill(0);
+    for (let s = 0; s < labels.length; s++) {
+      for (let c = 0; c < K; c++) {
+        if (s < range[0] || s >= range[1]) weights.weights[s * K + c] = 0;
+        else if (weights.weights[s * K + c]) weights.counts[c]++;
+      }
+    }
+  }
   const estimate = estimateMacs(inspection);
 
   const blocks: SiteSensitivity[] = [];
@@ -204,9 +237,13 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     }
     if (baseline) checkBaseline(baseline, tail, options.from!);
     const layer = byName.get(site)!;
-    const block = await senseOneSite({ site, layer, tail, model, inspection, readout, weights, kind, step, secondStep: options.secondStep ?? false, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress });
+    const block = await senseOneSite({ site, layer, tail, model, inspection, readout, weights, kind, step, secondStep: options.secondStep ?? false, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
     block.downstreamShare = downstreamShare(estimate, tail.computed);
     block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare + block.prefixStimuli) / (block.channels * block.stimuliUsed);
+    if (options.shard) {
+      blocks.push(block);
+      continue;
+    }
     const check = errorCheck(block, warnRatio, options.secondStep ?? false);
     block.worstErrorRatio = check.worst;
     if (check.warning) {
@@ -413,6 +450,10 @@ interface SiteRun {
   batch: number;
   byName: Map<string, LayerInfo>;
   onProgress: SenseOptions['onProgress'];
+  /** Local stimulus indices [start, end) to run (a shard; all by default). */
+  range?: [number, number];
+  /** Keep the readout sums on the block (shards). */
+  keepSums?: boolean;
 }
 
 /** A stimulus's boundary tensors, as views into a batch's arrays. */
@@ -634,29 +675,8 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     await session.close();
   }
 
-  const sensitivity = new Float64Array(C * K);
-  const fdError = new Float64Array(C * K);
   const counts = weights.counts;
-  for (let k = 0; k < C; k++) {
-    for (let c = 0; c < K; c++) {
-      const n = counts[c]!;
-      const plus = sumPerturbed[(0 * C + k) * K + c]! / n;
-      const minus = sumPerturbed[(1 * C + k) * K + c]! / n;
-      const zero = sumIdentity[c]! / n;
-      const central = (plus - minus) / (2 * step);
-      const forward = (plus - zero) / step;
-      const backward = (zero - minus) / step;
-      let error = Math.abs(forward - backward) / 2;
-      if (variants === 4) {
-        const halfPlus = sumPerturbed[(2 * C + k) * K + c]! / n;
-        const halfMinus = sumPerturbed[(3 * C + k) * K + c]! / n;
-        const half = (halfPlus - halfMinus) / step; // (y(+h/2) − y(−h/2)) / (2 · h/2)
-        error = Math.max(error, Math.abs(central - half));
-      }
-      sensitivity[k * K + c] = central;
-      fdError[k * K + c] = error;
-    }
-  }
+  const { sensitivity, fdError } = sensitivityFromSums({ variants, perturbed: sumPerturbed, identity: sumIdentity, counts }, C, K, step);
   return {
     layer: site,
     depth: layer.depth,
@@ -680,7 +700,42 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     forwardEquivalentsPerChannel: Number.NaN,
     prefixStimuli,
     stimuliUsed: used,
+    ...(run.keepSums ? { sums: { variants, perturbed: sumPerturbed, identity: sumIdentity, counts: Int32Array.from(counts) } } : {}),
   };
+}
+
+/**
+ * Sensitivities and their error estimates from readout sums (the formulas of the file comment):
+ * central secant (ȳ(+h) − ȳ(−h)) / 2h, fd_error |D₊ − D₋| / 2, with `variants` 4 also |D(h) − D(h/2)|.
+ * @param sums readout sums and counts (from one run, or added up over shards).
+ * @param C channels; K categories; step h.
+ * @returns [C, K] arrays (k*K + c); a category with count 0 gives NaN.
+ */
+export function sensitivityFromSums(sums: SensitivitySums, C: number, K: number, step: number): { sensitivity: Float64Array; fdError: Float64Array } {
+  const { variants, perturbed: sumPerturbed, identity: sumIdentity, counts } = sums;
+  const sensitivity = new Float64Array(C * K);
+  const fdError = new Float64Array(C * K);
+  for (let k = 0; k < C; k++) {
+    for (let c = 0; c < K; c++) {
+      const n = counts[c]!;
+      const plus = sumPerturbed[(0 * C + k) * K + c]! / n;
+      const minus = sumPerturbed[(1 * C + k) * K + c]! / n;
+      const zero = sumIdentity[c]! / n;
+      const central = (plus - minus) / (2 * step);
+      const forward = (plus - zero) / step;
+      const backward = (zero - minus) / step;
+      let error = Math.abs(forward - backward) / 2;
+      if (variants === 4) {
+        const halfPlus = sumPerturbed[(2 * C + k) * K + c]! / n;
+        const halfMinus = sumPerturbed[(3 * C + k) * K + c]! / n;
+        const half = (halfPlus - halfMinus) / step; // (y(+h/2) − y(−h/2)) / (2 · h/2)
+        error = Math.max(error, Math.abs(central - half));
+      }
+      sensitivity[k * K + c] = central;
+      fdError[k * K + c] = error;
+    }
+  }
+  return { sensitivity, fdError };
 }
 
 interface BoundaryBatch {
@@ -694,7 +749,10 @@ async function* boundaryStream(run: SiteRun, boundary: readonly string[]): Async
   const perRow = boundary.map((name) => (name === run.model.input.name ? run.inspection.input.shape.slice(1) : run.byName.get(name)!.shape).reduce((a, b) => a * b, 1));
   if (run.baseline) {
     const baseline = run.baseline;
-    const streams = boundary.map((name) => baseline.readLayer(name));
+    // stimulus indices are local (0-based within the snapshot, which may be a shard)
+    const offset = baseline.firstIndex;
+    const read = run.range ? { range: [offset + run.range[0], offset + run.range[1]] as [number, number] } : {};
+    const streams = boundary.map((name) => baseline.readLayer(name, read));
     try {
       for (;;) {
         const parts = await Promise.all(streams.map((s) => s.next()));
@@ -707,7 +765,7 @@ async function* boundaryStream(run: SiteRun, boundary: readonly string[]): Async
         });
         const stimuli: StimulusValues[] = [];
         for (let r = 0; r < first.rows; r++) {
-          stimuli.push({ index: first.index[r]!, values: batches.map((b, i) => b.activation!.subarray(r * perRow[i]!, (r + 1) * perRow[i]!)) });
+          stimuli.push({ index: first.index[r]! - offset, values: batches.map((b, i) => b.activation!.subarray(r * perRow[i]!, (r + 1) * perRow[i]!)) });
         }
         yield { stimuli, prefixSeconds: 0, prefixRuns: 0 };
       }
@@ -723,8 +781,9 @@ async function* boundaryStream(run: SiteRun, boundary: readonly string[]): Async
   try {
     const [c, h, w] = source.shape;
     const per = c * h * w;
-    for (let first = 0; first < source.count; first += run.batch) {
-      const rows = Math.min(run.batch, source.count - first);
+    const [from, to] = run.range ?? [0, source.count];
+    for (let first = from; first < to; first += run.batch) {
+      const rows = Math.min(run.batch, to - first);
       const input = new Float32Array(rows * per);
       await source.read(first, rows, input);
       const t0 = performance.now();
@@ -745,8 +804,8 @@ async function* boundaryStream(run: SiteRun, boundary: readonly string[]): Async
   }
 }
 
-/** Finds the worst fd_error relative to its category's largest |sensitivity| and words a warning. */
-function errorCheck(block: SiteSensitivity, ratio: number, secondStep: boolean): { worst: number; warning?: string } {
+/** Finds the worst fd_error relative to its category's largest |sensitivity| and words a warning (exported for merged shards). */
+export function errorCheck(block: SiteSensitivity, ratio: number, secondStep: boolean): { worst: number; warning?: string } {
   const { channels: C, categories } = block;
   const K = categories.length;
   let worst = 0;
