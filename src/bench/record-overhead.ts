@@ -30,9 +30,9 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
       return (performance.now() - start) / 1000;
     };
     let out = 0;
-    const record = async (layers: string): Promise<{ seconds: number; bytes: number }> => {
+    const record = async (layers: string, sessionInWorker = true): Promise<{ seconds: number; bytes: number }> => {
       const start = performance.now();
-      const summary = await recordSnapshot({ model, stimuli: path, out: join(work.folder, `snap${out++}`), layers, batch: BATCH, threads: THREADS });
+      const summary = await recordSnapshot({ model, stimuli: path, out: join(work.folder, `snap${out++}`), layers, batch: BATCH, threads: THREADS, sessionInWorker });
       const seconds = (performance.now() - start) / 1000;
       rmSync(summary.folder, { recursive: true, force: true }); // so the next run does not wait on this one's writeback
       return { seconds, bytes: summary.bytesWritten };
@@ -42,6 +42,7 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
     const bareTimes: number[] = [];
     const defaultTimes: number[] = [];
     const allTimes: number[] = [];
+    const sameThreadTimes: number[] = [];
     let defaultBytes = 0;
     let allBytes = 0;
     for (let r = 0; r < REPEATS; r++) {
@@ -49,6 +50,7 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
       const d = await record('default');
       defaultTimes.push(d.seconds);
       defaultBytes = d.bytes;
+      sameThreadTimes.push((await record('default', false)).seconds);
       bareTimes.push(await bare());
       const a = await record('all');
       allTimes.push(a.seconds);
@@ -65,6 +67,8 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
         'record all s': median(allTimes),
         'ratio default': median(defaultTimes) / bareSeconds,
         'ratio all': median(allTimes) / bareSeconds,
+        'record default, network on the main thread s': median(sameThreadTimes),
+        'overlap gain (main thread / worker)': median(sameThreadTimes) / median(defaultTimes),
         'written default MB': defaultBytes / 1e6,
         'written all MB': allBytes / 1e6,
       },

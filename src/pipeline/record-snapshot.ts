@@ -57,6 +57,11 @@ export interface RecordOptions {
   bgr?: boolean;
   /** Full input shape for models with dynamic spatial axes. */
   inputShape?: number[];
+  /**
+   * Run the network in a worker thread (default true), so that reading and writing overlap the
+   * computation; false runs it on the calling thread (the benchmark measures the difference).
+   */
+  sessionInWorker?: boolean;
   /** Replace a complete snapshot already in `out`. */
   force?: boolean;
   /**
@@ -260,7 +265,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       lastCheckpoint = performance.now();
     };
     if (!checkpoint) takeCheckpoint(0, 0);
-    const session = await createNetworkSession(exposeTensors(run.model, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: run.model.fileName });
+    const session = await createNetworkSession(exposeTensors(run.model, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true });
     let bytesWritten = 0;
     let batchesDone = doneBatches;
     try {
