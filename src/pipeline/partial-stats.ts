@@ -28,6 +28,8 @@ import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { collectDiff, finishDiff, type CollectedLayer, type DiffCollection, type DiffOptions, type DiffReport } from './diff-snapshots.js';
 import { shardRange, type ShardSpec } from './shard.js';
 import { assembleTuneResult, planTuning, type TuneOptions, type TuneResult } from './tune.js';
+import { DEFAULT_WARN_RATIO, errorCheck, senseSites, sensitivityFromSums, type SenseOptions, type SenseResult, type SiteSensitivity } from './sense.js';
+import { writeSensitivityTable } from '../snapshot/tables.js';
 
 /** Tag of a partial-statistics file. */
 export const PARTIAL_KIND = 'sonde.partial';
@@ -54,7 +56,7 @@ export interface PartialShard {
 export interface PartialFile {
   kind: typeof PARTIAL_KIND;
   version: typeof PARTIAL_VERSION;
-  of: 'diff' | 'tune';
+  of: 'diff' | 'tune' | 'sense';
   shard: PartialShard;
   /** Identity of the whole run (snapshots, options); equal in every part. */
   key: Record<string, unknown>;
@@ -344,7 +346,7 @@ export function readPartial(path: string): PartialFile {
   const v = typeof value === 'object' && value !== null ? (value as Record<string, unknown>) : {};
   if (v['kind'] !== PARTIAL_KIND) throw new UsageError('E_PARTIAL', `${path} is not a Sonde partial-statistics file`, { hint: 'pass files written by diff/tune --partial, or snapshot folders' });
   if (v['version'] !== PARTIAL_VERSION) throw new UsageError('E_PARTIAL', `${path} has partial-statistics version ${JSON.stringify(v['version'])}; this Sonde reads ${PARTIAL_VERSION}`);
-  if (v['of'] !== 'diff' && v['of'] !== 'tune') throw new UsageError('E_PARTIAL', `${path}: "of" must be "diff" or "tune", got ${JSON.stringify(v['of'])}`);
+  if (v['of'] !== 'diff' && v['of'] !== 'tune' && v['of'] !== 'sense') throw new UsageError('E_PARTIAL', `${path}: "of" must be "diff", "tune" or "sense", got ${JSON.stringify(v['of'])}`);
   const s = v['shard'] as Record<string, unknown> | undefined;
   const int = (x: unknown) => Number.isSafeInteger(x) && (x as number) >= 0;
   if (!s || !int(s['index']) || !int(s['count']) || !int(s['total']) || !Array.isArray(s['stimuli']) || s['stimuli'].length !== 2 || !s['stimuli'].every(int)) {
@@ -355,7 +357,7 @@ export function readPartial(path: string): PartialFile {
 }
 
 /** What `mergePartials` gives. */
-export type MergedPartials = { of: 'diff'; report: DiffReport } | { of: 'tune'; result: TuneResult };
+export type MergedPartials = { of: 'diff'; report: DiffReport } | { of: 'tune'; result: TuneResult } | { of: 'sense'; result: SenseResult };
 
 /**
  * Checks that partial files belong together and combines them into the full result.
@@ -414,6 +416,7 @@ export async function mergePartials(parts: readonly PartialFile[], paths: readon
     const o = record(first.key['options'], 'key.options') as { bootstrap: number; seed: number; tolerance: number; threshold: number | 'best' | 'auto' };
     return { of: 'diff', report: await finishDiff(merged, { bootstrap: o.bootstrap, seed: o.seed, tolerance: o.tolerance, threshold: o.threshold }) };
   }
+  if (first.of === 'sense') return { of: 'sense', result: mergeSense(ordered, options) };
   const layerLists = ordered.map(({ part, path }) => {
     const layers = part.data['layers'];
     if (!Array.isArray(layers)) throw new UsageError('E_PARTIAL', `${path}: data.layers must be a list`);
@@ -437,4 +440,97 @@ function concat(a: Float32Array, b: Float32Array): Float32Array {
   out.set(a);
   out.set(b, a.length);
   return out;
+}
+
+// ---------------------------------------------------------------------------------------------------
+// sense
+
+/**
+ * Measures shard `shard` of a sensitivity run: per site the readout sums of the shard's stimuli.
+ * @throws UsageError as `senseSites` does.
+ */
+export async function sensePartial(options: SenseOptions, shard: ShardSpec): Promise<PartialFile> {
+  const { out: _out, ...rest } = options;
+  const result = await senseSites({ ...rest, shard });
+  const [start, end] = result.range;
+  const info: PartialShard = { index: shard.index, count: shard.count, stimuli: [start, end - 1], total: result.stimuli };
+  const key = {
+    metadata: result.metadata,
+    readout: result.readout,
+    source: result.source,
+    warnRatio: options.warnRatio ?? DEFAULT_WARN_RATIO,
+    secondStep: options.secondStep ?? false,
+    sites: result.sites.map((b) => [b.layer, b.kind, b.step, b.channels]),
+  };
+  const sites = result.sites.map((block) => {
+    const { sensitivity: _s, fdError: _e, sums, count, ...fields } = block;
+    return { ...fields, count: encodeArray(count), sums: { variants: sums!.variants, perturbed: encodeArray(sums!.perturbed), identity: encodeArray(sums!.identity), counts: encodeArray(sums!.counts) } };
+  });
+  return { kind: PARTIAL_KIND, version: PARTIAL_VERSION, of: 'sense', shard: info, key, data: { sites } };
+}
+
+/** Adds up the shards' sums per site and derives sensitivities, errors, costs and warnings. */
+function mergeSense(ordered: ReadonlyArray<{ part: PartialFile; path: string }>, options: { out?: string }): SenseResult {
+  const key = ordered[0]!.part.key as { metadata: Record<string, string>; readout: SenseResult['readout']; source: SenseResult['source']; warnRatio: number; secondStep: boolean };
+  const perPart = ordered.map(({ part, path }) => {
+    const sites = part.data['sites'];
+    if (!Array.isArray(sites)) throw new UsageError('E_PARTIAL', `${path}: data.sites must be a list`);
+    return sites.map((value: unknown, i: number) => {
+      const at = `${path}: data.sites[${i}]`;
+      const b = record(value, at);
+      const sums = record(b['sums'], `${at}.sums`);
+      return {
+        fields: b,
+        variants: Number(sums['variants']),
+        perturbed: decodeArray(sums['perturbed'], 'f64', `${at}.sums.perturbed`),
+        identity: decodeArray(sums['identity'], 'f64', `${at}.sums.identity`),
+        counts: decodeArray(sums['counts'], 'i32', `${at}.sums.counts`),
+      };
+    });
+  });
+  const blocks: SiteSensitivity[] = perPart[0]!.map((firstSite, i) => {
+    const f = firstSite.fields;
+    const C = Number(f['channels']);
+    const categories = (f['categories'] as unknown[]).map(String);
+    const K = categories.length;
+    const perturbed = new Float64Array(firstSite.perturbed.length);
+    const identity = new Float64Array(firstSite.identity.length);
+    const counts = new Int32Array(firstSite.counts.length);
+    const total = { runs: 0, rows: 0, skippedRows: 0, prefixRuns: 0, prefixStimuli: 0, tailSeconds: 0, prefixSeconds: 0, wallSeconds: 0, stimuliUsed: 0 };
+    for (const sites of perPart) {
+      const site = sites[i]!;
+      if (site.perturbed.length !== perturbed.length || site.counts.length !== counts.length) throw new UsageError('E_PAIRING', `site ${String(f['layer'])}: the shards' sums have different sizes`);
+      for (let j = 0; j < perturbed.length; j++) perturbed[j] += site.perturbed[j]!;
+      for (let j = 0; j < identity.length; j++) identity[j] += site.identity[j]!;
+      for (let j = 0; j < counts.length; j++) counts[j] += site.counts[j]!;
+      for (const name of Object.keys(total) as Array<keyof typeof total>) total[name] += Number(site.fields[name]);
+    }
+    const step = Number(f['step']);
+    const { sensitivity, fdError } = sensitivityFromSums({ variants: firstSite.variants, perturbed, identity, counts }, C, K, step);
+    const share = Number(f['downstreamShare']);
+    const block: SiteSensitivity = {
+      layer: String(f['layer']),
+      depth: Number(f['depth']),
+      op: String(f['op']),
+      channels: C,
+      categories,
+      sensitivity,
+      fdError,
+      kind: f['kind'] === 'offset' ? 'offset' : 'gain',
+      step,
+      count: counts,
+      worstErrorRatio: 0,
+      ...total,
+      downstreamShare: share,
+      forwardEquivalentsPerChannel: (total.rows * share + total.prefixStimuli) / (C * total.stimuliUsed),
+    };
+    const check = errorCheck(block, key.warnRatio, key.secondStep);
+    block.worstErrorRatio = check.worst;
+    if (check.warning) block.warning = check.warning;
+    return block;
+  });
+  const total = ordered[0]!.part.shard.total;
+  const result: SenseResult = { sites: blocks, readout: key.readout, source: key.source, warnings: blocks.flatMap((b) => (b.warning ? [b.warning] : [])), stimuli: total, range: [0, total], metadata: key.metadata };
+  if (options.out !== undefined) result.file = { path: options.out, ...writeSensitivityTable(options.out, blocks, key.metadata) };
+  return result;
 }

@@ -168,6 +168,11 @@ export interface SenseResult {
   source: 'baseline' | 'network';
   warnings: string[];
   file?: { path: string; bytes: number; rows: number };
+  /** Stimuli in the listing, and the local index range measured ([0, N) without a shard). */
+  stimuli: number;
+  range: [number, number];
+  /** The metadata written into (or, for a shard, meant for) the sensitivity table. */
+  metadata: Record<string, string>;
 }
 
 /**
@@ -191,6 +196,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   const rowsPerRun = options.rowsPerRun ?? DEFAULT_ROWS_PER_RUN;
   if (!Number.isSafeInteger(rowsPerRun) || rowsPerRun < 1) throw new UsageError('E_SENSE_ROWS', `rowsPerRun must be a positive integer, got ${rowsPerRun}`);
   const warnRatio = options.warnRatio ?? DEFAULT_WARN_RATIO;
+  if (options.shard && options.out !== undefined) throw new UsageError('E_SENSE_SHARD', 'a shard measures part of the stimuli: write its partial statistics and merge them instead of writing a table');
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
   if (typeof model.input.dims[0] === 'number') {
     throw new UsageError('E_SENSE_BATCH', `model ${model.fileName} has a fixed batch axis (${model.input.dims[0]}); sense batches many perturbed copies of a stimulus and needs a free batch axis`, {
@@ -252,18 +258,16 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     }
     blocks.push(block);
   }
-  const result: SenseResult = { sites: blocks, readout, source: baseline ? 'baseline' : 'network', warnings };
+  const metadata = {
+    'sonde.model': `${model.fileName} sha256:${model.sha256}`,
+    'sonde.readout': readout.tensor,
+    'sonde.stimuli_of': options.stimuliOf ?? 'all',
+    'sonde.second_step': String(options.secondStep ?? false),
+    'sonde.source': baseline ? `baseline ${baseline.folder}` : `stimuli ${options.stimuli}`,
+  };
+  const result: SenseResult = { sites: blocks, readout, source: baseline ? 'baseline' : 'network', warnings, stimuli: labels.length, range, metadata };
   if (options.out !== undefined) {
-    result.file = {
-      path: options.out,
-      ...writeSensitivityTable(options.out, blocks, {
-        'sonde.model': `${model.fileName} sha256:${model.sha256}`,
-        'sonde.readout': readout.tensor,
-        'sonde.stimuli_of': options.stimuliOf ?? 'all',
-        'sonde.second_step': String(options.secondStep ?? false),
-        'sonde.source': baseline ? `baseline ${baseline.folder}` : `stimuli ${options.stimuli}`,
-      }),
-    };
+    result.file = { path: options.out, ...writeSensitivityTable(options.out, blocks, metadata) };
   }
   return result;
 }

@@ -8,7 +8,7 @@
 import { readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { readTuningTable } from '../../src/snapshot/tables.js';
+import { readSensitivityTable, readTuningTable } from '../../src/snapshot/tables.js';
 import { shardRange } from '../../src/pipeline/shard.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 import { ensureBuilt, runSondeProcess } from './cli-process.js';
@@ -143,13 +143,15 @@ describe('record --shard K/N and merge', () => {
     expect(readTuningTable(join(dir, 'tm.arrow')).blocks).toEqual(readTuningTable(join(dir, 'ts.arrow')).blocks);
   });
 
-  it('diff --shard K/4 --partial and tune --shard K/4 --partial in 4 processes merge to the single-run results', async () => {
+  it('diff, tune and sense --shard K/4 --partial merge to the single-run results', async () => {
     const diffParts = [1, 2, 3, 4].map((k) => join(dir, `d${k}.json`));
     const tuneParts = [1, 2, 3, 4].map((k) => join(dir, `t${k}.json`));
-    const runs = await Promise.all([
-      ...diffParts.map((p, i) => runSondeProcess(['diff', join(dir, 'single'), join(dir, 'single-mod'), '--bootstrap', '200', '--task', 'labels', '--threshold', 'best', '--shard', `${i + 1}/4`, '--partial', p])),
-      ...tuneParts.map((p, i) => runSondeProcess(['tune', join(dir, 'single'), '--shard', `${i + 1}/4`, '--partial', p])),
-    ]);
+    // in-process (the shard recordings above are the separate processes); each call is one shard's job
+    const runs = [];
+    for (const job of [
+      ...diffParts.map((p, i) => ['diff', join(dir, 'single'), join(dir, 'single-mod'), '--bootstrap', '200', '--task', 'labels', '--threshold', 'best', '--shard', `${i + 1}/4`, '--partial', p]),
+      ...tuneParts.map((p, i) => ['tune', join(dir, 'single'), '--shard', `${i + 1}/4`, '--partial', p]),
+    ]) runs.push(await runSonde(job));
     runs.forEach((r) => expect(r.code, r.stderr).toBe(0));
     const merged = await runSonde(['merge', ...diffParts.reverse(), '--json']);
     expect(merged.code, merged.stderr).toBe(0);
@@ -160,6 +162,18 @@ describe('record --shard K/N and merge', () => {
     const got = readTuningTable(join(dir, 'tp.arrow')).blocks;
     const want = readTuningTable(join(dir, 'ts.arrow')).blocks;
     expectClose(got.map((b) => ({ ...b, mean: Array.from(b.mean), sem: Array.from(b.sem), tuning: Array.from(b.tuning) })), want.map((b) => ({ ...b, mean: Array.from(b.mean), sem: Array.from(b.sem), tuning: Array.from(b.tuning) })), 1e-9);
+    // sense: 4 shard processes of readout sums, merged, equal one run (sums added in another order: 1e-9)
+    const senseParts = [1, 2, 3, 4].map((k) => join(dir, `s${k}.json`));
+    const senseArgs = ['sense', model, '--from', join(dir, 'single'), '--site', 'relu1', '--readout', 'logits', '--threads', '1'];
+    const sensed = [];
+    for (const [i, p] of senseParts.entries()) sensed.push(await runSonde([...senseArgs, '--shard', `${i + 1}/4`, '--partial', p]));
+    sensed.forEach((r) => expect(r.code, r.stderr).toBe(0));
+    const senseMerged = await runSonde(['merge', ...senseParts, '--out', join(dir, 'sm.arrow')]);
+    expect(senseMerged.code, senseMerged.stderr).toBe(0);
+    const senseWhole = await runSonde([...senseArgs, '--out', join(dir, 'sw.arrow')]);
+    expect(senseWhole.code, senseWhole.stderr).toBe(0);
+    const plain = (blocks: ReturnType<typeof readSensitivityTable>['blocks']) => blocks.map((b) => ({ ...b, sensitivity: Array.from(b.sensitivity), fdError: Array.from(b.fdError), count: Array.from(b.count) }));
+    expectClose(plain(readSensitivityTable(join(dir, 'sm.arrow')).blocks), plain(readSensitivityTable(join(dir, 'sw.arrow')).blocks), 1e-9);
     // a missing shard and a foreign part are refused with one line
     const missing = await runSonde(['merge', ...diffParts.slice(1)]);
     expect(missing.code).toBe(2);

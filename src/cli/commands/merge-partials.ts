@@ -19,11 +19,20 @@ import { cliIo } from '../run.js';
 export async function mergePartialFiles(parts: readonly string[], options: { out?: string; json: boolean }): Promise<void> {
   const io = cliIo();
   const files = parts.map((p) => readPartial(p));
-  if (files[0]!.of === 'tune' && options.out === undefined) throw new UsageError('E_MERGE', 'merging tune partials needs --out FILE.arrow (where the tuning table goes)');
+  if (files[0]!.of !== 'diff' && options.out === undefined) throw new UsageError('E_MERGE', `merging ${files[0]!.of} partials needs --out FILE.arrow (where the ${files[0]!.of === 'tune' ? 'tuning' : 'sensitivity'} table goes)`);
   if (files[0]!.of === 'diff' && options.out !== undefined) throw new UsageError('E_MERGE', 'merging diff partials prints the report; --out applies to snapshots and tuning tables');
   const merged = await mergePartials(files, parts, options.out !== undefined ? { out: options.out } : {});
   if (merged.of === 'diff') {
     io.stdout(options.json ? reportToJson(merged.report) : renderDiffReport(merged.report));
+    return;
+  }
+  if (merged.of === 'sense') {
+    const result = merged.result;
+    for (const warning of result.warnings) io.stderr(`sonde: warning: ${warning}\n`);
+    if (options.json) {
+      const sites = result.sites.map(({ sensitivity: _s, fdError: _e, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
+      io.stdout(`${JSON.stringify({ readout: result.readout, source: result.source, file: result.file, sites }, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
+    } else io.stdout(`merged ${parts.length} sense partials: ${result.sites.length} sites, ${result.stimuli} stimuli → ${displayPath(options.out!)}\n`);
     return;
   }
   const r = merged.result;

@@ -8,11 +8,13 @@ import type { Command } from 'commander';
 import { InvalidArgumentError } from 'commander';
 import { UsageError } from '../../errors.js';
 import { displayPath } from '../../pipeline/record-snapshot.js';
-import { ALL_ACTIVATIONS, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, senseSites } from '../../pipeline/sense.js';
+import { ALL_ACTIVATIONS, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, senseSites, type SenseOptions } from '../../pipeline/sense.js';
 import { parseChannelList, parseShape } from '../../stimuli/preprocess.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo } from '../run.js';
+import { sensePartial, writePartial } from '../../pipeline/partial-stats.js';
+import { parseShard } from '../../pipeline/shard.js';
 
 interface SenseCliOptions {
   stimuli?: string;
@@ -24,7 +26,9 @@ interface SenseCliOptions {
   step: string;
   secondStep?: boolean;
   stimuliOf?: string;
-  out: string;
+  out?: string;
+  shard?: string;
+  partial?: string;
   rows: number;
   batch: number;
   threads: number;
@@ -42,7 +46,7 @@ export function registerSense(program: Command): void {
     .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by central differences')
     .argument('<model>', 'ONNX model file')
     .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect)
-    .requiredOption('--out <file.arrow>', 'write the sensitivity table here')
+    .option('--out <file.arrow>', 'write the sensitivity table here (required unless --partial)')
     .option('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W] (optional with --from)')
     .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
@@ -59,8 +63,13 @@ export function registerSense(program: Command): void {
     .option('--std <a,b,c>', 'per-channel std after scaling to [0,1] (default: model sidecar, else 1)')
     .option('--bgr', 'feed channels in BGR order')
     .option('--json', 'print JSON instead of a table')
+    .option('--shard <K/N>', 'with --partial: measure only shard K of N of the stimuli')
+    .option('--partial <file.json>', 'write mergeable partial statistics (readout sums) instead of the table; combine with `sonde merge … --out S.arrow`')
     .action(async (modelPath: string, opts: SenseCliOptions) => {
       const io = cliIo();
+      if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });
+      if (opts.partial !== undefined && opts.out !== undefined) throw new UsageError('E_PARTIAL', '--partial writes statistics only; --out applies when the parts are merged');
+      if (opts.partial === undefined && opts.out === undefined) throw new UsageError('E_USAGE', 'sonde sense needs --out FILE.arrow (where the sensitivity table goes), or --partial FILE.json with --shard');
       if (opts.site === undefined || opts.site.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --site TENSOR (or --site ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
       if (opts.kind !== 'gain' && opts.kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${opts.kind}"`);
       const step = Number(opts.step);
@@ -70,7 +79,7 @@ export function registerSense(program: Command): void {
       const bar = createProgressBar('sense');
       let result;
       try {
-        result = await senseSites({
+        const senseOptions: SenseOptions = {
           model: modelPath,
           site: opts.site,
           kind: opts.kind,
@@ -78,7 +87,7 @@ export function registerSense(program: Command): void {
           rowsPerRun: opts.rows,
           batch: opts.batch,
           threads: opts.threads,
-          out: opts.out,
+          ...(opts.out !== undefined ? { out: opts.out } : {}),
           ...(opts.stimuli !== undefined ? { stimuli: opts.stimuli } : {}),
           ...(opts.labels !== undefined ? { labels: opts.labels } : {}),
           ...(opts.from !== undefined ? { from: opts.from } : {}),
@@ -89,8 +98,17 @@ export function registerSense(program: Command): void {
           ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
           ...(opts.std ? { std: parseChannelList(opts.std, 0, '--std') } : {}),
           ...(opts.bgr ? { bgr: true } : {}),
-          onProgress: (p) => bar.update(p.rowsDone, p.rowsTotal, p.site),
-        });
+          onProgress: (p: { site: string; rowsDone: number; rowsTotal: number }) => bar.update(p.rowsDone, p.rowsTotal, p.site),
+        };
+        if (opts.partial !== undefined) {
+          const shard = opts.shard !== undefined ? parseShard(opts.shard) : { index: 1, count: 1 };
+          const partial = await sensePartial(senseOptions, shard);
+          bar.stop();
+          const written = writePartial(opts.partial, partial);
+          io.stdout(`wrote partial sensitivity statistics of shard ${shard.index}/${shard.count} (stimuli ${partial.shard.stimuli[0]}..${partial.shard.stimuli[1]}) to ${opts.partial} (${written.bytes} bytes)\n`);
+          return;
+        }
+        result = await senseSites(senseOptions);
       } finally {
         bar.stop();
       }
@@ -106,7 +124,7 @@ export function registerSense(program: Command): void {
         for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
         table.push([s.layer, s.channels, s.categories.length, s.stimuliUsed, largest.toPrecision(3), `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
       }
-      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), step ${step}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out)}\n`);
+      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), step ${step}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
       io.stdout(`${table.toString()}\n`);
       io.stdout(`values are central secants (y(+h) − y(−h)) / 2h; worst fd_error is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%); forward-pass equivalents from Conv/Gemm/MatMul multiply-adds\n`);
     });
