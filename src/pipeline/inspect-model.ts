@@ -111,7 +111,7 @@ export function resolveInputShape(model: LoadedModel, override: number[] | undef
         throw new UsageError('E_INPUT_SHAPE', `--input-shape ${override.join('x')}: axis ${i} is fixed to ${fixed} by the model`);
       }
     });
-    return override.slice();
+    return assertReasonableShape(override.slice(), `--input-shape ${override.join('x')}`);
   }
   const open = declared.map((d, i) => (i > 0 && typeof d !== 'number' ? i : -1)).filter((i) => i >= 0);
   if (open.length > 0) {
@@ -120,5 +120,22 @@ export function resolveInputShape(model: LoadedModel, override: number[] | undef
     });
   }
   if (declared.length === 0) throw new UsageError('E_INPUT_SHAPE', `input "${model.input.name}" of ${model.fileName} declares no shape`, { hint: 'pass --input-shape' });
-  return declared.map((d, i) => (i === 0 ? (typeof d === 'number' ? d : 1) : (d as number)));
+  return assertReasonableShape(declared.map((d, i) => (i === 0 ? (typeof d === 'number' ? d : 1) : (d as number))), `input "${model.input.name}" of ${model.fileName}`);
+}
+
+/**
+ * Largest input Sonde feeds: 2^28 elements per stimulus (1 GiB of float32) and batches of at most 2^16
+ * (our limit; far above any image model, low enough that a corrupt or hostile shape is refused before
+ * anything is allocated).
+ */
+export const MAX_INPUT_ELEMENTS = 2 ** 28;
+
+function assertReasonableShape(shape: number[], what: string): number[] {
+  const perStimulus = shape.slice(1).reduce((a, b) => a * b, 1);
+  if (perStimulus > MAX_INPUT_ELEMENTS || (shape[0] ?? 1) > 2 ** 16) {
+    throw new UsageError('E_INPUT_SHAPE', `${what}: shape [${shape.join(', ')}] is absurdly large (${perStimulus.toExponential(2)} values per stimulus; the limit is ${MAX_INPUT_ELEMENTS})`, {
+      hint: 'check the shape; a real image input is e.g. 1x3x224x224',
+    });
+  }
+  return shape;
 }
