@@ -3,7 +3,7 @@
  * FORMAT_VERSION changes whenever a field changes meaning; readers refuse versions they do not know.
  */
 import { closeSync, existsSync, fsyncSync, openSync, readFileSync, renameSync, writeSync } from 'node:fs';
-import { isAbsolute, join, relative, resolve } from 'node:path';
+import { isAbsolute, join, relative, resolve, sep } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 
 /**
@@ -205,7 +205,8 @@ export function assertInside(folder: string, file: string, what: string): string
   const root = resolve(folder);
   const target = resolve(root, file);
   const rel = relative(root, target);
-  if (rel === '' || rel.startsWith('..') || isAbsolute(rel)) {
+  // '..' as a whole segment climbs out; names like '...' or '..a' are ordinary names inside
+  if (rel === '' || rel === '..' || rel.startsWith(`..${sep}`) || isAbsolute(rel)) {
     throw new UsageError('E_MANIFEST_PATH', `${what} "${file}" points outside the snapshot folder`);
   }
   return target;
