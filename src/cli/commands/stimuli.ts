@@ -4,8 +4,15 @@
  */
 import type { Command } from 'commander';
 import { UsageError, closestHint } from '../../errors.js';
-import { DEMO_KINDS, STIMULUS_FORMATS, isDemoKind, makeStimulusSet, type DemoKind, type StimulusFormat } from '../../stimuli/demo/index.js';
-import { DEFAULT_DISPLAY_OPTIONS } from '../../stimuli/demo/options.js';
+import {
+  DEFAULT_DISPLAY_OPTIONS,
+  DEMO_KINDS,
+  STIMULUS_FORMATS,
+  isDemoKind,
+  makeStimulusSet,
+  type DemoKind,
+  type StimulusFormat,
+} from '../../stimuli/demo/index.js';
 import { cliIo } from '../run.js';
 
 interface MakeFlags {
