@@ -59,6 +59,31 @@ describe('write failures', () => {
     }
   });
 
+  it('record --modulate --from (downstream replay and full run) stopped by a full disk resumes byte-identical', async () => {
+    const base = join(dir, 'clean');
+    writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\nstrength: 1.25\n');
+    const modArgs = (out: string, extra: string[] = []) => ['record', model, '--stimuli', stimuli.npy, '--labels', stimuli.labels, '--out', out, '--modulate', join(dir, 'spec.yaml'), '--from', base, '--batch', '4', '--threads', '1', '--checkpoint-every', '0', ...extra];
+    for (const mode of [[], ['--full-run']]) {
+      const tag = mode.length ? 'full' : 'tail';
+      const clean = await runSonde(modArgs(join(dir, `mod-clean-${tag}`), mode));
+      expect(clean.code, clean.stderr).toBe(0);
+      expect(clean.stdout).toMatch(mode.length ? /full run/ : /replayed the downstream part/);
+      // the disk fills halfway through what the clean run wrote
+      const written = (JSON.parse(readFileSync(join(dir, `mod-clean-${tag}`, 'manifest.json'), 'utf8')) as { layers: Array<{ from?: string; bytes?: number }> }).layers.reduce((sum, l) => sum + (l.from ? 0 : l.bytes ?? 0), 0);
+      diskFull(written / 2);
+      const failed = await runSonde(modArgs(join(dir, `mod-${tag}`), mode));
+      injectWriteFault(null);
+      expect(failed.code).toBe(1);
+      expect(failed.stderr).toMatch(/the disk is full; snapshot .* is left marked incomplete/);
+      const resumed = await runSonde(modArgs(join(dir, `mod-${tag}`), [...mode, '--resume']));
+      expect(resumed.code, resumed.stderr).toBe(0);
+      expect(resumed.stderr).toMatch(/resuming .* after [1-9]\d* of 40 stimuli/);
+      for (const name of readdirSync(join(dir, `mod-clean-${tag}`, 'layers'))) {
+        expect(readFileSync(join(dir, `mod-${tag}`, 'layers', name)).equals(readFileSync(join(dir, `mod-clean-${tag}`, 'layers', name))), `${tag} ${name}`).toBe(true);
+      }
+    }
+  });
+
   it('sonde record whose every write fails with EIO names the file and never marks the snapshot complete', async () => {
     const out = join(dir, 'eio');
     injectWriteFault(() => Object.assign(new Error('EIO: i/o error, write'), { code: 'EIO' }));
