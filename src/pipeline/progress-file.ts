@@ -16,6 +16,7 @@ import { closeSync, existsSync, fstatSync, fsyncSync, ftruncateSync, openSync, r
 import { join } from 'node:path';
 import { RuntimeFailure } from '../errors.js';
 import { writeFailure } from '../snapshot/arrow-sink.js';
+import { syncFolder } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES } from '../snapshot/stimuli-file.js';
 
 /** Name of the checkpoint file in a snapshot folder being written. */
@@ -74,6 +75,7 @@ export function writeProgress(folder: string, progress: ProgressRecord): void {
       closeSync(fd);
     }
     renameSync(temporary, path);
+    syncFolder(folder);
   } catch (error) {
     throw writeFailure(path, error);
   }

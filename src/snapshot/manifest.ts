@@ -237,8 +237,29 @@ export function writeManifest(folder: string, manifest: SnapshotManifest): void 
       closeSync(fd);
     }
     renameSync(temporary, path);
+    syncFolder(folder);
   } catch (error) {
     const code = (error as NodeJS.ErrnoException).code;
     throw new RuntimeFailure('E_WRITE', `cannot write ${path}: ${code === 'ENOSPC' ? 'the disk is full' : (error as Error).message}`);
+  }
+}
+
+/**
+ * fsyncs a folder, so that renames inside it survive a power loss (POSIX leaves the durability of a
+ * directory entry to an fsync of the directory). Platforms that cannot open a folder skip it.
+ */
+export function syncFolder(folder: string): void {
+  let fd: number;
+  try {
+    fd = openSync(folder, 'r');
+  } catch {
+    return;
+  }
+  try {
+    fsyncSync(fd);
+  } catch {
+    // some file systems refuse fsync on a directory; the rename itself has happened
+  } finally {
+    closeSync(fd);
   }
 }

@@ -2,14 +2,14 @@
  * The writer lock of a snapshot folder: a second writer refuses with one line naming the owner's pid; a
  * lock whose process is gone (process.kill(pid, 0) → ESRCH, POSIX kill(2)) is stale and taken over.
  */
-import { spawnSync } from 'node:child_process';
+import { spawn, spawnSync } from 'node:child_process';
 import { existsSync, mkdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { acquireLock, isStale } from '../../src/snapshot/lock.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
-import { ensureBuilt, finished, startSonde } from './cli-process.js';
+import { ensureBuilt, ROOT } from './cli-process.js';
 
 /** The pid of a process that has exited (its number is free again; reuse within the test is unlikely). */
 function deadPid(): number {
@@ -62,22 +62,24 @@ describe('acquireLock', () => {
 });
 
 describe('sonde record with a lock', () => {
-  it('sonde record into a folder another record is writing exits 1 naming that pid; the first run completes', async () => {
+  it('sonde record into a folder another process holds exits 1 naming its pid; once that process is killed the lock is taken over', async () => {
     const out = join(dir, 'busy');
-    const child = startSonde(['record', model, '--stimuli', stimuli.npy, '--out', out, '--batch', '4', '--layers', 'all', '--checkpoint-every', '0']);
-    const done = finished(child);
-    while (!existsSync(join(out, 'progress.json')) && child.exitCode === null) await new Promise((r) => setTimeout(r, 5));
-    const second = await runSonde(['record', model, '--stimuli', stimuli.npy, '--out', out, '--force']);
-    const first = await done;
-    expect(first.code, first.stderr).toBe(0);
-    expect(second.code).toBe(1);
-    expect(second.stderr.trim().split('\n')).toHaveLength(1);
-    expect(second.stderr).toMatch(new RegExp(`being written by pid ${child.pid} `));
-    const manifest = JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { complete: boolean; stimuli: { count: number } };
-    expect(manifest.complete).toBe(true);
+    mkdirSync(out, { recursive: true });
+    // a separate process takes the lock the way a recording does, and keeps it
+    const holder = spawn(process.execPath, ['--input-type=module', '-e', `import { acquireLock } from ${JSON.stringify(join(ROOT, 'dist', 'snapshot', 'lock.js'))}; acquireLock(${JSON.stringify(out)}); console.log('locked'); setTimeout(() => {}, 60000);`], { stdio: ['ignore', 'pipe', 'inherit'] });
+    await new Promise<void>((done) => holder.stdout!.once('data', () => done()));
+    const refused = await runSonde(['record', model, '--stimuli', stimuli.npy, '--out', out, '--batch', '50']);
+    expect(refused.code).toBe(1);
+    expect(refused.stderr.trim().split('\n')).toHaveLength(1);
+    expect(refused.stderr).toMatch(new RegExp(`being written by pid ${holder.pid} on `));
+    expect(existsSync(join(out, 'manifest.json'))).toBe(false);
+    holder.kill('SIGKILL');
+    await new Promise((done) => holder.once('close', done));
+    const after = await runSonde(['record', model, '--stimuli', stimuli.npy, '--out', out, '--batch', '50']);
+    expect(after.code, after.stderr).toBe(0);
+    expect(after.stderr).toMatch(new RegExp(`took over the stale lock .*pid ${holder.pid}`));
+    expect((JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { complete: boolean }).complete).toBe(true);
     expect(existsSync(join(out, '.lock'))).toBe(false);
-    const check = await runSonde(['check', out]);
-    expect(check.code, check.stdout).toBe(0);
   }, 60_000);
 
   it('sonde record takes over a stale lock with a notice on stderr', async () => {
