@@ -21,7 +21,8 @@ export function resolveOutFolder(out: string): string {
 export function prepareOutFolder(folder: string, force: boolean): void {
   if (existsSync(folder)) {
     if (!statSync(folder).isDirectory()) throw new UsageError('E_OUT', `--out ${folder} exists and is not a folder`);
-    const entries = readdirSync(folder).filter((name) => name !== LOCK_FILE);
+    // what a run killed before its first manifest leaves behind does not make the folder foreign
+    const entries = readdirSync(folder).filter((name) => name !== LOCK_FILE && name !== 'manifest.json.partial' && !(name === 'layers' && statSync(join(folder, name)).isDirectory() && readdirSync(join(folder, name)).length === 0));
     if (entries.length > 0) {
       if (!entries.includes('manifest.json')) {
         throw new UsageError('E_OUT', `--out ${folder} is not empty and holds no snapshot; refusing to write into it`, { hint: 'choose a new folder' });

@@ -93,3 +93,14 @@ describe('sonde record with a lock', () => {
     expect(existsSync(join(out, '.lock'))).toBe(false);
   });
 });
+
+describe('sonde record after an early kill', () => {
+  it('sonde record --resume into a folder a killed run left with only a stale lock and an empty layers/ starts afresh', async () => {
+    const out = join(dir, 'early');
+    mkdirSync(join(out, 'layers'), { recursive: true });
+    writeFileSync(join(out, '.lock'), JSON.stringify({ pid: deadPid(), host: hostname(), started: 'then' }));
+    const result = await runSonde(['record', model, '--stimuli', stimuli.npy, '--out', out, '--batch', '50', '--resume']);
+    expect(result.code, result.stderr).toBe(0);
+    expect((JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8')) as { complete: boolean }).complete).toBe(true);
+  });
+});
