@@ -48,8 +48,8 @@ export interface DemoResult {
 
 /** Sizes of the full and the quick demo. */
 const PLAN = {
-  full: { stimuli: 480, strengths: [0, 0.15, 0.3, 0.5, 0.75, 1], controlSeeds: 3, sites: 3, categories: 8 },
-  quick: { stimuli: 96, strengths: [0, 0.5, 1], controlSeeds: 2, sites: 2, categories: 3 },
+  full: { stimuli: 480, strengths: [0, 0.025, 0.05, 0.1, 0.2, 0.4], controlSeeds: 3, sites: 3, categories: 8 },
+  quick: { stimuli: 96, strengths: [0, 0.05, 0.2], controlSeeds: 2, sites: 2, categories: 3 },
 } as const;
 
 /**
@@ -124,19 +124,15 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   });
   files.sweep = join(sweepFolder, 'sweep.json');
 
-  step('diffing the best cell at an early and a late site, layer by layer');
+  step('diffing an attention-sized tuning-based cell at an early and a late site, layer by layer');
   const tables = loadModulationTables({ tuning: tuningPath, sensitivity: sensitivityPath });
   const diffs: DemoResult['diffs'] = [];
   for (const [label, site] of [['early', sites[0]!], ['late', sites[sites.length - 1]!]] as const) {
-    const best = sweep.best.find((b) => b.site === site)!;
-    // the cued kind whose detection that scheme and strength helped most at this site
-    const cells = sweep.cells.filter((c) => c.site === site && c.scheme === best.scheme && c.strength === best.strength);
-    const target = cells.reduce((a, c) => (c.change.dPrime > a.change.dPrime ? c : a), cells[0]!).category;
-    const scheme = best.scheme === 'uniform' ? 'uniform' : best.scheme === 'sensitivity' ? 'sensitivity' : 'tuning';
-    const specPath = join(folder, `best-${label}.json`);
-    writeFileSync(specPath, json(scheme === 'uniform' ? { site, kind: 'uniform', strength: Math.max(0, 1 + best.strength) } : { site, kind: scheme, target, strength: best.strength }));
+    const chosen = attentionSizedCell(sweep, site);
+    const specPath = join(folder, `cell-${label}.json`);
+    writeFileSync(specPath, json({ site, kind: 'tuning', target: chosen.category, strength: chosen.strength }));
     const mod = await recordModulated({ model, stimuli, labels, out: join(folder, `modulated-${label}`), modulate: specPath, from: base.folder, tables: tables.tables, categories: tables.categories, threads });
-    const report = await diffSnapshots({ base: base.folder, mod: mod.folder, tuning: (layer) => tables.tables.tuning?.(layer, target), target, task: `detect:${target}`, bootstrap: options.quick ? 100 : 500, seed: 1 });
+    const report = await diffSnapshots({ base: base.folder, mod: mod.folder, tuning: (layer) => tables.tables.tuning?.(layer, chosen.category), target: chosen.category, task: `detect:${chosen.category}`, bootstrap: options.quick ? 100 : 500, seed: 1 });
     files[`diff-${label}`] = join(folder, `diff-${label}.json`);
     writeFileSync(files[`diff-${label}`]!, json(report));
     diffs.push({ label, site, report });
@@ -149,11 +145,18 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   const ranked = [...sweep.best].filter((b) => Number.isFinite(b.dPrimeChange)).sort((a, b) => b.dPrimeChange - a.dPrimeChange);
   const top = ranked[0] ?? sweep.best[0]!;
   const summary: string[] = [];
-  summary.push(`attention-like gain helps detection most with ${top.scheme} gain at ${top.site} (strength ${top.strength}): d′ ${signed(top.dPrimeChange)}, accuracy ${signed(top.accuracyPp, 1)} pp on average over ${categories.length} cued kinds`);
+  if (top.dPrimeChange > 0) {
+    summary.push(`attention-like gain helps detection most with ${top.scheme} gain at ${top.site} (strength ${top.strength}): d′ ${signed(top.dPrimeChange)}, accuracy ${signed(top.accuracyPp, 1)} pp on average over ${categories.length} cued kinds, site activity changed by ${(100 * top.siteActivityChange).toFixed(1)} %`);
+  } else {
+    summary.push(`no scheme and strength raised the mean detection d′ at any site (the best is the unmodulated network); over ${categories.length} cued kinds the gains shift the network towards "present"`);
+  }
   for (const d of diffs) {
+    const task = d.report.task!;
+    const cell = task.categories[0]!;
+    summary.push(`${d.label} site ${d.site}, tuning-based gain toward ${cell.category}: hit rate ${signed(cell.change.hitRatePp, 1)} pp, false alarms ${signed(cell.change.falseAlarmRatePp, 1)} pp, d′ ${signed(cell.change.dPrime)}`);
     const survival = d.report.survival.layer ? `stays above the noise floor ${d.report.survival.belowSite} layers down (to ${d.report.survival.layer})` : 'does not rise above the noise floor below the site';
     const profile = d.report.depthProfile.halfDepth !== null ? `, halving every ${d.report.depthProfile.halfDepth.toFixed(1)} layers` : d.report.depthProfile.doublingDepth !== null ? `, doubling every ${d.report.depthProfile.doublingDepth.toFixed(1)} layers` : '';
-    summary.push(`${d.label} site ${d.site}: the change ${survival}${profile}`);
+    summary.push(`  its activity change ${survival}${profile}`);
   }
   const schemeMeans = ['tuning', 'sensitivity'].map((scheme) => {
     const chosen = sweep.cells.filter((c) => c.scheme === scheme && c.strength !== 0);
@@ -164,6 +167,19 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   const pooled = agreement.layers.map((l) => `${l.layer} r=${l.pooled.pearson.toFixed(2)}`).join(', ');
   summary.push(`tuning–sensitivity agreement (pooled Pearson r): ${pooled}`);
   return { folder, sites, sweep, diffs, agreement, files, headline: { site: top.site, scheme: top.scheme, strength: top.strength, dPrimeChange: top.dPrimeChange, accuracyPp: top.accuracyPp }, summary };
+}
+
+/**
+ * The tuning-scheme cell at `site` whose site activity change is closest to 10 % (inside the 5–30 %
+ * rule-of-thumb band), for the cued kind whose d′ it changed most in the positive direction.
+ */
+export function attentionSizedCell(sweep: SweepResult, site: string): { strength: number; category: string } {
+  const cells = sweep.cells.filter((c) => c.site === site && c.scheme === 'tuning' && c.strength !== 0);
+  if (cells.length === 0) throw new UsageError('E_DEMO', `the sweep has no tuning-based cell at ${site}`);
+  const strength = cells.reduce((a, c) => (Math.abs(c.siteActivityChange - 0.1) < Math.abs(a.siteActivityChange - 0.1) ? c : a), cells[0]!).strength;
+  const atStrength = cells.filter((c) => c.strength === strength);
+  const category = atStrength.reduce((a, c) => (c.change.dPrime > a.change.dPrime ? c : a), atStrength[0]!).category;
+  return { strength, category };
 }
 
 function signed(value: number, digits = 2): string {
