@@ -53,6 +53,8 @@ export interface SweepOptions {
   controlSeeds?: number;
   /** Also measure per-layer relative change and signature slope below the site. */
   depthProfile?: boolean;
+  /** Stimuli (the first ones, by index) the depth profile is measured on; default 64. */
+  profileStimuli?: number;
   /** Calibration target: `dprime:+0.5` or `accuracy:+10pp`. */
   match?: string;
   /** Output folder: `cells.arrow`, `sweep.json`, and `cells.jsonl` (progress, for resuming). */
@@ -79,6 +81,11 @@ interface PlannedCell {
   category: string;
   seed: number;
   gain: Float32Array;
+}
+
+/** Identity of a gain vector's exact float32 values. */
+function vectorKey(gain: Float32Array): string {
+  return Buffer.from(gain.buffer, gain.byteOffset, gain.byteLength).toString('base64');
 }
 
 /** Stable identity of a cell, used to skip finished cells on resume. */
@@ -184,9 +191,18 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   for (const site of sites) {
     const cells = todo.filter((c) => c.site === site);
     if (cells.length === 0) continue;
-    for (let first = 0; first < cells.length; first += perRun) {
-      const group = cells.slice(first, first + perRun);
-      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)! });
+    // cells with the same gain vector (strength 0 of every scheme; uniform gain for every cued kind)
+    // share one evaluation: chunk by distinct vectors
+    const vectorIndex = new Map<string, number>();
+    const chunkOf = cells.map((cell) => {
+      const key = vectorKey(cell.gain);
+      if (!vectorIndex.has(key)) vectorIndex.set(key, vectorIndex.size);
+      return Math.floor(vectorIndex.get(key)! / perRun);
+    });
+    const chunks = Math.ceil(vectorIndex.size / perRun);
+    for (let chunk = 0; chunk < chunks; chunk++) {
+      const group = cells.filter((_, i) => chunkOf[i] === chunk);
+      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)! });
       const fd = openSync(progressPath, 'a');
       try {
         for (const cell of results) {
@@ -248,6 +264,7 @@ interface GroupRun {
   readout: string;
   units: number;
   depthProfile: boolean;
+  profileStimuli: number;
   tuningFor: (layer: string, category: string) => Float64Array | undefined;
   threads: number;
   weights: Float64Array;
@@ -269,17 +286,32 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   const siteShape = baseline.layer(site).shape;
   const injection: InjectionSite = { site, shape: siteShape, spatial: false };
   const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), fetch), { threads: run.threads, label: `${run.model.fileName} downstream of ${site}` });
-  const M = group.length;
+  const vectors: Float32Array[] = [];
+  const vectorOfCell: number[] = [];
+  const seenVectors = new Map<string, number>();
+  for (const cell of group) {
+    const key = vectorKey(cell.gain);
+    if (!seenVectors.has(key)) {
+      seenVectors.set(key, vectors.length);
+      vectors.push(cell.gain);
+    }
+    vectorOfCell.push(seenVectors.get(key)!);
+  }
+  const M = vectors.length;
   const C = siteShape[0]!;
   const n = baseline.manifest.stimuli.count;
   const scores = group.map(() => new Float64Array(n));
+  const profileRows = Math.min(n, Math.max(0, run.profileStimuli));
   const geometry = profiled.map((l) => baseline.layerGeometry(l.name));
-  const sums = group.map(() => profiled.map((_, li) => ({ dd: 0, aa: 0, modMeans: new Float64Array(geometry[li]!.channels), baseMeans: new Float64Array(geometry[li]!.channels) })));
+  const sums = vectors.map(() => profiled.map((_, li) => ({ dd: 0, aa: 0, modMeans: new Float64Array(geometry[li]!.channels), baseMeans: new Float64Array(geometry[li]!.channels) })));
   const boundaryStreams = tail.boundary.map((name) => baseline.readLayer(name));
   const profileStreams = profiled.map((l) => baseline.readLayer(l.name));
   const names = modulationInputNames(site);
   const count = Math.ceil(n / baseline.manifest.run.batch);
   const pendingBase: LayerBatch[][] = [];
+  let runIndex = 0;
+  const batchRows = baseline.manifest.run.batch;
+  const profiledBatch = (): boolean => run.depthProfile && (runIndex++) * batchRows < profileRows;
   try {
     await runPipelined(
       count,
@@ -300,28 +332,31 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
           feeds[name === site ? `${site}::raw` : name] = { data: replicated, dims: [M * rows, ...baseline.layer(name).shape] };
         });
         const gain = new Float32Array(M * rows * C);
-        for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(group[m]!.gain, (m * rows + i) * C);
+        for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(vectors[m]!, (m * rows + i) * C);
         const dims = [M * rows, C, ...siteShape.slice(1).map(() => 1)];
         feeds[names.gain] = { data: gain, dims };
         feeds[names.offset] = { data: new Float32Array(M * rows * C), dims };
         pendingBase.push(baseParts.map((p) => (p.value as LayerBatch)));
         return { first: firstBatch.index[0]!, rows, feeds };
       },
-      (feeds) => session.run(feeds, fetch),
+      // the depth profile is measured on the first stimuli only: later batches fetch the readout alone
+      (feeds) => session.run(feeds, profiledBatch() ? fetch : [run.readout]),
       (first, rows, outputs) => {
         const readout = outputs[run.readout]!.data;
-        group.forEach((cell, m) => {
+        group.forEach((cell, c) => {
           const unit = run.perCategory.get(cell.category)!.unit;
-          for (let i = 0; i < rows; i++) scores[m]![first + i] = readout[(m * rows + i) * run.units + unit]!;
+          const m = vectorOfCell[c]!;
+          for (let i = 0; i < rows; i++) scores[c]![first + i] = readout[(m * rows + i) * run.units + unit]!;
         });
         const baseBatches = pendingBase.shift()!;
+        if (first >= profileRows) return;
         profiled.forEach((layer, li) => {
           const { channels, spatial, elements } = geometry[li]!;
           const a = baseBatches[li]!.activation!;
           const b = outputs[layer.name]!.data;
           for (let m = 0; m < M; m++) {
             const acc = sums[m]![li]!;
-            for (let i = 0; i < rows; i++) {
+            for (let i = 0; i < Math.min(rows, profileRows - first); i++) {
               const aBase = i * elements;
               const bBase = (m * rows + i) * elements;
               for (let k = 0; k < channels; k++) {
@@ -348,9 +383,10 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
     await Promise.all([...boundaryStreams, ...profileStreams].map((s) => s.return(undefined)));
     await session.close();
   }
-  return group.map((cell, m) => {
+  return group.map((cell, c) => {
     const info = run.perCategory.get(cell.category)!;
-    const mod = detectFromScores(scores[m]!, info.signal, info.threshold);
+    const m = vectorOfCell[c]!;
+    const mod = detectFromScores(scores[c]!, info.signal, info.threshold);
     let activity = 0;
     let weight = 0;
     for (let k = 0; k < C; k++) {
