@@ -7,7 +7,7 @@ import { makeStimulusSet } from '../stimuli/demo/writer.js';
 import type { DemoDisplayOptions } from '../stimuli/demo/options.js';
 import { readSensitivityTable, readTuningTable } from '../snapshot/tables.js';
 import { compareTables, type TableComparison } from './compare-tables.js';
-import { diffSnapshots, type DiffReport } from './diff-snapshots.js';
+import { describeDepthProfile, diffSnapshots, type DiffReport } from './diff-snapshots.js';
 import { recordModulated } from './record-modulated.js';
 import { recordSnapshot } from './record-snapshot.js';
 import { senseSites } from './sense.js';
@@ -155,8 +155,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
     const cell = task.categories[0]!;
     summary.push(`${d.label} site ${d.site}, tuning-based gain toward ${cell.category}: hit rate ${signed(cell.change.hitRatePp, 1)} pp, false alarms ${signed(cell.change.falseAlarmRatePp, 1)} pp, d′ ${signed(cell.change.dPrime)}`);
     const survival = d.report.survival.layer ? `stays above the noise floor ${d.report.survival.belowSite} layers down (to ${d.report.survival.layer})` : 'does not rise above the noise floor below the site';
-    const profile = d.report.depthProfile.halfDepth !== null ? `, halving every ${d.report.depthProfile.halfDepth.toFixed(1)} layers` : d.report.depthProfile.doublingDepth !== null ? `, doubling every ${d.report.depthProfile.doublingDepth.toFixed(1)} layers` : '';
-    summary.push(`  its activity change ${survival}${profile}`);
+    summary.push(`its activity change ${describeDepthProfile(d.report)} and ${survival}`);
   }
   const schemeMeans = ['tuning', 'sensitivity'].map((scheme) => {
     const chosen = sweep.cells.filter((c) => c.scheme === scheme && c.strength !== 0);

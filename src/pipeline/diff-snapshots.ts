@@ -552,21 +552,29 @@ function formatSigned(value: number, digits = 2): string {
   return `${value >= 0 ? '+' : ''}${value.toFixed(digits)}`;
 }
 
+/**
+ * How the relative change develops below the site: "halves every X layers below SITE", "doubles …",
+ * or "keeps its size …" when the fitted rate would not halve or double it within a thousand times the
+ * measured stretch.
+ */
+export function describeDepthProfile(report: DiffReport): string {
+  const profile = report.depthProfile;
+  const site = report.sites[0] ?? 'the site';
+  const span = Math.max(1, ...report.layers.map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
+  const negligible = Number.isFinite(profile.rate) && Math.abs(profile.rate) * span < 1e-3;
+  if (report.sites.length === 0) return 'has no modulation site recorded in the manifest';
+  if (negligible) return `keeps its size below ${site}`;
+  if (profile.halfDepth !== null) return `halves every ${profile.halfDepth.toFixed(1)} layers below ${site}`;
+  if (profile.doublingDepth !== null) return `doubles every ${profile.doublingDepth.toFixed(1)} layers below ${site}`;
+  if (Number.isFinite(profile.rate)) return `keeps its size below ${site}`;
+  return `has too few layers below ${site} for a depth profile`;
+}
+
 /** One line saying how far the change propagates and what it does to the task. */
 export function verdictOf(report: DiffReport): string {
   const parts: string[] = [];
-  const profile = report.depthProfile;
-  const site = report.sites[0] ?? 'the site';
   const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
-  // a rate so small that the change would take far longer than the measured stretch to halve or double is "constant"
-  const span = Math.max(1, ...report.layers.map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
-  const negligible = Number.isFinite(profile.rate) && Math.abs(profile.rate) * span < 1e-3;
-  if (report.sites.length === 0) parts.push('no modulation site recorded in the manifest');
-  else if (negligible) parts.push(`${subject} keeps its size below ${site}`);
-  else if (profile.halfDepth !== null) parts.push(`${subject} halves every ${profile.halfDepth.toFixed(1)} layers below ${site}`);
-  else if (profile.doublingDepth !== null) parts.push(`${subject} doubles every ${profile.doublingDepth.toFixed(1)} layers below ${site}`);
-  else if (Number.isFinite(profile.rate)) parts.push(`${subject} keeps its size below ${site}`);
-  else parts.push(`too few layers below ${site} to fit a depth profile`);
+  parts.push(`${subject} ${describeDepthProfile(report)}`);
   if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${report.survival.belowSite} layers below)`);
   else if (report.sites.length > 0) parts.push('does not rise above the noise floor below the site');
   const siteRow = report.layers.find((l) => l.site && l.signature);
