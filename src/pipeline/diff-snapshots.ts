@@ -554,16 +554,16 @@ function formatSigned(value: number, digits = 2): string {
 
 /**
  * How the relative change develops below the site: "halves every X layers below SITE", "doubles …",
- * or "keeps its size …" when the fitted rate would not halve or double it within a thousand times the
- * measured stretch.
+ * or "keeps its size …" when the fitted profile changes it by less than 5 % over the measured stretch
+ * (|rate| · layers below the site < 0.05).
  */
 export function describeDepthProfile(report: DiffReport): string {
   const profile = report.depthProfile;
   const site = report.sites[0] ?? 'the site';
   const span = Math.max(1, ...report.layers.map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
-  const negligible = Number.isFinite(profile.rate) && Math.abs(profile.rate) * span < 1e-3;
+  const negligible = Number.isFinite(profile.rate) && Math.abs(profile.rate) * span < 0.05;
   if (report.sites.length === 0) return 'has no modulation site recorded in the manifest';
-  if (negligible) return `keeps its size below ${site}`;
+  if (negligible) return `keeps its size below ${site} (within 5 % over ${span} layers)`;
   if (profile.halfDepth !== null) return `halves every ${profile.halfDepth.toFixed(1)} layers below ${site}`;
   if (profile.doublingDepth !== null) return `doubles every ${profile.doublingDepth.toFixed(1)} layers below ${site}`;
   if (Number.isFinite(profile.rate)) return `keeps its size below ${site}`;
