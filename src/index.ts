@@ -42,6 +42,10 @@ export type { SweepResult, SweepCell } from './pipeline/sweep-types.js';
 export { runDemo, type DemoOptions, type DemoResult } from './pipeline/demo.js';
 export { readTuningTable, readSensitivityTable, writeTuningTable, writeSensitivityTable } from './snapshot/tables.js';
 
+export { checkSnapshot, type CheckReport, type CheckProblem } from './snapshot/check.js';
+export { mergeSnapshots, type MergeOptions, type MergeSummary } from './pipeline/merge.js';
+export { parseShard, shardRange, type ShardSpec, type ShardRange } from './pipeline/shard.js';
+
 // modulation and analysis (pure)
 export * as modulation from './modulation/index.js';
 export * as analysis from './analysis/index.js';
