@@ -18,6 +18,7 @@ import { chooseThreshold, parseDetectionTask, readoutOf } from './diff-snapshots
 import { inspectModel } from './inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from './record-modulated.js';
 import { runPipelined } from './record-snapshot.js';
+import { shardRange } from './shard.js';
 import { ALL_ACTIVATIONS, chooseSites } from './sense.js';
 import type { SweepBest, SweepCalibration, SweepCell, SweepDepthPoint, SweepDetection, SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
@@ -174,7 +175,9 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
       }
     }
   }
-  const mine = options.shard ? planned.filter((_, i) => i % options.shard!.count === options.shard!.index - 1) : planned;
+  // shard K of N: a contiguous block of the planned cells (same partition as record --shard)
+  const range = options.shard ? shardRange(options.shard.index, options.shard.count, planned.length) : { start: 0, end: planned.length };
+  const mine = planned.slice(range.start, range.end);
   const todo = mine.filter((c) => !done.has(c.key));
   let finished = mine.length - todo.length;
   const perRun = options.vectorsPerRun ?? 16;

@@ -66,6 +66,20 @@ describe('sweepModulations', () => {
     expect(JSON.stringify(resumed.cells)).toBe(JSON.stringify(whole.cells));
   });
 
+  it('sweepModulations split into shards and merged by concatenating cells.jsonl equals the unsharded sweep', async () => {
+    const common = { model, from: join(dir, 'base'), sites: ['relu1'], strengths: [0, 0.4], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), threads: 1, controlSeeds: 2 } as const;
+    const whole = await sweepModulations({ ...common, out: join(dir, 'sh-whole') });
+    const a = await sweepModulations({ ...common, out: join(dir, 'sh-1'), shard: { index: 1, count: 2 } });
+    const b = await sweepModulations({ ...common, out: join(dir, 'sh-2'), shard: { index: 2, count: 2 } });
+    expect(a.cells.length + b.cells.length).toBe(whole.cells.length);
+    const { mkdirSync } = await import('node:fs');
+    mkdirSync(join(dir, 'sh-merged'), { recursive: true });
+    writeFileSync(join(dir, 'sh-merged', 'cells.jsonl'), readFileSync(join(dir, 'sh-1', 'cells.jsonl'), 'utf8') + readFileSync(join(dir, 'sh-2', 'cells.jsonl'), 'utf8'));
+    const merged = await sweepModulations({ ...common, out: join(dir, 'sh-merged'), onProgress: () => { throw new Error('no cell should be evaluated again'); } });
+    expect(JSON.stringify(merged.cells)).toBe(JSON.stringify(whole.cells));
+    expect(merged.control).toEqual(whole.control);
+  });
+
   it('sweepModulations writes an Arrow table Polars reads, one row per cell, and calibrates against a target', async () => {
     const result = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], schemes: ['uniform'], strengths: [0, 0.5, 1, 2], task: 'detect:all', out: join(dir, 'sw-cal'), threads: 1, match: 'accuracy:+0pp' });
     const frame = pl.readIPC(readFileSync(join(dir, 'sw-cal', 'cells.arrow')));

@@ -1,6 +1,7 @@
 import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
+import { parseShard } from '../../pipeline/shard.js';
 import { sweepModulations } from '../../pipeline/sweep.js';
 import { fixed, signed } from '../../report/format.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
@@ -61,16 +62,11 @@ export function registerSweep(program: Command): void {
     .option('--restart', 'ignore finished cells in --out and start again')
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--vectors <n>', 'gain vectors per runtime call', positiveInteger, 16)
-    .option('--shard <k/n>', 'only the k-th of n interleaved parts of the cells (job arrays)')
+    .option('--shard <k/n>', 'only the K-th of N contiguous parts of the cells (job arrays; merge by concatenating cells.jsonl)')
     .option('--json', 'print sweep.json to stdout')
     .action(async (model: string, opts: SweepCliOptions) => {
       const io = cliIo();
-      let shard: { index: number; count: number } | undefined;
-      if (opts.shard) {
-        const m = /^(\d+)\/(\d+)$/.exec(opts.shard);
-        if (!m || Number(m[1]) < 1 || Number(m[1]) > Number(m[2])) throw new UsageError('E_SHARD', `--shard must be K/N with 1 ≤ K ≤ N, got "${opts.shard}"`);
-        shard = { index: Number(m[1]), count: Number(m[2]) };
-      }
+      const shard = opts.shard ? parseShard(opts.shard) : undefined;
       const bar = createProgressBar('sweep');
       let result;
       try {
