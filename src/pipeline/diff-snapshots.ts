@@ -575,7 +575,7 @@ export function verdictOf(report: DiffReport): string {
   const parts: string[] = [];
   const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
   parts.push(`${subject} ${describeDepthProfile(report)}`);
-  if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${report.survival.belowSite} layers below)`);
+  if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${report.survival.belowSite} layer${report.survival.belowSite === 1 ? '' : 's'} below)`);
   else if (report.sites.length > 0) parts.push('does not rise above the noise floor below the site');
   const siteRow = report.layers.find((l) => l.site && l.signature);
   const lastSignature = [...report.layers].reverse().find((l) => l.signature && l.belowSite > 0);
