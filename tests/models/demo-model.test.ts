@@ -28,7 +28,10 @@ describe('models/demo/glyphnet.onnx', () => {
 
   it('readSidecar(glyphnet.onnx) maps the 8 outputs to DEMO_KINDS in order and names tensors the graph has', () => {
     const sidecar = readSidecar(MODEL)!;
-    expect(sidecar.outputs).toEqual({ name: 'logits', kinds: [...DEMO_KINDS] });
+    expect(sidecar.outputs?.name).toBe('logits');
+    expect(sidecar.outputs?.kinds).toEqual([...DEMO_KINDS]);
+    // per-kind sigmoid logits: "present" above 0 (probability 0.5), the rule of the baseline table
+    expect(sidecar.outputs?.threshold).toBe(0);
     const model = loadModel(MODEL);
     const produced = new Set((model.proto.graph!.node ?? []).flatMap((node) => node.output ?? []));
     const layers = sidecar.layers!;
