@@ -20,7 +20,7 @@ import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { openOutputFolder, resolveOutFolder } from './output-folder.js';
 import { removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
-import { assertSameRecording, displayPath, markIncomplete, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
+import { displayPath, markIncomplete, settleOutputFolder, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
 
 /** Options of `recordModulated`: a recording plus the modulation and, optionally, its baseline. */
 export interface RecordModulatedOptions extends RecordOptions {
@@ -230,16 +230,10 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
   };
   const opened = openOutputFolder(folder, { force: options.force ?? false, resume: options.resume ?? false, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
   try {
-    if (opened.complete) {
-      assertSameRecording(opened.complete, manifest, folder);
-      removeProgress(folder);
-      options.onNotice?.(`${displayPath(folder)} already holds this complete snapshot; nothing to resume`);
-      return { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, stimuliPerSecond: 0 };
-    }
-    const checkpoint = opened.resume?.progress ?? null;
+    const settled = settleOutputFolder(opened, manifest, folder, options.onNotice);
+    if ('done' in settled) return settled.done;
+    const checkpoint = settled.checkpoint;
     if (opened.resume) {
-      assertSameRecording(opened.resume.manifest, manifest, folder);
-      manifest.created = opened.resume.manifest.created;
       if (checkpoint) options.onNotice?.(`resuming ${displayPath(folder)} after ${checkpoint.stimuli} of ${manifest.stimuli.count} stimuli (${checkpoint.batches} batches)`);
       else removeProgress(folder);
     }

@@ -14,7 +14,7 @@ import { listingDigest, openStimulusSource, type StimulusSource } from '../stimu
 import type { Preprocessing } from '../stimuli/preprocess.js';
 import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
-import { openOutputFolder, resolveOutFolder, slugify } from './output-folder.js';
+import { openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from './output-folder.js';
 import { DigestLog, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { shardRange, type ShardSpec } from './shard.js';
 
@@ -188,16 +188,10 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
       ...(shard ? { shard } : {}),
       complete: false,
     };
-    if (opened.complete) {
-      assertSameRecording(opened.complete, manifest, folder);
-      removeProgress(folder);
-      options.onNotice?.(`${displayPath(folder)} already holds this complete snapshot; nothing to resume`);
-      return { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, stimuliPerSecond: 0 };
-    }
-    const checkpoint = opened.resume?.progress ?? null;
+    const settled = settleOutputFolder(opened, manifest, folder, options.onNotice);
+    if ('done' in settled) return settled.done;
+    const checkpoint = settled.checkpoint;
     if (opened.resume) {
-      assertSameRecording(opened.resume.manifest, manifest, folder);
-      manifest.created = opened.resume.manifest.created;
       if (checkpoint && checkpoint.stimuli > rowsTotal) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json says ${checkpoint.stimuli} stimuli are done, but the recording has ${rowsTotal}`, { hint: 'record again without --resume' });
       if (checkpoint) options.onNotice?.(`resuming ${displayPath(folder)} after ${checkpoint.stimuli} of ${rowsTotal} stimuli (${checkpoint.batches} batches)`);
       else {
@@ -343,6 +337,26 @@ export function markIncomplete(folder: string, manifest: SnapshotManifest, error
  * layers and shard. Creation time, threads and timings may differ.
  * @throws UsageError naming the first field that differs.
  */
+/**
+ * Reconciles an opened output folder with the manifest about to be written. When the folder already
+ * holds this very snapshot complete, the run has nothing to do and its summary is returned (`done`).
+ * When it holds an interrupted recording of the same run, that recording's creation time is kept and
+ * its last checkpoint returned (null: none was reached).
+ * @throws RuntimeFailure (from assertSameRecording) when the folder holds a different recording.
+ */
+export function settleOutputFolder(opened: OpenedOutput, manifest: SnapshotManifest, folder: string, onNotice: ((line: string) => void) | undefined): { done: RecordSummary } | { checkpoint: ProgressRecord | null } {
+  if (opened.complete) {
+    assertSameRecording(opened.complete, manifest, folder);
+    removeProgress(folder);
+    onNotice?.(`${displayPath(folder)} already holds this complete snapshot; nothing to resume`);
+    return { done: { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, stimuliPerSecond: 0 } };
+  }
+  if (!opened.resume) return { checkpoint: null };
+  assertSameRecording(opened.resume.manifest, manifest, folder);
+  manifest.created = opened.resume.manifest.created;
+  return { checkpoint: opened.resume.progress };
+}
+
 export function assertSameRecording(stored: SnapshotManifest, wanted: SnapshotManifest, folder: string): void {
   const layerKey = (m: SnapshotManifest) => m.layers.map((l) => ({ name: l.name, op: l.op, depth: l.depth, shape: l.shape, dtype: l.dtype, keep: l.keep, file: l.file, from: l.from ?? null }));
   const checks: Array<[string, unknown, unknown]> = [
