@@ -1,7 +1,7 @@
 import { UsageError } from '../errors.js';
 import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
 import { fitDepthProfile, type DepthProfile } from '../analysis/depth-profile.js';
-import { LayerDiffAccumulator, type LayerDiffMetrics } from '../analysis/layer-diff.js';
+import { LayerDiffAccumulator } from '../analysis/layer-diff.js';
 import { fitSignature, type SignatureFit } from '../analysis/signature.js';
 import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';

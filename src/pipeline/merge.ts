@@ -81,7 +81,6 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
   const ordered = orderShards(parts, options.parts);
   const first = ordered[0]!;
   const template = first.manifest;
-  const shardCount = template.shard!.count;
 
   // joined stimuli: ids, labels and per-stimulus digests in order; the listing must be the parts' own
   const ids: string[] = [];

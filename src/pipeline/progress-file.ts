@@ -12,11 +12,11 @@
  * that are not on disk. On resume every partial file is truncated to its checkpoint length and writing
  * continues with the next batch; what was written after the checkpoint is simply written again.
  */
-import { closeSync, existsSync, fstatSync, fsyncSync, ftruncateSync, openSync, readFileSync, readSync, renameSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, existsSync, fstatSync, fsyncSync, ftruncateSync, openSync, readFileSync, readSync, rmSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
 import { RuntimeFailure } from '../errors.js';
 import { writeFailure } from '../snapshot/arrow-sink.js';
-import { syncFolder } from '../snapshot/manifest.js';
+import { replaceFile } from '../snapshot/atomic-file.js';
 import { STIMULUS_DIGEST_BYTES } from '../snapshot/stimuli-file.js';
 
 /** Name of the checkpoint file in a snapshot folder being written. */
@@ -64,21 +64,7 @@ export function readProgress(folder: string): ProgressRecord | null {
  * @throws RuntimeFailure when it cannot be written (e.g. the disk is full).
  */
 export function writeProgress(folder: string, progress: ProgressRecord): void {
-  const path = join(folder, PROGRESS_FILE);
-  const temporary = `${path}.partial`;
-  try {
-    const fd = openSync(temporary, 'w');
-    try {
-      writeSync(fd, `${JSON.stringify(progress)}\n`);
-      fsyncSync(fd);
-    } finally {
-      closeSync(fd);
-    }
-    renameSync(temporary, path);
-    syncFolder(folder);
-  } catch (error) {
-    throw writeFailure(path, error);
-  }
+  replaceFile(folder, PROGRESS_FILE, `${JSON.stringify(progress)}\n`);
 }
 
 /** Removes the checkpoint files of a folder (after completion, or before a fresh start). */

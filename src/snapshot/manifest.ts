@@ -2,9 +2,10 @@
  * The snapshot manifest (`manifest.json`): the contract every reader of a snapshot relies on.
  * FORMAT_VERSION changes whenever a field changes meaning; readers refuse versions they do not know.
  */
-import { closeSync, existsSync, fsyncSync, openSync, readFileSync, renameSync, writeSync } from 'node:fs';
+import { existsSync, readFileSync } from 'node:fs';
 import { isAbsolute, join, relative, resolve, sep } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
+import { replaceFile } from './atomic-file.js';
 
 /**
  * Version of the snapshot layout written by this build.
@@ -226,40 +227,5 @@ export function assertComplete(manifest: SnapshotManifest, folder: string): void
  * the new manifest, never a torn one.
  */
 export function writeManifest(folder: string, manifest: SnapshotManifest): void {
-  const path = join(folder, 'manifest.json');
-  const temporary = `${path}.partial`;
-  try {
-    const fd = openSync(temporary, 'w');
-    try {
-      writeSync(fd, `${JSON.stringify(manifest, null, 2)}\n`);
-      fsyncSync(fd);
-    } finally {
-      closeSync(fd);
-    }
-    renameSync(temporary, path);
-    syncFolder(folder);
-  } catch (error) {
-    const code = (error as NodeJS.ErrnoException).code;
-    throw new RuntimeFailure('E_WRITE', `cannot write ${path}: ${code === 'ENOSPC' ? 'the disk is full' : (error as Error).message}`);
-  }
-}
-
-/**
- * fsyncs a folder, so that renames inside it survive a power loss (POSIX leaves the durability of a
- * directory entry to an fsync of the directory). Platforms that cannot open a folder skip it.
- */
-export function syncFolder(folder: string): void {
-  let fd: number;
-  try {
-    fd = openSync(folder, 'r');
-  } catch {
-    return;
-  }
-  try {
-    fsyncSync(fd);
-  } catch {
-    // some file systems refuse fsync on a directory; the rename itself has happened
-  } finally {
-    closeSync(fd);
-  }
+  replaceFile(folder, 'manifest.json', `${JSON.stringify(manifest, null, 2)}\n`);
 }
