@@ -604,10 +604,12 @@ export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
     const separated = a.task.ci !== null && b.task.ci !== null && (a.task.ci.dPrime[0] > b.task.ci.dPrime[1] || b.task.ci.dPrime[0] > a.task.ci.dPrime[1]);
     task = { a: da, b: db, larger: da > db ? 'a' : db > da ? 'b' : 'equal', separated };
   }
-  const below = layers.filter((_, i) => a.layers[i]!.belowSite > 0);
+  // the layers below every site of both schemes (A and B may modulate different sites)
+  const below = layers.filter((_, i) => a.layers[i]!.belowSite > 0 && b.layers[i]!.belowSite > 0);
   const aWins = below.filter((l) => l.larger === 'a').length;
   const bWins = below.filter((l) => l.larger === 'b').length;
-  const parts = [`below the site, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
+  const sameSites = a.sites.length === b.sites.length && a.sites.every((site) => b.sites.includes(site));
+  const parts = [`below ${sameSites ? 'the site' : "both schemes' sites"}, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
   if (task) parts.push(`detection d′ change A ${formatSigned(task.a)} vs B ${formatSigned(task.b)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
   return { a, b, layers, task, verdict: parts.join('; ') };
 }
