@@ -470,7 +470,8 @@ function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', r
     base: baseMean,
     mod: modMean,
     change: changeOf(baseMean, modMean),
-    ci: resamples > 0 ? bootstrapChange(columns, resamples, `${seed}:task`) : null,
+    // with one category the mean is that category, and so is its interval (same resamples)
+    ci: resamples > 0 ? (perCategory.length === 1 ? perCategory[0]!.ci : bootstrapChange(columns, resamples, `${seed}:task`)) : null,
   };
 }
 

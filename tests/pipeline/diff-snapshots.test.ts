@@ -140,6 +140,9 @@ describe('diffSnapshots', () => {
     for (const l of comparison.layers) expect(['a', 'b', 'equal']).toContain(l.larger);
     expect(comparison.task).not.toBeNull();
     expect(comparison.verdict).toMatch(/layers/);
+    // one category: the mean over categories is that category, interval included (exact identity)
+    expect(comparison.a.task!.categories).toHaveLength(1);
+    expect(comparison.a.task!.ci).toEqual(comparison.a.task!.categories[0]!.ci);
   });
 
   it('sonde diff refuses snapshots that do not pair, with a one-line reason', async () => {
