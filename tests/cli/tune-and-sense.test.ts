@@ -94,7 +94,7 @@ describe('sonde tune / sonde sense (CLI)', () => {
     const out = join(dir, 'tuning.arrow');
     const result = await runSonde(['tune', snapshot, '--out', out, '--layers', 'relu0+relu1+relu2']);
     expect(result.code, result.stderr).toBe(0);
-    expect(result.stdout).toMatch(/tuned 3 layers of .* for 3 categories \(stimuli per category: bird 2, cat 4, dog 4; 0 stimuli without a category used\)/);
+    expect(result.stdout).toMatch(/tuned 3 layers of .* for 3 categories \(stimuli per category: bird 2, cat 4, dog 4; 0 stimuli without a category left out\)/);
     expect(result.stdout).toMatch(/relu0 .*Relu/);
     expect(result.stdout).toMatch(/across depth: selective [▁-█]{3} {2}mean selectivity [▁-█]{3}/);
     expect(readTuningTable(out).blocks.map((b) => b.layer)).toEqual(['relu0', 'relu1', 'relu2']);
@@ -102,6 +102,18 @@ describe('sonde tune / sonde sense (CLI)', () => {
     const parsed = JSON.parse(json.stdout) as { counts: Record<string, number>; layers: Array<{ layer: string; channels: number }> };
     expect(parsed.counts).toEqual({ bird: 2, cat: 4, dog: 4 });
     expect(parsed.layers).toMatchObject([{ layer: 'relu2', channels: 8 }]);
+  });
+
+  it('sonde tune marks layers with negative responses (a pre-activation Conv output), where the selectivity index is undefined, instead of printing NaN', async () => {
+    const result = await runSonde(['tune', snapshot, '--out', join(dir, 'tuning-conv.arrow'), '--layers', 'conv0+relu0', '--json']);
+    const parsed = JSON.parse(result.stdout) as { layers: Array<{ layer: string; negativeChannels: number }> };
+    const conv = parsed.layers.find((l) => l.layer === 'conv0')!;
+    expect(conv.negativeChannels).toBeGreaterThan(0); // seeded random weights with a bias: some channels go below zero
+    expect(parsed.layers.find((l) => l.layer === 'relu0')!.negativeChannels).toBe(0); // ReLU outputs are ≥ 0 (exact)
+    const text = await runSonde(['tune', snapshot, '--out', join(dir, 'tuning-conv.arrow'), '--layers', 'conv0+relu0']);
+    expect(text.stdout).not.toMatch(/NaN *│ *│ *│/);
+    expect(text.stdout).toMatch(/conv0 .*\*/);
+    expect(text.stdout).toMatch(/^\* channels with a negative mean response to some category have no selectivity index/m);
   });
 
   it('sonde sense --from --stimuli-of each writes a sensitivity table; sonde tune TABLE --against compares them; sonde record --tuning uses the table', async () => {

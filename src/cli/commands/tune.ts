@@ -75,7 +75,7 @@ export function registerTune(program: Command): void {
       }
       if (!isTable) {
         const counts = Object.entries(header['counts'] as Record<string, number>).map(([c, n]) => `${c} ${n}`).join(', ');
-        io.stdout(`tuned ${summaries.length} layers of ${source} for ${(header['categories'] as string[]).length} categories (stimuli per category: ${counts}; ${String(header['stimuliSkipped'])} stimuli without a category used) → ${displayPath(opts.out!)}\n`);
+        io.stdout(`tuned ${summaries.length} layers of ${source} for ${(header['categories'] as string[]).length} categories (stimuli per category: ${counts}; ${String(header['stimuliSkipped'])} stimuli without a category left out) → ${displayPath(opts.out!)}\n`);
         io.stdout(`${tuningTable(summaries)}\n`);
         io.stdout(`across depth: selective ${sparkline(summaries.map((s) => s.selectiveFraction), { min: 0, max: 1 })}  mean selectivity ${sparkline(summaries.map((s) => s.meanSelectivity), { min: 0, max: 1 })}  (selective: index ≥ ${SELECTIVE_INDEX.toFixed(2)}, preferred category ≥ 2× the others)\n`);
       }
@@ -85,10 +85,17 @@ export function registerTune(program: Command): void {
 
 function tuningTable(summaries: readonly LayerTuningSummary[]): string {
   const table = new Table({ head: ['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], style: TABLE_STYLE });
+  let signed = false;
   for (const s of summaries) {
-    table.push([s.depth, s.layer, s.op, s.channels, `${(100 * s.selectiveFraction).toFixed(0)}%`, fixed(s.meanSelectivity, 3), s.zeroVarianceChannels || '', s.nonFiniteChannels || '']);
+    // the index is defined for non-negative responses only; say so instead of printing NaN
+    let selectivity = fixed(s.meanSelectivity, 3);
+    if (s.negativeChannels > 0) {
+      signed = true;
+      selectivity = Number.isFinite(s.meanSelectivity) ? `${selectivity} *` : '– *';
+    }
+    table.push([s.depth, s.layer, s.op, s.channels, `${(100 * s.selectiveFraction).toFixed(0)}%`, selectivity, s.zeroVarianceChannels || '', s.nonFiniteChannels || '']);
   }
-  return table.toString();
+  return signed ? `${table.toString()}\n* channels with a negative mean response to some category have no selectivity index (it needs non-negative responses); the mean is over the others` : table.toString();
 }
 
 function comparisonText(comparison: TableComparison, path: string): string {
