@@ -79,3 +79,17 @@ export function fitDepthProfile(points: readonly DepthPoint[], options: DepthPro
     excluded,
   };
 }
+
+/** Below this fitted change over the whole stretch (|rate| · layers, in ln units ≈ relative) a profile is flat. */
+export const FLAT_PROFILE_CHANGE = 0.05;
+
+/**
+ * The trend a fitted profile shows over `span` layers below the site: `flat` when |rate| · span is
+ * under FLAT_PROFILE_CHANGE (the change keeps its size within about 5 %), else `halves` or `doubles`;
+ * `unfit` when the rate is not finite (too few layers to fit).
+ */
+export function depthTrend(rate: number, span: number): 'flat' | 'halves' | 'doubles' | 'unfit' {
+  if (!Number.isFinite(rate)) return 'unfit';
+  if (Math.abs(rate) * Math.max(1, span) < FLAT_PROFILE_CHANGE) return 'flat';
+  return rate < 0 ? 'halves' : 'doubles';
+}

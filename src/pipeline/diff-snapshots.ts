@@ -1,6 +1,6 @@
 import { UsageError } from '../errors.js';
 import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
-import { fitDepthProfile, type DepthProfile } from '../analysis/depth-profile.js';
+import { depthTrend, fitDepthProfile, FLAT_PROFILE_CHANGE, type DepthProfile } from '../analysis/depth-profile.js';
 import { LayerDiffAccumulator } from '../analysis/layer-diff.js';
 import { fitSignature, type SignatureFit } from '../analysis/signature.js';
 import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
@@ -562,13 +562,17 @@ export function describeDepthProfile(report: DiffReport): string {
   const profile = report.depthProfile;
   const site = report.sites[0] ?? 'the site';
   const span = Math.max(1, ...report.layers.map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
-  const negligible = Number.isFinite(profile.rate) && Math.abs(profile.rate) * span < 0.05;
   if (report.sites.length === 0) return 'has no modulation site recorded in the manifest';
-  if (negligible) return `keeps its size below ${site} (within 5 % over ${span} layers)`;
-  if (profile.halfDepth !== null) return `halves every ${profile.halfDepth.toFixed(1)} layers below ${site}`;
-  if (profile.doublingDepth !== null) return `doubles every ${profile.doublingDepth.toFixed(1)} layers below ${site}`;
-  if (Number.isFinite(profile.rate)) return `keeps its size below ${site}`;
-  return `has too few layers below ${site} for a depth profile`;
+  switch (depthTrend(profile.rate, span)) {
+    case 'flat':
+      return `keeps its size below ${site} (within ${100 * FLAT_PROFILE_CHANGE} % over ${span} layers)`;
+    case 'halves':
+      return `halves every ${profile.halfDepth!.toFixed(1)} layers below ${site}`;
+    case 'doubles':
+      return `doubles every ${profile.doublingDepth!.toFixed(1)} layers below ${site}`;
+    default:
+      return `has too few layers below ${site} for a depth profile`;
+  }
 }
 
 /** One line saying how far the change propagates and what it does to the task. */

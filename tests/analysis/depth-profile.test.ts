@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { fitDepthProfile } from '../../src/analysis/depth-profile.js';
+import { depthTrend, fitDepthProfile } from '../../src/analysis/depth-profile.js';
 import { UsageError } from '../../src/errors.js';
 
 describe('fitDepthProfile', () => {
@@ -59,5 +59,18 @@ describe('fitDepthProfile', () => {
     expect(flat.halfDepth).toBeNull();
     expect(flat.doublingDepth).toBeNull();
     expect(() => fitDepthProfile([], { floor: Number.NaN })).toThrow(UsageError);
+  });
+});
+
+describe('depthTrend', () => {
+  it('depthTrend(rate, span) is flat below a fitted change of 0.05 over the span, else halves or doubles by the sign of the rate', () => {
+    // Exact arithmetic on the rule: |rate| · span < 0.05.
+    expect(depthTrend(-0.01, 4)).toBe('flat'); // 0.04
+    expect(depthTrend(0.0049, 10)).toBe('flat'); // 0.049
+    expect(depthTrend(-0.01, 6)).toBe('halves'); // 0.06
+    expect(depthTrend(0.02, 3)).toBe('doubles'); // 0.06
+    expect(depthTrend(0, 9)).toBe('flat');
+    expect(depthTrend(-0.2, 0)).toBe('halves'); // a span below 1 counts as 1
+    expect(depthTrend(Number.NaN, 5)).toBe('unfit');
   });
 });

@@ -106,7 +106,7 @@ export function makeDiff(options: DiffFixtureOptions = {}): DiffReport {
     layers,
     floor: { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
     survival: { layer: below[below.length - 1]!.name, belowSite: below[below.length - 1]!.belowSite },
-    depthProfile: { rate, intercept: Math.log(start), halfDepth: Math.LN2 / Math.abs(rate), doublingDepth: null, r2: 1, used: below.length, excluded: 0 },
+    depthProfile: { rate, intercept: Math.log(start), halfDepth: rate < 0 ? Math.LN2 / -rate : null, doublingDepth: rate > 0 ? Math.LN2 / rate : null, r2: 1, used: below.length, excluded: 0 },
     task: { kind: 'detect', readout: 'logits', thresholdRule: 'fixed threshold 0', categories: perCategory, base, mod, change: change(base, mod), ci: { dPrime: [0.1, 0.5], accuracyPp: [0, 6] } },
     verdict: '',
   };

@@ -2,6 +2,7 @@
  * The report's HTML tables, one function per table. Every value from an input passes through `html`
  * (escaped); numbers that JSON turned into null show as "–".
  */
+import { depthTrend, FLAT_PROFILE_CHANGE } from '../../analysis/depth-profile.js';
 import type { TableComparison } from '../../pipeline/compare-tables.js';
 import type { DiffReport, SchemeComparison, TaskReport } from '../../pipeline/diff-snapshots.js';
 import type { SweepResult } from '../../pipeline/sweep-types.js';
@@ -97,13 +98,18 @@ function profileText(diff: DiffReport): string {
   const p = diff.depthProfile;
   if (!p) return '–';
   const r2 = Number.isFinite(num(p.r2)) ? ` (r² ${fmt(p.r2, 2)})` : '';
-  // a half- or doubling depth a hundred times longer than the fitted stretch is rounding, not a trend
-  const span = 100 * Math.max(1, num(p.used) || 1);
-  const half = num(p.halfDepth);
-  const doubling = num(p.doublingDepth);
-  if (Number.isFinite(half) && half <= span) return `halves every ${fmt(half, 1)} layers${r2}`;
-  if (Number.isFinite(doubling) && doubling <= span) return `doubles every ${fmt(doubling, 1)} layers${r2}`;
-  return Number.isFinite(num(p.rate)) ? `keeps its size (rate ${sci(p.rate)} per layer)` : 'too few layers to fit';
+  // the same rule as the command line's verdict (describeDepthProfile): flat within 5 % over the layers below the site
+  const span = Math.max(1, ...diff.layers.map((l) => num(l.belowSite)).filter((d) => Number.isFinite(d)));
+  switch (depthTrend(num(p.rate), span)) {
+    case 'flat':
+      return `keeps its size (within ${100 * FLAT_PROFILE_CHANGE} % over ${span} layers)`;
+    case 'halves':
+      return `halves every ${fmt(p.halfDepth, 1)} layers${r2}`;
+    case 'doubles':
+      return `doubles every ${fmt(p.doublingDepth, 1)} layers${r2}`;
+    default:
+      return 'too few layers to fit';
+  }
 }
 
 /**
