@@ -15,6 +15,7 @@ import { sweepModulations } from './sweep.js';
 import type { SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
 import { tuneSnapshot } from './tune.js';
+import { signed } from '../report/format.js';
 import { writeHtmlReport } from '../report/html/html-report.js';
 
 /** The built-in demo network, relative to the package. */
@@ -179,10 +180,6 @@ export function attentionSizedCell(sweep: SweepResult, site: string): { strength
   const atStrength = cells.filter((c) => c.strength === strength);
   const category = atStrength.reduce((a, c) => (c.change.dPrime > a.change.dPrime ? c : a), atStrength[0]!).category;
   return { strength, category };
-}
-
-function signed(value: number, digits = 2): string {
-  return Number.isFinite(value) ? `${value >= 0 ? '+' : ''}${value.toFixed(digits)}` : '–';
 }
 
 function json(value: unknown): string {

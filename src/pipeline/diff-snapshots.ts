@@ -6,6 +6,7 @@ import { fitSignature, type SignatureFit } from '../analysis/signature.js';
 import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import type { ManifestLayer } from '../snapshot/manifest.js';
+import { signed } from '../report/format.js';
 import { alignBatches } from './align-batches.js';
 
 /** Per-channel tuning values of one layer for the target category (e.g. from a tuning table). */
@@ -549,10 +550,6 @@ function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; sign
   return { dPrime: [intervals[0]!.low, intervals[0]!.high], accuracyPp: [intervals[1]!.low, intervals[1]!.high] };
 }
 
-function formatSigned(value: number, digits = 2): string {
-  return `${value >= 0 ? '+' : ''}${value.toFixed(digits)}`;
-}
-
 /**
  * How the relative change develops below the site: "halves every X layers below SITE", "doubles …",
  * or "keeps its size …" when the fitted profile changes it by less than 5 % over the measured stretch
@@ -589,7 +586,7 @@ export function verdictOf(report: DiffReport): string {
   }
   if (report.task) {
     const ci = report.task.ci;
-    parts.push(`detection d′ ${formatSigned(report.task.change.dPrime)}${ci ? ` [${ci.dPrime[0].toFixed(2)}, ${ci.dPrime[1].toFixed(2)}]` : ''}, accuracy ${formatSigned(report.task.change.accuracyPp, 1)} pp`);
+    parts.push(`detection d′ ${signed(report.task.change.dPrime)}${ci ? ` [${ci.dPrime[0].toFixed(2)}, ${ci.dPrime[1].toFixed(2)}]` : ''}, accuracy ${signed(report.task.change.accuracyPp, 1)} pp`);
   }
   return parts.join('; ');
 }
@@ -615,6 +612,6 @@ export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
   const bWins = below.filter((l) => l.larger === 'b').length;
   const sameSites = a.sites.length === b.sites.length && a.sites.every((site) => b.sites.includes(site));
   const parts = [`below ${sameSites ? 'the site' : "both schemes' sites"}, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
-  if (task) parts.push(`detection d′ change A ${formatSigned(task.a)} vs B ${formatSigned(task.b)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
+  if (task) parts.push(`detection d′ change A ${signed(task.a)} vs B ${signed(task.b)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
   return { a, b, layers, task, verdict: parts.join('; ') };
 }

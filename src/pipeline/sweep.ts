@@ -13,6 +13,7 @@ import type { ResolveContext } from '../modulation/types.js';
 import { createRandom } from '../random.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
+import { signed } from '../report/format.js';
 import { writeSweepTable } from '../snapshot/sweep-table.js';
 import { chooseThreshold, parseDetectionTask, readoutOf } from './diff-snapshots.js';
 import { inspectModel } from './inspect-model.js';
@@ -528,7 +529,7 @@ function summarise(cells: SweepCell[], input: SummaryInput): SweepResult {
   }
   const lines: string[] = [];
   const ranked = [...best].filter((b) => Number.isFinite(b.dPrimeChange)).sort((a, b) => b.dPrimeChange - a.dPrimeChange);
-  if (ranked[0]) lines.push(`largest gain in detection: ${ranked[0].scheme} at ${ranked[0].site}, strength ${ranked[0].strength}, d′ ${ranked[0].dPrimeChange >= 0 ? '+' : ''}${ranked[0].dPrimeChange.toFixed(2)} (${ranked[0].accuracyPp >= 0 ? '+' : ''}${ranked[0].accuracyPp.toFixed(1)} pp), site activity changed by ${(100 * ranked[0].siteActivityChange).toFixed(1)} %`);
+  if (ranked[0]) lines.push(`largest gain in detection: ${ranked[0].scheme} at ${ranked[0].site}, strength ${ranked[0].strength}, d′ ${signed(ranked[0].dPrimeChange)} (${signed(ranked[0].accuracyPp, 1)} pp), site activity changed by ${(100 * ranked[0].siteActivityChange).toFixed(1)} %`);
   if (control) lines.push(`tuning-based gain vs shuffled control: mean Δd′ ${control.meanTuning.toFixed(3)} vs ${control.meanShuffled.toFixed(3)}, p = ${control.pValue.toPrecision(2)} (${control.test})`);
   for (const c of calibration.filter((x) => x.strength !== null)) lines.push(`${c.target} at ${c.site} with ${c.scheme}: strength ${c.strength!.toFixed(3)}, site activity ${(100 * c.siteActivityChange!).toFixed(1)} % (${c.withinBand ? 'inside' : 'outside'} the ${100 * ATTENTION_BAND.low}–${100 * ATTENTION_BAND.high} % band)`);
   return {

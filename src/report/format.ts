@@ -14,10 +14,12 @@ export function compact(value: number | null | undefined): string {
   return magnitude >= 0.01 && magnitude < 1000 ? value.toPrecision(3) : value.toExponential(2);
 }
 
-/** A signed value: "+0.42" / "-1.30". */
+/** A signed value: "+0.42" / "-1.30"; a value that rounds to zero is "+0.00" (never "-0.00"); "–" for NaN. */
 export function signed(value: number, digits = 2): string {
   if (Number.isNaN(value)) return '–';
-  return `${value >= 0 ? '+' : ''}${value.toFixed(digits)}`;
+  if (!Number.isFinite(value)) return value > 0 ? '+∞' : '-∞';
+  const text = Math.abs(value).toFixed(digits);
+  return `${value < 0 && Number(text) !== 0 ? '-' : '+'}${text}`;
 }
 
 /** A horizontal bar of `width` cells for value in [0, 1] (eighth-block resolution). */

@@ -128,7 +128,7 @@ async function propagationSection(runs: ReturnType<typeof diffRuns>, charts: Cha
   const caption = html`Relative change of every recorded layer, log scale; ◆ the modulation site. ${floor} ${data.omitted > 0 ? `${data.omitted} layer values of 0 (unchanged, e.g. above the site) or not finite are not drawn on the log axis.` : ''}`;
   const figure = await charts.figure(relativeChangeSpec(data), caption);
   const details = runs.map((r) => html`<details open><summary>${r.label} <span class="note">(${r.input})</span></summary>${diffLayerTable(r.diff)}</details>`);
-  return { id: 'propagation', heading: 'Propagation through depth', body: html`<p class="lead">How far the injected change travels below its site, one line per modulated run.</p>${pair(figure, diffSummaryTable(runs))}${details}` };
+  return { id: 'propagation', heading: 'Propagation through depth', body: html`<p class="lead">How far the injected change travels below its site, one line per modulated run.</p>${figure}${diffSummaryTable(runs)}${details}` };
 }
 
 function taskSection(runs: ReturnType<typeof diffRuns>): PageSection | null {
