@@ -19,11 +19,11 @@
  * `{ dtype: "f64" | "f32" | "i32", base64 }` of their little-endian bytes, which keeps NaN and ±Infinity
  * (JSON numbers cannot) and every bit of every value. Parts must have equal `key`s.
  */
-import { closeSync, fsyncSync, openSync, readFileSync, renameSync, writeSync } from 'node:fs';
+import { readFileSync } from 'node:fs';
 import { LayerDiffAccumulator, type LayerDiffState } from '../analysis/layer-diff.js';
 import { accumulateTuning, mergeTuningMoments, tuningFromMoments, type TuningMoments, type TuningTable } from '../analysis/tuning.js';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { writeFailure } from '../snapshot/arrow-sink.js';
+import { replaceFile } from '../snapshot/atomic-file.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { collectDiff, finishDiff, type CollectedLayer, type DiffCollection, type DiffOptions, type DiffReport } from './diff-snapshots.js';
 import { shardRange, type ShardSpec } from './shard.js';
@@ -310,19 +310,7 @@ function decodeMoments(value: unknown, what: string): TuningMoments {
  */
 export function writePartial(path: string, partial: PartialFile): { bytes: number } {
   const text = `${JSON.stringify(partial)}\n`;
-  const temporary = `${path}.partial`;
-  try {
-    const fd = openSync(temporary, 'w');
-    try {
-      writeSync(fd, text);
-      fsyncSync(fd);
-    } finally {
-      closeSync(fd);
-    }
-    renameSync(temporary, path);
-  } catch (error) {
-    throw writeFailure(path, error);
-  }
+  replaceFile(path, text);
   return { bytes: Buffer.byteLength(text) };
 }
 

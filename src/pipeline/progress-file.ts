@@ -64,7 +64,7 @@ export function readProgress(folder: string): ProgressRecord | null {
  * @throws RuntimeFailure when it cannot be written (e.g. the disk is full).
  */
 export function writeProgress(folder: string, progress: ProgressRecord): void {
-  replaceFile(folder, PROGRESS_FILE, `${JSON.stringify(progress)}\n`);
+  replaceFile(join(folder, PROGRESS_FILE), `${JSON.stringify(progress)}\n`);
 }
 
 /** Removes the checkpoint files of a folder (after completion, or before a fresh start). */

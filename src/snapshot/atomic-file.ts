@@ -5,15 +5,14 @@
  * fsync of the directory).
  */
 import { closeSync, fsyncSync, openSync, renameSync, writeSync } from 'node:fs';
-import { join } from 'node:path';
+import { dirname } from 'node:path';
 import { writeFailure } from './arrow-sink.js';
 
 /**
- * Replaces `folder/name` with `text` atomically; the temporary file is `name.partial` beside it.
+ * Replaces the file at `path` with `text` atomically; the temporary file is `PATH.partial` beside it.
  * @throws RuntimeFailure (E_WRITE) naming the file when it cannot be written (e.g. the disk is full).
  */
-export function replaceFile(folder: string, name: string, text: string): void {
-  const path = join(folder, name);
+export function replaceFile(path: string, text: string): void {
   const temporary = `${path}.partial`;
   try {
     const fd = openSync(temporary, 'w');
@@ -24,7 +23,7 @@ export function replaceFile(folder: string, name: string, text: string): void {
       closeSync(fd);
     }
     renameSync(temporary, path);
-    syncFolder(folder);
+    syncFolder(dirname(path));
   } catch (error) {
     throw writeFailure(path, error);
   }

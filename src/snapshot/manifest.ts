@@ -227,5 +227,5 @@ export function assertComplete(manifest: SnapshotManifest, folder: string): void
  * the new manifest, never a torn one.
  */
 export function writeManifest(folder: string, manifest: SnapshotManifest): void {
-  replaceFile(folder, 'manifest.json', `${JSON.stringify(manifest, null, 2)}\n`);
+  replaceFile(join(folder, 'manifest.json'), `${JSON.stringify(manifest, null, 2)}\n`);
 }
