@@ -33,7 +33,7 @@ export function replaceFile(path: string, text: string): void {
  * fsyncs a folder, so that renames inside it survive a power loss. Platforms that cannot open a folder
  * skip it.
  */
-export function syncFolder(folder: string): void {
+function syncFolder(folder: string): void {
   let fd: number;
   try {
     fd = openSync(folder, 'r');
