@@ -76,6 +76,9 @@ function rejected(label: string, error: unknown): RuntimeFailure {
 }
 
 class OrtNetworkSession implements NetworkSession {
+  /** Runs not yet settled; `close` waits for them (releasing a session during its run fails the run). */
+  private readonly inFlight = new Set<Promise<unknown>>();
+
   constructor(private readonly session: ort.InferenceSession, private readonly label: string) {}
 
   get inputNames(): readonly string[] {
@@ -90,10 +93,14 @@ class OrtNetworkSession implements NetworkSession {
     const ortFeeds: Record<string, ort.Tensor> = {};
     for (const [name, tensor] of Object.entries(feeds)) ortFeeds[name] = new ort.Tensor('float32', tensor.data, tensor.dims);
     let results: ort.InferenceSession.OnnxValueMapType;
+    const running = fetch ? this.session.run(ortFeeds, fetch as string[]) : this.session.run(ortFeeds);
+    this.inFlight.add(running);
     try {
-      results = fetch ? await this.session.run(ortFeeds, fetch as string[]) : await this.session.run(ortFeeds);
+      results = await running;
     } catch (error) {
       throw new RuntimeFailure('E_RUNTIME_RUN', `running ${this.label} failed: ${firstLine(error)}`);
+    } finally {
+      this.inFlight.delete(running);
     }
     const out: Record<string, FloatTensor> = {};
     for (const [name, value] of Object.entries(results)) {
@@ -107,6 +114,7 @@ class OrtNetworkSession implements NetworkSession {
   }
 
   async close(): Promise<void> {
+    await Promise.allSettled([...this.inFlight]);
     await this.session.release();
   }
 }
@@ -118,7 +126,13 @@ const { parentPort, workerData } = require('node:worker_threads');
 const ort = require(workerData.ortPath);
 let session = null;
 const first = (e) => String(e && e.message ? e.message : e).split('\\n')[0].trim();
-parentPort.on('message', async (m) => {
+// one message at a time: a 'close' that arrives while a run is in flight waits for it (releasing a
+// session inside its own run aborts the process natively)
+let queue = Promise.resolve();
+parentPort.on('message', (m) => {
+  queue = queue.then(() => handle(m));
+});
+async function handle(m) {
   try {
     if (m.type === 'create') {
       session = await ort.InferenceSession.create(m.bytes, m.options);
@@ -144,7 +158,7 @@ parentPort.on('message', async (m) => {
   } catch (e) {
     parentPort.postMessage({ id: m.id, error: first(e) });
   }
-});
+}
 `;
 
 interface WorkerReply {
@@ -175,7 +189,9 @@ class WorkerNetworkSession implements NetworkSession {
   }
 
   static async create(bytes: Uint8Array, options: ort.InferenceSession.SessionOptions, label: string): Promise<WorkerNetworkSession> {
-    const worker = new Worker(WORKER_SOURCE, { eval: true, workerData: { ortPath: ORT_PATH } });
+    // the source is CommonJS: drop an inherited --input-type=module (node -e with ES modules), which would make it ESM
+    const execArgv = process.execArgv.filter((arg) => !arg.startsWith('--input-type'));
+    const worker = new Worker(WORKER_SOURCE, { eval: true, execArgv, workerData: { ortPath: ORT_PATH } });
     worker.unref();
     const session = new WorkerNetworkSession(worker, label);
     const reply = await session.call({ type: 'create', bytes, options });
