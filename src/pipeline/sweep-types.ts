@@ -88,4 +88,6 @@ export interface SweepResult {
   /** Statistical comparison of the tuning scheme with the shuffled control across categories. */
   control: { meanTuning: number; meanShuffled: number; difference: number; pValue: number; test: string } | null;
   summary: string;
+  /** What the cells were computed from and its digest (a rerun into the same --out must match it; see sweep-inputs.ts). */
+  inputs?: { digest: string; sonde: string; model: string; baseline: string; tuning: string | null; sensitivity: string | null; task: string; threshold: number | 'best' | 'auto'; depthProfileStimuli: number | null };
 }

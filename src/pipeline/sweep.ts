@@ -23,6 +23,7 @@ import { shardRange } from './shard.js';
 import { ALL_ACTIVATIONS, chooseSites } from './sense.js';
 import type { SweepBest, SweepCalibration, SweepCell, SweepDepthPoint, SweepDetection, SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
+import { assertSameSweepInputs, isSweepInputsHeader, sweepInputsDigest, sweepInputsHeader, sweepInputsOf, type SweepInputs } from './sweep-inputs.js';
 
 /** Schemes a sweep knows. */
 export const SWEEP_SCHEMES = ['tuning', 'sensitivity', 'uniform', 'shuffled'] as const;
@@ -134,17 +135,27 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   mkdirSync(options.out, { recursive: true });
   const progressPath = join(options.out, 'cells.jsonl');
   const done = new Map<string, SweepCell>();
+  // cells are reused only when computed from the same inputs (see sweep-inputs.ts)
+  const inputs = sweepInputsOf({ modelSha256: model.sha256, baselineFolder: baseline.folder, tuning: options.tuning, sensitivity: options.sensitivity, task: options.task, threshold: options.threshold ?? 'auto', depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64 });
   if (!options.restart && existsSync(progressPath)) {
+    const headers: { sweepInputs: string; of?: Partial<SweepInputs> }[] = [];
     for (const line of readFileSync(progressPath, 'utf8').split('\n')) {
       if (!line.trim()) continue;
       try {
+        const plain = JSON.parse(line) as unknown;
+        if (isSweepInputsHeader(plain)) {
+          headers.push(plain);
+          continue;
+        }
         const cell = JSON.parse(line, (_k, v: unknown) => (v === null ? Number.NaN : v)) as SweepCell;
         done.set(cellKey(cell.site, cell.scheme, cell.strength, cell.category, cell.seed), cell);
       } catch {
         // a torn last line from an interruption: that cell is simply redone
       }
     }
-  } else writeFileSync(progressPath, '');
+    assertSameSweepInputs(progressPath, headers, done.size, inputs);
+    if (headers.length === 0) writeFileSync(progressPath, sweepInputsHeader(inputs));
+  } else writeFileSync(progressPath, sweepInputsHeader(inputs));
 
   // thresholds and baseline detection per category (from the baseline's recorded readout)
   const n = baseline.manifest.stimuli.count;
@@ -222,7 +233,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
     }
   }
   const cells = mine.map((c) => done.get(c.key)!);
-  const result = summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match });
+  const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match }), inputs: { digest: sweepInputsDigest(inputs), ...inputs } };
   writeSweepTable(join(options.out, 'cells.arrow'), cells);
   writeFileSync(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   return result;
