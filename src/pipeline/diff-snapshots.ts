@@ -354,7 +354,8 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
       effectSize: metrics.effectSize,
       nonFinite: metrics.nonFinite,
       floor,
-      aboveFloor: metrics.relativeChange > floor,
+      // non-finite data have no meaningful place relative to the floor
+      aboveFloor: metrics.nonFinite.base + metrics.nonFinite.mod === 0 && metrics.relativeChange > floor,
       relativeChangeCi: ci,
       signature,
       unchanged: layer.unchanged,
@@ -572,8 +573,27 @@ export function describeDepthProfile(report: DiffReport): string {
   }
 }
 
-/** One line saying how far the change propagates and what it does to the task. */
+/** Layers of a diff holding NaN/±Infinity values on either side. */
+export function nonFiniteLayers(report: Pick<DiffReport, 'layers'>): LayerDiffRow[] {
+  return report.layers.filter((l) => l.nonFinite.base + l.nonFinite.mod > 0);
+}
+
+/**
+ * What a diff says instead of a verdict when any layer holds NaN/±Infinity values: no noise-floor,
+ * survival, depth or task statement is made on such data (every metric they touch is NaN or infinite).
+ * @returns the text, or null when every layer is finite.
+ */
+export function nonFiniteVerdict(report: Pick<DiffReport, 'layers'>): string | null {
+  const tainted = nonFiniteLayers(report);
+  if (tainted.length === 0) return null;
+  const first = tainted[0]!;
+  return `no verdict: the data are non-finite — NaN/±Infinity values in ${tainted.length} of ${report.layers.length} layers, from ${first.name} on (${first.nonFinite.base} baseline and ${first.nonFinite.mod} modulated values there); the metrics they touch are NaN or infinite`;
+}
+
+/** One line saying how far the change propagates and what it does to the task (or, on non-finite data, that there is no verdict). */
 export function verdictOf(report: DiffReport): string {
+  const refused = nonFiniteVerdict(report);
+  if (refused) return refused;
   const parts: string[] = [];
   const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
   parts.push(`${subject} ${describeDepthProfile(report)}`);
@@ -611,6 +631,8 @@ export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
   const aWins = below.filter((l) => l.larger === 'a').length;
   const bWins = below.filter((l) => l.larger === 'b').length;
   const sameSites = a.sites.length === b.sites.length && a.sites.every((site) => b.sites.includes(site));
+  const refused = nonFiniteVerdict(a) ?? nonFiniteVerdict(b);
+  if (refused) return { a, b, layers, task, verdict: `${nonFiniteVerdict(a) ? 'A' : 'B'}: ${refused}` };
   const parts = [`below ${sameSites ? 'the site' : "both schemes' sites"}, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
   if (task) parts.push(`detection d′ change A ${signed(task.a)} vs B ${signed(task.b)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
   return { a, b, layers, task, verdict: parts.join('; ') };

@@ -111,15 +111,19 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
     baselineRef = { path: relative(folder, baseline.folder) || '.', manifestSha256: createHash('sha256').update(readFileSync(join(baseline.folder, 'manifest.json'))).digest('hex') };
   }
 
-  const layers: ManifestLayer[] = template.layers.map((l) => {
-    const { sha256: _s, bytes: _b, rows: _r, from: _f, ...rest } = l;
-    return { ...rest };
+  // NaN/±Inf counts add up over the parts (kept only when every part counted them)
+  const sumOver = (pick: (m: SnapshotManifest) => number | undefined): number | undefined => (ordered.every((p) => pick(p.manifest) !== undefined) ? ordered.reduce((sum, p) => sum + pick(p.manifest)!, 0) : undefined);
+  const layers: ManifestLayer[] = template.layers.map((l, i) => {
+    const { sha256: _s, bytes: _b, rows: _r, from: _f, nonFinite: _n, ...rest } = l;
+    const nonFinite = sumOver((m) => m.layers[i]?.nonFinite);
+    return { ...rest, ...(nonFinite !== undefined ? { nonFinite } : {}) };
   });
+  const fedNonFinite = sumOver((m) => m.stimuli.nonFinite);
   const manifest: SnapshotManifest = {
     format: FORMAT_VERSION,
     tool: { name: 'sonde', version: TOOL_VERSION },
     model: template.model,
-    stimuli: { source: template.stimuli.source, count: total, digest, listingDigest: template.stimuli.listingDigest, categories: template.stimuli.categories },
+    stimuli: { source: template.stimuli.source, count: total, digest, listingDigest: template.stimuli.listingDigest, categories: template.stimuli.categories, ...(fedNonFinite !== undefined ? { nonFinite: fedNonFinite } : {}) },
     preprocessing: template.preprocessing,
     modulation: template.modulation,
     readout: template.readout ?? null,

@@ -34,6 +34,8 @@ export interface ProgressRecord {
   stimuli: number;
   /** Byte length of each layer file (manifest `file` → bytes of its `.partial`) at the checkpoint. */
   files: Record<string, number>;
+  /** NaN/±Infinity counts so far per layer file and `stimuli` (see non-finite.ts); absent in older checkpoints. */
+  nonFinite?: Record<string, number>;
 }
 
 /**

@@ -19,6 +19,7 @@ import { listingDigest, openStimulusSource } from '../stimuli/source.js';
 import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { openOutputFolder, resolveOutFolder } from './output-folder.js';
+import { countNonFinite, nonFiniteNotice, NonFiniteTally, storageBound } from './non-finite.js';
 import { removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { displayPath, markIncomplete, settleOutputFolder, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
 
@@ -267,10 +268,11 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
         writers.push(writer);
       } else writers.push(new LayerFileWriter(path, layout));
     }
+    const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);
     const takeCheckpoint = (batches: number, stimuli: number) => {
       const files: Record<string, number> = {};
       writers.forEach((writer, i) => (files[changedEntries[i]!.file] = writer.checkpoint()));
-      writeProgress(folder, { format: 1, batches, stimuli, files });
+      writeProgress(folder, { format: 1, batches, stimuli, files, ...(tally ? { nonFinite: tally.toRecord() } : {}) });
       lastCheckpoint = performance.now();
     };
     if (!checkpoint) takeCheckpoint(0, 0);
@@ -306,6 +308,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
             const tensor = outputs[entry.name];
             if (!tensor) throw new RuntimeFailure('E_RUNTIME_OUTPUT', `the runtime returned no value for "${entry.name}"`);
             writers[i]!.write(first, rows, tensor.data);
+            tally?.add(entry.file, countNonFinite(tensor.data, 0, tensor.data.length, storageBound(entry.dtype, entry.keep)));
             bytesWritten += tensor.data.byteLength;
           });
           batchesDone += 1;
@@ -321,7 +324,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     let total = 0;
     writers.forEach((writer, i) => {
       const result = writer.finish();
-      Object.assign(changedEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows });
+      Object.assign(changedEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows, ...(tally ? { nonFinite: tally.get(changedEntries[i]!.file) } : {}) });
       total += result.bytes;
     });
     total += writeStimuliFile(join(folder, 'stimuli.arrow'), baseline.stimuli.ids, baseline.stimuli.labels, { firstIndex, ...(baseline.stimuli.digests ? { digests: baseline.stimuli.digests } : {}) }).bytes;
@@ -331,6 +334,8 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     delete manifest.error;
     writeManifest(folder, manifest);
     removeProgress(folder);
+    const notice = nonFiniteNotice(manifest);
+    if (notice) options.onNotice?.(notice);
     return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: count, layers: manifest.layers.length, bytesWritten: total, wallSeconds, stimuliPerSecond: (count - doneRows) / wallSeconds };
   } catch (error) {
     for (const writer of writers) writer.suspend();

@@ -15,6 +15,7 @@ import type { Preprocessing } from '../stimuli/preprocess.js';
 import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from './output-folder.js';
+import { countNonFinite, nonFiniteNotice, NonFiniteTally, STIMULI_KEY, storageBound } from './non-finite.js';
 import { DigestLog, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { shardRange, type ShardSpec } from './shard.js';
 
@@ -251,11 +252,14 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     });
     digests = new DigestLog(folder, rowsTotal, doneRows);
     const log = digests;
+    // NaN/±Inf counts: per layer as written, per stimulus row as fed (the feeds run one batch ahead)
+    const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);
+    const fedNonFinite = new Uint32Array(rowsTotal);
     const takeCheckpoint = (batches: number, stimuli: number) => {
       const files: Record<string, number> = {};
       writers.forEach((writer, i) => (files[layerEntries[i]!.file] = writer.checkpoint()));
       log.sync();
-      writeProgress(folder, { format: 1, batches, stimuli, files });
+      writeProgress(folder, { format: 1, batches, stimuli, files, ...(tally ? { nonFinite: fedTally(tally, fedNonFinite, doneRows, stimuli).toRecord() } : {}) });
       lastCheckpoint = performance.now();
     };
     if (!checkpoint) takeCheckpoint(0, 0);
@@ -264,7 +268,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     let batchesDone = doneBatches;
     try {
       const batches = Math.ceil(rowsTotal / batch);
-      const read = stimulusBatches(source, batch, fixedBatch, range, run.model.input.name, [run.channels, run.height, run.width], log.digests, options.extension?.extraFeeds?.bind(options.extension));
+      const read = stimulusBatches(source, batch, fixedBatch, range, run.model.input.name, [run.channels, run.height, run.width], log.digests, options.extension?.extraFeeds?.bind(options.extension), fedNonFinite);
       await runPipelined(
         batches - doneBatches,
         (k) => read(k + doneBatches),
@@ -275,6 +279,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
             if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
             checkShape(layer, tensor, rows, fixedBatch);
             writers[i]!.write(first, rows, tensor.data);
+            tally?.add(layerEntries[i]!.file, countNonFinite(tensor.data, 0, rows * layer.elements, storageBound(dtype, keep)));
           });
           log.append(first - range.start, rows);
           batchesDone += 1;
@@ -297,6 +302,11 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     total += stimuliFile.bytes;
     const wallSeconds = (performance.now() - run.started) / 1000;
     manifest.stimuli.digest = stimuliDigest(log.digests);
+    if (tally) {
+      const whole = fedTally(tally, fedNonFinite, doneRows, rowsTotal);
+      layerEntries.forEach((entry) => (entry.nonFinite = whole.get(entry.file)));
+      manifest.stimuli.nonFinite = whole.get(STIMULI_KEY);
+    }
     manifest.run.wallSeconds = Math.round(wallSeconds * 1000) / 1000;
     options.extension?.beforeComplete?.(manifest);
     manifest.complete = true;
@@ -304,6 +314,8 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     writeManifest(folder, manifest);
     log.close();
     removeProgress(folder);
+    const notice = nonFiniteNotice(manifest);
+    if (notice) options.onNotice?.(notice);
     return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: rowsTotal, layers: selected.length, bytesWritten: total, wallSeconds, stimuliPerSecond: (rowsTotal - doneRows) / wallSeconds };
   } catch (error) {
     // keep the partial files and the last checkpoint: `--resume` continues from there
@@ -442,7 +454,7 @@ export async function runPipelined(
  * Reads the stimulus batches of `range` as input feeds (batch k covers local rows [k·batch, …)), and
  * stores the SHA-256 of each stimulus's exact input bytes at its local row in `digests`.
  */
-function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: number | null, range: { start: number; end: number }, inputName: string, shape: [number, number, number], digests: Uint8Array, extraFeeds: RecordExtension['extraFeeds']) {
+function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: number | null, range: { start: number; end: number }, inputName: string, shape: [number, number, number], digests: Uint8Array, extraFeeds: RecordExtension['extraFeeds'], nonFinite: Uint32Array) {
   const [c, h, w] = shape;
   const per = c * h * w;
   return async (k: number): Promise<FeedBatch> => {
@@ -454,11 +466,19 @@ function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: numb
     for (let r = 0; r < rows; r++) {
       const digest = createHash('sha256').update(new Uint8Array(data.buffer, r * per * 4, per * 4)).digest();
       digests.set(digest, (first - range.start + r) * STIMULUS_DIGEST_BYTES);
+      nonFinite[first - range.start + r] = countNonFinite(data, r * per, (r + 1) * per);
     }
     const feeds: Record<string, FloatTensor> = { [inputName]: { data, dims: [padded, c, h, w] } };
     if (extraFeeds) Object.assign(feeds, extraFeeds(first, padded));
     return { first, rows, feeds };
   };
+}
+
+/** The layer counts of `tally` plus the stimuli's: the checkpoint's own count for rows before `from`, and the per-row counts of rows [from, to). */
+function fedTally(tally: NonFiniteTally, perRow: Uint32Array, from: number, to: number): NonFiniteTally {
+  const whole = new NonFiniteTally(tally.toRecord());
+  for (let r = from; r < to; r++) whole.add(STIMULI_KEY, perRow[r]!);
+  return whole;
 }
 
 /** For messages: a path relative to the working folder. */

@@ -38,7 +38,7 @@ export function renderDiffReport(report: DiffReport): string {
       const s = layer.signature;
       row.push(s ? `${fixed(s.slope)}${s.ci ? ` [${fixed(s.ci.slope[0])}, ${fixed(s.ci.slope[1])}]` : ''}` : '', s ? fixed(s.intercept) : '', s ? `${fixed(s.featureMatchingFraction * 100, 0)}%` : '');
     }
-    row.push(layer.unchanged ? 'same file' : layer.aboveFloor ? 'above' : 'below');
+    row.push(layer.unchanged ? 'same file' : layer.nonFinite.base + layer.nonFinite.mod > 0 ? 'non-finite' : layer.aboveFloor ? 'above' : 'below');
     table.push(row);
   }
   const lines = [table.toString()];

@@ -54,6 +54,8 @@ export interface ManifestLayer {
   bytes?: number;
   /** Rows (stimuli) in the file. */
   rows?: number;
+  /** NaN/±Infinity elements the layer produced (with float16 storage also the values it overflows to ±Infinity); absent when not counted. */
+  nonFinite?: number;
 }
 
 /** The whole manifest. */
@@ -64,9 +66,10 @@ export interface SnapshotManifest {
   /**
    * `count`: stimuli in this snapshot (a shard's own); `digest`: SHA-256 over the per-stimulus digests in
    * index order; `listingDigest`: SHA-256 over ids and labels of the whole listing (shards share it);
-   * `categories`: the categories of the whole listing.
+   * `categories`: the categories of the whole listing; `nonFinite`: NaN/±Infinity values in the input fed
+   * to the network (absent when not counted, e.g. a replay from a baseline).
    */
-  stimuli: { source: string; count: number; digest: string; listingDigest: string; categories: string[] };
+  stimuli: { source: string; count: number; digest: string; listingDigest: string; categories: string[]; nonFinite?: number };
   preprocessing: { size: [number, number]; mean: number[]; std: number[]; bgr: boolean } | null;
   /** The resolved modulation (vectors, seeds), or null for a baseline. */
   modulation: unknown;
@@ -132,6 +135,7 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
   }
   if (stimuli!.listingDigest !== undefined && typeof stimuli!.listingDigest !== 'string') fail('"stimuli.listingDigest" must be a string');
   if (stimuli!.categories !== undefined && !(Array.isArray(stimuli!.categories) && stimuli!.categories.every((c) => typeof c === 'string'))) fail('"stimuli.categories" must be a list of strings');
+  if (stimuli!.nonFinite !== undefined && !isCount(stimuli!.nonFinite)) fail('"stimuli.nonFinite" must be a non-negative integer');
   const run = record(m.run);
   if (run && !(Number.isSafeInteger(run.batch) && (run.batch as number) > 0)) fail(`"run.batch" must be a positive integer, got ${JSON.stringify(run.batch)}`);
   const baseline = m.baseline;
@@ -155,7 +159,7 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
     if (entry.dtype !== 'float32' && entry.dtype !== 'float16') fail(`layers[${i}].dtype must be "float32" or "float16"`);
     if (entry.from !== undefined && entry.from !== 'baseline') fail(`layers[${i}].from must be "baseline" when present`);
     if (entry.from === 'baseline' && (m.baseline === null || m.baseline === undefined)) fail(`layers[${i}] comes from a baseline but "baseline" is null`);
-    for (const key of ['rows', 'bytes'] as const) {
+    for (const key of ['rows', 'bytes', 'nonFinite'] as const) {
       if (entry[key] !== undefined && !isCount(entry[key])) fail(`layers[${i}].${key} must be a non-negative integer`);
     }
     if (entry.sha256 !== undefined && !(typeof entry.sha256 === 'string' && /^[0-9a-f]{64}$/.test(entry.sha256))) fail(`layers[${i}].sha256 must be 64 hex digits`);
