@@ -1,13 +1,12 @@
-import { renameSync, writeFileSync } from 'node:fs';
 import { tableFromArrays, tableToIPC } from 'apache-arrow';
 import type { SweepCell } from '../pipeline/sweep-types.js';
-import { writeFailure } from './arrow-sink.js';
+import { replaceFile } from './atomic-file.js';
 
 /**
  * Writes sweep cells as an Arrow IPC file, one row per cell: `site`, `scheme`, `category` utf8,
  * `strength` float64, `seed` int32, `base_*` and `mod_*` (hit_rate, false_alarm_rate, d_prime,
  * criterion, accuracy) float64, `d_prime_change`, `accuracy_change_pp`, `site_activity_change` float64.
- * Written under a temporary name and renamed.
+ * Written under a temporary name, fsynced and renamed (`replaceFile`).
  */
 export function writeSweepTable(path: string, cells: readonly SweepCell[]): void {
   const f64 = (pick: (c: SweepCell) => number) => Float64Array.from(cells, pick);
@@ -31,11 +30,5 @@ export function writeSweepTable(path: string, cells: readonly SweepCell[]): void
     accuracy_change_pp: f64((c) => c.change.accuracyPp),
     site_activity_change: f64((c) => c.siteActivityChange),
   });
-  const temporary = `${path}.partial`;
-  try {
-    writeFileSync(temporary, tableToIPC(table, 'file'));
-    renameSync(temporary, path);
-  } catch (error) {
-    throw writeFailure(path, error);
-  }
+  replaceFile(path, tableToIPC(table, 'file'));
 }
