@@ -1,4 +1,4 @@
-import { existsSync, mkdirSync, rmSync, writeFileSync } from 'node:fs';
+import { existsSync, writeFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { UsageError } from '../errors.js';
 import { loadModel } from '../graph/load-model.js';
@@ -14,6 +14,7 @@ import { senseSites } from './sense.js';
 import { sweepModulations } from './sweep.js';
 import type { SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
+import { prepareDemoFolder } from './output-folder.js';
 import { tuneSnapshot } from './tune.js';
 import { signed } from '../report/format.js';
 import { writeHtmlReport } from '../report/html/html-report.js';
@@ -64,7 +65,11 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   if (!existsSync(DEMO_MODEL)) throw new UsageError('E_DEMO', `the demo network ${DEMO_MODEL} is missing from this installation`);
   const plan = options.quick ? PLAN.quick : PLAN.full;
   const folder = resolve(options.out ?? join('snapshots', 'demo'));
-  const step = options.onStep ?? (() => undefined);
+  // before each step, the files of the steps done so far are recorded as the demo's (see prepareDemoFolder)
+  const step = (text: string): void => {
+    demoFolder.settle(false);
+    options.onStep?.(text);
+  };
   const threads = options.threads ?? 0;
   const model = loadModel(DEMO_MODEL);
   const sidecar = readSidecar(DEMO_MODEL) as (ModelSidecar & { stimuli?: DemoDisplayOptions }) | null;
@@ -78,8 +83,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   const sites = [...new Set(picks)];
   const categories = kinds.slice(0, plan.categories);
 
-  rmSync(folder, { recursive: true, force: true });
-  mkdirSync(folder, { recursive: true });
+  const demoFolder = prepareDemoFolder(folder);
   const files: Record<string, string> = {};
   step(`generating ${plan.stimuli} search displays (seed ${options.seed ?? 2024})`);
   const stimuliFolder = join(folder, 'stimuli');
@@ -166,6 +170,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   if (sweep.control) summary.push(`tuning-based vs shuffled control: ${signed(sweep.control.meanTuning, 3)} vs ${signed(sweep.control.meanShuffled, 3)}, p = ${sweep.control.pValue.toPrecision(2)} (${sweep.control.test})`);
   const pooled = agreement.layers.map((l) => `${l.layer} r=${l.pooled.pearson.toFixed(2)}`).join(', ');
   summary.push(`tuning–sensitivity agreement (pooled Pearson r): ${pooled}`);
+  demoFolder.settle(true);
   return { folder, sites, sweep, diffs, agreement, files, headline: { site: top.site, scheme: top.scheme, strength: top.strength, dPrimeChange: top.dPrimeChange, accuracyPp: top.accuracyPp }, summary };
 }
 

@@ -30,7 +30,7 @@ import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest } from '../stimuli/source.js';
 import { TOOL_VERSION } from '../version.js';
-import { openOutputFolder, resolveOutFolder } from './output-folder.js';
+import { assertApartFromInputs, openOutputFolder, resolveOutFolder } from './output-folder.js';
 import { displayPath, markIncomplete } from './record-snapshot.js';
 import { shardRange } from './shard.js';
 
@@ -74,6 +74,7 @@ export interface MergeSummary {
  */
 export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummary> {
   if (options.parts.length === 0) throw new UsageError('E_MERGE', 'merge needs at least one part');
+  assertApartFromInputs(resolveOutFolder(options.out), '--out', [...options.parts.map((path, i) => ({ option: `part ${i + 1}`, path })), { option: '--baseline', path: options.baseline }]);
   const parts = options.parts.map((p) => openSnapshot(p));
   parts.forEach((part, i) => {
     if (!part.manifest.shard) throw new UsageError('E_MERGE', `${options.parts[i]} is not a shard snapshot (recorded without --shard); only shards of one recording can be merged`);

@@ -129,8 +129,8 @@ export function assertOutFolderUsable(folder: string, force: boolean): OutFolder
         hint: 'move those entries out of the folder, or choose an empty folder',
       });
     }
-    const what = state.foreign.includes('manifest.json') ? `a manifest.json that is not Sonde's (${state.reason ?? 'unreadable'})` : `entries that are not a Sonde snapshot (${found})`;
-    throw new UsageError('E_OUT', `--out ${folder} is not empty and holds ${what}; refusing to write into it${force ? ', even with --force (Sonde only deletes what it wrote)' : ''}`, {
+    const what = state.foreign.includes('manifest.json') ? `a manifest.json that Sonde did not write (${state.reason ?? 'unreadable'})` : `found ${found}`;
+    throw new UsageError('E_OUT', `--out ${folder} is not empty and holds no snapshot (${what}); refusing to write into it${force ? ', even with --force (Sonde only deletes what it wrote)' : ''}`, {
       hint: 'choose a new or empty folder',
     });
   }

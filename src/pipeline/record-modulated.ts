@@ -18,7 +18,7 @@ import { writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource } from '../stimuli/source.js';
 import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
-import { openOutputFolder, resolveOutFolder } from './output-folder.js';
+import { assertApartFromInputs, openOutputFolder, resolveOutFolder } from './output-folder.js';
 import { countNonFinite, nonFiniteNotice, NonFiniteTally, storageBound } from './non-finite.js';
 import { removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { displayPath, markIncomplete, settleOutputFolder, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
@@ -101,6 +101,13 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
   const spec = typeof options.modulate === 'string' ? loadModulationSpec(options.modulate) : options.modulate;
   const baseline = options.from ? openSnapshot(options.from) : null;
+  assertApartFromInputs(resolveOutFolder(options.out), '--out', [
+    { option: 'MODEL', path: model.path },
+    { option: '--stimuli', path: options.stimuli },
+    { option: '--labels', path: options.labels },
+    { option: '--from', path: options.from },
+    { option: '--modulate', path: typeof options.modulate === 'string' ? options.modulate : null },
+  ]);
   if (baseline) assertSameModel(baseline, model, options.from!);
   const inspection = await inspectModel(model, options.inputShape ? { inputShape: options.inputShape } : {});
   const categories = options.categories ?? (baseline ? baseline.categories : undefined);

@@ -13,8 +13,8 @@ import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snaps
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import type { Preprocessing } from '../stimuli/preprocess.js';
 import { TOOL_VERSION } from '../version.js';
-import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
-import { openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from './output-folder.js';
+import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
+import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from './output-folder.js';
 import { countNonFinite, nonFiniteNotice, NonFiniteTally, STIMULI_KEY, storageBound } from './non-finite.js';
 import { DigestLog, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { shardRange, type ShardSpec } from './shard.js';
@@ -120,6 +120,8 @@ export interface RecordSummary {
 export async function recordSnapshot(options: RecordOptions): Promise<RecordSummary> {
   const started = performance.now();
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
+  // before anything is written: the output must be none of the inputs (nor contain or lie inside one)
+  assertApartFromInputs(resolveOutFolder(options.out), '--out', [{ option: 'MODEL', path: model.path }, { option: '--stimuli', path: options.stimuli }, { option: '--labels', path: options.labels }]);
   const sidecar = readSidecar(model.path);
   const keep = options.keep ?? 'full';
   const dtype = options.dtype ?? 'float32';
@@ -134,6 +136,10 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   }
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
   const selected = options.layerNames ? pickLayers(inspection.layers, options.layerNames, model.fileName) : selectLayers(inspection.layers, options.layers);
+  if (!options.layerNames && /(^|[\s+])all($|[\s+])/.test(options.layers ?? '')) {
+    const skipped = describeSkipped(inspection);
+    if (skipped) options.onNotice?.(`--layers all: ${skipped}`);
+  }
   const [, channels, height, width] = inspection.input.shape.length === 4 ? inspection.input.shape : [0, 0, 0, 0];
   if (inspection.input.shape.length !== 4) {
     throw new UsageError('E_INPUT_SHAPE', `input "${model.input.name}" has shape [${inspection.input.shape.join(', ')}]; Sonde feeds NCHW image batches`);

@@ -14,6 +14,7 @@ import { selectLayers } from '../graph/select.js';
 import type { ManifestLayer } from '../snapshot/manifest.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { writeTuningTable, type TuningTableBlock } from '../snapshot/tables.js';
+import { assertOutFileWritable } from './output-file.js';
 
 /**
  * A channel counts as selective when its selectivity index (r_max − r_rest)/(r_max + r_rest) is at least
@@ -34,6 +35,8 @@ export interface TuneOptions {
   categories?: string[];
   /** Write the tuning table here (an `.arrow` file); omit to only compute. */
   out?: string;
+  /** Replace an existing file at `out` (without it an existing file is refused before any work). */
+  force?: boolean;
 }
 
 /** The terminal summary of one layer. */
@@ -74,11 +77,13 @@ export interface TuneResult {
  * @returns per-layer blocks and summaries, category counts, and the file written.
  * @throws UsageError when the snapshot has no labels, has fewer than two categories, a category has no
  *   stimuli (with `singleLabel`: no one-label stimuli), the selector matches nothing, or a selected layer
- *   has no channel axis; RuntimeFailure when a layer file cannot be read or the table cannot be written.
+ *   has no channel axis, or `out` exists without `force` (or is the snapshot or inside it); RuntimeFailure
+ *   when a layer file cannot be read or the table cannot be written.
  * Edge cases: zero-variance channels get tuning 0 and are flagged; NaN/Inf channel means make that
  * channel's values NaN (counted in the summary), never silently dropped.
  */
 export async function tuneSnapshot(options: TuneOptions): Promise<TuneResult> {
+  if (options.out !== undefined) assertOutFileWritable(options.out, { force: options.force ?? false, inputs: [{ option: 'SNAPSHOT', path: typeof options.snapshot === 'string' ? options.snapshot : options.snapshot.folder }] });
   const snapshot = typeof options.snapshot === 'string' ? openSnapshot(options.snapshot) : options.snapshot;
   const folder = typeof options.snapshot === 'string' ? options.snapshot : snapshot.folder;
   const labelled = snapshot.stimuli.labels.filter((l) => l.length > 0).length;

@@ -156,5 +156,5 @@ export function injectWriteFault(fault: WriteFault | null): void {
 export function writeFailure(path: string, error: unknown): RuntimeFailure {
   const code = (error as NodeJS.ErrnoException).code;
   const reason = code === 'ENOSPC' ? 'the disk is full' : code === 'EACCES' || code === 'EPERM' ? 'permission denied' : (error as Error).message;
-  return new RuntimeFailure('E_WRITE', `cannot write ${path}: ${reason}`);
+  return new RuntimeFailure('E_WRITE', `cannot write ${path}: ${reason}`, { cause: error });
 }

@@ -1,4 +1,3 @@
-import { writeFileSync } from 'node:fs';
 import type { Command } from 'commander';
 import { RuntimeFailure, UsageError } from '../../errors.js';
 import { diffSnapshots, nonFiniteLayers, type DiffOptions, type DiffReport, type SchemeComparison } from '../../pipeline/diff-snapshots.js';
@@ -9,6 +8,8 @@ import { cliIo } from '../run.js';
 import { tuningLookup } from './tuning-lookup.js';
 import { diffPartial, writePartial } from '../../pipeline/partial-stats.js';
 import { parseShard } from '../../pipeline/shard.js';
+import { assertOutFileWritable } from '../../pipeline/output-file.js';
+import { replaceFile } from '../../snapshot/atomic-file.js';
 
 interface DiffCliOptions {
   vs?: string;
@@ -22,6 +23,7 @@ interface DiffCliOptions {
   threshold?: string;
   json?: boolean;
   csv?: string;
+  force?: boolean;
   shard?: string;
   partial?: string;
 }
@@ -43,7 +45,8 @@ export function registerDiff(program: Command): void {
     .option('--seed <n>', 'bootstrap seed', nonNegativeInteger, 0)
     .option('--tolerance <x>', 'channel ratio tolerance for up/down', finiteNumber, 0.01)
     .option('--json', 'print the full report as JSON')
-    .option('--csv <file>', 'also write one CSV row per layer')
+    .option('--csv <file>', 'also write one CSV row per layer (an existing file only with --force)')
+    .option('--force', 'replace an existing --csv file')
     .option('--shard <K/N>', 'with --partial: accumulate only shard K of N of the stimuli')
     .option('--partial <file.json>', 'write mergeable partial statistics instead of the report (combine them with `sonde merge`)')
     .action(async (basePath: string, modPath: string, opts: DiffCliOptions) => {
@@ -55,6 +58,8 @@ export function registerDiff(program: Command): void {
         else if (Number.isFinite(Number(opts.threshold))) threshold = Number(opts.threshold);
         else throw new UsageError('E_THRESHOLD', `--threshold must be a number, "best" or "auto", got "${opts.threshold}"`);
       }
+      // refuse an existing --csv (or one that is an input) before the diff runs
+      if (opts.csv !== undefined) assertOutFileWritable(opts.csv, { option: '--csv', force: opts.force ?? false, inputs: [{ option: 'BASE', path: basePath }, { option: 'MOD', path: modPath }, { option: '--vs', path: opts.vs }, { option: '--floor', path: opts.floor }, { option: '--tuning', path: opts.tuning }] });
       const bar = createProgressBar('diff');
       const options: DiffOptions = {
         base: basePath,
@@ -90,7 +95,7 @@ export function registerDiff(program: Command): void {
         bar.stop();
       }
       const single = 'verdict' in result && 'layers' in result && !('a' in result) ? (result as DiffReport) : null;
-      if (opts.csv) writeFileSync(opts.csv, diffToCsv(single ?? (result as SchemeComparison).a));
+      if (opts.csv) replaceFile(opts.csv, diffToCsv(single ?? (result as SchemeComparison).a));
       if (opts.json) io.stdout(reportToJson(result));
       else io.stdout(single ? renderDiffReport(single) : renderComparison(result as SchemeComparison, [modPath, opts.vs!]));
       // non-finite data: the report is printed (it shows where), but the run fails so no script takes it as an answer

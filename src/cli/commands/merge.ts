@@ -28,7 +28,7 @@ export function registerMerge(program: Command): void {
     .argument('<parts...>', 'shard snapshot folders, or partial-statistics .json files')
     .option('--out <dir|file>', 'merged snapshot folder; for tune partials the tuning table (.arrow)')
     .option('--baseline <snapshot>', 'modulated shards: the merged baseline the result pairs with (layers equal to it are referenced, not copied)')
-    .option('--force', 'replace a complete snapshot already in --out')
+    .option('--force', 'replace a complete snapshot (or, for partials, the table file) already in --out')
     .option('--json', 'partial statistics: print the merged result as JSON')
     .action(async (parts: string[], opts: MergeCliOptions) => {
       const io = cliIo();
@@ -37,7 +37,7 @@ export function registerMerge(program: Command): void {
       if (missing >= 0) throw new UsageError('E_MERGE', `merge part ${parts[missing]} does not exist`);
       if (kinds.includes('folder') && kinds.includes('file')) throw new UsageError('E_MERGE', 'merge parts must be all snapshot folders or all partial-statistics files, not a mix');
       if (kinds[0] === 'file') {
-        await mergePartialFiles(parts, { ...(opts.out !== undefined ? { out: opts.out } : {}), json: opts.json ?? false });
+        await mergePartialFiles(parts, { ...(opts.out !== undefined ? { out: opts.out } : {}), force: opts.force ?? false, json: opts.json ?? false });
         return;
       }
       if (opts.out === undefined) throw new UsageError('E_MERGE', 'sonde merge SHARDS... needs --out DIR (where the merged snapshot goes)');

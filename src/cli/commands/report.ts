@@ -10,6 +10,7 @@ import { cliIo } from '../run.js';
 interface ReportCliOptions {
   out: string;
   title?: string;
+  force?: boolean;
 }
 
 /** Registers `sonde report`. */
@@ -18,11 +19,12 @@ export function registerReport(program: Command): void {
     .command('report')
     .description('write one self-contained HTML report (inline SVG charts, no script, no network) from diff, sweep and tune JSON results')
     .argument('<inputs...>', 'JSON files: sonde diff --json (also with --vs), sweep.json, tune --json (also with --against)')
-    .requiredOption('--out <file.html>', 'the HTML file to write (overwritten)')
+    .requiredOption('--out <file.html>', 'the HTML file to write (an existing file only with --force)')
+    .option('--force', 'replace an existing --out file')
     .option('--title <text>', 'page title', 'Sonde report')
     .action(async (inputs: string[], opts: ReportCliOptions, command: Command) => {
       const io = cliIo();
-      const result = await writeHtmlReport({ inputs, out: opts.out, ...(opts.title !== undefined ? { title: opts.title } : {}) });
+      const result = await writeHtmlReport({ inputs, out: opts.out, ...(opts.force ? { force: true } : {}), ...(opts.title !== undefined ? { title: opts.title } : {}) });
       const kinds = result.inputs.map((i) => i.kind).join(', ');
       io.stdout(`wrote ${displayPath(result.path)} (${(result.bytes / 1024).toFixed(0)} KiB): ${result.charts} charts, ${result.sections.length} sections, from ${result.inputs.length} inputs (${kinds})\n`);
       const verbose = command.optsWithGlobals<{ verbose?: boolean }>().verbose === true;

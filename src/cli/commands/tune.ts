@@ -24,6 +24,7 @@ interface TuneCliOptions {
   json?: boolean;
   shard?: string;
   partial?: string;
+  force?: boolean;
 }
 
 const TABLE_STYLE = { head: [] as string[], border: [] as string[], compact: true };
@@ -34,7 +35,8 @@ export function registerTune(program: Command): void {
     .command('tune')
     .description('per layer, channel and category: mean response, standard error, count and tuning value (z-score across categories) of a labelled snapshot')
     .argument('<source>', 'a labelled baseline snapshot folder, or a tuning table (.arrow) made earlier')
-    .option('--out <file.arrow>', 'write the tuning table here (needed when SOURCE is a snapshot)')
+    .option('--out <file.arrow>', 'write the tuning table here (needed when SOURCE is a snapshot; an existing file only with --force)')
+    .option('--force', 'replace an existing --out file')
     .option('--layers <selector>', 'layers to tune: all | globs | names joined by + (default: every layer with a channel axis)')
     .option('--single-label', 'use only stimuli with exactly one label (default: multi-label stimuli count for each label)')
     .option('--against <sens.arrow>', 'also correlate tuning with a sensitivity table (Pearson and Spearman across channels, per layer)')
@@ -63,7 +65,7 @@ export function registerTune(program: Command): void {
         summaries = blocks.map((b) => summariseLayer(b.layer, b.op ?? '', b.depth ?? -1, { ...b, nonFinite: new Int32Array(b.channels), stimuliUsed: 0, stimuliSkipped: 0 }));
       } else {
         if (opts.out === undefined) throw new UsageError('E_USAGE', 'sonde tune SNAPSHOT needs --out FILE.arrow (where the tuning table goes)');
-        const result = await tuneSnapshot({ snapshot: source, out: opts.out, ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) });
+        const result = await tuneSnapshot({ snapshot: source, out: opts.out, ...(opts.force ? { force: true } : {}), ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) });
         blocks = result.blocks;
         summaries = result.summaries;
         header = { snapshot: source, out: opts.out, categories: result.categories, counts: result.counts, stimuliUsed: result.stimuliUsed, stimuliSkipped: result.stimuliSkipped, bytes: result.file?.bytes };

@@ -11,7 +11,8 @@
  *   profiles (with `--depth-profile` sweeps); calibration;
  * - tuning–sensitivity agreement against depth; tuning across depth.
  */
-import { writeFileSync } from 'node:fs';
+import { replaceFile } from '../../snapshot/atomic-file.js';
+import { assertOutFileWritable } from '../../pipeline/output-file.js';
 import { RuntimeFailure, UsageError } from '../../errors.js';
 import { TOOL_VERSION } from '../../version.js';
 import type { DiffReport } from '../../pipeline/diff-snapshots.js';
@@ -37,8 +38,10 @@ export interface RenderReportOptions {
 export interface WriteReportOptions extends RenderReportOptions {
   /** JSON files (paths), or parsed results (objects), or a mix. */
   inputs: readonly unknown[];
-  /** The HTML file to write (overwritten). */
+  /** The HTML file to write; an existing file is replaced only with `force`. */
   out: string;
+  /** Replace an existing file at `out`. */
+  force?: boolean;
 }
 
 /** What a rendered report holds. */
@@ -290,14 +293,18 @@ export async function renderHtmlReport(inputs: readonly unknown[], options: Rend
  * Renders the report and writes it to `out`.
  * @param options inputs, out, title, names.
  * @returns what was written: path, bytes, and the report's inputs, sections, charts and warnings.
- * @throws as `buildHtmlReport`; RuntimeFailure when the file cannot be written.
+ * @throws as `buildHtmlReport`; UsageError when `out` exists without `force` or is one of the inputs;
+ *   RuntimeFailure when the file cannot be written.
  */
 export async function writeHtmlReport(options: WriteReportOptions): Promise<Omit<HtmlReport, 'html'> & { path: string; bytes: number }> {
+  assertOutFileWritable(options.out, { force: options.force ?? false, inputs: options.inputs.map((input, i) => ({ option: `input ${i + 1}`, path: typeof input === 'string' ? input : null })) });
   const { html: text, ...rest } = await buildHtmlReport(options.inputs, options);
   try {
-    writeFileSync(options.out, text);
+    // a temporary file renamed over the target: a failed write leaves an earlier report as it was
+    replaceFile(options.out, text);
   } catch (error) {
-    throw new RuntimeFailure('E_REPORT_WRITE', `cannot write ${options.out} (${(error as NodeJS.ErrnoException).code ?? String(error)})`, { hint: 'check that the folder exists and is writable', cause: error });
+    const cause = (error as { cause?: unknown }).cause ?? error;
+    throw new RuntimeFailure('E_REPORT_WRITE', `cannot write ${options.out} (${(cause as NodeJS.ErrnoException).code ?? String(cause)})`, { hint: 'check that the folder exists and is writable', cause });
   }
   return { ...rest, path: options.out, bytes: Buffer.byteLength(text) };
 }
