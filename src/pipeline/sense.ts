@@ -43,6 +43,7 @@ import { downstreamShare, estimateMacs } from './compute-share.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertSameModel, siteShapes } from './record-modulated.js';
 import { shardRange, type ShardSpec } from './shard.js';
+import { assertOutFileWritable } from './output-file.js';
 
 /** Default central-difference step h (DOMAIN.md: float32 compromise 1e-3…1e-2). */
 export const DEFAULT_STEP = 0.01;
@@ -95,6 +96,8 @@ export interface SenseOptions {
   warnRatio?: number;
   /** Write the sensitivity table here. */
   out?: string;
+  /** Replace an existing file at `out` (without it an existing file is refused before any work). */
+  force?: boolean;
   /**
    * Measure over shard K of N of the stimuli only (the split of src/pipeline/shard.ts): the result's
    * blocks carry `sums`, the partial statistics `sonde merge` combines; their sensitivities cover only
@@ -198,6 +201,10 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   const warnRatio = options.warnRatio ?? DEFAULT_WARN_RATIO;
   if (options.shard && options.out !== undefined) throw new UsageError('E_SENSE_SHARD', 'a shard measures part of the stimuli: write its partial statistics and merge them instead of writing a table');
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
+  if (options.out !== undefined) {
+    const inputs = [{ option: 'MODEL', path: model.path }, { option: '--stimuli', path: options.stimuli }, { option: '--labels', path: options.labels }, { option: '--from', path: options.from }];
+    assertOutFileWritable(options.out, { force: options.force ?? false, inputs });
+  }
   if (typeof model.input.dims[0] === 'number') {
     throw new UsageError('E_SENSE_BATCH', `model ${model.fileName} has a fixed batch axis (${model.input.dims[0]}); sense batches many perturbed copies of a stimulus and needs a free batch axis`, {
       hint: 're-export the model with a dynamic batch dimension',

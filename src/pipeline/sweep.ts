@@ -1,4 +1,4 @@
-import { appendFileSync, closeSync, existsSync, fsyncSync, mkdirSync, openSync, readFileSync, writeFileSync } from 'node:fs';
+import { appendFileSync, closeSync, existsSync, fsyncSync, openSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { linearFit } from '../analysis/correlation.js';
 import { detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
@@ -24,6 +24,8 @@ import { ALL_ACTIVATIONS, chooseSites } from './sense.js';
 import type { SweepBest, SweepCalibration, SweepCell, SweepDepthPoint, SweepDetection, SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
 import { assertSameSweepInputs, isSweepInputsHeader, sweepInputsDigest, sweepInputsHeader, sweepInputsOf, type SweepInputs } from './sweep-inputs.js';
+import { assertApartFromInputs, prepareSweepFolder } from './output-folder.js';
+import { replaceFile } from '../snapshot/atomic-file.js';
 
 /** Schemes a sweep knows. */
 export const SWEEP_SCHEMES = ['tuning', 'sensitivity', 'uniform', 'shuffled'] as const;
@@ -132,7 +134,8 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   const seeds = options.controlSeeds ?? 3;
   if (!Number.isInteger(seeds) || seeds < 1) throw new UsageError('E_SEEDS', `--control-seeds must be a positive integer, got ${seeds}`);
   const match = options.match ? parseMatchTarget(options.match) : null;
-  mkdirSync(options.out, { recursive: true });
+  assertApartFromInputs(options.out, '--out', [{ option: 'MODEL', path: typeof options.model === 'string' ? options.model : null }, { option: '--from', path: baseline.folder }, { option: '--tuning', path: options.tuning }, { option: '--sensitivity', path: options.sensitivity }]);
+  prepareSweepFolder(options.out);
   const progressPath = join(options.out, 'cells.jsonl');
   const done = new Map<string, SweepCell>();
   // cells are reused only when computed from the same inputs (see sweep-inputs.ts)
@@ -235,7 +238,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   const cells = mine.map((c) => done.get(c.key)!);
   const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match }), inputs: { digest: sweepInputsDigest(inputs), ...inputs } };
   writeSweepTable(join(options.out, 'cells.arrow'), cells);
-  writeFileSync(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
+  replaceFile(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   return result;
 }
 
