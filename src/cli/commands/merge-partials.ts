@@ -5,6 +5,7 @@
  */
 import { UsageError } from '../../errors.js';
 import { mergePartials, readPartial } from '../../pipeline/partial-stats.js';
+import { assertOutFileWritable } from '../../pipeline/output-file.js';
 import { displayPath } from '../../pipeline/record-snapshot.js';
 import { SELECTIVE_INDEX } from '../../pipeline/tune.js';
 import { renderDiffReport, reportToJson } from '../../report/diff-table.js';
@@ -13,11 +14,13 @@ import { cliIo } from '../run.js';
 /**
  * Combines partial-statistics files and prints or writes the result.
  * @param parts paths of the files.
- * @param options `out`: the tuning table for tune partials (required there); `json`: print JSON.
+ * @param options `out`: the tuning table for tune partials (required there); `force`: replace an existing
+ *   `out`; `json`: print JSON.
  * @throws UsageError for unreadable or mismatched parts, or tune partials without `out`.
  */
-export async function mergePartialFiles(parts: readonly string[], options: { out?: string; json: boolean }): Promise<void> {
+export async function mergePartialFiles(parts: readonly string[], options: { out?: string; force?: boolean; json: boolean }): Promise<void> {
   const io = cliIo();
+  if (options.out !== undefined) assertOutFileWritable(options.out, { force: options.force ?? false, inputs: parts.map((path, i) => ({ option: `part ${i + 1}`, path })) });
   const files = parts.map((p) => readPartial(p));
   if (files[0]!.of !== 'diff' && options.out === undefined) throw new UsageError('E_MERGE', `merging ${files[0]!.of} partials needs --out FILE.arrow (where the ${files[0]!.of === 'tune' ? 'tuning' : 'sensitivity'} table goes)`);
   if (files[0]!.of === 'diff' && options.out !== undefined) throw new UsageError('E_MERGE', 'merging diff partials prints the report; --out applies to snapshots and tuning tables');

@@ -27,6 +27,7 @@ interface SenseCliOptions {
   secondStep?: boolean;
   stimuliOf?: string;
   out?: string;
+  force?: boolean;
   shard?: string;
   partial?: string;
   rows: number;
@@ -46,7 +47,8 @@ export function registerSense(program: Command): void {
     .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by central differences')
     .argument('<model>', 'ONNX model file')
     .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect)
-    .option('--out <file.arrow>', 'write the sensitivity table here (required unless --partial)')
+    .option('--out <file.arrow>', 'write the sensitivity table here (required unless --partial; an existing file only with --force)')
+    .option('--force', 'replace an existing --out file')
     .option('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W] (optional with --from)')
     .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
@@ -88,6 +90,7 @@ export function registerSense(program: Command): void {
           batch: opts.batch,
           threads: opts.threads,
           ...(opts.out !== undefined ? { out: opts.out } : {}),
+          ...(opts.force ? { force: true } : {}),
           ...(opts.stimuli !== undefined ? { stimuli: opts.stimuli } : {}),
           ...(opts.labels !== undefined ? { labels: opts.labels } : {}),
           ...(opts.from !== undefined ? { from: opts.from } : {}),
