@@ -336,9 +336,10 @@ function checkLengths(layer: string, path: string, C: number, K: number, grid: R
 function writeBatches(path: string, schema: Schema, batches: Array<() => Data[]>): { bytes: number; rows: number } {
   const sink = new HashingFileSink(path);
   const writer = new RecordBatchFileWriter();
-  writer.reset(sink, schema);
   let rows = 0;
   try {
+    // inside the try: the writer's first bytes can fail too (a full disk), and must not leave the temporary file
+    writer.reset(sink, schema);
     for (const build of batches) {
       const children = build();
       const length = children[0]!.length;
