@@ -28,7 +28,7 @@ import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { collectDiff, finishDiff, type CollectedLayer, type DiffCollection, type DiffOptions, type DiffReport } from './diff-snapshots.js';
 import { shardRange, type ShardSpec } from './shard.js';
 import { assembleTuneResult, planTuning, type TuneOptions, type TuneResult } from './tune.js';
-import { DEFAULT_WARN_RATIO, errorCheck, senseSites, sensitivityFromSums, type SenseOptions, type SenseResult, type SiteSensitivity } from './sense.js';
+import { DEFAULT_WARN_RATIO, errorCheck, senseSites, sensitivityFromSums, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './sense.js';
 import { writeSensitivityTable } from '../snapshot/tables.js';
 
 /** Tag of a partial-statistics file. */
@@ -447,11 +447,11 @@ export async function sensePartial(options: SenseOptions, shard: ShardSpec): Pro
     readout: result.readout,
     source: result.source,
     warnRatio: options.warnRatio ?? DEFAULT_WARN_RATIO,
-    secondStep: options.secondStep ?? false,
+    method: options.method ?? 'richardson',
     sites: result.sites.map((b) => [b.layer, b.kind, b.step, b.channels]),
   };
   const sites = result.sites.map((block) => {
-    const { sensitivity: _s, fdError: _e, sums, count, ...fields } = block;
+    const { sensitivity: _s, fdError: _e, extrapolationShift: _x, sums, count, ...fields } = block;
     return { ...fields, count: encodeArray(count), sums: { variants: sums!.variants, perturbed: encodeArray(sums!.perturbed), identity: encodeArray(sums!.identity), counts: encodeArray(sums!.counts) } };
   });
   return { kind: PARTIAL_KIND, version: PARTIAL_VERSION, of: 'sense', shard: info, key, data: { sites } };
@@ -459,7 +459,7 @@ export async function sensePartial(options: SenseOptions, shard: ShardSpec): Pro
 
 /** Adds up the shards' sums per site and derives sensitivities, errors, costs and warnings. */
 function mergeSense(ordered: ReadonlyArray<{ part: PartialFile; path: string }>, options: { out?: string }): SenseResult {
-  const key = ordered[0]!.part.key as { metadata: Record<string, string>; readout: SenseResult['readout']; source: SenseResult['source']; warnRatio: number; secondStep: boolean };
+  const key = ordered[0]!.part.key as { metadata: Record<string, string>; readout: SenseResult['readout']; source: SenseResult['source']; warnRatio: number; method?: SenseMethod };
   const perPart = ordered.map(({ part, path }) => {
     const sites = part.data['sites'];
     if (!Array.isArray(sites)) throw new UsageError('E_PARTIAL', `${path}: data.sites must be a list`);
@@ -494,7 +494,7 @@ function mergeSense(ordered: ReadonlyArray<{ part: PartialFile; path: string }>,
       for (const name of Object.keys(total) as Array<keyof typeof total>) total[name] += Number(site.fields[name]);
     }
     const step = Number(f['step']);
-    const { sensitivity, fdError } = sensitivityFromSums({ variants: firstSite.variants, perturbed, identity, counts }, C, K, step);
+    const { sensitivity, fdError, extrapolationShift } = sensitivityFromSums({ variants: firstSite.variants, perturbed, identity, counts }, C, K, step);
     const share = Number(f['downstreamShare']);
     const block: SiteSensitivity = {
       layer: String(f['layer']),
@@ -506,13 +506,15 @@ function mergeSense(ordered: ReadonlyArray<{ part: PartialFile; path: string }>,
       fdError,
       kind: f['kind'] === 'offset' ? 'offset' : 'gain',
       step,
+      method: extrapolationShift ? 'richardson' : 'secant', // 4 step variants are Richardson's, 2 the secant's
+      extrapolationShift,
       count: counts,
       worstErrorRatio: 0,
       ...total,
       downstreamShare: share,
       forwardEquivalentsPerChannel: (total.rows * share + total.prefixStimuli) / (C * total.stimuliUsed),
     };
-    const check = errorCheck(block, key.warnRatio, key.secondStep);
+    const check = errorCheck(block, key.warnRatio);
     block.worstErrorRatio = check.worst;
     if (check.warning) block.warning = check.warning;
     return block;

@@ -1,26 +1,38 @@
 /**
  * `senseSites`: causal gain sensitivities of a site's channels for a readout, measured through the
- * injected gain input (y = x·G + B at the site, see src/graph/inject.ts) by central finite differences:
+ * injected gain input (y = x·G + B at the site, see src/graph/inject.ts) by finite differences:
  *
- *   gain kind:   m_kc = ∂ȳ_c/∂g_k at g = 1  ≈ (ȳ_c(G_k = 1+h) − ȳ_c(G_k = 1−h)) / 2h
- *   offset kind: o_kc = ∂ȳ_c/∂b_k at b = 0  ≈ (ȳ_c(B_k = +h) − ȳ_c(B_k = −h)) / 2h
+ *   gain kind:   m_kc = ∂ȳ_c/∂g_k at g = 1,   D(h) = (ȳ_c(G_k = 1+h) − ȳ_c(G_k = 1−h)) / 2h
+ *   offset kind: o_kc = ∂ȳ_c/∂b_k at b = 0,   D(h) = (ȳ_c(B_k = +h) − ȳ_c(B_k = −h)) / 2h
  *
  * with every other channel at identity and ȳ_c the readout unit c averaged over the stimuli (all, those
- * containing one category, or for each category those containing it). The value reported is this central
- * secant, not the exact derivative: a finite step can cross a ReLU (or ReLU6) kink of some unit, where
- * the derivative jumps, and then the secant — the average slope over [−h, +h] — is what a perturbation of
- * that size actually does; on such networks it differs from the derivative at exactly g = 1 by up to a
- * few percent even in exact arithmetic, while in float32 a much smaller step would drown in rounding
- * (rounding error ~ ε/h, truncation O(h²); DOMAIN.md). Default h = 0.01.
+ * containing one category, or for each category those containing it).
  *
- * Error estimate (`fd_error`): |D₊ − D₋| / 2 with the one-sided differences D₊ = (ȳ(+h) − ȳ(0))/h and
- * D₋ = (ȳ(0) − ȳ(−h))/h, ȳ(0) the unperturbed run (shared by all channels, so free); it measures the
- * curvature the step sees (≈ h·|y''|/2). With `secondStep` the differences are also evaluated at h/2 and
- * `fd_error` is the larger of that and |D(h) − D(h/2)| (twice the cost). A site whose fd_error exceeds
- * `warnRatio` (default 5%) of its category's largest |sensitivity| for some channel gets a one-line warning.
+ * Method (`method`):
+ * - `richardson` (default): Richardson extrapolation of the central differences at h and h/2,
+ *   R = (4·D(h/2) − D(h)) / 3. For a smooth readout D(h) = y' + h²·y'''/6 + O(h⁴), so the h² terms
+ *   cancel and R = y' + O(h⁴) (Richardson extrapolation; e.g. Burden & Faires, Numerical Analysis,
+ *   section 4.2, from memory). Four perturbed runs per channel and stimulus: ±h and ±h/2.
+ * - `secant`: the plain central secant D(h), O(h²); two runs per channel and stimulus.
+ * Neither is exact on a network of ReLU (or ReLU6) units: a step that crosses a unit's kink, where the
+ * derivative jumps, moves both secants by an amount of order h that extrapolation does not remove (it
+ * shrinks only with the step). On the PyTorch reference networks (tests/reference/README.md) the
+ * secant at h = 0.01 differs from autograd by up to a few percent of a category's largest value; a
+ * smaller step crosses fewer kinks, while in float32 a much smaller one drowns in rounding (~ ε/h;
+ * DOMAIN.md).
+ *
+ * `fd_error` is the curvature the step sees within ±h: |D₊ − D₋| / 2 with the one-sided differences
+ * D₊ = (ȳ(+h) − ȳ(0))/h and D₋ = (ȳ(0) − ȳ(−h))/h, ȳ(0) the unperturbed run (shared by all channels, so
+ * free) — ≈ h·|y''|/2 for a smooth readout, large where the step crosses kinks. It is not an error
+ * bound: a quadratic readout has a large fd_error and an exact central secant. With Richardson each
+ * block also carries `extrapolationShift` = |R − D(h/2)| = |D(h/2) − D(h)| / 3, how far the
+ * extrapolation moved the h/2 secant (the usual estimate of D(h/2)'s truncation error when the readout
+ * is smooth; kinks within the step make it large). A site gets a one-line warning where the method's
+ * indicator — extrapolationShift for Richardson, fd_error for the secant — exceeds `warnRatio`
+ * (default 5%) of its category's largest |sensitivity| for some channel.
  *
  * Cost: only the part of the network downstream of the site runs, on batches of up to `rowsPerRun`
- * perturbed (stimulus, channel, sign) rows, each row fed with the stimulus's recorded boundary tensors
+ * perturbed (stimulus, channel, step) rows, each row fed with the stimulus's recorded boundary tensors
  * (replicated). The boundary tensors come from a baseline snapshot (`from`, recorded at full float32
  * resolution) or from one unmodulated run of the whole instrumented network per stimulus batch. For the
  * gain kind, a channel that is exactly 0 everywhere at the site for a stimulus (a silent ReLU map) is not
@@ -45,8 +57,16 @@ import { assertSameModel, siteShapes } from './record-modulated.js';
 import { shardRange, type ShardSpec } from './shard.js';
 import { assertOutFileWritable } from './output-file.js';
 
-/** Default central-difference step h (DOMAIN.md: float32 compromise 1e-3…1e-2). */
-export const DEFAULT_STEP = 0.01;
+/**
+ * Default step h; with Richardson the runs are at ±h and ±h/2. Chosen on the PyTorch reference networks
+ * (tests/reference/README.md): in float32, Richardson from 2e-3 and 1e-3 came closest to autograd of the
+ * steps tried (1e-2 … 2.5e-4) — larger steps cross more ReLU kinks, smaller ones drown in rounding.
+ */
+export const DEFAULT_STEP = 0.002;
+/** How a sensitivity is computed from the perturbed runs (see the file comment). */
+export type SenseMethod = 'richardson' | 'secant';
+/** The methods, the default first. */
+export const SENSE_METHODS: readonly SenseMethod[] = ['richardson', 'secant'];
 /** Default rows per downstream run. */
 export const DEFAULT_ROWS_PER_RUN = 256;
 /** Default cap on the feed memory of the two runs in flight (bytes). */
@@ -72,10 +92,10 @@ export interface SenseOptions {
   readout?: string;
   /** `gain` (default): derivative w.r.t. a multiplicative gain at 1; `offset`: w.r.t. an additive offset at 0. */
   kind?: 'gain' | 'offset';
-  /** Central-difference step h > 0 (default 0.01). */
+  /** Step h > 0 (default DEFAULT_STEP); Richardson also runs at h/2. */
   step?: number;
-  /** Also evaluate at h/2 and fold |D(h) − D(h/2)| into fd_error (twice the cost). */
-  secondStep?: boolean;
+  /** `richardson` (default): (4·D(h/2) − D(h))/3, four runs per channel; `secant`: D(h), two runs per channel. */
+  method?: SenseMethod;
   /** Average only over stimuli containing this category, or `each`: every readout category over the stimuli containing it. */
   stimuliOf?: string;
   /** Perturbed rows per downstream run (default 256). */
@@ -110,9 +130,13 @@ export interface SenseOptions {
 
 /** The measured sensitivities of one site, with its cost. */
 export interface SiteSensitivity extends SensitivityTableBlock {
-  /** The warning line, when fd_error is large somewhere. */
+  /** How `sensitivity` was computed. */
+  method: SenseMethod;
+  /** Richardson: |D(h/2) − D(h)| / 3, how far the extrapolation moved the h/2 secant, [C, K]; null for the secant. */
+  extrapolationShift: Float64Array | null;
+  /** The warning line, when the method's indicator (extrapolationShift, or fd_error for the secant) is large somewhere. */
   warning?: string;
-  /** Largest fd_error / (largest |sensitivity| of its category) over channels and categories. */
+  /** Largest indicator (extrapolationShift for Richardson, fd_error for the secant) / (largest |sensitivity| of its category) over channels and categories. */
   worstErrorRatio: number;
   /** Downstream runs and rows they held. */
   runs: number;
@@ -130,7 +154,7 @@ export interface SiteSensitivity extends SensitivityTableBlock {
   /**
    * Estimated cost in forward-pass equivalents per channel and stimulus, from the MAC count:
    * (rows · downstreamShare + stimuli run through the whole network) / (channels · stimuli used).
-   * Central differences alone need 2 · downstreamShare.
+   * The perturbed runs alone need 4 · downstreamShare with Richardson, 2 · downstreamShare with the secant.
    */
   forwardEquivalentsPerChannel: number;
   /** Stimuli run through the whole network to compute boundary tensors (0 with a baseline). */
@@ -143,7 +167,7 @@ export interface SiteSensitivity extends SensitivityTableBlock {
 
 /** Readout sums of one site over some stimuli: what shards add up. */
 export interface SensitivitySums {
-  /** 2 (±h) or 4 (±h, ±h/2). */
+  /** 2 (±h: secant) or 4 (±h, ±h/2: Richardson). */
   variants: number;
   /** Σ over stimuli of readout c with channel k perturbed by variant v, [V, C, K]: i = (v*C + k)*K + c. */
   perturbed: Float64Array;
@@ -191,11 +215,13 @@ export interface SenseResult {
 export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   const kind = options.kind ?? 'gain';
   if (kind !== 'gain' && kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${String(kind)}"`);
+  const method = options.method ?? 'richardson';
+  if (!SENSE_METHODS.includes(method)) throw new UsageError('E_SENSE_METHOD', `--method must be ${SENSE_METHODS.map((m) => `"${m}"`).join(' or ')}, got "${String(method)}"`);
   const step = options.step ?? DEFAULT_STEP;
   if (!Number.isFinite(step) || step <= 0) {
-    throw new UsageError('E_SENSE_STEP', `--step ${step} is not a positive number`, { hint: 'use a step between 1e-3 and 1e-2 for float32 networks (default 0.01)' });
+    throw new UsageError('E_SENSE_STEP', `--step ${step} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${DEFAULT_STEP})` });
   }
-  if (kind === 'gain' && step >= 1) throw new UsageError('E_SENSE_STEP', `--step ${step} would drive a gain to ${1 - step} or below; use a step below 1 (default 0.01)`);
+  if (kind === 'gain' && step >= 1) throw new UsageError('E_SENSE_STEP', `--step ${step} would drive a gain to ${1 - step} or below; use a step below 1 (default ${DEFAULT_STEP})`);
   const rowsPerRun = options.rowsPerRun ?? DEFAULT_ROWS_PER_RUN;
   if (!Number.isSafeInteger(rowsPerRun) || rowsPerRun < 1) throw new UsageError('E_SENSE_ROWS', `rowsPerRun must be a positive integer, got ${rowsPerRun}`);
   const warnRatio = options.warnRatio ?? DEFAULT_WARN_RATIO;
@@ -250,14 +276,14 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     }
     if (baseline) checkBaseline(baseline, tail, options.from!);
     const layer = byName.get(site)!;
-    const block = await senseOneSite({ site, layer, tail, model, inspection, readout, weights, kind, step, secondStep: options.secondStep ?? false, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
+    const block = await senseOneSite({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
     block.downstreamShare = downstreamShare(estimate, tail.computed);
     block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare + block.prefixStimuli) / (block.channels * block.stimuliUsed);
     if (options.shard) {
       blocks.push(block);
       continue;
     }
-    const check = errorCheck(block, warnRatio, options.secondStep ?? false);
+    const check = errorCheck(block, warnRatio);
     block.worstErrorRatio = check.worst;
     if (check.warning) {
       block.warning = check.warning;
@@ -269,7 +295,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     'sonde.model': `${model.fileName} sha256:${model.sha256}`,
     'sonde.readout': readout.tensor,
     'sonde.stimuli_of': options.stimuliOf ?? 'all',
-    'sonde.second_step': String(options.secondStep ?? false),
+    'sonde.method': method,
     'sonde.source': baseline ? `baseline ${baseline.folder}` : `stimuli ${options.stimuli}`,
   };
   const result: SenseResult = { sites: blocks, readout, source: baseline ? 'baseline' : 'network', warnings, stimuli: labels.length, range, metadata };
@@ -452,7 +478,7 @@ interface SiteRun {
   weights: { weights: Uint8Array; counts: Int32Array };
   kind: 'gain' | 'offset';
   step: number;
-  secondStep: boolean;
+  method: SenseMethod;
   rowsPerRun: number;
   feedBytes: number;
   threads: number;
@@ -528,7 +554,7 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   const perRow = boundaryShapes.map((shape) => shape.reduce((a, b) => a * b, 1));
   const bytesPerRow = 4 * (perRow.reduce((a, b) => a + b, 0) + 2 * C);
   const capacity = Math.max(1, Math.min(run.rowsPerRun, Math.floor(run.feedBytes / (2 * bytesPerRow))));
-  const variants = run.secondStep ? 4 : 2;
+  const variants = run.method === 'richardson' ? 4 : 2;
   const injection: InjectionSite = { site, shape: layer.shape, spatial: false };
   const inputNames = modulationInputNames(site);
   const sumPerturbed = new Float64Array(variants * C * K); // [V, C, K]: i = (v*C + k)*K + c
@@ -687,7 +713,7 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   }
 
   const counts = weights.counts;
-  const { sensitivity, fdError } = sensitivityFromSums({ variants, perturbed: sumPerturbed, identity: sumIdentity, counts }, C, K, step);
+  const { sensitivity, fdError, extrapolationShift } = sensitivityFromSums({ variants, perturbed: sumPerturbed, identity: sumIdentity, counts }, C, K, step);
   return {
     layer: site,
     depth: layer.depth,
@@ -698,6 +724,8 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     fdError,
     kind,
     step,
+    method: run.method,
+    extrapolationShift,
     count: Int32Array.from(counts),
     worstErrorRatio: 0,
     runs,
@@ -716,16 +744,20 @@ async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
 }
 
 /**
- * Sensitivities and their error estimates from readout sums (the formulas of the file comment):
- * central secant (ȳ(+h) − ȳ(−h)) / 2h, fd_error |D₊ − D₋| / 2, with `variants` 4 also |D(h) − D(h/2)|.
- * @param sums readout sums and counts (from one run, or added up over shards).
+ * Sensitivities and their step indicators from readout sums (the formulas of the file comment). With 2
+ * variants (secant): D(h) = (ȳ(+h) − ȳ(−h)) / 2h. With 4 (Richardson): (4·D(h/2) − D(h)) / 3 and
+ * extrapolationShift |D(h/2) − D(h)| / 3. Both: fd_error |D₊ − D₋| / 2 at h (curvature within ±h).
+ * @param sums readout sums and counts (from one run, or added up over shards); `variants` picks the method.
  * @param C channels; K categories; step h.
- * @returns [C, K] arrays (k*K + c); a category with count 0 gives NaN.
+ * @returns [C, K] arrays (k*K + c), extrapolationShift null for 2 variants; a category with count 0 gives NaN.
+ * @throws RuntimeFailure when `variants` is neither 2 nor 4.
  */
-export function sensitivityFromSums(sums: SensitivitySums, C: number, K: number, step: number): { sensitivity: Float64Array; fdError: Float64Array } {
+export function sensitivityFromSums(sums: SensitivitySums, C: number, K: number, step: number): { sensitivity: Float64Array; fdError: Float64Array; extrapolationShift: Float64Array | null } {
   const { variants, perturbed: sumPerturbed, identity: sumIdentity, counts } = sums;
+  if (variants !== 2 && variants !== 4) throw new RuntimeFailure('E_SENSE_SUMS', `sensitivity sums have ${variants} step variants; expected 2 (secant) or 4 (Richardson)`);
   const sensitivity = new Float64Array(C * K);
   const fdError = new Float64Array(C * K);
+  const extrapolationShift = variants === 4 ? new Float64Array(C * K) : null;
   for (let k = 0; k < C; k++) {
     for (let c = 0; c < K; c++) {
       const n = counts[c]!;
@@ -735,18 +767,19 @@ export function sensitivityFromSums(sums: SensitivitySums, C: number, K: number,
       const central = (plus - minus) / (2 * step);
       const forward = (plus - zero) / step;
       const backward = (zero - minus) / step;
-      let error = Math.abs(forward - backward) / 2;
-      if (variants === 4) {
+      fdError[k * K + c] = Math.abs(forward - backward) / 2;
+      if (extrapolationShift) {
         const halfPlus = sumPerturbed[(2 * C + k) * K + c]! / n;
         const halfMinus = sumPerturbed[(3 * C + k) * K + c]! / n;
         const half = (halfPlus - halfMinus) / step; // (y(+h/2) − y(−h/2)) / (2 · h/2)
-        error = Math.max(error, Math.abs(central - half));
+        sensitivity[k * K + c] = (4 * half - central) / 3;
+        extrapolationShift[k * K + c] = Math.abs(half - central) / 3;
+      } else {
+        sensitivity[k * K + c] = central;
       }
-      sensitivity[k * K + c] = central;
-      fdError[k * K + c] = error;
     }
   }
-  return { sensitivity, fdError };
+  return { sensitivity, fdError, extrapolationShift };
 }
 
 interface BoundaryBatch {
@@ -815,10 +848,16 @@ async function* boundaryStream(run: SiteRun, boundary: readonly string[]): Async
   }
 }
 
-/** Finds the worst fd_error relative to its category's largest |sensitivity| and words a warning (exported for merged shards). */
-export function errorCheck(block: SiteSensitivity, ratio: number, secondStep: boolean): { worst: number; warning?: string } {
+/**
+ * Finds the worst step indicator relative to its category's largest |sensitivity| and words a warning
+ * (exported for merged shards): extrapolationShift for Richardson blocks, fd_error for secant blocks.
+ * @param block a measured block; ratio the warning threshold (fraction of the category maximum).
+ * @returns the worst ratio (NaN counts as infinite) and the warning line when some value exceeds `ratio`.
+ */
+export function errorCheck(block: SiteSensitivity, ratio: number): { worst: number; warning?: string } {
   const { channels: C, categories } = block;
   const K = categories.length;
+  const indicator = block.extrapolationShift ?? block.fdError;
   let worst = 0;
   let worstAt = -1;
   let over = 0;
@@ -826,7 +865,7 @@ export function errorCheck(block: SiteSensitivity, ratio: number, secondStep: bo
     let largest = 0;
     for (let k = 0; k < C; k++) largest = Math.max(largest, Math.abs(block.sensitivity[k * K + c]!));
     for (let k = 0; k < C; k++) {
-      const e = block.fdError[k * K + c]!;
+      const e = indicator[k * K + c]!;
       const relative = largest > 0 ? e / largest : e > 0 ? Number.POSITIVE_INFINITY : 0;
       if (!(relative <= ratio)) over++;
       if (!(relative <= worst)) {
@@ -839,6 +878,9 @@ export function errorCheck(block: SiteSensitivity, ratio: number, secondStep: bo
   const k = Math.floor(worstAt / K);
   const c = worstAt % K;
   const pct = (x: number) => `${(100 * x).toPrecision(2)}%`;
-  const warning = `site "${block.layer}": fd_error exceeds ${pct(ratio)} of its category's largest |sensitivity| for ${over} of ${C * K} values (worst ${Number.isFinite(worst) ? pct(worst) : 'NaN'} at channel ${k}, category "${categories[c]}"); the readout is not linear over ±${block.step} (curvature or ReLU kinks); compare a smaller --step${secondStep ? '' : ' or use --second-step'}`;
+  const where = `for ${over} of ${C * K} values (worst ${Number.isFinite(worst) ? pct(worst) : 'NaN'} at channel ${k}, category "${categories[c]}")`;
+  const warning = block.extrapolationShift
+    ? `site "${block.layer}": the secants at steps ${block.step} and ${block.step / 2} differ by more than ${pct(3 * ratio)} of the category's largest |sensitivity| ${where}; the value depends on the step (ReLU kinks within ±${block.step}); compare a smaller --step`
+    : `site "${block.layer}": fd_error (curvature within ±${block.step}) exceeds ${pct(ratio)} of the category's largest |sensitivity| ${where}; the secant is the mean slope over the step (curvature or ReLU kinks); compare a smaller --step or the default --method richardson`;
   return { worst, warning };
 }

@@ -110,7 +110,7 @@ describe('sonde tune / sonde sense (CLI)', () => {
     const conv = parsed.layers.find((l) => l.layer === 'conv0')!;
     expect(conv.negativeChannels).toBeGreaterThan(0); // seeded random weights with a bias: some channels go below zero
     expect(parsed.layers.find((l) => l.layer === 'relu0')!.negativeChannels).toBe(0); // ReLU outputs are ≥ 0 (exact)
-    const text = await runSonde(['tune', snapshot, '--out', join(dir, 'tuning-conv.arrow'), '--layers', 'conv0+relu0']);
+    const text = await runSonde(['tune', snapshot, '--out', join(dir, 'tuning-conv.arrow'), '--layers', 'conv0+relu0', '--force']);
     expect(text.stdout).not.toMatch(/NaN *│ *│ *│/);
     expect(text.stdout).toMatch(/conv0 .*\*/);
     expect(text.stdout).toMatch(/^\* channels with a negative mean response to some category have no selectivity index/m);
@@ -120,7 +120,7 @@ describe('sonde tune / sonde sense (CLI)', () => {
     const sens = join(dir, 'sens.arrow');
     const sensed = await runSonde(['sense', model, '--from', snapshot, '--site', 'relu1', '--site', 'relu2', '--readout', 'logits', '--stimuli-of', 'each', '--out', sens, '--threads', '1']);
     expect(sensed.code, sensed.stderr).toBe(0);
-    expect(sensed.stdout).toMatch(/gain sensitivities of logits \(3 units\), step 0\.01, boundary tensors from baseline/);
+    expect(sensed.stdout).toMatch(/gain sensitivities of logits \(3 units\), Richardson from steps 0\.002 and 0\.001, boundary tensors from baseline/);
     expect(sensed.stdout).toMatch(/relu1 .* 6 .* 3 /);
     const table = readSensitivityTable(sens);
     expect(table.categories).toEqual(['bird', 'cat', 'dog']);
@@ -142,7 +142,7 @@ describe('sonde tune / sonde sense (CLI)', () => {
 
   it('sonde sense without a baseline runs the whole network for the boundary tensors (one readout unit by name)', async () => {
     const out = join(dir, 'sens-net.arrow');
-    const result = await runSonde(['sense', model, '--stimuli', stim.npy, '--labels', stim.labels, '--site', 'relu2', '--readout', 'logits:cat', '--kind', 'offset', '--second-step', '--out', out, '--threads', '1', '--json']);
+    const result = await runSonde(['sense', model, '--stimuli', stim.npy, '--labels', stim.labels, '--site', 'relu2', '--readout', 'logits:cat', '--kind', 'offset', '--method', 'richardson', '--out', out, '--threads', '1', '--json']);
     expect(result.code, result.stderr).toBe(0);
     const parsed = JSON.parse(result.stdout) as { source: string; readout: { units: number[]; categories: string[] }; sites: Array<{ kind: string; prefixRuns: number; rows: number }> };
     expect(parsed.source).toBe('network');
@@ -159,11 +159,12 @@ describe('sonde sense (warnings)', () => {
     const quadratic = join(folder, 'quadratic.onnx');
     writeFileSync(quadratic, quadraticModel());
     const input = writeStimuliNpy(folder, [4, 2, 4, 4], 29);
-    const warned = await runSonde(['sense', quadratic, '--stimuli', input.npy, '--site', 'act', '--step', '0.2', '--out', join(folder, 'q.arrow'), '--threads', '1']);
+    // the secant warns on the curvature it sees within the step (Richardson is exact on a quadratic)
+    const warned = await runSonde(['sense', quadratic, '--stimuli', input.npy, '--site', 'act', '--step', '0.2', '--method', 'secant', '--out', join(folder, 'q.arrow'), '--threads', '1']);
     expect(warned.code, warned.stderr).toBe(0);
     expect(warned.stderr.trim().split('\n')).toHaveLength(1);
-    expect(warned.stderr).toMatch(/^sonde: warning: site "act": fd_error exceeds 5\.0% .*--second-step/);
-    const quiet = await runSonde(['sense', quadratic, '--stimuli', input.npy, '--site', 'act', '--out', join(folder, 'q2.arrow'), '--threads', '1']);
+    expect(warned.stderr).toMatch(/^sonde: warning: site "act": fd_error \(curvature within ±0\.2\) exceeds 5\.0% .*--method richardson/);
+    const quiet = await runSonde(['sense', quadratic, '--stimuli', input.npy, '--site', 'act', '--step', '0.2', '--out', join(folder, 'q2.arrow'), '--threads', '1']);
     expect(quiet.code).toBe(0);
     expect(quiet.stderr).toBe('');
   });
@@ -205,6 +206,10 @@ describe('sonde tune / sonde sense (bad input)', () => {
     for (const step of ['0', '-0.01', 'abc']) {
       await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu1', '--step', step, '--out', join(dir, 's5.arrow')], /--step .* is not a positive number/);
     }
+  });
+
+  it('sonde sense with an unknown --method names the two it knows', async () => {
+    await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu1', '--method', 'forward', '--out', join(dir, 's5m.arrow')], /--method must be richardson or secant, got "forward"/);
   });
 
   it('sonde sense --from a baseline that lacks a tensor the downstream part reads, or with a fixed-batch model, says what to do', async () => {

@@ -3,37 +3,14 @@ import { join } from 'node:path';
 import onnxProto from 'onnx-proto';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
-import { senseSites, type SiteSensitivity } from '../../src/pipeline/sense.js';
+import { senseSites } from '../../src/pipeline/sense.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { readSensitivityTable } from '../../src/snapshot/tables.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
 import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
-// PyTorch reference fixtures (tests/reference/make_fixtures.py, Debian python3-torch 1.13, float64):
-// gain_exact / offset_exact = autograd Σ_xy (∂y_c/∂a_kxy)·a_kxy and Σ_xy ∂y_c/∂a_kxy at the site,
-// batch-averaged; gain_secant / offset_secant = float64 central differences at step 0.01. [C, K].
-const FIXTURES = 'tests/reference/fixtures';
-
-function npy64(path: string): Float64Array {
-  const t = parseNpy(readFileSync(path), path);
-  if (!(t.data instanceof Float64Array)) throw new Error(`${path} is not float64`);
-  return t.data;
-}
-
-/** max over entries of |a − b| / (largest |reference| of the entry's category); [C, K] row-major. */
-function relativeToCategoryMax(a: Float64Array, b: Float64Array, reference: Float64Array, C: number, K: number, slack?: Float64Array): number {
-  let worst = 0;
-  for (let c = 0; c < K; c++) {
-    let largest = 0;
-    for (let k = 0; k < C; k++) largest = Math.max(largest, Math.abs(reference[k * K + c]!));
-    for (let k = 0; k < C; k++) {
-      const i = k * K + c;
-      const excess = Math.abs(a[i]! - b[i]!) - (slack ? slack[i]! : 0);
-      worst = Math.max(worst, excess / largest);
-    }
-  }
-  return worst;
-}
+// The comparisons with PyTorch (autograd and float64 finite differences) are in
+// tests/reference/sensitivity-autograd.test.ts; this file checks exact properties on small networks.
 
 /** input [N, 2, 4, 4] → Relu "act" → GlobalAveragePool → Flatten "v" → Mul(v, v) "square" [N, 2]. */
 function quadraticModel(): Uint8Array {
@@ -54,105 +31,6 @@ function quadraticModel(): Uint8Array {
   };
   return onnxProto.onnx.ModelProto.encode(model).finish();
 }
-
-interface Fixture {
-  site: string;
-  gainExact: Float64Array;
-  offsetExact: Float64Array;
-  gainSecant: Float64Array;
-  offsetSecant: Float64Array;
-}
-
-function fixture(name: string): Fixture {
-  const folder = join(FIXTURES, name, 'sensitivity');
-  const site = JSON.parse(readFileSync(join(folder, 'site.json'), 'utf8')) as { site: string; step: number };
-  expect(site.step).toBe(0.01); // the fixtures use Sonde's default step
-  return {
-    site: site.site,
-    gainExact: npy64(join(folder, 'gain_exact.npy')),
-    offsetExact: npy64(join(folder, 'offset_exact.npy')),
-    gainSecant: npy64(join(folder, 'gain_secant.npy')),
-    offsetSecant: npy64(join(folder, 'offset_secant.npy')),
-  };
-}
-
-async function sense(model: string, site: string, kind: 'gain' | 'offset', step?: number): Promise<SiteSensitivity> {
-  const result = await senseSites({ model, stimuli: join(FIXTURES, 'inputs.npy'), site, kind, threads: 1, ...(step ? { step } : {}) });
-  return result.sites[0]!;
-}
-
-describe('senseSites vs PyTorch autograd (tests/reference fixtures)', () => {
-  it('senseSites on the bias-free network (relu4) matches the float64 secant within 1e-2 and autograd within 2e-2, per category', async () => {
-    const f = fixture('homogeneous');
-    const model = join(FIXTURES, 'homogeneous.onnx');
-    for (const kind of ['gain', 'offset'] as const) {
-      const s = await sense(model, f.site, kind);
-      const [exact, secant] = kind === 'gain' ? [f.gainExact, f.gainSecant] : [f.offsetExact, f.offsetSecant];
-      expect(s.channels * s.categories.length).toBe(exact.length);
-      expect(relativeToCategoryMax(s.sensitivity, secant, exact, s.channels, 10), kind).toBeLessThanOrEqual(1e-2);
-      expect(relativeToCategoryMax(s.sensitivity, exact, exact, s.channels, 10), kind).toBeLessThanOrEqual(2e-2);
-    }
-  });
-
-  it('senseSites gain values on the bias-free network sum over channels to the mean logits (Euler, degree-1 homogeneity; logits from PyTorch fc.npy)', async () => {
-    // Euler's theorem: a positively homogeneous f of degree 1 satisfies Σ_k g_k ∂f/∂g_k = f at g = 1.
-    const f = fixture('homogeneous');
-    const s = await sense(join(FIXTURES, 'homogeneous.onnx'), f.site, 'gain');
-    const logits = parseNpy(readFileSync(join(FIXTURES, 'homogeneous', 'fc.npy'))).data as Float32Array; // [4, 10]
-    let largest = 0;
-    for (let i = 0; i < logits.length; i++) largest = Math.max(largest, Math.abs(logits[i]!));
-    for (let c = 0; c < 10; c++) {
-      let sum = 0;
-      for (let k = 0; k < s.channels; k++) sum += s.sensitivity[k * 10 + c]!;
-      let mean = 0;
-      for (let n = 0; n < 4; n++) mean += logits[n * 10 + c]! / 4;
-      // secants, not exact derivatives: a kink crossed by the step moves each term slightly (1e-2 of max |y|)
-      expect(Math.abs(sum - mean) / largest, `category ${c}`).toBeLessThanOrEqual(1e-2);
-    }
-  });
-
-  it('senseSites on the residual network (ReLU6 site, 480 channels) matches the float64 secant within 1e-2 and autograd within 2e-2 plus its fd_error', async () => {
-    const f = fixture('residual');
-    const model = join(FIXTURES, 'residual.onnx');
-    for (const kind of ['gain', 'offset'] as const) {
-      const s = await sense(model, f.site, kind);
-      const [exact, secant] = kind === 'gain' ? [f.gainExact, f.gainSecant] : [f.offsetExact, f.offsetSecant];
-      expect(s.channels).toBe(480);
-      // ReLU6 leaves whole channels at exactly 0 for some stimuli: their gain rows are skipped (they would
-      // repeat the unperturbed run); the agreement below covers those channels too. Offsets are never skipped.
-      if (kind === 'gain') expect(s.skippedRows).toBeGreaterThan(0);
-      else expect(s.skippedRows).toBe(0);
-      expect(s.rows + s.skippedRows).toBe(4 * (1 + 2 * 480));
-      expect(relativeToCategoryMax(s.sensitivity, secant, exact, 480, 10), kind).toBeLessThanOrEqual(1e-2);
-      // The step crosses ReLU6 kinks here: PyTorch's own float64 secant differs from autograd by up to
-      // 3.6e-2 (gain) of the category maximum. The exact derivative must lie within the reported error
-      // bar fd_error plus the 2e-2 tolerance...
-      expect(relativeToCategoryMax(s.sensitivity, exact, exact, 480, 10, s.fdError), kind).toBeLessThanOrEqual(2e-2);
-      // ...and within 2e-2 outright wherever the float64 reference secant itself is within 2e-2 of it.
-      const kinked = new Float64Array(exact.length);
-      let kinks = 0;
-      for (let c = 0; c < 10; c++) {
-        let largest = 0;
-        for (let k = 0; k < 480; k++) largest = Math.max(largest, Math.abs(exact[k * 10 + c]!));
-        for (let k = 0; k < 480; k++) {
-          const i = k * 10 + c;
-          if (Math.abs(secant[i]! - exact[i]!) > 2e-2 * largest) {
-            kinked[i] = Number.POSITIVE_INFINITY; // excluded
-            kinks++;
-          }
-        }
-      }
-      expect(kinks, kind).toBeLessThanOrEqual(6); // the fixture has 6 such gain entries of 4800, no offset entry
-      expect(relativeToCategoryMax(s.sensitivity, exact, exact, 480, 10, kinked), kind).toBeLessThanOrEqual(2e-2);
-    }
-  });
-
-  it('senseSites on the residual network with step 1e-3 matches autograd within 2e-2 everywhere (fewer kinks crossed)', async () => {
-    const f = fixture('residual');
-    const s = await sense(join(FIXTURES, 'residual.onnx'), f.site, 'gain', 1e-3);
-    expect(relativeToCategoryMax(s.sensitivity, f.gainExact, f.gainExact, 480, 10)).toBeLessThanOrEqual(2e-2);
-  });
-});
 
 describe('senseSites (exact properties on small networks)', () => {
   let dir: string;
@@ -245,10 +123,11 @@ describe('senseSites (exact properties on small networks)', () => {
     for (let i = 0; i < a.sensitivity.length; i++) expect(Math.abs(a.sensitivity[i]! - b.sensitivity[i]!) / largest).toBeLessThanOrEqual(1e-5);
   });
 
-  it('senseSites on a quadratic readout gives the exact 2·m², the error estimate h·m², and warns when that exceeds 5%', async () => {
+  it('senseSites on a quadratic readout gives the exact 2·m² by both methods, the curvature h·m² as fd_error, and warns on it only for the secant', async () => {
     // y_c = (g_c·m_c)² with m_c the spatial mean of channel c: ∂y_c/∂g_k = 2m_c² δ_kc at g = 1. A central
-    // difference is exact for a quadratic; the one-sided ones give m²(2 ± h), so |D₊ − D₋|/2 = h·m², i.e.
-    // h/2 of the largest sensitivity: 10% at h = 0.2 (warned), 0.5% at h = 0.01 (not warned).
+    // difference is exact for a quadratic (so D(h) = D(h/2) and Richardson's shift is 0); the one-sided
+    // ones give m²(2 ± h), so fd_error = |D₊ − D₋|/2 = h·m², h/2 of the largest sensitivity: 10% at
+    // h = 0.2 — curvature, not error. The secant warns on it above 5%; Richardson warns on its shift.
     const folder = join(dir, 'quadratic');
     mkdirSync(folder);
     const quadratic = join(folder, 'quadratic.onnx');
@@ -264,20 +143,25 @@ describe('senseSites (exact properties on small networks)', () => {
       }
       return sum / 4;
     });
-    for (const step of [0.2, 0.01]) {
-      const result = await senseSites({ model: quadratic, stimuli: input.npy, site: 'act', step, threads: 1 });
-      const s = result.sites[0]!;
-      for (let k = 0; k < 2; k++) {
-        for (let c = 0; c < 2; c++) {
-          const i = k * 2 + c;
-          expect(s.sensitivity[i]).toBeCloseTo(k === c ? 2 * m2[c]! : 0, 4);
-          expect(s.fdError[i]).toBeCloseTo(k === c ? step * m2[c]! : 0, 4);
+    for (const method of ['secant', 'richardson'] as const) {
+      for (const step of [0.2, 0.01]) {
+        const result = await senseSites({ model: quadratic, stimuli: input.npy, site: 'act', step, method, threads: 1 });
+        const s = result.sites[0]!;
+        expect(s.method).toBe(method);
+        for (let k = 0; k < 2; k++) {
+          for (let c = 0; c < 2; c++) {
+            const i = k * 2 + c;
+            expect(s.sensitivity[i], `${method} ${step}`).toBeCloseTo(k === c ? 2 * m2[c]! : 0, 4);
+            expect(s.fdError[i], `${method} ${step}`).toBeCloseTo(k === c ? step * m2[c]! : 0, 4);
+            if (method === 'richardson') expect(s.extrapolationShift![i]).toBeCloseTo(0, 4);
+            else expect(s.extrapolationShift).toBeNull();
+          }
         }
+        if (method === 'secant' && step === 0.2) {
+          expect(result.warnings).toHaveLength(1);
+          expect(result.warnings[0]).toMatch(/site "act": fd_error \(curvature within ±0\.2\) exceeds 5\.0% of the category's largest \|sensitivity\| for 2 of 4 values/);
+        } else expect(result.warnings, `${method} ${step}`).toEqual([]);
       }
-      if (step === 0.2) {
-        expect(result.warnings).toHaveLength(1);
-        expect(result.warnings[0]).toMatch(/site "act": fd_error exceeds 5\.0% of its category's largest \|sensitivity\| for 2 of 4 values/);
-      } else expect(result.warnings).toEqual([]);
     }
   });
 
@@ -287,7 +171,7 @@ describe('senseSites (exact properties on small networks)', () => {
     const a = small.sites[0]!;
     const b = large.sites[0]!;
     expect(a.runs).toBe(Math.ceil(a.rows / 7));
-    expect(a.rows + a.skippedRows).toBe(9 * (1 + 2 * 4));
+    expect(a.rows + a.skippedRows).toBe(9 * (1 + 4 * 4)); // Richardson: ±h and ±h/2 per channel
     expect(b.skippedRows).toBe(a.skippedRows);
     let largest = 0;
     for (const v of b.sensitivity) largest = Math.max(largest, Math.abs(v));
@@ -297,15 +181,30 @@ describe('senseSites (exact properties on small networks)', () => {
     }
   });
 
-  it('senseSites with secondStep keeps the sensitivities, never lowers fd_error, and doubles the perturbed rows', async () => {
-    const one = (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1 })).sites[0]!;
-    const two = (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, secondStep: true })).sites[0]!;
-    expect(two.rows + two.skippedRows).toBe(9 * (1 + 4 * 4));
-    expect(two.skippedRows).toBe(2 * one.skippedRows);
-    for (let i = 0; i < one.sensitivity.length; i++) {
-      expect(two.sensitivity[i]).toBeCloseTo(one.sensitivity[i]!, 10);
-      expect(two.fdError[i]!).toBeGreaterThanOrEqual(one.fdError[i]! - 1e-12);
+  it('senseSites default (Richardson) equals (4·S(h/2) − S(h))/3 of two secant runs, shares their fd_error, and runs twice their rows', async () => {
+    // Richardson extrapolation of central differences (e.g. Burden & Faires, Numerical Analysis, §4.2,
+    // from memory): R = (4·D(h/2) − D(h))/3 — here an identity between Sonde's own runs at the same gains.
+    const h = 0.01;
+    const run = async (method: 'secant' | 'richardson', step: number) => (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, method, step })).sites[0]!;
+    const rich = (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, step: h })).sites[0]!;
+    const full = await run('secant', h);
+    const half = await run('secant', h / 2);
+    expect(rich.method).toBe('richardson');
+    expect(rich.rows + rich.skippedRows).toBe(9 * (1 + 4 * 4));
+    expect(full.rows + full.skippedRows).toBe(9 * (1 + 2 * 4));
+    expect(rich.skippedRows).toBe(2 * full.skippedRows);
+    let largest = 0;
+    for (const v of rich.sensitivity) largest = Math.max(largest, Math.abs(v));
+    for (let i = 0; i < rich.sensitivity.length; i++) {
+      const expected = (4 * half.sensitivity[i]! - full.sensitivity[i]!) / 3;
+      expect(Math.abs(rich.sensitivity[i]! - expected) / largest, `[${i}]`).toBeLessThanOrEqual(1e-6);
+      expect(Math.abs(rich.extrapolationShift![i]! - Math.abs(half.sensitivity[i]! - full.sensitivity[i]!) / 3) / largest).toBeLessThanOrEqual(1e-6);
+      expect(Math.abs(rich.fdError[i]! - full.fdError[i]!) / largest).toBeLessThanOrEqual(1e-6); // the same ±h runs
     }
+  });
+
+  it('senseSites rejects an unknown method, naming it', async () => {
+    await expect(senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, method: 'forward' as never })).rejects.toThrow(/--method must be "richardson" or "secant", got "forward"/);
   });
 
   it('senseSites all-activations measures every ReLU output upstream of the readout and writes one table block per site', async () => {
@@ -313,7 +212,8 @@ describe('senseSites (exact properties on small networks)', () => {
     const result = await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'all-activations', threads: 1, out });
     expect(result.sites.map((s) => s.layer)).toEqual(['relu0', 'relu1', 'relu2']);
     const file = readSensitivityTable(out);
-    expect(file.blocks.map((b) => [b.layer, b.channels, b.kind, b.step])).toEqual([['relu0', 4, 'gain', 0.01], ['relu1', 4, 'gain', 0.01], ['relu2', 6, 'gain', 0.01]]);
+    expect(file.blocks.map((b) => [b.layer, b.channels, b.kind, b.step])).toEqual([['relu0', 4, 'gain', 0.002], ['relu1', 4, 'gain', 0.002], ['relu2', 6, 'gain', 0.002]]);
+    expect(file.metadata['sonde.method']).toBe('richardson');
     expect(file.categories).toEqual(['0', '1', '2', '3', '4']); // no sidecar: unit indices as text
     expect(file.metadata['sonde.readout']).toBe('logits');
     // the downstream share falls with depth: fewer multiply-adds remain below a later site

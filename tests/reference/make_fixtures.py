@@ -15,9 +15,11 @@ tests/reference/README.md. Along the way the script checks its own results and s
 - every hooked module fired exactly once per forward pass (a module reused inside forward would make
   the hook ambiguous);
 - the bias-free network satisfies f(a x) = a f(x) (positive homogeneity, exact property);
-- the autograd sensitivities agree with the central-difference ones within 5% of the per-category
-  maximum (the networks are piecewise linear, so a step of 1e-2 crosses a few ReLU/Clip kinks; the
-  difference is that, not an error: it shrinks to ~1e-8 for a step of 1e-6);
+- the autograd sensitivities agree with the central-difference ones (step 1e-2) within 30% of the
+  per-category maximum (SqueezeNet's site is that far off), and with the Richardson-extrapolated ones
+  (steps 2e-3 and 1e-3) within 2.5%
+  (the networks are piecewise linear, so a finite step crosses a few ReLU/Clip kinks; the difference
+  is that, not an error: at the residual site it shrinks to ~1e-8 for a step of 1e-6);
 - for the bias-free network, Euler's identity sum_k m_kc = mean_n y_nc holds (degree-1 homogeneity).
 """
 
@@ -49,6 +51,7 @@ SEEDS = {
     "residual": 101,
     "branching": 202,
     "homogeneous": 303,
+    "gated": 404,
     "gain_residual": 1101,
     "gain_branching": 1202,
 }
@@ -57,7 +60,12 @@ BATCH = 4
 SIZE = 64
 NUM_CLASSES = 10
 OPSET = 13
+OPSET_BY_MODEL = {"gated": 14}  # opset 14 has a HardSwish operator; 13 would export x * HardSigmoid(x)
 SECANT_STEP = 1e-2
+SECANT_LIMIT = 0.3  # the secant at 1e-2 crosses many kinks at SqueezeNet's site (0.24 there)
+# Sonde's default: Richardson extrapolation (4 D(h/2) - D(h)) / 3 of central differences D at this h.
+RICHARDSON_STEP = 2e-3
+GATED_CLASSES = 8
 
 # ImageNet channel statistics (torchvision's documented preprocessing constants), used only to make
 # the random images look like preprocessed photographs.
@@ -166,6 +174,23 @@ def build_branching() -> nn.Module:
     return model.eval()
 
 
+def build_gated() -> nn.Module:
+    """MobileNetV3-Small with squeeze-and-excitation gates, Hardswish/Hardsigmoid and residual Adds.
+
+    reduced_tail=True (torchvision's option halving the last stage and the classifier width) and 8
+    classes keep the file near 2.4 MB; the full tail would add 3.7 MB of classifier weights.
+    """
+    calibration = make_images(SEEDS["calibration"], 16)
+    torch.manual_seed(SEEDS["gated"])
+    model = torchvision.models.mobilenet_v3_small(num_classes=GATED_CLASSES, reduced_tail=True)
+    randomize_conv_biases(model)  # the SE convolutions have (zero-initialised) biases
+    randomize_batchnorm(model, calibration)
+    with torch.no_grad():
+        model.classifier[3].weight.normal_(0.0, 0.05)
+        model.classifier[3].bias.uniform_(-0.1, 0.1)
+    return model.eval()
+
+
 def build_homogeneous() -> nn.Module:
     torch.manual_seed(SEEDS["homogeneous"])
     model = Homogeneous()
@@ -204,11 +229,22 @@ TENSORS = {
         "features.7.expand3x3_activation",  # ReLU inside a branch (modulation site)
         "features.7",  # Concat
         "features.8",  # MaxPool
+        "features.9.expand3x3_activation",  # ReLU inside a branch (sensitivity site)
         "features.10",  # Concat
         "features.12",  # Concat
         "classifier.2",  # ReLU after the classifier conv
         "classifier.3",  # GlobalAveragePool
         "",  # model output (Flatten) -> logits
+    ],
+    "gated": [
+        "features.0.2",  # stem Hardswish
+        "features.3.block.1.2",  # depthwise ReLU
+        "features.4",  # block output (no Add: stride 2)
+        "features.6.block.1.2",  # depthwise Hardswish before an SE gate (sensitivity site)
+        "features.6.block.2",  # SqueezeExcitation output (x * Hardsigmoid(fc2(...)))
+        "features.6",  # Add
+        "features.12.2",  # last Hardswish before pooling
+        "classifier.3",  # Gemm -> logits
     ],
     "homogeneous": [
         "relu1",
@@ -230,9 +266,14 @@ MODULATION = {
     "branching": {"site": "features.7.expand3x3_activation", "downstream": ["features.7", "features.10", "classifier.2"]},
 }
 
-SENSITIVITY = {"residual": "features.16.conv.1.2", "homogeneous": "relu4"}
+SENSITIVITY = {
+    "residual": "features.16.conv.1.2",
+    "homogeneous": "relu4",
+    "branching": "features.9.expand3x3_activation",
+    "gated": "features.6.block.1.2",
+}
 
-BUILDERS = {"residual": build_residual, "branching": build_branching, "homogeneous": build_homogeneous}
+BUILDERS = {"residual": build_residual, "branching": build_branching, "homogeneous": build_homogeneous, "gated": build_gated}
 
 
 # --------------------------------------------------------------------------------------------------
@@ -274,12 +315,12 @@ def save(path: Path, array: np.ndarray) -> None:
     np.save(path, np.ascontiguousarray(array))
 
 
-def export(model: nn.Module, x: torch.Tensor, path: Path) -> onnx.ModelProto:
+def export(model: nn.Module, x: torch.Tensor, path: Path, opset: int = OPSET) -> onnx.ModelProto:
     torch.onnx.export(
         model,
         x,
         str(path),
-        opset_version=OPSET,
+        opset_version=opset,
         input_names=["input"],
         output_names=["logits"],
         dynamic_axes={"input": {0: "batch"}, "logits": {0: "batch"}},
@@ -399,7 +440,7 @@ def check_shape(name: str, inferred: dict[str, list], actual: list[int]) -> None
 
 
 def write_model(name: str, model: nn.Module, x: torch.Tensor) -> tuple[onnx.ModelProto, dict[str, str]]:
-    proto = export(model, x, OUT / f"{name}.onnx")
+    proto = export(model, x, OUT / f"{name}.onnx", OPSET_BY_MODEL.get(name, OPSET))
     shapes = inferred_shapes(proto)
     acts = record(model, x, TENSORS[name])
     names: dict[str, str] = {}
@@ -508,16 +549,28 @@ def write_sensitivity(name: str, model: nn.Module, x: torch.Tensor, names: dict[
             shift[k] = 0
             offset_secant[k] = ((up - down) / (2 * h)).mean(0).numpy()
     handle.remove()
+    gain_richardson = richardson(m64, module, x64, channels, k_out, "gain")
+    offset_richardson = richardson(m64, module, x64, channels, k_out, "offset")
 
     def rel_diff(exact: np.ndarray, secant: np.ndarray) -> float:
+        # A category whose readout is 0 for every stimulus after a final ReLU (SqueezeNet) has exact
+        # derivatives 0; there the secant must be 0 too, and the category is left out of the ratio.
         per_cat = np.abs(exact).max(axis=0)
-        return float((np.abs(exact - secant) / per_cat).max())
+        dead = per_cat == 0
+        if np.abs(secant[:, dead]).max(initial=0.0) != 0:
+            raise RuntimeError(f"{name}: a finite difference is non-zero where autograd is 0 for a whole category")
+        return float((np.abs(exact - secant)[:, ~dead] / per_cat[~dead]).max())
 
     dg_rel, db_rel = rel_diff(gain_exact, gain_secant), rel_diff(offset_exact, offset_secant)
     print(f"{name}: sensitivity at {names[site]} (C={channels}, K={k_out}); "
           f"max |exact-secant| / per-category max |exact|: gain {dg_rel:.2e}, offset {db_rel:.2e}")
-    if dg_rel > 0.05 or db_rel > 0.05:
-        raise RuntimeError(f"{name}: secant and autograd sensitivities disagree by more than 5%")
+    if dg_rel > SECANT_LIMIT or db_rel > SECANT_LIMIT:
+        raise RuntimeError(f"{name}: secant and autograd sensitivities disagree by more than {SECANT_LIMIT:.0%}")
+    rg_rel, rb_rel = rel_diff(gain_exact, gain_richardson), rel_diff(offset_exact, offset_richardson)
+    print(f"{name}: Richardson (steps {RICHARDSON_STEP:g}, {RICHARDSON_STEP / 2:g}) vs autograd, max / per-category max: "
+          f"gain {rg_rel:.2e}, offset {rb_rel:.2e}")
+    if rg_rel > 0.025 or rb_rel > 0.025:
+        raise RuntimeError(f"{name}: Richardson and autograd sensitivities disagree by more than 2.5%")
     if name == "homogeneous":
         # Euler's theorem for degree-1 homogeneous functions of the site: sum_k m_kc = mean_n y_nc.
         with torch.no_grad():
@@ -532,8 +585,48 @@ def write_sensitivity(name: str, model: nn.Module, x: torch.Tensor, names: dict[
     save(folder / "offset_exact.npy", offset_exact.astype(np.float64))
     save(folder / "gain_secant.npy", gain_secant.astype(np.float64))
     save(folder / "offset_secant.npy", offset_secant.astype(np.float64))
-    site_json = {"site": names[site], "module": site, "step": h, "channels": channels, "outputs": k_out}
+    save(folder / "gain_richardson.npy", gain_richardson.astype(np.float64))
+    save(folder / "offset_richardson.npy", offset_richardson.astype(np.float64))
+    site_json = {"site": names[site], "module": site, "step": h, "richardson_step": RICHARDSON_STEP, "channels": channels, "outputs": k_out}
     (folder / "site.json").write_text(json.dumps(site_json, indent=2) + "\n")
+
+
+def richardson(m64: nn.Module, module: nn.Module, x64: torch.Tensor, channels: int, k_out: int, kind: str) -> np.ndarray:
+    """Float64 Richardson extrapolation (4 D(h/2) - D(h)) / 3 of central differences D at
+    h = RICHARDSON_STEP, per channel, batch-averaged. Channels are perturbed CHUNK at a time: the batch
+    stacks (channel, step, sign) copies of the N inputs, and a hook scales (kind gain) or shifts (kind
+    offset) channel k of the site in its copies only."""
+    n = x64.shape[0]
+    h = RICHARDSON_STEP
+    deltas = (h, -h, h / 2, -h / 2)
+    chunk = 16
+    state: dict[str, torch.Tensor] = {}
+
+    def hook(_m, _i, output):
+        return output * state["scale"][:, :, None, None] + state["shift"][:, :, None, None]
+
+    handle = module.register_forward_hook(hook)
+    out = np.zeros((channels, k_out))
+    with torch.no_grad():
+        for k0 in range(0, channels, chunk):
+            ks = list(range(k0, min(channels, k0 + chunk)))
+            rows = len(ks) * len(deltas) * n
+            scale = torch.ones(rows, channels, dtype=torch.float64)
+            shift = torch.zeros(rows, channels, dtype=torch.float64)
+            for j, k in enumerate(ks):
+                for v, d in enumerate(deltas):
+                    r = (j * len(deltas) + v) * n
+                    if kind == "gain":
+                        scale[r:r + n, k] = 1 + d
+                    else:
+                        shift[r:r + n, k] = d
+            state["scale"], state["shift"] = scale, shift
+            y = m64(x64.repeat(len(ks) * len(deltas), 1, 1, 1)).view(len(ks), len(deltas), n, k_out).mean(2)
+            d_h = (y[:, 0] - y[:, 1]) / (2 * h)
+            d_half = (y[:, 2] - y[:, 3]) / h
+            out[ks] = ((4 * d_half - d_h) / 3).numpy()
+    handle.remove()
+    return out
 
 
 def check_homogeneity(model: nn.Module, x: torch.Tensor) -> None:
@@ -548,6 +641,10 @@ def check_homogeneity(model: nn.Module, x: torch.Tensor) -> None:
 
 
 def main() -> int:
+    global OUT
+    if len(sys.argv) > 1:  # another output folder (to compare a regeneration with the committed files)
+        OUT = Path(sys.argv[1]).resolve()
+    only = set(sys.argv[2:])  # optionally only these models (development; the fixtures need all)
     print(f"torch {torch.__version__}, torchvision {torchvision.__version__}, onnx {onnx.__version__}")
     if OUT.exists():
         shutil.rmtree(OUT)
@@ -555,6 +652,8 @@ def main() -> int:
     x = make_inputs()
     save(OUT / "inputs.npy", x.numpy())
     for name, build in BUILDERS.items():
+        if only and name not in only:
+            continue
         model = build()
         if name == "homogeneous":
             check_homogeneity(model, x)

@@ -13,7 +13,7 @@ import { parseNpy } from '../../src/stimuli/npy.js';
 import { tempFolder } from '../helpers/onnx-builder.js';
 
 const FIXTURES = new URL('./fixtures/', import.meta.url).pathname;
-const MODELS = ['residual', 'branching', 'homogeneous'] as const;
+const MODELS = ['residual', 'branching', 'homogeneous', 'gated'] as const;
 
 interface Mapping {
   tensors: Array<{ module: string; onnx: string; shape: number[]; file: string }>;

@@ -33,7 +33,7 @@ export async function mergePartialFiles(parts: readonly string[], options: { out
     const result = merged.result;
     for (const warning of result.warnings) io.stderr(`sonde: warning: ${warning}\n`);
     if (options.json) {
-      const sites = result.sites.map(({ sensitivity: _s, fdError: _e, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
+      const sites = result.sites.map(({ sensitivity: _s, fdError: _e, extrapolationShift: _x, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
       io.stdout(`${JSON.stringify({ readout: result.readout, source: result.source, file: result.file, sites }, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
     } else io.stdout(`merged ${parts.length} sense partials: ${result.sites.length} sites, ${result.stimuli} stimuli → ${displayPath(options.out!)}\n`);
     return;

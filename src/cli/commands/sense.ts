@@ -1,14 +1,15 @@
 /**
  * `sonde sense MODEL --site TENSOR --readout OUTPUT[:CATEGORY|INDEX] --out FILE.arrow`: causal gain (or
- * offset) sensitivities of every channel of a site for each readout category, by central finite
- * differences through the injected gain input (see src/pipeline/sense.ts).
+ * offset) sensitivities of every channel of a site for each readout category, by finite differences
+ * through the injected gain input — Richardson-extrapolated central differences by default, the plain
+ * central secant with --method secant (see src/pipeline/sense.ts).
  */
 import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { InvalidArgumentError } from 'commander';
 import { UsageError } from '../../errors.js';
 import { displayPath } from '../../pipeline/record-snapshot.js';
-import { ALL_ACTIVATIONS, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, senseSites, type SenseOptions } from '../../pipeline/sense.js';
+import { ALL_ACTIVATIONS, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions } from '../../pipeline/sense.js';
 import { parseChannelList, parseShape } from '../../stimuli/preprocess.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
@@ -24,7 +25,7 @@ interface SenseCliOptions {
   readout?: string;
   kind: string;
   step: string;
-  secondStep?: boolean;
+  method: string;
   stimuliOf?: string;
   out?: string;
   force?: boolean;
@@ -44,7 +45,7 @@ interface SenseCliOptions {
 export function registerSense(program: Command): void {
   program
     .command('sense')
-    .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by central differences')
+    .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by finite differences (Richardson-extrapolated central differences by default)')
     .argument('<model>', 'ONNX model file')
     .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect)
     .option('--out <file.arrow>', 'write the sensitivity table here (required unless --partial; an existing file only with --force)')
@@ -54,8 +55,8 @@ export function registerSense(program: Command): void {
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
     .option('--readout <output[:category|index]>', 'readout tensor, optionally one unit (default: the first graph output, every unit)')
     .option('--kind <kind>', 'gain (multiplicative, at g = 1) or offset (additive, at b = 0)', 'gain')
-    .option('--step <h>', 'central-difference step h > 0', String(DEFAULT_STEP))
-    .option('--second-step', 'also evaluate at h/2 and fold the difference into fd_error (twice the cost)')
+    .option('--step <h>', 'finite-difference step h > 0 (Richardson also runs at h/2)', String(DEFAULT_STEP))
+    .option('--method <method>', 'richardson: (4·D(h/2) − D(h))/3 from central differences D at h and h/2 (4 runs per channel); secant: D(h) alone (2 runs per channel, half the cost)', SENSE_METHODS[0])
     .option('--stimuli-of <category|each>', 'average only over stimuli containing CATEGORY; each: every readout category over the stimuli containing it')
     .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run', positiveInteger, DEFAULT_ROWS_PER_RUN)
     .option('--batch <n>', 'stimuli per run of the whole network (without --from)', positiveInteger, 16)
@@ -74,6 +75,8 @@ export function registerSense(program: Command): void {
       if (opts.partial === undefined && opts.out === undefined) throw new UsageError('E_USAGE', 'sonde sense needs --out FILE.arrow (where the sensitivity table goes), or --partial FILE.json with --shard');
       if (opts.site === undefined || opts.site.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --site TENSOR (or --site ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
       if (opts.kind !== 'gain' && opts.kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${opts.kind}"`);
+      if (!(SENSE_METHODS as readonly string[]).includes(opts.method)) throw new UsageError('E_SENSE_METHOD', `--method must be ${SENSE_METHODS.join(' or ')}, got "${opts.method}"`);
+      const method = opts.method as SenseMethod;
       const step = Number(opts.step);
       if (opts.step.trim() === '' || !Number.isFinite(step) || step <= 0) {
         throw new UsageError('E_SENSE_STEP', `--step ${JSON.stringify(opts.step)} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${DEFAULT_STEP})` });
@@ -86,6 +89,7 @@ export function registerSense(program: Command): void {
           site: opts.site,
           kind: opts.kind,
           step,
+          method,
           rowsPerRun: opts.rows,
           batch: opts.batch,
           threads: opts.threads,
@@ -95,7 +99,6 @@ export function registerSense(program: Command): void {
           ...(opts.labels !== undefined ? { labels: opts.labels } : {}),
           ...(opts.from !== undefined ? { from: opts.from } : {}),
           ...(opts.readout !== undefined ? { readout: opts.readout } : {}),
-          ...(opts.secondStep ? { secondStep: true } : {}),
           ...(opts.stimuliOf !== undefined ? { stimuliOf: opts.stimuliOf } : {}),
           ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
           ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
@@ -117,19 +120,23 @@ export function registerSense(program: Command): void {
       }
       for (const warning of result.warnings) io.stderr(`sonde: warning: ${warning}\n`);
       if (opts.json) {
-        const sites = result.sites.map(({ sensitivity: _s, fdError: _e, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
+        const sites = result.sites.map(({ sensitivity: _s, fdError: _e, extrapolationShift: _x, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
         io.stdout(`${JSON.stringify({ readout: result.readout, source: result.source, file: result.file, sites }, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
       }
-      const table = new Table({ head: ['site', 'channels', 'categories', 'stimuli', 'max |s|', 'worst fd_error', 'rows', 'downstream share', 'fwd-pass eq./channel', 'seconds'], style: { head: [], border: [], compact: true } });
+      const indicator = method === 'richardson' ? 'worst h vs h/2 shift' : 'worst fd_error';
+      const table = new Table({ head: ['site', 'channels', 'categories', 'stimuli', 'max |s|', indicator, 'rows', 'downstream share', 'fwd-pass eq./channel', 'seconds'], style: { head: [], border: [], compact: true } });
       for (const s of result.sites) {
         let largest = 0;
         for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
         table.push([s.layer, s.channels, s.categories.length, s.stimuliUsed, largest.toPrecision(3), `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
       }
-      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), step ${step}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
+      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), ${method === 'richardson' ? `Richardson from steps ${step} and ${step / 2}` : `secant, step ${step}`}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
       io.stdout(`${table.toString()}\n`);
-      io.stdout(`values are central secants (y(+h) − y(−h)) / 2h; worst fd_error is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%); forward-pass equivalents from Conv/Gemm/MatMul multiply-adds\n`);
+      const values = method === 'richardson'
+        ? 'values are (4·D(h/2) − D(h))/3 with D(h) = (y(+h) − y(−h))/2h; the shift |D(h/2) − D(h)|/3 is how far extrapolation moved the h/2 secant'
+        : 'values are central secants D(h) = (y(+h) − y(−h))/2h; fd_error is the curvature within ±h, |D₊ − D₋|/2, not an error bound';
+      io.stdout(`${values}; worst is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%); forward-pass equivalents from Conv/Gemm/MatMul multiply-adds\n`);
     });
 }
 
