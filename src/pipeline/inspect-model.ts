@@ -33,7 +33,24 @@ export interface ModelInspection {
   layers: LayerInfo[];
   /** Node outputs that are not recordable (non-float, or without a batch axis). */
   skipped: number;
+  /** Those node outputs, in topological order, each with the reason (for listings and notices). */
+  skippedTensors: SkippedTensor[];
 }
+
+/** A node output that is not a per-stimulus activation. */
+export interface SkippedTensor {
+  name: string;
+  op: string;
+  /** `constant`: does not depend on the data input (Constant nodes, values computed from weights only); `type`: not float32; `batch`: its first axis is not the batch. */
+  reason: 'constant' | 'type' | 'batch';
+}
+
+/** Words for `SkippedTensor.reason`. */
+export const SKIP_REASONS: Record<SkippedTensor['reason'], string> = {
+  constant: 'does not depend on the input',
+  type: 'not float32',
+  batch: 'first axis is not the batch',
+};
 
 /** Options of `inspectModel`. */
 export interface InspectOptions {
@@ -61,17 +78,23 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const shapes = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName);
   const declaredOutputs = new Set(model.outputs);
   const layers: LayerInfo[] = [];
-  let skipped = 0;
-  const isActivation = (tensor: string): boolean => !structure.initializers.has(tensor) && (structure.producer.has(tensor) || tensor === model.input.name);
+  const skippedTensors: SkippedTensor[] = [];
+  // tensors that depend on the data input (nodes in topological order): the rest are constants, whatever
+  // their shape — with a fixed batch of 1 a [1, C, 1, 1] constant would otherwise pass for an activation
+  const dependent = new Set<string>([model.input.name]);
+  for (const node of structure.nodes) {
+    if (node.opType !== 'Constant' && node.inputs.some((i) => i && dependent.has(i))) for (const name of node.outputs) dependent.add(name);
+  }
   for (const node of structure.nodes) {
     for (const name of node.outputs) {
       const probed = shapes.get(name);
-      if (!probed || probed.type !== 'float32' || probed.dims.length === 0 || probed.dims[0] !== probeBatch) {
-        skipped += 1;
+      const reason: SkippedTensor['reason'] | null = !dependent.has(name) ? 'constant' : !probed || probed.type !== 'float32' ? 'type' : probed.dims.length === 0 || probed.dims[0] !== probeBatch ? 'batch' : null;
+      if (reason !== null || !probed) {
+        skippedTensors.push({ name, op: node.opType, reason: reason ?? 'type' });
         continue;
       }
       const shape = probed.dims.slice(1);
-      const batchedInputs = node.inputs.filter((i) => i && isActivation(i) && isBatched(i, shapes, probeBatch, model.input.name));
+      const batchedInputs = node.inputs.filter((i) => i && dependent.has(i) && isBatched(i, shapes, probeBatch, model.input.name));
       const isMerge = MERGE_OPS.has(node.opType) && batchedInputs.length >= 2;
       const isDefault = ACTIVATION_OPS.has(node.opType) || POOLING_OPS.has(node.opType) || LINEAR_OPS.has(node.opType) || isMerge || declaredOutputs.has(name);
       layers.push({
@@ -85,7 +108,19 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
       });
     }
   }
-  return { model, structure, input: { name: model.input.name, declared: model.input.dims, shape: inputShape }, layers, skipped };
+  return { model, structure, input: { name: model.input.name, declared: model.input.dims, shape: inputShape }, layers, skipped: skippedTensors.length, skippedTensors };
+}
+
+/**
+ * One line naming the node outputs that are not recorded, e.g. for `--layers all`: "skipped 2 tensors
+ * that are not per-stimulus activations: scale (Constant, does not depend on the input), …" (at most
+ * `limit` named), or null when none was skipped.
+ */
+export function describeSkipped(inspection: Pick<ModelInspection, 'skippedTensors'>, limit = 6): string | null {
+  const list = inspection.skippedTensors;
+  if (list.length === 0) return null;
+  const named = list.slice(0, limit).map((t) => `${t.name} (${t.op}, ${SKIP_REASONS[t.reason]})`).join(', ');
+  return `skipped ${list.length} tensor${list.length === 1 ? '' : 's'} that ${list.length === 1 ? 'is' : 'are'} not per-stimulus activations: ${named}${list.length > limit ? `, and ${list.length - limit} more` : ''}`;
 }
 
 function isBatched(name: string, shapes: Map<string, { type: string; dims: number[] }>, batch: number, inputName: string): boolean {

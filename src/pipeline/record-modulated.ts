@@ -21,7 +21,7 @@ import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-mo
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder } from './output-folder.js';
 import { countNonFinite, nonFiniteNotice, NonFiniteTally, storageBound } from './non-finite.js';
 import { removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
-import { displayPath, markIncomplete, settleOutputFolder, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
+import { chooseInputShape, displayPath, markIncomplete, settleOutputFolder, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
 
 /** Options of `recordModulated`: a recording plus the modulation and, optionally, its baseline. */
 export interface RecordModulatedOptions extends RecordOptions {
@@ -109,7 +109,8 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
     { option: '--modulate', path: typeof options.modulate === 'string' ? options.modulate : null },
   ]);
   if (baseline) assertSameModel(baseline, model, options.from!);
-  const inspection = await inspectModel(model, options.inputShape ? { inputShape: options.inputShape } : {});
+  const inputShape = chooseInputShape(model, options);
+  const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
   const categories = options.categories ?? (baseline ? baseline.categories : undefined);
   const resolved = resolveForModel(spec, inspection, categories, options.tables);
   const sites = injectionSites(resolved, inspection);

@@ -1,6 +1,6 @@
 import { createHash } from 'node:crypto';
 import { existsSync, renameSync } from 'node:fs';
-import { relative } from 'node:path';
+import { extname, relative } from 'node:path';
 import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
@@ -11,6 +11,7 @@ import { LayerFileWriter } from '../snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
+import { readNpyHeader } from '../stimuli/npy.js';
 import type { Preprocessing } from '../stimuli/preprocess.js';
 import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
@@ -129,11 +130,8 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   if (dtype !== 'float32' && dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${String(dtype)}"`);
   const requestedBatch = options.batch ?? 16;
   if (!Number.isInteger(requestedBatch) || requestedBatch <= 0) throw new UsageError('E_BATCH', `--batch must be a positive integer, got ${requestedBatch}`);
-  let inputShape = options.inputShape;
+  const inputShape = chooseInputShape(model, options);
   const declared = model.input.dims;
-  if (!inputShape && options.size && declared.length === 4 && (typeof declared[2] !== 'number' || typeof declared[3] !== 'number') && typeof declared[1] === 'number') {
-    inputShape = [1, declared[1], options.size[0], options.size[1]];
-  }
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
   const selected = options.layerNames ? pickLayers(inspection.layers, options.layerNames, model.fileName) : selectLayers(inspection.layers, options.layers);
   if (!options.layerNames && /(^|[\s+])all($|[\s+])/.test(options.layers ?? '')) {
@@ -485,6 +483,26 @@ function fedTally(tally: NonFiniteTally, perRow: Uint32Array, from: number, to: 
   const whole = new NonFiniteTally(tally.toRecord());
   for (let r = from; r < to; r++) whole.add(STIMULI_KEY, perRow[r]!);
   return whole;
+}
+
+/**
+ * The input shape to inspect and run a model with, for models whose input has free non-batch axes:
+ * `inputShape` when given; else [1, C, H, W] from `size` (images are resized to it); else the shape of
+ * a `.npy` stimulus array, read from its header, when it fits the model's fixed axes. Undefined when the
+ * input has no free non-batch axis (or nothing tells its shape: `inspectModel` then asks for one).
+ */
+export function chooseInputShape(model: LoadedModel, options: Pick<RecordOptions, 'inputShape' | 'size' | 'stimuli'>): number[] | undefined {
+  if (options.inputShape) return options.inputShape;
+  const declared = model.input.dims;
+  if (!declared.some((d, i) => i > 0 && typeof d !== 'number')) return undefined;
+  if (options.size && declared.length === 4 && typeof declared[1] === 'number') return [1, declared[1], options.size[0], options.size[1]];
+  if (declared.length === 4 && extname(options.stimuli).toLowerCase() === '.npy' && existsSync(options.stimuli)) {
+    const shape = readNpyHeader(options.stimuli).shape;
+    if (shape.length === 4 && shape.slice(1).every((d, i) => d > 0 && (typeof declared[i + 1] !== 'number' || declared[i + 1] === d))) {
+      return [typeof declared[0] === 'number' ? declared[0] : 1, ...shape.slice(1)];
+    }
+  }
+  return undefined;
 }
 
 /** For messages: a path relative to the working folder. */

@@ -115,7 +115,9 @@ function openNpy(path: string, absolute: string, options: StimulusSourceOptions)
     if (!header || header[0] !== 'label' || header.length !== 1) {
       throw new UsageError('E_STIMULI_CSV', `--labels ${options.labelsFile}: the first line must be the header "label"`);
     }
-    if (rows.length !== n) throw new UsageError('E_STIMULI_CSV', `--labels ${options.labelsFile} has ${rows.length} rows but ${path} holds ${n} stimuli`);
+    if (rows.length !== n) {
+      throw new UsageError('E_STIMULI_CSV', `--labels ${options.labelsFile} has ${rows.length} rows but ${path} holds ${n} stimuli`, { hint: 'one row per stimulus; a stimulus without labels is a row "" (blank lines are skipped)' });
+    }
     labels = rows.map((r) => splitLabels(r[0] ?? ''));
   }
   const data = tensor.data as Float32Array;
@@ -175,12 +177,17 @@ export function splitLabels(cell: string): string[] {
   return cell.split(';').map((s) => s.trim()).filter((s) => s.length > 0);
 }
 
-/** A small RFC 4180 CSV parser (quoted fields, doubled quotes, CRLF); blank lines are dropped. */
+/**
+ * A small RFC 4180 CSV parser (quoted fields, doubled quotes, CRLF). Blank lines are dropped; a line
+ * holding only `""` is a row with one empty field (how Python's csv module writes a lone empty value,
+ * so it is not a blank line), e.g. a stimulus without labels in a `label` column.
+ */
 export function parseCsv(text: string, source: string): string[][] {
   const rows: string[][] = [];
   let field = '';
   let row: string[] = [];
   let quoted = false;
+  let rowQuoted = false;
   for (let i = 0; i < text.length; i++) {
     const ch = text[i]!;
     if (quoted) {
@@ -190,21 +197,25 @@ export function parseCsv(text: string, source: string): string[][] {
           i++;
         } else quoted = false;
       } else field += ch;
-    } else if (ch === '"' && field === '') quoted = true;
+    } else if (ch === '"' && field === '') {
+      quoted = true;
+      rowQuoted = true;
+    }
     else if (ch === ',') {
       row.push(field);
       field = '';
     } else if (ch === '\n' || ch === '\r') {
       if (ch === '\r' && text[i + 1] === '\n') i++;
       row.push(field);
-      if (row.length > 1 || row[0] !== '') rows.push(row);
+      if (row.length > 1 || row[0] !== '' || rowQuoted) rows.push(row);
       row = [];
       field = '';
+      rowQuoted = false;
     } else field += ch;
   }
   if (quoted) throw new UsageError('E_STIMULI_CSV', `${source}: unterminated quoted field`);
   row.push(field);
-  if (row.length > 1 || row[0] !== '') rows.push(row);
+  if (row.length > 1 || row[0] !== '' || rowQuoted) rows.push(row);
   return rows.map((r) => r.map((f) => f.trim()));
 }
 

@@ -27,6 +27,12 @@ export interface TinyNetOptions {
   externalData?: boolean;
   /** Add a residual Add around the second conv (same width required). */
   residual?: boolean;
+  /**
+   * Add Constant nodes: a per-channel scale `scale0` [1, W0, 1, 1] multiplied into conv0 (tensor
+   * `scaled0`, read by relu0), and a second graph output `prior` [2, classes] = `prior_c` + `prior_c`
+   * computed from Constants only (not per stimulus, its first axis merely looks like a batch of 2).
+   */
+  constants?: boolean;
 }
 
 function tensor(name: string, dims: number[], data: Float32Array): onnxProto.onnx.ITensorProto {
@@ -56,6 +62,11 @@ export function buildTinyNet(options: TinyNetOptions = {}): Uint8Array {
     }
     nodes.push({ name: `conv${i}_node`, opType: 'Conv', input: convInputs, output: [`conv${i}`], attribute: [{ name: 'pads', type: 7, ints: [1, 1, 1, 1] }] });
     let act = `conv${i}`;
+    if (options.constants && i === 0) {
+      nodes.push({ name: 'scale0_node', opType: 'Constant', input: [], output: ['scale0'], attribute: [{ name: 'value', type: 4, t: tensor('', [1, width, 1, 1], new Float32Array(width).map((_, k) => 1 + 0.25 * k)) }] });
+      nodes.push({ name: 'scaled0_node', opType: 'Mul', input: ['conv0', 'scale0'], output: ['scaled0'] });
+      act = 'scaled0';
+    }
     if (options.residual && i === 1 && width === channels) {
       nodes.push({ name: `res_node`, opType: 'Add', input: [`conv${i}`, prev], output: ['res'] });
       act = 'res';
@@ -76,6 +87,10 @@ export function buildTinyNet(options: TinyNetOptions = {}): Uint8Array {
     inits.push(tensor('Bfc', [classes], new Float32Array(classes).map(() => rng.normal())));
     nodes.push({ name: 'fcb_node', opType: 'Add', input: ['fc', 'Bfc'], output: ['logits'] });
   } else nodes.push({ name: 'fc_node', opType: 'MatMul', input: ['flat', 'Wfc'], output: ['logits'] });
+  if (options.constants) {
+    nodes.push({ name: 'prior_c_node', opType: 'Constant', input: [], output: ['prior_c'], attribute: [{ name: 'value', type: 4, t: tensor('', [2, classes], new Float32Array(2 * classes).map((_, k) => k)) }] });
+    nodes.push({ name: 'prior_node', opType: 'Add', input: ['prior_c', 'prior_c'], output: ['prior'] });
+  }
   const batch = options.batch ?? 'batch';
   const dim = (d: string | number) => (typeof d === 'number' ? { dimValue: d } : { dimParam: d });
   const inputDims = [dim(batch), dim(c0), dim(options.dynamicSpatial ? 'height' : h0), dim(options.dynamicSpatial ? 'width' : w0)];
@@ -88,7 +103,7 @@ export function buildTinyNet(options: TinyNetOptions = {}): Uint8Array {
       node: nodes,
       initializer: inits,
       input: [{ name: 'input', type: { tensorType: { elemType: 1, shape: { dim: inputDims } } } }],
-      output: [{ name: 'logits', type: { tensorType: { elemType: 1, shape: { dim: [dim(batch), dim(classes)] } } } }],
+      output: [{ name: 'logits', type: { tensorType: { elemType: 1, shape: { dim: [dim(batch), dim(classes)] } } } }, ...(options.constants ? [{ name: 'prior', type: { tensorType: { elemType: 1, shape: { dim: [dim(2), dim(classes)] } } } }] : [])],
     },
   };
   return onnx.ModelProto.encode(model).finish();

@@ -1,6 +1,6 @@
 import Table from 'cli-table3';
 import type { Command } from 'commander';
-import { inspectModel } from '../../pipeline/inspect-model.js';
+import { describeSkipped, inspectModel } from '../../pipeline/inspect-model.js';
 import { parseShape } from '../../stimuli/preprocess.js';
 import { megabytes } from '../options.js';
 import { cliIo } from '../run.js';
@@ -21,6 +21,7 @@ export function registerLayers(program: Command): void {
           model: inspection.model.fileName,
           input: { name: inspection.input.name, shape: inspection.input.shape },
           layers: inspection.layers.map((l) => ({ name: l.name, op: l.op, depth: l.depth, shape: l.shape, elements: l.elements, default: l.default })),
+          skipped: inspection.skippedTensors,
         };
         io.stdout(`${JSON.stringify(json, null, 2)}\n`);
         return;
@@ -33,5 +34,7 @@ export function registerLayers(program: Command): void {
       io.stdout(
         `${inspection.layers.length} recordable tensors (${defaults.length} by default); activations per stimulus: ${megabytes(bytes(defaults))} default, ${megabytes(bytes(inspection.layers))} all; ${inspection.model.parameterCount.toLocaleString('en-US')} parameters; input ${inspection.input.name} [${inspection.input.shape.join(', ')}]\n`,
       );
+      const skipped = describeSkipped(inspection);
+      if (skipped) io.stdout(`${skipped}\n`);
     });
 }

@@ -4,7 +4,7 @@
  * - `png`: `images/000000.png …` (8-bit RGB) and `labels.csv` with header `path,label`, the path
  *   relative to the CSV, the label the kinds present joined with `;`.
  * - `npy`: `stimuli.npy`, float32 [N, 3, 64, 64] in [0, 1], and `labels.csv` with a single `label` column
- *   in row order.
+ *   in row order (`""` for a display without labels).
  *
  * Both write `set.json`, the description of the set (every option, the generator version). The same
  * options give byte-identical files.
@@ -105,7 +105,8 @@ export async function makeStimulusSet(options: StimulusSetOptions): Promise<Stim
         await handle.close();
       }
       files.push('stimuli.npy');
-      await writeFile(join(options.out, 'labels.csv'), ['label', ...labels].join('\n') + '\n');
+      // a display without labels is written "" (a blank line would be skipped by CSV readers)
+      await writeFile(join(options.out, 'labels.csv'), ['label', ...labels.map((label) => (label === '' ? '""' : label))].join('\n') + '\n');
     }
     files.push('labels.csv');
     const description: StimulusSetDescription = {
