@@ -160,6 +160,21 @@ describe('output folders (record, merge, sweep, demo)', () => {
     expect(treeDigest(folder)).toEqual(before);
   });
 
+  it('runDemo({ out }) lists every file it wrote: its folder is refused once a user file is added, and otherwise emptied for the next run', async () => {
+    const folder = join(dir, 'demo-real');
+    await runDemo({ out: folder, quick: true, threads: 1 });
+    const mark = JSON.parse(readFileSync(join(folder, DEMO_MARK), 'utf8')) as { complete: boolean; files: string[] };
+    expect(mark.complete).toBe(true);
+    expect(mark.files).toEqual(Object.keys(treeDigest(folder)).filter((f) => f !== DEMO_MARK));
+    writeFileSync(join(folder, 'sweep', 'my-notes.txt'), 'mine');
+    const before = treeDigest(folder);
+    await expect(runDemo({ out: folder, quick: true, threads: 1 })).rejects.toThrow(/demo-real holds files the demo did not write \(sweep\/my-notes\.txt\)/);
+    expect(treeDigest(folder)).toEqual(before);
+    rmSync(join(folder, 'sweep', 'my-notes.txt'));
+    prepareDemoFolder(folder); // what the next run does first
+    expect(readdirSync(folder)).toEqual([DEMO_MARK]);
+  }, 120_000);
+
   it('prepareDemoFolder(folder) empties a finished demo folder of exactly its listed files, and refuses one with a file added later', () => {
     const folder = join(dir, 'demo-own');
     const first = prepareDemoFolder(folder);
