@@ -53,7 +53,7 @@ export function registerRecord(program: Command): void {
     .option('--std <a,b,c>', 'per-channel std after scaling to [0,1] (default: model sidecar, else 1)')
     .option('--bgr', 'feed channels in BGR order')
     .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
-    .option('--force', 'replace a complete snapshot already in --out')
+    .option('--force', 'replace a complete (or damaged) snapshot already in --out; files Sonde did not write are never deleted')
     .option('--modulate <spec>', 'modulation spec (YAML or JSON) to inject')
     .option('--from <baseline>', 'baseline snapshot to pair with; only the part downstream of the sites is re-run when possible')
     .option('--tuning <file.arrow>', 'tuning table for the tuning kind and lesion top (from `sonde tune`)')
