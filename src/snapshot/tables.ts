@@ -9,8 +9,9 @@
  * the channel has no preference), `selectivity` float64, `zero_variance` bool.
  *
  * Sensitivity table columns: `layer` utf8 (the site tensor), `channel` int32, `category` utf8 (readout
- * category), `sensitivity` float64, `fd_error` float64, `kind` utf8 (`gain` / `offset`), `step` float64,
- * `n` int32 (stimuli averaged).
+ * category), `sensitivity` float64, `fd_error` float64 (the curvature the step sees within ±h, not an
+ * error bound), `kind` utf8 (`gain` / `offset`), `step` float64, `n` int32 (stimuli averaged); the
+ * finite-difference method (`richardson` / `secant`) is in the schema metadata `sonde.method`.
  *
  * Schema metadata: `sonde.table` (`tuning` / `sensitivity`), `sonde.format` (`1`), `sonde.categories`
  * (JSON list: the category order), `sonde.layers` (JSON list of `{name, depth, op}` in file order), plus
@@ -75,10 +76,10 @@ export interface SensitivityTableBlock {
   categories: string[];
   /** ∂y_c/∂g_k at g = 1 (kind gain) or ∂y_c/∂b_k at b = 0 (kind offset), averaged over stimuli, [C, K]. */
   sensitivity: Float64Array;
-  /** Finite-difference error estimate, [C, K]. */
+  /** Curvature the step sees within ±h, |D₊ − D₋| / 2 from the one-sided differences (not an error bound), [C, K]. */
   fdError: Float64Array;
   kind: 'gain' | 'offset';
-  /** The step h of the central difference. */
+  /** The step h (Richardson also ran at h/2; the method is in the schema metadata `sonde.method`). */
   step: number;
   /** Stimuli averaged per category, [K]. */
   count: Int32Array;
