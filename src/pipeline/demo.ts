@@ -101,7 +101,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   await tuneSnapshot({ snapshot: base.folder, out: tuningPath });
   files.tuning = tuningPath;
 
-  step(`gain sensitivities at ${sites.length} sites (central differences, downstream part only)`);
+  step(`gain sensitivities at ${sites.length} sites (Richardson-extrapolated central differences, downstream part only)`);
   const sensitivityPath = join(folder, 'sensitivity.arrow');
   await senseSites({ model, from: base.folder, site: sites, stimuliOf: 'each', out: sensitivityPath, threads });
   files.sensitivity = sensitivityPath;
