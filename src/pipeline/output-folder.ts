@@ -64,12 +64,13 @@ export function inspectOutFolder(folder: string): OutFolderState {
   }
   const owned: string[] = [];
   const foreign: string[] = [];
+  const listed = listedLayerFiles(join(folder, 'manifest.json'));
   for (const name of readdirSync(folder).sort()) {
     const stat = lstatSync(join(folder, name));
     if (name === 'layers' && stat.isDirectory()) {
       for (const file of readdirSync(join(folder, name)).sort()) {
         const path = `layers/${file}`;
-        if (LAYER_FILE.test(file) && lstatSync(join(folder, path)).isFile()) {
+        if ((LAYER_FILE.test(file) || listed.has(path)) && lstatSync(join(folder, path)).isFile()) {
           owned.push(path);
         } else foreign.push(path);
       }
@@ -104,12 +105,32 @@ export function inspectOutFolder(folder: string): OutFolderState {
 
 /** Whether a manifest file, valid or not, says Sonde wrote it. */
 function writtenBySonde(path: string): boolean {
+  return sondeManifestJson(path) !== null;
+}
+
+/** The parsed manifest file when it says Sonde wrote it (valid or not), else null. */
+function sondeManifestJson(path: string): { layers?: unknown } | null {
   try {
-    const value = JSON.parse(readFileSync(path, 'utf8')) as { tool?: { name?: unknown } } | null;
-    return typeof value === 'object' && value !== null && value.tool?.name === 'sonde';
+    const value = JSON.parse(readFileSync(path, 'utf8')) as { tool?: { name?: unknown }; layers?: unknown } | null;
+    return typeof value === 'object' && value !== null && value.tool?.name === 'sonde' ? value : null;
   } catch {
-    return false;
+    return null;
   }
+}
+
+/** The layer files (`layers/NAME` and their `.partial`) a Sonde manifest file lists; empty for any other file. */
+function listedLayerFiles(manifestPath: string): Set<string> {
+  const listed = new Set<string>();
+  const layers = sondeManifestJson(manifestPath)?.layers;
+  if (!Array.isArray(layers)) return listed;
+  for (const layer of layers as Array<{ file?: unknown; from?: unknown } | null>) {
+    const file = layer?.file;
+    // only plain names inside layers/ (a file "from" the baseline lives in the baseline's folder)
+    if (typeof file !== 'string' || layer?.from === 'baseline' || !/^layers\/[^/\\]+$/.test(file) || file.includes('..')) continue;
+    listed.add(file);
+    listed.add(`${file}.partial`);
+  }
+  return listed;
 }
 
 /**

@@ -130,6 +130,22 @@ describe('output folders (record, merge, sweep, demo)', () => {
     expect((await runSonde(record(folder, ['--force']))).code).toBe(0);
   });
 
+  it('record --force deletes a layer file its manifest lists even under a name of another pattern', async () => {
+    const folder = join(dir, 'renamed');
+    expect((await runSonde(record(folder))).code).toBe(0);
+    const manifestPath = join(folder, 'manifest.json');
+    const manifest = JSON.parse(readFileSync(manifestPath, 'utf8')) as { layers: Array<{ file: string }> };
+    const old = manifest.layers[0]!.file;
+    writeFileSync(join(folder, 'layers', 'custom name.arrow'), readFileSync(join(folder, old)));
+    rmSync(join(folder, old));
+    manifest.layers[0]!.file = 'layers/custom name.arrow';
+    writeFileSync(manifestPath, JSON.stringify(manifest));
+    const forced = await runSonde(record(folder, ['--force']));
+    expect(forced.code, forced.stderr).toBe(0);
+    expect(existsSync(join(folder, 'layers', 'custom name.arrow'))).toBe(false);
+    expect(existsSync(join(folder, old))).toBe(true);
+  });
+
   it('merge --out a folder that is not a snapshot is refused with --force, and nothing is written into it', async () => {
     const shards = [1, 2].map((k) => join(dir, `shard-${k}`));
     for (const [i, shard] of shards.entries()) expect((await runSonde(record(shard, ['--shard', `${i + 1}/2`]))).code).toBe(0);
