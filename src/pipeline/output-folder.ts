@@ -352,6 +352,8 @@ export interface CommandInput {
   option: string;
   /** Its path; undefined or null when the option was not given. */
   path: string | undefined | null;
+  /** The input must be a file: a folder there is left for its reader to report. */
+  file?: boolean;
 }
 
 /**
@@ -368,6 +370,7 @@ export function assertApartFromInputs(out: string, outOption: string, inputs: re
   for (const input of inputs) {
     if (input.path === undefined || input.path === null || input.path === '' || !existsSync(input.path)) continue;
     const source = realpathSync(input.path);
+    if (input.file && statSync(source).isDirectory()) continue;
     if (source === target) {
       throw new UsageError('E_OUT_IS_INPUT', `${outOption} ${out} is ${input.option} ${input.path} itself (both are ${source}); writing it would destroy the input`, { hint: `choose another ${outOption}` });
     }

@@ -117,6 +117,8 @@ export function parseMatchTarget(text: string): { measure: 'dPrime' | 'accuracyP
  */
 export async function sweepModulations(options: SweepOptions): Promise<SweepResult> {
   const started = performance.now();
+  // before anything is read or written: the output must be none of the inputs (nor contain or lie inside one)
+  assertApartFromInputs(options.out, '--out', [{ option: 'MODEL', path: typeof options.model === 'string' ? options.model : options.model.path, file: true }, { option: '--from', path: typeof options.from === 'string' ? options.from : options.from.folder }, { option: '--tuning', path: options.tuning, file: true }, { option: '--sensitivity', path: options.sensitivity, file: true }]);
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
   const baseline = typeof options.from === 'string' ? openSnapshot(options.from) : options.from;
   assertSameModel(baseline, model, baseline.folder);
@@ -134,7 +136,6 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   const seeds = options.controlSeeds ?? 3;
   if (!Number.isInteger(seeds) || seeds < 1) throw new UsageError('E_SEEDS', `--control-seeds must be a positive integer, got ${seeds}`);
   const match = options.match ? parseMatchTarget(options.match) : null;
-  assertApartFromInputs(options.out, '--out', [{ option: 'MODEL', path: typeof options.model === 'string' ? options.model : null }, { option: '--from', path: baseline.folder }, { option: '--tuning', path: options.tuning }, { option: '--sensitivity', path: options.sensitivity }]);
   prepareSweepFolder(options.out);
   const progressPath = join(options.out, 'cells.jsonl');
   const done = new Map<string, SweepCell>();

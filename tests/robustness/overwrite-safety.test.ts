@@ -323,6 +323,18 @@ describe('outputs that are inputs', () => {
     expect(treeDigest(base)).toEqual(before);
   });
 
+  it('sweep --from X --out X is refused before any cell is written', async () => {
+    const before = treeDigest(base);
+    await expectRefusal(['sweep', model, '--from', base, '--sites', 'relu1', '--schemes', 'uniform', '--strengths', '0,0.5', '--task', 'detect:all', '--out', base, '--threads', '1'], 2, /--out .*base is --from .*base itself/);
+    expect(treeDigest(base)).toEqual(before);
+  });
+
+  it('diff --csv a file inside BASE --force is refused before the diff runs', async () => {
+    const before = treeDigest(base);
+    await expectRefusal(['diff', base, mod, '--bootstrap', '0', '--csv', join(base, 'manifest.json'), '--force'], 2, /--csv .*manifest\.json lies inside BASE .*base/);
+    expect(treeDigest(base)).toEqual(before);
+  });
+
   it('report INPUT --out INPUT --force is refused; the input survives', async () => {
     const before = readFileSync(diffJson);
     await expectRefusal(['report', diffJson, '--out', diffJson, '--force'], 2, /--out .*diff\.json is input 1 .*diff\.json itself/);
