@@ -61,6 +61,7 @@ export function loadModel(path: string): LoadedModel {
   if (!graph || !graph.node || graph.node.length === 0) {
     throw new UsageError('E_MODEL_FORMAT', `model ${path} is not a valid ONNX file (no graph or no nodes)`);
   }
+  assertUtf8Names(graph, path);
   const opsetEntry = (proto.opsetImport ?? []).find((o) => !o.domain || o.domain === 'ai.onnx');
   if (!opsetEntry) throw new UsageError('E_MODEL_FORMAT', `model ${path} declares no opset for the default ONNX domain`);
   inlineExternalData(proto, dirname(absolute), path);
@@ -103,6 +104,29 @@ export function loadModel(path: string): LoadedModel {
     opset: toNumber(opsetEntry.version),
     parameterCount,
   };
+}
+
+/**
+ * Refuses tensor names that were not valid UTF-8 in the file. The protobuf decoder replaces invalid
+ * bytes with U+FFFD, so such a name no longer matches the model's bytes, two names can collapse into one,
+ * and nobody can type it in --layers or a spec; a name that contains U+FFFD itself is refused alike (it
+ * cannot be told apart, and is as untypable).
+ * @throws UsageError naming the tensor (as decoded), the node that uses it and the fix.
+ */
+function assertUtf8Names(graph: NonNullable<ModelProto['graph']>, path: string): void {
+  const check = (name: string | null | undefined, where: string) => {
+    if (name && name.includes('\uFFFD')) {
+      throw new UsageError('E_MODEL_NAME', `model ${path}: tensor name ${JSON.stringify(name)} (${where}) is not valid UTF-8; Sonde stores names as text and selects layers by them`, {
+        hint: 'rename the tensor, e.g. with the onnx Python package (node.output / node.input / graph.initializer names)',
+      });
+    }
+  };
+  for (const node of graph.node ?? []) {
+    for (const name of node.output ?? []) check(name, `output of node "${node.name || node.opType}"`);
+    for (const name of node.input ?? []) check(name, `input of node "${node.name || node.opType}"`);
+  }
+  for (const t of graph.initializer ?? []) check(t.name, 'an initializer');
+  for (const v of [...(graph.input ?? []), ...(graph.output ?? [])]) check(v.name, 'a graph input or output');
 }
 
 /** Reads each initializer whose data lives in an external file and stores it inline (raw_data). */

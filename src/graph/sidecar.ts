@@ -1,5 +1,6 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { UsageError } from '../errors.js';
+import { parseJson } from '../json.js';
 
 /** Optional JSON beside a model (`net.onnx` → `net.json`) that says how to feed and read it. */
 export interface ModelSidecar {
@@ -25,7 +26,7 @@ export function readSidecar(modelPath: string): ModelSidecar | null {
   if (path === modelPath || !existsSync(path)) return null;
   let value: unknown;
   try {
-    value = JSON.parse(readFileSync(path, 'utf8'));
+    value = parseJson(readFileSync(path, 'utf8'));
   } catch (error) {
     throw new UsageError('E_SIDECAR', `model sidecar ${path} is not valid JSON (${(error as Error).message})`);
   }

@@ -34,6 +34,7 @@ import {
   type ModulationSpec,
   type SpatialWindow,
 } from './types.js';
+import { parseJson } from '../json.js';
 
 /** Options of `parseModulationSpec`. */
 export interface ParseSpecOptions {
@@ -159,7 +160,7 @@ export function specToObject(spec: ModulationSpec): Record<string, unknown> {
 function parseText(text: string, source: string): unknown {
   if (source.toLowerCase().endsWith('.json')) {
     try {
-      return JSON.parse(text.replace(/^\uFEFF/, '')) as unknown;
+      return parseJson(text.replace(/^\uFEFF/, ''));
     } catch (error) {
       throw new UsageError('E_SPEC', `${source}: not valid JSON (${firstLine(error)})`);
     }

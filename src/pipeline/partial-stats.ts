@@ -30,6 +30,7 @@ import { shardRange, type ShardSpec } from './shard.js';
 import { assembleTuneResult, planTuning, type TuneOptions, type TuneResult } from './tune.js';
 import { DEFAULT_WARN_RATIO, errorCheck, senseSites, sensitivityFromSums, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './sense.js';
 import { writeSensitivityTable } from '../snapshot/tables.js';
+import { parseJson } from '../json.js';
 
 /** Tag of a partial-statistics file. */
 export const PARTIAL_KIND = 'sonde.partial';
@@ -327,7 +328,7 @@ export function readPartial(path: string): PartialFile {
   }
   let value: unknown;
   try {
-    value = JSON.parse(text);
+    value = parseJson(text);
   } catch (error) {
     throw new UsageError('E_PARTIAL', `${path} is not valid JSON (${(error as Error).message})`, { hint: 'pass files written by diff/tune --partial' });
   }

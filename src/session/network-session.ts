@@ -55,6 +55,7 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
     executionMode: 'sequential',
     intraOpNumThreads: threads,
     interOpNumThreads: 1,
+    logSeverityLevel: runtimeLogSeverity(),
   };
   const label = options.label ?? 'the model';
   if (options.inWorker === false) {
@@ -67,6 +68,24 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
     return new OrtNetworkSession(session, label);
   }
   return WorkerNetworkSession.create(bytes, sessionOptions, label);
+}
+
+/** The runtime's log severities by name (onnxruntime: 0 verbose, 1 info, 2 warning, 3 error, 4 fatal). */
+const RUNTIME_LOG_LEVELS = { verbose: 0, info: 1, warning: 2, error: 3 } as const;
+
+/**
+ * Severity below which the runtime's own log lines are dropped: `error` (3) unless the environment
+ * variable SONDE_RUNTIME_LOG names another level. The runtime writes its log natively to stderr in its
+ * own multi-line, coloured format (e.g. "Removing initializer …" for the unused weights of an extracted
+ * part); Sonde reports everything a user must act on itself, in its one-line style, and runtime errors
+ * arrive as exceptions that become such a line — so by default only the runtime's errors may print.
+ * @throws UsageError for an unknown SONDE_RUNTIME_LOG value.
+ */
+export function runtimeLogSeverity(): 0 | 1 | 2 | 3 {
+  const name = process.env['SONDE_RUNTIME_LOG'];
+  if (name === undefined || name === '') return RUNTIME_LOG_LEVELS.error;
+  if (!Object.hasOwn(RUNTIME_LOG_LEVELS, name)) throw new UsageError('E_RUNTIME_LOG', `SONDE_RUNTIME_LOG=${JSON.stringify(name)} is not a runtime log level`, { hint: `use ${Object.keys(RUNTIME_LOG_LEVELS).join(', ')}` });
+  return RUNTIME_LOG_LEVELS[name as keyof typeof RUNTIME_LOG_LEVELS];
 }
 
 function rejected(label: string, error: unknown): RuntimeFailure {
@@ -246,9 +265,10 @@ export async function probeOutputs(
   feeds: Record<string, FloatTensor>,
   label: string,
 ): Promise<Map<string, { type: string; dims: number[] }>> {
+  const logSeverityLevel = runtimeLogSeverity();
   let session: ort.InferenceSession;
   try {
-    session = await ort.InferenceSession.create(bytes, { executionProviders: ['cpu'], graphOptimizationLevel: 'basic', intraOpNumThreads: 1 });
+    session = await ort.InferenceSession.create(bytes, { executionProviders: ['cpu'], graphOptimizationLevel: 'basic', intraOpNumThreads: 1, logSeverityLevel });
   } catch (error) {
     throw new RuntimeFailure('E_RUNTIME_LOAD', `the ONNX runtime rejected ${label}: ${firstLine(error)}`, {
       hint: 'check that the model is valid (onnx.checker) and uses operators the CPU runtime supports',

@@ -20,6 +20,7 @@ import { readLockOwner, isStale, LOCK_FILE } from './lock.js';
 import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
 import { assertInside, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest } from './stimuli-file.js';
+import { parseJson } from '../json.js';
 
 /** One thing that is wrong. */
 export interface CheckProblem {
@@ -69,7 +70,7 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
   }
   let manifest: SnapshotManifest;
   try {
-    manifest = validateManifest(JSON.parse(readFileSync(manifestPath, 'utf8')), folder);
+    manifest = validateManifest(parseJson(readFileSync(manifestPath, 'utf8')), folder);
   } catch (error) {
     problem('manifest.json', error instanceof SyntaxError ? `is not valid JSON (${error.message})` : firstLine(error));
     return report(false);
@@ -163,7 +164,7 @@ function checkBaseline(manifest: SnapshotManifest, baselineRoot: string, problem
   }
   let base: SnapshotManifest;
   try {
-    base = validateManifest(JSON.parse(bytes.toString('utf8')), baselineRoot);
+    base = validateManifest(parseJson(bytes.toString('utf8')), baselineRoot);
   } catch (error) {
     problem('baseline', firstLine(error));
     return;

@@ -4,16 +4,23 @@
  * a process that no longer exists on this host (`process.kill(pid, 0)` fails with ESRCH) is stale and is
  * taken over. Locks from another host are never judged stale: their process cannot be probed from here.
  *
+ * An empty or malformed lock file is what a writer leaves between creating the file and writing its
+ * owner into it, so it counts as held until it is `LOCK_GRACE_MS` old (by its modification time); only
+ * an older one (a crash while writing it) is taken over.
+ *
  * Known limit: taking over a stale lock is remove-then-create; two processes that both find the same
  * stale lock at the same instant could both proceed. Plain `open(O_EXCL)` keeps two live writers apart.
  */
-import { closeSync, fsyncSync, openSync, readFileSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, fsyncSync, openSync, readFileSync, rmSync, statSync, writeSync } from 'node:fs';
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { RuntimeFailure } from '../errors.js';
 
 /** Name of the lock file inside a snapshot folder. */
 export const LOCK_FILE = '.lock';
+
+/** Age (ms) below which an empty or malformed lock file counts as being written by a live process. */
+export const LOCK_GRACE_MS = 10_000;
 
 /** What the lock file holds. */
 export interface LockOwner {
@@ -49,7 +56,9 @@ export interface AcquireLockOptions {
  * @returns the held lock.
  * @throws RuntimeFailure naming the owner's pid and host when another live process holds the lock (or one
  *   on another host), or when the lock file cannot be created.
- * Edge cases: an unreadable or malformed lock file counts as stale (a crash while writing it leaves one);
+ * Edge cases: an unreadable, empty or malformed lock file counts as held while it is younger than
+ *   `LOCK_GRACE_MS` (its writer may be between creating and filling it), and as stale after that (a crash
+ *   while writing it leaves one);
  * a lock naming this very process (re-entry) is refused like any other live owner.
  */
 export function acquireLock(folder: string, options: AcquireLockOptions = {}): FolderLock {
@@ -65,6 +74,19 @@ export function acquireLock(folder: string, options: AcquireLockOptions = {}): F
       const code = (error as NodeJS.ErrnoException).code;
       if (code !== 'EEXIST') throw new RuntimeFailure('E_LOCK', `cannot create the lock file ${path}: ${(error as Error).message}`);
       const current = readLockOwner(path);
+      if (current === null) {
+        let ageMs: number;
+        try {
+          ageMs = Date.now() - statSync(path).mtimeMs;
+        } catch {
+          continue; // removed in the meantime: try to create it again
+        }
+        if (ageMs < LOCK_GRACE_MS) {
+          throw new RuntimeFailure('E_LOCKED', `${label} has a lock file that is empty or unreadable and ${Math.max(0, Math.round(ageMs / 1000))} s old: another process may be taking the lock right now`, {
+            hint: `try again in a few seconds; if no process is writing ${label}, remove ${path}`,
+          });
+        }
+      }
       if (current && !isStale(current)) {
         throw new RuntimeFailure('E_LOCKED', `${label} is being written by pid ${current.pid} on ${current.host} (since ${current.started})`, {
           hint: current.host === owner.host ? 'wait for it to finish, or stop that process' : `if that process is gone, remove ${path}`,

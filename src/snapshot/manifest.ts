@@ -6,6 +6,7 @@ import { existsSync, readFileSync } from 'node:fs';
 import { isAbsolute, join, relative, resolve, sep } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { replaceFile } from './atomic-file.js';
+import { parseJson } from '../json.js';
 
 /**
  * Version of the snapshot layout written by this build.
@@ -100,7 +101,7 @@ export function readManifest(folder: string): SnapshotManifest {
   if (!existsSync(path)) throw new UsageError('E_SNAPSHOT_MISSING', `${folder} is not a snapshot (no manifest.json)`);
   let parsed: unknown;
   try {
-    parsed = JSON.parse(readFileSync(path, 'utf8'));
+    parsed = parseJson(readFileSync(path, 'utf8'));
   } catch (error) {
     throw new UsageError('E_MANIFEST', `${path} is not valid JSON (${(error as Error).message})`);
   }

@@ -56,11 +56,42 @@ export function openStimulusSource(path: string, options: StimulusSourceOptions)
   throw new UsageError('E_STIMULI_KIND', `--stimuli ${path} is neither a folder, a .csv manifest nor a .npy array`);
 }
 
+/**
+ * Refuses a folder entry whose name is not valid UTF-8: Node decodes it with U+FFFD replacements, so
+ * the decoded name names no file (reading it fails) and would be stored as a wrong stimulus id.
+ * @throws UsageError naming the folder, the name's bytes and the fix.
+ */
+function assertUtf8Entries(folder: string, option: string): void {
+  for (const raw of readdirSync(folder, { encoding: 'buffer' })) {
+    const text = raw.toString('utf8');
+    if (!Buffer.from(text, 'utf8').equals(raw)) {
+      throw new UsageError('E_STIMULI_NAME', `${option}: an entry of ${folder} has a name that is not valid UTF-8 (${JSON.stringify(text)}, bytes ${raw.toString('hex')})`, { hint: 'rename it (e.g. with convmv, or by hand)' });
+    }
+  }
+}
+
+/**
+ * Reads a text file that must be UTF-8 (a byte-order mark is dropped).
+ * @throws UsageError naming the file and the byte offset of the first invalid sequence.
+ */
+export function readUtf8File(path: string, what: string): string {
+  const bytes = readFileSync(path);
+  try {
+    return new TextDecoder('utf-8', { fatal: true, ignoreBOM: false }).decode(bytes);
+  } catch {
+    const text = bytes.toString('utf8');
+    const at = Buffer.from(text.slice(0, text.indexOf('\uFFFD')), 'utf8').length;
+    throw new UsageError('E_STIMULI_CSV', `${what} is not valid UTF-8 (first invalid byte near offset ${at})`, { hint: 'save it as UTF-8' });
+  }
+}
+
 function openFolder(path: string, absolute: string, options: StimulusSourceOptions): StimulusSource {
+  assertUtf8Entries(absolute, `--stimuli ${path}`);
   const categories = readdirSync(absolute, { withFileTypes: true }).filter((e) => e.isDirectory()).map((e) => e.name).sort();
   const files: string[] = [];
   const labels: string[][] = [];
   for (const category of categories) {
+    assertUtf8Entries(join(absolute, category), `--stimuli ${path}`);
     const entries = readdirSync(join(absolute, category), { withFileTypes: true })
       .filter((e) => e.isFile() && IMAGE_EXTENSIONS.has(extname(e.name).toLowerCase()))
       .map((e) => e.name)
@@ -81,7 +112,7 @@ function openFolder(path: string, absolute: string, options: StimulusSourceOptio
 }
 
 function openCsv(path: string, absolute: string, options: StimulusSourceOptions): StimulusSource {
-  const rows = parseCsv(readFileSync(absolute, 'utf8'), path);
+  const rows = parseCsv(readUtf8File(absolute, path), path);
   const header = rows.shift();
   if (!header || header[0] !== 'path' || header[1] !== 'label') {
     throw new UsageError('E_STIMULI_CSV', `${path}: the first line must be the header "path,label", got "${(header ?? []).join(',')}"`);
@@ -110,7 +141,7 @@ function openNpy(path: string, absolute: string, options: StimulusSourceOptions)
   if (h !== height || w !== width) throw new UsageError('E_STIMULI_SHAPE', `${path} holds ${h}x${w} arrays but the model input is ${height}x${width}`, { hint: 'resize the array, or pass --input-shape for a model with free spatial axes' });
   let labels: string[][] = new Array(n).fill(null).map(() => []);
   if (options.labelsFile) {
-    const rows = parseCsv(readFileSync(resolve(options.labelsFile), 'utf8'), options.labelsFile);
+    const rows = parseCsv(readUtf8File(resolve(options.labelsFile), `--labels ${options.labelsFile}`), options.labelsFile);
     const header = rows.shift();
     if (!header || header[0] !== 'label' || header.length !== 1) {
       throw new UsageError('E_STIMULI_CSV', `--labels ${options.labelsFile}: the first line must be the header "label"`);

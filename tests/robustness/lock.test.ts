@@ -3,11 +3,11 @@
  * lock whose process is gone (process.kill(pid, 0) → ESRCH, POSIX kill(2)) is stale and taken over.
  */
 import { spawn, spawnSync } from 'node:child_process';
-import { existsSync, mkdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readFileSync, utimesSync, writeFileSync } from 'node:fs';
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { acquireLock, isStale } from '../../src/snapshot/lock.js';
+import { acquireLock, isStale, LOCK_GRACE_MS } from '../../src/snapshot/lock.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 import { ensureBuilt, ROOT } from './cli-process.js';
 
@@ -52,12 +52,29 @@ describe('acquireLock', () => {
     lock.release();
   });
 
-  it('acquireLock(folder) never judges another host\'s lock stale, and treats a torn lock file as stale', () => {
+  it('acquireLock(folder) never judges another host\'s lock stale', () => {
     const folder = tempFolder();
     writeFileSync(join(folder, '.lock'), JSON.stringify({ pid: deadPid(), host: `${hostname()}-elsewhere`, started: 'x' }));
     expect(() => acquireLock(folder)).toThrow(/being written by pid \d+ on .*-elsewhere/);
-    writeFileSync(join(folder, '.lock'), '{"pid": 12');
-    acquireLock(folder).release();
+  });
+
+  it('acquireLock(folder) holds an empty or torn lock file as taken while it is young, and takes it over once older than the grace period', () => {
+    for (const content of ['', '{"pid": 12']) {
+      const folder = tempFolder();
+      const path = join(folder, '.lock');
+      // a writer between creating the file (O_EXCL) and writing its owner leaves exactly this
+      writeFileSync(path, content);
+      expect(() => acquireLock(folder)).toThrow(/lock file that is empty or unreadable and \d+ s old: another process may be taking the lock/);
+      expect(readFileSync(path, 'utf8')).toBe(content); // not removed
+      // the same file, last written longer ago than the grace period (its mtime set back, no waiting)
+      const past = new Date(Date.now() - LOCK_GRACE_MS - 5000);
+      utimesSync(path, past, past);
+      const notices: string[] = [];
+      const lock = acquireLock(folder, { onNotice: (t) => notices.push(t) });
+      expect(lock.owner.pid).toBe(process.pid);
+      expect(notices[0]).toMatch(/took over the stale lock .*unreadable lock file/);
+      lock.release();
+    }
   });
 });
 

@@ -18,6 +18,7 @@ import type { TableComparison } from '../../pipeline/compare-tables.js';
 import type { DiffReport, SchemeComparison } from '../../pipeline/diff-snapshots.js';
 import type { SweepResult } from '../../pipeline/sweep-types.js';
 import type { LayerTuningSummary } from '../../pipeline/tune.js';
+import { parseJson } from '../../json.js';
 
 /** Tuning summaries as `tune --json` prints them (only `layers` is required). */
 export interface TuningSummaries {
@@ -130,7 +131,7 @@ export function readReportInput(path: string): ReportInput[] {
   }
   let value: unknown;
   try {
-    value = JSON.parse(text);
+    value = parseJson(text);
   } catch (error) {
     throw new UsageError('E_REPORT_INPUT', `${path} is not JSON (${(error as Error).message.split('\n')[0]})`, { hint: 'pass the output of --json, not the terminal table' });
   }
