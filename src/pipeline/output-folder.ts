@@ -328,7 +328,9 @@ export interface OpenOutputOptions {
 export function openOutputFolder(folder: string, options: OpenOutputOptions): OpenedOutput {
   if (existsSync(folder) && !statSync(folder).isDirectory()) throw new UsageError('E_OUT', `--out ${folder} exists and is not a folder`);
   // refuse a folder that is not Sonde's before the lock file is written into it
-  if (!options.resume || !existsSync(join(folder, 'manifest.json'))) assertOutFolderUsable(folder, options.force);
+  // resuming a Sonde recording: its manifest must validate; anything else is judged like a new output
+  if (options.resume && existsSync(join(folder, 'manifest.json')) && writtenBySonde(join(folder, 'manifest.json'))) readManifest(folder);
+  else assertOutFolderUsable(folder, options.force);
   mkdirSync(folder, { recursive: true });
   const lock = acquireLock(folder, { label: `snapshot folder ${folder}`, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
   try {

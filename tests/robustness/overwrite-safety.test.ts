@@ -96,6 +96,13 @@ describe('output folders (record, merge, sweep, demo)', () => {
     }
   });
 
+  it('record --resume --out a folder with a foreign manifest.json is refused without writing a lock file into it', async () => {
+    const folder = userFolder('webapp-resume', { 'manifest.json': '{"name": "my app"}\n' });
+    const before = treeDigest(folder);
+    await expectRefusal(record(folder, ['--resume']), 2, /--out .*webapp-resume is not empty and holds no snapshot \(a manifest\.json that Sonde did not write/);
+    expect(treeDigest(folder)).toEqual(before);
+  });
+
   it('record --out a complete snapshot whose manifest fails validation is refused without --force, and replaced with it', async () => {
     const folder = join(dir, 'damaged');
     expect((await runSonde(record(folder))).code).toBe(0);
