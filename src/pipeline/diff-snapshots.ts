@@ -1,4 +1,4 @@
-import { UsageError } from '../errors.js';
+import { RuntimeFailure, UsageError } from '../errors.js';
 import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
 import { depthTrend, fitDepthProfile, FLAT_PROFILE_CHANGE, type DepthProfile } from '../analysis/depth-profile.js';
 import { LayerDiffAccumulator } from '../analysis/layer-diff.js';
@@ -588,6 +588,19 @@ export function nonFiniteVerdict(report: Pick<DiffReport, 'layers'>): string | n
   if (tainted.length === 0) return null;
   const first = tainted[0]!;
   return `no verdict: the data are non-finite — NaN/±Infinity values in ${tainted.length} of ${report.layers.length} layers, from ${first.name} on (${first.nonFinite.base} baseline and ${first.nonFinite.mod} modulated values there); the metrics they touch are NaN or infinite`;
+}
+
+/**
+ * The error a command raises after printing a report on non-finite data, so that no script takes it for
+ * an answer (exit 1), or null when every layer is finite.
+ * @param what names the comparison, e.g. "diff BASE MOD".
+ */
+export function nonFiniteFailure(report: Pick<DiffReport, 'layers'>, what: string): RuntimeFailure | null {
+  const tainted = nonFiniteLayers(report);
+  if (tainted.length === 0) return null;
+  return new RuntimeFailure('E_NON_FINITE', `${what}: ${tainted.length} of ${report.layers.length} layers hold NaN/±Infinity values (first: ${tainted[0]!.name}); the report has no verdict`, {
+    hint: 'the nonfinite_base/nonfinite_mod columns (--csv) and manifest.json layers[].nonFinite show where they start; check the stimuli and the modulation',
+  });
 }
 
 /** One line saying how far the change propagates and what it does to the task (or, on non-finite data, that there is no verdict). */

@@ -69,6 +69,13 @@ describe('non-finite data through record and diff', () => {
     expect(diff.stdout).not.toMatch(/noise floor|halves every|doubles every|keeps its size/);
     expect(diff.stderr.trim().split('\n')).toHaveLength(1);
     expect(diff.stderr).toMatch(/layers hold NaN\/±Infinity values \(first: relu0\); the report has no verdict/);
+    // the same comparison in two shards of partial statistics, merged: the same refusal
+    const parts = [1, 2].map((k) => join(dir, `nan-part-${k}.json`));
+    for (const [k, part] of parts.entries()) expect((await runSonde(['diff', base, mod, '--bootstrap', '0', '--shard', `${k + 1}/2`, '--partial', part])).code).toBe(0);
+    const merged = await runSonde(['merge', ...parts]);
+    expect(merged.code).toBe(1);
+    expect(merged.stdout).toMatch(/verdict: no verdict: the data are non-finite/);
+    expect(merged.stderr).toMatch(/merge of 2 diff partials: \d+ of \d+ layers hold NaN/);
   });
 
   it('sonde record with a modulation that overflows float32 counts the infinities below the site, and diff refuses a verdict', async () => {

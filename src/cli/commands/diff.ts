@@ -1,6 +1,6 @@
 import type { Command } from 'commander';
-import { RuntimeFailure, UsageError } from '../../errors.js';
-import { diffSnapshots, nonFiniteLayers, type DiffOptions, type DiffReport, type SchemeComparison } from '../../pipeline/diff-snapshots.js';
+import { UsageError } from '../../errors.js';
+import { diffSnapshots, nonFiniteFailure, type DiffOptions, type DiffReport, type SchemeComparison } from '../../pipeline/diff-snapshots.js';
 import { diffToCsv, renderComparison, renderDiffReport, reportToJson } from '../../report/diff-table.js';
 import { finiteNumber, nonNegativeInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
@@ -100,12 +100,8 @@ export function registerDiff(program: Command): void {
       else io.stdout(single ? renderDiffReport(single) : renderComparison(result as SchemeComparison, [modPath, opts.vs!]));
       // non-finite data: the report is printed (it shows where), but the run fails so no script takes it as an answer
       for (const [report, path] of single ? [[single, modPath] as const] : [[(result as SchemeComparison).a, modPath] as const, [(result as SchemeComparison).b, opts.vs!] as const]) {
-        const tainted = nonFiniteLayers(report);
-        if (tainted.length > 0) {
-          throw new RuntimeFailure('E_NON_FINITE', `diff ${basePath} ${path}: ${tainted.length} of ${report.layers.length} layers hold NaN/±Infinity values (first: ${tainted[0]!.name}); the report has no verdict`, {
-            hint: 'the nonfinite_base/nonfinite_mod columns (--csv) and manifest.json layers[].nonFinite show where they start; check the stimuli and the modulation',
-          });
-        }
+        const failure = nonFiniteFailure(report, `diff ${basePath} ${path}`);
+        if (failure) throw failure;
       }
     });
 }

@@ -4,6 +4,7 @@
  * for tuning the table file written to --out and its summary.
  */
 import { UsageError } from '../../errors.js';
+import { nonFiniteFailure } from '../../pipeline/diff-snapshots.js';
 import { mergePartials, readPartial } from '../../pipeline/partial-stats.js';
 import { assertOutFileWritable } from '../../pipeline/output-file.js';
 import { displayPath } from '../../pipeline/record-snapshot.js';
@@ -27,6 +28,8 @@ export async function mergePartialFiles(parts: readonly string[], options: { out
   const merged = await mergePartials(files, parts, options.out !== undefined ? { out: options.out } : {});
   if (merged.of === 'diff') {
     io.stdout(options.json ? reportToJson(merged.report) : renderDiffReport(merged.report));
+    const failure = nonFiniteFailure(merged.report, `merge of ${parts.length} diff partials`);
+    if (failure) throw failure;
     return;
   }
   if (merged.of === 'sense') {
