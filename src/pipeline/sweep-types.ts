@@ -3,6 +3,8 @@
  * report and scripts rely on these field names.
  */
 
+import type { SweepEvaluation } from './held-out.js';
+
 /** Detection read-out of one condition (baseline or modulated). */
 export interface SweepDetection {
   hitRate: number;
@@ -88,6 +90,8 @@ export interface SweepResult {
   /** Statistical comparison of the tuning scheme with the shuffled control across categories. */
   control: { meanTuning: number; meanShuffled: number; difference: number; pValue: number; test: string } | null;
   summary: string;
+  /** Which snapshot the tables' gains came from and which detection was measured on; `heldOut` says whether they differ (see held-out.ts). */
+  evaluation?: SweepEvaluation;
   /** What the cells were computed from and its digest (a rerun into the same --out must match it; see sweep-inputs.ts). */
   inputs?: { digest: string; sonde: string; model: string; baseline: string; tuning: string | null; sensitivity: string | null; task: string; threshold: number | 'best' | 'auto'; depthProfileStimuli: number | null };
 }

@@ -26,6 +26,7 @@ import { loadModulationTables } from './tables.js';
 import { assertSameSweepInputs, isSweepInputsHeader, sweepInputsDigest, sweepInputsHeader, sweepInputsOf, type SweepInputs } from './sweep-inputs.js';
 import { assertApartFromInputs, prepareSweepFolder } from './output-folder.js';
 import { replaceFile } from '../snapshot/atomic-file.js';
+import { describeEvaluation } from './held-out.js';
 
 /** Schemes a sweep knows. */
 export const SWEEP_SCHEMES = ['tuning', 'sensitivity', 'uniform', 'shuffled'] as const;
@@ -237,7 +238,8 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
     }
   }
   const cells = mine.map((c) => done.get(c.key)!);
-  const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match }), inputs: { digest: sweepInputsDigest(inputs), ...inputs } };
+  const evaluation = describeEvaluation(baseline.folder, { tuning: options.tuning, sensitivity: options.sensitivity });
+  const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match }), inputs: { digest: sweepInputsDigest(inputs), ...inputs }, evaluation };
   writeSweepTable(join(options.out, 'cells.arrow'), cells);
   replaceFile(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   return result;

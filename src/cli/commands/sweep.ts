@@ -48,7 +48,7 @@ export function registerSweep(program: Command): void {
     .command('sweep')
     .description('sweep modulation schemes and strengths over sites and cued categories, replaying only the downstream part')
     .argument('<model>', 'ONNX model file (the baseline\'s)')
-    .requiredOption('--from <baseline>', 'baseline snapshot (sites and everything downstream recorded at full resolution)')
+    .requiredOption('--from <baseline>', 'baseline snapshot detection is measured on (sites and everything downstream recorded at full resolution); tables made from another snapshot give a held-out evaluation')
     .requiredOption('--sites <list>', 'comma-separated site tensors, or all-activations')
     .option('--schemes <list>', 'tuning,sensitivity,uniform,shuffled (default: those whose tables are given)')
     .option('--strengths <list>', 'strengths β: list or start:stop:step', '0,0.1,0.2,0.3,0.4,0.5')
@@ -114,6 +114,10 @@ export function registerSweep(program: Command): void {
         const cal = new Table({ head: ['site', 'scheme', 'target', 'strength', 'site activity change', `in ${100 * result.band.low}–${100 * result.band.high} % band`], style: { head: [], border: [], compact: true } });
         for (const c of result.calibration) cal.push([c.site, c.scheme, c.target, c.strength === null ? 'not reached' : fixed(c.strength, 3), c.siteActivityChange === null ? '' : `${fixed(100 * c.siteActivityChange, 1)} %`, c.withinBand === null ? '' : c.withinBand ? 'yes' : 'no']);
         io.stdout(`${cal.toString()}\n`);
+      }
+      if (result.evaluation && result.evaluation.tables.length > 0) {
+        const sources = result.evaluation.tables.map((t) => `${t.table} from ${t.from ?? t.source ?? 'an unrecorded source'}`).join(', ');
+        io.stdout(`evaluation: detection on ${result.evaluation.detectionOn}; ${sources}; ${result.evaluation.heldOut === true ? 'held out (gains and detection from different stimuli)' : result.evaluation.heldOut === false ? 'not held out (gains computed on the stimuli detection is measured on)' : 'held out or not: a table does not record its source'}\n`);
       }
       io.stdout(`${result.summary}\nresults: ${opts.out}/cells.arrow, ${opts.out}/sweep.json\n`);
     });
