@@ -16,10 +16,18 @@ import { join } from 'node:path';
 import { UsageError } from '../errors.js';
 import { TOOL_VERSION } from '../version.js';
 
+/**
+ * Version of what a cell holds: bump it whenever `SweepCell` gains, loses or redefines a measure, so that
+ * cells written before the change are not reused as if they had it.
+ */
+export const SWEEP_CELL_FORMAT = 1;
+
 /** What the cells of one sweep were computed from (the fields of the digest, in this order). */
 export interface SweepInputs {
   /** Sonde version: a newer build may compute or store cells differently. */
   sonde: string;
+  /** `SWEEP_CELL_FORMAT` of the build that wrote the cells. */
+  cellFormat: number;
   /** SHA-256 of the model file's bytes. */
   model: string;
   /** SHA-256 of the baseline's `manifest.json` bytes. */
@@ -39,6 +47,7 @@ export interface SweepInputs {
 /** Human names of the inputs, for messages. */
 const INPUT_NAMES: Record<keyof SweepInputs, string> = {
   sonde: 'the Sonde version',
+  cellFormat: 'the cell format (SWEEP_CELL_FORMAT)',
   model: 'the model',
   baseline: 'the baseline snapshot (--from)',
   tuning: 'the tuning table (--tuning)',
@@ -61,6 +70,7 @@ function fileSha256(path: string): string {
 export function sweepInputsOf(parts: { modelSha256: string; baselineFolder: string; tuning?: string | undefined; sensitivity?: string | undefined; task: string; threshold: number | 'best' | 'auto'; depthProfile: boolean; profileStimuli: number }): SweepInputs {
   return {
     sonde: TOOL_VERSION,
+    cellFormat: SWEEP_CELL_FORMAT,
     model: parts.modelSha256,
     baseline: fileSha256(join(parts.baselineFolder, 'manifest.json')),
     tuning: parts.tuning === undefined ? null : fileSha256(parts.tuning),

@@ -93,5 +93,5 @@ export interface SweepResult {
   /** Which snapshot the tables' gains came from and which detection was measured on; `heldOut` says whether they differ (see held-out.ts). */
   evaluation?: SweepEvaluation;
   /** What the cells were computed from and its digest (a rerun into the same --out must match it; see sweep-inputs.ts). */
-  inputs?: { digest: string; sonde: string; model: string; baseline: string; tuning: string | null; sensitivity: string | null; task: string; threshold: number | 'best' | 'auto'; depthProfileStimuli: number | null };
+  inputs?: { digest: string; sonde: string; cellFormat: number; model: string; baseline: string; tuning: string | null; sensitivity: string | null; task: string; threshold: number | 'best' | 'auto'; depthProfileStimuli: number | null };
 }
