@@ -2,6 +2,7 @@ import { createHash } from 'node:crypto';
 import { readFileSync, statSync } from 'node:fs';
 import { basename, dirname, isAbsolute, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
+import { assertRegularFile, realPathInside } from '../input-file.js';
 import { decodeModel, ONNX_DTYPE_NAMES, toNumber, type ModelProto, type TensorProto } from './onnx.js';
 
 /** One dimension of a declared input: a number, or the `dim_param` name of a dynamic axis. */
@@ -41,6 +42,7 @@ export function loadModel(path: string): LoadedModel {
     if (statSync(absolute).isDirectory()) {
       throw new UsageError('E_MODEL_READ', `model ${path} is a directory, not an .onnx file`);
     }
+    assertRegularFile(absolute, `model ${path}`); // a FIFO or device would block or never end
     bytes = readFileSync(absolute);
   } catch (error) {
     if (error instanceof UsageError) throw error;
@@ -145,8 +147,12 @@ function inlineExternalData(proto: ModelProto, folder: string, modelPath: string
     let data = cache.get(file);
     if (!data) {
       try {
+        // a symbolic link may not lead the weights out of the model's folder, nor to a FIFO or device
+        realPathInside(folder, file, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
+        assertRegularFile(file, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
         data = readFileSync(file);
-      } catch {
+      } catch (error) {
+        if (error instanceof UsageError) throw error;
         throw new UsageError('E_MODEL_EXTERNAL', `model ${modelPath}: external data file "${location}" for "${tensor.name}" cannot be read (looked in ${folder})`, {
           hint: 'keep the external data files next to the model',
         });

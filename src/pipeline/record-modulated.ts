@@ -20,7 +20,7 @@ import { TOOL_VERSION } from '../version.js';
 import { inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder } from './output-folder.js';
 import { countNonFinite, nonFiniteNotice, NonFiniteTally, storageBound } from './non-finite.js';
-import { removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
+import { checkpointSha256, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { chooseInputShape, displayPath, markIncomplete, settleOutputFolder, recordSnapshot, runPipelined, type RecordOptions, type RecordSummary } from './record-snapshot.js';
 
 /** Options of `recordModulated`: a recording plus the modulation and, optionally, its baseline. */
@@ -271,7 +271,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
         const at = checkpoint.files[l.file];
         if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${l.file}`, { hint: 'record again without --resume' });
         if (!existsSync(`${path}.partial`) && existsSync(path)) renameSync(path, `${path}.partial`);
-        const writer = new LayerFileWriter(path, layout, { resumeAt: at });
+        const writer = new LayerFileWriter(path, layout, { resumeAt: at, resumeSha256: checkpointSha256(folder, checkpoint, l.file) });
         if (writer.rows !== doneRows) throw new RuntimeFailure('E_RESUME', `${path}.partial holds ${writer.rows} rows at the checkpoint, expected ${doneRows}`, { hint: 'record again without --resume' });
         writers.push(writer);
       } else writers.push(new LayerFileWriter(path, layout));
@@ -279,8 +279,12 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);
     const takeCheckpoint = (batches: number, stimuli: number) => {
       const files: Record<string, number> = {};
-      writers.forEach((writer, i) => (files[changedEntries[i]!.file] = writer.checkpoint()));
-      writeProgress(folder, { format: 1, batches, stimuli, files, ...(tally ? { nonFinite: tally.toRecord() } : {}) });
+      const sha256: Record<string, string> = {};
+      writers.forEach((writer, i) => {
+        files[changedEntries[i]!.file] = writer.checkpoint();
+        sha256[changedEntries[i]!.file] = writer.checkpointSha256();
+      });
+      writeProgress(folder, { format: 1, batches, stimuli, files, sha256, ...(tally ? { nonFinite: tally.toRecord() } : {}) });
       lastCheckpoint = performance.now();
     };
     if (!checkpoint) takeCheckpoint(0, 0);

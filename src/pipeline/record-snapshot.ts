@@ -1,5 +1,5 @@
 import { createHash } from 'node:crypto';
-import { existsSync, renameSync } from 'node:fs';
+import { existsSync, renameSync, statSync } from 'node:fs';
 import { extname, relative } from 'node:path';
 import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
@@ -17,7 +17,7 @@ import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from './output-folder.js';
 import { countNonFinite, nonFiniteNotice, NonFiniteTally, STIMULI_KEY, storageBound } from './non-finite.js';
-import { DigestLog, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
+import { checkpointSha256, DIGEST_LOG_FILE, DigestLog, removeProgress, writeProgress, type ProgressRecord } from './progress-file.js';
 import { shardRange, type ShardSpec } from './shard.js';
 
 /** Progress of a recording, reported after every batch. */
@@ -241,6 +241,11 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
   let digests: DigestLog | null = null;
   let lastCheckpoint = performance.now();
   try {
+    // resuming: the digest log and the stimuli first (nothing of the layer files is touched before the
+    // stimuli are known to be the same), then each partial file against its checkpoint hash
+    digests = new DigestLog(folder, rowsTotal, doneRows, checkpoint ? checkpointSha256(folder, checkpoint, DIGEST_LOG_FILE) : undefined);
+    const log = digests;
+    if (doneRows > 0) await assertSameStimuli(run, log.digests, doneRows, folder);
     selected.forEach((layer, i) => {
       const file = layerEntries[i]!.file;
       const path = `${folder}/${file}`;
@@ -248,22 +253,26 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       if (checkpoint) {
         const at = checkpoint.files[file];
         if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${file}`, { hint: 'record again without --resume' });
+        const resumeSha256 = checkpointSha256(folder, checkpoint, file);
         // killed after the file was finished and renamed, before the manifest was: take it back
         if (!existsSync(`${path}.partial`) && existsSync(path)) renameSync(path, `${path}.partial`);
-        writers.push(new LayerFileWriter(path, layout, { resumeAt: at }));
+        writers.push(new LayerFileWriter(path, layout, { resumeAt: at, resumeSha256 }));
         if (writers[i]!.rows !== doneRows) throw new RuntimeFailure('E_RESUME', `${path}.partial holds ${writers[i]!.rows} rows at the checkpoint, expected ${doneRows}`, { hint: 'record again without --resume' });
       } else writers.push(new LayerFileWriter(path, layout));
     });
-    digests = new DigestLog(folder, rowsTotal, doneRows);
-    const log = digests;
     // NaN/±Inf counts: per layer as written, per stimulus row as fed (the feeds run one batch ahead)
     const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);
     const fedNonFinite = new Uint32Array(rowsTotal);
     const takeCheckpoint = (batches: number, stimuli: number) => {
       const files: Record<string, number> = {};
-      writers.forEach((writer, i) => (files[layerEntries[i]!.file] = writer.checkpoint()));
+      const sha256: Record<string, string> = {};
+      writers.forEach((writer, i) => {
+        files[layerEntries[i]!.file] = writer.checkpoint();
+        sha256[layerEntries[i]!.file] = writer.checkpointSha256();
+      });
       log.sync();
-      writeProgress(folder, { format: 1, batches, stimuli, files, ...(tally ? { nonFinite: fedTally(tally, fedNonFinite, doneRows, stimuli).toRecord() } : {}) });
+      sha256[DIGEST_LOG_FILE] = log.sha256();
+      writeProgress(folder, { format: 1, batches, stimuli, files, sha256, ...(tally ? { nonFinite: fedTally(tally, fedNonFinite, doneRows, stimuli).toRecord() } : {}) });
       lastCheckpoint = performance.now();
     };
     if (!checkpoint) takeCheckpoint(0, 0);
@@ -478,6 +487,34 @@ function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: numb
   };
 }
 
+/**
+ * Resuming: re-reads the stimuli the checkpoint says are recorded and compares the SHA-256 of each one's
+ * input bytes (as fed to the network, after preprocessing) with the digest logged when it was recorded,
+ * so that a recording is never finished on other stimuli than it began with (ids and labels alone are
+ * compared by `assertSameRecording`; this compares the contents).
+ * @param digests the logged digests (local row order); rows [0, doneRows) are compared.
+ * @throws UsageError `E_RESUME` naming the first stimulus whose bytes differ.
+ */
+async function assertSameStimuli(run: RecordRun, digests: Uint8Array, doneRows: number, folder: string): Promise<void> {
+  const { source, range, batch } = run;
+  const per = run.channels * run.height * run.width;
+  const data = new Float32Array(batch * per);
+  for (let local = 0; local < doneRows; local += batch) {
+    const rows = Math.min(batch, doneRows - local);
+    await source.read(range.start + local, rows, data);
+    for (let r = 0; r < rows; r++) {
+      const digest = createHash('sha256').update(new Uint8Array(data.buffer, r * per * 4, per * 4)).digest();
+      const at = (local + r) * STIMULUS_DIGEST_BYTES;
+      if (!digest.equals(digests.subarray(at, at + STIMULUS_DIGEST_BYTES))) {
+        const index = range.start + local + r;
+        throw new UsageError('E_RESUME', `--resume: stimulus "${source.ids[index]}" (index ${index}) is not what the interrupted run recorded in ${displayPath(folder)}: its input bytes changed (SHA-256 differs)`, {
+          hint: 'resume with the stimuli of the interrupted run, or record again without --resume (into a new folder, or with --force)',
+        });
+      }
+    }
+  }
+}
+
 /** The layer counts of `tally` plus the stimuli's: the checkpoint's own count for rows before `from`, and the per-row counts of rows [from, to). */
 function fedTally(tally: NonFiniteTally, perRow: Uint32Array, from: number, to: number): NonFiniteTally {
   const whole = new NonFiniteTally(tally.toRecord());
@@ -496,7 +533,8 @@ export function chooseInputShape(model: LoadedModel, options: Pick<RecordOptions
   const declared = model.input.dims;
   if (!declared.some((d, i) => i > 0 && typeof d !== 'number')) return undefined;
   if (options.size && declared.length === 4 && typeof declared[1] === 'number') return [1, declared[1], options.size[0], options.size[1]];
-  if (declared.length === 4 && extname(options.stimuli).toLowerCase() === '.npy' && existsSync(options.stimuli)) {
+  // only a regular file: a FIFO would block the header read (openStimulusSource then refuses it)
+  if (declared.length === 4 && extname(options.stimuli).toLowerCase() === '.npy' && existsSync(options.stimuli) && statSync(options.stimuli).isFile()) {
     const shape = readNpyHeader(options.stimuli).shape;
     if (shape.length === 4 && shape.slice(1).every((d, i) => d > 0 && (typeof declared[i + 1] !== 'number' || declared[i + 1] === d))) {
       return [typeof declared[0] === 'number' ? declared[0] : 1, ...shape.slice(1)];

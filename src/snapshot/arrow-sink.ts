@@ -21,11 +21,12 @@ export class HashingFileSink extends AsyncByteQueue {
   /**
    * @param finalPath the name the file gets on `commit`; it is written as `finalPath.partial`.
    * @param options `resumeAt`: keep the first `resumeAt` bytes of an existing `.partial` file (truncating
-   *   anything after them) and append after them.
-   * @throws RuntimeFailure when the file cannot be opened, or (resuming) is missing or shorter than
-   *   `resumeAt`.
+   *   anything after them) and append after them; `resumeSha256`: the SHA-256 those bytes had at the
+   *   checkpoint (from `prefixSha256`), checked before anything is truncated.
+   * @throws RuntimeFailure when the file cannot be opened, or (resuming) is missing, shorter than
+   *   `resumeAt`, or its first `resumeAt` bytes no longer have the checkpoint's SHA-256.
    */
-  constructor(readonly finalPath: string, options: { resumeAt?: number } = {}) {
+  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string } = {}) {
     super();
     this.temporaryPath = `${finalPath}.partial`;
     const resumeAt = options.resumeAt;
@@ -50,7 +51,6 @@ export class HashingFileSink extends AsyncByteQueue {
       throw new RuntimeFailure('E_RESUME', `cannot resume ${this.temporaryPath}: it holds ${size} bytes but the checkpoint says ${resumeAt}`, { hint: 'record again without --resume' });
     }
     try {
-      ftruncateSync(this.fd, resumeAt);
       const chunk = new Uint8Array(Math.min(resumeAt, 1 << 22) || 1);
       let at = 0;
       while (at < resumeAt) {
@@ -63,7 +63,24 @@ export class HashingFileSink extends AsyncByteQueue {
       closeSync(this.fd);
       throw writeFailure(this.temporaryPath, error);
     }
+    if (options.resumeSha256 !== undefined && this.prefixSha256() !== options.resumeSha256) {
+      closeSync(this.fd);
+      throw new RuntimeFailure('E_RESUME', `cannot resume ${this.temporaryPath}: its first ${resumeAt} bytes changed since the checkpoint (SHA-256 differs from progress.json)`, {
+        hint: 'the partial file was damaged or replaced; record again without --resume (into a new folder, or with --force)',
+      });
+    }
+    try {
+      ftruncateSync(this.fd, resumeAt);
+    } catch (error) {
+      closeSync(this.fd);
+      throw writeFailure(this.temporaryPath, error);
+    }
     this.bytesWritten = resumeAt;
+  }
+
+  /** SHA-256 (hex) of the bytes written so far (the file stays open; hashing continues). */
+  prefixSha256(): string {
+    return this.hash.copy().digest('hex');
   }
 
   /** Bytes in the file so far. */

@@ -21,6 +21,7 @@ import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
 import { assertInside, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest } from './stimuli-file.js';
 import { parseJson } from '../json.js';
+import { describeNonRegular, realPathInside } from '../input-file.js';
 
 /** One thing that is wrong. */
 export interface CheckProblem {
@@ -68,6 +69,11 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
     problem('manifest.json', 'is missing: this folder is not a snapshot');
     return report(false);
   }
+  const manifestUnsafe = escapes(root, manifestPath) ?? notRegular(manifestPath);
+  if (manifestUnsafe) {
+    problem('manifest.json', manifestUnsafe);
+    return report(false);
+  }
   let manifest: SnapshotManifest;
   try {
     manifest = validateManifest(parseJson(readFileSync(manifestPath, 'utf8')), folder);
@@ -82,6 +88,9 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
   }
   const firstIndex = manifest.shard ? manifest.shard.stimuli[0] : 0;
   const count = manifest.stimuli.count;
+  const layersFolder = join(root, 'layers');
+  const layersUnsafe = existsSync(layersFolder) ? escapes(root, layersFolder) : null;
+  if (layersUnsafe) problem('layers', layersUnsafe);
   let baselineRoot: string | null = null;
   if (manifest.baseline) {
     baselineRoot = resolve(root, manifest.baseline.path);
@@ -102,8 +111,14 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
       problem(entry.file, firstLine(error));
       continue;
     }
-    if (!existsSync(path) || !statSync(path).isFile()) {
+    if (!existsSync(path)) {
       problem(subject, `is missing (layer "${entry.name}")`);
+      continue;
+    }
+    const unsafe = escapes(entry.from === 'baseline' ? baselineRoot! : root, path) ?? notRegular(path);
+    if (unsafe) {
+      // the link's target is not read: it is not part of the snapshot (and a FIFO would block)
+      if (!layersUnsafe || !unsafe.startsWith('resolves')) problem(subject, `${unsafe} (layer "${entry.name}")`);
       continue;
     }
     checked.layerFiles++;
@@ -117,6 +132,22 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
   checkStimuli(root, manifest, firstIndex, problem, notes);
   checked.stimuli = count;
   return report(true);
+}
+
+/** Why `path` may not be read as part of the folder `root`: a link that leads out of it, or null. */
+function escapes(root: string, path: string): string | null {
+  try {
+    realPathInside(root, path, 'it');
+    return null;
+  } catch (error) {
+    return error instanceof SondeError ? error.message.replace(/^it /, '') : firstLine(error);
+  }
+}
+
+/** `is a FIFO (named pipe), not a regular file`, or null for a regular file. */
+function notRegular(path: string): string | null {
+  const kind = describeNonRegular(statSync(path));
+  return kind ? `is ${kind}, not a regular file` : null;
 }
 
 function firstLine(error: unknown): string {
@@ -259,6 +290,11 @@ function checkStimuli(root: string, manifest: SnapshotManifest, firstIndex: numb
   const path = join(root, 'stimuli.arrow');
   if (!existsSync(path)) {
     problem('stimuli.arrow', 'is missing');
+    return;
+  }
+  const unsafe = escapes(root, path) ?? notRegular(path);
+  if (unsafe) {
+    problem('stimuli.arrow', unsafe);
     return;
   }
   let table;

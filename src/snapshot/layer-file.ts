@@ -66,11 +66,12 @@ export class LayerFileWriter {
    * @param path final file name (written as `path.partial` until `finish`).
    * @param layout what the file holds.
    * @param options `resumeAt`: continue an interrupted `path.partial` after its first `resumeAt` bytes
-   *   (a checkpoint from `checkpoint()`); the rows already there count in `rows`.
+   *   (a checkpoint from `checkpoint()`); the rows already there count in `rows`. `resumeSha256`: the
+   *   SHA-256 of those bytes at the checkpoint (`checkpointSha256()`), verified before resuming.
    * @throws RuntimeFailure when the file cannot be created, or the partial file does not hold complete
-   *   record batches up to `resumeAt`.
+   *   record batches up to `resumeAt`, or those bytes do not have `resumeSha256`.
    */
-  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number } = {}) {
+  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string } = {}) {
     this.layout = layout;
     this.schema = layerSchema(layout);
     this.channels = channelCount(layout.shape);
@@ -82,7 +83,7 @@ export class LayerFileWriter {
       this.writer.reset(this.sink, this.schema);
     } else {
       const scanned = scanRecordBatches(`${path}.partial`, options.resumeAt);
-      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt });
+      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt, ...(options.resumeSha256 !== undefined ? { resumeSha256: options.resumeSha256 } : {}) });
       this.writer.resume(this.sink, this.schema, options.resumeAt, scanned.blocks);
       this.rows = scanned.rows.reduce((a, b) => a + b, 0);
     }
@@ -92,6 +93,11 @@ export class LayerFileWriter {
   checkpoint(): number {
     this.sink.sync();
     return this.sink.byteLength;
+  }
+
+  /** SHA-256 (hex) of the file's bytes so far: store it with `checkpoint()`'s length to verify a resume. */
+  checkpointSha256(): string {
+    return this.sink.prefixSha256();
   }
 
   /**

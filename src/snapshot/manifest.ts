@@ -7,6 +7,7 @@ import { isAbsolute, join, relative, resolve, sep } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { replaceFile } from './atomic-file.js';
 import { parseJson } from '../json.js';
+import { assertRegularFile, realPathInside } from '../input-file.js';
 
 /**
  * Version of the snapshot layout written by this build.
@@ -93,12 +94,15 @@ export interface SnapshotManifest {
 /**
  * Reads and validates `manifest.json` of a snapshot folder.
  * @throws UsageError when the folder or manifest is missing, not JSON, of an unknown format version,
- *   or names files outside the folder.
+ *   names files outside the folder, or is a link that resolves outside it (or not a regular file).
  */
 export function readManifest(folder: string): SnapshotManifest {
   const path = join(folder, 'manifest.json');
   if (!existsSync(folder)) throw new UsageError('E_SNAPSHOT_MISSING', `snapshot ${folder} does not exist`);
   if (!existsSync(path)) throw new UsageError('E_SNAPSHOT_MISSING', `${folder} is not a snapshot (no manifest.json)`);
+  // a link may not lead the manifest out of its folder (it would describe files it does not sit with)
+  realPathInside(folder, path, `${folder}: manifest.json`);
+  assertRegularFile(path, `${folder}: manifest.json`);
   let parsed: unknown;
   try {
     parsed = parseJson(readFileSync(path, 'utf8'));

@@ -1,9 +1,11 @@
 import { open, type FileHandle } from 'node:fs/promises';
-import { readFileSync } from 'node:fs';
+import { existsSync, readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { Message, RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
-import { RuntimeFailure, UsageError, closestHint } from '../errors.js';
+import { RuntimeFailure, SondeError, UsageError, closestHint } from '../errors.js';
+import { assertRegularFile, realPathInside } from '../input-file.js';
 import { LayerBlockFile } from './block-reader.js';
+import { startLayerCheck, type LayerVerification } from './layer-integrity.js';
 import { float16ToFloat32 } from './float16.js';
 import { channelCount, spatialSize } from './layer-file.js';
 import { assertComplete, assertInside, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
@@ -63,20 +65,39 @@ export interface Snapshot {
   readChannelMeans(name: string): Promise<Float32Array>;
 }
 
+/** Options of `openSnapshot`. */
+export interface OpenSnapshotOptions {
+  /** Open a snapshot whose manifest says `complete: false` (checks, merging partial work). */
+  allowIncomplete?: boolean;
+  /**
+   * How each layer file is checked against the manifest before its numbers are used (see
+   * `LayerVerification`): `sha256` (default) checks size and SHA-256, `size-only` the size alone.
+   */
+  verify?: LayerVerification;
+}
+
 /**
- * Opens a complete snapshot folder: validates the manifest (format version, paths inside the folder)
- * and loads the stimulus table. Layers are read lazily.
- * @throws UsageError for a missing or malformed snapshot; RuntimeFailure for an incomplete one.
+ * Opens a complete snapshot folder: validates the manifest (format version, paths inside the folder,
+ * also after following symbolic links) and loads the stimulus table. Layers are read lazily; each layer
+ * file is checked against the manifest as it is read (size before the first batch, SHA-256 before the
+ * last one; see `OpenSnapshotOptions.verify`).
+ * @throws UsageError for a missing or malformed snapshot, or a file that a link leads out of its folder;
+ *   RuntimeFailure for an incomplete one.
  */
-export function openSnapshot(folder: string, options: { allowIncomplete?: boolean } = {}): Snapshot {
+export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}): Snapshot {
   const root = resolve(folder);
   const manifest = readManifest(root);
   if (!options.allowIncomplete) assertComplete(manifest, folder);
+  const verify = options.verify ?? 'sha256';
   const baselineRoot = manifest.baseline ? resolve(root, manifest.baseline.path) : null;
   const stimuliPath = join(root, 'stimuli.arrow');
   let ids: string[];
   let labels: string[][];
   let digests: Uint8Array | undefined;
+  if (existsSync(stimuliPath)) {
+    realPathInside(root, stimuliPath, `${folder}: stimuli.arrow`);
+    assertRegularFile(stimuliPath, `${folder}: stimuli.arrow`);
+  }
   try {
     const table = tableFromIPC(readFileSync(stimuliPath));
     ids = (table.getChild('id')?.toArray() ?? []) as string[];
@@ -113,12 +134,12 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
     }
     return entry;
   };
-  const fileOf = (entry: ManifestLayer): string => {
+  const fileOf = (entry: ManifestLayer): { path: string; inside: string } => {
     if (entry.from === 'baseline') {
       if (!baselineRoot) throw new UsageError('E_MANIFEST', `${folder}: layer "${entry.name}" comes from a baseline but the manifest names none`);
-      return assertInside(baselineRoot, entry.file, `baseline layer "${entry.name}" file`);
+      return { path: assertInside(baselineRoot, entry.file, `baseline layer "${entry.name}" file`), inside: baselineRoot };
     }
-    return assertInside(root, entry.file, `layer "${entry.name}" file`);
+    return { path: assertInside(root, entry.file, `layer "${entry.name}" file`), inside: root };
   };
   const layerGeometry = (name: string) => {
     const entry = layer(name);
@@ -132,20 +153,27 @@ export function openSnapshot(folder: string, options: { allowIncomplete?: boolea
     const wantActivation = entry.keep === 'full' && readOptions.activation !== false;
     const raw = readOptions.raw === true && entry.dtype === 'float16';
     const range = readOptions.range;
-    const path = fileOf(entry);
+    const { path, inside } = fileOf(entry);
     let blocks: LayerBlockFile | null = null;
+    let verified: () => Promise<void>;
     try {
+      // a link (the file's or the layers folder's) may not lead out of the snapshot; size checked here,
+      // the hash before the last batch is handed out
+      realPathInside(inside, path, `layer file ${path} of "${name}"`);
+      verified = startLayerCheck(path, entry, inside, verify);
       blocks = LayerBlockFile.open(path);
     } catch (error) {
+      if (error instanceof SondeError) throw error;
       const code = (error as NodeJS.ErrnoException).code;
       if (code === 'ENOENT' || code === 'EACCES') throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} of "${name}" cannot be opened`, { hint: 'the snapshot may be damaged; run `sonde check`' });
       throw new RuntimeFailure('E_LAYER_READ', `layer file ${path} of "${name}" is not a readable Arrow file (${(error as Error).message.split('\n')[0]})`, { hint: 'run `sonde check` on the snapshot' });
     }
     if (blocks) {
       // Sonde's own layout: positioned reads, viewed in place, the next batch read ahead
-      yield* readBlocks(blocks, { channels, elements, wantActivation, raw, range, reuse: readOptions.reuse === true, path, firstIndex });
+      yield* readBlocks(blocks, { channels, elements, wantActivation, raw, range, reuse: readOptions.reuse === true, path, firstIndex, verified });
       return;
     }
+    await verified(); // another writer's layout: verify the whole file before reading any of it
     let handle;
     try {
       handle = await open(path, 'r');
@@ -269,6 +297,8 @@ interface BlockReadOptions {
   reuse: boolean;
   path: string;
   firstIndex: number;
+  /** Resolves once the file's SHA-256 matched the manifest; awaited before the last batch is handed out. */
+  verified: () => Promise<void>;
 }
 
 /** Streams the batches of a layer file in Sonde's layout, reading one batch ahead. */
@@ -295,6 +325,7 @@ async function* readBlocks(file: LayerBlockFile, o: BlockReadOptions): AsyncGene
       promise.catch(() => undefined);
       return promise;
     };
+    if (wanted.length === 0) await o.verified();
     let next = wanted.length > 0 ? start(0) : null;
     for (let j = 0; j < wanted.length; j++) {
       let raw;
@@ -316,6 +347,7 @@ async function* readBlocks(file: LayerBlockFile, o: BlockReadOptions): AsyncGene
         } else activation = raw.activation;
       }
       const batch: LayerBatch = { index: raw.index, rows: raw.rows, channelMeans: raw.channelMeans, activation, ...(activationFloat16 ? { activationFloat16 } : {}) };
+      if (j === wanted.length - 1) await o.verified(); // no complete result from a damaged file
       yield o.range ? sliceBatch(batch, o.range, o.channels, o.elements, o.path) : batch;
     }
   } finally {

@@ -3,6 +3,7 @@ import { existsSync, readdirSync, readFileSync, statSync } from 'node:fs';
 import { basename, dirname, extname, join, relative, resolve } from 'node:path';
 import sharp from 'sharp';
 import { RuntimeFailure, UsageError } from '../errors.js';
+import { assertRegularFile } from '../input-file.js';
 import { parseNpy } from './npy.js';
 import { pixelsToPlanar, type Preprocessing } from './preprocess.js';
 
@@ -50,6 +51,7 @@ export function openStimulusSource(path: string, options: StimulusSourceOptions)
   if (!existsSync(absolute)) throw new UsageError('E_STIMULI_MISSING', `--stimuli ${path} does not exist`);
   const stat = statSync(absolute);
   if (stat.isDirectory()) return openFolder(path, absolute, options);
+  assertRegularFile(absolute, `--stimuli ${path}`); // a FIFO or device would block or never end
   const extension = extname(absolute).toLowerCase();
   if (extension === '.csv') return openCsv(path, absolute, options);
   if (extension === '.npy') return openNpy(path, absolute, options);
@@ -75,6 +77,7 @@ function assertUtf8Entries(folder: string, option: string): void {
  * @throws UsageError naming the file and the byte offset of the first invalid sequence.
  */
 export function readUtf8File(path: string, what: string): string {
+  if (existsSync(path)) assertRegularFile(path, what);
   const bytes = readFileSync(path);
   try {
     return new TextDecoder('utf-8', { fatal: true, ignoreBOM: false }).decode(bytes);
@@ -184,6 +187,7 @@ function imageSource(kind: 'folder' | 'csv', description: string, root: string, 
       await Promise.all(
         files.slice(start, start + rows).map(async (file, i) => {
           let decoded: { data: Buffer; info: { channels: number } };
+          if (existsSync(file)) assertRegularFile(file, `stimulus ${relative(process.cwd(), file) || basename(file)}`); // a FIFO would hang the decoder
           try {
             let image = sharp(file, { failOn: 'error' }).removeAlpha();
             image = channels === 1 ? image.greyscale() : image.toColourspace('srgb');
