@@ -34,7 +34,7 @@ export interface GainCeilingProblem {
   budget: number;
   /** Width τ of the logistic step, in score units (default 0.1 × the scores' standard deviation). */
   temperature?: number;
-  /** Gradient steps (default 200). */
+  /** Gradient steps (default 100). */
   iterations?: number;
 }
 
@@ -82,11 +82,12 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
   let weightSum = 0;
   for (let k = 0; k < C; k++) weightSum += Math.max(0, weights[k]!);
   const radius = budget * weightSum;
-  const iterations = problem.iterations ?? 200;
+  const iterations = problem.iterations ?? 100;
 
   const d = new Float64Array(C);
   const s = new Float64Array(n);
   const omega = new Float64Array(n); // Σ_j ω_ij for signal i, −Σ_i ω_ij for noise j
+  const e = new Float64Array(n);
   const grad = new Float64Array(C);
   const linearScores = (dd: Float64Array, out: Float64Array): void => {
     for (let i = 0; i < n; i++) {
@@ -103,14 +104,36 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
       linearScores(d, s);
       omega.fill(0);
       let smooth = 0;
-      for (const i of signal) {
-        for (const j of noise) {
-          const z = (s[i]! - s[j]!) / tau;
-          const p = 1 / (1 + Math.exp(-z));
-          smooth += p;
-          const w = (p * (1 - p)) / tau;
-          omega[i] += w;
-          omega[j] -= w;
+      // σ((s_i − s_j)/τ) = e_i / (e_i + e_j) with e = exp((s − centre)/τ): one exp per stimulus, not per
+      // pair; used while the exponents stay far from overflow, else the direct form
+      let centre = 0;
+      for (let i = 0; i < n; i++) centre += s[i]! / n;
+      let largest = 0;
+      for (let i = 0; i < n; i++) largest = Math.max(largest, Math.abs((s[i]! - centre) / tau));
+      if (largest < 300) {
+        for (let i = 0; i < n; i++) e[i] = Math.exp((s[i]! - centre) / tau);
+        for (const i of signal) {
+          const ei = e[i]!;
+          let wi = 0;
+          for (const j of noise) {
+            const sum = ei + e[j]!;
+            const p = ei / sum;
+            smooth += p;
+            const w = (p * (e[j]! / sum)) / tau;
+            wi += w;
+            omega[j] -= w;
+          }
+          omega[i] += wi;
+        }
+      } else {
+        for (const i of signal) {
+          for (const j of noise) {
+            const p = 1 / (1 + Math.exp(-(s[i]! - s[j]!) / tau));
+            smooth += p;
+            const w = (p * (1 - p)) / tau;
+            omega[i] += w;
+            omega[j] -= w;
+          }
         }
       }
       smooth /= signal.length * noise.length;

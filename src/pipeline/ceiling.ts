@@ -1,7 +1,7 @@
 /**
  * The gain ceiling at a site: for each cued category, the per-channel gain of a given size that
  * maximises the ROC area of that category's readout on a fitting set (see `analysis/gain-ceiling.ts`).
- * The derivatives ∂readout/∂g_k come from central differences of the downstream part replayed on the
+ * The derivatives ∂readout/∂g_k come from forward differences of the downstream part replayed on the
  * fitting baseline (`scoreGains`); the fitted gain is then measured on other stimuli by the caller, so
  * the ceiling is a held-out figure like the schemes it is compared with.
  */
@@ -24,7 +24,7 @@ export interface SiteCeilingOptions {
   categories: readonly string[];
   /** Allowed weighted mean |g − 1| at the site, per category. */
   budget: (category: string) => number;
-  /** Central-difference step of the derivatives (default 0.01). */
+  /** Forward-difference step of the derivatives (default 0.01). */
   step?: number;
   threads?: number;
 }
@@ -64,8 +64,10 @@ export function gainSize(gain: ArrayLike<number>, weights: ArrayLike<number>): n
 }
 
 /**
- * Fits the ceiling gain at one site for every category: 2C + 1 replays of the downstream part on the
- * fitting baseline (g = 1 and g = 1 ± h on each channel), then one constrained fit per category.
+ * Fits the ceiling gain at one site for every category: C + 1 replays of the downstream part on the
+ * fitting baseline (g = 1, and g = 1 + h on each channel in turn), then one constrained fit per category.
+ * Forward differences (error O(h) where the readout curves) keep the replays to C + 1; the fitted gain
+ * is only a candidate — its held-out effect is measured on the real network, not on the expansion.
  * @throws UsageError for a category the readout does not name, a bad step, or a site whose downstream
  *   part the baseline cannot feed.
  */
@@ -79,11 +81,9 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
   const units = fit.layerGeometry(readout.layer).channels;
   const patterns: Float32Array[][] = [[new Float32Array(C).fill(1)]];
   for (let k = 0; k < C; k++) {
-    for (const sign of [1, -1]) {
-      const g = new Float32Array(C).fill(1);
-      g[k] = 1 + sign * h;
-      patterns.push([g]);
-    }
+    const g = new Float32Array(C).fill(1);
+    g[k] = 1 + h;
+    patterns.push([g]);
   }
   const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: fit, sites: [site], gains: patterns, readout: readout.layer, threads: options.threads ?? 0 });
   const weights = await channelWeights(fit, site);
@@ -96,8 +96,8 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
     for (let i = 0; i < n; i++) {
       scores[i] = scored[0]![i * units + unit]!;
       signal[i] = fit.stimuli.labels[i]!.includes(category) ? 1 : 0;
-      // the float32 step actually applied: (1 + h) − (1 − h) rounded
-      for (let k = 0; k < C; k++) jacobian[i * C + k] = (scored[1 + 2 * k]![i * units + unit]! - scored[2 + 2 * k]![i * units + unit]!) / (Math.fround(1 + h) - Math.fround(1 - h)); // [n, C]: i*C + k
+      // divided by the float32 step actually applied, fround(1 + h) − 1
+      for (let k = 0; k < C; k++) jacobian[i * C + k] = (scored[1 + k]![i * units + unit]! - scores[i]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
     }
     const budget = options.budget(category);
     const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget });
