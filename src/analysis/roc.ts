@@ -1,0 +1,230 @@
+/**
+ * Threshold-free detection measures of a continuous readout: the area under the empirical ROC curve,
+ * the hit rate at a given false-alarm rate, and the criterion-shift-only control (how far the hit rate
+ * moves when only the decision criterion moves).
+ *
+ * The empirical ROC joins the points (F, H) of the rule "yes when score > t" for every cut t between
+ * distinct scores, with straight lines (what a randomised choice between adjacent cuts achieves).
+ * Its area equals the Mann–Whitney statistic P(S > N) + ½·P(S = N) over all signal/noise pairs
+ * (Bamber 1975, J. Math. Psychol. 12:387; Hanley & McNeil 1982, Radiology 143:29), computed here from
+ * mid-ranks in O(n log n).
+ *
+ * Non-finite scores (NaN, ±Infinity) are a broken readout, not a decision: every function here leaves
+ * them out, as `detectFromScores` does; callers that care count them there.
+ */
+
+import { UsageError } from '../errors.js';
+
+/**
+ * Area under the empirical ROC curve of scores for signal against noise trials.
+ *
+ * @param scores one readout score per trial (higher = more "signal").
+ * @param isSignal 1 where the trial contains the signal, 0 where not (any non-zero counts as 1).
+ * @returns AUC in [0, 1]: 1 when every signal score is above every noise score, 0.5 for no separation.
+ * @throws UsageError when the lengths differ.
+ * Edge cases: tied scores count ½ per signal/noise pair (mid-ranks); non-finite scores are left out;
+ * NaN when no finite signal or no finite noise score remains.
+ */
+export function rocAuc(scores: ArrayLike<number>, isSignal: Uint8Array): number {
+  checkLengths(scores, isSignal);
+  const order = finiteOrder(scores);
+  const n = order.length;
+  // Walk the scores upwards in groups of equal value; each signal score in a group beats every noise
+  // score below the group and ties with the noise scores inside it.
+  let noiseBelow = 0;
+  let signalCount = 0;
+  let wins = 0;
+  let i = 0;
+  while (i < n) {
+    const value = scores[order[i]!]!;
+    let signalInGroup = 0;
+    let noiseInGroup = 0;
+    while (i < n && scores[order[i]!]! === value) {
+      if (isSignal[order[i]!] !== 0) signalInGroup++;
+      else noiseInGroup++;
+      i++;
+    }
+    wins += signalInGroup * (noiseBelow + noiseInGroup / 2);
+    noiseBelow += noiseInGroup;
+    signalCount += signalInGroup;
+  }
+  if (signalCount === 0 || noiseBelow === 0) return Number.NaN;
+  return wins / (signalCount * noiseBelow);
+}
+
+/**
+ * Standard error of an AUC by the exponential approximation of Hanley & McNeil (1982, Radiology 143:29,
+ * eq. 1–3): SE² = [A(1−A) + (nS−1)(Q1−A²) + (nN−1)(Q2−A²)] / (nS·nN), Q1 = A/(2−A), Q2 = 2A²/(1+A).
+ *
+ * @param auc the area A in [0, 1].
+ * @param signalTrials nS ≥ 1; @param noiseTrials nN ≥ 1.
+ * @returns the approximate standard error.
+ * @throws UsageError when auc is outside [0, 1] or a trial count is not a positive integer.
+ * Edge cases: a NaN auc gives NaN (the area could not be measured).
+ */
+export function aucStandardError(auc: number, signalTrials: number, noiseTrials: number): number {
+  if (Number.isNaN(auc)) return Number.NaN;
+  if (!(auc >= 0 && auc <= 1)) {
+    throw new UsageError('E_ROC_AUC', `ROC area ${String(auc)} is outside [0, 1]`);
+  }
+  for (const [name, value] of [['signalTrials', signalTrials], ['noiseTrials', noiseTrials]] as const) {
+    if (!Number.isInteger(value) || value < 1) {
+      throw new UsageError('E_ROC_COUNTS', `${name} = ${String(value)} is not a positive integer`);
+    }
+  }
+  const q1 = auc / (2 - auc);
+  const q2 = (2 * auc * auc) / (1 + auc);
+  const a2 = auc * auc;
+  const variance = (auc * (1 - auc) + (signalTrials - 1) * (q1 - a2) + (noiseTrials - 1) * (q2 - a2)) / (signalTrials * noiseTrials);
+  return Math.sqrt(Math.max(0, variance));
+}
+
+/**
+ * Hit rate of the empirical ROC at a given false-alarm rate, by linear interpolation between its points.
+ *
+ * @param scores one readout score per trial; @param isSignal 1 = signal trial, 0 = noise trial.
+ * @param falseAlarmRate the false-alarm rate F in [0, 1] at which to read the curve.
+ * @returns H(F) in [0, 1]: the largest hit rate any (randomised) cut reaches with false-alarm rate ≤ F.
+ * @throws UsageError when the lengths differ or F is not in [0, 1].
+ * Edge cases: where the curve rises vertically at F (signal-only scores between two noise scores) the
+ * upper end is returned; non-finite scores are left out; NaN when a class has no finite score.
+ * A constant added to every score, or any strictly increasing transform, leaves the result unchanged.
+ */
+export function hitRateAtFalseAlarm(scores: ArrayLike<number>, isSignal: Uint8Array, falseAlarmRate: number): number {
+  checkLengths(scores, isSignal);
+  checkRate('falseAlarmRate', falseAlarmRate);
+  const order = finiteOrder(scores);
+  const n = order.length;
+  let signalCount = 0;
+  for (let k = 0; k < n; k++) if (isSignal[order[k]!] !== 0) signalCount++;
+  const noiseCount = n - signalCount;
+  if (signalCount === 0 || noiseCount === 0) return Number.NaN;
+  // Lower the cut from above the largest score: each group of equal scores moves the ROC point from
+  // (f0, h0) to (f1, h1) along a straight segment.
+  let hits = 0;
+  let falseAlarms = 0;
+  let i = n - 1;
+  while (i >= 0) {
+    const value = scores[order[i]!]!;
+    const h0 = hits / signalCount;
+    const f0 = falseAlarms / noiseCount;
+    while (i >= 0 && scores[order[i]!]! === value) {
+      if (isSignal[order[i]!] !== 0) hits++;
+      else falseAlarms++;
+      i--;
+    }
+    const h1 = hits / signalCount;
+    const f1 = falseAlarms / noiseCount;
+    if (f1 > falseAlarmRate) {
+      // The segment crosses F (f0 ≤ F < f1): interpolate.
+      return h0 + ((h1 - h0) * (falseAlarmRate - f0)) / (f1 - f0);
+    }
+  }
+  return 1;
+}
+
+/** The result of `criterionShiftControl`. */
+export interface CriterionShift {
+  /** The constant s added to every baseline score. */
+  shift: number;
+  /** Hit rate of "yes when base + s > threshold". */
+  hitRate: number;
+  /** False-alarm rate of that rule: the achievable one nearest the target. */
+  falseAlarmRate: number;
+}
+
+/**
+ * The criterion-shift-only control: the constant shift s of the baseline scores after which the fixed
+ * threshold gives (as nearly as the data allow) the target false-alarm rate, and the hit rate it then gives.
+ * A modulation whose hit rate is no better than this control at its own false-alarm rate did nothing but
+ * move the criterion.
+ *
+ * The rule "base + s > threshold" is the rule "base > cut" with cut = threshold − s. The number of noise
+ * scores above the cut is chosen as the achievable count nearest target·nN (ties between two counts go
+ * to the smaller one); the cut is then placed midway in the gap between the noise scores just above and
+ * just below it (half a score unit beyond the extreme noise score when the count is 0 or nN).
+ *
+ * @param baseScores baseline readout scores; @param isSignal 1 = signal trial, 0 = noise trial.
+ * @param threshold the fixed decision threshold (finite).
+ * @param targetFalseAlarmRate the false-alarm rate to reproduce, in [0, 1].
+ * @returns shift, and the hit and false-alarm rates of the shifted scores (computed as base > cut, exact).
+ * @throws UsageError when lengths differ, the threshold is not finite, or the target is not in [0, 1].
+ * Edge cases: non-finite scores are left out; with no finite noise or signal score every field is NaN.
+ */
+export function criterionShiftControl(
+  baseScores: ArrayLike<number>,
+  isSignal: Uint8Array,
+  threshold: number,
+  targetFalseAlarmRate: number,
+): CriterionShift {
+  checkLengths(baseScores, isSignal);
+  checkRate('targetFalseAlarmRate', targetFalseAlarmRate);
+  if (!Number.isFinite(threshold)) {
+    throw new UsageError('E_ROC_THRESHOLD', `criterion-shift threshold ${String(threshold)} is not finite`, {
+      hint: 'pass the readout threshold the detection used',
+    });
+  }
+  let noiseCount = 0;
+  let signalCount = 0;
+  for (let i = 0; i < baseScores.length; i++) {
+    if (!Number.isFinite(baseScores[i]!)) continue;
+    if (isSignal[i] !== 0) signalCount++;
+    else noiseCount++;
+  }
+  if (noiseCount === 0 || signalCount === 0) return { shift: Number.NaN, hitRate: Number.NaN, falseAlarmRate: Number.NaN };
+  const noise = new Float64Array(noiseCount);
+  for (let i = 0, k = 0; i < baseScores.length; i++) {
+    if (Number.isFinite(baseScores[i]!) && isSignal[i] === 0) noise[k++] = baseScores[i]!;
+  }
+  noise.sort(); // ascending; noise[noiseCount − j] is the j-th largest
+  // Achievable counts of noise above a cut: j = 0, nN, and every j whose j-th and (j+1)-th largest differ.
+  const target = targetFalseAlarmRate * noiseCount;
+  let bestCount = 0;
+  let bestDistance = target;
+  for (let j = 1; j <= noiseCount; j++) {
+    const achievable = j === noiseCount || noise[noiseCount - j]! > noise[noiseCount - j - 1]!;
+    if (!achievable) continue;
+    const distance = Math.abs(j - target);
+    if (distance < bestDistance) {
+      bestDistance = distance;
+      bestCount = j;
+    }
+  }
+  const above = bestCount === 0 ? noise[noiseCount - 1]! + 1 : noise[noiseCount - bestCount]!;
+  const below = bestCount === noiseCount ? noise[0]! - 1 : noise[noiseCount - bestCount - 1]!;
+  let cut = below + (above - below) / 2;
+  if (cut >= above) cut = below; // neighbouring doubles: the midpoint rounds up; the lower one still separates
+  let hits = 0;
+  let falseAlarms = 0;
+  for (let i = 0; i < baseScores.length; i++) {
+    const score = baseScores[i]!;
+    if (!Number.isFinite(score) || !(score > cut)) continue;
+    if (isSignal[i] !== 0) hits++;
+    else falseAlarms++;
+  }
+  return { shift: threshold - cut, hitRate: hits / signalCount, falseAlarmRate: falseAlarms / noiseCount };
+}
+
+/** Indices of the finite scores, sorted by ascending score. */
+function finiteOrder(scores: ArrayLike<number>): Int32Array {
+  let count = 0;
+  for (let i = 0; i < scores.length; i++) if (Number.isFinite(scores[i]!)) count++;
+  const order = new Int32Array(count);
+  for (let i = 0, k = 0; i < scores.length; i++) if (Number.isFinite(scores[i]!)) order[k++] = i;
+  order.sort((a, b) => scores[a]! - scores[b]!);
+  return order;
+}
+
+function checkLengths(scores: ArrayLike<number>, isSignal: Uint8Array): void {
+  if (scores.length !== isSignal.length) {
+    throw new UsageError('E_ROC_SCORES', `ROC scores have ${scores.length} entries but isSignal has ${isSignal.length}`, {
+      hint: 'pass one signal flag per score',
+    });
+  }
+}
+
+function checkRate(name: string, rate: number): void {
+  if (!(rate >= 0 && rate <= 1)) {
+    throw new UsageError('E_ROC_RATE', `${name} = ${String(rate)} is not a rate in [0, 1]`);
+  }
+}
