@@ -8,10 +8,10 @@ import { cliIo } from '../run.js';
 export function registerDemo(program: Command): void {
   program
     .command('demo')
-    .description('run the whole job on the built-in demo network: stimuli, baseline, tuning, sensitivity, sweep with controls, diffs, report')
+    .description('run the whole job on the built-in demo network: a fitting and a held-out stimulus set, baselines, tuning, sensitivity, sweep with controls, schemes compared at one modulation size against shuffled, criterion-shift and fitted-ceiling references, diffs, report')
     .option('--out <dir>', 'output folder', 'snapshots/demo')
     .option('--quick', 'a small run (fewer displays, sites, kinds and strengths), under 30 s')
-    .option('--seed <n>', 'seed of the stimulus set', nonNegativeInteger, 2024)
+    .option('--seed <n>', 'seed of the fitting stimulus set (the held-out set uses seed + 1)', nonNegativeInteger, 2024)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .action(async (opts: { out: string; quick?: boolean; seed: number; threads: number }) => {
       const io = cliIo();

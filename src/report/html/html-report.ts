@@ -23,6 +23,7 @@ import { classifyReportInput, num, readReportInput, type ReportInput } from './i
 import { html, type HtmlValue, type SafeHtml } from './markup.js';
 import { renderPage, type PageSection } from './page.js';
 import { renderSvg } from './render-svg.js';
+import { describeSizeMatched, sizeMatchedSection } from './size-matched-section.js';
 import type { TopLevelSpec } from 'vega-lite';
 import { agreementTable, bestCellsTable, calibrationTable, comparisonTable, diffLayerTable, diffSummaryTable, fmt, pct, sci, sgn, sweepTaskTable, taskTable, tuningTable } from './tables.js';
 
@@ -97,6 +98,8 @@ function describe(input: ReportInput): string {
       const range = strengths.length > 0 ? `${Math.min(...strengths)}–${Math.max(...strengths)}` : '–';
       return `model ${s.model?.file ?? '?'}; baseline ${s.baseline ?? '?'}; ${s.sites.length} sites × schemes ${s.schemes.join(', ')} × ${s.strengths.length} strengths (${range}) × ${(s.categories ?? []).length} cued categories; ${s.cells.length} cells`;
     }
+    case 'size-matched':
+      return describeSizeMatched(input.comparison);
     case 'agreement':
       return `${input.agreement.layers.length} layers; categories ${input.agreement.categories.join(', ')}`;
     case 'tuning':
@@ -104,7 +107,7 @@ function describe(input: ReportInput): string {
   }
 }
 
-const KIND_NAMES: Readonly<Record<ReportInput['kind'], string>> = { diff: 'diff', comparison: 'scheme comparison', sweep: 'sweep', agreement: 'tuning–sensitivity agreement', tuning: 'tuning summary' };
+const KIND_NAMES: Readonly<Record<ReportInput['kind'], string>> = { diff: 'diff', comparison: 'scheme comparison', sweep: 'sweep', 'size-matched': 'size-matched comparison', agreement: 'tuning–sensitivity agreement', tuning: 'tuning summary' };
 
 function inputsTable(inputs: readonly ReportInput[]): SafeHtml {
   const rows = inputs.map((i) => html`<tr><td class="name">${i.name}</td><td>${KIND_NAMES[i.kind]}</td><td>${describe(i)}</td></tr>`);
@@ -261,6 +264,8 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   const sections: PageSection[] = [];
   const verdicts = verdictSection(classified, runs);
   if (verdicts) sections.push(verdicts);
+  const sizeMatched = sizeMatchedSection(classified.filter((i): i is Extract<ReportInput, { kind: 'size-matched' }> => i.kind === 'size-matched'));
+  if (sizeMatched) sections.push(sizeMatched);
   if (runs.length > 0) sections.push(await propagationSection(runs, charts));
   const task = taskSection(runs);
   if (task) sections.push(task);

@@ -1,6 +1,7 @@
 /**
  * The inputs `sonde report` understands, told apart by their fields (never by file name):
  * - `kind: 'sweep'` → a sweep result (`SweepResult`, `sweep.json`);
+ * - `kind: 'size-matched'` → a held-out comparison of schemes at one modulation size (`SizeMatchedComparison`);
  * - `a` and `b` (each a diff) → a scheme comparison (`diff --vs --json`, `SchemeComparison`);
  * - `layers` and `verdict` → a diff (`diff --json`, `DiffReport`);
  * - `depthTrend` → a tuning–sensitivity agreement (`TableComparison`);
@@ -17,6 +18,7 @@ import { RuntimeFailure, UsageError } from '../../errors.js';
 import type { TableComparison } from '../../pipeline/compare-tables.js';
 import type { DiffReport, SchemeComparison } from '../../pipeline/diff-snapshots.js';
 import type { SweepResult } from '../../pipeline/sweep-types.js';
+import type { SizeMatchedComparison } from '../../pipeline/size-matched.js';
 import type { LayerTuningSummary } from '../../pipeline/tune.js';
 import { parseJson } from '../../json.js';
 
@@ -34,6 +36,7 @@ export type ReportInput =
   | { kind: 'diff'; name: string; diff: DiffReport }
   | { kind: 'comparison'; name: string; comparison: SchemeComparison }
   | { kind: 'sweep'; name: string; sweep: SweepResult }
+  | { kind: 'size-matched'; name: string; comparison: SizeMatchedComparison }
   | { kind: 'agreement'; name: string; agreement: TableComparison }
   | { kind: 'tuning'; name: string; tuning: TuningSummaries };
 
@@ -85,6 +88,10 @@ export function classifyReportInput(value: unknown, name: string): ReportInput[]
     requireRows(value, 'cells', ['site', 'scheme', 'strength', 'category', 'change'], name, 'sweep');
     for (const field of ['sites', 'schemes', 'strengths']) requireArray(value, field, name, 'sweep');
     return [{ kind: 'sweep', name, sweep: value as unknown as SweepResult }];
+  }
+  if (value['kind'] === 'size-matched') {
+    requireRows(value, 'effects', ['site', 'scheme', 'aucChange'], name, 'size-matched comparison');
+    return [{ kind: 'size-matched', name, comparison: value as unknown as SizeMatchedComparison }];
   }
   if (isRecord(value['a']) && isRecord(value['b'])) {
     const a = checkDiff(value['a'], `${name} (side A)`);
