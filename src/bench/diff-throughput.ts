@@ -78,12 +78,19 @@ export async function benchDiffThroughput(): Promise<BenchResult> {
     const cli = fileURLToPath(new URL('../cli/main.js', import.meta.url));
     // warm the page cache once, as a re-analysis of a recent recording would find it
     execFileSync(process.execPath, [cli, 'diff', base, mod, '--bootstrap', '0', '--json'], { maxBuffer: 1 << 26 });
-    const script = `const { runCli } = await import(${JSON.stringify(new URL('../cli/run.js', import.meta.url).href)});
+    const timed = (extra: string[]) => {
+      const script = `const { runCli } = await import(${JSON.stringify(new URL('../cli/run.js', import.meta.url).href)});
 const t = performance.now();
-const code = await runCli(['diff', ${JSON.stringify(base)}, ${JSON.stringify(mod)}, '--bootstrap', '0', '--json'], { stdout: () => {}, stderr: (s) => process.stderr.write(s) });
+const code = await runCli(['diff', ${JSON.stringify(base)}, ${JSON.stringify(mod)}, '--bootstrap', '0', '--json'${extra.map((e) => `, ${JSON.stringify(e)}`).join('')}], { stdout: () => {}, stderr: (s) => process.stderr.write(s) });
 process.stdout.write(JSON.stringify({ code, seconds: (performance.now() - t) / 1000, maxRssKb: process.resourceUsage().maxRSS }));`;
-    const out = JSON.parse(execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 26 }).toString()) as { code: number; seconds: number; maxRssKb: number };
-    if (out.code !== 0) throw new Error(`diff exited ${out.code}`);
+      const result = JSON.parse(execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 26 }).toString()) as { code: number; seconds: number; maxRssKb: number };
+      if (result.code !== 0) throw new Error(`diff exited ${result.code}`);
+      return result;
+    };
+    // the default checks every layer file's SHA-256 (in worker threads, alongside the diff); the
+    // opt-in --skip-sha256 checks sizes only: the difference is what the hashing costs
+    const out = timed([]);
+    const sizeOnly = timed(['--skip-sha256']);
     return {
       name: 'diff-throughput',
       description: `sonde diff of two generated snapshots, ${STIMULI} stimuli, ${LAYERS.length} layers, ${(bytes / 1e9).toFixed(2)} GB read in all (page cache warm)`,
@@ -92,6 +99,8 @@ process.stdout.write(JSON.stringify({ code, seconds: (performance.now() - t) / 1
         'wall s': out.seconds,
         'throughput MB/s': bytes / 1e6 / out.seconds,
         'peak RSS MB': out.maxRssKb / 1024,
+        'throughput MB/s with --skip-sha256': bytes / 1e6 / sizeOnly.seconds,
+        'SHA-256 check cost %': (100 * (out.seconds - sizeOnly.seconds)) / sizeOnly.seconds,
       },
       targets: { 'throughput MB/s': '>= 1000', 'peak RSS MB': '<= 300' },
       notes: [`layer files: ${LAYERS.map((l) => `${l.name} [${l.shape.join('×')}]`).join(', ')}; base file size ${(statSync(join(base, 'layers', '000-block1.arrow')).size / 1e6).toFixed(0)} MB for the largest layer`],

@@ -1,6 +1,8 @@
 /**
  * `checkSnapshot`: verifies a snapshot folder against its manifest and says exactly what is wrong —
- * manifest schema and format version, paths inside the folder, each file's size and SHA-256, each layer
+ * manifest schema and format version, paths inside the folder (also after following symbolic links:
+ * `manifest.json`, `layers/`, layer files and `stimuli.arrow` must resolve inside it, and be regular
+ * files — a FIFO is named, never opened), each file's size and SHA-256, each layer
  * file's Arrow schema (index int32, channel_mean FixedSizeList<float32>[C], activation
  * FixedSizeList<float32|float16>[E] with the shape in its field metadata), row counts and the index
  * column (consecutive global indices from the snapshot's first stimulus), `stimuli.arrow` (rows, index,

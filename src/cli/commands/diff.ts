@@ -10,6 +10,7 @@ import { diffPartial, writePartial } from '../../pipeline/partial-stats.js';
 import { parseShard } from '../../pipeline/shard.js';
 import { assertOutFileWritable } from '../../pipeline/output-file.js';
 import { replaceFile } from '../../snapshot/atomic-file.js';
+import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
 
 interface DiffCliOptions {
   vs?: string;
@@ -26,6 +27,7 @@ interface DiffCliOptions {
   force?: boolean;
   shard?: string;
   partial?: string;
+  skipSha256?: boolean;
 }
 
 /** `sonde diff BASE MOD`: layer-by-layer propagation of a modulation and its effect on the task. */
@@ -49,6 +51,7 @@ export function registerDiff(program: Command): void {
     .option('--force', 'replace an existing --csv file')
     .option('--shard <K/N>', 'with --partial: accumulate only shard K of N of the stimuli')
     .option('--partial <file.json>', 'write mergeable partial statistics instead of the report (combine them with `sonde merge`)')
+    .option('--skip-sha256', 'faster: check each layer file against the manifest by size only, not by SHA-256 (a same-size change then goes unnoticed)')
     .action(async (basePath: string, modPath: string, opts: DiffCliOptions) => {
       const io = cliIo();
       if (opts.tuning && !opts.target) throw new UsageError('E_TARGET', '--tuning needs --target CATEGORY (the attended category)');
@@ -60,16 +63,18 @@ export function registerDiff(program: Command): void {
       }
       // refuse an existing --csv (or one that is an input) before the diff runs
       if (opts.csv !== undefined) assertOutFileWritable(opts.csv, { option: '--csv', force: opts.force ?? false, inputs: [{ option: 'BASE', path: basePath }, { option: 'MOD', path: modPath }, { option: '--vs', path: opts.vs }, { option: '--floor', path: opts.floor }, { option: '--tuning', path: opts.tuning }] });
+      // default: every layer file's size and SHA-256 are checked as it is read; --skip-sha256 only its size
+      const open = (path: string): string | Snapshot => (opts.skipSha256 ? openSnapshot(path, { verify: 'size-only' }) : path);
       const bar = createProgressBar('diff');
       const options: DiffOptions = {
-        base: basePath,
-        mod: modPath,
+        base: open(basePath),
+        mod: open(modPath),
         bootstrap: opts.bootstrap,
         seed: opts.seed,
         tolerance: opts.tolerance,
         threshold,
         onLayer: (done, total, name) => bar.update(done, total, name),
-        ...(opts.floor ? { floor: opts.floor } : {}),
+        ...(opts.floor ? { floor: open(opts.floor) } : {}),
         ...(opts.target ? { target: opts.target } : {}),
         ...(opts.task ? { task: opts.task } : {}),
         ...(opts.tuning && opts.target ? { tuning: tuningLookup(opts.tuning, opts.target) } : {}),
@@ -90,7 +95,7 @@ export function registerDiff(program: Command): void {
       }
       let result: DiffReport | SchemeComparison;
       try {
-        result = opts.vs ? await diffSnapshots({ ...options, vs: opts.vs }) : await diffSnapshots(options);
+        result = opts.vs ? await diffSnapshots({ ...options, vs: open(opts.vs) }) : await diffSnapshots(options);
       } finally {
         bar.stop();
       }
