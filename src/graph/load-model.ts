@@ -1,5 +1,5 @@
 import { createHash } from 'node:crypto';
-import { readFileSync, statSync } from 'node:fs';
+import { readFileSync, realpathSync, statSync } from 'node:fs';
 import { basename, dirname, isAbsolute, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { assertRegularFile, realPathInside } from '../input-file.js';
@@ -148,7 +148,7 @@ function inlineExternalData(proto: ModelProto, folder: string, modelPath: string
     if (!data) {
       try {
         // a symbolic link may not lead the weights out of the model's folder, nor to a FIFO or device
-        realPathInside(folder, file, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
+        assertWeightsInside(folder, file, modelPath, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
         assertRegularFile(file, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
         data = readFileSync(file);
       } catch (error) {
@@ -167,6 +167,27 @@ function inlineExternalData(proto: ModelProto, folder: string, modelPath: string
     tensor.rawData = data.subarray(offset, offset + length);
     tensor.dataLocation = 0;
     tensor.externalData = [];
+  }
+}
+
+/**
+ * Refuses an external data file that resolves (links followed) outside the model's folder. The folder is
+ * the one the model was named in, or the real folder of the model file when that is itself a link (a
+ * folder of links into a model store holds links to the model and to its weights).
+ * @throws UsageError `E_LINK_OUTSIDE` naming the file and where it resolves.
+ */
+function assertWeightsInside(folder: string, file: string, modelPath: string, what: string): void {
+  try {
+    realPathInside(folder, file, what);
+  } catch (error) {
+    if (!(error instanceof UsageError)) throw error;
+    const realFolder = dirname(realpathSync(resolve(modelPath)));
+    if (realFolder === realpathSync(folder)) throw error;
+    try {
+      realPathInside(realFolder, file, what);
+    } catch {
+      throw error;
+    }
   }
 }
 

@@ -179,6 +179,15 @@ describe('symbolic links out of their folder', () => {
     renameSync(join(folder, 'weights.bin'), outside);
     symlinkSync(outside, join(folder, 'weights.bin'));
     expect(() => loadModel(join(folder, 'net.onnx'))).toThrow(/external data file "weights\.bin" of ".*" resolves to .*outside-weights\.bin, outside/);
+    // a folder of links into a model store: the weights resolve beside the model's real file, so they load
+    const store = join(dir, 'store');
+    const links = join(dir, 'links');
+    mkdirSync(store);
+    mkdirSync(links);
+    writeFileSync(join(store, 'net.onnx'), externalise(buildTinyNet({ bias: true }), store));
+    symlinkSync(join(store, 'net.onnx'), join(links, 'net.onnx'));
+    symlinkSync(join(store, 'weights.bin'), join(links, 'weights.bin'));
+    expect(loadModel(join(links, 'net.onnx')).parameterCount).toBe(loadModel(join(store, 'net.onnx')).parameterCount);
   });
 });
 
