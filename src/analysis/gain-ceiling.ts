@@ -17,6 +17,7 @@
  */
 
 import { UsageError } from '../errors.js';
+import { rocAuc } from './roc.js';
 
 /** What `fitGainCeiling` maximises over. */
 export interface GainCeilingProblem {
@@ -97,7 +98,7 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
       out[i] = v;
     }
   };
-  const baseAuc = rankAuc(Float64Array.from(scores as ArrayLike<number>), signal, noise);
+  const baseAuc = rocAuc(scores, isSignal);
   const best = { d: new Float64Array(C), auc: baseAuc, smooth: smoothAuc(Float64Array.from(scores as ArrayLike<number>), signal, noise, tau) };
   if (radius > 0) {
     for (let t = 0; t < iterations; t++) {
@@ -137,7 +138,7 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
         }
       }
       smooth /= signal.length * noise.length;
-      const auc = rankAuc(s, signal, noise);
+      const auc = rocAuc(s, isSignal);
       if (auc > best.auc || (auc === best.auc && smooth > best.smooth)) {
         best.d.set(d);
         best.auc = auc;
@@ -159,7 +160,7 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
       projectWeightedL1(d, weights, radius);
     }
     linearScores(d, s);
-    const auc = rankAuc(s, signal, noise);
+    const auc = rocAuc(s, isSignal);
     const smooth = smoothAuc(s, signal, noise, tau);
     if (auc > best.auc || (auc === best.auc && smooth > best.smooth)) {
       best.d.set(d);
@@ -216,30 +217,6 @@ export function projectWeightedL1(d: Float64Array, weights: ArrayLike<number>, r
 function shrink(v: number, t: number): number {
   const magnitude = Math.abs(v) - t;
   return magnitude > 0 ? Math.max(-1, Math.sign(v) * magnitude) : 0;
-}
-
-/** ROC area by the Mann–Whitney count over all (signal, noise) pairs, ties one half. */
-function rankAuc(s: Float64Array, signal: readonly number[], noise: readonly number[]): number {
-  const order = [...signal, ...noise].sort((a, b) => s[a]! - s[b]!);
-  const isSignal = new Uint8Array(s.length);
-  for (const i of signal) isSignal[i] = 1;
-  // walk in ascending order; a signal stimulus beats every noise stimulus below it, ties count 1/2
-  let noiseBelow = 0;
-  let wins = 0;
-  for (let a = 0; a < order.length; ) {
-    let b = a;
-    let tiedSignal = 0;
-    let tiedNoise = 0;
-    while (b < order.length && s[order[b]!] === s[order[a]!]) {
-      if (isSignal[order[b]!]) tiedSignal++;
-      else tiedNoise++;
-      b++;
-    }
-    wins += tiedSignal * (noiseBelow + tiedNoise / 2);
-    noiseBelow += tiedNoise;
-    a = b;
-  }
-  return wins / (signal.length * noise.length);
 }
 
 function smoothAuc(s: Float64Array, signal: readonly number[], noise: readonly number[], tau: number): number {
