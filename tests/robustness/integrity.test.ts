@@ -191,10 +191,11 @@ describe('symbolic links out of their folder', () => {
   });
 });
 
-describe('FIFOs are refused, never opened', () => {
-  it('a FIFO as model, as .npy stimuli and as a layer file is refused with what it is; check names it', async () => {
+describe('FIFOs and devices are refused, never opened', () => {
+  it('a FIFO (or device) as model, as .npy stimuli and as a layer file is refused with what it is; check names it', async () => {
     const modelFifo = fifo(join(dir, 'pipe.onnx'));
     expect(() => loadModel(modelFifo)).toThrow(/model .*pipe\.onnx is a FIFO \(named pipe\), not a regular file/);
+    expect(() => loadModel('/dev/zero')).toThrow(/model \/dev\/zero is a character device, not a regular file/); // reading it would never end
     const stimuliFifo = fifo(join(dir, 'pipe.npy'));
     await expect(recordSnapshot({ ...recordArgs(join(dir, 'from-fifo'), stimuliFifo) })).rejects.toThrow(/--stimuli .*pipe\.npy is a FIFO \(named pipe\), not a regular file/);
     const folder = copy('fifo-layer');
