@@ -29,4 +29,5 @@ export { fitSignature, type SignatureFit, type SignatureInput } from './signatur
 export { fitDepthProfile, type DepthPoint, type DepthProfile, type DepthProfileOptions } from './depth-profile.js';
 export { sparkline, type SparklineOptions } from './sparkline.js';
 export { signFlipTest, type SignFlipResult } from './sign-flip.js';
-export { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, rocAuc, type CriterionShift } from './roc.js';
+export { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder, type CriterionShift } from './roc.js';
+export { readoutChanges, type BaselineReadout, type ReadoutChanges } from './readout-change.js';

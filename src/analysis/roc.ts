@@ -53,6 +53,44 @@ export function rocAuc(scores: ArrayLike<number>, isSignal: Uint8Array): number 
 }
 
 /**
+ * ROC area of a weighted sample: trial i counts `weights[i]` times (a bootstrap resample given as
+ * multiplicities), from one sort of the full data shared by every resample — O(n) per call.
+ *
+ * @param scores, isSignal as in `rocAuc`; @param weights non-negative multiplicity per trial (0 = left out).
+ * @param order `rocOrder(scores)`, computed once for all resamples.
+ * @returns the same value `rocAuc` gives on the sample with each trial repeated weights[i] times.
+ * Edge cases: as `rocAuc` (NaN when a class has zero total weight).
+ */
+export function rocAucWeighted(scores: ArrayLike<number>, isSignal: Uint8Array, weights: ArrayLike<number>, order: Int32Array): number {
+  const n = order.length;
+  let noiseBelow = 0;
+  let signalCount = 0;
+  let wins = 0;
+  let i = 0;
+  while (i < n) {
+    const value = scores[order[i]!]!;
+    let signalInGroup = 0;
+    let noiseInGroup = 0;
+    while (i < n && scores[order[i]!]! === value) {
+      const w = weights[order[i]!]!;
+      if (isSignal[order[i]!] !== 0) signalInGroup += w;
+      else noiseInGroup += w;
+      i++;
+    }
+    wins += signalInGroup * (noiseBelow + noiseInGroup / 2);
+    noiseBelow += noiseInGroup;
+    signalCount += signalInGroup;
+  }
+  if (signalCount === 0 || noiseBelow === 0) return Number.NaN;
+  return wins / (signalCount * noiseBelow);
+}
+
+/** Indices of the finite scores in ascending score order, for `rocAucWeighted`. */
+export function rocOrder(scores: ArrayLike<number>): Int32Array {
+  return finiteOrder(scores);
+}
+
+/**
  * Standard error of an AUC by the exponential approximation of Hanley & McNeil (1982, Radiology 143:29,
  * eq. 1–3): SE² = [A(1−A) + (nS−1)(Q1−A²) + (nN−1)(Q2−A²)] / (nS·nN), Q1 = A/(2−A), Q2 = 2A²/(1+A).
  *
@@ -134,15 +172,18 @@ export interface CriterionShift {
 }
 
 /**
- * The criterion-shift-only control: the constant shift s of the baseline scores after which the fixed
- * threshold gives (as nearly as the data allow) the target false-alarm rate, and the hit rate it then gives.
- * A modulation whose hit rate is no better than this control at its own false-alarm rate did nothing but
- * move the criterion.
+ * The criterion-shift-only control: the smallest constant shift s of the baseline scores after which the
+ * fixed threshold gives (as nearly as the data allow) the target false-alarm rate, and the hit rate it then
+ * gives. A modulation whose hit rate is no better than this control at its own false-alarm rate did
+ * nothing but move the criterion.
  *
  * The rule "base + s > threshold" is the rule "base > cut" with cut = threshold − s. The number of noise
- * scores above the cut is chosen as the achievable count nearest target·nN (ties between two counts go
- * to the smaller one); the cut is then placed midway in the gap between the noise scores just above and
- * just below it (half a score unit beyond the extreme noise score when the count is 0 or nN).
+ * scores above the cut is the achievable count nearest target·nN (ties between two counts go to the
+ * smaller one). Every cut in [b, a) gives that count, b the largest noise score left below and a the
+ * smallest noise score above; the cut is the one nearest the threshold: the threshold itself when it is
+ * in [b, a) (shift 0, the baseline table), b when the threshold is below b, and midway between a and the
+ * next lower score of either class when the threshold is at or above a (one score unit below a when no
+ * score is lower). So the shift crosses no score it does not have to.
  *
  * @param baseScores baseline readout scores; @param isSignal 1 = signal trial, 0 = noise trial.
  * @param threshold the fixed decision threshold (finite).
@@ -179,7 +220,7 @@ export function criterionShiftControl(
   noise.sort(); // ascending; noise[noiseCount − j] is the j-th largest
   // Achievable counts of noise above a cut: j = 0, nN, and every j whose j-th and (j+1)-th largest differ.
   const target = targetFalseAlarmRate * noiseCount;
-  let bestCount = 0;
+  let count = 0;
   let bestDistance = target;
   for (let j = 1; j <= noiseCount; j++) {
     const achievable = j === noiseCount || noise[noiseCount - j]! > noise[noiseCount - j - 1]!;
@@ -187,13 +228,24 @@ export function criterionShiftControl(
     const distance = Math.abs(j - target);
     if (distance < bestDistance) {
       bestDistance = distance;
-      bestCount = j;
+      count = j;
     }
   }
-  const above = bestCount === 0 ? noise[noiseCount - 1]! + 1 : noise[noiseCount - bestCount]!;
-  const below = bestCount === noiseCount ? noise[0]! - 1 : noise[noiseCount - bestCount - 1]!;
-  let cut = below + (above - below) / 2;
-  if (cut >= above) cut = below; // neighbouring doubles: the midpoint rounds up; the lower one still separates
+  const above = count === 0 ? Number.POSITIVE_INFINITY : noise[noiseCount - count]!;
+  const below = count === noiseCount ? Number.NEGATIVE_INFINITY : noise[noiseCount - count - 1]!;
+  let cut: number;
+  if (threshold >= below && threshold < above) cut = threshold;
+  else if (threshold < below) cut = below;
+  else {
+    // just below `above`: midway to the largest score of either class under it
+    let lower = Number.NEGATIVE_INFINITY;
+    for (let i = 0; i < baseScores.length; i++) {
+      const score = baseScores[i]!;
+      if (Number.isFinite(score) && score < above && score > lower) lower = score;
+    }
+    cut = lower === Number.NEGATIVE_INFINITY ? above - 1 : lower + (above - lower) / 2;
+    if (cut >= above) cut = lower; // neighbouring doubles: the midpoint rounds up; the lower one still separates
+  }
   let hits = 0;
   let falseAlarms = 0;
   for (let i = 0; i < baseScores.length; i++) {

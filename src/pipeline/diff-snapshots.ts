@@ -1,5 +1,7 @@
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
+import { readoutChanges } from '../analysis/readout-change.js';
+import { rocAuc, rocAucWeighted, rocOrder } from '../analysis/roc.js';
 import { depthTrend, fitDepthProfile, FLAT_PROFILE_CHANGE, type DepthProfile } from '../analysis/depth-profile.js';
 import { LayerDiffAccumulator } from '../analysis/layer-diff.js';
 import { fitSignature, type SignatureFit } from '../analysis/signature.js';
@@ -36,6 +38,8 @@ export interface DiffOptions {
   tolerance?: number;
   /** Decision threshold on readout scores: a number, `best` (accuracy-maximising on the baseline), or `auto` (the model's threshold if its sidecar gives one, else `best`). */
   threshold?: number | 'best' | 'auto';
+  /** Detection measure the verdict leads with and `--vs` compares: `auc` (ROC area, threshold-free; default) or `dprime` (d′ at the fixed threshold). */
+  measure?: 'auc' | 'dprime';
   /** Called as each layer finishes. */
   onLayer?: (done: number, total: number, name: string) => void;
 }
@@ -83,7 +87,14 @@ export interface TaskCategory {
   mod: DetectionStats;
   /** mod − base, in percentage points for rates and accuracy, in units for d′ and c. */
   change: { hitRatePp: number; falseAlarmRatePp: number; accuracyPp: number; dPrime: number; criterion: number };
-  ci: { dPrime: [number, number]; accuracyPp: [number, number] } | null;
+  /** Bootstrap intervals over stimuli of the changes (one set of resamples for all three). */
+  ci: { dPrime: [number, number]; accuracyPp: [number, number]; auc: [number, number] } | null;
+  /** ROC area of the readout (threshold-free), base and mod, their difference and its bootstrap interval. */
+  auc: { base: number; mod: number; change: number; ci: [number, number] | null };
+  /** Hit rate of the modulated ROC at the baseline's false-alarm rate minus the baseline ROC's there, in pp. */
+  matchedHitRatePp: number;
+  /** Baseline scores shifted by the constant that reproduces the modulated false-alarm rate: hit rate and d′ vs base. */
+  criterionControl: { shift: number; hitRatePp: number; dPrime: number };
 }
 
 /** Task read-out: per category and averaged over categories. */
@@ -96,6 +107,12 @@ export interface TaskReport {
   mod: DetectionStats;
   change: TaskCategory['change'];
   ci: TaskCategory['ci'];
+  /** Means over categories (the interval is of the mean change). */
+  auc: TaskCategory['auc'];
+  matchedHitRatePp: number;
+  criterionControl: { hitRatePp: number; dPrime: number };
+  /** The measure the verdict leads with. */
+  measure: 'auc' | 'dprime';
 }
 
 /** The whole diff. */
@@ -118,7 +135,8 @@ export interface SchemeComparison {
   a: DiffReport;
   b: DiffReport;
   layers: Array<{ name: string; depth: number; a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean }>;
-  task: { a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean } | null;
+  /** Task change of A and B in `measure` (ROC area by default). */
+  task: { a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean; measure: 'auc' | 'dprime' } | null;
   verdict: string;
 }
 
@@ -303,7 +321,7 @@ async function readMeans(snapshot: Snapshot, layer: string, first: number, end: 
  * @returns the report.
  * @throws UsageError when a layer holds no stimuli.
  */
-export async function finishDiff(collection: DiffCollection, options: Pick<DiffOptions, 'bootstrap' | 'seed' | 'tolerance' | 'threshold'>): Promise<DiffReport> {
+export async function finishDiff(collection: DiffCollection, options: Pick<DiffOptions, 'bootstrap' | 'seed' | 'tolerance' | 'threshold' | 'measure'>): Promise<DiffReport> {
   const resamples = options.bootstrap ?? 1000;
   const seed = options.seed ?? 0;
   const tolerance = options.tolerance ?? 0.01;
@@ -365,7 +383,7 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
   const surviving = below.filter((r) => r.aboveFloor);
   const deepest = surviving.length > 0 ? surviving[surviving.length - 1]! : null;
   const depthProfile = fitDepthProfile(below.map((r) => ({ depth: r.belowSite, value: r.relativeChange })), { floor: Math.max(...below.map((r) => r.floor), 0) });
-  const task = collection.task ? taskReadout(collection.task, options.threshold ?? 'auto', resamples, seed) : null;
+  const task = collection.task ? taskReadout(collection.task, options.threshold ?? 'auto', resamples, seed, options.measure ?? 'auc') : null;
   const report: DiffReport = {
     base: { folder: collection.base.folder, modulation: null },
     mod: { folder: collection.mod.folder, modulation: collection.mod.modulation },
@@ -419,7 +437,7 @@ export function readoutOf(base: Snapshot): { layer: string; kinds: string[]; thr
   });
 }
 
-function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', resamples: number, seed: number): TaskReport {
+function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', resamples: number, seed: number, measure: 'auc' | 'dprime'): TaskReport {
   const { categories, units, baseScores, modScores, labels } = collected;
   const readout = { layer: collected.readout, kinds: collected.kinds, threshold: collected.modelThreshold };
   const n = labels.length;
@@ -439,6 +457,10 @@ function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', r
     const sb = detectFromScores(a, signal, threshold);
     const sm = detectFromScores(b, signal, threshold);
     columns.push({ a, b, signal, threshold });
+    const ci = resamples > 0 ? bootstrapChange([columns[columns.length - 1]!], resamples, `${seed}:task:${category}`) : null;
+    const aucBase = rocAuc(a, signal);
+    const aucMod = rocAuc(b, signal);
+    const readouts = readoutChanges({ scores: a, signal, threshold, detection: sb }, b, sm.falseAlarmRate);
     perCategory.push({
       category,
       unit,
@@ -448,7 +470,10 @@ function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', r
       base: pick(sb),
       mod: pick(sm),
       change: changeOf(sb, sm),
-      ci: resamples > 0 ? bootstrapChange([columns[columns.length - 1]!], resamples, `${seed}:task:${category}`) : null,
+      ci,
+      auc: { base: aucBase, mod: aucMod, change: aucMod - aucBase, ci: ci ? ci.auc : null },
+      matchedHitRatePp: readouts.matchedHitRatePp,
+      criterionControl: readouts.criterionControl,
     });
   }
   const average = (f: (s: DetectionStats) => number, side: 'base' | 'mod') => perCategory.reduce((sum, c) => sum + f(c[side]), 0) / perCategory.length;
@@ -464,6 +489,9 @@ function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', r
   });
   const baseMean = meanStats('base');
   const modMean = meanStats('mod');
+  const meanOf = (f: (c: TaskCategory) => number) => perCategory.reduce((sum, c) => sum + f(c), 0) / perCategory.length;
+  // with one category the mean is that category, and so is its interval (same resamples)
+  const ci = resamples > 0 ? (perCategory.length === 1 ? perCategory[0]!.ci : bootstrapChange(columns, resamples, `${seed}:task`)) : null;
   return {
     kind: 'detect',
     readout: readout.layer,
@@ -472,8 +500,11 @@ function taskReadout(collected: CollectedTask, rule: number | 'best' | 'auto', r
     base: baseMean,
     mod: modMean,
     change: changeOf(baseMean, modMean),
-    // with one category the mean is that category, and so is its interval (same resamples)
-    ci: resamples > 0 ? (perCategory.length === 1 ? perCategory[0]!.ci : bootstrapChange(columns, resamples, `${seed}:task`)) : null,
+    ci,
+    auc: { base: meanOf((c) => c.auc.base), mod: meanOf((c) => c.auc.mod), change: meanOf((c) => c.auc.change), ci: ci ? ci.auc : null },
+    matchedHitRatePp: meanOf((c) => c.matchedHitRatePp),
+    criterionControl: { hitRatePp: meanOf((c) => c.criterionControl.hitRatePp), dPrime: meanOf((c) => c.criterionControl.dPrime) },
+    measure,
   };
 }
 
@@ -517,17 +548,26 @@ function changeOf(a: DetectionStats, b: DetectionStats): TaskCategory['change'] 
   };
 }
 
-/** Paired bootstrap over stimuli of the mean change in d′ and accuracy across the given categories. */
+/**
+ * Paired bootstrap over stimuli of the mean change in d′, accuracy and ROC area across the given
+ * categories (the ROC areas from multiplicities over one sort per column, see `rocAucWeighted`).
+ */
 function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number }>, resamples: number, seed: string): TaskCategory['ci'] {
   const n = columns[0]!.a.length;
   if (n < 2) return null;
   const a = new Float64Array(n);
   const b = new Float64Array(n);
   const s = new Uint8Array(n);
+  const weights = new Float64Array(n);
+  const orders = columns.map((column) => ({ a: rocOrder(column.a), b: rocOrder(column.b) }));
   const intervals: BootstrapInterval[] = bootstrapIntervals(n, (idx, out) => {
     let dp = 0;
     let acc = 0;
-    for (const column of columns) {
+    let auc = 0;
+    weights.fill(0);
+    for (let i = 0; i < idx.length; i++) weights[idx[i]!]! += 1;
+    for (let k = 0; k < columns.length; k++) {
+      const column = columns[k]!;
       for (let i = 0; i < idx.length; i++) {
         a[i] = column.a[idx[i]!]!;
         b[i] = column.b[idx[i]!]!;
@@ -538,17 +578,20 @@ function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; sign
       if (signals === 0 || signals === n) {
         out[0] = Number.NaN;
         out[1] = Number.NaN;
+        out[2] = Number.NaN;
         return;
       }
       const sa = detectFromScores(a, s, column.threshold);
       const sb = detectFromScores(b, s, column.threshold);
       dp += sb.dPrime - sa.dPrime;
       acc += 100 * (sb.accuracy - sa.accuracy);
+      auc += rocAucWeighted(column.b, column.signal, weights, orders[k]!.b) - rocAucWeighted(column.a, column.signal, weights, orders[k]!.a);
     }
     out[0] = dp / columns.length;
     out[1] = acc / columns.length;
-  }, 2, { resamples, seed });
-  return { dPrime: [intervals[0]!.low, intervals[0]!.high], accuracyPp: [intervals[1]!.low, intervals[1]!.high] };
+    out[2] = auc / columns.length;
+  }, 3, { resamples, seed });
+  return { dPrime: [intervals[0]!.low, intervals[0]!.high], accuracyPp: [intervals[1]!.low, intervals[1]!.high], auc: [intervals[2]!.low, intervals[2]!.high] };
 }
 
 /**
@@ -618,14 +661,18 @@ export function verdictOf(report: DiffReport): string {
     parts.push(`signature slope ${siteRow.signature.slope.toFixed(3)} at the site, ${lastSignature.signature.slope.toFixed(3)} at ${lastSignature.name}`);
   }
   if (report.task) {
-    const ci = report.task.ci;
-    parts.push(`detection d′ ${signed(report.task.change.dPrime)}${ci ? ` [${ci.dPrime[0].toFixed(2)}, ${ci.dPrime[1].toFixed(2)}]` : ''}, accuracy ${signed(report.task.change.accuracyPp, 1)} pp`);
+    const task = report.task;
+    const ci = task.ci;
+    const auc = `ROC area (threshold-free) ${signed(task.auc.change, 3)}${ci ? ` [${ci.auc[0].toFixed(3)}, ${ci.auc[1].toFixed(3)}]` : ''}`;
+    const dPrime = `d′ at the fixed threshold ${signed(task.change.dPrime)}${ci ? ` [${ci.dPrime[0].toFixed(2)}, ${ci.dPrime[1].toFixed(2)}]` : ''}`;
+    const rest = `hit rate at the baseline's false-alarm rate ${signed(task.matchedHitRatePp, 1)} pp, accuracy ${signed(task.change.accuracyPp, 1)} pp`;
+    parts.push(`detection by ${task.measure === 'dprime' ? `${dPrime} (${auc})` : `${auc} (${dPrime})`}, ${rest}`);
   }
   return parts.join('; ');
 }
 
 /** Side-by-side comparison of two schemes against the same baseline. */
-export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
+export function compareSchemes(a: DiffReport, b: DiffReport, measure: 'auc' | 'dprime' = a.task?.measure ?? 'auc'): SchemeComparison {
   const layers = a.layers.map((la, i) => {
     const lb = b.layers[i]!;
     const larger: 'a' | 'b' | 'equal' = la.relativeChange > lb.relativeChange ? 'a' : lb.relativeChange > la.relativeChange ? 'b' : 'equal';
@@ -634,10 +681,11 @@ export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
   });
   let task: SchemeComparison['task'] = null;
   if (a.task && b.task) {
-    const da = a.task.change.dPrime;
-    const db = b.task.change.dPrime;
-    const separated = a.task.ci !== null && b.task.ci !== null && (a.task.ci.dPrime[0] > b.task.ci.dPrime[1] || b.task.ci.dPrime[0] > a.task.ci.dPrime[1]);
-    task = { a: da, b: db, larger: da > db ? 'a' : db > da ? 'b' : 'equal', separated };
+    const key = measure === 'auc' ? 'auc' : 'dPrime';
+    const da = measure === 'auc' ? a.task.auc.change : a.task.change.dPrime;
+    const db = measure === 'auc' ? b.task.auc.change : b.task.change.dPrime;
+    const separated = a.task.ci !== null && b.task.ci !== null && (a.task.ci[key][0] > b.task.ci[key][1] || b.task.ci[key][0] > a.task.ci[key][1]);
+    task = { a: da, b: db, larger: da > db ? 'a' : db > da ? 'b' : 'equal', separated, measure };
   }
   // the layers below every site of both schemes (A and B may modulate different sites)
   const below = layers.filter((_, i) => a.layers[i]!.belowSite > 0 && b.layers[i]!.belowSite > 0);
@@ -647,6 +695,6 @@ export function compareSchemes(a: DiffReport, b: DiffReport): SchemeComparison {
   const refused = nonFiniteVerdict(a) ?? nonFiniteVerdict(b);
   if (refused) return { a, b, layers, task, verdict: `${nonFiniteVerdict(a) ? 'A' : 'B'}: ${refused}` };
   const parts = [`below ${sameSites ? 'the site' : "both schemes' sites"}, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
-  if (task) parts.push(`detection d′ change A ${signed(task.a)} vs B ${signed(task.b)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
+  if (task) parts.push(`detection ${task.measure === 'auc' ? 'ROC-area (threshold-free)' : 'd′ (fixed threshold)'} change A ${signed(task.a, task.measure === 'auc' ? 3 : 2)} vs B ${signed(task.b, task.measure === 'auc' ? 3 : 2)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
   return { a, b, layers, task, verdict: parts.join('; ') };
 }

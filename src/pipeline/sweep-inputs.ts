@@ -20,7 +20,7 @@ import { TOOL_VERSION } from '../version.js';
  * Version of what a cell holds: bump it whenever `SweepCell` gains, loses or redefines a measure, so that
  * cells written before the change are not reused as if they had it.
  */
-export const SWEEP_CELL_FORMAT = 1;
+export const SWEEP_CELL_FORMAT = 2; // 2: ROC area, matched hit rate and criterion-shift control per cell
 
 /** What the cells of one sweep were computed from (the fields of the digest, in this order). */
 export interface SweepInputs {

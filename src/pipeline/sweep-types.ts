@@ -12,7 +12,12 @@ export interface SweepDetection {
   dPrime: number;
   criterion: number;
   accuracy: number;
+  /** ROC area of the readout score, signal against noise trials (threshold-free; see analysis/roc.ts). */
+  auc: number;
 }
+
+/** Which detection measure a verdict (`best`, `control`, the summary) ranks by. */
+export type SweepMeasure = 'auc' | 'dprime';
 
 /** Per-layer effect of one cell, below and at the site (`--depth-profile`). */
 export interface SweepDepthPoint {
@@ -39,20 +44,37 @@ export interface SweepCell {
   base: SweepDetection;
   mod: SweepDetection;
   /** mod − base: d′ and criterion in units, rates and accuracy in percentage points. */
-  change: { dPrime: number; criterion: number; hitRatePp: number; falseAlarmRatePp: number; accuracyPp: number };
+  change: {
+    dPrime: number;
+    criterion: number;
+    hitRatePp: number;
+    falseAlarmRatePp: number;
+    accuracyPp: number;
+    /** ROC area, mod − base. */
+    auc: number;
+    /** Hit rate of the modulated ROC at the baseline's false-alarm rate minus the baseline ROC's there, in pp. */
+    matchedHitRatePp: number;
+  };
+  /**
+   * Criterion-shift-only control: the baseline scores plus the constant shift that reproduces the modulated
+   * false-alarm rate at the fixed threshold; its hit rate and d′ as changes vs base (pp, units).
+   */
+  criterionControl: { shift: number; hitRatePp: number; dPrime: number };
   /** Mean absolute relative change of channel activity at the site: mean_k |ḡ_k − 1| weighted as applied (see docs). */
   siteActivityChange: number;
   /** Present with `--depth-profile`. */
   depthProfile?: SweepDepthPoint[];
 }
 
-/** The best cell of a site (largest mean d′ change across categories). */
+/** The best cell of a site (largest mean change across categories in `SweepResult.measure`). */
 export interface SweepBest {
   site: string;
   scheme: string;
   strength: number;
   /** Mean over cued categories (and control seeds). */
   dPrimeChange: number;
+  /** ROC-area change, mean over cued categories (and control seeds). */
+  aucChange: number;
   accuracyPp: number;
   siteActivityChange: number;
 }
@@ -61,7 +83,7 @@ export interface SweepBest {
 export interface SweepCalibration {
   site: string;
   scheme: string;
-  /** The target as given, e.g. `dprime:+0.5` or `accuracy:+10pp`. */
+  /** The target as given, e.g. `auc:+0.05`, `dprime:+0.5` or `accuracy:+10pp`. */
   target: string;
   /** Smallest strength reaching the target (interpolated), or null when no swept strength reaches it. */
   strength: number | null;
@@ -83,12 +105,14 @@ export interface SweepResult {
   /** Seeds of the shuffled control. */
   controlSeeds: number[];
   cells: SweepCell[];
+  /** The measure `best`, `control` and the summary rank by (default `auc`, threshold-free). */
+  measure: SweepMeasure;
   best: SweepBest[];
   calibration: SweepCalibration[];
   /** Rule-of-thumb band of attention-related firing-rate changes used for calibration, as fractions. */
   band: { low: number; high: number; source: string };
   /** Statistical comparison of the tuning scheme with the shuffled control across categories. */
-  control: { meanTuning: number; meanShuffled: number; difference: number; pValue: number; test: string } | null;
+  control: { meanTuning: number; meanShuffled: number; difference: number; pValue: number; test: string; measure: SweepMeasure } | null;
   summary: string;
   /** Which snapshot the tables' gains came from and which detection was measured on; `heldOut` says whether they differ (see held-out.ts). */
   evaluation?: SweepEvaluation;

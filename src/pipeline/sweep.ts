@@ -1,7 +1,9 @@
 import { appendFileSync, closeSync, existsSync, fsyncSync, openSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { linearFit } from '../analysis/correlation.js';
-import { detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
+import { readoutChanges } from '../analysis/readout-change.js';
+import { rocAuc } from '../analysis/roc.js';
+import { detectFromScores, type ScoreDetection } from '../analysis/signal-detection.js';
 import { signFlipTest } from '../analysis/sign-flip.js';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
@@ -21,7 +23,7 @@ import { assertSameModel, planTail, siteShapes } from './record-modulated.js';
 import { runPipelined } from './record-snapshot.js';
 import { shardRange } from './shard.js';
 import { ALL_ACTIVATIONS, chooseSites } from './sense.js';
-import type { SweepBest, SweepCalibration, SweepCell, SweepDepthPoint, SweepDetection, SweepResult } from './sweep-types.js';
+import type { SweepBest, SweepCalibration, SweepCell, SweepDepthPoint, SweepDetection, SweepMeasure, SweepResult } from './sweep-types.js';
 import { loadModulationTables } from './tables.js';
 import { assertSameSweepInputs, isSweepInputsHeader, sweepInputsDigest, sweepInputsHeader, sweepInputsOf, type SweepInputs } from './sweep-inputs.js';
 import { assertApartFromInputs, prepareSweepFolder } from './output-folder.js';
@@ -61,8 +63,10 @@ export interface SweepOptions {
   depthProfile?: boolean;
   /** Stimuli (the first ones, by index) the depth profile is measured on; default 64. */
   profileStimuli?: number;
-  /** Calibration target: `dprime:+0.5` or `accuracy:+10pp`. */
+  /** Calibration target: `auc:+0.05`, `dprime:+0.5` or `accuracy:+10pp`. */
   match?: string;
+  /** Measure `best`, `control` and the summary rank by: `auc` (default, threshold-free) or `dprime` (fixed threshold). */
+  measure?: SweepMeasure;
   /** Output folder: `cells.arrow`, `sweep.json`, and `cells.jsonl` (progress, for resuming). */
   out: string;
   /** Start afresh instead of skipping the cells already in `out/cells.jsonl`. */
@@ -99,13 +103,30 @@ export function cellKey(site: string, scheme: string, strength: number, category
   return JSON.stringify([site, scheme, strength, category, seed]);
 }
 
-/** Parses `dprime:+0.5` / `accuracy:+10pp`. */
-export function parseMatchTarget(text: string): { measure: 'dPrime' | 'accuracyPp'; value: number } {
-  const match = /^(dprime|accuracy):([+-]?\d+(?:\.\d+)?)(pp)?$/.exec(text.trim());
+/** Parses `auc:+0.05` / `dprime:+0.5` / `accuracy:+10pp`. */
+export function parseMatchTarget(text: string): { measure: 'auc' | 'dPrime' | 'accuracyPp'; value: number } {
+  const match = /^(auc|dprime|accuracy):([+-]?\d+(?:\.\d+)?)(pp)?$/.exec(text.trim());
   if (!match || (match[1] === 'accuracy') !== (match[3] === 'pp')) {
-    throw new UsageError('E_MATCH', `--match "${text}" must be dprime:+X (d′ change) or accuracy:+Xpp (accuracy change in percentage points)`);
+    throw new UsageError('E_MATCH', `--match "${text}" must be auc:+X (ROC-area change), dprime:+X (d′ change) or accuracy:+Xpp (accuracy change in percentage points)`);
   }
-  return { measure: match[1] === 'dprime' ? 'dPrime' : 'accuracyPp', value: Number(match[2]) };
+  return { measure: match[1] === 'auc' ? 'auc' : match[1] === 'dprime' ? 'dPrime' : 'accuracyPp', value: Number(match[2]) };
+}
+
+/** Checks a `--measure` value. */
+export function parseSweepMeasure(text: string | undefined): SweepMeasure {
+  if (text === undefined) return 'auc';
+  if (text !== 'auc' && text !== 'dprime') throw new UsageError('E_MEASURE', `--measure "${text}" is not one of auc, dprime`, { hint: 'auc ranks by the threshold-free ROC area (default); dprime by d′ at the fixed threshold' });
+  return text;
+}
+
+/** Baseline readout of one cued category: its scores, signal flags, fixed threshold and detection there. */
+interface CategoryBase {
+  unit: number;
+  signal: Uint8Array;
+  threshold: number;
+  base: ScoreDetection;
+  scores: Float64Array;
+  auc: number;
 }
 
 /**
@@ -137,6 +158,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   const seeds = options.controlSeeds ?? 3;
   if (!Number.isInteger(seeds) || seeds < 1) throw new UsageError('E_SEEDS', `--control-seeds must be a positive integer, got ${seeds}`);
   const match = options.match ? parseMatchTarget(options.match) : null;
+  const measure = parseSweepMeasure(options.measure);
   prepareSweepFolder(options.out);
   const progressPath = join(options.out, 'cells.jsonl');
   const done = new Map<string, SweepCell>();
@@ -166,7 +188,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   const n = baseline.manifest.stimuli.count;
   const units = baseline.layerGeometry(readout.layer).channels;
   const baseScores = await baseline.readChannelMeans(readout.layer);
-  const perCategory = new Map<string, { unit: number; signal: Uint8Array; threshold: number; base: DetectionStats }>();
+  const perCategory = new Map<string, CategoryBase>();
   for (const category of categories) {
     const unit = readout.kinds.indexOf(category);
     const scores = new Float64Array(n);
@@ -176,7 +198,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
       signal[i] = baseline.stimuli.labels[i]!.includes(category) ? 1 : 0;
     }
     const threshold = chooseThreshold(options.threshold ?? 'auto', readout.threshold, scores, signal);
-    perCategory.set(category, { unit, signal, threshold, base: detectFromScores(scores, signal, threshold) });
+    perCategory.set(category, { unit, signal, threshold, base: detectFromScores(scores, signal, threshold), scores, auc: rocAuc(scores, signal) });
   }
 
   const context: ResolveContext = { sites: siteShapes(inspection.layers), siteNames: inspection.layers.map((l) => l.name), categories: tables?.categories ?? categories, ...(tables ? { tables: tables.tables } : {}) };
@@ -239,7 +261,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   }
   const cells = mine.map((c) => done.get(c.key)!);
   const evaluation = describeEvaluation(baseline.folder, { tuning: options.tuning, sensitivity: options.sensitivity });
-  const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match }), inputs: { digest: sweepInputsDigest(inputs), ...inputs }, evaluation };
+  const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match, measure }), inputs: { digest: sweepInputsDigest(inputs), ...inputs }, evaluation };
   writeSweepTable(join(options.out, 'cells.arrow'), cells);
   replaceFile(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   return result;
@@ -281,7 +303,7 @@ interface GroupRun {
   baseline: Snapshot;
   site: string;
   group: PlannedCell[];
-  perCategory: Map<string, { unit: number; signal: Uint8Array; threshold: number; base: DetectionStats }>;
+  perCategory: Map<string, CategoryBase>;
   readout: string;
   units: number;
   depthProfile: boolean;
@@ -408,6 +430,8 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
     const info = run.perCategory.get(cell.category)!;
     const m = vectorOfCell[c]!;
     const mod = detectFromScores(scores[c]!, info.signal, info.threshold);
+    const modAuc = rocAuc(scores[c]!, info.signal);
+    const readouts = readoutChanges({ scores: info.scores, signal: info.signal, threshold: info.threshold, detection: info.base }, scores[c]!, mod.falseAlarmRate);
     let activity = 0;
     let weight = 0;
     for (let k = 0; k < C; k++) {
@@ -420,15 +444,18 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
       strength: cell.strength,
       category: cell.category,
       seed: cell.seed,
-      base: detection(info.base),
-      mod: detection(mod),
+      base: detection(info.base, info.auc),
+      mod: detection(mod, modAuc),
       change: {
         dPrime: mod.dPrime - info.base.dPrime,
         criterion: mod.criterion - info.base.criterion,
         hitRatePp: 100 * (mod.hitRate - info.base.hitRate),
         falseAlarmRatePp: 100 * (mod.falseAlarmRate - info.base.falseAlarmRate),
         accuracyPp: 100 * (mod.accuracy - info.base.accuracy),
+        auc: modAuc - info.auc,
+        matchedHitRatePp: readouts.matchedHitRatePp,
       },
+      criterionControl: readouts.criterionControl,
       siteActivityChange: weight > 0 ? activity / weight : Number.NaN,
     };
     if (run.depthProfile) {
@@ -455,8 +482,13 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   });
 }
 
-function detection(s: DetectionStats): SweepDetection {
-  return { hitRate: s.hitRate, falseAlarmRate: s.falseAlarmRate, dPrime: s.dPrime, criterion: s.criterion, accuracy: s.accuracy };
+function detection(s: ScoreDetection, auc: number): SweepDetection {
+  return { hitRate: s.hitRate, falseAlarmRate: s.falseAlarmRate, dPrime: s.dPrime, criterion: s.criterion, accuracy: s.accuracy, auc };
+}
+
+/** The change of a cell in the ranking measure. */
+function changeIn(measure: SweepMeasure): (c: SweepCell) => number {
+  return measure === 'auc' ? (c) => c.change.auc : (c) => c.change.dPrime;
 }
 
 interface SummaryInput {
@@ -469,6 +501,7 @@ interface SummaryInput {
   controlSeeds: number[];
   match: ReturnType<typeof parseMatchTarget> | null;
   matchText: string | undefined;
+  measure: SweepMeasure;
 }
 
 /** Mean over categories (and control seeds) of a cell measure, per site × scheme × strength. */
@@ -481,17 +514,20 @@ function curve(cells: readonly SweepCell[], site: string, scheme: string, streng
 
 function summarise(cells: SweepCell[], input: SummaryInput): SweepResult {
   const strengths = [...input.strengths];
+  const rankBy = (b: SweepBest): number => (input.measure === 'auc' ? b.aucChange : b.dPrimeChange);
   const best: SweepBest[] = input.sites.map((site) => {
     let top: SweepBest | null = null;
     for (const scheme of input.schemes.filter((s) => s !== 'shuffled')) {
       const dp = curve(cells, site, scheme, strengths, (c) => c.change.dPrime);
+      const auc = curve(cells, site, scheme, strengths, (c) => c.change.auc);
       const acc = curve(cells, site, scheme, strengths, (c) => c.change.accuracyPp);
       const act = curve(cells, site, scheme, strengths, (c) => c.siteActivityChange);
-      dp.forEach((value, i) => {
-        if (Number.isFinite(value) && (top === null || value > top.dPrimeChange)) top = { site, scheme, strength: strengths[i]!, dPrimeChange: value, accuracyPp: acc[i]!, siteActivityChange: act[i]! };
+      dp.forEach((_, i) => {
+        const candidate: SweepBest = { site, scheme, strength: strengths[i]!, dPrimeChange: dp[i]!, aucChange: auc[i]!, accuracyPp: acc[i]!, siteActivityChange: act[i]! };
+        if (Number.isFinite(rankBy(candidate)) && (top === null || rankBy(candidate) > rankBy(top))) top = candidate;
       });
     }
-    return top ?? { site, scheme: input.schemes[0] ?? 'none', strength: Number.NaN, dPrimeChange: Number.NaN, accuracyPp: Number.NaN, siteActivityChange: Number.NaN };
+    return top ?? { site, scheme: input.schemes[0] ?? 'none', strength: Number.NaN, dPrimeChange: Number.NaN, aucChange: Number.NaN, accuracyPp: Number.NaN, siteActivityChange: Number.NaN };
   });
   const calibration: SweepCalibration[] = [];
   if (input.match) {
@@ -524,30 +560,33 @@ function summarise(cells: SweepCell[], input: SummaryInput): SweepResult {
   }
   let control: SweepResult['control'] = null;
   if (input.schemes.includes('tuning') && input.schemes.includes('shuffled')) {
-    // per category: mean over sites and non-zero strengths of (tuning Δd′ − mean shuffled Δd′)
+    // per category: mean over sites and non-zero strengths of (tuning change − mean shuffled change), in the measure
     const differences: number[] = [];
     let meanTuning = 0;
     let meanShuffled = 0;
+    const change = changeIn(input.measure);
     for (const category of input.categories) {
-      const pick = (scheme: string) => cells.filter((c) => c.category === category && c.scheme === scheme && c.strength !== 0 && Number.isFinite(c.change.dPrime));
+      const pick = (scheme: string) => cells.filter((c) => c.category === category && c.scheme === scheme && c.strength !== 0 && Number.isFinite(change(c)));
       const t = pick('tuning');
       const s = pick('shuffled');
       if (t.length === 0 || s.length === 0) continue;
-      const mt = t.reduce((a, c) => a + c.change.dPrime, 0) / t.length;
-      const ms = s.reduce((a, c) => a + c.change.dPrime, 0) / s.length;
+      const mt = t.reduce((a, c) => a + change(c), 0) / t.length;
+      const ms = s.reduce((a, c) => a + change(c), 0) / s.length;
       meanTuning += mt;
       meanShuffled += ms;
       differences.push(mt - ms);
     }
     if (differences.length > 0) {
       const test = signFlipTest(differences);
-      control = { meanTuning: meanTuning / differences.length, meanShuffled: meanShuffled / differences.length, difference: test.mean, pValue: test.pValue, test: `paired sign-flip test across ${differences.length} cued categories (one-sided, ${test.exact ? 'exact' : 'Monte Carlo'})` };
+      control = { meanTuning: meanTuning / differences.length, meanShuffled: meanShuffled / differences.length, difference: test.mean, pValue: test.pValue, test: `paired sign-flip test across ${differences.length} cued categories (one-sided, ${test.exact ? 'exact' : 'Monte Carlo'})`, measure: input.measure };
     }
   }
   const lines: string[] = [];
-  const ranked = [...best].filter((b) => Number.isFinite(b.dPrimeChange)).sort((a, b) => b.dPrimeChange - a.dPrimeChange);
-  if (ranked[0]) lines.push(`largest gain in detection: ${ranked[0].scheme} at ${ranked[0].site}, strength ${ranked[0].strength}, d′ ${signed(ranked[0].dPrimeChange)} (${signed(ranked[0].accuracyPp, 1)} pp), site activity changed by ${(100 * ranked[0].siteActivityChange).toFixed(1)} %`);
-  if (control) lines.push(`tuning-based gain vs shuffled control: mean Δd′ ${control.meanTuning.toFixed(3)} vs ${control.meanShuffled.toFixed(3)}, p = ${control.pValue.toPrecision(2)} (${control.test})`);
+  const ranked = [...best].filter((b) => Number.isFinite(rankBy(b))).sort((a, b) => rankBy(b) - rankBy(a));
+  const measureName = input.measure === 'auc' ? 'ROC area (threshold-free)' : 'd′ at the fixed threshold';
+  const symbol = input.measure === 'auc' ? 'ΔAUC' : 'Δd′';
+  if (ranked[0]) lines.push(`largest gain in detection by ${measureName}: ${ranked[0].scheme} at ${ranked[0].site}, strength ${ranked[0].strength}, AUC ${signed(ranked[0].aucChange, 3)}, d′ ${signed(ranked[0].dPrimeChange)} (${signed(ranked[0].accuracyPp, 1)} pp), site activity changed by ${(100 * ranked[0].siteActivityChange).toFixed(1)} %`);
+  if (control) lines.push(`tuning-based gain vs shuffled control by ${measureName}: mean ${symbol} ${control.meanTuning.toFixed(3)} vs ${control.meanShuffled.toFixed(3)}, p = ${control.pValue.toPrecision(2)} (${control.test})`);
   for (const c of calibration.filter((x) => x.strength !== null)) lines.push(`${c.target} at ${c.site} with ${c.scheme}: strength ${c.strength!.toFixed(3)}, site activity ${(100 * c.siteActivityChange!).toFixed(1)} % (${c.withinBand ? 'inside' : 'outside'} the ${100 * ATTENTION_BAND.low}–${100 * ATTENTION_BAND.high} % band)`);
   return {
     kind: 'sweep',
@@ -559,6 +598,7 @@ function summarise(cells: SweepCell[], input: SummaryInput): SweepResult {
     categories: input.categories,
     controlSeeds: input.schemes.includes('shuffled') ? input.controlSeeds : [],
     cells,
+    measure: input.measure,
     best,
     calibration,
     band: ATTENTION_BAND,

@@ -46,13 +46,16 @@ export function renderDiffReport(report: DiffReport): string {
   lines.push(`depth profile from the site (log relative change): ${sparkline(below.map((l) => (l.relativeChange > 0 ? Math.log10(l.relativeChange) : Number.NaN)))}  rate ${fixed(report.depthProfile.rate)} per layer, r² ${fixed(report.depthProfile.r2, 2)}`);
   lines.push(`◆ modulation site; ratio = modulated ÷ baseline channel means (mean ± sd over channels); up/down: channels beyond ±tolerance; floor: ${report.floor.description}`);
   if (report.task) {
-    const task = new Table({ head: ['category', 'threshold', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy'], style: STYLE });
-    const rows = report.task.categories.map((c) => ({ name: c.category, threshold: fixed(c.threshold, 2), base: c.base, mod: c.mod, change: c.change, ci: c.ci }));
-    rows.push({ name: 'mean', threshold: '', base: report.task.base, mod: report.task.mod, change: report.task.change, ci: report.task.ci });
+    const task = new Table({ head: ['category', 'threshold', 'AUC', 'ΔAUC [95% CI]', 'ΔH at base F', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy', 'criterion shift only: ΔH, Δd′'], style: STYLE });
+    const rows = report.task.categories.map((c) => ({ name: c.category, threshold: fixed(c.threshold, 2), base: c.base, mod: c.mod, change: c.change, ci: c.ci, auc: c.auc, matched: c.matchedHitRatePp, control: c.criterionControl }));
+    rows.push({ name: 'mean', threshold: '', base: report.task.base, mod: report.task.mod, change: report.task.change, ci: report.task.ci, auc: report.task.auc, matched: report.task.matchedHitRatePp, control: { shift: Number.NaN, ...report.task.criterionControl } });
     for (const r of rows) {
       task.push([
         r.name,
         r.threshold,
+        `${fixed(r.auc.base, 3)} → ${fixed(r.auc.mod, 3)}`,
+        `${signed(r.auc.change, 3)}${r.auc.ci ? ` [${fixed(r.auc.ci[0], 3)}, ${fixed(r.auc.ci[1], 3)}]` : ''}`,
+        `${signed(r.matched, 1)} pp`,
         `${fixed(r.base.hitRate)} → ${fixed(r.mod.hitRate)}`,
         `${fixed(r.base.falseAlarmRate)} → ${fixed(r.mod.falseAlarmRate)}`,
         `${fixed(r.base.dPrime, 2)} → ${fixed(r.mod.dPrime, 2)}`,
@@ -60,9 +63,11 @@ export function renderDiffReport(report: DiffReport): string {
         `${fixed(r.base.accuracy * 100, 1)}% → ${fixed(r.mod.accuracy * 100, 1)}%`,
         `${signed(r.change.dPrime)}${r.ci ? ` [${fixed(r.ci.dPrime[0], 2)}, ${fixed(r.ci.dPrime[1], 2)}]` : ''}`,
         `${signed(r.change.accuracyPp, 1)} pp`,
+        `${signed(r.control.hitRatePp, 1)} pp, ${signed(r.control.dPrime)}`,
       ]);
     }
     lines.push('', `task: detection from "${report.task.readout}" (${report.task.thresholdRule}); rates base → modulated`, task.toString());
+    lines.push("AUC: ROC area of the readout (threshold-free); ΔH at base F: hit-rate change at the baseline's false-alarm rate; criterion shift only: the baseline shifted by a constant to the modulated false-alarm rate");
   }
   lines.push('', `verdict: ${report.verdict}`);
   return `${lines.join('\n')}\n`;
@@ -76,7 +81,10 @@ export function renderComparison(comparison: SchemeComparison, labels: [string, 
     table.push([`${l.depth}${a.site || comparison.b.layers[i]!.site ? ' ◆' : ''}`, l.name, compact(l.a), compact(l.b), l.larger === 'equal' ? '=' : l.larger === 'a' ? labels[0] : labels[1], l.separated ? 'yes' : 'no']);
   });
   const lines = [`${labels[0]}: ${comparison.a.mod.folder}`, `${labels[1]}: ${comparison.b.mod.folder}`, table.toString()];
-  if (comparison.task) lines.push(`detection Δd′: ${labels[0]} ${signed(comparison.task.a)}, ${labels[1]} ${signed(comparison.task.b)}`);
+  if (comparison.task) {
+    const digits = comparison.task.measure === 'auc' ? 3 : 2;
+    lines.push(`detection ${comparison.task.measure === 'auc' ? 'ΔAUC (threshold-free)' : 'Δd′ (fixed threshold)'}: ${labels[0]} ${signed(comparison.task.a, digits)}, ${labels[1]} ${signed(comparison.task.b, digits)}`);
+  }
   lines.push(`verdict ${labels[0]}: ${comparison.a.verdict}`, `verdict ${labels[1]}: ${comparison.b.verdict}`, `comparison: ${comparison.verdict.replace(/\bA\b/g, labels[0]).replace(/\bB\b/g, labels[1])}`);
   return `${lines.join('\n')}\n`;
 }

@@ -5,7 +5,9 @@ import { replaceFile } from './atomic-file.js';
 /**
  * Writes sweep cells as an Arrow IPC file, one row per cell: `site`, `scheme`, `category` utf8,
  * `strength` float64, `seed` int32, `base_*` and `mod_*` (hit_rate, false_alarm_rate, d_prime,
- * criterion, accuracy) float64, `d_prime_change`, `accuracy_change_pp`, `site_activity_change` float64.
+ * criterion, accuracy, auc) float64, `d_prime_change`, `accuracy_change_pp`, `auc_change`,
+ * `matched_hit_rate_change_pp`, `criterion_control_hit_rate_pp`, `criterion_control_d_prime`,
+ * `site_activity_change` float64.
  * Written under a temporary name, fsynced and renamed (`replaceFile`).
  */
 export function writeSweepTable(path: string, cells: readonly SweepCell[]): void {
@@ -21,13 +23,19 @@ export function writeSweepTable(path: string, cells: readonly SweepCell[]): void
     base_d_prime: f64((c) => c.base.dPrime),
     base_criterion: f64((c) => c.base.criterion),
     base_accuracy: f64((c) => c.base.accuracy),
+    base_auc: f64((c) => c.base.auc),
     mod_hit_rate: f64((c) => c.mod.hitRate),
     mod_false_alarm_rate: f64((c) => c.mod.falseAlarmRate),
     mod_d_prime: f64((c) => c.mod.dPrime),
     mod_criterion: f64((c) => c.mod.criterion),
     mod_accuracy: f64((c) => c.mod.accuracy),
+    mod_auc: f64((c) => c.mod.auc),
     d_prime_change: f64((c) => c.change.dPrime),
     accuracy_change_pp: f64((c) => c.change.accuracyPp),
+    auc_change: f64((c) => c.change.auc),
+    matched_hit_rate_change_pp: f64((c) => c.change.matchedHitRatePp),
+    criterion_control_hit_rate_pp: f64((c) => c.criterionControl.hitRatePp),
+    criterion_control_d_prime: f64((c) => c.criterionControl.dPrime),
     site_activity_change: f64((c) => c.siteActivityChange),
   });
   replaceFile(path, tableToIPC(table, 'file'));

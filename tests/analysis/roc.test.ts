@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, rocAuc } from '../../src/analysis/roc.js';
+import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder } from '../../src/analysis/roc.js';
+import { bootstrapInterval } from '../../src/analysis/bootstrap.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
 
@@ -91,6 +92,55 @@ describe('rocAuc', () => {
     expect(rocAuc([1, 2], Uint8Array.from([1, 1]))).toBeNaN();
     expect(rocAuc([0, Number.NaN, 2, Number.POSITIVE_INFINITY], Uint8Array.from([0, 0, 1, 0]))).toBe(1);
     expect(() => rocAuc([1, 2], Uint8Array.from([1]))).toThrow(UsageError);
+  });
+});
+
+describe('rocAucWeighted', () => {
+  it('rocAucWeighted(multiplicities) = rocAuc of the sample with each trial repeated that often', () => {
+    // Exact property: a bootstrap resample is the data with multiplicities; expand it and count pairs.
+    const { scores, isSignal } = randomTrials(9, 80);
+    const order = rocOrder(scores);
+    const random = createRandom(99);
+    for (let r = 0; r < 5; r++) {
+      const weights = new Float64Array(scores.length);
+      const picked: number[] = [];
+      for (let i = 0; i < scores.length; i++) {
+        const j = random.int(scores.length);
+        weights[j]! += 1;
+        picked.push(j);
+      }
+      const expanded = Float64Array.from(picked, (j) => scores[j]!);
+      const flags = Uint8Array.from(picked, (j) => isSignal[j]!);
+      expect(rocAucWeighted(scores, isSignal, weights, order)).toBeCloseTo(pairAuc(expanded, flags), 12);
+    }
+  });
+
+  it('rocAucWeighted under the bootstrap: the interval holds the estimate and narrows about 1/√n (Hanley–McNeil SE as yardstick)', () => {
+    // Percentile bootstrap (Efron & Tibshirani 1993) of the AUC; for large n its sd approaches the
+    // Hanley & McNeil (1982) standard error, which scales as 1/√n at a fixed area (their eq. 1).
+    const widths: number[] = [];
+    for (const n of [100, 1600]) {
+      const { scores, isSignal } = randomTrials(13 + n, n);
+      const order = rocOrder(scores);
+      const weights = new Float64Array(n);
+      const interval = bootstrapInterval(n, (idx) => {
+        weights.fill(0);
+        for (let i = 0; i < idx.length; i++) weights[idx[i]!]! += 1;
+        return rocAucWeighted(scores, isSignal, weights, order);
+      }, { resamples: 400, seed: 5 });
+      expect(interval.estimate).toBe(rocAuc(scores, isSignal));
+      expect(interval.low).toBeLessThanOrEqual(interval.estimate);
+      expect(interval.high).toBeGreaterThanOrEqual(interval.estimate);
+      let signals = 0;
+      for (let i = 0; i < n; i++) signals += isSignal[i]!;
+      const se = aucStandardError(interval.estimate, signals, n - signals);
+      expect(interval.sd / se).toBeGreaterThan(0.7);
+      expect(interval.sd / se).toBeLessThan(1.4);
+      widths.push(interval.high - interval.low);
+    }
+    // 16× the trials: about a quarter of the width (loose bounds for resampling noise)
+    expect(widths[1]! / widths[0]!).toBeGreaterThan(0.15);
+    expect(widths[1]! / widths[0]!).toBeLessThan(0.4);
   });
 });
 
@@ -190,8 +240,21 @@ describe('criterionShiftControl', () => {
       }
     }
     const control = criterionShiftControl(scores, isSignal, 0.1, falseAlarms / (scores.length - signal));
+    expect(control.shift).toBe(0);
     expect(control.falseAlarmRate).toBe(falseAlarms / (scores.length - signal));
     expect(control.hitRate).toBe(hits / signal);
+  });
+
+  it('criterionShiftControl moves the criterion no further than needed (crosses no extra signal score)', () => {
+    // Hand-worked: noise 1, 3, 5; signal 2, 4, 6; threshold 0 (all "yes"). Target 1/3: one noise above the
+    // cut, valid cuts [3, 5); nearest to 0 is 3 → shift −3, hits {4, 6} = 2/3.
+    // Target 2/3 from threshold 10 (all "no"): valid cuts [1, 3); just below 3, midway to 2 → cut 2.5,
+    // shift 7.5, hits {4, 6} = 2/3 (the signal score 2 is not crossed).
+    const scores = [1, 3, 5, 2, 4, 6];
+    const isSignal = Uint8Array.from([0, 0, 0, 1, 1, 1]);
+    expect(criterionShiftControl(scores, isSignal, 0, 1 / 3)).toEqual({ shift: -3, hitRate: 2 / 3, falseAlarmRate: 1 / 3 });
+    expect(criterionShiftControl(scores, isSignal, 10, 2 / 3)).toEqual({ shift: 7.5, hitRate: 2 / 3, falseAlarmRate: 2 / 3 });
+    expect(criterionShiftControl(scores, isSignal, 4.5, 1 / 3)).toEqual({ shift: 0, hitRate: 1 / 3, falseAlarmRate: 1 / 3 });
   });
 
   it('criterionShiftControl with tied noise scores takes the nearest achievable count, smaller on a tie', () => {

@@ -8,6 +8,7 @@ import { cliIo } from '../run.js';
 import { tuningLookup } from './tuning-lookup.js';
 import { diffPartial, writePartial } from '../../pipeline/partial-stats.js';
 import { parseShard } from '../../pipeline/shard.js';
+import { parseSweepMeasure } from '../../pipeline/sweep.js';
 import { assertOutFileWritable } from '../../pipeline/output-file.js';
 import { replaceFile } from '../../snapshot/atomic-file.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
@@ -22,6 +23,7 @@ interface DiffCliOptions {
   seed: number;
   tolerance: number;
   threshold?: string;
+  measure: string;
   json?: boolean;
   csv?: string;
   force?: boolean;
@@ -43,6 +45,7 @@ export function registerDiff(program: Command): void {
     .option('--target <category>', 'attended category (signature, and default task detect:CATEGORY)')
     .option('--task <task>', 'detect:CATEGORY[,CATEGORY…], detect:all or labels')
     .option('--threshold <value>', 'decision threshold: a number, "best" (accuracy-maximising on the baseline) or "auto" (model sidecar, else best)', 'auto')
+    .option('--measure <name>', 'detection measure the verdict and --vs lead with: auc (ROC area, threshold-free) or dprime (d′ at the fixed threshold)', 'auc')
     .option('--bootstrap <n>', 'bootstrap resamples over stimuli (0: none)', nonNegativeInteger, 1000)
     .option('--seed <n>', 'bootstrap seed', nonNegativeInteger, 0)
     .option('--tolerance <x>', 'channel ratio tolerance for up/down', finiteNumber, 0.01)
@@ -73,6 +76,7 @@ export function registerDiff(program: Command): void {
         seed: opts.seed,
         tolerance: opts.tolerance,
         threshold,
+        measure: parseSweepMeasure(opts.measure),
         onLayer: (done, total, name) => bar.update(done, total, name),
         ...(opts.floor ? { floor: open(opts.floor) } : {}),
         ...(opts.target ? { target: opts.target } : {}),

@@ -2,7 +2,8 @@ import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
 import { parseShard } from '../../pipeline/shard.js';
-import { sweepModulations } from '../../pipeline/sweep.js';
+import { parseSweepMeasure, sweepModulations } from '../../pipeline/sweep.js';
+import type { SweepCell } from '../../pipeline/sweep-types.js';
 import { fixed, signed } from '../../report/format.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
@@ -19,6 +20,7 @@ interface SweepCliOptions {
   controlSeeds: number;
   depthProfile?: boolean;
   match?: string;
+  measure?: string;
   out: string;
   restart?: boolean;
   threads: number;
@@ -57,7 +59,8 @@ export function registerSweep(program: Command): void {
     .option('--sensitivity <table>', 'sensitivity table (sonde sense) for the sensitivity scheme')
     .option('--control-seeds <n>', 'seeds of the shuffled control', positiveInteger, 3)
     .option('--depth-profile', 'also measure relative change and signature slope per layer below the site')
-    .option('--match <target>', 'calibrate: smallest strength reaching dprime:+X or accuracy:+Xpp')
+    .option('--match <target>', 'calibrate: smallest strength reaching auc:+X, dprime:+X or accuracy:+Xpp')
+    .option('--measure <name>', 'what best cells and the tuning-vs-shuffled control rank by: auc (ROC area, threshold-free) or dprime (d′ at the fixed threshold)', 'auc')
     .requiredOption('--out <dir>', 'result folder (cells.arrow, sweep.json; cells.jsonl lets an interrupted sweep resume)')
     .option('--restart', 'ignore finished cells in --out and start again')
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
@@ -77,6 +80,7 @@ export function registerSweep(program: Command): void {
           strengths: parseStrengths(opts.strengths),
           task: opts.task,
           controlSeeds: opts.controlSeeds,
+          measure: parseSweepMeasure(opts.measure),
           out: opts.out,
           threads: opts.threads,
           vectorsPerRun: opts.vectors,
@@ -96,19 +100,24 @@ export function registerSweep(program: Command): void {
         io.stdout(`${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
       }
-      const table = new Table({ head: ['site', 'scheme', ...result.strengths.map((s) => `β=${s}`)], style: { head: [], border: [], compact: true } });
-      for (const site of result.sites) {
-        for (const scheme of result.schemes) {
-          const row = result.strengths.map((strength) => {
-            const chosen = result.cells.filter((c) => c.site === site && c.scheme === scheme && c.strength === strength);
-            return chosen.length === 0 ? '' : signed(chosen.reduce((s, c) => s + c.change.dPrime, 0) / chosen.length);
-          });
-          table.push([site, scheme, ...row]);
+      const grid = (pick: (c: SweepCell) => number, digits: number): string => {
+        const table = new Table({ head: ['site', 'scheme', ...result.strengths.map((s) => `β=${s}`)], style: { head: [], border: [], compact: true } });
+        for (const site of result.sites) {
+          for (const scheme of result.schemes) {
+            const row = result.strengths.map((strength) => {
+              const chosen = result.cells.filter((c) => c.site === site && c.scheme === scheme && c.strength === strength);
+              return chosen.length === 0 ? '' : signed(chosen.reduce((s, c) => s + pick(c), 0) / chosen.length, digits);
+            });
+            table.push([site, scheme, ...row]);
+          }
         }
-      }
-      io.stdout(`mean change in detection d′ over ${result.categories.length} cued categories (threshold fixed on the baseline):\n${table.toString()}\n`);
-      const best = new Table({ head: ['site', 'best scheme', 'strength', 'Δd′', 'Δaccuracy', 'site activity change'], style: { head: [], border: [], compact: true } });
-      for (const b of result.best) best.push([b.site, b.scheme, fixed(b.strength, 2), signed(b.dPrimeChange), `${signed(b.accuracyPp, 1)} pp`, `${fixed(100 * b.siteActivityChange, 1)} %`]);
+        return table.toString();
+      };
+      io.stdout(`mean change in ROC area (AUC, threshold-free) over ${result.categories.length} cued categories:\n${grid((c) => c.change.auc, 3)}\n`);
+      io.stdout(`mean change in d′ at the threshold fixed on the baseline (moves with the criterion too):\n${grid((c) => c.change.dPrime, 2)}\n`);
+      io.stdout(`mean change in hit rate at the baseline's false-alarm rate (pp):\n${grid((c) => c.change.matchedHitRatePp, 1)}\n`);
+      const best = new Table({ head: ['site', `best scheme (by ${result.measure === 'auc' ? 'ΔAUC' : 'Δd′'})`, 'strength', 'ΔAUC', 'Δd′', 'Δaccuracy', 'site activity change'], style: { head: [], border: [], compact: true } });
+      for (const b of result.best) best.push([b.site, b.scheme, fixed(b.strength, 2), signed(b.aucChange, 3), signed(b.dPrimeChange), `${signed(b.accuracyPp, 1)} pp`, `${fixed(100 * b.siteActivityChange, 1)} %`]);
       io.stdout(`${best.toString()}\n`);
       if (result.calibration.length > 0) {
         const cal = new Table({ head: ['site', 'scheme', 'target', 'strength', 'site activity change', `in ${100 * result.band.low}–${100 * result.band.high} % band`], style: { head: [], border: [], compact: true } });

@@ -129,6 +129,13 @@ export interface TaskCurvePoint {
   /** Smallest and largest per-seed mean d′ change (the spread of the shuffled control across seeds; equal to the mean with one seed). */
   low: number;
   high: number;
+  /** Mean ROC-area change over the same cells (NaN for sweeps written before cells had it). */
+  aucChange: number;
+  /** Smallest and largest per-seed mean ROC-area change. */
+  aucLow: number;
+  aucHigh: number;
+  /** Mean hit-rate change at the baseline's false-alarm rate, pp. */
+  matchedHitRatePp: number;
   /** Cells averaged. */
   cells: number;
 }
@@ -170,7 +177,9 @@ export function taskCurves(sweep: SweepResult): TaskCurvePoint[] {
   const points: TaskCurvePoint[] = [];
   for (const cells of groups.values()) {
     const first = cells[0]!;
-    const seedMeans = [...groupBy(cells, (c) => String(num(c.seed))).values()].map((group) => mean(group.map((c) => num(c.change.dPrime))));
+    const seeds = [...groupBy(cells, (c) => String(num(c.seed))).values()];
+    const seedMeans = seeds.map((group) => mean(group.map((c) => num(c.change.dPrime))));
+    const seedAucMeans = seeds.map((group) => mean(group.map((c) => num(c.change.auc))));
     points.push({
       site: first.site,
       scheme: first.scheme,
@@ -179,6 +188,10 @@ export function taskCurves(sweep: SweepResult): TaskCurvePoint[] {
       accuracyPp: mean(cells.map((c) => num(c.change.accuracyPp))),
       low: Math.min(...seedMeans),
       high: Math.max(...seedMeans),
+      aucChange: mean(cells.map((c) => num(c.change.auc))),
+      aucLow: Math.min(...seedAucMeans),
+      aucHigh: Math.max(...seedAucMeans),
+      matchedHitRatePp: mean(cells.map((c) => num(c.change.matchedHitRatePp))),
       cells: cells.length,
     });
   }

@@ -143,16 +143,20 @@ export function depthProfileSpec(cells: readonly MatrixCell[], sites: readonly s
 }
 
 /**
- * Task performance against strength: mean d′ change per scheme (lines; the shuffled control dashed,
- * with its seed range as a band), one panel per site, and a zero line.
+ * Task performance against strength: mean change per scheme in the chosen measure (lines; the shuffled
+ * control dashed, with its seed range as a band), one panel per site, and a zero line.
  * @param points rows from `taskCurves`.
  * @param sites site order (panels).
  * @param schemes scheme order (colours).
+ * @param measure `auc` (ROC-area change, default) or `dprime` (d′ change at the fixed threshold).
  */
-export function taskCurveSpec(points: readonly TaskCurvePoint[], sites: readonly string[], schemes: readonly string[]): TopLevelSpec {
+export function taskCurveSpec(points: readonly TaskCurvePoint[], sites: readonly string[], schemes: readonly string[], measure: 'auc' | 'dprime' = 'auc'): TopLevelSpec {
   const present = schemes.filter((s) => points.some((p) => p.scheme === s));
   const panels = sites.filter((s) => points.some((p) => p.site === s));
-  const rows = points.map((p) => ({ site: p.site, scheme: p.scheme, strength: p.strength, value: Number.isFinite(p.dPrimeChange) ? p.dPrimeChange : null, low: Number.isFinite(p.low) ? p.low : null, high: Number.isFinite(p.high) ? p.high : null }));
+  const finite = (v: number) => (Number.isFinite(v) ? v : null);
+  const rows = points.map((p) => (measure === 'auc'
+    ? { site: p.site, scheme: p.scheme, strength: p.strength, value: finite(p.aucChange), low: finite(p.aucLow), high: finite(p.aucHigh) }
+    : { site: p.site, scheme: p.scheme, strength: p.strength, value: finite(p.dPrimeChange), low: finite(p.low), high: finite(p.high) }));
   const x = { field: 'strength', type: 'quantitative', title: 'strength' } as const;
   const color = { field: 'scheme', type: 'nominal', scale: { domain: present, range: schemeColours(present) }, legend: { title: 'scheme', orient: 'right', symbolType: 'stroke', symbolStrokeWidth: 3, symbolOpacity: 1 } } as const;
   return {
@@ -170,7 +174,7 @@ export function taskCurveSpec(points: readonly TaskCurvePoint[], sites: readonly
           mark: { type: 'line', strokeWidth: 2, point: { filled: true, size: 22 } },
           encoding: {
             x,
-            y: { field: 'value', type: 'quantitative', title: 'Δd′ vs baseline' },
+            y: { field: 'value', type: 'quantitative', title: measure === 'auc' ? 'ΔAUC vs baseline' : 'Δd′ vs baseline' },
             color,
             strokeDash: { field: 'scheme', type: 'nominal', scale: { domain: present, range: present.map((s) => (s === 'shuffled' ? [5, 3] : [1, 0])) }, legend: { title: 'scheme', orient: 'right', symbolType: 'stroke', symbolStrokeWidth: 3, symbolOpacity: 1 } },
           },

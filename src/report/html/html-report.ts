@@ -25,7 +25,7 @@ import { renderPage, type PageSection } from './page.js';
 import { renderSvg } from './render-svg.js';
 import { describeSizeMatched, sizeMatchedSection } from './size-matched-section.js';
 import type { TopLevelSpec } from 'vega-lite';
-import { agreementTable, bestCellsTable, calibrationTable, comparisonTable, diffLayerTable, diffSummaryTable, fmt, pct, sci, sgn, sweepTaskTable, taskTable, tuningTable } from './tables.js';
+import { agreementTable, bestCellsTable, calibrationTable, comparisonTable, diffLayerTable, diffSummaryTable, fmt, measureWords, pct, sci, sgn, sweepMeasureOf, sweepTaskTable, taskTable, tuningTable } from './tables.js';
 
 /** Options of `renderHtmlReport`. */
 export interface RenderReportOptions {
@@ -141,7 +141,7 @@ function taskSection(runs: ReturnType<typeof diffRuns>): PageSection | null {
   const withTask = runs.filter((r) => r.diff.task);
   if (withTask.length === 0) return null;
   const tables = withTask.map((r) => html`<h3>${r.label}</h3>${taskTable(r.diff.task!)}`);
-  return { id: 'detection', heading: 'Detection read-out of the diffs', body: html`<p class="lead">Hit rate, false alarms, d′ and criterion of the readout, baseline → modulated, per cued category.</p>${tables}` };
+  return { id: 'detection', heading: 'Detection read-out of the diffs', body: html`<p class="lead">ROC area (threshold-free), hit rate at the baseline's false-alarm rate, and hit rate, false alarms, d′ and criterion at the fixed threshold, baseline → modulated, per cued category. A gain that only moves the readout's criterion changes fixed-threshold d′ but not the ROC area; the last column shows what a pure criterion shift to the modulated false-alarm rate would do.</p>${tables}` };
 }
 
 function comparisonSection(inputs: readonly ReportInput[]): PageSection | null {
@@ -149,7 +149,9 @@ function comparisonSection(inputs: readonly ReportInput[]): PageSection | null {
   if (comparisons.length === 0) return null;
   const body = comparisons.map((c) => {
     const labels: [string, string] = [runLabel(c.comparison.a), runLabel(c.comparison.b)];
-    const task = c.comparison.task ? html`<p>detection Δd′: A ${sgn(c.comparison.task.a)}, B ${sgn(c.comparison.task.b)}${c.comparison.task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}</p>` : '';
+    const measure = c.comparison.task?.measure === 'auc' ? 'auc' : 'dprime';
+    const digits = measure === 'auc' ? 3 : 2;
+    const task = c.comparison.task ? html`<p>detection ${measure === 'auc' ? 'ΔAUC' : 'Δd′'} (${measureWords(measure)}): A ${sgn(c.comparison.task.a, digits)}, B ${sgn(c.comparison.task.b, digits)}${c.comparison.task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}</p>` : '';
     return html`<h3>${c.name}</h3>${comparisonTable(c.comparison, labels)}${task}`;
   });
   return { id: 'schemes', heading: 'Scheme comparisons', body: html`${body}` };
@@ -160,17 +162,20 @@ async function sweepSections(sweep: SweepResult, name: string, index: number, ch
   const suffix = index > 0 ? ` (${name})` : '';
   const curves = taskCurves(sweep);
   const control = sweep.control;
+  const measure = sweepMeasureOf(sweep);
+  const controlMeasure = control?.measure === 'auc' ? 'auc' : 'dprime';
+  const controlDigits = controlMeasure === 'auc' ? 3 : 2;
   const controlLine = control
-    ? html`<p>Control: mean Δd′ with tuning-based gain ${sgn(control.meanTuning)} vs shuffled ${sgn(control.meanShuffled)} (difference ${sgn(control.difference)}, p = ${fmt(control.pValue, 3)}, ${control.test}).</p>`
+    ? html`<p>Control, by ${measureWords(controlMeasure)}: mean ${controlMeasure === 'auc' ? 'ΔAUC' : 'Δd′'} with tuning-based gain ${sgn(control.meanTuning, controlDigits)} vs shuffled ${sgn(control.meanShuffled, controlDigits)} (difference ${sgn(control.difference, controlDigits)}, p = ${fmt(control.pValue, 3)}, ${control.test}).</p>`
     : '';
   const taskFigure = await charts.figure(
-    taskCurveSpec(curves, sweep.sites, sweep.schemes),
-    'Mean change of detection d′ (modulated − baseline) against strength, averaged over cued categories; one panel per site. The shuffled control is dashed, its band the range over control seeds; the horizontal line is no change.',
+    taskCurveSpec(curves, sweep.sites, sweep.schemes, measure),
+    `Mean change of detection ${measure === 'auc' ? 'ROC area (AUC, threshold-free)' : 'd′ at the fixed threshold'} (modulated − baseline) against strength, averaged over cued categories; one panel per site. The shuffled control is dashed, its band the range over control seeds; the horizontal line is no change.`,
   );
   sections.push({
     id: `sweep${index + 1}-task`,
     heading: `Task performance against strength${suffix}`,
-    body: html`<p class="lead">${name}: does the modulation help the detection task, at which site and scheme, and more than the shuffled control?</p>${taskFigure}${controlLine}${row(html`<h3>Best cell per site</h3>${bestCellsTable(sweep)}`, html`<h3>Per site and scheme</h3>${sweepTaskTable(curves)}`)}`,
+    body: html`<p class="lead">${name}: does the modulation help the detection task, at which site and scheme, and more than the shuffled control?</p>${taskFigure}${controlLine}${row(html`<h3>Best cell per site</h3>${bestCellsTable(sweep)}`, html`<h3>Per site and scheme</h3>${sweepTaskTable(curves, measure)}`)}`,
   });
   const matrix = propagationMatrix(sweep);
   const calibration = calibrationTable(sweep);
@@ -234,7 +239,7 @@ function verdictSection(inputs: readonly ReportInput[], runs: ReturnType<typeof 
     if (i.kind === 'comparison' && i.comparison.verdict) lines.push(html`<li><span class="name">${i.name}</span> (A vs B): ${i.comparison.verdict}</li>`);
     if (i.kind === 'sweep') {
       if (i.sweep.summary) lines.push(html`<li><span class="name">${i.name}</span>: ${i.sweep.summary}</li>`);
-      for (const b of i.sweep.best ?? []) lines.push(html`<li><span class="name">${b.site}</span>: best ${b.scheme} at strength ${fmt(b.strength, 2)}, Δd′ ${sgn(b.dPrimeChange)}, activity change at the site ${pct(b.siteActivityChange)}</li>`);
+      for (const b of i.sweep.best ?? []) lines.push(html`<li><span class="name">${b.site}</span>: best by ${measureWords(sweepMeasureOf(i.sweep))}: ${b.scheme} at strength ${fmt(b.strength, 2)}, ΔAUC ${sgn(b.aucChange, 3)}, Δd′ ${sgn(b.dPrimeChange)}, activity change at the site ${pct(b.siteActivityChange)}</li>`);
     }
     if (i.kind === 'agreement' && Number.isFinite(num(i.agreement.depthTrend?.slope))) {
       lines.push(html`<li><span class="name">${i.name}</span>: pooled tuning–sensitivity r changes by ${sgn(i.agreement.depthTrend.slope, 4)} per depth step</li>`);

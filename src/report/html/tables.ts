@@ -123,11 +123,12 @@ export function diffSummaryTable(runs: ReadonlyArray<{ label: string; diff: Diff
       label,
       diff.survival?.layer ? `${diff.survival.layer} (${fmt(diff.survival.belowSite, 0)} below)` : 'not above the floor',
       profileText(diff),
+      diff.task ? `${sgn(diff.task.auc?.change, 3)}${interval(diff.task.auc?.ci, (v) => fmt(v, 3))}` : '–',
       diff.task ? `${sgn(diff.task.change.dPrime)}${interval(diff.task.ci?.dPrime, (v) => fmt(v, 2))}` : '–',
       diff.task ? `${sgn(diff.task.change.accuracyPp, 1)} pp` : '–',
     ],
   }));
-  return table(['run', 'above the floor down to', 'depth profile', 'Δd′ [95 % CI]', 'Δaccuracy'], rows, [3, 4]);
+  return table(['run', 'above the floor down to', 'depth profile', 'ΔAUC [95 % CI]', 'Δd′ (fixed threshold) [95 % CI]', 'Δaccuracy'], rows, [3, 4, 5]);
 }
 
 /**
@@ -136,14 +137,21 @@ export function diffSummaryTable(runs: ReadonlyArray<{ label: string; diff: Diff
  */
 export function taskTable(task: TaskReport): SafeHtml {
   const arrow = (a: unknown, b: unknown, d = 2) => `${fmt(a, d)} → ${fmt(b, d)}`;
+  const aucCells = (auc: TaskReport['auc'] | undefined, matched: unknown) => [arrow(auc?.base, auc?.mod, 3), `${sgn(auc?.change, 3)}${interval(auc?.ci, (v) => fmt(v, 3))}`, `${sgn(matched, 1)} pp`];
+  const controlCell = (control: { hitRatePp: number; dPrime: number } | undefined) => (control ? `${sgn(control.hitRatePp, 1)} pp, ${sgn(control.dPrime)}` : '–');
   const rows: Row[] = task.categories.map((c) => ({
-    cells: [c.category, fmt(c.threshold, 2), arrow(c.base.hitRate, c.mod.hitRate), arrow(c.base.falseAlarmRate, c.mod.falseAlarmRate), arrow(c.base.dPrime, c.mod.dPrime), arrow(c.base.criterion, c.mod.criterion), `${pct(c.base.accuracy)} → ${pct(c.mod.accuracy)}`, `${sgn(c.change.dPrime)}${interval(c.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(c.change.accuracyPp, 1)} pp`],
+    cells: [c.category, fmt(c.threshold, 2), ...aucCells(c.auc, c.matchedHitRatePp), arrow(c.base.hitRate, c.mod.hitRate), arrow(c.base.falseAlarmRate, c.mod.falseAlarmRate), arrow(c.base.dPrime, c.mod.dPrime), arrow(c.base.criterion, c.mod.criterion), `${pct(c.base.accuracy)} → ${pct(c.mod.accuracy)}`, `${sgn(c.change.dPrime)}${interval(c.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(c.change.accuracyPp, 1)} pp`, controlCell(c.criterionControl)],
   }));
   rows.push({
     className: 'mean',
-    cells: ['mean', '', arrow(task.base.hitRate, task.mod.hitRate), arrow(task.base.falseAlarmRate, task.mod.falseAlarmRate), arrow(task.base.dPrime, task.mod.dPrime), arrow(task.base.criterion, task.mod.criterion), `${pct(task.base.accuracy)} → ${pct(task.mod.accuracy)}`, `${sgn(task.change.dPrime)}${interval(task.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(task.change.accuracyPp, 1)} pp`],
+    cells: ['mean', '', ...aucCells(task.auc, task.matchedHitRatePp), arrow(task.base.hitRate, task.mod.hitRate), arrow(task.base.falseAlarmRate, task.mod.falseAlarmRate), arrow(task.base.dPrime, task.mod.dPrime), arrow(task.base.criterion, task.mod.criterion), `${pct(task.base.accuracy)} → ${pct(task.mod.accuracy)}`, `${sgn(task.change.dPrime)}${interval(task.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(task.change.accuracyPp, 1)} pp`, controlCell(task.criterionControl)],
   });
-  return table(['category', 'threshold', 'hit rate', 'false alarms', 'd′', 'criterion', 'accuracy', 'Δd′ [95 % CI]', 'Δaccuracy'], rows, [1, 2, 3, 4, 5, 6, 7, 8], `detection from "${task.readout}" · ${task.thresholdRule} · base → modulated`);
+  return table(
+    ['category', 'threshold', 'AUC', 'ΔAUC [95 % CI]', 'ΔH at base F', 'hit rate', 'false alarms', 'd′', 'criterion', 'accuracy', 'Δd′ [95 % CI]', 'Δaccuracy', 'criterion shift only: ΔH, Δd′'],
+    rows,
+    [1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12],
+    `detection from "${task.readout}" · ${task.thresholdRule} · base → modulated · AUC: ROC area (threshold-free) · ΔH at base F: hit-rate change at the baseline's false-alarm rate · criterion shift only: the baseline scores shifted by a constant to the modulated false-alarm rate`,
+  );
 }
 
 /**
@@ -160,35 +168,50 @@ export function comparisonTable(comparison: SchemeComparison, labels: readonly [
   return table(['depth', 'layer', 'A: relative change', 'B: relative change', 'larger', 'intervals apart'], rows, [0, 2, 3], html`A = ${labels[0]} · B = ${labels[1]}`);
 }
 
-/**
- * The best cell of every site (largest mean d′ change) from a sweep.
- * @param sweep the sweep result.
- */
-export function bestCellsTable(sweep: SweepResult): SafeHtml {
-  const rows: Row[] = (sweep.best ?? []).map((b) => ({ cells: [b.site, b.scheme, fmt(b.strength, 2), sgn(b.dPrimeChange), `${sgn(b.accuracyPp, 1)} pp`, pct(b.siteActivityChange)] }));
-  return table(['site', 'best scheme', 'strength', 'Δd′', 'Δaccuracy', 'activity change'], rows, [2, 3, 4, 5], 'means over cued categories (and control seeds); activity change: mean |gain − 1| at the site');
+/** The measure a sweep ranks by (sweeps written before it was recorded ranked by d′). */
+export function sweepMeasureOf(sweep: SweepResult): 'auc' | 'dprime' {
+  return sweep.measure === 'auc' || sweep.measure === 'dprime' ? sweep.measure : 'dprime';
+}
+
+/** Words for a ranking measure. */
+export function measureWords(measure: 'auc' | 'dprime'): string {
+  return measure === 'auc' ? 'ROC area (threshold-free)' : 'd′ at the fixed threshold';
 }
 
 /**
- * Per site and scheme: the strength with the largest mean d′ change, that change, and the change at the
- * largest strength swept.
- * @param points rows from `taskCurves`.
+ * The best cell of every site (largest mean change in the sweep's measure) from a sweep.
+ * @param sweep the sweep result.
  */
-export function sweepTaskTable(points: readonly TaskCurvePoint[]): SafeHtml {
+export function bestCellsTable(sweep: SweepResult): SafeHtml {
+  const rows: Row[] = (sweep.best ?? []).map((b) => ({ cells: [b.site, b.scheme, fmt(b.strength, 2), sgn(b.aucChange, 3), sgn(b.dPrimeChange), `${sgn(b.accuracyPp, 1)} pp`, pct(b.siteActivityChange)] }));
+  return table(['site', 'best scheme', 'strength', 'ΔAUC', 'Δd′', 'Δaccuracy', 'activity change'], rows, [2, 3, 4, 5, 6], `best by ${measureWords(sweepMeasureOf(sweep))}; means over cued categories (and control seeds); activity change: mean |gain − 1| at the site`);
+}
+
+/**
+ * Per site and scheme: the strength with the largest mean change in the measure, the changes there, and
+ * the change at the largest strength swept.
+ * @param points rows from `taskCurves`.
+ * @param measure what "best" and the last column use: `auc` (default) or `dprime`.
+ */
+export function sweepTaskTable(points: readonly TaskCurvePoint[], measure: 'auc' | 'dprime' = 'auc'): SafeHtml {
+  const value = (p: TaskCurvePoint) => (measure === 'auc' ? p.aucChange : p.dPrimeChange);
+  const digits = measure === 'auc' ? 3 : 2;
   const groups = new Map<string, TaskCurvePoint[]>();
   for (const p of points) {
     const key = JSON.stringify([p.site, p.scheme]);
     groups.set(key, [...(groups.get(key) ?? []), p]);
   }
   const rows: Row[] = [...groups.values()].map((list) => {
-    const finite = list.filter((p) => Number.isFinite(p.dPrimeChange));
-    const best = finite.reduce<TaskCurvePoint | null>((acc, p) => (acc === null || p.dPrimeChange > acc.dPrimeChange ? p : acc), null);
+    const finite = list.filter((p) => Number.isFinite(value(p)));
+    const best = finite.reduce<TaskCurvePoint | null>((acc, p) => (acc === null || value(p) > value(acc) ? p : acc), null);
     const last = list[list.length - 1]!;
-    const spread = last.high > last.low ? ` (${sgn(last.low)} … ${sgn(last.high)})` : '';
-    return { cells: [list[0]!.site, list[0]!.scheme, best ? fmt(best.strength, 2) : '–', best ? sgn(best.dPrimeChange) : '–', best ? `${sgn(best.accuracyPp, 1)} pp` : '–', `${sgn(last.dPrimeChange)}${spread}`] };
+    const [low, high] = measure === 'auc' ? [last.aucLow, last.aucHigh] : [last.low, last.high];
+    const spread = high > low ? ` (${sgn(low, digits)} … ${sgn(high, digits)})` : '';
+    return { cells: [list[0]!.site, list[0]!.scheme, best ? fmt(best.strength, 2) : '–', best ? sgn(best.aucChange, 3) : '–', best ? sgn(best.dPrimeChange) : '–', best ? `${sgn(best.matchedHitRatePp, 1)} pp` : '–', best ? `${sgn(best.accuracyPp, 1)} pp` : '–', `${sgn(value(last), digits)}${spread}`] };
   });
   const top = points.length > 0 ? Math.max(...points.map((p) => p.strength).filter(Number.isFinite)) : Number.NaN;
-  return table(['site', 'scheme', 'best strength', 'Δd′', 'Δaccuracy', `Δd′ at ${fmt(top, 2)}`], rows, [2, 3, 4, 5], 'means over cued categories and control seeds; in brackets the range over control seeds');
+  const symbol = measure === 'auc' ? 'ΔAUC' : 'Δd′';
+  return table(['site', 'scheme', `best strength (by ${symbol})`, 'ΔAUC', 'Δd′', 'ΔH at base F', 'Δaccuracy', `${symbol} at ${fmt(top, 2)}`], rows, [2, 3, 4, 5, 6, 7], 'means over cued categories and control seeds; in brackets the range over control seeds; ΔH at base F: hit-rate change at the baseline\'s false-alarm rate');
 }
 
 /**
