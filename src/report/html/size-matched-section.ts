@@ -14,6 +14,12 @@ function interval(i: { estimate: unknown; low: unknown; high: unknown }): string
   return `${sgn(i.estimate, 3)} [${sgn(i.low, 3)}, ${sgn(i.high, 3)}]`;
 }
 
+/** A site, or "all N sites" for the sites of a several-site row (joined by +). */
+function siteName(site: string): string {
+  const parts = site.split('+');
+  return parts.length > 1 ? `all ${parts.length} sites (${parts.join(', ')})` : site;
+}
+
 /** One line describing the comparison (the report's inputs table). */
 export function describeSizeMatched(c: SizeMatchedComparison): string {
   return `${c.heldOut ? 'held out' : 'not held out'}: gains from ${c.fitSet}, detection on ${c.heldOutSet}; site modulation ${pct(c.size)}; ${c.categories.length} cued categories; ${c.effects.length} scheme rows`;
@@ -26,9 +32,9 @@ export function sizeMatchedSection(list: ReadonlyArray<{ name: string; compariso
     const head = ['site', 'scheme', 'size', 'ΔAUC [95 % CI]', 'of ceiling', 'Δhit (fixed threshold)', 'Δhit, criterion shift alone', 'Δfalse alarms', 'ceiling ΔAUC on the fitting set'];
     const rows = c.effects.map(
       (e) =>
-        html`<tr><td>${e.site}</td><td>${e.scheme}</td><td${NUM}>${pct(e.size)}</td><td${NUM}>${interval(e.aucChange)}</td><td${NUM}>${e.fractionOfCeiling === null ? '–' : pct(e.fractionOfCeiling, 0)}</td><td${NUM}>${sgn(e.hitRatePp, 1)} pp</td><td${NUM}>${sgn(e.criterionShiftHitRatePp, 1)} pp</td><td${NUM}>${sgn(e.falseAlarmRatePp, 1)} pp</td><td${NUM}>${e.fitSetAucChange === null || e.fitSetAucChange === undefined ? '–' : sgn(e.fitSetAucChange, 3)}</td></tr>`,
+        html`<tr><td>${siteName(e.site)}</td><td>${e.scheme}</td><td${NUM}>${pct(e.size)}</td><td${NUM}>${interval(e.aucChange)}</td><td${NUM}>${e.fractionOfCeiling === null ? '–' : pct(e.fractionOfCeiling, 0)}</td><td${NUM}>${sgn(e.hitRatePp, 1)} pp</td><td${NUM}>${sgn(e.criterionShiftHitRatePp, 1)} pp</td><td${NUM}>${sgn(e.falseAlarmRatePp, 1)} pp</td><td${NUM}>${e.fitSetAucChange === null || e.fitSetAucChange === undefined ? '–' : sgn(e.fitSetAucChange, 3)}</td></tr>`,
     );
-    const shuffled = c.versusShuffled.map((v) => html`<li>${v.site}: tuning − shuffled ΔAUC ${interval(v.difference)}</li>`);
+    const shuffled = c.versusShuffled.map((v) => html`<li>${siteName(v.site)}: ${v.site.includes('+') ? 'tuning-all − shuffled-all' : 'tuning − shuffled'} ΔAUC ${interval(v.difference)}</li>`);
     return html`${list.length > 1 ? html`<h3>${name}</h3>` : ''}<p class="note">Unmodulated held-out ROC area ${fmt(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories); ${fmt(c.resamples, 0)} bootstrap resamples of the held-out stimuli, the same for every row.</p><div class="table-wrap"><table><thead><tr>${head.map((h, i) => html`<th${i >= 2 ? NUM : new SafeHtml('')}>${h}</th>`)}</tr></thead><tbody>${rows}</tbody></table></div><ul class="verdicts">${shuffled}</ul>`;
   });
   return {
