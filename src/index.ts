@@ -40,6 +40,11 @@ export { loadModulationTables } from './pipeline/tables.js';
 export { sweepModulations, type SweepOptions } from './pipeline/sweep.js';
 export type { SweepResult, SweepCell } from './pipeline/sweep-types.js';
 export { runDemo, type DemoOptions, type DemoResult } from './pipeline/demo.js';
+export type { SweepEvaluation } from './pipeline/held-out.js';
+export { scoreGains, type GainScoringOptions } from './pipeline/gain-scores.js';
+export { fitSiteCeilings, type SiteCeiling, type SiteCeilingOptions } from './pipeline/ceiling.js';
+export { compareAtSize, type SizeMatchedComparison, type SizeMatchedOptions, type SchemeEffect } from './pipeline/size-matched.js';
+export { fitGainCeiling, type GainCeilingFit, type GainCeilingProblem } from './analysis/gain-ceiling.js';
 export { readTuningTable, readSensitivityTable, writeTuningTable, writeSensitivityTable } from './snapshot/tables.js';
 
 export { checkSnapshot, type CheckReport, type CheckProblem } from './snapshot/check.js';
