@@ -2,7 +2,7 @@ import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import quantile from '@stdlib/stats-base-dists-normal-quantile';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { diffSnapshots } from '../../src/pipeline/diff-snapshots.js';
+import { collectDiff, diffSnapshots, finishDiff } from '../../src/pipeline/diff-snapshots.js';
 import { recordModulated } from '../../src/pipeline/record-modulated.js';
 import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
@@ -120,6 +120,70 @@ describe('diffSnapshots', () => {
       expect(stats.criterion).toBeCloseTo(-(quantile(h, 0, 1) + quantile(f, 0, 1)) / 2, 9);
     }
     expect(task.change.dPrime).toBeCloseTo(task.categories[0]!.mod.dPrime - task.categories[0]!.base.dPrime, 12);
+  });
+
+  it('diffSnapshots ROC area equals brute-force pair counting on the recorded logits, and its interval holds the estimate', async () => {
+    // Definition of the area (Mann–Whitney: P(S > N) + ½P(S = N)), counted over every signal/noise pair here.
+    const report = await diffSnapshots({ base: join(dir, 'base-b'), mod: join(dir, 'task'), task: 'detect:beta', bootstrap: 300, seed: 2 });
+    const category = report.task!.categories[0]!;
+    for (const [side, folder] of [['base', join(dir, 'base-b')], ['mod', join(dir, 'task')]] as const) {
+      const snap = openSnapshot(folder);
+      const scores = await snap.readChannelMeans('logits');
+      const isBeta = snap.stimuli.labels.map((l) => l.includes('beta'));
+      let wins = 0;
+      let pairs = 0;
+      for (let i = 0; i < isBeta.length; i++) {
+        for (let j = 0; j < isBeta.length; j++) {
+          if (!isBeta[i] || isBeta[j]) continue;
+          pairs++;
+          wins += scores[i * 3 + 1]! > scores[j * 3 + 1]! ? 1 : scores[i * 3 + 1] === scores[j * 3 + 1] ? 0.5 : 0;
+        }
+      }
+      expect(category.auc[side]).toBeCloseTo(wins / pairs, 12);
+    }
+    expect(category.auc.change).toBeCloseTo(category.auc.mod - category.auc.base, 14);
+    expect(category.auc.ci![0]).toBeLessThanOrEqual(category.auc.change);
+    expect(category.auc.ci![1]).toBeGreaterThanOrEqual(category.auc.change);
+    expect(category.auc.ci).toEqual(category.ci!.auc);
+    expect(report.task!.measure).toBe('auc');
+    expect(report.verdict).toMatch(/detection by ROC area \(threshold-free\) [+-]\d\.\d{3} \[/);
+    const byDPrime = await diffSnapshots({ base: join(dir, 'base-b'), mod: join(dir, 'task'), task: 'detect:beta', bootstrap: 0, measure: 'dprime' });
+    expect(byDPrime.verdict).toMatch(/detection by d′ at the fixed threshold/);
+  });
+
+  it('diffSnapshots: a constant offset of every readout logit leaves ROC area, its interval and the matched hit rate unchanged exactly while fixed-threshold d′ moves', async () => {
+    // Exact property: a constant preserves the order of the scores (checked below: no ties made or broken);
+    // the sidecar threshold 0 meets the shifted logits elsewhere, so hit and false-alarm rates move.
+    const base = openSnapshot(join(dir, 'base-b'));
+    const collection = await collectDiff(base, openSnapshot(join(dir, 'base-b')), { base, mod: base, task: 'labels', bootstrap: 200 });
+    const task = collection.task!;
+    // the shift that puts threshold 0 between two noise logits of the first category (k false alarms, k ≠ now)
+    const unit0 = task.kinds.indexOf(task.categories[0]!);
+    const noise0 = task.labels.flatMap((labels, i) => (labels.includes(task.categories[0]!) ? [] : [task.baseScores[i * task.units + unit0]!])).sort((x, y) => y - x);
+    const now = noise0.filter((v) => v > 0).length;
+    const k = now === 2 ? 4 : 2;
+    const shift = -(noise0[k - 1]! + noise0[k]!) / 2;
+    const shifted = task.baseScores.map((v) => v + shift);
+    expect(new Set(shifted).size).toBe(new Set(task.baseScores).size);
+    const report = await finishDiff({ ...collection, task: { ...task, modScores: shifted } }, { bootstrap: 200, seed: 1 });
+    let moved = 0;
+    for (const c of report.task!.categories) {
+      expect(c.auc.mod, c.category).toBe(c.auc.base);
+      expect(c.auc.ci, c.category).toEqual([0, 0]);
+      expect(c.matchedHitRatePp, c.category).toBe(0);
+      if (c.change.dPrime !== 0) moved++;
+      // the criterion-only control reproduces the shifted false-alarm rate on the baseline logits
+      const unit = c.unit;
+      let falseAlarms = 0;
+      let noise = 0;
+      task.labels.forEach((labels, i) => {
+        if (labels.includes(c.category)) return;
+        noise++;
+        if (task.baseScores[i * task.units + unit]! + c.criterionControl.shift > c.threshold) falseAlarms++;
+      });
+      expect(falseAlarms / noise, c.category).toBe(c.mod.falseAlarmRate);
+    }
+    expect(moved).toBeGreaterThan(0);
   });
 
   it('diffSnapshots bootstrap with a fixed seed is reproducible, and another seed differs', async () => {

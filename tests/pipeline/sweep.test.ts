@@ -5,7 +5,7 @@ import { beforeAll, describe, expect, it } from 'vitest';
 import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
 import { recordModulated } from '../../src/pipeline/record-modulated.js';
 import { diffSnapshots } from '../../src/pipeline/diff-snapshots.js';
-import { sweepModulations, parseMatchTarget } from '../../src/pipeline/sweep.js';
+import { sweepModulations, parseMatchTarget, parseSweepMeasure } from '../../src/pipeline/sweep.js';
 import { tuneSnapshot } from '../../src/pipeline/tune.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
@@ -33,9 +33,31 @@ describe('sweepModulations', () => {
     for (const cell of zero) {
       expect(cell.mod).toEqual(cell.base);
       expect(cell.change.dPrime).toBe(0);
+      expect(cell.change.auc).toBe(0);
+      expect(cell.change.matchedHitRatePp).toBe(0);
+      // no change in false alarms: the criterion-only control is the baseline itself
+      expect(cell.criterionControl).toEqual({ shift: 0, hitRatePp: 0, dPrime: 0 });
       expect(cell.siteActivityChange).toBe(0);
     }
     expect(result.schemes).toEqual(['tuning', 'uniform', 'shuffled']);
+    // verdicts rank by the threshold-free measure by default and say so
+    expect(result.measure).toBe('auc');
+    expect(result.control!.measure).toBe('auc');
+    expect(result.summary).toMatch(/by ROC area \(threshold-free\)/);
+    for (const best of result.best) {
+      for (const cell of result.cells.filter((c) => c.scheme !== 'shuffled')) {
+        const same = result.cells.filter((c) => c.scheme === cell.scheme && c.strength === cell.strength);
+        expect(best.aucChange).toBeGreaterThanOrEqual(same.reduce((a, c) => a + c.change.auc, 0) / same.length - 1e-15);
+      }
+    }
+    // the control in d′ is the mean Δd′ of the tuning cells at non-zero strength (one site, so a plain mean per category)
+    const byDPrime = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], strengths: [0, 0.5], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), out: join(dir, 'sw0-dprime'), threads: 1, controlSeeds: 2, measure: 'dprime' });
+    expect(byDPrime.control!.measure).toBe('dprime');
+    const tuned = byDPrime.cells.filter((c) => c.scheme === 'tuning' && c.strength !== 0);
+    expect(byDPrime.control!.meanTuning).toBeCloseTo(tuned.reduce((a, c) => a + c.change.dPrime, 0) / tuned.length, 12);
+    const tunedAuc = result.cells.filter((c) => c.scheme === 'tuning' && c.strength !== 0);
+    expect(result.control!.meanTuning).toBeCloseTo(tunedAuc.reduce((a, c) => a + c.change.auc, 0) / tunedAuc.length, 12);
+    expect(byDPrime.summary).toMatch(/by d′ at the fixed threshold/);
   });
 
   it('sweepModulations cells equal a recorded modulated run diffed against the baseline (same gains, same read-out)', async () => {
@@ -48,6 +70,12 @@ describe('sweepModulations', () => {
     expect(cell.mod.hitRate).toBe(diff.task!.mod.hitRate);
     expect(cell.mod.falseAlarmRate).toBe(diff.task!.mod.falseAlarmRate);
     expect(cell.change.dPrime).toBeCloseTo(diff.task!.change.dPrime, 12);
+    const category = diff.task!.categories[0]!;
+    expect(cell.base.auc).toBeCloseTo(category.auc.base, 12);
+    expect(cell.mod.auc).toBeCloseTo(category.auc.mod, 6);
+    expect(cell.change.matchedHitRatePp).toBeCloseTo(category.matchedHitRatePp, 9);
+    expect(cell.criterionControl.hitRatePp).toBeCloseTo(category.criterionControl.hitRatePp, 9);
+    expect(cell.criterionControl.dPrime).toBeCloseTo(category.criterionControl.dPrime, 9);
     for (const point of cell.depthProfile!) {
       const row = diff.layers.find((l) => l.name === point.layer)!;
       expect(point.relativeChange, point.layer).toBeCloseTo(row.relativeChange, 6);
@@ -85,10 +113,13 @@ describe('sweepModulations', () => {
     const frame = pl.readIPC(readFileSync(join(dir, 'sw-cal', 'cells.arrow')));
     expect(frame.height).toBe(result.cells.length);
     expect(frame.columns).toContain('d_prime_change');
+    expect(frame.getColumn('auc_change').toArray()).toEqual(result.cells.map((c) => c.change.auc));
     // +0 pp is reached at strength 0 already: the smallest strength is 0 with no activity change
     expect(result.calibration[0]!.strength).toBe(0);
     expect(result.calibration[0]!.siteActivityChange).toBe(0);
     expect(parseMatchTarget('dprime:+0.5')).toEqual({ measure: 'dPrime', value: 0.5 });
+    expect(parseMatchTarget('auc:+0.05')).toEqual({ measure: 'auc', value: 0.05 });
+    expect(() => parseSweepMeasure('accuracy')).toThrow(/--measure/);
     expect(() => parseMatchTarget('dprime:+0.5pp')).toThrow(/--match/);
   });
 

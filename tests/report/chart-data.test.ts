@@ -45,6 +45,24 @@ describe('taskCurves', () => {
     expect(tuning.low).toBe(tuning.high); // one seed: no spread
   });
 
+  it('taskCurves(sweep) averages the ROC-area change and matched hit rate the same way, NaN for cells written without them', () => {
+    // by hand: seed 1 (0.01, 0.03) → 0.02; seed 2 (0.04, 0.08) → 0.06; mean 0.04; matched hit rate (1+2+3+6)/4 = 3
+    const withAuc = (c: SweepCell, auc: number, matched: number): SweepCell => ({ ...c, change: { ...c.change, auc, matchedHitRatePp: matched } });
+    const cells = [
+      withAuc(cell('s1', 'shuffled', 0.5, 'ring', 1, 0.1), 0.01, 1),
+      withAuc(cell('s1', 'shuffled', 0.5, 'bar', 1, 0.3), 0.03, 2),
+      withAuc(cell('s1', 'shuffled', 0.5, 'ring', 2, 0.4), 0.04, 3),
+      withAuc(cell('s1', 'shuffled', 0.5, 'bar', 2, 0.6), 0.08, 6),
+      cell('s1', 'tuning', 0.5, 'ring', 0, 1.0),
+    ];
+    const [tuning, shuffled] = taskCurves(sweepOf(cells, ['s1'], ['tuning', 'shuffled']));
+    expect(shuffled!.aucChange).toBeCloseTo(0.04, 12);
+    expect(shuffled!.aucLow).toBeCloseTo(0.02, 12);
+    expect(shuffled!.aucHigh).toBeCloseTo(0.06, 12);
+    expect(shuffled!.matchedHitRatePp).toBeCloseTo(3, 12);
+    expect(tuning!.aucChange).toBeNaN();
+  });
+
   it('taskCurves(sweep) sorts by sweep site order, then scheme order, then strength', () => {
     const cells = [cell('late', 'tuning', 1, 'c', 0, 0), cell('early', 'tuning', 1, 'c', 0, 0), cell('early', 'tuning', 0, 'c', 0, 0), cell('early', 'shuffled', 0, 'c', 1, 0)];
     const order = taskCurves(sweepOf(cells, ['early', 'late'], ['tuning', 'shuffled'])).map((p) => `${p.site}/${p.scheme}/${p.strength}`);

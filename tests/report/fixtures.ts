@@ -93,7 +93,15 @@ export function makeDiff(options: DiffFixtureOptions = {}): DiffReport {
   const perCategory: TaskCategory[] = categories.map((category, i) => {
     const base = stats(26 + i, 14 - i);
     const mod = stats(26 + i + gain, 13 - i);
-    return { category, unit: i, threshold: 0, signalTrials: 40, noiseTrials: 80, base, mod, change: change(base, mod), ci: { dPrime: [change(base, mod).dPrime - 0.2, change(base, mod).dPrime + 0.2], accuracyPp: [-1, 5] } };
+    const aucBase = 0.78 + 0.01 * i;
+    const aucChange = 0.01 * gain;
+    return {
+      category, unit: i, threshold: 0, signalTrials: 40, noiseTrials: 80, base, mod, change: change(base, mod),
+      ci: { dPrime: [change(base, mod).dPrime - 0.2, change(base, mod).dPrime + 0.2], accuracyPp: [-1, 5], auc: [aucChange - 0.02, aucChange + 0.02] },
+      auc: { base: aucBase, mod: aucBase + aucChange, change: aucChange, ci: [aucChange - 0.02, aucChange + 0.02] },
+      matchedHitRatePp: 2.5 * gain,
+      criterionControl: { shift: -0.1, hitRatePp: -1.25, dPrime: 0.01 },
+    };
   });
   const base = perCategory[0]!.base;
   const mod = perCategory[0]!.mod;
@@ -107,7 +115,11 @@ export function makeDiff(options: DiffFixtureOptions = {}): DiffReport {
     floor: { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
     survival: { layer: below[below.length - 1]!.name, belowSite: below[below.length - 1]!.belowSite },
     depthProfile: { rate, intercept: Math.log(start), halfDepth: rate < 0 ? Math.LN2 / -rate : null, doublingDepth: rate > 0 ? Math.LN2 / rate : null, r2: 1, used: below.length, excluded: 0 },
-    task: { kind: 'detect', readout: 'logits', thresholdRule: 'fixed threshold 0', categories: perCategory, base, mod, change: change(base, mod), ci: { dPrime: [0.1, 0.5], accuracyPp: [0, 6] } },
+    task: {
+      kind: 'detect', readout: 'logits', thresholdRule: 'fixed threshold 0', categories: perCategory, base, mod, change: change(base, mod),
+      ci: { dPrime: [0.1, 0.5], accuracyPp: [0, 6], auc: [0.01, 0.07] },
+      auc: perCategory[0]!.auc, matchedHitRatePp: perCategory[0]!.matchedHitRatePp, criterionControl: { hitRatePp: -1.25, dPrime: 0.01 }, measure: 'auc',
+    },
     verdict: '',
   };
   report.verdict = verdictOf(report);
@@ -144,8 +156,9 @@ export function makeSweep(options: SweepFixtureOptions = {}): SweepResult {
           for (const seed of scheme === 'shuffled' ? controlSeeds : [0]) {
             const slope = scheme === 'tuning' ? 0.5 + 0.3 * si : scheme === 'sensitivity' ? 0.7 + 0.4 * si : scheme === 'uniform' ? 0.05 : 0;
             const dPrime = strength * slope + (scheme === 'shuffled' ? 0.08 * strength * (random.uniform() - 0.5) : 0);
-            const base = { hitRate: 0.7, falseAlarmRate: 0.2, dPrime: 1.37, criterion: -0.16, accuracy: 0.77 };
-            const mod = { ...base, dPrime: base.dPrime + dPrime, accuracy: base.accuracy + 0.05 * dPrime };
+            const base = { hitRate: 0.7, falseAlarmRate: 0.2, dPrime: 1.37, criterion: -0.16, accuracy: 0.77, auc: 0.83 };
+            const auc = 0.04 * dPrime;
+            const mod = { ...base, dPrime: base.dPrime + dPrime, accuracy: base.accuracy + 0.05 * dPrime, auc: base.auc + auc };
             const act = 0.12 * strength;
             const depthProfile: SweepDepthPoint[] | undefined = options.depthProfile === false ? undefined : names.slice(siteOrdinals[si]!).map((layer, k) => ({
               layer,
@@ -156,7 +169,8 @@ export function makeSweep(options: SweepFixtureOptions = {}): SweepResult {
             }));
             cells.push({
               site, scheme, strength, category, seed, base, mod,
-              change: { dPrime, criterion: 0, hitRatePp: 100 * 0.1 * dPrime, falseAlarmRatePp: 0, accuracyPp: 100 * 0.05 * dPrime },
+              change: { dPrime, criterion: 0, hitRatePp: 100 * 0.1 * dPrime, falseAlarmRatePp: 0, accuracyPp: 100 * 0.05 * dPrime, auc, matchedHitRatePp: 100 * 0.1 * dPrime },
+              criterionControl: { shift: 0, hitRatePp: 0, dPrime: 0 },
               siteActivityChange: act,
               ...(depthProfile ? { depthProfile } : {}),
             });
@@ -171,10 +185,11 @@ export function makeSweep(options: SweepFixtureOptions = {}): SweepResult {
     model: { file: options.hostile ? HOSTILE.file : 'models/glyph-net.onnx', sha256: 'ab'.repeat(32) },
     baseline: 'snapshots/base',
     sites, schemes, strengths, categories, controlSeeds, cells,
-    best: sites.map((site, si) => ({ site, scheme: 'sensitivity', strength: top, dPrimeChange: top * (0.7 + 0.4 * si), accuracyPp: 5 * top * (0.7 + 0.4 * si), siteActivityChange: 0.12 * top })),
+    measure: 'auc',
+    best: sites.map((site, si) => ({ site, scheme: 'sensitivity', strength: top, dPrimeChange: top * (0.7 + 0.4 * si), aucChange: 0.04 * top * (0.7 + 0.4 * si), accuracyPp: 5 * top * (0.7 + 0.4 * si), siteActivityChange: 0.12 * top })),
     calibration: sites.flatMap((site) => ['tuning', 'sensitivity'].map((scheme) => ({ site, scheme, target: 'dprime:+0.5', strength: scheme === 'tuning' ? 0.62 : 0.45, siteActivityChange: scheme === 'tuning' ? 0.074 : 0.054, withinBand: true }))),
     band: { low: 0.05, high: 0.3, source: 'attention-related firing-rate changes, from memory (../shared/DOMAIN.md)' },
-    control: { meanTuning: 0.6, meanShuffled: 0.01, difference: 0.59, pValue: 0.004, test: 'paired t-test across categories' },
+    control: { meanTuning: 0.024, meanShuffled: 0.0004, difference: 0.0236, pValue: 0.004, test: 'paired t-test across categories', measure: 'auc' },
     summary: `attention helps most at ${sites[2]} (sensitivity, strength ${top})`,
   };
 }

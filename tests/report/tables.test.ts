@@ -5,8 +5,9 @@
  */
 import { describe, expect, it } from 'vitest';
 import { describeDepthProfile } from '../../src/pipeline/diff-snapshots.js';
-import { diffSummaryTable } from '../../src/report/html/tables.js';
-import { makeDiff } from './fixtures.js';
+import { bestCellsTable, diffSummaryTable, sweepMeasureOf, sweepTaskTable, taskTable } from '../../src/report/html/tables.js';
+import { taskCurves } from '../../src/report/html/chart-data.js';
+import { makeDiff, makeSweep } from './fixtures.js';
 
 const summary = (rate: number) => {
   const diff = makeDiff({ rate });
@@ -32,5 +33,27 @@ describe('diffSummaryTable depth profile', () => {
     expect(html).toContain('keeps its size (within 5 % over 9 layers)');
     expect(cli).toContain('keeps its size below');
     expect(html).not.toContain('doubles');
+  });
+});
+
+describe('detection tables name their measure', () => {
+  it('taskTable shows the ROC area, its interval, the matched hit rate and the criterion-shift control', () => {
+    const diff = makeDiff();
+    const text = taskTable(diff.task!).toString();
+    const c = diff.task!.categories[0]!;
+    expect(text).toContain(`${c.auc.base.toFixed(3)} → ${c.auc.mod.toFixed(3)}`);
+    expect(text).toContain(`+${c.auc.change.toFixed(3)} [${c.auc.ci![0].toFixed(3)}, ${c.auc.ci![1].toFixed(3)}]`);
+    expect(text).toContain(`+${c.matchedHitRatePp.toFixed(1)} pp`);
+    expect(text).toContain('criterion shift only');
+    expect(diff.verdict).toMatch(/^.*detection by ROC area \(threshold-free\) \+0\.040 \[0\.010, 0\.070\]/);
+  });
+
+  it('bestCellsTable and sweepTaskTable rank by the sweep measure; a sweep without one was ranked by d′', () => {
+    const sweep = makeSweep({ depthProfile: false });
+    expect(bestCellsTable(sweep).toString()).toContain('best by ROC area (threshold-free)');
+    expect(sweepTaskTable(taskCurves(sweep), 'auc').toString()).toContain('best strength (by ΔAUC)');
+    const { measure: _omitted, ...old } = sweep;
+    expect(sweepMeasureOf(old as typeof sweep)).toBe('dprime');
+    expect(bestCellsTable(old as typeof sweep).toString()).toContain('best by d′ at the fixed threshold');
   });
 });
