@@ -13,7 +13,8 @@
  * sweep reports as a cell's site activity change, so the ceiling and the schemes it is compared with
  * change the site by the same amount. The optimiser is projected gradient ascent with a shrinking
  * step (the projection onto the weighted-ℓ1 ball with the box is a soft threshold found by bisection).
- * It keeps the iterate with the largest exact ROC area of the linearised scores.
+ * It keeps the iterate with the largest exact ROC area of the linearised scores — of the validation
+ * stimuli when some are set aside (early stopping), else of all of them.
  */
 
 import { UsageError } from '../errors.js';
@@ -35,6 +36,11 @@ export interface GainCeilingProblem {
   budget: number;
   /** Width τ of the logistic step, in score units (default 0.1 × the scores' standard deviation). */
   temperature?: number;
+  /**
+   * Stimuli (1) kept out of the gradient and used to choose the iterate: early stopping on stimuli the
+   * fit does not see. Without it the iterate with the largest ROC area on all stimuli is kept.
+   */
+  validation?: Uint8Array;
   /** Gradient steps (default 100). */
   iterations?: number;
 }
@@ -47,7 +53,10 @@ export interface GainCeilingFit {
   linearAuc: number;
   /** ROC area of the scores at g = 1 (fitting stimuli). */
   baseAuc: number;
-  /** Smooth ROC area A_τ at this gain. */
+  /** ROC areas of the validation stimuli at this gain and at g = 1 (NaN without `validation`). */
+  validationAuc: number;
+  validationBaseAuc: number;
+  /** Smooth ROC area A_τ at this gain (training stimuli). */
   smoothAuc: number;
   /** Weighted mean |g − 1| of the result (≤ budget). */
   size: number;
@@ -71,10 +80,22 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
   if (!(budget >= 0) || !Number.isFinite(budget)) throw new UsageError('E_CEILING', `gain ceiling: the size budget ${budget} must be a finite number ≥ 0`);
   for (let i = 0; i < n; i++) if (!Number.isFinite(scores[i]!)) throw new UsageError('E_CEILING', `gain ceiling: score ${i} is ${scores[i]}`);
   for (let i = 0; i < jacobian.length; i++) if (!Number.isFinite(jacobian[i]!)) throw new UsageError('E_CEILING', `gain ceiling: derivative ${i} is ${jacobian[i]}`);
+  const validation = problem.validation;
+  if (validation && validation.length !== n) throw new UsageError('E_CEILING', `gain ceiling: the validation mask has ${validation.length} entries for ${n} stimuli`);
   const signal: number[] = [];
   const noise: number[] = [];
-  for (let i = 0; i < n; i++) (isSignal[i] ? signal : noise).push(i);
-  if (signal.length === 0 || noise.length === 0) throw new UsageError('E_CEILING', `gain ceiling: ${signal.length} signal and ${noise.length} noise stimuli; both classes are needed`);
+  for (let i = 0; i < n; i++) if (!validation?.[i]) (isSignal[i] ? signal : noise).push(i);
+  if (signal.length === 0 || noise.length === 0) throw new UsageError('E_CEILING', `gain ceiling: ${signal.length} signal and ${noise.length} noise stimuli to fit on; both classes are needed`);
+  // the validation stimuli as their own score and label arrays
+  const held = validation ? Array.from({ length: n }, (_, i) => i).filter((i) => validation[i]) : [];
+  const heldSignal = Uint8Array.from(held, (i) => isSignal[i]!);
+  const heldScores = new Float64Array(held.length);
+  const choose = (values: Float64Array): number => {
+    if (!validation) return rocAuc(values, isSignal);
+    held.forEach((i, h) => (heldScores[h] = values[i]!));
+    return rocAuc(heldScores, heldSignal);
+  };
+  if (validation && !(heldSignal.includes(1) && heldSignal.includes(0))) throw new UsageError('E_CEILING', 'gain ceiling: the validation stimuli need both classes');
   let mean = 0;
   for (let i = 0; i < n; i++) mean += scores[i]! / n;
   let variance = 0;
@@ -99,7 +120,8 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
     }
   };
   const baseAuc = rocAuc(scores, isSignal);
-  const best = { d: new Float64Array(C), auc: baseAuc, smooth: smoothAuc(Float64Array.from(scores as ArrayLike<number>), signal, noise, tau) };
+  const baseChoice = choose(Float64Array.from(scores as ArrayLike<number>));
+  const best = { d: new Float64Array(C), auc: baseChoice, smooth: smoothAuc(Float64Array.from(scores as ArrayLike<number>), signal, noise, tau) };
   if (radius > 0) {
     for (let t = 0; t < iterations; t++) {
       linearScores(d, s);
@@ -138,7 +160,7 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
         }
       }
       smooth /= signal.length * noise.length;
-      const auc = rocAuc(s, isSignal);
+      const auc = choose(s);
       if (auc > best.auc || (auc === best.auc && smooth > best.smooth)) {
         best.d.set(d);
         best.auc = auc;
@@ -160,7 +182,7 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
       projectWeightedL1(d, weights, radius);
     }
     linearScores(d, s);
-    const auc = rocAuc(s, isSignal);
+    const auc = choose(s);
     const smooth = smoothAuc(s, signal, noise, tau);
     if (auc > best.auc || (auc === best.auc && smooth > best.smooth)) {
       best.d.set(d);
@@ -168,13 +190,15 @@ export function fitGainCeiling(problem: GainCeilingProblem): GainCeilingFit {
       best.smooth = smooth;
     }
   }
+  linearScores(best.d, s);
+  const linearAuc = rocAuc(s, isSignal);
   const gain = new Float64Array(C);
   let size = 0;
   for (let k = 0; k < C; k++) {
     gain[k] = 1 + best.d[k]!;
     size += Math.max(0, weights[k]!) * Math.abs(best.d[k]!);
   }
-  return { gain, linearAuc: best.auc, baseAuc, smoothAuc: best.smooth, size: weightSum > 0 ? size / weightSum : 0, temperature: tau };
+  return { gain, linearAuc, baseAuc, validationAuc: validation ? best.auc : Number.NaN, validationBaseAuc: validation ? baseChoice : Number.NaN, smoothAuc: best.smooth, size: weightSum > 0 ? size / weightSum : 0, temperature: tau };
 }
 
 /**

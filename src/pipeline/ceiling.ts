@@ -24,6 +24,11 @@ export interface SiteCeilingOptions {
   categories: readonly string[];
   /** Allowed weighted mean |g − 1| at the site, per category. */
   budget: (category: string) => number;
+  /**
+   * Early stopping (default true): fit on every other fitting stimulus and keep the step whose gain
+   * gives the largest ROC area on the others, so the ceiling does not simply memorise the fitting set.
+   */
+  earlyStopping?: boolean;
   /** Forward-difference step of the derivatives (default 0.01). */
   step?: number;
   threads?: number;
@@ -100,7 +105,8 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
       for (let k = 0; k < C; k++) jacobian[i * C + k] = (scored[1 + k]![i * units + unit]! - scores[i]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
     }
     const budget = options.budget(category);
-    const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget });
+    const validation = options.earlyStopping === false ? undefined : Uint8Array.from({ length: n }, (_, i) => i % 2);
+    const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget, ...(validation ? { validation } : {}) });
     return { site, category, budget, gain: Float32Array.from(gain), fit: rest };
   });
 }

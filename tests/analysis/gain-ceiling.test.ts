@@ -36,6 +36,23 @@ describe('fitGainCeiling', () => {
     expect(fit.size).toBeLessThanOrEqual(0.2 + 1e-12);
   });
 
+  it('fitGainCeiling with the stimuli repeated as validation copies reaches the same hand-computed optimum on them', () => {
+    // each of the four stimuli twice; the second copies are held back from the gradient and choose the step
+    const twice = {
+      scores: [...problem.scores, ...problem.scores],
+      jacobian: Float64Array.from([...x.flat(), ...x.flat()]),
+      channels: 2,
+      isSignal: Uint8Array.from([1, 1, 0, 0, 1, 1, 0, 0]),
+      weights: [1, 1],
+      validation: Uint8Array.from([0, 0, 0, 0, 1, 1, 1, 1]),
+    };
+    const fit = fitGainCeiling({ ...twice, budget: 0.3 });
+    expect(fit.validationBaseAuc).toBe(0.75);
+    expect(fit.validationAuc).toBe(1);
+    expect(fit.linearAuc).toBe(1);
+    expect(() => fitGainCeiling({ ...twice, validation: Uint8Array.from([0, 0, 0, 0, 1, 1, 1]), budget: 0.3 })).toThrow(/validation mask/);
+  });
+
   it('fitGainCeiling with budget 0 returns gain 1 and the baseline ROC area', () => {
     const fit = fitGainCeiling({ ...problem, budget: 0 });
     expect(Array.from(fit.gain)).toEqual([1, 1]);

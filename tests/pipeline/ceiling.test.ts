@@ -60,10 +60,11 @@ describe('scoreGains', () => {
 });
 
 describe('fitSiteCeilings', () => {
-  it('fitSiteCeilings at the last ReLU (readout linear in its channel gains): the linearised ROC area equals the replayed one exactly, within the size budget, and not below the baseline', async () => {
+  it('fitSiteCeilings at the last ReLU (readout linear in its channel gains): the linearised ROC area equals the replayed one exactly, within the size budget, and not below the baseline where the step is chosen', async () => {
     const { model, inspection, baseline } = await setUp('linear', true, 9);
-    const ceilings = await fitSiteCeilings({ model, inspection, fit: baseline, site: 'relu2', categories: kinds, budget: () => 0.1, threads: 1 });
     const weights = await channelWeights(baseline, 'relu2');
+    // without early stopping the kept step is the best on all fitting stimuli, so never below g = 1
+    const ceilings = await fitSiteCeilings({ model, inspection, fit: baseline, site: 'relu2', categories: kinds, budget: () => 0.1, earlyStopping: false, threads: 1 });
     const scores = await scoreGains({ model, inspection, baseline, sites: ['relu2'], gains: ceilings.map((c) => [c.gain]), readout: 'logits', threads: 1 });
     ceilings.forEach((ceiling, c) => {
       const signal = baseline.stimuli.labels.map((l) => (l.includes(ceiling.category) ? 1 : 0));
@@ -73,8 +74,14 @@ describe('fitSiteCeilings', () => {
       expect(ceiling.fit.linearAuc).toBeGreaterThanOrEqual(ceiling.fit.baseAuc);
       expect(gainSize(ceiling.gain, weights)).toBeLessThanOrEqual(0.1 + 1e-6);
       expect(ceiling.fit.size).toBeLessThanOrEqual(0.1 + 1e-9);
+      expect(Number.isNaN(ceiling.fit.validationAuc)).toBe(true);
     });
     // the fits do move the gains (else the first check would hold trivially)
     expect(ceilings.some((c) => c.fit.size > 0.05 && c.fit.linearAuc > c.fit.baseAuc)).toBe(true);
+    // early stopping (the default) keeps the step best on the held-back half; g = 1 (step 0) is a candidate
+    for (const c of await fitSiteCeilings({ model, inspection, fit: baseline, site: 'relu2', categories: kinds, budget: () => 0.1, threads: 1 })) {
+      expect(c.fit.validationAuc).toBeGreaterThanOrEqual(c.fit.validationBaseAuc);
+      expect(gainSize(c.gain, weights)).toBeLessThanOrEqual(0.1 + 1e-6);
+    }
   });
 });
