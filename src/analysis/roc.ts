@@ -27,29 +27,7 @@ import { UsageError } from '../errors.js';
  */
 export function rocAuc(scores: ArrayLike<number>, isSignal: Uint8Array): number {
   checkLengths(scores, isSignal);
-  const order = finiteOrder(scores);
-  const n = order.length;
-  // Walk the scores upwards in groups of equal value; each signal score in a group beats every noise
-  // score below the group and ties with the noise scores inside it.
-  let noiseBelow = 0;
-  let signalCount = 0;
-  let wins = 0;
-  let i = 0;
-  while (i < n) {
-    const value = scores[order[i]!]!;
-    let signalInGroup = 0;
-    let noiseInGroup = 0;
-    while (i < n && scores[order[i]!]! === value) {
-      if (isSignal[order[i]!] !== 0) signalInGroup++;
-      else noiseInGroup++;
-      i++;
-    }
-    wins += signalInGroup * (noiseBelow + noiseInGroup / 2);
-    noiseBelow += noiseInGroup;
-    signalCount += signalInGroup;
-  }
-  if (signalCount === 0 || noiseBelow === 0) return Number.NaN;
-  return wins / (signalCount * noiseBelow);
+  return rocAucWeighted(scores, isSignal, new Uint8Array(scores.length).fill(1), finiteOrder(scores));
 }
 
 /**
@@ -67,6 +45,8 @@ export function rocAucWeighted(scores: ArrayLike<number>, isSignal: Uint8Array, 
   let signalCount = 0;
   let wins = 0;
   let i = 0;
+  // Walk the scores upwards in groups of equal value; each signal score in a group beats every noise
+  // score below the group and ties with the noise scores inside it.
   while (i < n) {
     const value = scores[order[i]!]!;
     let signalInGroup = 0;

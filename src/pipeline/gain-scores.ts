@@ -5,15 +5,16 @@
  * share one runtime call (rows = patterns × stimuli). Used by the gain ceiling (finite-difference
  * derivatives and fitted gains) and by the size-matched scheme comparison (one site or all at once).
  */
-import { RuntimeFailure, UsageError } from '../errors.js';
+import { UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { injectModulations, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import type { LoadedModel } from '../graph/load-model.js';
-import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
-import type { LayerBatch, Snapshot } from '../snapshot/snapshot.js';
+import { createNetworkSession } from '../session/network-session.js';
+import type { Snapshot } from '../snapshot/snapshot.js';
 import type { ModelInspection } from './inspect-model.js';
 import { planTail } from './record-modulated.js';
 import { runPipelined } from './record-snapshot.js';
+import { replicateBoundaryFeeds } from './replicate-feeds.js';
 
 /** Options of `scoreGains`. */
 export interface GainScoringOptions {
@@ -69,19 +70,7 @@ export async function scoreGains(options: GainScoringOptions): Promise<Float64Ar
           Math.ceil(n / baseline.manifest.run.batch),
           async () => {
             const parts = await Promise.all(streams.map((s) => s.next()));
-            const firstBatch = parts[0]!.value as LayerBatch | undefined;
-            if (!firstBatch) throw new RuntimeFailure('E_LAYER_READ', `baseline ${baseline.folder} ended early`);
-            const rows = firstBatch.rows;
-            const feeds: Record<string, FloatTensor> = {};
-            parts.forEach((part, i) => {
-              const batch = part.value as LayerBatch;
-              const name = tail.boundary[i]!;
-              if (!batch || batch.rows !== rows || batch.index[0] !== firstBatch.index[0]) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${name}" is not aligned with the others`);
-              const per = batch.activation!.length / rows;
-              const replicated = new Float32Array(M * rows * per);
-              for (let m = 0; m < M; m++) replicated.set(batch.activation!, m * rows * per); // rows: m*rows + i
-              feeds[siteSet.has(name) ? `${name}::raw` : name] = { data: replicated, dims: [M * rows, ...baseline.layer(name).shape] };
-            });
+            const { rows, firstBatch, feeds } = replicateBoundaryFeeds(parts, tail.boundary, siteSet, M, baseline);
             sites.forEach((site, s) => {
               const shape = shapes[s]!;
               const C = shape[0]!;

@@ -5,7 +5,7 @@ import { readoutChanges } from '../analysis/readout-change.js';
 import { rocAuc } from '../analysis/roc.js';
 import { detectFromScores, type ScoreDetection } from '../analysis/signal-detection.js';
 import { signFlipTest } from '../analysis/sign-flip.js';
-import { RuntimeFailure, UsageError } from '../errors.js';
+import { UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { injectModulations, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
@@ -13,13 +13,14 @@ import { resolveModulations } from '../modulation/resolve.js';
 import { validateModulationSpec } from '../modulation/spec.js';
 import type { ResolveContext } from '../modulation/types.js';
 import { createRandom } from '../random.js';
-import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
+import { createNetworkSession } from '../session/network-session.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { signed } from '../report/format.js';
 import { writeSweepTable } from '../snapshot/sweep-table.js';
 import { chooseThreshold, parseDetectionTask, readoutOf } from './diff-snapshots.js';
 import { inspectModel } from './inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from './record-modulated.js';
+import { replicateBoundaryFeeds } from './replicate-feeds.js';
 import { runPipelined } from './record-snapshot.js';
 import { shardRange } from './shard.js';
 import { ALL_ACTIVATIONS, chooseSites } from './sense.js';
@@ -361,19 +362,7 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
       async () => {
         const parts = await Promise.all(boundaryStreams.map((s) => s.next()));
         const baseParts = await Promise.all(profileStreams.map((s) => s.next()));
-        const firstBatch = parts[0]!.value as LayerBatch | undefined;
-        if (!firstBatch) throw new RuntimeFailure('E_LAYER_READ', `baseline ${baseline.folder} ended early`);
-        const rows = firstBatch.rows;
-        const feeds: Record<string, FloatTensor> = {};
-        parts.forEach((part, i) => {
-          const batch = part.value as LayerBatch;
-          const name = tail.boundary[i]!;
-          if (!batch || batch.rows !== rows || batch.index[0] !== firstBatch.index[0]) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${name}" is not aligned with the others`);
-          const per = batch.activation!.length / rows;
-          const replicated = new Float32Array(M * rows * per);
-          for (let m = 0; m < M; m++) replicated.set(batch.activation!, m * rows * per); // rows: m*rows + i
-          feeds[name === site ? `${site}::raw` : name] = { data: replicated, dims: [M * rows, ...baseline.layer(name).shape] };
-        });
+        const { rows, firstBatch, feeds } = replicateBoundaryFeeds(parts, tail.boundary, new Set([site]), M, baseline);
         const gain = new Float32Array(M * rows * C);
         for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(vectors[m]!, (m * rows + i) * C);
         const dims = [M * rows, C, ...siteShape.slice(1).map(() => 1)];

@@ -1,0 +1,40 @@
+/**
+ * Feeds for a tail replay of M modulation patterns at once: every baseline boundary tensor of one
+ * batch repeated M times along the batch axis (row m·rows + i is stimulus i under pattern m).
+ */
+import { RuntimeFailure } from '../errors.js';
+import type { FloatTensor } from '../session/network-session.js';
+import type { LayerBatch, Snapshot } from '../snapshot/snapshot.js';
+
+/**
+ * Builds the replicated boundary feeds of one batch.
+ * @param parts the next result of each boundary layer's stream, in `boundary` order.
+ * @param boundary names of the boundary tensors the tail reads.
+ * @param rawSites boundary tensors that are modulation sites: they feed `NAME::raw` (the injected input).
+ * @param M how many patterns share the run.
+ * @param baseline the snapshot the streams read (for shapes and messages).
+ * @returns the batch's rows, its first batch (for the stimulus index) and the feeds.
+ * @throws RuntimeFailure when a stream ends early or the layers are not aligned.
+ */
+export function replicateBoundaryFeeds(
+  parts: ReadonlyArray<IteratorResult<LayerBatch>>,
+  boundary: readonly string[],
+  rawSites: ReadonlySet<string>,
+  M: number,
+  baseline: Snapshot,
+): { rows: number; firstBatch: LayerBatch; feeds: Record<string, FloatTensor> } {
+  const firstBatch = parts[0]!.value as LayerBatch | undefined;
+  if (!firstBatch) throw new RuntimeFailure('E_LAYER_READ', `baseline ${baseline.folder} ended early`);
+  const rows = firstBatch.rows;
+  const feeds: Record<string, FloatTensor> = {};
+  parts.forEach((part, i) => {
+    const batch = part.value as LayerBatch;
+    const name = boundary[i]!;
+    if (!batch || batch.rows !== rows || batch.index[0] !== firstBatch.index[0]) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${name}" is not aligned with the others`);
+    const per = batch.activation!.length / rows;
+    const replicated = new Float32Array(M * rows * per);
+    for (let m = 0; m < M; m++) replicated.set(batch.activation!, m * rows * per);
+    feeds[rawSites.has(name) ? `${name}::raw` : name] = { data: replicated, dims: [M * rows, ...baseline.layer(name).shape] };
+  });
+  return { rows, firstBatch, feeds };
+}
