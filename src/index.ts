@@ -34,7 +34,7 @@ export { recordModulated, type RecordModulatedOptions } from './pipeline/record-
 export { diffSnapshots, assertPaired, type DiffOptions, type DiffReport, type LayerDiffRow, type TaskReport, type SchemeComparison } from './pipeline/diff-snapshots.js';
 
 export { tuneSnapshot, type TuneOptions, type TuneResult } from './pipeline/tune.js';
-export { DEFAULT_STEP, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './pipeline/sense.js';
+export { DEFAULT_OFFSET_STEP, DEFAULT_STEP, defaultStep, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './pipeline/sense.js';
 export { compareTables, type TableComparison } from './pipeline/compare-tables.js';
 export { loadModulationTables } from './pipeline/tables.js';
 export { sweepModulations, type SweepOptions } from './pipeline/sweep.js';

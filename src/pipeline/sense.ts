@@ -58,11 +58,23 @@ import { shardRange, type ShardSpec } from './shard.js';
 import { assertOutFileWritable } from './output-file.js';
 
 /**
- * Default step h; with Richardson the runs are at ±h and ±h/2. Chosen on the PyTorch reference networks
- * (tests/reference/README.md): in float32, Richardson from 2e-3 and 1e-3 came closest to autograd of the
- * steps tried (1e-2 … 2.5e-4) — larger steps cross more ReLU kinks, smaller ones drown in rounding.
+ * Default step h of a gain; with Richardson the runs are at ±h and ±h/2. Chosen on the PyTorch reference
+ * networks (tests/reference/README.md): in float32, Richardson from 2e-3 and 1e-3 came closest to
+ * autograd of the steps tried (1e-2 … 2.5e-4) — larger steps cross more ReLU kinks, smaller ones drown
+ * in rounding.
  */
 export const DEFAULT_STEP = 0.002;
+/**
+ * Default step h of an offset (added in activation units, not relative to the activation): measured on
+ * the same networks with steps 2e-3, 5e-3, 1e-2 and 2e-2, 5e-3 was the one step within 1e-2 of autograd
+ * on all four (at 2e-3 float32 rounding alone left 1.9e-2 on the SqueezeNet site).
+ */
+export const DEFAULT_OFFSET_STEP = 0.005;
+
+/** The default step of a kind. */
+export function defaultStep(kind: 'gain' | 'offset'): number {
+  return kind === 'offset' ? DEFAULT_OFFSET_STEP : DEFAULT_STEP;
+}
 /** How a sensitivity is computed from the perturbed runs (see the file comment). */
 export type SenseMethod = 'richardson' | 'secant';
 /** The methods, the default first. */
@@ -92,7 +104,7 @@ export interface SenseOptions {
   readout?: string;
   /** `gain` (default): derivative w.r.t. a multiplicative gain at 1; `offset`: w.r.t. an additive offset at 0. */
   kind?: 'gain' | 'offset';
-  /** Step h > 0 (default DEFAULT_STEP); Richardson also runs at h/2. */
+  /** Step h > 0 (default DEFAULT_STEP for gains, DEFAULT_OFFSET_STEP for offsets); Richardson also runs at h/2. */
   step?: number;
   /** `richardson` (default): (4·D(h/2) − D(h))/3, four runs per channel; `secant`: D(h), two runs per channel. */
   method?: SenseMethod;
@@ -217,9 +229,9 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   if (kind !== 'gain' && kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${String(kind)}"`);
   const method = options.method ?? 'richardson';
   if (!SENSE_METHODS.includes(method)) throw new UsageError('E_SENSE_METHOD', `--method must be ${SENSE_METHODS.map((m) => `"${m}"`).join(' or ')}, got "${String(method)}"`);
-  const step = options.step ?? DEFAULT_STEP;
+  const step = options.step ?? defaultStep(kind);
   if (!Number.isFinite(step) || step <= 0) {
-    throw new UsageError('E_SENSE_STEP', `--step ${step} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${DEFAULT_STEP})` });
+    throw new UsageError('E_SENSE_STEP', `--step ${step} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${defaultStep(kind)} for --kind ${kind})` });
   }
   if (kind === 'gain' && step >= 1) throw new UsageError('E_SENSE_STEP', `--step ${step} would drive a gain to ${1 - step} or below; use a step below 1 (default ${DEFAULT_STEP})`);
   const rowsPerRun = options.rowsPerRun ?? DEFAULT_ROWS_PER_RUN;

@@ -63,8 +63,10 @@ OPSET = 13
 OPSET_BY_MODEL = {"gated": 14}  # opset 14 has a HardSwish operator; 13 would export x * HardSigmoid(x)
 SECANT_STEP = 1e-2
 SECANT_LIMIT = 0.3  # the secant at 1e-2 crosses many kinks at SqueezeNet's site (0.24 there)
-# Sonde's default: Richardson extrapolation (4 D(h/2) - D(h)) / 3 of central differences D at this h.
-RICHARDSON_STEP = 2e-3
+# Sonde's default: Richardson extrapolation (4 D(h/2) - D(h)) / 3 of central differences D at this h,
+# per kind (an offset is added in activation units, so it needs a larger step than a gain against
+# float32 rounding).
+RICHARDSON_STEP = {"gain": 2e-3, "offset": 5e-3}
 GATED_CLASSES = 8
 
 # ImageNet channel statistics (torchvision's documented preprocessing constants), used only to make
@@ -567,7 +569,7 @@ def write_sensitivity(name: str, model: nn.Module, x: torch.Tensor, names: dict[
     if dg_rel > SECANT_LIMIT or db_rel > SECANT_LIMIT:
         raise RuntimeError(f"{name}: secant and autograd sensitivities disagree by more than {SECANT_LIMIT:.0%}")
     rg_rel, rb_rel = rel_diff(gain_exact, gain_richardson), rel_diff(offset_exact, offset_richardson)
-    print(f"{name}: Richardson (steps {RICHARDSON_STEP:g}, {RICHARDSON_STEP / 2:g}) vs autograd, max / per-category max: "
+    print(f"{name}: Richardson (gain steps {RICHARDSON_STEP['gain']:g}, offset {RICHARDSON_STEP['offset']:g}, and their halves) vs autograd, max / per-category max: "
           f"gain {rg_rel:.2e}, offset {rb_rel:.2e}")
     if rg_rel > 0.025 or rb_rel > 0.025:
         raise RuntimeError(f"{name}: Richardson and autograd sensitivities disagree by more than 2.5%")
@@ -587,17 +589,17 @@ def write_sensitivity(name: str, model: nn.Module, x: torch.Tensor, names: dict[
     save(folder / "offset_secant.npy", offset_secant.astype(np.float64))
     save(folder / "gain_richardson.npy", gain_richardson.astype(np.float64))
     save(folder / "offset_richardson.npy", offset_richardson.astype(np.float64))
-    site_json = {"site": names[site], "module": site, "step": h, "richardson_step": RICHARDSON_STEP, "channels": channels, "outputs": k_out}
+    site_json = {"site": names[site], "module": site, "step": h, "richardson_step": RICHARDSON_STEP["gain"], "richardson_offset_step": RICHARDSON_STEP["offset"], "channels": channels, "outputs": k_out}
     (folder / "site.json").write_text(json.dumps(site_json, indent=2) + "\n")
 
 
 def richardson(m64: nn.Module, module: nn.Module, x64: torch.Tensor, channels: int, k_out: int, kind: str) -> np.ndarray:
     """Float64 Richardson extrapolation (4 D(h/2) - D(h)) / 3 of central differences D at
-    h = RICHARDSON_STEP, per channel, batch-averaged. Channels are perturbed CHUNK at a time: the batch
+    h = RICHARDSON_STEP[kind], per channel, batch-averaged. Channels are perturbed CHUNK at a time: the batch
     stacks (channel, step, sign) copies of the N inputs, and a hook scales (kind gain) or shifts (kind
     offset) channel k of the site in its copies only."""
     n = x64.shape[0]
-    h = RICHARDSON_STEP
+    h = RICHARDSON_STEP[kind]
     deltas = (h, -h, h / 2, -h / 2)
     chunk = 16
     state: dict[str, torch.Tensor] = {}

@@ -9,7 +9,7 @@ import type { Command } from 'commander';
 import { InvalidArgumentError } from 'commander';
 import { UsageError } from '../../errors.js';
 import { displayPath } from '../../pipeline/record-snapshot.js';
-import { ALL_ACTIVATIONS, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions } from '../../pipeline/sense.js';
+import { ALL_ACTIVATIONS, DEFAULT_OFFSET_STEP, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, defaultStep, DEFAULT_WARN_RATIO, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions } from '../../pipeline/sense.js';
 import { parseChannelList, parseShape } from '../../stimuli/preprocess.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
@@ -24,7 +24,7 @@ interface SenseCliOptions {
   site?: string[];
   readout?: string;
   kind: string;
-  step: string;
+  step?: string;
   method: string;
   stimuliOf?: string;
   out?: string;
@@ -55,7 +55,7 @@ export function registerSense(program: Command): void {
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
     .option('--readout <output[:category|index]>', 'readout tensor, optionally one unit (default: the first graph output, every unit)')
     .option('--kind <kind>', 'gain (multiplicative, at g = 1) or offset (additive, at b = 0)', 'gain')
-    .option('--step <h>', 'finite-difference step h > 0 (Richardson also runs at h/2)', String(DEFAULT_STEP))
+    .option('--step <h>', `finite-difference step h > 0 (Richardson also runs at h/2; default ${DEFAULT_STEP} for --kind gain, ${DEFAULT_OFFSET_STEP} for offset)`)
     .option('--method <method>', 'richardson: (4·D(h/2) − D(h))/3 from central differences D at h and h/2 (4 runs per channel); secant: D(h) alone (2 runs per channel, half the cost)', SENSE_METHODS[0])
     .option('--stimuli-of <category|each>', 'average only over stimuli containing CATEGORY; each: every readout category over the stimuli containing it')
     .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run', positiveInteger, DEFAULT_ROWS_PER_RUN)
@@ -77,9 +77,9 @@ export function registerSense(program: Command): void {
       if (opts.kind !== 'gain' && opts.kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${opts.kind}"`);
       if (!(SENSE_METHODS as readonly string[]).includes(opts.method)) throw new UsageError('E_SENSE_METHOD', `--method must be ${SENSE_METHODS.join(' or ')}, got "${opts.method}"`);
       const method = opts.method as SenseMethod;
-      const step = Number(opts.step);
-      if (opts.step.trim() === '' || !Number.isFinite(step) || step <= 0) {
-        throw new UsageError('E_SENSE_STEP', `--step ${JSON.stringify(opts.step)} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${DEFAULT_STEP})` });
+      const step = opts.step === undefined ? defaultStep(opts.kind) : Number(opts.step);
+      if (opts.step !== undefined && (opts.step.trim() === '' || !Number.isFinite(step) || step <= 0)) {
+        throw new UsageError('E_SENSE_STEP', `--step ${JSON.stringify(opts.step)} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${defaultStep(opts.kind)} for --kind ${opts.kind})` });
       }
       const bar = createProgressBar('sense');
       let result;
