@@ -29,7 +29,9 @@ describe('size-matched report section', () => {
     const text = section.body.toString();
     expect(text).toContain('&lt;s1&gt;');
     expect(text).not.toContain('<s1>');
-    expect(text).toContain('all 2 sites (s1, s2)');
+    // several-site rows are named short in the table (the full list in the cell's title and once below it)
+    expect(text).toContain('<td title="s1, s2">all 2 sites</td>');
+    expect(text).toContain('all 2 sites: s1, s2');
     expect(text).toContain('+0.010 [+0.000, +0.020]');
     expect(sizeMatchedSection([])).toBeNull();
   });

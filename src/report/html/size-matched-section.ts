@@ -14,10 +14,15 @@ function interval(i: { estimate: unknown; low: unknown; high: unknown }): string
   return `${sgn(i.estimate, 3)} [${sgn(i.low, 3)}, ${sgn(i.high, 3)}]`;
 }
 
-/** A site, or "all N sites" for the sites of a several-site row (joined by +). */
+/** A site, or "all N sites" for the sites of a several-site row (joined by +; listed once under the table). */
 function siteName(site: string): string {
   const parts = site.split('+');
-  return parts.length > 1 ? `all ${parts.length} sites (${parts.join(', ')})` : site;
+  return parts.length > 1 ? `all ${parts.length} sites` : site;
+}
+
+/** The sites of the several-site rows, one line each: "all N sites: a, b, …". */
+function severalSiteNotes(sites: readonly string[]): string[] {
+  return [...new Set(sites.filter((site) => site.includes('+')))].map((site) => `${siteName(site)}: ${site.split('+').join(', ')}`);
 }
 
 /** One line describing the comparison (the report's inputs table). */
@@ -29,17 +34,18 @@ export function describeSizeMatched(c: SizeMatchedComparison): string {
 export function sizeMatchedSection(list: ReadonlyArray<{ name: string; comparison: SizeMatchedComparison }>): PageSection | null {
   if (list.length === 0) return null;
   const parts = list.map(({ name, comparison: c }) => {
-    const head = ['site', 'scheme', 'size', 'ΔAUC [95 % CI]', 'of ceiling', 'Δhit (fixed threshold)', 'Δhit, criterion shift alone', 'Δfalse alarms', 'ceiling ΔAUC on the fitting set'];
+    const head = ['site', 'scheme', 'size', 'ΔAUC [95 % CI]', 'of ceiling', 'Δhit, fixed threshold', 'Δhit, shift alone', 'Δfalse alarms', 'ceiling, fitting set'];
     const rows = c.effects.map(
       (e) =>
-        html`<tr><td>${siteName(e.site)}</td><td>${e.scheme}</td><td${NUM}>${pct(e.size)}</td><td${NUM}>${interval(e.aucChange)}</td><td${NUM}>${e.fractionOfCeiling === null ? '–' : pct(e.fractionOfCeiling, 0)}</td><td${NUM}>${sgn(e.hitRatePp, 1)} pp</td><td${NUM}>${sgn(e.criterionShiftHitRatePp, 1)} pp</td><td${NUM}>${sgn(e.falseAlarmRatePp, 1)} pp</td><td${NUM}>${e.fitSetAucChange === null || e.fitSetAucChange === undefined ? '–' : sgn(e.fitSetAucChange, 3)}</td></tr>`,
+        html`<tr><td title="${e.site.split('+').join(', ')}">${siteName(e.site)}</td><td>${e.scheme}</td><td${NUM}>${pct(e.size)}</td><td${NUM}>${interval(e.aucChange)}</td><td${NUM}>${e.fractionOfCeiling === null ? '–' : pct(e.fractionOfCeiling, 0)}</td><td${NUM}>${sgn(e.hitRatePp, 1)} pp</td><td${NUM}>${sgn(e.criterionShiftHitRatePp, 1)} pp</td><td${NUM}>${sgn(e.falseAlarmRatePp, 1)} pp</td><td${NUM}>${e.fitSetAucChange === null || e.fitSetAucChange === undefined ? '–' : sgn(e.fitSetAucChange, 3)}</td></tr>`,
     );
+    const notes = severalSiteNotes(c.effects.map((e) => e.site)).map((line) => html`<p class="note">${line}</p>`);
     const shuffled = c.versusShuffled.map((v) => html`<li>${siteName(v.site)}: ${v.site.includes('+') ? 'tuning-all − shuffled-all' : 'tuning − shuffled'} ΔAUC ${interval(v.difference)}</li>`);
-    return html`${list.length > 1 ? html`<h3>${name}</h3>` : ''}<p class="note">Unmodulated held-out ROC area ${fmt(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories); ${fmt(c.resamples, 0)} bootstrap resamples of the held-out stimuli, the same for every row.</p><div class="table-wrap"><table><thead><tr>${head.map((h, i) => html`<th${i >= 2 ? NUM : new SafeHtml('')}>${h}</th>`)}</tr></thead><tbody>${rows}</tbody></table></div><ul class="verdicts">${shuffled}</ul>`;
+    return html`${list.length > 1 ? html`<h3>${name}</h3>` : ''}<p class="note">Unmodulated held-out ROC area ${fmt(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories); ${fmt(c.resamples, 0)} bootstrap resamples of the held-out stimuli, the same for every row.</p><div class="table-wrap"><table><thead><tr>${head.map((h, i) => html`<th${i >= 2 ? NUM : new SafeHtml('')}>${h}</th>`)}</tr></thead><tbody>${rows}</tbody></table></div>${notes}<ul class="verdicts">${shuffled}</ul>`;
   });
   return {
     id: 'size-matched',
     heading: 'Schemes at one size of modulation (held out)',
-    body: html`<p class="lead">Every gain is scaled to the same weighted mean |g − 1| at its site; gains come from one stimulus set, detection is measured on another. The ROC area does not depend on the decision threshold: a criterion shift alone (a constant added to the readout that reproduces a scheme's false alarms) changes the hit rate but leaves it unchanged. The ceiling is the gain of the same size fitted to maximise the ROC area on the fitting set; "of ceiling" is a scheme's ΔAUC as a fraction of the ceiling's.</p>${parts}`,
+    body: html`<p class="lead">Every gain is scaled to the same weighted mean |g − 1| at its site; gains come from one stimulus set, detection is measured on another. The ROC area does not depend on the decision threshold: a criterion shift alone (a constant added to the readout that reproduces a scheme's false alarms) changes the hit rate but leaves it unchanged. The ceiling is the gain of at most the same size fitted to maximise the ROC area on the fitting set (stopped early, so its size can stay below the budget; its ΔAUC on the fitting set is in the last column); "of ceiling" is a scheme's ΔAUC as a fraction of the ceiling's held-out ΔAUC. "Δhit, shift alone": the hit-rate change a constant readout shift with the scheme's false alarms gives.</p>${parts}`,
   };
 }
