@@ -14,7 +14,11 @@ export interface LoadedModel {
   path: string;
   /** File name without folder, for manifests. */
   fileName: string;
-  /** SHA-256 (hex) of the .onnx file's bytes — the pairing key between snapshots. */
+  /**
+   * SHA-256 (hex) of the .onnx file's bytes — the pairing key between snapshots. For a model with
+   * external weight files it also covers them: the hash of the .onnx bytes followed, per weight file in
+   * order of location, by the location, a NUL byte and the file's bytes (so changed weights change it).
+   */
   sha256: string;
   /** The decoded model; external data already inlined into `rawData`. */
   proto: ModelProto;
@@ -66,7 +70,7 @@ export function loadModel(path: string): LoadedModel {
   assertUtf8Names(graph, path);
   const opsetEntry = (proto.opsetImport ?? []).find((o) => !o.domain || o.domain === 'ai.onnx');
   if (!opsetEntry) throw new UsageError('E_MODEL_FORMAT', `model ${path} declares no opset for the default ONNX domain`);
-  inlineExternalData(proto, dirname(absolute), path);
+  const weightFiles = inlineExternalData(proto, dirname(absolute), path);
 
   const initializerNames = new Set((graph.initializer ?? []).map((t) => t.name ?? ''));
   const inputs = (graph.input ?? []).filter((i) => !initializerNames.has(i.name ?? ''));
@@ -99,7 +103,7 @@ export function loadModel(path: string): LoadedModel {
   return {
     path: absolute,
     fileName: basename(absolute),
-    sha256: createHash('sha256').update(bytes).digest('hex'),
+    sha256: modelDigest(bytes, weightFiles),
     proto,
     input: { name: input.name ?? '', dims, elemType },
     outputs: (graph.output ?? []).map((o) => o.name ?? ''),
@@ -131,9 +135,20 @@ function assertUtf8Names(graph: NonNullable<ModelProto['graph']>, path: string):
   for (const v of [...(graph.input ?? []), ...(graph.output ?? [])]) check(v.name, 'a graph input or output');
 }
 
-/** Reads each initializer whose data lives in an external file and stores it inline (raw_data). */
-function inlineExternalData(proto: ModelProto, folder: string, modelPath: string): void {
+/** SHA-256 of the model bytes and, in order of location, each external weight file's location and bytes. */
+function modelDigest(bytes: Uint8Array, weightFiles: ReadonlyMap<string, Buffer>): string {
+  const hash = createHash('sha256').update(bytes);
+  for (const location of [...weightFiles.keys()].sort()) hash.update(location).update(new Uint8Array([0])).update(weightFiles.get(location)!);
+  return hash.digest('hex');
+}
+
+/**
+ * Reads each initializer whose data lives in an external file and stores it inline (raw_data).
+ * @returns the weight files read, by location as the model names it.
+ */
+function inlineExternalData(proto: ModelProto, folder: string, modelPath: string): Map<string, Buffer> {
   const cache = new Map<string, Buffer>();
+  const byLocation = new Map<string, Buffer>();
   for (const tensor of proto.graph?.initializer ?? []) {
     if (tensor.dataLocation !== 1) continue; // 1 = EXTERNAL in TensorProto.DataLocation
     const entries = new Map((tensor.externalData ?? []).map((e) => [e.key ?? '', e.value ?? '']));
@@ -159,6 +174,7 @@ function inlineExternalData(proto: ModelProto, folder: string, modelPath: string
       }
       cache.set(file, data);
     }
+    byLocation.set(location, data);
     const offset = Number(entries.get('offset') ?? 0);
     const length = entries.has('length') ? Number(entries.get('length')) : data.length - offset;
     if (!(offset >= 0 && length >= 0 && offset + length <= data.length)) {
@@ -168,6 +184,7 @@ function inlineExternalData(proto: ModelProto, folder: string, modelPath: string
     tensor.dataLocation = 0;
     tensor.externalData = [];
   }
+  return byLocation;
 }
 
 /**

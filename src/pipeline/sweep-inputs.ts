@@ -28,7 +28,7 @@ export interface SweepInputs {
   sonde: string;
   /** `SWEEP_CELL_FORMAT` of the build that wrote the cells. */
   cellFormat: number;
-  /** SHA-256 of the model file's bytes. */
+  /** SHA-256 of the model (its .onnx bytes and any external weight files; LoadedModel.sha256). */
   model: string;
   /** SHA-256 of the baseline's `manifest.json` bytes. */
   baseline: string;

@@ -13,6 +13,7 @@
  * ends in a failed assertion, not in a hung suite.
  */
 import { execFileSync, spawn, type ChildProcess } from 'node:child_process';
+import { createHash } from 'node:crypto';
 import { cpSync, existsSync, mkdirSync, readFileSync, readdirSync, renameSync, rmSync, statSync, symlinkSync, truncateSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -188,6 +189,25 @@ describe('symbolic links out of their folder', () => {
     symlinkSync(join(store, 'net.onnx'), join(links, 'net.onnx'));
     symlinkSync(join(store, 'weights.bin'), join(links, 'weights.bin'));
     expect(loadModel(join(links, 'net.onnx')).parameterCount).toBe(loadModel(join(store, 'net.onnx')).parameterCount);
+  });
+
+  it("a model's SHA-256 covers its external weight files: new weights under the same .onnx bytes change it", () => {
+    // exact property of SHA-256 over the concatenated bytes; the pairing key of snapshots and sweep cells
+    const folder = join(dir, 'model-ext-digest');
+    mkdirSync(folder);
+    const bytes = externalise(buildTinyNet({ bias: true }), folder);
+    writeFileSync(join(folder, 'net.onnx'), bytes);
+    const before = loadModel(join(folder, 'net.onnx')).sha256;
+    const weights = readFileSync(join(folder, 'weights.bin'));
+    weights[0] = weights[0]! ^ 0x01;
+    writeFileSync(join(folder, 'weights.bin'), weights);
+    const after = loadModel(join(folder, 'net.onnx'));
+    expect(readFileSync(join(folder, 'net.onnx')).equals(Buffer.from(bytes))).toBe(true);
+    expect(after.sha256).not.toBe(before);
+    // a model without external data keeps the plain file hash
+    const inline = join(folder, 'inline.onnx');
+    writeFileSync(inline, buildTinyNet({ bias: true }));
+    expect(loadModel(inline).sha256).toBe(createHash('sha256').update(readFileSync(inline)).digest('hex'));
   });
 });
 
