@@ -16,11 +16,11 @@
  * shuffled counterpart `shuffled-all`.
  */
 import { bootstrapIntervals } from '../analysis/bootstrap.js';
-import { criterionShiftControl, rocAuc } from '../analysis/roc.js';
+import { criterionShiftControl, rocAuc, rocAucWeighted, rocOrder } from '../analysis/roc.js';
 import { UsageError } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { gainFromValues, normaliseAcrossCategories } from '../modulation/gain-pattern.js';
-import { createRandom } from '../random.js';
+import { shuffleChannels } from '../modulation/shuffle.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { channelWeights, fitSiteCeilings, gainSize } from './ceiling.js';
 import { chooseThreshold, readoutOf } from './diff-snapshots.js';
@@ -160,7 +160,7 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
       const t = normalised(tuning, site, category);
       add('tuning', category, gainOfSize(t, weights, size));
       if (sensitivity) add('sensitivity', category, gainOfSize(normalised(sensitivity, site, category), weights, size));
-      for (let seed = 1; seed <= seeds; seed++) add('shuffled', category, gainOfSize(shuffledValues(t, seed, site, category), weights, size));
+      for (let seed = 1; seed <= seeds; seed++) add('shuffled', category, gainOfSize(shuffleChannels(t, seed, site, category), weights, size));
       const ceiling = ceilings.find((c) => c.category === category)!;
       add('ceiling', category, ceiling.gain);
       group.labels[group.labels.length - 1]!.fitGain = ceiling.fit.linearAuc - ceiling.fit.baseAuc;
@@ -179,7 +179,7 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
     // one shuffled seed per category here: every pattern of this group replays the whole network below the first site
     for (const category of categories) {
       for (const seed of [1]) {
-        const gains = sites.map((site, s) => gainOfSize(shuffledValues(normalised(tuning, site, category), seed, site, category), weights[s]!, size / sites.length));
+        const gains = sites.map((site, s) => gainOfSize(shuffleChannels(normalised(tuning, site, category), seed, site, category), weights[s]!, size / sites.length));
         group.patterns.push(gains);
         group.labels.push({ scheme: 'shuffled-all', category, size: gains.reduce((a, g, s) => a + gainSize(g, weights[s]!), 0) / sites.length });
       }
@@ -240,11 +240,11 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
   const orders = new Map<Float64Array, Int32Array>();
   const orderOf = (scores: Float64Array): Int32Array => {
     let order = orders.get(scores);
-    if (!order) orders.set(scores, (order = Int32Array.from({ length: n }, (_, i) => i).sort((a, b) => scores[a]! - scores[b]!)));
+    if (!order) orders.set(scores, (order = rocOrder(scores)));
     return order;
   };
   const counts = new Float64Array(n);
-  const aucOn = (scores: Float64Array, signal: Uint8Array): number => resampledAuc(orderOf(scores), scores, signal, counts);
+  const aucOn = (scores: Float64Array, signal: Uint8Array): number => rocAucWeighted(scores, signal, counts, orderOf(scores));
   const statistics = (indices: Int32Array, out: Float64Array): void => {
     counts.fill(0);
     for (let i = 0; i < n; i++) counts[indices[i]!] += 1;
@@ -307,48 +307,6 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
     effects,
     versusShuffled: pairs.map((pair, p) => ({ site: pair.site, difference: interval(rows.length + p) })),
   };
-}
-
-/**
- * ROC area (Mann–Whitney form, ties one half) of a sample given as a count per stimulus, from the
- * stimuli's ascending score order; NaN when a class has no stimulus in the sample.
- */
-function resampledAuc(order: Int32Array, scores: Float64Array, signal: Uint8Array, counts: Float64Array): number {
-  let noiseBelow = 0;
-  let wins = 0;
-  let signals = 0;
-  let noises = 0;
-  for (let a = 0; a < order.length; ) {
-    let b = a;
-    let tiedSignal = 0;
-    let tiedNoise = 0;
-    const value = scores[order[a]!]!;
-    while (b < order.length && scores[order[b]!] === value) {
-      const i = order[b]!;
-      if (signal[i]) tiedSignal += counts[i]!;
-      else tiedNoise += counts[i]!;
-      b++;
-    }
-    wins += tiedSignal * (noiseBelow + tiedNoise / 2);
-    noiseBelow += tiedNoise;
-    signals += tiedSignal;
-    noises += tiedNoise;
-    a = b;
-  }
-  return signals === 0 || noises === 0 ? Number.NaN : wins / (signals * noises);
-}
-
-/** The values permuted across channels (Fisher–Yates with a stream seeded per seed, site and category). */
-function shuffledValues(values: Float64Array, seed: number, site: string, category: string): Float64Array {
-  const shuffled = values.slice();
-  const rng = createRandom(seed).fork(site).fork(category);
-  for (let i = shuffled.length - 1; i > 0; i--) {
-    const j = rng.int(i + 1);
-    const tmp = shuffled[i]!;
-    shuffled[i] = shuffled[j]!;
-    shuffled[j] = tmp;
-  }
-  return shuffled;
 }
 
 /** Hit and false-alarm rates of "yes when score > threshold". */

@@ -12,7 +12,6 @@ import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { resolveModulations } from '../modulation/resolve.js';
 import { validateModulationSpec } from '../modulation/spec.js';
 import type { ResolveContext } from '../modulation/types.js';
-import { createRandom } from '../random.js';
 import { createNetworkSession } from '../session/network-session.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { signed } from '../report/format.js';
@@ -20,6 +19,7 @@ import { writeSweepTable } from '../snapshot/sweep-table.js';
 import { chooseThreshold, parseDetectionTask, readoutOf } from './diff-snapshots.js';
 import { inspectModel } from './inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from './record-modulated.js';
+import { shuffleChannels } from '../modulation/shuffle.js';
 import { replicateBoundaryFeeds } from './replicate-feeds.js';
 import { runPipelined } from './record-snapshot.js';
 import { shardRange } from './shard.js';
@@ -285,17 +285,8 @@ function gainVector(site: string, scheme: SweepScheme, strength: number, categor
   const kind = scheme === 'sensitivity' ? 'sensitivity' : 'tuning';
   const spec = validateModulationSpec({ site, kind, target: category, strength }, { source: 'sweep' });
   const gain = resolveModulations(spec, context)[0]!.gain;
-  if (scheme !== 'shuffled') return gain;
-  // same gains, permuted across channels (Fisher–Yates with a seeded stream): no relation to tuning
-  const shuffled = gain.slice();
-  const rng = createRandom(seed).fork(site).fork(category);
-  for (let i = shuffled.length - 1; i > 0; i--) {
-    const j = rng.int(i + 1);
-    const t = shuffled[i]!;
-    shuffled[i] = shuffled[j]!;
-    shuffled[j] = t;
-  }
-  return shuffled;
+  // same gains, permuted across channels: no relation to tuning
+  return scheme === 'shuffled' ? shuffleChannels(gain, seed, site, category) : gain;
 }
 
 interface GroupRun {
