@@ -170,3 +170,16 @@ export async function runSonde(args: string[]): Promise<{ code: number; stdout: 
   const code = await runCli(args, { stdout: (t) => (stdout += t), stderr: (t) => (stderr += t) });
   return { code, stdout, stderr };
 }
+
+/** Every activation of a layer stream, concatenated in stimulus order (copies each batch). */
+export async function concatActivations(batches: AsyncIterable<{ activation: Float32Array | null }>): Promise<Float32Array> {
+  const parts: Float32Array[] = [];
+  for await (const batch of batches) parts.push(batch.activation!.slice());
+  const out = new Float32Array(parts.reduce((n, p) => n + p.length, 0));
+  let at = 0;
+  for (const p of parts) {
+    out.set(p, at);
+    at += p.length;
+  }
+  return out;
+}

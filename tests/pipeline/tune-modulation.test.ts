@@ -6,9 +6,9 @@ import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
 import { senseSites } from '../../src/pipeline/sense.js';
 import { loadModulationTables } from '../../src/pipeline/tables.js';
 import { tuneSnapshot } from '../../src/pipeline/tune.js';
-import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
+import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { readSensitivityTable, readTuningTable } from '../../src/snapshot/tables.js';
-import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { buildTinyNet, concatActivations, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 // The table-driven modulation kinds: g_k = max(0, 1 + β·v_k,c*) with v the table normalised across
 // categories (feature-similarity gain, see DOMAIN.md), and lesion of the top-k channels by tuning.
@@ -20,18 +20,6 @@ let baseline: string;
 let tuningPath: string;
 let sensitivityPath: string;
 const CATEGORIES = ['bird', 'cat', 'dog'];
-
-async function activations(snap: Snapshot, layer: string): Promise<Float32Array> {
-  const parts: Float32Array[] = [];
-  for await (const batch of snap.readLayer(layer)) parts.push(batch.activation!.slice());
-  const out = new Float32Array(parts.reduce((a, p) => a + p.length, 0));
-  let at = 0;
-  for (const p of parts) {
-    out.set(p, at);
-    at += p.length;
-  }
-  return out;
-}
 
 /** z-score of each channel's values across categories, population SD (DOMAIN.md "Tuning values"). */
 function zScores(rows: Float64Array[]): Float64Array[] {
@@ -76,8 +64,8 @@ describe('table-driven modulation kinds', () => {
     const expected = Array.from({ length: C }, (_, k) => Math.fround(Math.max(0, 1 + 0.75 * block.tuning[k * 3 + 1]!)));
     expect(record.gain).toEqual(expected);
     expect(expected.some((g) => g > 1) && expected.some((g) => g < 1)).toBe(true); // a real pattern, not the identity
-    const base = await activations(openSnapshot(baseline), 'relu1');
-    const mod = await activations(openSnapshot(summary.folder), 'relu1');
+    const base = await concatActivations(openSnapshot(baseline).readLayer('relu1'));
+    const mod = await concatActivations(openSnapshot(summary.folder).readLayer('relu1'));
     const S = base.length / (12 * C);
     for (let i = 0; i < base.length; i++) {
       const k = Math.floor(i / S) % C; // [N, C, S]
@@ -94,7 +82,7 @@ describe('table-driven modulation kinds', () => {
     const order = Array.from({ length: block.channels }, (_, k) => k).sort((a, b) => block.tuning[b * 3 + 2]! - block.tuning[a * 3 + 2]! || a - b);
     const record = (summary.manifest.modulation as { modulations: Array<{ details: { channels: number[] } }> }).modulations[0]!;
     expect(record.details.channels).toEqual(order.slice(0, 2));
-    const mod = await activations(openSnapshot(summary.folder), 'relu2');
+    const mod = await concatActivations(openSnapshot(summary.folder).readLayer('relu2'));
     const C = block.channels;
     const S = mod.length / (12 * C);
     for (let i = 0; i < mod.length; i++) {

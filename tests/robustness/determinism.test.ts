@@ -9,7 +9,7 @@ import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
-import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { buildTinyNet, concatActivations, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 let dir: string;
 let model: string;
@@ -22,18 +22,6 @@ beforeAll(() => {
   writeFileSync(model, buildTinyNet({ bias: true, widths: [32, 48, 64], input: [3, 32, 32], seed: 4 }));
   stimuli = writeStimuliNpy(dir, [24, 3, 32, 32], 8);
 });
-
-async function allValues(batches: AsyncGenerator<{ activation: Float32Array | null }>): Promise<Float32Array> {
-  const parts: Float32Array[] = [];
-  for await (const batch of batches) parts.push(batch.activation!.slice());
-  const out = new Float32Array(parts.reduce((n, p) => n + p.length, 0));
-  let at = 0;
-  for (const p of parts) {
-    out.set(p, at);
-    at += p.length;
-  }
-  return out;
-}
 
 async function record(name: string, threads: number) {
   return recordSnapshot({ model, stimuli: stimuli.npy, labels: stimuli.labels, out: join(dir, name), layers: 'all', batch: 8, threads });
@@ -53,8 +41,8 @@ describe('recording determinism', () => {
     const two = openSnapshot(c.folder);
     let worst = 0;
     for (const layer of one.manifest.layers) {
-      const left = await allValues(one.readLayer(layer.name));
-      const right = await allValues(two.readLayer(layer.name));
+      const left = await concatActivations(one.readLayer(layer.name));
+      const right = await concatActivations(two.readLayer(layer.name));
       expect(right.length).toBe(left.length);
       let scale = 0;
       for (const v of left) scale = Math.max(scale, Math.abs(v));

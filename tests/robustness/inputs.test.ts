@@ -9,26 +9,13 @@ import { beforeAll, describe, expect, it } from 'vitest';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { createDisplaySet } from '../../src/stimuli/demo/display.js';
 import { parseCsv } from '../../src/stimuli/source.js';
-import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { buildTinyNet, concatActivations, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 let dir: string;
 
 beforeAll(() => {
   dir = tempFolder();
 });
-
-/** Every value of one recorded layer, in stimulus order. */
-async function layerValues(folder: string, name: string): Promise<Float32Array> {
-  const parts: Float32Array[] = [];
-  for await (const batch of openSnapshot(folder).readLayer(name)) parts.push(batch.activation!.slice());
-  const out = new Float32Array(parts.reduce((n, p) => n + p.length, 0));
-  let at = 0;
-  for (const p of parts) {
-    out.set(p, at);
-    at += p.length;
-  }
-  return out;
-}
 
 describe('models with Constant nodes', () => {
   it('sonde layers lists no Constant or constant-only tensor as a layer and names them as skipped, for a free and a fixed batch', async () => {
@@ -59,8 +46,8 @@ describe('models with Constant nodes', () => {
     expect(names).toEqual(expect.arrayContaining(['conv0', 'scaled0', 'relu0', 'logits']));
     expect(names.filter((n) => ['scale0', 'prior_c', 'prior'].includes(n))).toEqual([]);
     // IEEE 754: one float32 multiplication is correctly rounded, so Mul(conv0, scale) = fround(conv0·scale)
-    const conv = await layerValues(out, 'conv0');
-    const scaled = await layerValues(out, 'scaled0');
+    const conv = await concatActivations(openSnapshot(out).readLayer('conv0'));
+    const scaled = await concatActivations(openSnapshot(out).readLayer('scaled0'));
     const spatial = 16 * 16;
     for (let i = 0; i < conv.length; i++) expect(scaled[i]).toBe(Math.fround(conv[i]! * (1 + 0.25 * (Math.floor(i / spatial) % 4))));
   });
