@@ -1,7 +1,8 @@
 /**
  * Sonde's public library API. The CLI (`bin/sonde`) is a thin shell over these functions.
  *
- * Data flows one way: stimuli → session → snapshot → analysis → report.
+ * Data flows one way: stimuli → session → snapshot → analysis → report. The workflows a user runs
+ * have a folder each: record/, compare/, replay/, demo/ (see DEVELOPERS.md's layer table).
  */
 export { SondeError, UsageError, RuntimeFailure } from './errors.js';
 export { TOOL_VERSION } from './version.js';
@@ -27,29 +28,38 @@ export type { Preprocessing } from './stimuli/preprocess.js';
 export { openSnapshot, type Snapshot, type LayerBatch, type ReadLayerOptions } from './snapshot/snapshot.js';
 export { readManifest, FORMAT_VERSION, type SnapshotManifest, type ManifestLayer, type KeepMode, type ActivationDtype } from './snapshot/manifest.js';
 
-// pipelines
-export { inspectModel, type ModelInspection, type LayerInfo, type InspectOptions } from './pipeline/inspect-model.js';
-export { recordSnapshot, type RecordOptions, type RecordSummary, type RecordProgress } from './pipeline/record-snapshot.js';
-export { recordModulated, type RecordModulatedOptions } from './pipeline/record-modulated.js';
-export { diffSnapshots, assertPaired, type DiffOptions, type DiffReport, type LayerDiffRow, type TaskReport, type SchemeComparison } from './pipeline/diff-snapshots.js';
+// record: inspect, record (baseline and modulated), shards
+export { inspectModel, type ModelInspection, type LayerInfo, type InspectOptions } from './record/inspect-model.js';
+export { recordSnapshot, type RecordOptions, type RecordSummary, type RecordProgress } from './record/record-snapshot.js';
+export { recordModulated, type RecordModulatedOptions } from './record/record-modulated.js';
+export { mergeSnapshots, type MergeOptions, type MergeSummary } from './record/merge.js';
+export { parseShard, shardRange, type ShardSpec, type ShardRange } from './record/shard.js';
 
-export { tuneSnapshot, type TuneOptions, type TuneResult } from './pipeline/tune.js';
-export { DEFAULT_OFFSET_STEP, DEFAULT_STEP, defaultStep, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './pipeline/sense.js';
-export { compareTables, type TableComparison } from './pipeline/compare-tables.js';
-export { loadModulationTables } from './pipeline/tables.js';
-export { sweepModulations, type SweepOptions } from './pipeline/sweep.js';
-export type { SweepResult, SweepCell } from './pipeline/sweep-types.js';
-export { runDemo, type DemoOptions, type DemoResult } from './pipeline/demo.js';
-export type { SweepEvaluation } from './pipeline/held-out.js';
-export { scoreGains, type GainScoringOptions } from './pipeline/gain-scores.js';
-export { fitSiteCeilings, type SiteCeiling, type SiteCeilingOptions } from './pipeline/ceiling.js';
-export { compareAtSize, type SizeMatchedComparison, type SizeMatchedOptions, type SchemeEffect } from './pipeline/size-matched.js';
+// compare: diff, tune, tables
+export { diffSnapshots } from './compare/diff-snapshots.js';
+export { assertPaired } from './compare/diff-collect.js';
+export type { DiffOptions, DiffReport, LayerDiffRow, TaskReport, SchemeComparison } from './compare/diff-types.js';
+export { tuneSnapshot, type TuneOptions, type TuneResult } from './compare/tune.js';
+export { compareTables, type TableComparison } from './compare/compare-tables.js';
+
+// replay: sensitivities, sweeps, gain scores, ceiling, size-matched comparison
+export { DEFAULT_OFFSET_STEP, DEFAULT_STEP, defaultStep, SENSE_METHODS, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './replay/sense-types.js';
+export { senseSites } from './replay/sense.js';
+export { loadModulationTables } from './replay/modulation-tables.js';
+export { sweepModulations, type SweepOptions } from './replay/sweep.js';
+export type { SweepResult, SweepCell } from './replay/sweep-types.js';
+export type { SweepEvaluation } from './replay/held-out.js';
+export { scoreGains, type GainScoringOptions } from './replay/gain-scores.js';
+export { fitSiteCeilings, type SiteCeiling, type SiteCeilingOptions } from './replay/ceiling.js';
+export { compareAtSize, type SizeMatchedComparison, type SizeMatchedOptions, type SchemeEffect } from './replay/size-matched.js';
+
+// demo
+export { runDemo, type DemoOptions, type DemoResult } from './demo/demo.js';
+
+// tables and checks
 export { fitGainCeiling, type GainCeilingFit, type GainCeilingProblem } from './analysis/gain-ceiling.js';
 export { readTuningTable, readSensitivityTable, writeTuningTable, writeSensitivityTable } from './snapshot/tables.js';
-
 export { checkSnapshot, type CheckReport, type CheckProblem } from './snapshot/check.js';
-export { mergeSnapshots, type MergeOptions, type MergeSummary } from './pipeline/merge.js';
-export { parseShard, shardRange, type ShardSpec, type ShardRange } from './pipeline/shard.js';
 
 // modulation and analysis (pure)
 export * as modulation from './modulation/index.js';

@@ -22,9 +22,9 @@ export { computeTuning, tuningColumn, type TuningInput, type TuningTable } from 
 export {
   LayerDiffAccumulator,
   type ChannelMeans,
-  type LayerDiffMetrics,
   type LayerDiffOptions,
 } from './layer-diff.js';
+export type { LayerDiffMetrics } from './layer-diff-metrics.js';
 export { fitSignature, type SignatureFit, type SignatureInput } from './signature.js';
 export { fitDepthProfile, type DepthPoint, type DepthProfile, type DepthProfileOptions } from './depth-profile.js';
 export { sparkline, type SparklineOptions } from './sparkline.js';

@@ -10,11 +10,13 @@
  * pooled totals with compensated (Neumaier) summation; the pooled Pearson moments and the per-channel
  * across-stimulus moments are combined with the exact pairwise update of Chan, Golub & LeVeque (1979,
  * "Updating formulae and a pairwise algorithm for computing sample variances"), which also makes
- * `merge` of disjoint stimulus sets exact up to rounding.
+ * `merge` of disjoint stimulus sets exact up to rounding. The metrics computed from the accumulated
+ * moments are in layer-diff-metrics.ts. The accumulator is one class (past ~500 lines) because its
+ * single pass, its exact `merge` and its state export must change together.
  */
 
 import { UsageError } from '../errors.js';
-import { median } from './describe.js';
+import { layerDiffMetrics, relativeNorm, type LayerDiffMetrics } from './layer-diff-metrics.js';
 
 /** Shape and options of one layer's accumulator. */
 export interface LayerDiffOptions {
@@ -36,54 +38,6 @@ export interface LayerDiffOptions {
    * pass false for layers that need no signature to keep memory bounded.
    */
   keepChannelMeans?: boolean;
-}
-
-/** Metrics of one layer, baseline a versus modulated b. */
-export interface LayerDiffMetrics {
-  /** Stimuli accumulated. */
-  stimuli: number;
-  /** E, C, S as given. */
-  elements: number;
-  channels: number;
-  spatial: number;
-  /** ‖b − a‖ / ‖a‖ over all elements of all stimuli. 0 when ‖a‖ = ‖b − a‖ = 0; +Infinity when only ‖a‖ = 0. */
-  relativeChange: number;
-  /** Median over stimuli of the per-stimulus ‖b_n − a_n‖ / ‖a_n‖ (same zero rule per stimulus). */
-  relativeChangeMedian: number;
-  /** Per-stimulus relative changes that had ‖a_n‖ = 0 (they are 0 or +Infinity by the zero rule, and counted here). */
-  zeroNormStimuli: number;
-  /** ⟨a, b⟩ / (‖a‖‖b‖) over all elements; NaN when either norm is 0. */
-  cosine: number;
-  /** Pearson correlation of a and b over all elements of all stimuli; NaN when either has zero variance. */
-  pearson: number;
-  /**
-   * Per channel: mean of b over stimuli and positions ÷ mean of a. NaN where the baseline mean is exactly 0
-   * (excluded, counted in `channelRatioExcluded`). [C].
-   */
-  channelRatio: Float64Array;
-  /** Channels excluded from the ratio statistics because their baseline mean is exactly 0. */
-  channelRatioExcluded: number;
-  /** Mean of channelRatio over the included channels. */
-  channelRatioMean: number;
-  /** Sample sd (n − 1) of channelRatio over the included channels (NaN with fewer than 2). */
-  channelRatioSd: number;
-  /** Fraction of included channels with ratio > 1 + tolerance (NaN if any included ratio is NaN). */
-  fractionUp: number;
-  /** Fraction of included channels with ratio < 1 − tolerance (NaN if any included ratio is NaN). */
-  fractionDown: number;
-  /**
-   * Per channel d_k = (mean_n b_nk − mean_n a_nk) / sd_n(a_nk), with a_nk, b_nk stimulus n's channel means and
-   * sd the sample sd (n − 1) across stimuli of the baseline. NaN where sd is exactly 0 (excluded). [C].
-   */
-  channelEffectSize: Float64Array;
-  /** Layer effect size: mean of |d_k| over the channels with sd ≠ 0 (NaN with fewer than 2 stimuli). */
-  effectSize: number;
-  /** Channels excluded from `effectSize` because their baseline sd across stimuli is exactly 0. */
-  effectSizeExcluded: number;
-  /** NaN/±Infinity elements seen in the baseline and the modulated activations. */
-  nonFinite: { base: number; mod: number };
-  /** The tolerance used for fractionUp / fractionDown. */
-  tolerance: number;
 }
 
 /** Per-stimulus channel means of both sides, [N, C] row-major (views into the accumulator). */
@@ -536,12 +490,6 @@ export class LayerDiffAccumulator {
   }
 
   /**
-   * The layer's metrics over everything added so far. Does not reset; more batches may follow.
-   *
-   * @returns the metrics (see `LayerDiffMetrics` for each definition and its edge cases).
-   * @throws UsageError when no stimulus has been added.
-   */
-  /**
    * Per stimulus n: Σ(b − a)² and Σa² over its elements (views, length N), so that the pooled relative
    * change sqrt(Σ_n diffSquared / Σ_n baseSquared) can be bootstrapped over stimuli.
    */
@@ -549,85 +497,40 @@ export class LayerDiffAccumulator {
     return { diffSquared: this.stimulusDiffSquared.subarray(0, this.stimuli), baseSquared: this.stimulusBaseSquared.subarray(0, this.stimuli) };
   }
 
+  /**
+   * The layer's metrics over everything added so far. Does not reset; more batches may follow.
+   *
+   * @returns the metrics (see `LayerDiffMetrics` for each definition and its edge cases).
+   * @throws UsageError when no stimulus has been added.
+   */
   finish(): LayerDiffMetrics {
-    const N = this.stimuli;
-    if (N === 0) {
+    if (this.stimuli === 0) {
       throw new UsageError('E_DIFF_EMPTY', `${this.layer}: no stimuli were added to the diff`, {
         hint: 'check that both snapshots hold rows for this layer',
       });
     }
-    const C = this.channels;
-    const sumAA = this.pooled[2 * AA]! + this.pooled[2 * AA + 1]!;
-    const sumBB = this.pooled[2 * BB]! + this.pooled[2 * BB + 1]!;
-    const sumAB = this.pooled[2 * AB]! + this.pooled[2 * AB + 1]!;
-    const sumDD = this.pooled[2 * DD]! + this.pooled[2 * DD + 1]!;
-    const cosine = sumAA > 0 && sumBB > 0 ? clampUnit(sumAB / Math.sqrt(sumAA * sumBB)) : Number.NaN;
-    const pearson =
-      this.pearsonM2A > 0 && this.pearsonM2B > 0
-        ? clampUnit(this.pearsonCoMoment / Math.sqrt(this.pearsonM2A * this.pearsonM2B))
-        : Number.NaN;
-
-    const channelRatio = new Float64Array(C);
-    const channelEffectSize = new Float64Array(C);
-    let ratioExcluded = 0;
-    let ratioCount = 0;
-    let ratioMean = 0;
-    let ratioM2 = 0;
-    let up = 0;
-    let down = 0;
-    let ratioNaN = false;
-    let effectExcluded = 0;
-    let effectSum = 0;
-    for (let k = 0; k < C; k++) {
-      const meanA = this.channelMeanA[k]!;
-      const meanB = this.channelMeanB[k]!;
-      if (meanA === 0) {
-        channelRatio[k] = Number.NaN;
-        ratioExcluded++;
-      } else {
-        const ratio = meanB / meanA;
-        channelRatio[k] = ratio;
-        ratioCount++;
-        const delta = ratio - ratioMean;
-        ratioMean += delta / ratioCount;
-        ratioM2 += delta * (ratio - ratioMean);
-        if (Number.isNaN(ratio)) ratioNaN = true;
-        if (ratio > 1 + this.tolerance) up++;
-        else if (ratio < 1 - this.tolerance) down++;
-      }
-      const sd = Math.sqrt(this.channelM2A[k]! / (N - 1));
-      if (sd === 0) {
-        channelEffectSize[k] = Number.NaN;
-        effectExcluded++;
-      } else {
-        const d = (meanB - meanA) / sd;
-        channelEffectSize[k] = d;
-        effectSum += Math.abs(d);
-      }
-    }
-    const effectCount = C - effectExcluded;
-    return {
-      stimuli: N,
+    const pooled = this.pooled;
+    return layerDiffMetrics({
+      stimuli: this.stimuli,
       elements: this.elements,
-      channels: C,
+      channels: this.channels,
       spatial: this.spatial,
-      relativeChange: relativeNorm(sumDD, sumAA),
-      relativeChangeMedian: median(this.stimulusChange.subarray(0, N)),
-      zeroNormStimuli: this.zeroNormStimuli,
-      cosine,
-      pearson,
-      channelRatio,
-      channelRatioExcluded: ratioExcluded,
-      channelRatioMean: ratioCount > 0 ? ratioMean : Number.NaN,
-      channelRatioSd: ratioCount > 1 ? Math.sqrt(ratioM2 / (ratioCount - 1)) : Number.NaN,
-      fractionUp: ratioCount > 0 && !ratioNaN ? up / ratioCount : Number.NaN,
-      fractionDown: ratioCount > 0 && !ratioNaN ? down / ratioCount : Number.NaN,
-      channelEffectSize,
-      effectSize: effectCount > 0 ? effectSum / effectCount : Number.NaN,
-      effectSizeExcluded: effectExcluded,
-      nonFinite: { base: this.nonFiniteBase, mod: this.nonFiniteMod },
       tolerance: this.tolerance,
-    };
+      sumAA: pooled[2 * AA]! + pooled[2 * AA + 1]!,
+      sumBB: pooled[2 * BB]! + pooled[2 * BB + 1]!,
+      sumAB: pooled[2 * AB]! + pooled[2 * AB + 1]!,
+      sumDD: pooled[2 * DD]! + pooled[2 * DD + 1]!,
+      pearsonM2A: this.pearsonM2A,
+      pearsonM2B: this.pearsonM2B,
+      pearsonCoMoment: this.pearsonCoMoment,
+      channelMeanA: this.channelMeanA,
+      channelM2A: this.channelM2A,
+      channelMeanB: this.channelMeanB,
+      stimulusChange: this.stimulusChange.subarray(0, this.stimuli),
+      zeroNormStimuli: this.zeroNormStimuli,
+      nonFiniteBase: this.nonFiniteBase,
+      nonFiniteMod: this.nonFiniteMod,
+    });
   }
 
   private reserve(stimuli: number): void {
@@ -656,12 +559,6 @@ export class LayerDiffAccumulator {
   }
 }
 
-/** √(diff²) / √(base²) with the zero rule: 0/0 → 0 (nothing changed), x/0 → +Infinity; NaN propagates. */
-function relativeNorm(sumDiffSquares: number, sumBaseSquares: number): number {
-  if (sumBaseSquares === 0) return sumDiffSquares === 0 ? 0 : sumDiffSquares > 0 ? Number.POSITIVE_INFINITY : Number.NaN;
-  return Math.sqrt(sumDiffSquares) / Math.sqrt(sumBaseSquares);
-}
-
 /** Neumaier's compensated addition (Neumaier 1974) into sums[2i] with its running error in sums[2i + 1]. */
 function addCompensated(sums: Float64Array, i: number, value: number): void {
   const sum = sums[2 * i]!;
@@ -671,12 +568,9 @@ function addCompensated(sums: Float64Array, i: number, value: number): void {
   sums[2 * i] = next;
 }
 
+/** NaN and ±Infinity elements of data[start, end). */
 function countNonFinite(data: Float32Array, start: number, end: number): number {
   let count = 0;
   for (let i = start; i < end; i++) if (!Number.isFinite(data[i]!)) count++;
   return count;
-}
-
-function clampUnit(value: number): number {
-  return value > 1 ? 1 : value < -1 ? -1 : value;
 }

@@ -1,6 +1,6 @@
 import { join } from 'node:path';
 import { readFileSync, rmSync } from 'node:fs';
-import { recordSnapshot } from '../pipeline/record-snapshot.js';
+import { recordSnapshot } from '../record/record-snapshot.js';
 import { createNetworkSession } from '../session/network-session.js';
 import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';

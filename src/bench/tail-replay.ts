@@ -1,8 +1,8 @@
 import { copyFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { ACTIVATION_OPS } from '../graph/select.js';
-import { recordModulated } from '../pipeline/record-modulated.js';
-import { recordSnapshot } from '../pipeline/record-snapshot.js';
+import { recordModulated } from '../record/record-modulated.js';
+import { recordSnapshot } from '../record/record-snapshot.js';
 import { openSnapshot } from '../snapshot/snapshot.js';
 import { benchStimuli, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';

@@ -1,24 +1,7 @@
 import { CommanderError } from 'commander';
 import { SondeError } from '../errors.js';
 import { createProgram } from './program.js';
-
-/** Where the CLI writes; tests pass their own to capture output in-process. */
-export interface CliIo {
-  stdout: (text: string) => void;
-  stderr: (text: string) => void;
-}
-
-const processIo: CliIo = {
-  stdout: (text) => process.stdout.write(text),
-  stderr: (text) => process.stderr.write(text),
-};
-
-let currentIo: CliIo = processIo;
-
-/** The output sink of the command now running (commands print through this, never console.log). */
-export function cliIo(): CliIo {
-  return currentIo;
-}
+import { processIo, setCliIo, type CliIo } from './io.js';
 
 /**
  * Parses `argv` (without node and script) and runs the command. This is the one place that catches
@@ -33,15 +16,14 @@ export async function runCli(argv: readonly string[], io: CliIo = processIo): Pr
     for (const sub of command.commands) sub.configureOutput(output);
   }
   const verbose = argv.includes('--verbose');
-  const previous = currentIo;
-  currentIo = io;
+  const previous = setCliIo(io);
   try {
     await program.parseAsync([...argv], { from: 'user' });
     return 0;
   } catch (error) {
     return reportError(error, io, verbose);
   } finally {
-    currentIo = previous;
+    setCliIo(previous);
   }
 }
 

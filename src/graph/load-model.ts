@@ -2,7 +2,7 @@ import { createHash } from 'node:crypto';
 import { readFileSync, realpathSync, statSync } from 'node:fs';
 import { basename, dirname, isAbsolute, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { assertRegularFile, realPathInside } from '../input-file.js';
+import { assertRegularFile, realPathInside } from '../disk/input-file.js';
 import { decodeModel, ONNX_DTYPE_NAMES, toNumber, type ModelProto, type TensorProto } from './onnx.js';
 
 /** One dimension of a declared input: a number, or the `dim_param` name of a dynamic axis. */

@@ -1,7 +1,7 @@
 import Table from 'cli-table3';
 import { sparkline } from '../analysis/sparkline.js';
-import type { DiffReport, SchemeComparison } from '../pipeline/diff-snapshots.js';
-import { bar, compact, csvField, fixed, signed } from './format.js';
+import type { DiffReport, SchemeComparison } from '../compare/diff-types.js';
+import { bar, compact, csvField, fixed, signed } from '../format.js';
 
 const STYLE = { head: [], border: [], compact: true };
 

@@ -2,6 +2,7 @@ import { createHash, type Hash } from 'node:crypto';
 import { closeSync, fstatSync, fsyncSync, ftruncateSync, openSync, readSync, renameSync, rmSync, writeSync } from 'node:fs';
 import { AsyncByteQueue } from 'apache-arrow';
 import { RuntimeFailure } from '../errors.js';
+import { writeFailure, type WriteFault } from '../disk/write-failure.js';
 
 /**
  * A byte sink for apache-arrow's IPC writers that writes straight to a file descriptor (no queueing in
@@ -153,12 +154,7 @@ export class HashingFileSink extends AsyncByteQueue {
   }
 }
 
-/**
- * A fault to inject into every sink write: returns an error to throw (e.g. one with code ENOSPC) or null.
- * Receives the temporary path, the bytes already in the file and the size of the write.
- */
-export type WriteFault = (path: string, byteOffset: number, byteLength: number) => NodeJS.ErrnoException | null;
-
+/** The fault every sink write consults (tests only; see `injectWriteFault`). */
 let writeFault: WriteFault | null = null;
 
 /**
@@ -167,11 +163,4 @@ let writeFault: WriteFault | null = null;
  */
 export function injectWriteFault(fault: WriteFault | null): void {
   writeFault = fault;
-}
-
-/** Turns a file-system error into a one-line RuntimeFailure naming the file. */
-export function writeFailure(path: string, error: unknown): RuntimeFailure {
-  const code = (error as NodeJS.ErrnoException).code;
-  const reason = code === 'ENOSPC' ? 'the disk is full' : code === 'EACCES' || code === 'EPERM' ? 'permission denied' : (error as Error).message;
-  return new RuntimeFailure('E_WRITE', `cannot write ${path}: ${reason}`, { cause: error });
 }

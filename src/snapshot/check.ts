@@ -18,12 +18,12 @@ import { join, resolve } from 'node:path';
 import { DataType, RecordBatchReader, tableFromIPC, type Field, type Schema } from 'apache-arrow';
 import { SondeError } from '../errors.js';
 import { listingDigest } from '../stimuli/source.js';
-import { readLockOwner, isStale, LOCK_FILE } from './lock.js';
+import { readLockOwner, isStale, LOCK_FILE } from '../disk/lock.js';
 import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
 import { assertInside, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest } from './stimuli-file.js';
 import { parseJson } from '../json.js';
-import { describeNonRegular, realPathInside } from '../input-file.js';
+import { describeNonRegular, realPathInside } from '../disk/input-file.js';
 
 /** One thing that is wrong. */
 export interface CheckProblem {

@@ -7,7 +7,7 @@
  * times), so reading a layer again costs nothing extra.
  */
 import { RuntimeFailure } from '../errors.js';
-import { assertRegularFile } from '../input-file.js';
+import { assertRegularFile } from '../disk/input-file.js';
 import { hashFileOffThread } from './file-hash.js';
 import type { ManifestLayer } from './manifest.js';
 

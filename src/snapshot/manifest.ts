@@ -5,9 +5,9 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { isAbsolute, join, relative, resolve, sep } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { replaceFile } from './atomic-file.js';
+import { replaceFile } from '../disk/atomic-file.js';
 import { parseJson } from '../json.js';
-import { assertRegularFile, realPathInside } from '../input-file.js';
+import { assertRegularFile, realPathInside } from '../disk/input-file.js';
 
 /**
  * Version of the snapshot layout written by this build.
@@ -16,7 +16,7 @@ import { assertRegularFile, realPathInside } from '../input-file.js';
  */
 export const FORMAT_VERSION = 2;
 
-/** Where a shard snapshot sits in the whole stimulus listing (see `src/pipeline/shard.ts`). */
+/** Where a shard snapshot sits in the whole stimulus listing (see `src/record/shard.ts`). */
 export interface ShardInfo {
   /** K, 1-based. */
   index: number;

@@ -3,7 +3,7 @@ import { existsSync, readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { Message, RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
 import { RuntimeFailure, SondeError, UsageError, closestHint } from '../errors.js';
-import { assertRegularFile, realPathInside } from '../input-file.js';
+import { assertRegularFile, realPathInside } from '../disk/input-file.js';
 import { LayerBlockFile } from './block-reader.js';
 import { startLayerCheck, type LayerVerification } from './layer-integrity.js';
 import { float16ToFloat32 } from './float16.js';

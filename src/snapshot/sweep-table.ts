@@ -1,6 +1,32 @@
 import { tableFromArrays, tableToIPC } from 'apache-arrow';
-import type { SweepCell } from '../pipeline/sweep-types.js';
-import { replaceFile } from './atomic-file.js';
+import { replaceFile } from '../disk/atomic-file.js';
+
+/** Detection at one operating point, as a sweep row stores it. */
+export interface SweepTableDetection {
+  hitRate: number;
+  falseAlarmRate: number;
+  dPrime: number;
+  criterion: number;
+  accuracy: number;
+  auc: number;
+}
+
+/**
+ * The fields of a sweep cell the table stores (a `SweepCell` of src/replay/sweep-types.ts has them all;
+ * the file format is defined here, below the code that fills it).
+ */
+export interface SweepTableRow {
+  site: string;
+  scheme: string;
+  category: string;
+  strength: number;
+  seed: number;
+  base: SweepTableDetection;
+  mod: SweepTableDetection;
+  change: { dPrime: number; accuracyPp: number; auc: number; matchedHitRatePp: number };
+  criterionControl: { hitRatePp: number; dPrime: number };
+  siteActivityChange: number;
+}
 
 /**
  * Writes sweep cells as an Arrow IPC file, one row per cell: `site`, `scheme`, `category` utf8,
@@ -10,8 +36,8 @@ import { replaceFile } from './atomic-file.js';
  * `site_activity_change` float64.
  * Written under a temporary name, fsynced and renamed (`replaceFile`).
  */
-export function writeSweepTable(path: string, cells: readonly SweepCell[]): void {
-  const f64 = (pick: (c: SweepCell) => number) => Float64Array.from(cells, pick);
+export function writeSweepTable(path: string, cells: readonly SweepTableRow[]): void {
+  const f64 = (pick: (c: SweepTableRow) => number) => Float64Array.from(cells, pick);
   const table = tableFromArrays({
     site: cells.map((c) => c.site),
     scheme: cells.map((c) => c.scheme),

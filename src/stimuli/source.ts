@@ -3,7 +3,7 @@ import { existsSync, readdirSync, readFileSync, statSync } from 'node:fs';
 import { basename, dirname, extname, join, relative, resolve } from 'node:path';
 import sharp from 'sharp';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { assertRegularFile } from '../input-file.js';
+import { assertRegularFile } from '../disk/input-file.js';
 import { parseNpy } from './npy.js';
 import { pixelsToPlanar, type Preprocessing } from './preprocess.js';
 

@@ -1,7 +1,8 @@
 import { execFileSync } from 'node:child_process';
 import { existsSync } from 'node:fs';
 import { describe, expect, it } from 'vitest';
-import { LayerDiffAccumulator, type LayerDiffMetrics } from '../../src/analysis/layer-diff.js';
+import { LayerDiffAccumulator } from '../../src/analysis/layer-diff.js';
+import type { LayerDiffMetrics } from '../../src/analysis/layer-diff-metrics.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
 

@@ -6,8 +6,8 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { recordModulated } from '../../src/pipeline/record-modulated.js';
-import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
 import { tempFolder } from '../helpers/onnx-builder.js';

@@ -12,7 +12,8 @@
 import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { defaultStep, senseSites, type SenseMethod, type SiteSensitivity } from '../../src/pipeline/sense.js';
+import { defaultStep, type SenseMethod, type SiteSensitivity } from '../../src/replay/sense-types.js';
+import { senseSites } from '../../src/replay/sense.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
 
 const FIXTURES = new URL('./fixtures/', import.meta.url).pathname;

@@ -1,8 +1,8 @@
 import { describe, expect, it } from 'vitest';
 import { agreementData, propagationMatrix, relativeChangeData, runLabel, taskCurves, tuningData, uniqueLabels } from '../../src/report/html/chart-data.js';
-import type { SweepCell, SweepResult } from '../../src/pipeline/sweep-types.js';
+import type { SweepCell, SweepResult } from '../../src/replay/sweep-types.js';
 import { makeAgreement, makeDiff, makeSweep, makeTuneJson, viaJson } from './fixtures.js';
-import type { DiffReport } from '../../src/pipeline/diff-snapshots.js';
+import type { DiffReport } from '../../src/compare/diff-types.js';
 import type { TuningSummaries } from '../../src/report/html/inputs.js';
 
 const detection = { hitRate: 0.5, falseAlarmRate: 0.5, dPrime: 0, criterion: 0, accuracy: 0.5 };

@@ -6,9 +6,11 @@
  */
 import { linearFit } from '../../src/analysis/correlation.js';
 import { detectionStats, type DetectionStats } from '../../src/analysis/signal-detection.js';
-import type { TableComparison } from '../../src/pipeline/compare-tables.js';
-import { compareSchemes, dtypeFloor, verdictOf, type DiffReport, type LayerDiffRow, type SchemeComparison, type TaskCategory } from '../../src/pipeline/diff-snapshots.js';
-import type { SweepCell, SweepDepthPoint, SweepResult } from '../../src/pipeline/sweep-types.js';
+import type { TableComparison } from '../../src/compare/compare-tables.js';
+import { compareSchemes, verdictOf } from '../../src/compare/diff-verdict.js';
+import { dtypeFloor } from '../../src/compare/diff-snapshots.js';
+import { type DiffReport, type LayerDiffRow, type SchemeComparison, type TaskCategory } from '../../src/compare/diff-types.js';
+import type { SweepCell, SweepDepthPoint, SweepResult } from '../../src/replay/sweep-types.js';
 import { createRandom } from '../../src/random.js';
 
 /** The hostile strings used to test escaping: markup, ampersand, both quotes. */

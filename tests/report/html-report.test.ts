@@ -1,11 +1,11 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { diffSnapshots } from '../../src/pipeline/diff-snapshots.js';
-import { recordModulated } from '../../src/pipeline/record-modulated.js';
-import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
-import { sweepModulations } from '../../src/pipeline/sweep.js';
-import { tuneSnapshot } from '../../src/pipeline/tune.js';
+import { diffSnapshots } from '../../src/compare/diff-snapshots.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
+import { sweepModulations } from '../../src/replay/sweep.js';
+import { tuneSnapshot } from '../../src/compare/tune.js';
 import { propagationMatrix } from '../../src/report/html/chart-data.js';
 import { readReportInput } from '../../src/report/html/inputs.js';
 import { reportToJson } from '../../src/report/diff-table.js';
@@ -159,7 +159,7 @@ describe('buildHtmlReport on a recorded network', () => {
 
   it('buildHtmlReport(sweep.json of a real --depth-profile sweep) draws all sweep charts; uniform gain 1 + β changes the site by exactly β', async () => {
     // at the site tensor itself a uniform gain g gives ‖g·a − a‖/‖a‖ = |g − 1| for any network (exact
-    // algebra); the sweep's uniform scheme uses g = 1 + β (src/pipeline/sweep.ts)
+    // algebra); the sweep's uniform scheme uses g = 1 + β (src/replay/sweep.ts)
     const dir = tempFolder('sonde-report-sweep-');
     const model = join(dir, 'net.onnx');
     const kinds = ['alpha', 'beta', 'gamma'];

@@ -1,7 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { classifyReportInput } from '../../src/report/html/inputs.js';
 import { sizeMatchedSection } from '../../src/report/html/size-matched-section.js';
-import type { SizeMatchedComparison } from '../../src/pipeline/size-matched.js';
+import type { SizeMatchedComparison } from '../../src/replay/size-matched.js';
 
 const effect = (scheme: string, site: string, estimate: number) => ({ scheme, site, size: 0.2, aucChange: { estimate, low: estimate - 0.01, high: estimate + 0.01 }, fractionOfCeiling: null, fitSetAucChange: null, hitRatePp: 1, falseAlarmRatePp: 2, criterionShiftHitRatePp: 0.5, perCategory: [] });
 const comparison: SizeMatchedComparison = {

@@ -4,7 +4,7 @@
  * 5 %, else the half- or doubling depth ln 2 / |rate| (exact property of an exponential profile).
  */
 import { describe, expect, it } from 'vitest';
-import { describeDepthProfile } from '../../src/pipeline/diff-snapshots.js';
+import { describeDepthProfile } from '../../src/compare/diff-verdict.js';
 import { bestCellsTable, diffSummaryTable, sweepMeasureOf, sweepTaskTable, taskTable } from '../../src/report/html/tables.js';
 import { taskCurves } from '../../src/report/html/chart-data.js';
 import { makeDiff, makeSweep } from './fixtures.js';

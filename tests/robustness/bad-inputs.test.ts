@@ -9,8 +9,8 @@ import { join } from 'node:path';
 import onnxProto from 'onnx-proto';
 import sharp from 'sharp';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { recordModulated } from '../../src/pipeline/record-modulated.js';
-import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { createRandom } from '../../src/random.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 

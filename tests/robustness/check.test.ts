@@ -7,8 +7,8 @@ import { cpSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { recordModulated } from '../../src/pipeline/record-modulated.js';
-import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { checkSnapshot } from '../../src/snapshot/check.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 

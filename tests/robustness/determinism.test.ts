@@ -7,7 +7,7 @@
 import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { buildTinyNet, concatActivations, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 

@@ -18,10 +18,10 @@ import { cpSync, existsSync, mkdirSync, readFileSync, readdirSync, renameSync, r
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { loadModel } from '../../src/graph/load-model.js';
-import { diffSnapshots } from '../../src/pipeline/diff-snapshots.js';
-import { recordModulated } from '../../src/pipeline/record-modulated.js';
-import { recordSnapshot, type RecordOptions } from '../../src/pipeline/record-snapshot.js';
-import { tuneSnapshot } from '../../src/pipeline/tune.js';
+import { diffSnapshots } from '../../src/compare/diff-snapshots.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { recordSnapshot, type RecordOptions } from '../../src/record/record-snapshot.js';
+import { tuneSnapshot } from '../../src/compare/tune.js';
 import { checkSnapshot } from '../../src/snapshot/check.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { buildTinyNet, externalise, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';

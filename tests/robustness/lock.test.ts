@@ -7,7 +7,7 @@ import { existsSync, mkdirSync, readFileSync, utimesSync, writeFileSync } from '
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { acquireLock, isStale, LOCK_GRACE_MS } from '../../src/snapshot/lock.js';
+import { acquireLock, isStale, LOCK_GRACE_MS } from '../../src/disk/lock.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 import { ensureBuilt, ROOT } from './cli-process.js';
 

@@ -6,7 +6,7 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { countNonFinite, FLOAT16_OVERFLOW } from '../../src/pipeline/non-finite.js';
+import { countNonFinite, FLOAT16_OVERFLOW } from '../../src/record/non-finite.js';
 import { fromFloat16Bits, toFloat16Bits } from '../../src/snapshot/float16.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 

@@ -4,7 +4,7 @@
  * file as it was. Each case names the input, checks the exit code and the one-line message (path, what
  * was found, the fix), and compares every file that must survive byte for byte (SHA-256 of the whole
  * tree before and after). Inputs are invented robustness data; the expectations are the rules written
- * in src/pipeline/output-folder.ts and src/pipeline/output-file.ts (common practice for tools that
+ * in src/outputs/output-folder.ts and src/outputs/output-file.ts (common practice for tools that
  * write into user folders: refuse rather than guess).
  */
 import { createHash } from 'node:crypto';
@@ -12,10 +12,10 @@ import { existsSync, lstatSync, mkdirSync, readdirSync, readFileSync, rmSync, sy
 import { join } from 'node:path';
 import { afterEach, beforeAll, describe, expect, it } from 'vitest';
 import { UsageError } from '../../src/errors.js';
-import { runDemo } from '../../src/pipeline/demo.js';
-import { DEMO_MARK, prepareDemoFolder, prepareSweepFolder } from '../../src/pipeline/output-folder.js';
+import { runDemo } from '../../src/demo/demo.js';
+import { DEMO_MARK, prepareDemoFolder, prepareSweepFolder } from '../../src/outputs/output-folder.js';
 import { injectWriteFault } from '../../src/snapshot/arrow-sink.js';
-import { injectReplaceFault } from '../../src/snapshot/atomic-file.js';
+import { injectReplaceFault } from '../../src/disk/atomic-file.js';
 import { readTuningTable } from '../../src/snapshot/tables.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 

@@ -11,8 +11,8 @@ import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
 import { UsageError } from '../../src/errors.js';
 import { parseModulationSpec } from '../../src/modulation/spec.js';
-import { readPartial } from '../../src/pipeline/partial-stats.js';
-import { parseShard, shardRange } from '../../src/pipeline/shard.js';
+import { readPartial } from '../../src/record/partial-file.js';
+import { parseShard, shardRange } from '../../src/record/shard.js';
 import { assertInside, FORMAT_VERSION, validateManifest, type SnapshotManifest } from '../../src/snapshot/manifest.js';
 
 const folder = mkdtempSync(join(tmpdir(), 'sonde-prop-'));

@@ -9,7 +9,7 @@ import { readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { readSensitivityTable, readTuningTable } from '../../src/snapshot/tables.js';
-import { shardRange } from '../../src/pipeline/shard.js';
+import { shardRange } from '../../src/record/shard.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 import { ensureBuilt, runSondeProcess } from './cli-process.js';
 

@@ -6,9 +6,9 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { recordSnapshot } from '../../src/pipeline/record-snapshot.js';
-import { sweepModulations, type SweepOptions } from '../../src/pipeline/sweep.js';
-import { tuneSnapshot } from '../../src/pipeline/tune.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
+import { sweepModulations, type SweepOptions } from '../../src/replay/sweep.js';
+import { tuneSnapshot } from '../../src/compare/tune.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 let dir: string;

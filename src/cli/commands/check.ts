@@ -4,10 +4,10 @@
  */
 import type { Command } from 'commander';
 import { RuntimeFailure } from '../../errors.js';
-import { displayPath } from '../../pipeline/record-snapshot.js';
+import { displayPath } from '../../record/record-snapshot.js';
 import { checkSnapshot } from '../../snapshot/check.js';
 import { megabytes } from '../options.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 /** Registers `sonde check`. */
 export function registerCheck(program: Command): void {

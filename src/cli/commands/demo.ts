@@ -1,8 +1,8 @@
 import type { Command } from 'commander';
-import { displayPath } from '../../pipeline/record-snapshot.js';
-import { runDemo } from '../../pipeline/demo.js';
+import { displayPath } from '../../record/record-snapshot.js';
+import { runDemo } from '../../demo/demo.js';
 import { nonNegativeInteger } from '../options.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 /** `sonde demo`: the whole job on the built-in demo network. */
 export function registerDemo(program: Command): void {

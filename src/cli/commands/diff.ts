@@ -1,16 +1,19 @@
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
-import { diffSnapshots, nonFiniteFailure, type DiffOptions, type DiffReport, type SchemeComparison } from '../../pipeline/diff-snapshots.js';
+import { diffSnapshots } from '../../compare/diff-snapshots.js';
+import { nonFiniteFailure } from '../../compare/diff-verdict.js';
+import { type DiffOptions, type DiffReport, type SchemeComparison } from '../../compare/diff-types.js';
 import { diffToCsv, renderComparison, renderDiffReport, reportToJson } from '../../report/diff-table.js';
 import { finiteNumber, nonNegativeInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 import { tuningLookup } from './tuning-lookup.js';
-import { diffPartial, writePartial } from '../../pipeline/partial-stats.js';
-import { parseShard } from '../../pipeline/shard.js';
-import { parseSweepMeasure } from '../../pipeline/sweep.js';
-import { assertOutFileWritable } from '../../pipeline/output-file.js';
-import { replaceFile } from '../../snapshot/atomic-file.js';
+import { diffPartial } from '../../compare/partials.js';
+import { writePartial } from '../../record/partial-file.js';
+import { parseShard } from '../../record/shard.js';
+import { parseSweepMeasure } from '../../replay/sweep.js';
+import { assertOutFileWritable } from '../../outputs/output-file.js';
+import { replaceFile } from '../../disk/atomic-file.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
 
 interface DiffCliOptions {

@@ -1,9 +1,9 @@
 import Table from 'cli-table3';
 import type { Command } from 'commander';
-import { describeSkipped, inspectModel } from '../../pipeline/inspect-model.js';
+import { describeSkipped, inspectModel } from '../../record/inspect-model.js';
 import { parseShape } from '../../stimuli/preprocess.js';
 import { megabytes } from '../options.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 /** `sonde layers MODEL`: every recordable tensor with depth, op, shape, size, default selection. */
 export function registerLayers(program: Command): void {

@@ -1,16 +1,19 @@
 /**
- * The partial-statistics half of `sonde merge`: reads the files, combines them (src/pipeline/
- * partial-stats.ts) and prints what the unsharded command prints — the diff report (table or JSON), or
+ * The partial-statistics half of `sonde merge`: reads the files, checks they are one run's shards
+ * (src/record/partial-file.ts), combines them by kind (src/compare/partials.ts for diff and tune,
+ * src/replay/sense-partial.ts for sense) and prints what the unsharded command prints — the diff report (table or JSON), or
  * for tuning the table file written to --out and its summary.
  */
 import { UsageError } from '../../errors.js';
-import { nonFiniteFailure } from '../../pipeline/diff-snapshots.js';
-import { mergePartials, readPartial } from '../../pipeline/partial-stats.js';
-import { assertOutFileWritable } from '../../pipeline/output-file.js';
-import { displayPath } from '../../pipeline/record-snapshot.js';
-import { SELECTIVE_INDEX } from '../../pipeline/tune.js';
+import { nonFiniteFailure } from '../../compare/diff-verdict.js';
+import { mergeDiffPartials, mergeTunePartials } from '../../compare/partials.js';
+import { orderShards, readPartial } from '../../record/partial-file.js';
+import { mergeSensePartials } from '../../replay/sense-partial.js';
+import { assertOutFileWritable } from '../../outputs/output-file.js';
+import { displayPath } from '../../record/record-snapshot.js';
+import { SELECTIVE_INDEX } from '../../compare/tune.js';
 import { renderDiffReport, reportToJson } from '../../report/diff-table.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 /**
  * Combines partial-statistics files and prints or writes the result.
@@ -25,15 +28,17 @@ export async function mergePartialFiles(parts: readonly string[], options: { out
   const files = parts.map((p) => readPartial(p));
   if (files[0]!.of !== 'diff' && options.out === undefined) throw new UsageError('E_MERGE', `merging ${files[0]!.of} partials needs --out FILE.arrow (where the ${files[0]!.of === 'tune' ? 'tuning' : 'sensitivity'} table goes)`);
   if (files[0]!.of === 'diff' && options.out !== undefined) throw new UsageError('E_MERGE', 'merging diff partials prints the report; --out applies to snapshots and tuning tables');
-  const merged = await mergePartials(files, parts, options.out !== undefined ? { out: options.out } : {});
-  if (merged.of === 'diff') {
-    io.stdout(options.json ? reportToJson(merged.report) : renderDiffReport(merged.report));
-    const failure = nonFiniteFailure(merged.report, `merge of ${parts.length} diff partials`);
+  const ordered = orderShards(files, parts);
+  const out = options.out !== undefined ? { out: options.out } : {};
+  if (files[0]!.of === 'diff') {
+    const report = await mergeDiffPartials(ordered);
+    io.stdout(options.json ? reportToJson(report) : renderDiffReport(report));
+    const failure = nonFiniteFailure(report, `merge of ${parts.length} diff partials`);
     if (failure) throw failure;
     return;
   }
-  if (merged.of === 'sense') {
-    const result = merged.result;
+  if (files[0]!.of === 'sense') {
+    const result = mergeSensePartials(ordered, out);
     for (const warning of result.warnings) io.stderr(`sonde: warning: ${warning}\n`);
     if (options.json) {
       const sites = result.sites.map(({ sensitivity: _s, fdError: _e, extrapolationShift: _x, count, ...rest }) => ({ ...rest, count: Array.from(count) }));
@@ -41,7 +46,7 @@ export async function mergePartialFiles(parts: readonly string[], options: { out
     } else io.stdout(`merged ${parts.length} sense partials: ${result.sites.length} sites, ${result.stimuli} stimuli → ${displayPath(options.out!)}\n`);
     return;
   }
-  const r = merged.result;
+  const r = mergeTunePartials(ordered, out);
   const summary = { out: options.out, parts: parts.length, categories: r.categories, counts: r.counts, stimuliUsed: r.stimuliUsed, stimuliSkipped: r.stimuliSkipped, bytes: r.file?.bytes, selectiveIndex: SELECTIVE_INDEX, layers: r.summaries };
   if (options.json) io.stdout(`${JSON.stringify(summary, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   else {

@@ -1,16 +1,16 @@
 /**
  * `sonde merge PARTS... --out DIR`: joins the shard snapshots of one recording into one snapshot (see
- * src/pipeline/merge.ts). PARTS may instead be partial-statistics files (`diff --shard … --partial`,
- * `tune --shard … --partial`), which are combined into the full result (see src/pipeline/partial-stats.ts).
+ * src/record/merge.ts). PARTS may instead be partial-statistics files (`diff --shard … --partial`,
+ * `tune --shard … --partial`), which are combined into the full result (see src/compare/partials.ts (diff, tune) and src/replay/sense-partial.ts).
  */
 import { existsSync, statSync } from 'node:fs';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
-import { mergeSnapshots } from '../../pipeline/merge.js';
-import { displayPath } from '../../pipeline/record-snapshot.js';
+import { mergeSnapshots } from '../../record/merge.js';
+import { displayPath } from '../../record/record-snapshot.js';
 import { megabytes } from '../options.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 import { mergePartialFiles } from './merge-partials.js';
 
 interface MergeCliOptions {

@@ -1,13 +1,13 @@
 import type { Command } from 'commander';
-import { recordSnapshot, displayPath } from '../../pipeline/record-snapshot.js';
-import { recordModulated } from '../../pipeline/record-modulated.js';
-import { loadModulationTables } from '../../pipeline/tables.js';
+import { recordSnapshot, displayPath } from '../../record/record-snapshot.js';
+import { recordModulated } from '../../record/record-modulated.js';
+import { loadModulationTables } from '../../replay/modulation-tables.js';
 import { parseChannelList, parseShape, parseSize } from '../../stimuli/preprocess.js';
 import { UsageError } from '../../errors.js';
 import { finiteNumber, megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
-import { parseShard } from '../../pipeline/shard.js';
+import { parseShard } from '../../record/shard.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 interface RecordCliOptions {
   stimuli: string;

@@ -3,9 +3,9 @@
  * styles, no script, no network) from diff, sweep and tune JSON results. See `writeHtmlReport`.
  */
 import type { Command } from 'commander';
-import { displayPath } from '../../pipeline/record-snapshot.js';
+import { displayPath } from '../../record/record-snapshot.js';
 import { writeHtmlReport } from '../../report/html/html-report.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 interface ReportCliOptions {
   out: string;

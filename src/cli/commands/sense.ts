@@ -2,20 +2,23 @@
  * `sonde sense MODEL --site TENSOR --readout OUTPUT[:CATEGORY|INDEX] --out FILE.arrow`: causal gain (or
  * offset) sensitivities of every channel of a site for each readout category, by finite differences
  * through the injected gain input — Richardson-extrapolated central differences by default, the plain
- * central secant with --method secant (see src/pipeline/sense.ts).
+ * central secant with --method secant (see src/replay/sense.ts).
  */
 import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { InvalidArgumentError } from 'commander';
 import { UsageError } from '../../errors.js';
-import { displayPath } from '../../pipeline/record-snapshot.js';
-import { ALL_ACTIVATIONS, DEFAULT_OFFSET_STEP, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, defaultStep, DEFAULT_WARN_RATIO, SENSE_METHODS, senseSites, type SenseMethod, type SenseOptions } from '../../pipeline/sense.js';
+import { displayPath } from '../../record/record-snapshot.js';
+import { ALL_ACTIVATIONS } from '../../replay/sense-plan.js';
+import { DEFAULT_OFFSET_STEP, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, defaultStep, DEFAULT_WARN_RATIO, SENSE_METHODS, type SenseMethod, type SenseOptions } from '../../replay/sense-types.js';
+import { senseSites } from '../../replay/sense.js';
 import { parseChannelList, parseShape } from '../../stimuli/preprocess.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../run.js';
-import { sensePartial, writePartial } from '../../pipeline/partial-stats.js';
-import { parseShard } from '../../pipeline/shard.js';
+import { cliIo } from '../io.js';
+import { sensePartial } from '../../replay/sense-partial.js';
+import { writePartial } from '../../record/partial-file.js';
+import { parseShard } from '../../record/shard.js';
 
 interface SenseCliOptions {
   stimuli?: string;

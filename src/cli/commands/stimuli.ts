@@ -13,7 +13,7 @@ import {
   type DemoKind,
   type StimulusFormat,
 } from '../../stimuli/demo/index.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 interface MakeFlags {
   out: string;

@@ -1,13 +1,13 @@
 import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
-import { parseShard } from '../../pipeline/shard.js';
-import { parseSweepMeasure, sweepModulations } from '../../pipeline/sweep.js';
-import type { SweepCell } from '../../pipeline/sweep-types.js';
-import { fixed, signed } from '../../report/format.js';
+import { parseShard } from '../../record/shard.js';
+import { parseSweepMeasure, sweepModulations } from '../../replay/sweep.js';
+import type { SweepCell } from '../../replay/sweep-types.js';
+import { fixed, signed } from '../../format.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../run.js';
+import { cliIo } from '../io.js';
 
 interface SweepCliOptions {
   from: string;

@@ -8,13 +8,14 @@ import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
 import { sparkline } from '../../analysis/sparkline.js';
-import { compareTables, type TableComparison } from '../../pipeline/compare-tables.js';
-import { displayPath } from '../../pipeline/record-snapshot.js';
-import { SELECTIVE_INDEX, summariseLayer, tuneSnapshot, type LayerTuningSummary } from '../../pipeline/tune.js';
+import { compareTables, type TableComparison } from '../../compare/compare-tables.js';
+import { displayPath } from '../../record/record-snapshot.js';
+import { SELECTIVE_INDEX, summariseLayer, tuneSnapshot, type LayerTuningSummary } from '../../compare/tune.js';
 import { readSensitivityTable, readTuningTable, type TuningTableBlock } from '../../snapshot/tables.js';
-import { cliIo } from '../run.js';
-import { tunePartial, writePartial } from '../../pipeline/partial-stats.js';
-import { parseShard } from '../../pipeline/shard.js';
+import { cliIo } from '../io.js';
+import { tunePartial } from '../../compare/partials.js';
+import { writePartial } from '../../record/partial-file.js';
+import { parseShard } from '../../record/shard.js';
 
 interface TuneCliOptions {
   out?: string;

@@ -1,5 +1,5 @@
 import { closestHint, UsageError } from '../../errors.js';
-import type { TuningLookup } from '../../pipeline/diff-snapshots.js';
+import type { TuningLookup } from '../../compare/diff-types.js';
 import { readTuningTable } from '../../snapshot/tables.js';
 
 /**

@@ -4,9 +4,9 @@
  * of the shuffled control, which strength a matrix shows) is tested on its own.
  */
 import { basename } from 'node:path';
-import type { TableComparison } from '../../pipeline/compare-tables.js';
-import type { DiffReport } from '../../pipeline/diff-snapshots.js';
-import type { SweepCell, SweepResult } from '../../pipeline/sweep-types.js';
+import type { TableComparison } from '../../compare/compare-tables.js';
+import type { DiffReport } from '../../compare/diff-types.js';
+import type { SweepCell, SweepResult } from '../../replay/sweep-types.js';
 import { num, type TuningSummaries } from './inputs.js';
 
 /** One layer of one diff run, for the relative-change-vs-depth chart. */

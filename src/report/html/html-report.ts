@@ -11,12 +11,12 @@
  *   profiles (with `--depth-profile` sweeps); calibration;
  * - tuning–sensitivity agreement against depth; tuning across depth.
  */
-import { replaceFile } from '../../snapshot/atomic-file.js';
-import { assertOutFileWritable } from '../../pipeline/output-file.js';
+import { replaceFile } from '../../disk/atomic-file.js';
+import { assertOutFileWritable } from '../../outputs/output-file.js';
 import { RuntimeFailure, UsageError } from '../../errors.js';
 import { TOOL_VERSION } from '../../version.js';
-import type { DiffReport } from '../../pipeline/diff-snapshots.js';
-import type { SweepResult } from '../../pipeline/sweep-types.js';
+import type { DiffReport } from '../../compare/diff-types.js';
+import type { SweepResult } from '../../replay/sweep-types.js';
 import { agreementData, propagationMatrix, relativeChangeData, runLabel, taskCurves, tuningData, uniqueLabels } from './chart-data.js';
 import { depthLinesSpec, depthProfileSpec, PALETTE, propagationMatrixSpec, relativeChangeSpec, taskCurveSpec } from './chart-specs.js';
 import { classifyReportInput, num, readReportInput, type ReportInput } from './inputs.js';

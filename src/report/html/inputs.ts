@@ -15,11 +15,11 @@
 import { readFileSync, statSync } from 'node:fs';
 import { basename } from 'node:path';
 import { RuntimeFailure, UsageError } from '../../errors.js';
-import type { TableComparison } from '../../pipeline/compare-tables.js';
-import type { DiffReport, SchemeComparison } from '../../pipeline/diff-snapshots.js';
-import type { SweepResult } from '../../pipeline/sweep-types.js';
-import type { SizeMatchedComparison } from '../../pipeline/size-matched.js';
-import type { LayerTuningSummary } from '../../pipeline/tune.js';
+import type { TableComparison } from '../../compare/compare-tables.js';
+import type { DiffReport, SchemeComparison } from '../../compare/diff-types.js';
+import type { SweepResult } from '../../replay/sweep-types.js';
+import type { SizeMatchedComparison } from '../../replay/size-matched.js';
+import type { LayerTuningSummary } from '../../compare/tune.js';
 import { parseJson } from '../../json.js';
 
 /** Tuning summaries as `tune --json` prints them (only `layers` is required). */

@@ -3,7 +3,7 @@
  * demo): held-out ROC-area change of each scheme at one size of site modulation, with its bootstrap
  * interval, beside the shuffled, criterion-shift and ceiling references.
  */
-import type { SizeMatchedComparison } from '../../pipeline/size-matched.js';
+import type { SizeMatchedComparison } from '../../replay/size-matched.js';
 import { html, SafeHtml } from './markup.js';
 import type { PageSection } from './page.js';
 import { fmt, pct, sgn } from './tables.js';

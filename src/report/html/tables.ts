@@ -3,9 +3,9 @@
  * (escaped); numbers that JSON turned into null show as "–".
  */
 import { depthTrend, FLAT_PROFILE_CHANGE } from '../../analysis/depth-profile.js';
-import type { TableComparison } from '../../pipeline/compare-tables.js';
-import type { DiffReport, SchemeComparison, TaskReport } from '../../pipeline/diff-snapshots.js';
-import type { SweepResult } from '../../pipeline/sweep-types.js';
+import type { TableComparison } from '../../compare/compare-tables.js';
+import type { DiffReport, SchemeComparison, TaskReport } from '../../compare/diff-types.js';
+import type { SweepResult } from '../../replay/sweep-types.js';
 import type { TaskCurvePoint } from './chart-data.js';
 import { num, type TuningSummaries } from './inputs.js';
 import { html, SafeHtml, type HtmlValue } from './markup.js';

@@ -1,0 +1,29 @@
+/** The CLI's output sink: commands print through `cliIo()`, never console.log, so tests capture it in-process. */
+/** Where the CLI writes; tests pass their own to capture output in-process. */
+export interface CliIo {
+  stdout: (text: string) => void;
+  stderr: (text: string) => void;
+}
+
+/** The process's own stdout and stderr (the default sink). */
+export const processIo: CliIo = {
+  stdout: (text) => process.stdout.write(text),
+  stderr: (text) => process.stderr.write(text),
+};
+
+let currentIo: CliIo = processIo;
+
+/** The output sink of the command now running (commands print through this, never console.log). */
+export function cliIo(): CliIo {
+  return currentIo;
+}
+
+/**
+ * Makes `io` the sink of the command about to run (`runCli` only).
+ * @returns the sink it replaces, to restore when the command ends.
+ */
+export function setCliIo(io: CliIo): CliIo {
+  const previous = currentIo;
+  currentIo = io;
+  return previous;
+}

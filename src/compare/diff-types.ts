@@ -1,0 +1,134 @@
+/** What `diffSnapshots` takes and returns: options, per-layer rows, the detection read-out, the report and the two-scheme comparison. */
+import type { DepthProfile } from '../analysis/depth-profile.js';
+import type { SignatureFit } from '../analysis/signature.js';
+import type { DetectionStats } from '../analysis/signal-detection.js';
+import type { Snapshot } from '../snapshot/snapshot.js';
+
+/** Per-channel tuning values of one layer for the target category (e.g. from a tuning table). */
+export type TuningLookup = (layer: string) => Float64Array | undefined;
+
+/** Options of `diffSnapshots`. */
+export interface DiffOptions {
+  /** Baseline snapshot (folder or opened). */
+  base: string | Snapshot;
+  /** Modulated snapshot. */
+  mod: string | Snapshot;
+  /** A second modulated snapshot to compare side by side with `mod`. */
+  vs?: string | Snapshot;
+  /** A pairing that should show no effect (e.g. a gain-1 re-run or a shuffled control): its metrics are the noise floor. */
+  floor?: string | Snapshot;
+  /** Tuning values per layer for `target`: enables the feature-similarity-gain signature. */
+  tuning?: TuningLookup;
+  /** Attended category (for the signature and as the default detection task). */
+  target?: string;
+  /** `detect:CATEGORY` (one readout unit) or `labels` (every category with a readout unit). */
+  task?: string;
+  /** Bootstrap resamples over stimuli (default 1000; 0 disables). */
+  bootstrap?: number;
+  /** Seed of the bootstrap (default 0). */
+  seed?: number;
+  /** Channel ratio tolerance for "up"/"down" (default 0.01). */
+  tolerance?: number;
+  /** Decision threshold on readout scores: a number, `best` (accuracy-maximising on the baseline), or `auto` (the model's threshold if its sidecar gives one, else `best`). */
+  threshold?: number | 'best' | 'auto';
+  /** Detection measure the verdict leads with and `--vs` compares: `auc` (ROC area, threshold-free; default) or `dprime` (d′ at the fixed threshold). */
+  measure?: 'auc' | 'dprime';
+  /** Called as each layer finishes. */
+  onLayer?: (done: number, total: number, name: string) => void;
+}
+
+/** One layer of the diff. */
+export interface LayerDiffRow {
+  name: string;
+  op: string;
+  depth: number;
+  /** Position among the snapshot's recorded layers (0-based): the unit of depth profiles. */
+  ordinal: number;
+  /** This layer is a modulation site. */
+  site: boolean;
+  /** Depth below the (first) site in recorded layers; negative above it. */
+  belowSite: number;
+  relativeChange: number;
+  relativeChangeMedian: number;
+  cosine: number;
+  pearson: number;
+  channelRatioMean: number;
+  channelRatioSd: number;
+  fractionUp: number;
+  fractionDown: number;
+  effectSize: number;
+  nonFinite: { base: number; mod: number };
+  /** Noise floor of relativeChange for this layer. */
+  floor: number;
+  aboveFloor: boolean;
+  /** Bootstrap interval of relativeChange over stimuli, when bootstrapping. */
+  relativeChangeCi: [number, number] | null;
+  /** Feature-similarity-gain signature at this layer (with a tuning table). */
+  signature: (Omit<SignatureFit, 'normalisedRank' | 'ratio'>) | null;
+  /** The values were identical files (upstream of the modulation, referenced from the baseline). */
+  unchanged: boolean;
+}
+
+/** Detection read-out of one category. */
+export interface TaskCategory {
+  category: string;
+  unit: number;
+  threshold: number;
+  signalTrials: number;
+  noiseTrials: number;
+  base: DetectionStats;
+  mod: DetectionStats;
+  /** mod − base, in percentage points for rates and accuracy, in units for d′ and c. */
+  change: { hitRatePp: number; falseAlarmRatePp: number; accuracyPp: number; dPrime: number; criterion: number };
+  /** Bootstrap intervals over stimuli of the changes (one set of resamples for all three). */
+  ci: { dPrime: [number, number]; accuracyPp: [number, number]; auc: [number, number] } | null;
+  /** ROC area of the readout (threshold-free), base and mod, their difference and its bootstrap interval. */
+  auc: { base: number; mod: number; change: number; ci: [number, number] | null };
+  /** Hit rate of the modulated ROC at the baseline's false-alarm rate minus the baseline ROC's there, in pp. */
+  matchedHitRatePp: number;
+  /** Baseline scores shifted by the constant that reproduces the modulated false-alarm rate: hit rate and d′ vs base. */
+  criterionControl: { shift: number; hitRatePp: number; dPrime: number };
+}
+
+/** Task read-out: per category and averaged over categories. */
+export interface TaskReport {
+  kind: 'detect';
+  readout: string;
+  thresholdRule: string;
+  categories: TaskCategory[];
+  base: DetectionStats;
+  mod: DetectionStats;
+  change: TaskCategory['change'];
+  ci: TaskCategory['ci'];
+  /** Means over categories (the interval is of the mean change). */
+  auc: TaskCategory['auc'];
+  matchedHitRatePp: number;
+  criterionControl: { hitRatePp: number; dPrime: number };
+  /** The measure the verdict leads with. */
+  measure: 'auc' | 'dprime';
+}
+
+/** The whole diff. */
+export interface DiffReport {
+  base: { folder: string; modulation: null };
+  mod: { folder: string; modulation: unknown };
+  sites: string[];
+  stimuli: number;
+  layers: LayerDiffRow[];
+  floor: { source: 'snapshot' | 'dtype'; description: string };
+  /** Deepest layer below the site whose relative change stays above the floor. */
+  survival: { layer: string | null; belowSite: number | null };
+  depthProfile: DepthProfile;
+  task: TaskReport | null;
+  verdict: string;
+}
+
+/** The result of `diffSnapshots` with `vs`: both diffs and a per-layer comparison. */
+export interface SchemeComparison {
+  a: DiffReport;
+  b: DiffReport;
+  layers: Array<{ name: string; depth: number; a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean }>;
+  /** Task change of A and B in `measure` (ROC area by default). */
+  task: { a: number; b: number; larger: 'a' | 'b' | 'equal'; separated: boolean; measure: 'auc' | 'dprime' } | null;
+  verdict: string;
+}

@@ -1,0 +1,71 @@
+/**
+ * Replacing a small file so that a reader — or a recording resumed after a crash — sees either the old
+ * content or the new one, never a torn file: write a temporary file, fsync it, rename it over the
+ * target, fsync the folder (POSIX rename(2) is atomic; the directory entry is durable only after an
+ * fsync of the directory). A failed write (a full disk) deletes the temporary file and leaves the
+ * target as it was.
+ */
+import { closeSync, fsyncSync, openSync, renameSync, rmSync, writeSync } from 'node:fs';
+import { dirname } from 'node:path';
+import { writeFailure, type WriteFault } from './write-failure.js';
+
+/**
+ * Replaces the file at `path` with `content` (text is written as UTF-8) atomically; the temporary file
+ * is `PATH.partial` beside it and is removed again when the write fails.
+ * @throws RuntimeFailure (E_WRITE) naming the file when it cannot be written (e.g. the disk is full).
+ */
+export function replaceFile(path: string, content: string | Uint8Array): void {
+  const temporary = `${path}.partial`;
+  const bytes = typeof content === 'string' ? Buffer.from(content, 'utf8') : content;
+  let written = false;
+  try {
+    const fd = openSync(temporary, 'w');
+    try {
+      let offset = 0;
+      while (offset < bytes.byteLength) {
+        const fault = replaceFault?.(temporary, offset, bytes.byteLength - offset);
+        if (fault) throw fault;
+        offset += writeSync(fd, bytes, offset, bytes.byteLength - offset);
+      }
+      fsyncSync(fd);
+    } finally {
+      closeSync(fd);
+    }
+    renameSync(temporary, path);
+    written = true;
+    syncFolder(dirname(path));
+  } catch (error) {
+    if (!written) rmSync(temporary, { force: true });
+    throw writeFailure(path, error);
+  }
+}
+
+let replaceFault: WriteFault | null = null;
+
+/**
+ * Test hook: makes `replaceFile` writes fail as `fault` decides (the sink's `injectWriteFault` covers
+ * Arrow files); null removes it. Production code never sets it.
+ */
+export function injectReplaceFault(fault: WriteFault | null): void {
+  replaceFault = fault;
+}
+
+/**
+ * fsyncs a folder, so that renames inside it survive a power loss. Platforms that cannot open a folder
+ * skip it.
+ */
+function syncFolder(folder: string): void {
+  let fd: number;
+  try {
+    fd = openSync(folder, 'r');
+  } catch {
+    return;
+  }
+  try {
+    fsyncSync(fd);
+  } catch {
+    // some file systems refuse fsync on a directory; the rename itself has happened
+  } finally {
+    closeSync(fd);
+  }
+}

@@ -1,0 +1,112 @@
+/**
+ * The gain ceiling at a site: for each cued category, the per-channel gain of a given size that
+ * maximises the ROC area of that category's readout on a fitting set (see `analysis/gain-ceiling.ts`).
+ * The derivatives ∂readout/∂g_k come from forward differences of the downstream part replayed on the
+ * fitting baseline (`scoreGains`); the fitted gain is then measured on other stimuli by the caller, so
+ * the ceiling is a held-out figure like the schemes it is compared with.
+ */
+import { fitGainCeiling, type GainCeilingFit } from '../analysis/gain-ceiling.js';
+import { UsageError } from '../errors.js';
+import type { LoadedModel } from '../graph/load-model.js';
+import type { Snapshot } from '../snapshot/snapshot.js';
+import { readoutOf } from '../compare/diff-collect.js';
+import { scoreGains } from './gain-scores.js';
+import type { ModelInspection } from '../record/inspect-model.js';
+
+/** Options of `fitSiteCeilings`. */
+export interface SiteCeilingOptions {
+  model: LoadedModel;
+  inspection: ModelInspection;
+  /** The stimuli the gain is fitted on (the ones the tuning and sensitivity tables came from). */
+  fit: Snapshot;
+  site: string;
+  /** Cued categories (readout units named by the model's sidecar). */
+  categories: readonly string[];
+  /** Allowed weighted mean |g − 1| at the site, per category. */
+  budget: (category: string) => number;
+  /**
+   * Early stopping (default true): fit on every other fitting stimulus and keep the step whose gain
+   * gives the largest ROC area on the others, so the ceiling does not simply memorise the fitting set.
+   */
+  earlyStopping?: boolean;
+  /** Forward-difference step of the derivatives (default 0.01). */
+  step?: number;
+  threads?: number;
+}
+
+/** One fitted ceiling gain. */
+export interface SiteCeiling {
+  site: string;
+  category: string;
+  budget: number;
+  gain: Float32Array;
+  /** The fit on the fitting stimuli (linearised ROC areas, size, τ). */
+  fit: Omit<GainCeilingFit, 'gain'>;
+}
+
+/**
+ * Weight of each channel in the size of a gain: its mean non-negative activity over a baseline's
+ * stimuli (the weighting of a sweep cell's site activity change).
+ */
+export async function channelWeights(baseline: Snapshot, site: string): Promise<Float64Array> {
+  const n = baseline.manifest.stimuli.count;
+  const { channels } = baseline.layerGeometry(site);
+  const means = await baseline.readChannelMeans(site);
+  const weight = new Float64Array(channels);
+  for (let i = 0; i < n; i++) for (let k = 0; k < channels; k++) weight[k] += Math.max(0, means[i * channels + k]!) / n; // [n, C]: i*C + k
+  return weight;
+}
+
+/** Weighted mean |g_k − 1| (NaN when every weight is 0). */
+export function gainSize(gain: ArrayLike<number>, weights: ArrayLike<number>): number {
+  let size = 0;
+  let total = 0;
+  for (let k = 0; k < gain.length; k++) {
+    size += weights[k]! * Math.abs(gain[k]! - 1);
+    total += weights[k]!;
+  }
+  return total > 0 ? size / total : Number.NaN;
+}
+
+/**
+ * Fits the ceiling gain at one site for every category: C + 1 replays of the downstream part on the
+ * fitting baseline (g = 1, and g = 1 + h on each channel in turn), then one constrained fit per category.
+ * Forward differences (error O(h) where the readout curves) keep the replays to C + 1; the fitted gain
+ * is only a candidate — its held-out effect is measured on the real network, not on the expansion.
+ * @throws UsageError for a category the readout does not name, a bad step, or a site whose downstream
+ *   part the baseline cannot feed.
+ */
+export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<SiteCeiling[]> {
+  const { fit, site } = options;
+  const h = options.step ?? 0.01;
+  if (!(h > 0 && h < 1)) throw new UsageError('E_CEILING', `ceiling step ${h} must be in (0, 1)`);
+  const readout = readoutOf(fit);
+  const C = fit.layerGeometry(site).channels;
+  const n = fit.manifest.stimuli.count;
+  const units = fit.layerGeometry(readout.layer).channels;
+  const patterns: Float32Array[][] = [[new Float32Array(C).fill(1)]];
+  for (let k = 0; k < C; k++) {
+    const g = new Float32Array(C).fill(1);
+    g[k] = 1 + h;
+    patterns.push([g]);
+  }
+  const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: fit, sites: [site], gains: patterns, readout: readout.layer, threads: options.threads ?? 0 });
+  const weights = await channelWeights(fit, site);
+  return options.categories.map((category) => {
+    const unit = readout.kinds.indexOf(category);
+    if (unit < 0) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${readout.kinds.join(', ')})`);
+    const scores = new Float64Array(n);
+    const signal = new Uint8Array(n);
+    const jacobian = new Float64Array(n * C);
+    for (let i = 0; i < n; i++) {
+      scores[i] = scored[0]![i * units + unit]!;
+      signal[i] = fit.stimuli.labels[i]!.includes(category) ? 1 : 0;
+      // divided by the float32 step actually applied, fround(1 + h) − 1
+      for (let k = 0; k < C; k++) jacobian[i * C + k] = (scored[1 + k]![i * units + unit]! - scores[i]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
+    }
+    const budget = options.budget(category);
+    const validation = options.earlyStopping === false ? undefined : Uint8Array.from({ length: n }, (_, i) => i % 2);
+    const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget, ...(validation ? { validation } : {}) });
+    return { site, category, budget, gain: Float32Array.from(gain), fit: rest };
+  });
+}

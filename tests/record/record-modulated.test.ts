@@ -1,0 +1,135 @@
+import { writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { beforeAll, describe, expect, it } from 'vitest';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
+import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+
+let dir: string;
+let homogeneous: string;
+let biased: string;
+let residual: string;
+let stim: { npy: string; labels: string };
+
+async function values(snap: Snapshot, layer: string): Promise<Float32Array> {
+  const parts: number[] = [];
+  for await (const batch of snap.readLayer(layer)) parts.push(...batch.activation!);
+  return Float32Array.from(parts);
+}
+
+function spec(name: string, body: object): string {
+  const path = join(dir, `${name}.json`);
+  writeFileSync(path, JSON.stringify(body));
+  return path;
+}
+
+beforeAll(async () => {
+  dir = tempFolder();
+  homogeneous = join(dir, 'homog.onnx');
+  biased = join(dir, 'biased.onnx');
+  residual = join(dir, 'residual.onnx');
+  writeFileSync(homogeneous, buildTinyNet({ bias: false, seed: 5 }));
+  writeFileSync(biased, buildTinyNet({ bias: true, seed: 6 }));
+  writeFileSync(residual, buildTinyNet({ bias: true, seed: 8, widths: [4, 4, 6], residual: true }));
+  stim = writeStimuliNpy(dir, [10, 3, 16, 16], 11);
+  for (const [model, out] of [[homogeneous, 'base-h'], [biased, 'base-b'], [residual, 'base-r']] as const) {
+    await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, out), layers: 'all', batch: 4, threads: 1 });
+  }
+});
+
+describe('recordModulated', () => {
+  it('recordModulated with gain 1 and offset 0 reproduces the baseline bit for bit', async () => {
+    const base = openSnapshot(join(dir, 'base-b'));
+    const path = spec('identity', { site: 'relu0', kind: 'gain', values: [1, 1, 1, 1] });
+    const out = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'id'), modulate: path, from: base.folder, fullRun: true, batch: 4, threads: 1 });
+    const mod = openSnapshot(out.folder);
+    for (const layer of base.manifest.layers) {
+      const a = await values(base, layer.name);
+      const b = await values(mod, layer.name);
+      expect(b.length).toBe(a.length);
+      for (let i = 0; i < a.length; i++) if (a[i] !== b[i]) throw new Error(`${layer.name}[${i}]: ${a[i]} vs ${b[i]}`);
+    }
+  });
+
+  it('recordModulated uniform gain g at a ReLU output scales every later tensor by exactly g in a bias-free ReLU network (positive homogeneity)', async () => {
+    // f(αx) = α f(x) for bias-free conv/linear, ReLU, max and average pooling (exact property, see DOMAIN.md)
+    const base = openSnapshot(join(dir, 'base-h'));
+    const g = 1.75;
+    const out = await recordModulated({ model: homogeneous, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'uni'), modulate: spec('uni', { site: 'relu0', kind: 'uniform', strength: g }), from: base.folder, batch: 4, threads: 1 });
+    const mod = openSnapshot(out.folder);
+    const siteDepth = base.layer('relu0').depth;
+    for (const layer of base.manifest.layers) {
+      const a = await values(base, layer.name);
+      const b = await values(mod, layer.name);
+      const factor = layer.depth >= siteDepth ? g : 1;
+      let num = 0;
+      let den = 0;
+      for (let i = 0; i < a.length; i++) {
+        num += (b[i]! - factor * a[i]!) ** 2;
+        den += (factor * a[i]!) ** 2;
+      }
+      expect(Math.sqrt(num / den), layer.name).toBeLessThanOrEqual(1e-6);
+    }
+  });
+
+  it('recordModulated tail replay equals a full modulated run (≤ 1e-6 relative) and references upstream layers', async () => {
+    const base = openSnapshot(join(dir, 'base-r'));
+    const path = spec('res', { site: 'pool0', kind: 'gain', values: [0.5, 1.5, 2, 0.75] });
+    const tail = await recordModulated({ model: residual, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'tail'), modulate: path, from: base.folder, batch: 4, threads: 1 });
+    const full = await recordModulated({ model: residual, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'full'), modulate: path, from: base.folder, fullRun: true, batch: 4, threads: 1 });
+    expect(tail.manifest.run.mode).toBe('tail');
+    expect(full.manifest.run.mode).toBe('full');
+    const t = openSnapshot(tail.folder);
+    const f = openSnapshot(full.folder);
+    expect(t.layer('relu0').from).toBe('baseline');
+    expect(t.layer('logits').from).toBeUndefined();
+    for (const layer of base.manifest.layers) {
+      const a = await values(t, layer.name);
+      const b = await values(f, layer.name);
+      let num = 0;
+      let den = 0;
+      for (let i = 0; i < a.length; i++) {
+        num += (a[i]! - b[i]!) ** 2;
+        den += b[i]! ** 2;
+      }
+      expect(Math.sqrt(num / Math.max(den, 1e-30)), layer.name).toBeLessThanOrEqual(1e-6);
+    }
+  });
+
+  it('recordModulated lesion leaves the lesioned channels exactly 0 at the site', async () => {
+    const base = openSnapshot(join(dir, 'base-b'));
+    const out = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'lesion'), modulate: spec('lesion', { site: 'relu1', kind: 'lesion', channels: [0, 3] }), from: base.folder, batch: 4 });
+    const mod = openSnapshot(out.folder);
+    const { channels, spatial } = mod.layerGeometry('relu1');
+    for await (const batch of mod.readLayer('relu1')) {
+      for (let r = 0; r < batch.rows; r++) {
+        for (const c of [0, 3]) for (let s = 0; s < spatial; s++) expect(batch.activation![(r * channels + c) * spatial + s]).toBe(0);
+      }
+    }
+  });
+
+  it('recordModulated noise with the same seed reproduces, whatever the batch size', async () => {
+    const path = spec('noise', { site: 'relu0', kind: 'noise', sd: 0.3, seed: 17 });
+    const a = await recordModulated({ model: biased, stimuli: stim.npy, out: join(dir, 'n1'), modulate: path, batch: 3 });
+    const b = await recordModulated({ model: biased, stimuli: stim.npy, out: join(dir, 'n2'), modulate: path, batch: 7 });
+    const va = await values(openSnapshot(a.folder), 'logits');
+    const vb = await values(openSnapshot(b.folder), 'logits');
+    for (let i = 0; i < va.length; i++) expect(vb[i]).toBeCloseTo(va[i]!, 5);
+    expect((a.manifest.modulation as { modulations: Array<{ noise: { seed: number } }> }).modulations[0]!.noise.seed).toBe(17);
+  });
+
+  it('sonde record --modulate refuses a baseline of another model, and a site that does not exist', async () => {
+    const path = spec('ok', { site: 'relu0', kind: 'uniform', strength: 1.2 });
+    const other = await runSonde(['record', homogeneous, '--stimuli', stim.npy, '--labels', stim.labels, '--out', join(dir, 'x1'), '--modulate', path, '--from', join(dir, 'base-b')]);
+    expect(other.code).toBe(2);
+    expect(other.stderr).toMatch(/different model/);
+    const missing = await runSonde(['record', biased, '--stimuli', stim.npy, '--out', join(dir, 'x2'), '--modulate', spec('bad', { site: 'relu9', kind: 'uniform', strength: 1.2 })]);
+    expect(missing.code).toBe(2);
+    expect(missing.stderr).toMatch(/relu9/);
+    expect(missing.stderr).toMatch(/closest/);
+    const wrongLength = await runSonde(['record', biased, '--stimuli', stim.npy, '--out', join(dir, 'x3'), '--modulate', spec('len', { site: 'relu0', kind: 'gain', values: [1, 2] })]);
+    expect(wrongLength.code).toBe(2);
+    expect(wrongLength.stderr).toMatch(/2.*4|4.*2/);
+  });
+});
