@@ -36,6 +36,8 @@ export interface CollectedLayer {
   name: string;
   op: string;
   depth: number;
+  /** Weight layers from the input to this tensor (manifest `weightDepth`); null in snapshots of older builds. */
+  weightDepth: number | null;
   /** Storage types of the two sides (they set the roundoff floor). */
   baseDtype: string;
   modDtype: string;
@@ -97,7 +99,7 @@ export async function collectDiff(base: Snapshot, mod: Snapshot, options: DiffOp
     const accumulator = await accumulateLayer(base, mod, entry, tolerance, tuning !== undefined, range);
     const floor = floorSnapshot ? await accumulateLayer(base, floorSnapshot, entry, tolerance, false, range) : null;
     const modEntry = mod.layer(entry.name);
-    collected.push({ name: entry.name, op: entry.op, depth: entry.depth, baseDtype: entry.dtype, modDtype: modEntry.dtype, unchanged: modEntry.from === 'baseline', accumulator, floor, tuning: tuning ?? null });
+    collected.push({ name: entry.name, op: entry.op, depth: entry.depth, weightDepth: entry.weightDepth ?? null, baseDtype: entry.dtype, modDtype: modEntry.dtype, unchanged: modEntry.from === 'baseline', accumulator, floor, tuning: tuning ?? null });
     options.onLayer?.(ordinal + 1, layers.length, entry.name);
   }
   if (readout) {

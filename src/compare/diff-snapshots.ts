@@ -19,6 +19,49 @@ export function dtypeFloor(dtype: string): number {
   return dtype === 'float16' ? 4 * 2 ** -11 : 4 * 2 ** -24;
 }
 
+/** Where the (first) modulation site sits: see `placeSite`. */
+export interface SitePlace {
+  name: string;
+  /** Position among the model's recordable tensors (the manifest's `depth` scale). */
+  depth: number;
+  /** Weight layers from the input to the site (-1 when unknown). */
+  weightDepth: number;
+  /** Unit of `belowSite`: weight layers when the manifests give them, else recorded layers (snapshots of older builds). */
+  unit: 'weight layers' | 'recorded layers';
+  /** Ordinal of the last recorded layer at or above the site (the origin of `recorded layers`). */
+  anchor: number;
+}
+
+/**
+ * Places the first modulation site in the graph, whether or not it was recorded: from the graph
+ * position the modulated manifest records for each site (`modulation.sites[]`, written by
+ * `recordModulated`), else from the recorded layer of that name. Layers after it in graph order are
+ * "downstream"; depth below it is counted in weight layers (`weightLayerDepths`, src/graph/structure.ts),
+ * a unit that does not change with the recorded selection.
+ * @returns the place, or null when no site can be placed (no modulation, or an older manifest whose site was not recorded).
+ */
+export function placeSite(collection: Pick<DiffCollection, 'sites' | 'layers' | 'mod'>): SitePlace | null {
+  const recordedPlaces = (collection.mod.modulation as { sites?: unknown } | null)?.sites;
+  const candidates: Array<{ name: string; depth: number; weightDepth: number }> = [];
+  for (const name of collection.sites) {
+    const listed = Array.isArray(recordedPlaces) ? (recordedPlaces as Array<Record<string, unknown>>).find((p) => p && p['name'] === name) : undefined;
+    if (listed && typeof listed['depth'] === 'number' && listed['depth'] >= 0) {
+      candidates.push({ name, depth: listed['depth'], weightDepth: typeof listed['weightDepth'] === 'number' ? listed['weightDepth'] : -1 });
+      continue;
+    }
+    const layer = collection.layers.find((l) => l.name === name);
+    if (layer) candidates.push({ name, depth: layer.depth, weightDepth: layer.weightDepth ?? -1 });
+  }
+  if (candidates.length === 0) return null;
+  const first = candidates.reduce((a, b) => (b.depth < a.depth ? b : a));
+  let anchor = -1;
+  collection.layers.forEach((l, i) => {
+    if (l.depth <= first.depth) anchor = i;
+  });
+  const weights = first.weightDepth >= 0 && collection.layers.every((l) => l.weightDepth !== null);
+  return { ...first, unit: weights ? 'weight layers' : 'recorded layers', anchor };
+}
+
 /**
  * Diffs a modulated snapshot against its baseline, layer by layer, streaming both batch by batch
  * (memory: one batch per side plus per-stimulus summaries). See `DiffReport` for what is measured.
@@ -57,7 +100,7 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
   const seed = options.seed ?? 0;
   const tolerance = options.tolerance ?? 0.01;
   const sites = collection.sites;
-  const siteOrdinal = Math.min(...sites.map((s) => collection.layers.findIndex((l) => l.name === s)).filter((i) => i >= 0), Number.POSITIVE_INFINITY);
+  const place = placeSite(collection);
   const rows: LayerDiffRow[] = [];
   for (let ordinal = 0; ordinal < collection.layers.length; ordinal++) {
     const layer = collection.layers[ordinal]!;
@@ -90,8 +133,10 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
       op: layer.op,
       depth: layer.depth,
       ordinal,
+      weightDepth: layer.weightDepth,
       site: sites.includes(layer.name),
-      belowSite: Number.isFinite(siteOrdinal) ? ordinal - siteOrdinal : Number.NaN,
+      downstream: place !== null && layer.depth > place.depth,
+      belowSite: place === null ? Number.NaN : place.unit === 'weight layers' ? layer.weightDepth! - place.weightDepth : ordinal - place.anchor,
       relativeChange: metrics.relativeChange,
       relativeChangeMedian: metrics.relativeChangeMedian,
       cosine: metrics.cosine,
@@ -110,7 +155,7 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
       unchanged: layer.unchanged,
     });
   }
-  const below = rows.filter((r) => r.belowSite > 0);
+  const below = rows.filter((r) => r.downstream);
   const surviving = below.filter((r) => r.aboveFloor);
   const deepest = surviving.length > 0 ? surviving[surviving.length - 1]! : null;
   const depthProfile = fitDepthProfile(below.map((r) => ({ depth: r.belowSite, value: r.relativeChange })), { floor: Math.max(...below.map((r) => r.floor), 0) });
@@ -123,6 +168,7 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
     layers: rows,
     floor: collection.floor ? { source: 'snapshot', description: `relative change of ${collection.floor.folder} against the baseline (at least the dtype floor)` } : { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
     survival: { layer: deepest?.name ?? null, belowSite: deepest?.belowSite ?? null },
+    depthUnit: place?.unit ?? 'weight layers',
     depthProfile,
     task,
     verdict: '',

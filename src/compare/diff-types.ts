@@ -42,11 +42,15 @@ export interface LayerDiffRow {
   name: string;
   op: string;
   depth: number;
-  /** Position among the snapshot's recorded layers (0-based): the unit of depth profiles. */
+  /** Position among the snapshot's recorded layers (0-based). */
   ordinal: number;
+  /** Weight layers from the input to this layer (null in snapshots of older builds). */
+  weightDepth: number | null;
   /** This layer is a modulation site. */
   site: boolean;
-  /** Depth below the (first) site in recorded layers; negative above it. */
+  /** After the (first) site in graph order, whether or not the site was recorded: the layers survival and the depth profile look at. */
+  downstream: boolean;
+  /** Depth below the (first) site in `DiffReport.depthUnit` (weight layers: 0 for the site and the layers before the next weight layer); ≤ 0 above it; NaN without a site. */
   belowSite: number;
   relativeChange: number;
   relativeChangeMedian: number;
@@ -118,6 +122,8 @@ export interface DiffReport {
   floor: { source: 'snapshot' | 'dtype'; description: string };
   /** Deepest layer below the site whose relative change stays above the floor. */
   survival: { layer: string | null; belowSite: number | null };
+  /** Unit of `belowSite`, survival and the depth profile's rate: weight layers (Conv, Gemm, MatMul with a weight), or recorded layers for snapshots of older builds. */
+  depthUnit: 'weight layers' | 'recorded layers';
   depthProfile: DepthProfile;
   task: TaskReport | null;
   verdict: string;

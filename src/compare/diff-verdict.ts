@@ -15,18 +15,25 @@ import type { DiffReport, LayerDiffRow, SchemeComparison } from './diff-types.js
 export function describeDepthProfile(report: DiffReport): string {
   const profile = report.depthProfile;
   const site = report.sites[0] ?? 'the site';
-  const span = Math.max(1, ...report.layers.map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
+  const unit = report.depthUnit ?? 'recorded layers';
+  const span = Math.max(1, ...report.layers.filter((l) => l.downstream).map((l) => l.belowSite).filter((d) => Number.isFinite(d)));
   if (report.sites.length === 0) return 'has no modulation site recorded in the manifest';
   switch (depthTrend(profile.rate, span)) {
     case 'flat':
-      return `keeps its size below ${site} (within ${100 * FLAT_PROFILE_CHANGE} % over ${span} layers)`;
+      return `keeps its size below ${site} (within ${100 * FLAT_PROFILE_CHANGE} % over ${span} ${unit})`;
     case 'halves':
-      return `halves every ${profile.halfDepth!.toFixed(1)} layers below ${site}`;
+      return `halves every ${profile.halfDepth!.toFixed(1)} ${unit} below ${site}`;
     case 'doubles':
-      return `doubles every ${profile.doublingDepth!.toFixed(1)} layers below ${site}`;
+      return `doubles every ${profile.doublingDepth!.toFixed(1)} ${unit} below ${site}`;
     default:
-      return `has too few layers below ${site} for a depth profile`;
+      return `has too few ${unit} below ${site} for a depth profile`;
   }
+}
+
+/** "3 weight layers below", "1 weight layer below", "right after the site (no weight layer between)". */
+export function describeBelow(count: number, unit: DiffReport['depthUnit'] = 'weight layers'): string {
+  if (count === 0) return unit === 'weight layers' ? 'no weight layer below the site' : 'at the site';
+  return `${count} ${count === 1 ? unit.replace(/s$/, '') : unit} below`;
 }
 
 /** Layers of a diff holding NaN/±Infinity values on either side. */
@@ -66,10 +73,10 @@ export function verdictOf(report: DiffReport): string {
   const parts: string[] = [];
   const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
   parts.push(`${subject} ${describeDepthProfile(report)}`);
-  if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${report.survival.belowSite} layer${report.survival.belowSite === 1 ? '' : 's'} below)`);
+  if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${describeBelow(report.survival.belowSite!, report.depthUnit)})`);
   else if (report.sites.length > 0) parts.push('does not rise above the noise floor below the site');
   const siteRow = report.layers.find((l) => l.site && l.signature);
-  const lastSignature = [...report.layers].reverse().find((l) => l.signature && l.belowSite > 0);
+  const lastSignature = [...report.layers].reverse().find((l) => l.signature && l.downstream);
   if (siteRow?.signature && lastSignature?.signature) {
     parts.push(`signature slope ${siteRow.signature.slope.toFixed(3)} at the site, ${lastSignature.signature.slope.toFixed(3)} at ${lastSignature.name}`);
   }
@@ -101,7 +108,7 @@ export function compareSchemes(a: DiffReport, b: DiffReport, measure: 'auc' | 'd
     task = { a: da, b: db, larger: da > db ? 'a' : db > da ? 'b' : 'equal', separated, measure };
   }
   // the layers below every site of both schemes (A and B may modulate different sites)
-  const below = layers.filter((_, i) => a.layers[i]!.belowSite > 0 && b.layers[i]!.belowSite > 0);
+  const below = layers.filter((_, i) => a.layers[i]!.downstream && b.layers[i]!.downstream);
   const aWins = below.filter((l) => l.larger === 'a').length;
   const bWins = below.filter((l) => l.larger === 'b').length;
   const sameSites = a.sites.length === b.sites.length && a.sites.every((site) => b.sites.includes(site));

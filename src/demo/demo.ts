@@ -7,7 +7,7 @@ import { makeStimulusSet } from '../stimuli/demo/writer.js';
 import type { DemoDisplayOptions } from '../stimuli/demo/options.js';
 import { readSensitivityTable, readTuningTable } from '../snapshot/tables.js';
 import { compareTables, type TableComparison } from '../compare/compare-tables.js';
-import { describeDepthProfile } from '../compare/diff-verdict.js';
+import { describeBelow, describeDepthProfile } from '../compare/diff-verdict.js';
 import { diffSnapshots } from '../compare/diff-snapshots.js';
 import { type DiffReport } from '../compare/diff-types.js';
 import { recordModulated } from '../record/record-modulated.js';
@@ -189,7 +189,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
     const task = d.report.task!;
     const cell = task.categories[0]!;
     summary.push(`${d.label} site ${d.site}, tuning-based gain toward ${cell.category}: hit rate ${signed(cell.change.hitRatePp, 1)} pp, false alarms ${signed(cell.change.falseAlarmRatePp, 1)} pp, d′ ${signed(cell.change.dPrime)}`);
-    const survival = d.report.survival.layer ? `stays above the noise floor ${d.report.survival.belowSite} layer${d.report.survival.belowSite === 1 ? '' : 's'} down (to ${d.report.survival.layer})` : 'does not rise above the noise floor below the site';
+    const survival = d.report.survival.layer ? `stays above the noise floor down to ${d.report.survival.layer} (${describeBelow(d.report.survival.belowSite!, d.report.depthUnit)})` : 'does not rise above the noise floor below the site';
     summary.push(`its activity change ${describeDepthProfile(d.report)} and ${survival}`);
   }
   const schemeMeans = ['tuning', 'sensitivity'].map((scheme) => {

@@ -93,3 +93,37 @@ export function analyseGraph(model: LoadedModel): GraphStructure {
   });
   return { nodes, producer, consumers, initializers, inputName: model.input.name, outputs: model.outputs };
 }
+
+/** Operators that apply learned weights: the unit of "weight layers" depth. */
+export const WEIGHT_OPS: ReadonlySet<string> = new Set(['Conv', 'ConvTranspose', 'ConvInteger', 'QLinearConv', 'Gemm', 'MatMul', 'MatMulInteger', 'QLinearMatMul', 'Einsum']);
+
+/**
+ * Weight-layer depth of every tensor of the main graph: the largest number of weight layers (`WEIGHT_OPS`
+ * nodes with at least one input that does not depend on the data input, i.e. a weight) on any path from
+ * the data input to the tensor, the producing node included. The data input is 0; tensors computed from
+ * weights only are 0 too. It depends on the graph alone, never on which tensors a snapshot recorded,
+ * so "weight layers between a site and a layer" is the same whatever the selection; a MatMul of two
+ * activations (attention scores) is not a weight layer. Used as the depth unit of survival and depth
+ * profiles.
+ * @returns tensor name → weight layers (nodes in topological order, so one pass).
+ */
+export function weightLayerDepths(structure: GraphStructure): Map<string, number> {
+  const depth = new Map<string, number>([[structure.inputName, 0]]);
+  const dependent = new Set<string>([structure.inputName]);
+  for (const node of structure.nodes) {
+    let deepest = -1;
+    let hasWeight = false;
+    for (const name of node.inputs) {
+      if (!name) continue;
+      if (dependent.has(name)) deepest = Math.max(deepest, depth.get(name) ?? 0);
+      else hasWeight = true;
+    }
+    const fromData = deepest >= 0 && node.opType !== 'Constant';
+    const value = fromData ? deepest + (WEIGHT_OPS.has(node.opType) && hasWeight ? 1 : 0) : 0;
+    for (const out of node.outputs) {
+      depth.set(out, value);
+      if (fromData) dependent.add(out);
+    }
+  }
+  return depth;
+}

@@ -2,7 +2,7 @@ import { UsageError } from '../errors.js';
 import { loadModel, type Dim, type LoadedModel } from '../graph/load-model.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { ACTIVATION_OPS, LINEAR_OPS, MERGE_OPS, POOLING_OPS } from '../graph/select.js';
-import { analyseGraph, type GraphStructure } from '../graph/structure.js';
+import { analyseGraph, weightLayerDepths, type GraphStructure } from '../graph/structure.js';
 import { probeOutputs } from '../session/network-session.js';
 
 /** A tensor Sonde can record: a float32 node output whose first axis is the batch. */
@@ -13,6 +13,8 @@ export interface LayerInfo {
   op: string;
   /** Position among recordable tensors in topological order, 0-based. */
   depth: number;
+  /** Weight layers on the longest path from the input to this tensor (`weightLayerDepths`, src/graph/structure.ts). */
+  weightDepth: number;
   /** Per-stimulus shape (batch axis dropped), from the probe run. */
   shape: number[];
   /** Elements per stimulus (product of `shape`). */
@@ -78,6 +80,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const shapes = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName);
   const declaredOutputs = new Set(model.outputs);
   const layers: LayerInfo[] = [];
+  const weightDepths = weightLayerDepths(structure);
   const skippedTensors: SkippedTensor[] = [];
   // tensors that depend on the data input (nodes in topological order): the rest are constants, whatever
   // their shape — with a fixed batch of 1 a [1, C, 1, 1] constant would otherwise pass for an activation
@@ -101,6 +104,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
         name,
         op: node.opType,
         depth: layers.length,
+        weightDepth: weightDepths.get(name) ?? 0,
         shape,
         elements: shape.reduce((a, b) => a * b, 1),
         default: isDefault,

@@ -114,7 +114,12 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
   const categories = options.categories ?? (baseline ? baseline.categories : undefined);
   const resolved = resolveForModel(spec, inspection, categories, options.tables);
   const sites = injectionSites(resolved, inspection);
-  const manifestModulation = { spec: spec.source, modulations: resolved.map((r) => r.source) };
+  // where each site sits in the graph (recorded or not): diff places the site and counts depth below it from these
+  const placeOf = (name: string) => {
+    const info = inspection.layers.find((l) => l.name === name);
+    return { name, depth: info?.depth ?? -1, weightDepth: info?.weightDepth ?? -1 };
+  };
+  const manifestModulation = { spec: spec.source, modulations: resolved.map((r) => r.source), sites: [...new Set(resolved.map((r) => r.site))].map(placeOf) };
   const manifestBaseline = baseline ? { path: relative(resolveOutFolder(options.out), baseline.folder) || '.', manifestSha256: createHash('sha256').update(readFileSync(join(baseline.folder, 'manifest.json'))).digest('hex') } : null;
 
   if (baseline) {

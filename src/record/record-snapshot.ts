@@ -180,6 +180,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
       name: layer.name,
       op: layer.op,
       depth: layer.depth,
+      weightDepth: layer.weightDepth,
       shape: layer.shape,
       dtype,
       keep,

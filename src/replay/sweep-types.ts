@@ -34,7 +34,7 @@ export interface SweepDepthPoint {
   layer: string;
   /** Depth among recordable tensors. */
   depth: number;
-  /** Layers below the site among the recorded ones (0 = the site). */
+  /** Weight layers between the site and this layer (0 = the site and the layers before the next weight layer; `weightLayerDepths`). */
   belowSite: number;
   relativeChange: number;
   /** Slope of the feature-similarity-gain signature at this layer (NaN when no tuning is known there). */

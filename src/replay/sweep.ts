@@ -306,6 +306,8 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   const { baseline, site, group } = run;
   const layers = baseline.manifest.layers;
   const siteOrdinal = layers.findIndex((l) => l.name === site);
+  // depth below the site in weight layers (src/graph/structure.ts), whatever the baseline recorded
+  const weightDepthOf = new Map(run.inspection.layers.map((l) => [l.name, l.weightDepth]));
   const profileLayers = run.depthProfile ? layers.filter((l, i) => i >= siteOrdinal && l.keep === 'full') : [];
   const plan = planTail(run.model, run.inspection, baseline, [site], [run.readout, ...profileLayers.map((l) => l.name)]);
   if (!('tail' in plan)) {
@@ -451,7 +453,7 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
           });
           if (rank.length >= 2) slope = linearFit(rank, ratio).slope;
         }
-        return { layer: layer.name, depth: layer.depth, belowSite: layers.indexOf(layer) - siteOrdinal, relativeChange: acc.aa > 0 ? Math.sqrt(acc.dd / acc.aa) : acc.dd > 0 ? Infinity : 0, signatureSlope: slope };
+        return { layer: layer.name, depth: layer.depth, belowSite: (weightDepthOf.get(layer.name) ?? 0) - (weightDepthOf.get(site) ?? 0), relativeChange: acc.aa > 0 ? Math.sqrt(acc.dd / acc.aa) : acc.dd > 0 ? Infinity : 0, signatureSlope: slope };
       });
     }
     return result;

@@ -42,8 +42,9 @@ export function renderDiffReport(report: DiffReport): string {
     table.push(row);
   }
   const lines = [table.toString()];
-  const below = report.layers.filter((l) => l.belowSite >= 0);
-  lines.push(`depth profile from the site (log relative change): ${sparkline(below.map((l) => (l.relativeChange > 0 ? Math.log10(l.relativeChange) : Number.NaN)))}  rate ${fixed(report.depthProfile.rate)} per layer, r² ${fixed(report.depthProfile.r2, 2)}`);
+  const below = report.layers.filter((l) => l.site || l.downstream);
+  const unit = report.depthUnit ?? 'recorded layers';
+  lines.push(`depth profile from the site (log relative change): ${sparkline(below.map((l) => (l.relativeChange > 0 ? Math.log10(l.relativeChange) : Number.NaN)))}  rate ${fixed(report.depthProfile.rate)} per ${unit.replace(/s$/, '')} below the site, r² ${fixed(report.depthProfile.r2, 2)}`);
   lines.push(`◆ modulation site; ratio = modulated ÷ baseline channel means (mean ± sd over channels); up/down: channels beyond ±tolerance; floor: ${report.floor.description}`);
   if (report.task) {
     const task = new Table({ head: ['category', 'threshold', 'AUC', 'ΔAUC [95% CI]', 'ΔH at base F', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy', 'criterion shift only: ΔH, Δd′'], style: STYLE });

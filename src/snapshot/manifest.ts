@@ -41,6 +41,8 @@ export interface ManifestLayer {
   op: string;
   /** Position among the model's recordable tensors in topological order (0-based). */
   depth: number;
+  /** Weight layers (Conv, Gemm, MatMul with a weight, …) on the longest path from the input to this tensor; absent in snapshots of older builds. */
+  weightDepth?: number;
   /** Per-stimulus shape, batch axis dropped. */
   shape: number[];
   /** Storage type of the `activation` column. */
@@ -164,7 +166,7 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
     if (entry.dtype !== 'float32' && entry.dtype !== 'float16') fail(`layers[${i}].dtype must be "float32" or "float16"`);
     if (entry.from !== undefined && entry.from !== 'baseline') fail(`layers[${i}].from must be "baseline" when present`);
     if (entry.from === 'baseline' && (m.baseline === null || m.baseline === undefined)) fail(`layers[${i}] comes from a baseline but "baseline" is null`);
-    for (const key of ['rows', 'bytes', 'nonFinite'] as const) {
+    for (const key of ['rows', 'bytes', 'nonFinite', 'weightDepth'] as const) {
       if (entry[key] !== undefined && !isCount(entry[key])) fail(`layers[${i}].${key} must be a non-negative integer`);
     }
     if (entry.sha256 !== undefined && !(typeof entry.sha256 === 'string' && /^[0-9a-f]{64}$/.test(entry.sha256))) fail(`layers[${i}].sha256 must be 64 hex digits`);

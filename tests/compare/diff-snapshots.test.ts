@@ -62,6 +62,48 @@ describe('diffSnapshots', () => {
     expect(report.survival.layer).toBe('logits');
   });
 
+  it('diffSnapshots places a site that was not recorded by graph order: the change survives to the logits (exact: uniform gain on a bias-free ReLU network)', async () => {
+    // default layers of the tiny net leave out the Conv outputs: conv1 is not recorded
+    const g = 1.5;
+    const base = openSnapshot(join(dir, 'base-h'));
+    expect(base.manifest.layers.map((l) => l.name)).not.toContain('conv1');
+    const mod = await recordModulated({ model: homogeneous, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'unrec'), modulate: spec('unrec', { site: 'conv1', kind: 'uniform', strength: g }), from: join(dir, 'base-h'), threads: 1 });
+    const report = await diffSnapshots({ base: join(dir, 'base-h'), mod: mod.folder, bootstrap: 0 });
+    expect(report.depthUnit).toBe('weight layers');
+    // every layer after conv1 is scaled by g exactly (positive homogeneity), the rest are untouched
+    for (const layer of report.layers) {
+      expect(layer.downstream, layer.name).toBe(['relu1', 'pool1', 'relu2', 'gap', 'logits'].includes(layer.name));
+      if (layer.downstream) expect(Math.abs(layer.relativeChange - (g - 1)), layer.name).toBeLessThan(1e-6);
+      else expect(layer.relativeChange, layer.name).toBe(0);
+    }
+    // conv1 is weight layer 2; conv2 adds one, the MatMul readout another
+    expect(Object.fromEntries(report.layers.filter((l) => l.downstream).map((l) => [l.name, l.belowSite]))).toEqual({ relu1: 0, pool1: 0, relu2: 1, gap: 1, logits: 2 });
+    expect(report.survival).toEqual({ layer: 'logits', belowSite: 2 });
+    expect(report.verdict).toContain('stays above the noise floor down to logits (2 weight layers below)');
+    expect(report.verdict).not.toContain('does not rise above the noise floor');
+    expect(report.verdict).toMatch(/keeps its size below conv1 \(within 5 % over 2 weight layers\)/);
+  });
+
+  it('diffSnapshots measures depth below the site in weight layers, the same whatever layers were recorded', async () => {
+    const all = await recordSnapshot({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'base-b-default'), batch: 5, threads: 1 });
+    const path = spec('depth-unit', { site: 'relu0', kind: 'gain', values: [1.6, 0.5, 1.2, 0.9] });
+    const few = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'depth-few'), modulate: path, from: all.folder, threads: 1 });
+    const many = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'depth-many'), modulate: path, from: join(dir, 'base-b'), threads: 1 });
+    const a = await diffSnapshots({ base: all.folder, mod: few.folder, bootstrap: 0 });
+    const b = await diffSnapshots({ base: join(dir, 'base-b'), mod: many.folder, bootstrap: 0 });
+    expect(b.layers.length).toBeGreaterThan(a.layers.length);
+    for (const row of a.layers) {
+      const twin = b.layers.find((l) => l.name === row.name)!;
+      expect(twin.belowSite, row.name).toBe(row.belowSite);
+      expect(twin.downstream, row.name).toBe(row.downstream);
+      expect(twin.relativeChange, row.name).toBeCloseTo(row.relativeChange, 6);
+    }
+    expect(a.survival).toEqual(b.survival);
+    // the biased tiny net: relu0 is after weight layer 1, the logits after 4 (three convs and the MatMul)
+    expect(a.survival.belowSite).toBe(3);
+    expect(a.depthUnit).toBe('weight layers');
+  });
+
   it('diffSnapshots streaming over differently batched snapshots equals an in-memory computation', async () => {
     const path = spec('gain', { site: 'pool0', kind: 'gain', values: [0.2, 1.8, 1.1, 0.6] });
     const mod = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'gain'), modulate: path, from: join(dir, 'base-b'), fullRun: true, batch: 7, threads: 1 });

@@ -71,7 +71,9 @@ export function makeDiff(options: DiffFixtureOptions = {}): DiffReport {
       op: name.startsWith('relu') ? 'Relu' : name.startsWith('pool') ? 'MaxPool' : name === 'logits' || name === 'fc1' ? 'Gemm' : 'Conv',
       depth: 2 * ordinal,
       ordinal,
+      weightDepth: ordinal,
       site: below === 0,
+      downstream: below > 0,
       belowSite: below,
       relativeChange: rc,
       relativeChangeMedian: rc * 0.97,
@@ -116,6 +118,7 @@ export function makeDiff(options: DiffFixtureOptions = {}): DiffReport {
     layers,
     floor: { source: 'dtype', description: 'four units of float roundoff of the stored dtype' },
     survival: { layer: below[below.length - 1]!.name, belowSite: below[below.length - 1]!.belowSite },
+    depthUnit: 'weight layers',
     depthProfile: { rate, intercept: Math.log(start), halfDepth: rate < 0 ? Math.LN2 / -rate : null, doublingDepth: rate > 0 ? Math.LN2 / rate : null, r2: 1, used: below.length, excluded: 0 },
     task: {
       kind: 'detect', readout: 'logits', thresholdRule: 'fixed threshold 0', categories: perCategory, base, mod, change: change(base, mod),

@@ -17,20 +17,20 @@ const summary = (rate: number) => {
 describe('diffSummaryTable depth profile', () => {
   it('diffSummaryTable: a decaying profile halves every ln 2 / |rate| layers, as the verdict says', () => {
     const { html, cli } = summary(-0.35);
-    expect(html).toContain(`halves every ${(Math.LN2 / 0.35).toFixed(1)} layers`);
-    expect(cli).toContain(`halves every ${(Math.LN2 / 0.35).toFixed(1)} layers`);
+    expect(html).toContain(`halves every ${(Math.LN2 / 0.35).toFixed(1)} weight layers`);
+    expect(cli).toContain(`halves every ${(Math.LN2 / 0.35).toFixed(1)} weight layers`);
   });
 
   it('diffSummaryTable: a growing profile doubles every ln 2 / rate layers', () => {
     const { html, cli } = summary(0.2);
-    expect(html).toContain(`doubles every ${(Math.LN2 / 0.2).toFixed(1)} layers`);
-    expect(cli).toContain(`doubles every ${(Math.LN2 / 0.2).toFixed(1)} layers`);
+    expect(html).toContain(`doubles every ${(Math.LN2 / 0.2).toFixed(1)} weight layers`);
+    expect(cli).toContain(`doubles every ${(Math.LN2 / 0.2).toFixed(1)} weight layers`);
   });
 
   it('diffSummaryTable: a rate whose change over the 9 layers below the site is under 5 % keeps its size in both texts', () => {
     // 0.005 · 9 = 0.045 < 0.05, although ln 2 / 0.005 = 139 layers would read as a doubling depth
     const { html, cli } = summary(0.005);
-    expect(html).toContain('keeps its size (within 5 % over 9 layers)');
+    expect(html).toContain('keeps its size (within 5 % over 9 weight layers)');
     expect(cli).toContain('keeps its size below');
     expect(html).not.toContain('doubles');
   });

@@ -61,7 +61,7 @@ export function relativeChangeSpec(data: RelativeChangeData): TopLevelSpec {
   });
   const scale = { domain: data.series, range: seriesColours(data.series.length) };
   const color = { field: 'series', type: 'nominal', scale, legend: { title: 'modulated run', orient: 'bottom', direction: 'vertical', columns: 1, symbolType: 'stroke', symbolStrokeWidth: 3, symbolOpacity: 1, symbolDash: [], labelLimit: 520 } } as const;
-  const x = { field: 'depth', type: 'quantitative', title: 'depth (layer position in the graph)', axis: { tickMinStep: 1, format: 'd' } } as const;
+  const x = { field: 'depth', type: 'quantitative', title: 'graph position (recordable tensors in topological order)', axis: { tickMinStep: 1, format: 'd' } } as const;
   const y = { field: 'value', type: 'quantitative', scale: { type: 'log', domain: range }, title: 'relative change ‖mod − base‖ / ‖base‖', axis: { format: '~g' } } as const;
   return {
     width: 480,
@@ -94,7 +94,7 @@ export function propagationMatrixSpec(cells: readonly MatrixCell[], sites: reado
   const depths = new Set(rows.map((r) => r.depth)).size;
   const step = Math.max(8, Math.min(28, Math.floor(480 / Math.max(depths, 1))));
   const columns = panels.length > 1 && step * depths <= 560 ? 2 : 1;
-  const x = { field: 'depth', type: 'ordinal', title: 'depth (layer position in the graph)', axis: { labelAngle: 0, labelFontSize: 9, labelOverlap: 'greedy' } } as const;
+  const x = { field: 'depth', type: 'ordinal', title: 'graph position (recordable tensors in topological order)', axis: { labelAngle: 0, labelFontSize: 9, labelOverlap: 'greedy' } } as const;
   const y = { field: 'site', type: 'nominal', sort: [...sites], title: 'site' } as const;
   return {
     config: CONFIG,
@@ -106,7 +106,7 @@ export function propagationMatrixSpec(cells: readonly MatrixCell[], sites: reado
       height: { step: 24 },
       layer: [
         { mark: { type: 'rect' }, encoding: { x, y, color: { field: 'value', type: 'quantitative', scale: { type: 'log', scheme: 'viridis' }, legend: { title: 'relative change', orient: 'right', gradientLength: 180, format: '~g' } } } },
-        { transform: [{ filter: 'datum.belowSite === 0' }], mark: { type: 'rect', fill: null, stroke: '#d62728', strokeWidth: 2 }, encoding: { x, y } },
+        { transform: [{ filter: 'datum.layer === datum.site' }], mark: { type: 'rect', fill: null, stroke: '#d62728', strokeWidth: 2 }, encoding: { x, y } },
       ],
     },
   };
@@ -134,7 +134,7 @@ export function depthProfileSpec(cells: readonly MatrixCell[], sites: readonly s
       height: 190,
       mark: { type: 'line', strokeWidth: 2, point: { filled: true, size: 22 } },
       encoding: {
-        x: { field: 'belowSite', type: 'quantitative', title: 'layers below the site', axis: { tickMinStep: 1, format: 'd' } },
+        x: { field: 'belowSite', type: 'quantitative', title: 'weight layers below the site', axis: { tickMinStep: 1, format: 'd' } },
         y: { field: 'value', type: 'quantitative', scale: { type: 'log' }, title: 'relative change', axis: { format: '~g' } },
         color: { field: 'site', type: 'nominal', scale: { domain: present, range: seriesColours(present.length) }, legend: { title: 'site', orient: 'right' } },
       },
@@ -192,7 +192,7 @@ export function taskCurveSpec(points: readonly TaskCurvePoint[], sites: readonly
  */
 export function depthLinesSpec(values: readonly DepthValue[], options: { yDomain: [number, number]; yTitle: string; measures: readonly string[]; colours: readonly string[]; trend?: Array<{ depth: number; value: number }> | null; trendLabel?: string }): TopLevelSpec {
   const rows = values.map((v) => ({ layer: v.layer, depth: v.depth, measure: v.measure, value: Number.isFinite(v.value) ? v.value : null }));
-  const x = { field: 'depth', type: 'quantitative', title: 'depth (layer position in the graph)', axis: { tickMinStep: 1, format: 'd' } } as const;
+  const x = { field: 'depth', type: 'quantitative', title: 'graph position (recordable tensors in topological order)', axis: { tickMinStep: 1, format: 'd' } } as const;
   const y = { field: 'value', type: 'quantitative', scale: { domain: options.yDomain }, title: options.yTitle } as const;
   const trend = options.trend
     ? [{ data: { values: options.trend.map((t) => ({ depth: t.depth, value: t.value, measure: options.trendLabel ?? 'trend' })) }, mark: { type: 'line' as const, strokeDash: [6, 4], strokeWidth: 1.5, color: '#444' }, encoding: { x, y } }]

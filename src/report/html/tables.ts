@@ -99,16 +99,17 @@ function profileText(diff: DiffReport): string {
   if (!p) return '–';
   const r2 = Number.isFinite(num(p.r2)) ? ` (r² ${fmt(p.r2, 2)})` : '';
   // the same rule as the command line's verdict (describeDepthProfile): flat within 5 % over the layers below the site
-  const span = Math.max(1, ...diff.layers.map((l) => num(l.belowSite)).filter((d) => Number.isFinite(d)));
+  const unit = diff.depthUnit ?? 'recorded layers';
+  const span = Math.max(1, ...diff.layers.filter((l) => l.downstream ?? num(l.belowSite) > 0).map((l) => num(l.belowSite)).filter((d) => Number.isFinite(d)));
   switch (depthTrend(num(p.rate), span)) {
     case 'flat':
-      return `keeps its size (within ${100 * FLAT_PROFILE_CHANGE} % over ${span} layers)`;
+      return `keeps its size (within ${100 * FLAT_PROFILE_CHANGE} % over ${span} ${unit})`;
     case 'halves':
-      return `halves every ${fmt(p.halfDepth, 1)} layers${r2}`;
+      return `halves every ${fmt(p.halfDepth, 1)} ${unit}${r2}`;
     case 'doubles':
-      return `doubles every ${fmt(p.doublingDepth, 1)} layers${r2}`;
+      return `doubles every ${fmt(p.doublingDepth, 1)} ${unit}${r2}`;
     default:
-      return 'too few layers to fit';
+      return `too few ${unit} to fit`;
   }
 }
 
@@ -121,7 +122,7 @@ export function diffSummaryTable(runs: ReadonlyArray<{ label: string; diff: Diff
   const rows: Row[] = runs.map(({ label, diff }) => ({
     cells: [
       label,
-      diff.survival?.layer ? `${diff.survival.layer} (${fmt(diff.survival.belowSite, 0)} below)` : 'not above the floor',
+      diff.survival?.layer ? `${diff.survival.layer} (${fmt(diff.survival.belowSite, 0)} ${diff.depthUnit ?? 'recorded layers'} below)` : 'not above the floor',
       profileText(diff),
       diff.task ? `${sgn(diff.task.auc?.change, 3)}${interval(diff.task.auc?.ci, (v) => fmt(v, 3))}` : '–',
       diff.task ? `${sgn(diff.task.change.dPrime)}${interval(diff.task.ci?.dPrime, (v) => fmt(v, 2))}` : '–',
