@@ -141,6 +141,60 @@ export function hitRateAtFalseAlarm(scores: ArrayLike<number>, isSignal: Uint8Ar
   return 1;
 }
 
+/** Where an empirical ROC crosses a false-alarm rate: a single hit rate, or a vertical stretch. */
+export interface HitRateRange {
+  /** Lowest hit rate of the curve at F (the strictest cut reaching F). */
+  low: number;
+  /** Highest hit rate of the curve at F (what `hitRateAtFalseAlarm` returns). */
+  high: number;
+}
+
+/**
+ * The hit rates of the empirical ROC at a false-alarm rate F. Where F falls inside a sloped segment the
+ * curve is read by linear interpolation (low = high); where F is one of the curve's own false-alarm rates,
+ * the curve may rise vertically there (signal scores between two noise scores) and every hit rate of
+ * that stretch belongs to F: low is its bottom, high its top. A fixed-threshold operating point with
+ * false-alarm rate F always lies in [low, high].
+ * @param scores one readout score per trial; @param isSignal 1 = signal trial, 0 = noise trial.
+ * @param falseAlarmRate F in [0, 1].
+ * @returns { low, high }, both NaN when a class has no finite score.
+ * @throws UsageError when the lengths differ or F is not in [0, 1].
+ * Edge cases: non-finite scores are left out; F = 0 starts at the origin (low 0).
+ */
+export function hitRateRangeAtFalseAlarm(scores: ArrayLike<number>, isSignal: Uint8Array, falseAlarmRate: number): HitRateRange {
+  checkLengths(scores, isSignal);
+  checkRate('falseAlarmRate', falseAlarmRate);
+  const order = finiteOrder(scores);
+  const n = order.length;
+  let signalCount = 0;
+  for (let k = 0; k < n; k++) if (isSignal[order[k]!] !== 0) signalCount++;
+  const noiseCount = n - signalCount;
+  if (signalCount === 0 || noiseCount === 0) return { low: Number.NaN, high: Number.NaN };
+  let hits = 0;
+  let falseAlarms = 0;
+  let low = falseAlarmRate === 0 ? 0 : Number.NaN; // bottom of the stretch at F, once the curve reaches F
+  let i = n - 1;
+  while (i >= 0) {
+    const value = scores[order[i]!]!;
+    const h0 = hits / signalCount;
+    const f0 = falseAlarms / noiseCount;
+    while (i >= 0 && scores[order[i]!]! === value) {
+      if (isSignal[order[i]!] !== 0) hits++;
+      else falseAlarms++;
+      i--;
+    }
+    const h1 = hits / signalCount;
+    const f1 = falseAlarms / noiseCount;
+    if (f1 > falseAlarmRate) {
+      if (f0 === falseAlarmRate) return { low: Number.isNaN(low) ? h0 : low, high: h0 };
+      const h = h0 + ((h1 - h0) * (falseAlarmRate - f0)) / (f1 - f0);
+      return { low: h, high: h };
+    }
+    if (f1 === falseAlarmRate && Number.isNaN(low)) low = h1;
+  }
+  return { low: Number.isNaN(low) ? 1 : low, high: 1 };
+}
+
 /** The result of `criterionShiftControl`. */
 export interface CriterionShift {
   /** The constant s added to every baseline score. */

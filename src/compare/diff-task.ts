@@ -69,6 +69,7 @@ export function taskReadout(collected: CollectedTask, rule: number | 'best' | 'a
       ci,
       auc: { base: aucBase, mod: aucMod, change: aucMod - aucBase, ci: ci ? ci.auc : null },
       matchedHitRatePp: readouts.matchedHitRatePp,
+      matchedHitRateRangePp: readouts.matchedHitRateRangePp,
       criterionControl: readouts.criterionControl,
     });
   }
@@ -99,6 +100,7 @@ export function taskReadout(collected: CollectedTask, rule: number | 'best' | 'a
     ci,
     auc: { base: meanOf((c) => c.auc.base), mod: meanOf((c) => c.auc.mod), change: meanOf((c) => c.auc.change), ci: ci ? ci.auc : null },
     matchedHitRatePp: meanOf((c) => c.matchedHitRatePp),
+    matchedHitRateRangePp: [meanOf((c) => c.matchedHitRateRangePp[0]), meanOf((c) => c.matchedHitRateRangePp[1])],
     criterionControl: { hitRatePp: meanOf((c) => c.criterionControl.hitRatePp), dPrime: meanOf((c) => c.criterionControl.dPrime) },
     measure,
   };

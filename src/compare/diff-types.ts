@@ -88,8 +88,10 @@ export interface TaskCategory {
   ci: { dPrime: [number, number]; accuracyPp: [number, number]; auc: [number, number] } | null;
   /** ROC area of the readout (threshold-free), base and mod, their difference and its bootstrap interval. */
   auc: { base: number; mod: number; change: number; ci: [number, number] | null };
-  /** Hit rate of the modulated ROC at the baseline's false-alarm rate minus the baseline ROC's there, in pp. */
+  /** Hit rate of the modulated ROC at the baseline's false-alarm rate minus the baseline ROC's there, in pp (each curve read at the middle of its vertical stretch there; see `readoutChanges`). */
   matchedHitRatePp: number;
+  /** Range of that difference over the curves' vertical stretches at the baseline's false-alarm rate, in pp; holds the fixed-threshold ΔH whenever the false-alarm rate did not change. */
+  matchedHitRateRangePp: [number, number];
   /** Baseline scores shifted by the constant that reproduces the modulated false-alarm rate: hit rate and d′ vs base. */
   criterionControl: { shift: number; hitRatePp: number; dPrime: number };
 }
@@ -107,6 +109,7 @@ export interface TaskReport {
   /** Means over categories (the interval is of the mean change). */
   auc: TaskCategory['auc'];
   matchedHitRatePp: number;
+  matchedHitRateRangePp: [number, number];
   criterionControl: { hitRatePp: number; dPrime: number };
   /** The measure the verdict leads with. */
   measure: 'auc' | 'dprime';

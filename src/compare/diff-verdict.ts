@@ -6,6 +6,7 @@ import { RuntimeFailure } from '../errors.js';
 import { depthTrend, FLAT_PROFILE_CHANGE } from '../analysis/depth-profile.js';
 import { signed } from '../format.js';
 import type { DiffReport, LayerDiffRow, SchemeComparison } from './diff-types.js';
+import { diffSiteSizes, sizeGapNote, sizeGaps } from './size-match.js';
 
 /**
  * How the relative change develops below the site: "halves every X layers below SITE", "doubles …",
@@ -85,7 +86,9 @@ export function verdictOf(report: DiffReport): string {
     const ci = task.ci;
     const auc = `ROC area (threshold-free) ${signed(task.auc.change, 3)}${ci ? ` [${ci.auc[0].toFixed(3)}, ${ci.auc[1].toFixed(3)}]` : ''}`;
     const dPrime = `d′ at the fixed threshold ${signed(task.change.dPrime)}${ci ? ` [${ci.dPrime[0].toFixed(2)}, ${ci.dPrime[1].toFixed(2)}]` : ''}`;
-    const rest = `hit rate at the baseline's false-alarm rate ${signed(task.matchedHitRatePp, 1)} pp, accuracy ${signed(task.change.accuracyPp, 1)} pp`;
+    const range = task.matchedHitRateRangePp;
+    const spread = range && range[1] - range[0] > 0.05 ? ` (range ${signed(range[0], 1)} to ${signed(range[1], 1)}: the curves rise vertically there)` : '';
+    const rest = `hit rate at the baseline's false-alarm rate ${signed(task.matchedHitRatePp, 1)} pp${spread}, accuracy ${signed(task.change.accuracyPp, 1)} pp`;
     parts.push(`detection by ${task.measure === 'dprime' ? `${dPrime} (${auc})` : `${auc} (${dPrime})`}, ${rest}`);
   }
   return parts.join('; ');
@@ -116,5 +119,7 @@ export function compareSchemes(a: DiffReport, b: DiffReport, measure: 'auc' | 'd
   if (refused) return { a, b, layers, task, verdict: `${nonFiniteVerdict(a) ? 'A' : 'B'}: ${refused}` };
   const parts = [`below ${sameSites ? 'the site' : "both schemes' sites"}, A changes activity more in ${aWins} of ${below.length} layers and B in ${bWins}`];
   if (task) parts.push(`detection ${task.measure === 'auc' ? 'ROC-area (threshold-free)' : 'd′ (fixed threshold)'} change A ${signed(task.a, task.measure === 'auc' ? 3 : 2)} vs B ${signed(task.b, task.measure === 'auc' ? 3 : 2)}${task.separated ? ' (bootstrap intervals do not overlap)' : ' (within the bootstrap spread)'}`);
+  const sizeNote = sizeGapNote(sizeGaps(diffSiteSizes(a, b)), 'relative change at the site');
+  if (sizeNote) parts.push(sizeNote);
   return { a, b, layers, task, verdict: parts.join('; ') };
 }

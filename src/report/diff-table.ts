@@ -48,15 +48,15 @@ export function renderDiffReport(report: DiffReport): string {
   lines.push(`◆ modulation site; ratio = modulated ÷ baseline channel means (mean ± sd over channels); up/down: channels beyond ±tolerance; floor: ${report.floor.description}`);
   if (report.task) {
     const task = new Table({ head: ['category', 'threshold', 'AUC', 'ΔAUC [95% CI]', 'ΔH at base F', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy', 'criterion shift only: ΔH, Δd′'], style: STYLE });
-    const rows = report.task.categories.map((c) => ({ name: c.category, threshold: fixed(c.threshold, 2), base: c.base, mod: c.mod, change: c.change, ci: c.ci, auc: c.auc, matched: c.matchedHitRatePp, control: c.criterionControl }));
-    rows.push({ name: 'mean', threshold: '', base: report.task.base, mod: report.task.mod, change: report.task.change, ci: report.task.ci, auc: report.task.auc, matched: report.task.matchedHitRatePp, control: { shift: Number.NaN, ...report.task.criterionControl } });
+    const rows = report.task.categories.map((c) => ({ name: c.category, threshold: fixed(c.threshold, 2), base: c.base, mod: c.mod, change: c.change, ci: c.ci, auc: c.auc, matched: c.matchedHitRatePp, matchedRange: c.matchedHitRateRangePp, control: c.criterionControl }));
+    rows.push({ name: 'mean', threshold: '', base: report.task.base, mod: report.task.mod, change: report.task.change, ci: report.task.ci, auc: report.task.auc, matched: report.task.matchedHitRatePp, matchedRange: report.task.matchedHitRateRangePp, control: { shift: Number.NaN, ...report.task.criterionControl } });
     for (const r of rows) {
       task.push([
         r.name,
         r.threshold,
         `${fixed(r.auc.base, 3)} → ${fixed(r.auc.mod, 3)}`,
         `${signed(r.auc.change, 3)}${r.auc.ci ? ` [${fixed(r.auc.ci[0], 3)}, ${fixed(r.auc.ci[1], 3)}]` : ''}`,
-        `${signed(r.matched, 1)} pp`,
+        `${signed(r.matched, 1)} pp${matchedRangeText(r.matchedRange)}`,
         `${fixed(r.base.hitRate)} → ${fixed(r.mod.hitRate)}`,
         `${fixed(r.base.falseAlarmRate)} → ${fixed(r.mod.falseAlarmRate)}`,
         `${fixed(r.base.dPrime, 2)} → ${fixed(r.mod.dPrime, 2)}`,
@@ -103,4 +103,10 @@ export function diffToCsv(report: DiffReport): string {
 /** JSON text of a report (typed arrays become plain arrays; NaN/Infinity become null). */
 export function reportToJson(value: unknown): string {
   return `${JSON.stringify(value, (_key, v: unknown) => (ArrayBuffer.isView(v) && !(v instanceof DataView) ? Array.from(v as Float64Array) : v), 2)}\n`;
+}
+
+/** " (−8.0 to +5.0)" when the ROC curves are vertical at the baseline's false-alarm rate, else "" (older reports: ""). */
+export function matchedRangeText(range: readonly [number, number] | undefined): string {
+  if (!range || !(range[1] - range[0] > 0.05)) return '';
+  return ` (range ${signed(range[0], 1)} to ${signed(range[1], 1)})`;
 }

@@ -43,7 +43,10 @@ describe('readoutChanges', () => {
     const { scores, signal } = unequalSpread(8, 300);
     const base = { scores, signal, threshold: 0.5, detection: detectFromScores(scores, signal, 0.5) };
     const same = readoutChanges(base, scores, base.detection.falseAlarmRate);
-    expect(same).toEqual({ matchedHitRatePp: 0, criterionControl: { shift: 0, hitRatePp: 0, dPrime: 0 } });
+    expect(same.matchedHitRatePp).toBe(0);
+    expect(same.criterionControl).toEqual({ shift: 0, hitRatePp: 0, dPrime: 0 });
+    // the range is symmetric about 0 (± the height of the curve's stretch at F)
+    expect(same.matchedHitRateRangePp[0]).toBeCloseTo(-same.matchedHitRateRangePp[1], 12);
     // signal scores pushed up by 1: better separation at every false-alarm rate
     const better = scores.map((s, i) => (signal[i] ? s + 1 : s));
     const changes = readoutChanges(base, better, detectFromScores(better, signal, 0.5).falseAlarmRate);
@@ -58,5 +61,27 @@ describe('readoutChanges', () => {
     const changes = readoutChanges(base, scores, 1);
     expect(changes.matchedHitRatePp).toBe(0);
     expect(changes.criterionControl.shift).toBeNaN();
+  });
+
+  it('readoutChanges: with the false-alarm rate unchanged, the fixed-threshold hit-rate change lies inside the matched range (the vertical-stretch case that once read −3 pp beside +2 pp)', () => {
+    // 4 signal, 2 noise trials, threshold 2.5 → base: hits 5 and 3 (H ½), false alarm 4 (F ½)
+    const base = [5, 4, 3, 2, 1, 0];
+    const signal = Uint8Array.from([1, 0, 1, 1, 0, 1]);
+    // the modulated readout lifts the signal score at 2 over the threshold and the one at 0 just below it: H ¾, F still ½
+    const mod = [5, 4, 3, 2.6, 1, 2.4];
+    const threshold = 2.5;
+    const sb = detectFromScores(base, signal, threshold);
+    const sm = detectFromScores(mod, signal, threshold);
+    expect([sb.hitRate, sb.falseAlarmRate, sm.hitRate, sm.falseAlarmRate]).toEqual([0.5, 0.5, 0.75, 0.5]);
+    const r = readoutChanges({ scores: base, signal, threshold, detection: sb }, mod, sm.falseAlarmRate);
+    const fixedChangePp = 100 * (sm.hitRate - sb.hitRate);
+    // hand-read: base ROC at F = ½ runs from ¼ to ¾, modulated from ¼ to 1 → middles ½ and ⅝, range [¼ − ¾, 1 − ¼]
+    expect(r.matchedHitRatePp).toBeCloseTo(12.5, 10);
+    expect(r.matchedHitRateRangePp[0]).toBeCloseTo(-50, 10);
+    expect(r.matchedHitRateRangePp[1]).toBeCloseTo(75, 10);
+    expect(fixedChangePp).toBeGreaterThanOrEqual(r.matchedHitRateRangePp[0]);
+    expect(fixedChangePp).toBeLessThanOrEqual(r.matchedHitRateRangePp[1]);
+    // the same sign as the operating points: the top-of-stretch reading alone gave 1 − ¾ = +25 here but can fall below
+    expect(Math.sign(r.matchedHitRatePp)).toBe(Math.sign(fixedChangePp));
   });
 });

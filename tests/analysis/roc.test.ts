@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder } from '../../src/analysis/roc.js';
+import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, hitRateRangeAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder } from '../../src/analysis/roc.js';
 import { bootstrapInterval } from '../../src/analysis/bootstrap.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
@@ -194,6 +194,40 @@ describe('hitRateAtFalseAlarm', () => {
     expect(hitRateAtFalseAlarm([0, 1, 2, 3], Uint8Array.from([0, 0, 1, 1]), 0)).toBe(1); // vertical start: upper end
     expect(() => hitRateAtFalseAlarm(scores, isSignal, 1.5)).toThrow(UsageError);
     expect(() => hitRateAtFalseAlarm(scores, isSignal, Number.NaN)).toThrow(UsageError);
+  });
+});
+
+describe('hitRateRangeAtFalseAlarm', () => {
+  // hand-drawn curve: scores high to low S(5) N(4) S(3) S(2) N(1) S(0) with 4 signal and 2 noise trials:
+  // ROC points (0, 0) (0, ¼) (½, ¼) (½, ½) (½, ¾) (1, ¾) (1, 1) — vertical at F = ½ from ¼ to ¾
+  const scores = [5, 4, 3, 2, 1, 0];
+  const signal = Uint8Array.from([1, 0, 1, 1, 0, 1]);
+
+  it('hitRateRangeAtFalseAlarm gives the bottom and top of a vertical stretch (hand-drawn ROC)', () => {
+    expect(hitRateRangeAtFalseAlarm(scores, signal, 0.5)).toEqual({ low: 0.25, high: 0.75 });
+    expect(hitRateRangeAtFalseAlarm(scores, signal, 0)).toEqual({ low: 0, high: 0.25 });
+    expect(hitRateRangeAtFalseAlarm(scores, signal, 1)).toEqual({ low: 0.75, high: 1 });
+    // inside a sloped or flat segment both ends are the interpolated point
+    expect(hitRateRangeAtFalseAlarm(scores, signal, 0.25)).toEqual({ low: 0.25, high: 0.25 });
+  });
+
+  it('hitRateRangeAtFalseAlarm: high is hitRateAtFalseAlarm, and every threshold with false-alarm rate F has its hit rate in [low, high]', () => {
+    const random = createRandom(17);
+    const n = 60;
+    const s = Float64Array.from({ length: n }, () => Math.round(random.normal() * 4) / 2);
+    const flags = Uint8Array.from({ length: n }, (_, i) => (i % 3 === 0 ? 1 : 0));
+    for (let k = 0; k < n; k++) if (flags[k]) s[k]! += 1;
+    const signals = flags.reduce((a, b) => a + b, 0);
+    for (const t of [...new Set(s)].sort((a, b) => a - b)) {
+      let hits = 0;
+      let fas = 0;
+      for (let k = 0; k < n; k++) if (s[k]! > t) flags[k] ? hits++ : fas++;
+      const f = fas / (n - signals);
+      const range = hitRateRangeAtFalseAlarm(s, flags, f);
+      expect(range.high).toBe(hitRateAtFalseAlarm(s, flags, f));
+      expect(hits / signals).toBeGreaterThanOrEqual(range.low);
+      expect(hits / signals).toBeLessThanOrEqual(range.high);
+    }
   });
 });
 
