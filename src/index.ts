@@ -41,6 +41,7 @@ export { assertPaired } from './compare/diff-collect.js';
 export type { DiffOptions, DiffReport, LayerDiffRow, TaskReport, SchemeComparison } from './compare/diff-types.js';
 export { tuneSnapshot, type TuneOptions, type TuneResult } from './compare/tune.js';
 export { compareTables, type TableComparison } from './compare/compare-tables.js';
+export { sizeGaps, sizeGapNote, SIZE_TOLERANCE, type SchemeSize, type SizeGap } from './compare/size-match.js';
 
 // replay: sensitivities, sweeps, gain scores, ceiling, size-matched comparison
 export { DEFAULT_OFFSET_STEP, DEFAULT_STEP, defaultStep, SENSE_METHODS, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './replay/sense-types.js';
@@ -52,6 +53,7 @@ export type { SweepEvaluation } from './replay/held-out.js';
 export { scoreGains, type GainScoringOptions } from './replay/gain-scores.js';
 export { fitSiteCeilings, type SiteCeiling, type SiteCeilingOptions } from './replay/ceiling.js';
 export { compareAtSize, type SizeMatchedComparison, type SizeMatchedOptions, type SchemeEffect } from './replay/size-matched.js';
+export { runSizeMatched, type SizeMatchedRun, type SizeMatchedRunOptions } from './replay/size-matched-run.js';
 
 // demo
 export { runDemo, type DemoOptions, type DemoResult } from './demo/demo.js';

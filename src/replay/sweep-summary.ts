@@ -7,6 +7,7 @@ import { signFlipTest } from '../analysis/sign-flip.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { signed } from '../format.js';
+import { sizeGapNote, sizeGaps } from '../compare/size-match.js';
 import type { MatchTarget, SweepBest, SweepCalibration, SweepCell, SweepMeasure, SweepResult, SweepScheme } from './sweep-types.js';
 
 /**
@@ -122,6 +123,9 @@ export function summarise(cells: SweepCell[], input: SummaryInput): SweepResult 
   if (ranked[0]) lines.push(`largest gain in detection by ${measureName}: ${ranked[0].scheme} at ${ranked[0].site}, strength ${ranked[0].strength}, AUC ${signed(ranked[0].aucChange, 3)}, d′ ${signed(ranked[0].dPrimeChange)} (${signed(ranked[0].accuracyPp, 1)} pp), site activity changed by ${(100 * ranked[0].siteActivityChange).toFixed(1)} %`);
   if (control) lines.push(`tuning-based gain vs shuffled control by ${measureName}: mean ${symbol} ${control.meanTuning.toFixed(3)} vs ${control.meanShuffled.toFixed(3)}, p = ${control.pValue.toPrecision(2)} (${control.test})`);
   for (const c of calibration.filter((x) => x.strength !== null)) lines.push(`${c.target} at ${c.site} with ${c.scheme}: strength ${c.strength!.toFixed(3)}, site activity ${(100 * c.siteActivityChange!).toFixed(1)} % (${c.withinBand ? 'inside' : 'outside'} the ${100 * ATTENTION_BAND.low}–${100 * ATTENTION_BAND.high} % band)`);
+  // equal strength is not equal size: say so when the schemes' site activity changes differ
+  const sizeNote = sizeGapNote(sizeGaps(cells.map((c) => ({ site: c.site, scheme: c.scheme, strength: c.strength, size: c.siteActivityChange }))), 'site activity changed by');
+  if (sizeNote) lines.push(sizeNote);
   return {
     kind: 'sweep',
     model: { file: input.model.fileName, sha256: input.model.sha256 },

@@ -7,9 +7,10 @@ import { registerLayers } from './layers.js';
 import { registerRecord } from './record.js';
 import { registerReport } from './report.js';
 import { registerSense } from './sense.js';
+import { registerSizeMatched } from './size-matched.js';
 import { registerStimuli } from './stimuli.js';
 import { registerSweep } from './sweep.js';
 import { registerTune } from './tune.js';
 
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerCheck, registerMerge, registerReport];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerSizeMatched, registerCheck, registerMerge, registerReport];
