@@ -5,6 +5,18 @@ export interface CliIo {
   stderr: (text: string) => void;
 }
 
+/**
+ * The width terminal output is laid out for: `COLUMNS` when set to a whole number (at least 40), else the
+ * terminal's width when stdout is a terminal, else no limit (output to a file or a pipe keeps one line
+ * per table row and per sentence, for scripts that search it).
+ */
+export function outputColumns(): number {
+  const fromEnv = Number(process.env['COLUMNS']);
+  if (Number.isInteger(fromEnv) && fromEnv > 0) return Math.max(40, fromEnv);
+  if (process.stdout.isTTY && process.stdout.columns > 0) return Math.max(40, process.stdout.columns);
+  return Number.POSITIVE_INFINITY;
+}
+
 /** The process's own stdout and stderr (the default sink). */
 export const processIo: CliIo = {
   stdout: (text) => process.stdout.write(text),

@@ -1,9 +1,8 @@
-import Table from 'cli-table3';
 import { sparkline } from '../analysis/sparkline.js';
 import type { DiffReport, SchemeComparison } from '../compare/diff-types.js';
 import { bar, compact, csvField, fixed, signed } from '../format.js';
-
-const STYLE = { head: [], border: [], compact: true };
+import { shortLayerLabels } from './layer-labels.js';
+import { fitTable, NARROW_COLUMNS, wrapText } from './terminal-table.js';
 
 /** Bar length for a relative change on a log scale between the floor and the largest change. */
 function logBar(value: number, low: number, high: number): string {
@@ -11,21 +10,53 @@ function logBar(value: number, low: number, high: number): string {
   return bar((Math.log10(Math.max(value, low)) - Math.log10(low)) / (Math.log10(high) - Math.log10(low)));
 }
 
-/** The per-layer terminal table of a diff, a depth-profile sparkline, the task table and the verdict. */
-export function renderDiffReport(report: DiffReport): string {
+/** Layers that lie above the site and are unchanged (the baseline's own files, or a change of 0): folded into one row. */
+function unchangedAbove(layer: DiffReport['layers'][number]): boolean {
+  return !layer.site && !(layer.downstream ?? layer.belowSite > 0) && (layer.unchanged || layer.relativeChange === 0);
+}
+
+/**
+ * The per-layer terminal table of a diff, a depth-profile sparkline, the task table and the verdict.
+ * Layers are named by short unique labels (the site's full name is given under the table; `--json` has
+ * all); runs of unchanged layers above the site are folded into one row; tables wider than
+ * `options.width` are split into parts that repeat the depth and layer columns (the category for the
+ * task table), and text lines are wrapped to it. Below `NARROW_COLUMNS` the op column is left out.
+ * @param report the diff.
+ * @param options width: terminal columns to fit (default: no limit).
+ */
+export function renderDiffReport(report: DiffReport, options: { width?: number } = {}): string {
+  const width = options.width ?? Number.POSITIVE_INFINITY;
+  const narrow = width < NARROW_COLUMNS;
+  const labels = shortLayerLabels(report.layers.map((l) => l.name));
   const withSignature = report.layers.some((l) => l.signature);
   const head = ['depth', 'layer', 'op', 'rel. change', 'profile', 'cosine', 'ratio', 'up/down', 'effect'];
   if (withSignature) head.push('slope', 'intercept', 'match');
   head.push('floor');
-  const table = new Table({ head, style: STYLE });
+  const table: string[][] = [];
+  let folded: Array<DiffReport['layers'][number]> = [];
+  const flush = (): void => {
+    if (folded.length === 0) return;
+    const first = folded[0]!;
+    const last = folded[folded.length - 1]!;
+    const row = [folded.length > 1 ? `${first.depth}–${last.depth}` : `${first.depth}`, folded.length > 1 ? `${folded.length} layers above` : labels.get(first.name)!, '', '0', '', '', '', '', ''];
+    if (withSignature) row.push('', '', '');
+    row.push(folded.every((l) => l.unchanged) ? 'same file' : 'unchanged');
+    table.push(row);
+    folded = [];
+  };
   const changes = report.layers.map((l) => l.relativeChange).filter((v) => v > 0 && Number.isFinite(v));
   const high = Math.max(...changes, 1e-30);
   const low = Math.max(Math.min(...changes, high), high * 1e-6, ...report.layers.map((l) => l.floor)) / 10;
   for (const layer of report.layers) {
+    if (unchangedAbove(layer)) {
+      folded.push(layer);
+      continue;
+    }
+    flush();
     const ci = layer.relativeChangeCi ? ` [${compact(layer.relativeChangeCi[0])}, ${compact(layer.relativeChangeCi[1])}]` : '';
     const row = [
       `${layer.depth}${layer.site ? ' ◆' : ''}`,
-      layer.name,
+      labels.get(layer.name)!,
       layer.op,
       `${compact(layer.relativeChange)}${ci}`,
       logBar(layer.relativeChange, low, high),
@@ -41,13 +72,19 @@ export function renderDiffReport(report: DiffReport): string {
     row.push(layer.unchanged ? 'same file' : layer.nonFinite.base + layer.nonFinite.mod > 0 ? 'non-finite' : layer.aboveFloor ? 'above' : 'below');
     table.push(row);
   }
-  const lines = [table.toString()];
+  flush();
+  // the op column repeats what a short label usually ends with (Relu, MaxPool): narrow layouts leave it out
+  const shown = narrow ? head.map((_, i) => i).filter((i) => i !== 2) : head.map((_, i) => i);
+  const lines = [fitTable(shown.map((i) => head[i]!), table.map((r) => shown.map((i) => r[i]!)), { width, keyColumns: 2 })];
+  const siteNames = report.layers.filter((l) => l.site).map((l) => (labels.get(l.name) === l.name ? l.name : `${labels.get(l.name)} = ${l.name}`));
+  if (siteNames.length > 0) lines.push(`◆ site ${siteNames.join(', ')}`);
   const below = report.layers.filter((l) => l.site || l.downstream);
   const unit = report.depthUnit ?? 'recorded layers';
   lines.push(`depth profile from the site (log relative change): ${sparkline(below.map((l) => (l.relativeChange > 0 ? Math.log10(l.relativeChange) : Number.NaN)))}  rate ${fixed(report.depthProfile.rate)} per ${unit.replace(/s$/, '')} below the site, r² ${fixed(report.depthProfile.r2, 2)}`);
   lines.push(`◆ modulation site; ratio = modulated ÷ baseline channel means (mean ± sd over channels); up/down: channels beyond ±tolerance; floor: ${report.floor.description}`);
   if (report.task) {
-    const task = new Table({ head: ['category', 'threshold', 'AUC', 'ΔAUC [95% CI]', 'ΔH at base F', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy', 'criterion shift only: ΔH, Δd′'], style: STYLE });
+    const taskHead = ['category', 'threshold', 'AUC', 'ΔAUC [95% CI]', 'ΔH at base F', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy', narrow ? 'shift only: ΔH, Δd′' : 'criterion shift only: ΔH, Δd′'];
+    const task: string[][] = [];
     const rows = report.task.categories.map((c) => ({ name: c.category, threshold: fixed(c.threshold, 2), base: c.base, mod: c.mod, change: c.change, ci: c.ci, auc: c.auc, matched: c.matchedHitRatePp, matchedRange: c.matchedHitRateRangePp, control: c.criterionControl }));
     rows.push({ name: 'mean', threshold: '', base: report.task.base, mod: report.task.mod, change: report.task.change, ci: report.task.ci, auc: report.task.auc, matched: report.task.matchedHitRatePp, matchedRange: report.task.matchedHitRateRangePp, control: { shift: Number.NaN, ...report.task.criterionControl } });
     for (const r of rows) {
@@ -67,27 +104,36 @@ export function renderDiffReport(report: DiffReport): string {
         `${signed(r.control.hitRatePp, 1)} pp, ${signed(r.control.dPrime)}`,
       ]);
     }
-    lines.push('', `task: detection from "${report.task.readout}" (${report.task.thresholdRule}); rates base → modulated`, task.toString());
+    lines.push('', `task: detection from "${report.task.readout}" (${report.task.thresholdRule}); rates base → modulated`, fitTable(taskHead, task, { width, keyColumns: 1 }));
     lines.push("AUC: ROC area of the readout (threshold-free); ΔH at base F: hit-rate change at the baseline's false-alarm rate; criterion shift only: the baseline shifted by a constant to the modulated false-alarm rate");
   }
   lines.push('', `verdict: ${report.verdict}`);
-  return `${lines.join('\n')}\n`;
+  // tables are fitted already; text lines are wrapped to the width, continuation lines indented
+  return `${lines.map((line) => (line.includes('\n') ? line : wrapText(line, width, '  '))).join('\n')}\n`;
 }
 
-/** Side-by-side table of two schemes against the same baseline. */
-export function renderComparison(comparison: SchemeComparison, labels: [string, string] = ['A', 'B']): string {
-  const table = new Table({ head: ['depth', 'layer', `rel. change ${labels[0]}`, `rel. change ${labels[1]}`, 'larger', 'beyond spread'], style: STYLE });
-  comparison.layers.forEach((l, i) => {
+/**
+ * Side-by-side table of two schemes against the same baseline: columns A and B (named on the lines above
+ * the table), layers by short labels, fitted to `options.width` like `renderDiffReport`.
+ * @param comparison the comparison.
+ * @param labels what A and B are (the CLI passes the two modulated folders).
+ * @param options width: terminal columns to fit (default: no limit).
+ */
+export function renderComparison(comparison: SchemeComparison, labels: [string, string] = ['A', 'B'], options: { width?: number } = {}): string {
+  const width = options.width ?? Number.POSITIVE_INFINITY;
+  const names = shortLayerLabels(comparison.layers.map((l) => l.name));
+  const rows = comparison.layers.map((l, i) => {
     const a = comparison.a.layers[i]!;
-    table.push([`${l.depth}${a.site || comparison.b.layers[i]!.site ? ' ◆' : ''}`, l.name, compact(l.a), compact(l.b), l.larger === 'equal' ? '=' : l.larger === 'a' ? labels[0] : labels[1], l.separated ? 'yes' : 'no']);
+    return [`${l.depth}${a.site || comparison.b.layers[i]!.site ? ' ◆' : ''}`, names.get(l.name)!, compact(l.a), compact(l.b), l.larger === 'equal' ? '=' : l.larger === 'a' ? 'A' : 'B', l.separated ? 'yes' : 'no'];
   });
-  const lines = [`${labels[0]}: ${comparison.a.mod.folder}`, `${labels[1]}: ${comparison.b.mod.folder}`, table.toString()];
+  const table = fitTable(['depth', 'layer', 'rel. change A', 'rel. change B', 'larger', 'beyond spread'], rows, { width, keyColumns: 2 });
+  const lines = [`A = ${labels[0]}${labels[0] === comparison.a.mod.folder ? '' : ` (${comparison.a.mod.folder})`}`, `B = ${labels[1]}${labels[1] === comparison.b.mod.folder ? '' : ` (${comparison.b.mod.folder})`}`, table];
   if (comparison.task) {
     const digits = comparison.task.measure === 'auc' ? 3 : 2;
-    lines.push(`detection ${comparison.task.measure === 'auc' ? 'ΔAUC (threshold-free)' : 'Δd′ (fixed threshold)'}: ${labels[0]} ${signed(comparison.task.a, digits)}, ${labels[1]} ${signed(comparison.task.b, digits)}`);
+    lines.push(`detection ${comparison.task.measure === 'auc' ? 'ΔAUC (threshold-free)' : 'Δd′ (fixed threshold)'}: A ${signed(comparison.task.a, digits)}, B ${signed(comparison.task.b, digits)}`);
   }
-  lines.push(`verdict ${labels[0]}: ${comparison.a.verdict}`, `verdict ${labels[1]}: ${comparison.b.verdict}`, `comparison: ${comparison.verdict.replace(/\bA\b/g, labels[0]).replace(/\bB\b/g, labels[1])}`);
-  return `${lines.join('\n')}\n`;
+  lines.push(`verdict A: ${comparison.a.verdict}`, `verdict B: ${comparison.b.verdict}`, `comparison: ${comparison.verdict}`);
+  return `${lines.map((line) => (line.includes('\n') ? line : wrapText(line, width, '  '))).join('\n')}\n`;
 }
 
 /** One CSV row per layer, for spreadsheets. */

@@ -6,7 +6,7 @@ import { type DiffOptions, type DiffReport, type SchemeComparison } from '../../
 import { diffToCsv, renderComparison, renderDiffReport, reportToJson } from '../../report/diff-table.js';
 import { finiteNumber, nonNegativeInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
 import { tuningLookup } from './tuning-lookup.js';
 import { diffPartial } from '../../compare/partials.js';
 import { writePartial } from '../../record/partial-file.js';
@@ -109,7 +109,7 @@ export function registerDiff(program: Command): void {
       const single = 'verdict' in result && 'layers' in result && !('a' in result) ? (result as DiffReport) : null;
       if (opts.csv) replaceFile(opts.csv, diffToCsv(single ?? (result as SchemeComparison).a));
       if (opts.json) io.stdout(reportToJson(result));
-      else io.stdout(single ? renderDiffReport(single) : renderComparison(result as SchemeComparison, [modPath, opts.vs!]));
+      else io.stdout(single ? renderDiffReport(single, { width: outputColumns() }) : renderComparison(result as SchemeComparison, [modPath, opts.vs!], { width: outputColumns() }));
       // non-finite data: the report is printed (it shows where), but the run fails so no script takes it as an answer
       for (const [report, path] of single ? [[single, modPath] as const] : [[(result as SchemeComparison).a, modPath] as const, [(result as SchemeComparison).b, opts.vs!] as const]) {
         const failure = nonFiniteFailure(report, `diff ${basePath} ${path}`);

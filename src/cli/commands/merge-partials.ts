@@ -13,7 +13,7 @@ import { assertOutFileWritable } from '../../outputs/output-file.js';
 import { displayPath } from '../../record/record-snapshot.js';
 import { SELECTIVE_INDEX } from '../../compare/tune.js';
 import { renderDiffReport, reportToJson } from '../../report/diff-table.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
 
 /**
  * Combines partial-statistics files and prints or writes the result.
@@ -32,7 +32,7 @@ export async function mergePartialFiles(parts: readonly string[], options: { out
   const out = options.out !== undefined ? { out: options.out } : {};
   if (files[0]!.of === 'diff') {
     const report = await mergeDiffPartials(ordered);
-    io.stdout(options.json ? reportToJson(report) : renderDiffReport(report));
+    io.stdout(options.json ? reportToJson(report) : renderDiffReport(report, { width: outputColumns() }));
     const failure = nonFiniteFailure(report, `merge of ${parts.length} diff partials`);
     if (failure) throw failure;
     return;

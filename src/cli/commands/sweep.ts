@@ -1,13 +1,11 @@
-import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
 import { parseShard } from '../../record/shard.js';
 import { parseSweepMeasure, sweepModulations } from '../../replay/sweep.js';
-import type { SweepCell } from '../../replay/sweep-types.js';
-import { fixed, signed } from '../../format.js';
+import { renderSweep } from '../../report/sweep-table.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
 
 interface SweepCliOptions {
   from: string;
@@ -52,8 +50,8 @@ export function registerSweep(program: Command): void {
     .argument('<model>', 'ONNX model file (the baseline\'s)')
     .requiredOption('--from <baseline>', 'baseline snapshot detection is measured on (sites and everything downstream recorded at full resolution); tables made from another snapshot give a held-out evaluation')
     .requiredOption('--sites <list>', 'comma-separated site tensors, or all-activations')
-    .option('--schemes <list>', 'tuning,sensitivity,uniform,shuffled (default: those whose tables are given)')
-    .option('--strengths <list>', 'strengths β: list or start:stop:step', '0,0.1,0.2,0.3,0.4,0.5')
+    .option('--schemes <list>', 'comma-separated: tuning, sensitivity, shuffled (g = max(0, 1 + β·v)), uniform (g = 1 + β on every channel, i.e. a spec\'s kind: uniform with gain: 1 + β); default: those whose tables are given')
+    .option('--strengths <list>', 'strengths β: a list 0,0.1,0.2 or a range start:stop:step with both ends included, e.g. 0:0.5:0.1 (the step comes last)', '0,0.1,0.2,0.3,0.4,0.5')
     .requiredOption('--task <task>', 'detect:CATEGORY[,CATEGORY…] or detect:all (each cued in turn)')
     .option('--tuning <table>', 'tuning table (sonde tune) for the tuning and shuffled schemes')
     .option('--sensitivity <table>', 'sensitivity table (sonde sense) for the sensitivity scheme')
@@ -100,34 +98,6 @@ export function registerSweep(program: Command): void {
         io.stdout(`${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
       }
-      const grid = (pick: (c: SweepCell) => number, digits: number): string => {
-        const table = new Table({ head: ['site', 'scheme', ...result.strengths.map((s) => `β=${s}`)], style: { head: [], border: [], compact: true } });
-        for (const site of result.sites) {
-          for (const scheme of result.schemes) {
-            const row = result.strengths.map((strength) => {
-              const chosen = result.cells.filter((c) => c.site === site && c.scheme === scheme && c.strength === strength);
-              return chosen.length === 0 ? '' : signed(chosen.reduce((s, c) => s + pick(c), 0) / chosen.length, digits);
-            });
-            table.push([site, scheme, ...row]);
-          }
-        }
-        return table.toString();
-      };
-      io.stdout(`mean change in ROC area (AUC, threshold-free) over ${result.categories.length} cued categories:\n${grid((c) => c.change.auc, 3)}\n`);
-      io.stdout(`mean change in d′ at the threshold fixed on the baseline (moves with the criterion too):\n${grid((c) => c.change.dPrime, 2)}\n`);
-      io.stdout(`mean change in hit rate at the baseline's false-alarm rate (pp):\n${grid((c) => c.change.matchedHitRatePp, 1)}\n`);
-      const best = new Table({ head: ['site', `best scheme (by ${result.measure === 'auc' ? 'ΔAUC' : 'Δd′'})`, 'strength', 'ΔAUC', 'Δd′', 'Δaccuracy', 'site activity change'], style: { head: [], border: [], compact: true } });
-      for (const b of result.best) best.push([b.site, b.scheme, fixed(b.strength, 2), signed(b.aucChange, 3), signed(b.dPrimeChange), `${signed(b.accuracyPp, 1)} pp`, `${fixed(100 * b.siteActivityChange, 1)} %`]);
-      io.stdout(`${best.toString()}\n`);
-      if (result.calibration.length > 0) {
-        const cal = new Table({ head: ['site', 'scheme', 'target', 'strength', 'site activity change', `in ${100 * result.band.low}–${100 * result.band.high} % band`], style: { head: [], border: [], compact: true } });
-        for (const c of result.calibration) cal.push([c.site, c.scheme, c.target, c.strength === null ? 'not reached' : fixed(c.strength, 3), c.siteActivityChange === null ? '' : `${fixed(100 * c.siteActivityChange, 1)} %`, c.withinBand === null ? '' : c.withinBand ? 'yes' : 'no']);
-        io.stdout(`${cal.toString()}\n`);
-      }
-      if (result.evaluation && result.evaluation.tables.length > 0) {
-        const sources = result.evaluation.tables.map((t) => `${t.table} from ${t.from ?? t.source ?? 'an unrecorded source'}`).join(', ');
-        io.stdout(`evaluation: detection on ${result.evaluation.detectionOn}; ${sources}; ${result.evaluation.heldOut === true ? 'held out (gains and detection from different stimuli)' : result.evaluation.heldOut === false ? 'not held out (gains computed on the stimuli detection is measured on)' : 'held out or not: a table does not record its source'}\n`);
-      }
-      io.stdout(`${result.summary}\nresults: ${opts.out}/cells.arrow, ${opts.out}/sweep.json\n`);
+      io.stdout(renderSweep(result, { width: outputColumns(), out: opts.out }));
     });
 }

@@ -4,15 +4,16 @@
  * sensitivity table, layer by layer.
  */
 import { existsSync, statSync } from 'node:fs';
-import Table from 'cli-table3';
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
 import { sparkline } from '../../analysis/sparkline.js';
-import { compareTables, type TableComparison } from '../../compare/compare-tables.js';
+import { compareTables } from '../../compare/compare-tables.js';
 import { displayPath } from '../../record/record-snapshot.js';
 import { SELECTIVE_INDEX, summariseLayer, tuneSnapshot, type LayerTuningSummary } from '../../compare/tune.js';
 import { readSensitivityTable, readTuningTable, type TuningTableBlock } from '../../snapshot/tables.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
+import { renderAgreement, renderTuningSummaries } from '../../report/tune-table.js';
+import { wrapText } from '../../report/terminal-table.js';
 import { tunePartial } from '../../compare/partials.js';
 import { writePartial } from '../../record/partial-file.js';
 import { parseShard } from '../../record/shard.js';
@@ -28,7 +29,6 @@ interface TuneCliOptions {
   force?: boolean;
 }
 
-const TABLE_STYLE = { head: [] as string[], border: [] as string[], compact: true };
 
 /** Registers `sonde tune`. */
 export function registerTune(program: Command): void {
@@ -78,47 +78,12 @@ export function registerTune(program: Command): void {
       }
       if (!isTable) {
         const counts = Object.entries(header['counts'] as Record<string, number>).map(([c, n]) => `${c} ${n}`).join(', ');
-        io.stdout(`tuned ${summaries.length} layers of ${source} for ${(header['categories'] as string[]).length} categories (stimuli per category: ${counts}; ${String(header['stimuliSkipped'])} stimuli without a category left out) → ${displayPath(opts.out!)}\n`);
-        io.stdout(`${tuningTable(summaries)}\n`);
-        io.stdout(`across depth: selective ${sparkline(summaries.map((s) => s.selectiveFraction), { min: 0, max: 1 })}  mean selectivity ${sparkline(summaries.map((s) => s.meanSelectivity), { min: 0, max: 1 })}  (selective: index ≥ ${SELECTIVE_INDEX.toFixed(2)}, preferred category ≥ 2× the others)\n`);
+        io.stdout(`${wrapText(`tuned ${summaries.length} layers of ${source} for ${(header['categories'] as string[]).length} categories (stimuli per category: ${counts}; ${String(header['stimuliSkipped'])} stimuli without a category left out) → ${displayPath(opts.out!)}`, outputColumns(), '  ')}\n`);
+        io.stdout(`${renderTuningSummaries(summaries, { width: outputColumns() })}\n`);
+        io.stdout(`${wrapText(`across depth: selective ${sparkline(summaries.map((s) => s.selectiveFraction), { min: 0, max: 1 })}  mean selectivity ${sparkline(summaries.map((s) => s.meanSelectivity), { min: 0, max: 1 })}  (selective: index ≥ ${SELECTIVE_INDEX.toFixed(2)}, preferred category ≥ 2× the others)`, outputColumns(), '  ')}\n`);
       }
-      if (comparison) io.stdout(`${comparisonText(comparison, opts.against!)}\n`);
+      if (comparison) io.stdout(`${renderAgreement(comparison, displayPath(opts.against!), { width: outputColumns() })}\n`);
     });
-}
-
-function tuningTable(summaries: readonly LayerTuningSummary[]): string {
-  const table = new Table({ head: ['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], style: TABLE_STYLE });
-  let signed = false;
-  for (const s of summaries) {
-    // the index is defined for non-negative responses only; say so instead of printing NaN
-    let selectivity = fixed(s.meanSelectivity, 3);
-    if (s.negativeChannels > 0) {
-      signed = true;
-      selectivity = Number.isFinite(s.meanSelectivity) ? `${selectivity} *` : '– *';
-    }
-    table.push([s.depth, s.layer, s.op, s.channels, `${(100 * s.selectiveFraction).toFixed(0)}%`, selectivity, s.zeroVarianceChannels || '', s.nonFiniteChannels || '']);
-  }
-  return signed ? `${table.toString()}\n* channels with a negative mean response to some category have no selectivity index (it needs non-negative responses); the mean is over the others` : table.toString();
-}
-
-function comparisonText(comparison: TableComparison, path: string): string {
-  const table = new Table({ head: ['depth', 'layer', 'channels', 'pooled r', 'pooled ρ', ...comparison.categories.map((c) => `r ${c}`)], style: TABLE_STYLE });
-  for (const l of comparison.layers) {
-    table.push([l.depth, l.layer, l.channels, fixed(l.pooled.pearson, 3), fixed(l.pooled.spearman, 3), ...l.byCategory.map((c) => fixed(c.pearson, 2))]);
-  }
-  const pooled = comparison.layers.map((l) => l.pooled.pearson);
-  const trend = comparison.depthTrend;
-  const lines = [
-    `tuning vs sensitivity (${displayPath(path)}; sensitivities ${comparison.sensitivityScale === 'normalised' ? 'z-scored across categories' : 'raw, one shared category'})`,
-    table.toString(),
-    `pooled r across depth: ${sparkline(pooled, { min: -1, max: 1 })}${Number.isFinite(trend.slope) ? `  trend ${trend.slope >= 0 ? '+' : ''}${trend.slope.toPrecision(3)} per depth step` : ''}`,
-  ];
-  if (comparison.unmatched.length > 0) lines.push(`not in the tuning table: ${comparison.unmatched.join(', ')}`);
-  return lines.join('\n');
-}
-
-function fixed(x: number, digits: number): string {
-  return Number.isFinite(x) ? x.toFixed(digits) : 'NaN';
 }
 
 /** JSON replacer: NaN/±Infinity become null (JSON has no such numbers). */
