@@ -5,6 +5,7 @@
 import { RuntimeFailure } from '../errors.js';
 import { depthTrend, FLAT_PROFILE_CHANGE } from '../analysis/depth-profile.js';
 import { signed } from '../format.js';
+import { modulationWindows } from '../modulation/label.js';
 import type { DiffReport, LayerDiffRow, SchemeComparison } from './diff-types.js';
 import { diffSiteSizes, sizeGapNote, sizeGaps } from './size-match.js';
 
@@ -72,7 +73,8 @@ export function verdictOf(report: DiffReport): string {
   const refused = nonFiniteVerdict(report);
   if (refused) return refused;
   const parts: string[] = [];
-  const subject = report.layers.some((l) => l.signature) ? 'the modulation' : 'the change';
+  const windows = modulationWindows(report.mod.modulation);
+  const subject = `${report.layers.some((l) => l.signature) ? 'the modulation' : 'the change'}${windows.length > 0 ? ` (within a ${windows.join('; ')})` : ''}`;
   parts.push(`${subject} ${describeDepthProfile(report)}`);
   if (report.survival.layer) parts.push(`stays above the noise floor down to ${report.survival.layer} (${describeBelow(report.survival.belowSite!, report.depthUnit)})`);
   else if (report.sites.length > 0) parts.push('does not rise above the noise floor below the site');

@@ -77,7 +77,7 @@ function resolveOne(m: Modulation, r: Resolver): ResolvedModulation {
       if (!Number.isFinite(g)) r.fail('strength', `is ${m.strength}, which overflows float32 (max ≈ 3.4e38)`);
       gain.fill(g);
       details['strength'] = m.strength;
-      what = `uniform gain ${fmt(m.strength)} at ${JSON.stringify(m.site)} (${channels} ch)`;
+      what = `uniform gain ×${fmt(m.strength)} at ${JSON.stringify(m.site)} (${channels} ch)`;
       break;
     }
     case 'lesion': {

@@ -7,7 +7,7 @@
  * | kind          | keys (besides `site`, `kind`, `window`, `allowNegative`)                     |
  * |---------------|-------------------------------------------------------------------------------|
  * | `gain`        | `values` (per-channel gains: inline list or `.npy`/`.csv` path)                |
- * | `uniform`     | `strength` (the gain for every channel)                                        |
+ * | `uniform`     | `gain` (the gain for every channel; older specs: `strength`, same meaning)     |
  * | `offset`      | `values` (per-channel additive offsets)                                        |
  * | `lesion`      | `channels: [..]`, or `top: k` + `target` (+ `rankBy: tuning|sensitivity`)      |
  * | `noise`       | `sd`, `mode: multiplicative|additive` (default multiplicative), `seed` (def. 0)|
@@ -51,7 +51,7 @@ const COMMON_KEYS = ['site', 'kind', 'window', 'allowNegative'] as const;
 /** Keys each kind accepts, besides the common ones. */
 const KIND_KEYS: Record<ModulationKind, readonly string[]> = {
   gain: ['values'],
-  uniform: ['strength'],
+  uniform: ['gain', 'strength'],
   offset: ['values'],
   lesion: ['channels', 'top', 'target', 'rankBy'],
   noise: ['mode', 'sd', 'seed'],
@@ -136,7 +136,7 @@ export function validateModulationSpec(value: unknown, options: ParseSpecOptions
     }
     seen.set(m.site, i);
   });
-  return { source: options.source, form, modulations };
+  return { source: options.source, form, modulations, ...(reader.notices.length > 0 ? { notices: reader.notices } : {}) };
 }
 
 /**
@@ -151,6 +151,11 @@ export function specToObject(spec: ModulationSpec): Record<string, unknown> {
     if (m.window !== undefined) copy['window'] = { ...m.window };
     if ('values' in m) copy['values'] = [...m.values];
     if ('channels' in m) copy['channels'] = [...m.channels];
+    if (m.kind === 'uniform') {
+      // written with the unambiguous key (the gain itself); `strength` still reads the same
+      delete copy['strength'];
+      copy['gain'] = m.strength;
+    }
     return copy;
   });
   return spec.form === 'list' ? { modulations: plain } : plain[0]!;
@@ -220,6 +225,8 @@ function join(path: string, key: string): string {
 
 /** Validation with messages prefixed by the source and field path. */
 class SpecReader {
+  /** Things a valid spec may still be misread as (see `ModulationSpec.notices`). */
+  readonly notices: string[] = [];
   private readonly source: string;
   private readonly folder: string;
 
@@ -275,8 +282,13 @@ class SpecReader {
         return valuesFile === undefined ? { kind, ...common, values } : { kind, ...common, values, valuesFile };
       }
       case 'uniform': {
-        const strength = this.requiredNumber(value, join(path, 'strength'), 'the gain for every channel');
-        if (strength < 0 && !allowNegative) this.fail(join(path, 'strength'), `is ${strength}; gains must be ≥ 0`, NEGATIVE_HINT);
+        // `gain` is the gain itself; `strength` (older specs) meant the same, unlike the sweep's uniform
+        // scheme, whose strength β is a gain of 1 + β: accepted, with a notice saying so
+        if (Object.hasOwn(value, 'gain') && Object.hasOwn(value, 'strength')) this.fail(join(path, 'strength'), 'cannot be combined with gain; give the gain for every channel as gain: G');
+        const key = Object.hasOwn(value, 'strength') ? 'strength' : 'gain';
+        const strength = this.requiredNumber(value, join(path, key), 'the gain for every channel (gain: G)');
+        if (strength < 0 && !allowNegative) this.fail(join(path, key), `is ${strength}; gains must be ≥ 0`, NEGATIVE_HINT);
+        if (key === 'strength') this.notices.push(`${this.source}: ${join(path, 'strength')} ${strength} of a uniform modulation is the gain itself (every channel × ${strength}); write gain: ${strength} — in sweep, the uniform scheme's strength β is a gain of 1 + β`);
         return { kind, ...common, strength };
       }
       case 'lesion':

@@ -69,10 +69,10 @@ export interface GainModulation extends ModulationCommon {
   valuesFile?: string;
 }
 
-/** One gain (`strength`) for every channel. */
+/** One gain for every channel (spec key `gain`; older specs `strength`, same meaning). */
 export interface UniformModulation extends ModulationCommon {
   kind: 'uniform';
-  /** The gain applied to all channels. */
+  /** The gain applied to all channels (not 1 + β as for the sweep's uniform scheme). */
   strength: number;
 }
 
@@ -143,6 +143,8 @@ export interface ModulationSpec {
   form: 'single' | 'list';
   /** At least one modulation, sites distinct. */
   modulations: Modulation[];
+  /** One line per key that is valid but easy to misread (a uniform modulation's `strength`, which is the gain itself); commands print them. */
+  notices?: string[];
 }
 
 /** Shape of a site tensor as the resolver needs it. */

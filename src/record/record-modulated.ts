@@ -101,6 +101,7 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
   const spec = typeof options.modulate === 'string' ? loadModulationSpec(options.modulate) : options.modulate;
   const baseline = options.from ? openSnapshot(options.from) : null;
+  for (const notice of spec.notices ?? []) options.onNotice?.(notice);
   assertApartFromInputs(resolveOutFolder(options.out), '--out', [
     { option: 'MODEL', path: model.path },
     { option: '--stimuli', path: options.stimuli },

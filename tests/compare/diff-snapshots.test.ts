@@ -104,6 +104,15 @@ describe('diffSnapshots', () => {
     expect(a.depthUnit).toBe('weight layers');
   });
 
+  it('diffSnapshots names a spatial window in the verdict, so a windowed gain and the same gain without one read differently', async () => {
+    const plain = await recordModulated({ model: homogeneous, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'plain'), modulate: spec('plain', { site: 'relu0', kind: 'uniform', gain: 1.5 }), from: join(dir, 'base-h'), threads: 1 });
+    const windowed = await recordModulated({ model: homogeneous, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'windowed'), modulate: spec('windowed', { site: 'relu0', kind: 'uniform', gain: 1.5, window: { shape: 'gaussian', cx: 0.3, cy: 0.5, sigma: 0.15 } }), from: join(dir, 'base-h'), threads: 1 });
+    const a = await diffSnapshots({ base: join(dir, 'base-h'), mod: plain.folder, bootstrap: 0 });
+    const b = await diffSnapshots({ base: join(dir, 'base-h'), mod: windowed.folder, bootstrap: 0 });
+    expect(a.verdict).not.toContain('window');
+    expect(b.verdict).toMatch(/^the change \(within a gaussian window at \(0\.3, 0\.5\) σ 0\.15\)/);
+  });
+
   it('diffSnapshots streaming over differently batched snapshots equals an in-memory computation', async () => {
     const path = spec('gain', { site: 'pool0', kind: 'gain', values: [0.2, 1.8, 1.1, 0.6] });
     const mod = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'gain'), modulate: path, from: join(dir, 'base-b'), fullRun: true, batch: 7, threads: 1 });

@@ -52,6 +52,22 @@ function usageMessage(action: () => unknown): string {
 }
 
 describe('parseModulationSpec', () => {
+  it('parseModulationSpec(uniform with gain) is the gain itself; the older key strength means the same and leaves a notice naming the sweep\'s 1 + β', () => {
+    const withGain = parseModulationSpec('{ site: a, kind: uniform, gain: 1.4 }', { source: 'spec.yaml' });
+    expect(withGain.modulations[0]).toMatchObject({ kind: 'uniform', strength: 1.4 });
+    expect(withGain.notices).toBeUndefined();
+    const old = parseModulationSpec('{ site: a, kind: uniform, strength: 1.4 }', { source: 'spec.yaml' });
+    expect(old.modulations[0]).toEqual(withGain.modulations[0]);
+    expect(old.notices).toHaveLength(1);
+    expect(old.notices![0]).toContain('spec.yaml: strength 1.4 of a uniform modulation is the gain itself');
+    expect(old.notices![0]).toContain('write gain: 1.4');
+    expect(old.notices![0]).toContain("the uniform scheme's strength β is a gain of 1 + β");
+    expect(() => parseModulationSpec('{ site: a, kind: uniform, gain: 1.4, strength: 0.4 }', { source: 'spec.yaml' })).toThrow(/strength cannot be combined with gain/);
+    // written back with the unambiguous key
+    expect(specToObject(old)).toMatchObject({ kind: 'uniform', gain: 1.4 });
+    expect(specToObject(old)).not.toHaveProperty('strength');
+  });
+
   it('parseModulationSpec(yaml) and parseModulationSpec(json) give the same spec', () => {
     const fromYaml = parseModulationSpec(YAML_SPEC, { source: 'spec.yaml' });
     const fromJson = parseModulationSpec(JSON_SPEC, { source: 'spec.json' });
@@ -225,7 +241,7 @@ const windowArb = fc.oneof(
 function modulationArb(text: fc.Arbitrary<string>): fc.Arbitrary<Record<string, unknown>> {
   const kindPart = fc.oneof(
     fc.record({ kind: fc.constant('gain'), values: fc.array(finite(0, 1e6), { minLength: 1, maxLength: 6 }) }),
-    fc.record({ kind: fc.constant('uniform'), strength: finite(0, 100) }),
+    fc.record({ kind: fc.constant('uniform'), gain: finite(0, 100) }),
     fc.record({ kind: fc.constant('offset'), values: fc.array(finite(-1e6, 1e6), { minLength: 1, maxLength: 6 }) }),
     fc.record({ kind: fc.constant('lesion'), channels: fc.uniqueArray(fc.nat(4096), { minLength: 1, maxLength: 6 }) }),
     fc.record({ kind: fc.constant('lesion'), top: fc.integer({ min: 1, max: 512 }), target: text, rankBy: fc.constantFrom('tuning', 'sensitivity') }),

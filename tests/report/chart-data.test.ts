@@ -125,6 +125,10 @@ describe('relativeChangeData', () => {
 describe('runLabel and uniqueLabels', () => {
   it('runLabel(diff) names kind, strength, target and site from the manifest, else the folder', () => {
     expect(runLabel(makeDiff({ kind: 'sensitivity', strength: 0.25 }))).toBe('sensitivity 0.25 → ring @ relu1');
+    // a window is part of the modulation: the same gain with and without one gets different labels
+    const windowed = makeDiff({ kind: 'sensitivity', strength: 0.25 });
+    (windowed.mod.modulation as { modulations: Array<Record<string, unknown>> }).modulations[0]!['window'] = { shape: 'gaussian', cx: 0.3, cy: 0.5, sigma: 0.15, outside: 1 };
+    expect(runLabel(windowed)).toBe('sensitivity 0.25 → ring @ relu1 in gaussian window at (0.3, 0.5) σ 0.15');
     const bare = { ...makeDiff({ folder: '/x/snapshots/mod-a' }), mod: { folder: '/x/snapshots/mod-a', modulation: null } };
     expect(runLabel(bare)).toBe('mod-a');
   });

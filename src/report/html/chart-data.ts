@@ -6,6 +6,7 @@
 import { basename } from 'node:path';
 import type { TableComparison } from '../../compare/compare-tables.js';
 import type { DiffReport } from '../../compare/diff-types.js';
+import { windowLabel } from '../../modulation/label.js';
 import type { SweepCell, SweepResult } from '../../replay/sweep-types.js';
 import { num, type TuningSummaries } from './inputs.js';
 
@@ -44,6 +45,8 @@ interface ModulationSource {
   target?: unknown;
   /** Kind-specific details of a resolved modulation record (strength, target, …). */
   details?: { strength?: unknown; target?: unknown };
+  /** The spatial window, when the modulation has one. */
+  window?: unknown;
 }
 
 /**
@@ -63,6 +66,8 @@ export function runLabel(diff: DiffReport): string {
     if (typeof strength === 'number') words.push(`${strength}`);
     if (typeof target === 'string') words.push(`→ ${target}`);
     if (typeof m.site === 'string') words.push(`@ ${m.site}`);
+    const window = windowLabel(m.window);
+    if (window !== null) words.push(`in ${window}`);
     return words.join(' ');
   }).filter((p) => p.length > 0);
   if (parts.length > 0) return parts.join(' + ');
