@@ -38,6 +38,8 @@ const LAYERS: readonly string[] = [
   'record',
   'compare',
   'replay',
+  // running workflows as cluster job arrays
+  'cluster',
   // presentation and the demo
   'report',
   'demo',

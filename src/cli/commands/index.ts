@@ -1,5 +1,6 @@
 import type { Command } from 'commander';
 import { registerCheck } from './check.js';
+import { registerCluster } from './cluster.js';
 import { registerMerge } from './merge.js';
 import { registerDemo } from './demo.js';
 import { registerDiff } from './diff.js';
@@ -13,4 +14,4 @@ import { registerSweep } from './sweep.js';
 import { registerTune } from './tune.js';
 
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerSizeMatched, registerCheck, registerMerge, registerReport];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerSizeMatched, registerCheck, registerMerge, registerCluster, registerReport];
