@@ -35,6 +35,7 @@ const LAYERS: readonly string[] = [
   'modulation',
   'outputs',
   // workflows
+  'export',
   'record',
   'compare',
   'replay',

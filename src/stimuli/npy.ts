@@ -258,16 +258,31 @@ export function formatNpy(data: NpyArray, shape: readonly number[]): Uint8Array 
     throw new UsageError('E_NPY', `formatNpy: shape [${shape.join(', ')}] holds ${count} elements but data has ${data.length}`);
   }
   const descr = data instanceof Float32Array ? '<f4' : data instanceof Float64Array ? '<f8' : data instanceof Int32Array ? '<i4' : '|u1';
+  const header = formatNpyHeader(descr, shape);
+  const out = new Uint8Array(header.length + data.byteLength);
+  out.set(header, 0);
+  out.set(new Uint8Array(data.buffer, data.byteOffset, data.byteLength), header.length);
+  return out;
+}
+
+/**
+ * The header of a C-order `.npy` version 1.0 file (magic, version, length, dict padded with spaces so the
+ * data starts on a 64-byte boundary, newline): what a streaming writer puts before the raw data.
+ * @param descr NumPy's dtype string (`<f2` for float16 bit patterns, `<f4`, `<f8`, `<i4`, `|u1`).
+ * @param shape the array's shape (C order).
+ * @throws UsageError when the dict does not fit the 1.0 format's 2-byte length (a shape of thousands of axes).
+ */
+export function formatNpyHeader(descr: NpyDescr | '<f2', shape: readonly number[]): Uint8Array {
   const shapeText = shape.length === 1 ? `(${shape[0]},)` : `(${shape.join(', ')})`;
   let header = `{'descr': '${descr}', 'fortran_order': False, 'shape': ${shapeText}, }`;
   const unpadded = 10 + header.length + 1; // + trailing newline
   header += ' '.repeat((64 - (unpadded % 64)) % 64) + '\n';
-  const out = new Uint8Array(10 + header.length + data.byteLength);
+  if (header.length > 0xffff) throw new UsageError('E_NPY', `formatNpyHeader: a header of ${header.length} bytes does not fit .npy version 1.0`);
+  const out = new Uint8Array(10 + header.length);
   out.set(MAGIC, 0);
   out[6] = 1;
   out[7] = 0;
   new DataView(out.buffer).setUint16(8, header.length, true);
   for (let i = 0; i < header.length; i++) out[10 + i] = header.charCodeAt(i);
-  out.set(new Uint8Array(data.buffer, data.byteOffset, data.byteLength), 10 + header.length);
   return out;
 }
