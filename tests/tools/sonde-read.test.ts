@@ -1,0 +1,135 @@
+/**
+ * tools/python/sonde_read.py (the Python reader shipped with Sonde) against Sonde's own reader
+ * (openSnapshot/readLayer): run with Debian's /usr/bin/python3 and python3-numpy (and python3-xarray for
+ * the DataArray checks; `.ci/run` installs both), it must hand out the same values, bit for bit, for a
+ * float32 baseline, a modulated snapshot whose upstream layers live in the baseline, a float16 snapshot
+ * (widened by NumPy's own float16, independently of Sonde's conversion), a channel-means-only snapshot,
+ * and an export of the modulated snapshot (memory-mapped .npy). Skipped, saying why, where
+ * /usr/bin/python3 has no NumPy.
+ */
+import { spawnSync } from 'node:child_process';
+import { readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { beforeAll, describe, expect, it } from 'vitest';
+import { exportSnapshot } from '../../src/export/export-snapshot.js';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
+import { openSnapshot } from '../../src/snapshot/snapshot.js';
+import { parseNpy } from '../../src/stimuli/npy.js';
+import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+
+const PYTHON = '/usr/bin/python3';
+const SCRIPT = join(import.meta.dirname, 'dump_sonde_read.py');
+const probe = spawnSync(PYTHON, ['-c', 'import numpy'], { encoding: 'utf8' });
+const hasNumpy = probe.status === 0;
+if (!hasNumpy) console.warn(`sonde-read tests skipped: ${PYTHON} with NumPy is not available (apt-get install python3-numpy python3-xarray)`);
+const hasXarray = hasNumpy && spawnSync(PYTHON, ['-c', 'import xarray'], { encoding: 'utf8' }).status === 0;
+
+let dir: string;
+let folders: string[];
+
+interface Dumped {
+  xarray: boolean;
+  folders: Array<{
+    kind: string;
+    ids: string[];
+    labels: string[][];
+    index: number[];
+    modulated: boolean;
+    layers: Array<{ name: string; source: string; dtype?: string; shape?: number[]; memmap?: boolean; meansDtype: string; dataarray?: { dims: string[]; shape: number[]; stimulus: number[]; id: string[]; labels: string[][]; channel: number[]; layer: string; modulation: unknown; equal: boolean } }>;
+  }>;
+}
+
+function runDump(engine: string, inputs: string[]): { out: string; status: number | null; stderr: string } {
+  const out = tempFolder('sonde-py-');
+  const result = spawnSync(PYTHON, [SCRIPT, out, engine, ...inputs], { encoding: 'utf8' });
+  return { out, status: result.status, stderr: result.stderr };
+}
+
+beforeAll(async () => {
+  if (!hasNumpy) return;
+  dir = tempFolder('sonde-read-');
+  const model = join(dir, 'net.onnx');
+  writeFileSync(model, buildTinyNet({ bias: true, seed: 9 }));
+  const stim = writeStimuliNpy(dir, [9, 3, 16, 16], 21);
+  const common = { model, stimuli: stim.npy, labels: stim.labels, threads: 1 } as const;
+  await recordSnapshot({ ...common, layers: 'all', out: join(dir, 'base'), batch: 4 });
+  await recordSnapshot({ ...common, layers: 'all', out: join(dir, 'half'), batch: 2, dtype: 'float16' });
+  await recordSnapshot({ ...common, layers: 'all', out: join(dir, 'means'), batch: 4, keep: 'channels' });
+  writeFileSync(join(dir, 'gain.json'), JSON.stringify({ site: 'relu1', kind: 'uniform', gain: 0.5 }));
+  await recordModulated({ ...common, out: join(dir, 'mod'), batch: 4, modulate: join(dir, 'gain.json'), from: join(dir, 'base') });
+  await exportSnapshot({ snapshot: join(dir, 'mod'), out: join(dir, 'mod-npy') });
+  folders = ['base', 'mod', 'half', 'means', 'mod-npy'].map((f) => join(dir, f));
+}, 60_000);
+
+describe.skipIf(!hasNumpy)('sonde_read.py', () => {
+  it('sonde_read.open returns the values, stimuli and label sets openSnapshot reads, for baseline, modulated, float16, channel-means-only snapshots and an export', async () => {
+    const run = runDump('numpy', folders);
+    expect(run.status, run.stderr).toBe(0);
+    const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
+    const sources = ['base', 'mod', 'half', 'means', 'mod']; // the export reads as the snapshot it came from
+    for (let k = 0; k < folders.length; k++) {
+      const snap = openSnapshot(join(dir, sources[k]!));
+      const got = dumped.folders[k]!;
+      expect(got.kind).toBe(k === 4 ? 'export' : 'snapshot');
+      expect(got.ids).toEqual(snap.stimuli.ids);
+      expect(got.labels).toEqual(snap.stimuli.labels);
+      expect(got.index).toEqual(snap.stimuli.ids.map((_, i) => snap.firstIndex + i));
+      expect(got.modulated).toBe(snap.manifest.modulation !== null);
+      expect(got.layers.map((l) => l.name)).toEqual(snap.manifest.layers.map((l) => l.name));
+      for (let j = 0; j < got.layers.length; j++) {
+        const entry = snap.manifest.layers[j]!;
+        const layer = got.layers[j]!;
+        expect(layer.source).toBe(entry.from === 'baseline' ? 'baseline' : 'snapshot');
+        expect(layer.meansDtype).toBe('float32');
+        const means = parseNpy(readFileSync(join(run.out, String(k), `${j}.means.npy`))).data as Float32Array;
+        expect(Buffer.compare(Buffer.from(means.buffer), Buffer.from((await snap.readChannelMeans(entry.name)).buffer)), `${sources[k]} ${entry.name} means`).toBe(0);
+        if (entry.keep === 'channels') {
+          expect(layer.dtype).toBeUndefined();
+          continue;
+        }
+        expect(layer.dtype).toBe(entry.dtype);
+        expect(layer.shape).toEqual([snap.manifest.stimuli.count, ...entry.shape]);
+        if (k === 4) expect(layer.memmap).toBe(true); // exports are memory-mapped
+        const acts = parseNpy(readFileSync(join(run.out, String(k), `${j}.acts.npy`))).data as Float32Array;
+        const expected: number[] = [];
+        for await (const batch of snap.readLayer(entry.name)) for (const v of batch.activation!) expected.push(v);
+        expect(Buffer.compare(Buffer.from(acts.buffer), Buffer.from(Float32Array.from(expected).buffer)), `${sources[k]} ${entry.name}`).toBe(0);
+      }
+    }
+  }, 60_000);
+
+  it.skipIf(!hasXarray)('sonde_read dataarray labels the stimulus axis with index, id and label set, and names the axes stimulus, channel, y, x', () => {
+    const run = runDump('numpy', [join(dir, 'mod'), join(dir, 'mod-npy')]);
+    expect(run.status, run.stderr).toBe(0);
+    const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
+    expect(dumped.xarray).toBe(true);
+    const snap = openSnapshot(join(dir, 'mod'));
+    for (const folder of dumped.folders) {
+      for (const layer of folder.layers) {
+        const entry = snap.layer(layer.name);
+        const da = layer.dataarray!;
+        expect(da.equal).toBe(true);
+        expect(da.shape).toEqual([9, ...entry.shape]);
+        expect(da.dims).toEqual(entry.shape.length === 3 ? ['stimulus', 'channel', 'y', 'x'] : ['stimulus', 'channel', ...entry.shape.slice(1).map((_, i) => `axis${i + 2}`)]);
+        expect(da.stimulus).toEqual([0, 1, 2, 3, 4, 5, 6, 7, 8]);
+        expect(da.id).toEqual(snap.stimuli.ids);
+        expect(da.labels).toEqual(snap.stimuli.labels);
+        expect(da.channel).toEqual(Array.from({ length: entry.shape[0]! }, (_, c) => c));
+        expect(da.modulation).toEqual(snap.manifest.modulation);
+      }
+    }
+  }, 60_000);
+
+  it('sonde_read refuses a layer file whose bytes differ from its manifest SHA-256, as Sonde does', async () => {
+    const copy = join(dir, 'damaged');
+    await recordSnapshot({ model: join(dir, 'net.onnx'), stimuli: join(dir, 'stimuli.npy'), labels: join(dir, 'labels.csv'), out: copy, layers: 'relu0', batch: 4, threads: 1 });
+    const file = join(copy, openSnapshot(copy).layer('relu0').file);
+    const bytes = readFileSync(file);
+    bytes[bytes.length >> 1] ^= 0x01;
+    writeFileSync(file, bytes);
+    const run = runDump('numpy', [copy]);
+    expect(run.status).not.toBe(0);
+    expect(run.stderr).toMatch(/SondeReadError: layer file of 'relu0':.*does not have the SHA-256 its manifest lists/);
+  }, 60_000);
+});
