@@ -67,6 +67,9 @@ describe('sonde record (bad input)', () => {
     mkdirSync(join(images, 'a'), { recursive: true });
     await sharp(Buffer.alloc(16 * 16 * 3, 9), { raw: { width: 16, height: 16, channels: 3 } }).png().toFile(join(images, 'a', 'good.png'));
     writeFileSync(join(images, 'a', 'broken.png'), 'not really a png');
+    // a second category: a single-category tree adds a notice line to stderr
+    mkdirSync(join(images, 'b'));
+    await sharp(Buffer.alloc(16 * 16 * 3, 200), { raw: { width: 16, height: 16, channels: 3 } }).png().toFile(join(images, 'b', 'good.png'));
     const out = join(dir, 'o6');
     await expectFailure(['record', model, '--stimuli', images, '--out', out], 2, /cannot decode image .*broken\.png/, out);
   });
