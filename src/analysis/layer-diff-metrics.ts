@@ -30,11 +30,21 @@ export interface LayerDiffMetrics {
   channelRatio: Float64Array;
   /** Channels excluded from the ratio statistics because their baseline mean is exactly 0. */
   channelRatioExcluded: number;
-  /** Mean of channelRatio over the included channels. */
+  /**
+   * Some baseline channel mean is negative (a Conv/Gemm output before its nonlinearity, a residual
+   * stream): ratios of means near 0 or of opposite sign say nothing there, so `channelRatioMean`/`Sd`
+   * are NaN (not shown) and `fractionUp`/`fractionDown` count channel mean shifts instead (see there).
+   */
+  signed: boolean;
+  /** Mean of channelRatio over the included channels (NaN on a signed layer). */
   channelRatioMean: number;
   /** Sample sd (n − 1) of channelRatio over the included channels (NaN with fewer than 2). */
   channelRatioSd: number;
-  /** Fraction of included channels with ratio > 1 + tolerance (NaN if any included ratio is NaN). */
+  /**
+   * Fraction of included channels with ratio > 1 + tolerance (NaN if any included ratio is NaN); on a
+   * signed layer, of all channels whose mean rose by more than tolerance × the root mean square of the
+   * baseline channel means.
+   */
   fractionUp: number;
   /** Fraction of included channels with ratio < 1 − tolerance (NaN if any included ratio is NaN). */
   fractionDown: number;
@@ -136,6 +146,23 @@ export function layerDiffMetrics(m: LayerDiffMoments): LayerDiffMetrics {
     }
   }
   const effectCount = C - effectExcluded;
+  let signed = false;
+  let meanSquare = 0;
+  for (let k = 0; k < C; k++) {
+    const meanA = m.channelMeanA[k]!;
+    if (meanA < 0) signed = true;
+    meanSquare += meanA * meanA;
+  }
+  let shiftUp = 0;
+  let shiftDown = 0;
+  if (signed) {
+    const scale = m.tolerance * Math.sqrt(meanSquare / C);
+    for (let k = 0; k < C; k++) {
+      const shift = m.channelMeanB[k]! - m.channelMeanA[k]!;
+      if (shift > scale) shiftUp++;
+      else if (shift < -scale) shiftDown++;
+    }
+  }
   return {
     stimuli: N,
     elements: m.elements,
@@ -148,10 +175,11 @@ export function layerDiffMetrics(m: LayerDiffMoments): LayerDiffMetrics {
     pearson,
     channelRatio,
     channelRatioExcluded: ratioExcluded,
-    channelRatioMean: ratioCount > 0 ? ratioMean : Number.NaN,
-    channelRatioSd: ratioCount > 1 ? Math.sqrt(ratioM2 / (ratioCount - 1)) : Number.NaN,
-    fractionUp: ratioCount > 0 && !ratioNaN ? up / ratioCount : Number.NaN,
-    fractionDown: ratioCount > 0 && !ratioNaN ? down / ratioCount : Number.NaN,
+    signed,
+    channelRatioMean: ratioCount > 0 && !signed ? ratioMean : Number.NaN,
+    channelRatioSd: ratioCount > 1 && !signed ? Math.sqrt(ratioM2 / (ratioCount - 1)) : Number.NaN,
+    fractionUp: signed ? shiftUp / C : ratioCount > 0 && !ratioNaN ? up / ratioCount : Number.NaN,
+    fractionDown: signed ? shiftDown / C : ratioCount > 0 && !ratioNaN ? down / ratioCount : Number.NaN,
     channelEffectSize,
     effectSize: effectCount > 0 ? effectSum / effectCount : Number.NaN,
     effectSizeExcluded: effectExcluded,

@@ -141,6 +141,7 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
       relativeChangeMedian: metrics.relativeChangeMedian,
       cosine: metrics.cosine,
       pearson: metrics.pearson,
+      signedLayer: metrics.signed,
       channelRatioMean: metrics.channelRatioMean,
       channelRatioSd: metrics.channelRatioSd,
       fractionUp: metrics.fractionUp,

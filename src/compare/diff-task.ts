@@ -38,7 +38,7 @@ export function taskReadout(collected: CollectedTask, rule: number | 'best' | 'a
   const readout = { layer: collected.readout, kinds: collected.kinds, threshold: collected.modelThreshold };
   const n = labels.length;
   const perCategory: TaskCategory[] = [];
-  const columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number }> = [];
+  const columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number; degenerate: boolean }> = [];
   for (const category of categories) {
     const unit = readout.kinds.indexOf(category);
     const a = new Float64Array(n);
@@ -52,7 +52,16 @@ export function taskReadout(collected: CollectedTask, rule: number | 'best' | 'a
     const threshold = chooseThreshold(rule, readout.threshold, a, signal);
     const sb = detectFromScores(a, signal, threshold);
     const sm = detectFromScores(b, signal, threshold);
-    columns.push({ a, b, signal, threshold });
+    const degenerate = degenerateThreshold(sb, threshold);
+    if (degenerate) {
+      // d′ and c of a rule that answers the same for every display are set by the log-linear
+      // correction and the class sizes alone: not shown (NaN), and said why
+      for (const s of [sb, sm]) {
+        s.dPrime = Number.NaN;
+        s.criterion = Number.NaN;
+      }
+    }
+    columns.push({ a, b, signal, threshold, degenerate: degenerate !== null });
     const ci = resamples > 0 ? bootstrapChange([columns[columns.length - 1]!], resamples, `${seed}:task:${category}`) : null;
     const aucBase = rocAuc(a, signal);
     const aucMod = rocAuc(b, signal);
@@ -68,12 +77,17 @@ export function taskReadout(collected: CollectedTask, rule: number | 'best' | 'a
       change: changeOf(sb, sm),
       ci,
       auc: { base: aucBase, mod: aucMod, change: aucMod - aucBase, ci: ci ? ci.auc : null },
+      degenerate,
       matchedHitRatePp: readouts.matchedHitRatePp,
       matchedHitRateRangePp: readouts.matchedHitRateRangePp,
       criterionControl: readouts.criterionControl,
     });
   }
-  const average = (f: (s: DetectionStats) => number, side: 'base' | 'mod') => perCategory.reduce((sum, c) => sum + f(c[side]), 0) / perCategory.length;
+  // d′ and c average over the categories whose threshold is not degenerate (NaN when none is)
+  const average = (f: (s: DetectionStats) => number, side: 'base' | 'mod') => {
+    const values = perCategory.map((c) => f(c[side])).filter((v) => !Number.isNaN(v));
+    return values.length === 0 ? Number.NaN : values.reduce((sum, v) => sum + v, 0) / values.length;
+  };
   const meanStats = (side: 'base' | 'mod'): DetectionStats => ({
     hitRate: average((s) => s.hitRate, side),
     falseAlarmRate: average((s) => s.falseAlarmRate, side),
@@ -125,6 +139,19 @@ export function parseDetectionTask(taskText: string, kinds: readonly string[], p
   return categories;
 }
 
+/**
+ * Why a baseline threshold makes d′ meaningless, or null: when it answers the same for every display
+ * (hit and false-alarm rates both 0 — e.g. the accuracy-maximising threshold +∞ at low prevalence on an
+ * uninformative readout — or both 1), d′ and c come from the log-linear correction and the class sizes
+ * alone, not from the readout.
+ */
+export function degenerateThreshold(base: DetectionStats, threshold: number): string | null {
+  const t = threshold === Number.POSITIVE_INFINITY ? '+∞' : threshold === Number.NEGATIVE_INFINITY ? '−∞' : String(Number(threshold.toPrecision(4)));
+  if (base.hitRate === 0 && base.falseAlarmRate === 0) return `the baseline says "absent" to every display at threshold ${t} (hit and false-alarm rates 0)`;
+  if (base.hitRate === 1 && base.falseAlarmRate === 1) return `the baseline says "present" to every display at threshold ${t} (hit and false-alarm rates 1)`;
+  return null;
+}
+
 /** The decision threshold of a category under `rule` (see DiffOptions.threshold). */
 export function chooseThreshold(rule: number | 'best' | 'auto', modelThreshold: number | undefined, scores: Float64Array, signal: Uint8Array): number {
   if (typeof rule === 'number') return rule;
@@ -150,7 +177,7 @@ function changeOf(a: DetectionStats, b: DetectionStats): TaskCategory['change'] 
  * Paired bootstrap over stimuli of the mean change in d′, accuracy and ROC area across the given
  * categories (the ROC areas from multiplicities over one sort per column, see `rocAucWeighted`).
  */
-function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number }>, resamples: number, seed: string): TaskCategory['ci'] {
+function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; signal: Uint8Array; threshold: number; degenerate: boolean }>, resamples: number, seed: string): TaskCategory['ci'] {
   const n = columns[0]!.a.length;
   if (n < 2) return null;
   const a = new Float64Array(n);
@@ -158,6 +185,7 @@ function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; sign
   const s = new Uint8Array(n);
   const weights = new Float64Array(n);
   const orders = columns.map((column) => ({ a: rocOrder(column.a), b: rocOrder(column.b) }));
+  const usable = columns.filter((column) => !column.degenerate).length;
   const intervals: BootstrapInterval[] = bootstrapIntervals(n, (idx, out) => {
     let dp = 0;
     let acc = 0;
@@ -181,11 +209,11 @@ function bootstrapChange(columns: Array<{ a: Float64Array; b: Float64Array; sign
       }
       const sa = detectFromScores(a, s, column.threshold);
       const sb = detectFromScores(b, s, column.threshold);
-      dp += sb.dPrime - sa.dPrime;
+      if (!column.degenerate) dp += sb.dPrime - sa.dPrime;
       acc += 100 * (sb.accuracy - sa.accuracy);
       auc += rocAucWeighted(column.b, column.signal, weights, orders[k]!.b) - rocAucWeighted(column.a, column.signal, weights, orders[k]!.a);
     }
-    out[0] = dp / columns.length;
+    out[0] = usable > 0 ? dp / usable : Number.NaN;
     out[1] = acc / columns.length;
     out[2] = auc / columns.length;
   }, 3, { resamples, seed });

@@ -56,6 +56,8 @@ export interface LayerDiffRow {
   relativeChangeMedian: number;
   cosine: number;
   pearson: number;
+  /** Some baseline channel mean is negative: no channel ratio (NaN); up/down count mean shifts beyond tolerance × the RMS channel mean (`LayerDiffMetrics.signed`). */
+  signedLayer: boolean;
   channelRatioMean: number;
   channelRatioSd: number;
   fractionUp: number;
@@ -84,6 +86,8 @@ export interface TaskCategory {
   mod: DetectionStats;
   /** mod − base, in percentage points for rates and accuracy, in units for d′ and c. */
   change: { hitRatePp: number; falseAlarmRatePp: number; accuracyPp: number; dPrime: number; criterion: number };
+  /** Why d′ and c at this threshold are not shown (NaN), when the baseline answers the same for every display (`degenerateThreshold`); else null. */
+  degenerate: string | null;
   /** Bootstrap intervals over stimuli of the changes (one set of resamples for all three). */
   ci: { dPrime: [number, number]; accuracyPp: [number, number]; auc: [number, number] } | null;
   /** ROC area of the readout (threshold-free), base and mod, their difference and its bootstrap interval. */

@@ -92,6 +92,11 @@ export function verdictOf(report: DiffReport): string {
     const spread = range && range[1] - range[0] > 0.05 ? ` (range ${signed(range[0], 1)} to ${signed(range[1], 1)}: the curves rise vertically there)` : '';
     const rest = `hit rate at the baseline's false-alarm rate ${signed(task.matchedHitRatePp, 1)} pp${spread}, accuracy ${signed(task.change.accuracyPp, 1)} pp`;
     parts.push(`detection by ${task.measure === 'dprime' ? `${dPrime} (${auc})` : `${auc} (${dPrime})`}, ${rest}`);
+    const flagged = task.categories.filter((c) => c.degenerate);
+    if (flagged.length > 0) {
+      const names = flagged.length === task.categories.length ? (flagged.length === 1 ? flagged[0]!.category : `all ${flagged.length} categories`) : flagged.map((c) => c.category).join(', ');
+      parts.push(`no d′ at the fixed threshold for ${names}: ${flagged[0]!.degenerate} — read the ROC area, or pass --threshold`);
+    }
   }
   return parts.join('; ');
 }

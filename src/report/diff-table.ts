@@ -61,7 +61,7 @@ export function renderDiffReport(report: DiffReport, options: { width?: number }
       `${compact(layer.relativeChange)}${ci}`,
       logBar(layer.relativeChange, low, high),
       fixed(layer.cosine, 4),
-      `${fixed(layer.channelRatioMean)} ±${fixed(layer.channelRatioSd, 2)}`,
+      layer.signedLayer ? 'signed' : `${fixed(layer.channelRatioMean)} ±${fixed(layer.channelRatioSd, 2)}`,
       `${fixed(layer.fractionUp * 100, 0)}/${fixed(layer.fractionDown * 100, 0)}%`,
       fixed(layer.effectSize, 2),
     ];
@@ -81,7 +81,7 @@ export function renderDiffReport(report: DiffReport, options: { width?: number }
   const below = report.layers.filter((l) => l.site || l.downstream);
   const unit = report.depthUnit ?? 'recorded layers';
   lines.push(`depth profile from the site (log relative change): ${sparkline(below.map((l) => (l.relativeChange > 0 ? Math.log10(l.relativeChange) : Number.NaN)))}  rate ${fixed(report.depthProfile.rate)} per ${unit.replace(/s$/, '')} below the site, r² ${fixed(report.depthProfile.r2, 2)}`);
-  lines.push(`◆ modulation site; ratio = modulated ÷ baseline channel means (mean ± sd over channels); up/down: channels beyond ±tolerance; floor: ${report.floor.description}`);
+  lines.push(diffTableFooter(report, withSignature));
   if (report.task) {
     const taskHead = ['category', 'threshold', 'AUC', 'ΔAUC [95% CI]', 'ΔH at base F', 'hit rate', 'false alarms', "d′", 'criterion', 'accuracy', "Δd′ [95% CI]", 'Δaccuracy', narrow ? 'shift only: ΔH, Δd′' : 'criterion shift only: ΔH, Δd′'];
     const task: string[][] = [];
@@ -155,4 +155,24 @@ export function reportToJson(value: unknown): string {
 export function matchedRangeText(range: readonly [number, number] | undefined): string {
   if (!range || !(range[1] - range[0] > 0.05)) return '';
   return ` (range ${signed(range[0], 1)} to ${signed(range[1], 1)})`;
+}
+
+/**
+ * What every column of the per-layer diff table means, in one paragraph under it (wrapped to the width by
+ * the caller's fitting): depth, rel. change, profile, ratio (and "signed"), up/down, effect, the signature
+ * columns when shown, and floor.
+ */
+export function diffTableFooter(report: DiffReport, withSignature: boolean): string {
+  const parts = [
+    '◆ modulation site',
+    'depth: position among the model\'s recordable tensors',
+    'rel. change: ‖mod − base‖ / ‖base‖ [95% bootstrap interval]',
+    'profile: rel. change on a log scale',
+    'ratio: modulated ÷ baseline channel means (mean ± sd over channels); "signed": some baseline channel mean is negative, so no ratio is shown and up/down count channel mean shifts beyond ±tolerance × the RMS channel mean',
+    'up/down: channels changed beyond ±tolerance',
+    'effect: mean over channels of |Δ channel mean| ÷ its baseline sd across stimuli',
+  ];
+  if (withSignature) parts.push('slope, intercept: least-squares line of channel ratio against tuning rank (0 = most preferred; the feature-similarity-gain signature is a negative slope and an intercept above 1)', 'match: fraction of channels that do not prefer the target and are enhanced anyway (feature matching)');
+  parts.push(`floor: whether rel. change is above the noise floor (${report.floor.description}); "same file": the baseline's own file (upstream of the site)`);
+  return parts.join('; ');
 }

@@ -159,6 +159,26 @@ describe('LayerDiffAccumulator', () => {
     expect(metrics.effectSizeExcluded).toBe(0);
   });
 
+  it('LayerDiffAccumulator on a signed layer shows no channel ratio and counts mean shifts beyond tolerance × the RMS channel mean (hand-computed)', () => {
+    // 2 stimuli × 4 channels, one value each; baseline channel means −1, 2, 0.001, −3 (RMS √(14.000001 / 4) ≈ 1.8708)
+    const base = Float32Array.of(-1, 2, 0.001, -3, -1, 2, 0.001, -3);
+    // shifts +0.5, −0.01, +0.2, 0 — a ratio of means would read 0.5, 0.995, 201, 1 (the third meaningless)
+    const mod = Float32Array.of(-0.5, 1.99, 0.201, -3, -0.5, 1.99, 0.201, -3);
+    const accumulator = new LayerDiffAccumulator({ elements: 4, channels: 4, spatial: 1, tolerance: 0.01, expectedStimuli: 2 });
+    accumulator.add(base, mod, 2);
+    const metrics = accumulator.finish();
+    expect(metrics.signed).toBe(true);
+    expect(metrics.channelRatioMean).toBeNaN();
+    expect(metrics.channelRatioSd).toBeNaN();
+    // tolerance × RMS ≈ 0.0187: +0.5 and +0.2 are up, −0.01 is within, 0 is within
+    expect(metrics.fractionUp).toBe(0.5);
+    expect(metrics.fractionDown).toBe(0);
+    // a non-negative layer keeps its ratios
+    const plain = new LayerDiffAccumulator({ elements: 2, channels: 2, spatial: 1, expectedStimuli: 1 });
+    plain.add(Float32Array.of(1, 2), Float32Array.of(2, 2), 1);
+    expect(plain.finish()).toMatchObject({ signed: false, channelRatioMean: 1.5 });
+  });
+
   it('LayerDiffAccumulator.add() with spatial = 1 (vector layer) equals the direct computation', () => {
     const { base, mod } = makeLayer(2, 9, 12, 1);
     expectMatchesDirect(stream(base, mod, 9, 3, 12, 1).finish(), direct(base, mod, 9, 12, 1));

@@ -41,7 +41,8 @@ describe('diffSnapshots', () => {
     for (const layer of report.layers) {
       expect(layer.relativeChange, layer.name).toBe(0);
       expect(layer.cosine, layer.name).toBeCloseTo(1, 12);
-      expect(layer.channelRatioMean, layer.name).toBe(1);
+      // layers with a negative channel mean (conv outputs, logits) show no ratio
+      expect(layer.channelRatioMean, layer.name).toBe(layer.signedLayer ? Number.NaN : 1);
       expect(layer.fractionUp + layer.fractionDown, layer.name).toBe(0);
     }
   });
@@ -55,7 +56,7 @@ describe('diffSnapshots', () => {
     for (const layer of report.layers.filter((l) => l.belowSite >= 0)) {
       expect(Math.abs(layer.relativeChange - (g - 1)), layer.name).toBeLessThan(1e-6);
       expect(layer.cosine, layer.name).toBeCloseTo(1, 6);
-      expect(layer.channelRatioMean, layer.name).toBeCloseTo(g, 5);
+      if (!layer.signedLayer) expect(layer.channelRatioMean, layer.name).toBeCloseTo(g, 5);
     }
     // a constant relative change has rate 0: neither halves nor doubles
     expect(Math.abs(report.depthProfile.rate)).toBeLessThan(1e-5);
@@ -139,11 +140,44 @@ describe('diffSnapshots', () => {
     }
   });
 
+  it('diffSnapshots flags a threshold at which the baseline answers the same for every display: no d′ or criterion, said in the verdict', async () => {
+    const mod = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'degenerate'), modulate: spec('degenerate', { site: 'relu1', kind: 'uniform', gain: 1.2 }), from: join(dir, 'base-b'), threads: 1 });
+    // a threshold above every logit: hit and false-alarm rates 0 on the baseline (d′ would come from the correction alone)
+    const report = await diffSnapshots({ base: join(dir, 'base-b'), mod: mod.folder, task: 'detect:beta,gamma', threshold: 1e9, bootstrap: 50 });
+    const task = report.task!;
+    for (const c of task.categories) {
+      expect(c.base.hitRate + c.base.falseAlarmRate, c.category).toBe(0);
+      expect(c.degenerate, c.category).toContain('says "absent" to every display at threshold 1000000000');
+      expect(c.base.dPrime).toBeNaN();
+      expect(c.mod.criterion).toBeNaN();
+      expect(c.ci!.dPrime[0]).toBeNaN();
+      // the threshold-free read-out is unaffected
+      expect(Number.isFinite(c.auc.change)).toBe(true);
+    }
+    expect(task.change.dPrime).toBeNaN();
+    expect(report.verdict).toContain('no d′ at the fixed threshold for all 2 categories: the baseline says "absent" to every display');
+    // so is the accuracy-maximising threshold when "absent" for every display is the most accurate answer (8 of 24 show beta)
+    const best = await diffSnapshots({ base: join(dir, 'base-b'), mod: mod.folder, task: 'detect:beta', threshold: 'best', bootstrap: 0 });
+    expect(best.task!.categories[0]!.threshold).toBe(Number.POSITIVE_INFINITY);
+    expect(best.task!.categories[0]!.degenerate).toContain('at threshold +∞');
+    // a threshold inside the baseline's scores is not flagged
+    const logits = await openSnapshot(join(dir, 'base-b')).readChannelMeans('logits');
+    const beta = Array.from({ length: logits.length / 3 }, (_, i) => logits[i * 3 + 1]!).sort((x, y) => x - y);
+    const fine = await diffSnapshots({ base: join(dir, 'base-b'), mod: mod.folder, task: 'detect:beta', threshold: (beta[8]! + beta[9]!) / 2, bootstrap: 0 });
+    expect(fine.task!.categories[0]!.degenerate).toBeNull();
+    expect(Number.isFinite(fine.task!.change.dPrime)).toBe(true);
+  });
+
   it('diffSnapshots detection read-out matches hand-counted rates and d′ from @stdlib quantiles', async () => {
     const mod = await recordModulated({ model: biased, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'task'), modulate: spec('task', { site: 'relu1', kind: 'uniform', strength: 1.5 }), from: join(dir, 'base-b'), threads: 1 });
-    const report = await diffSnapshots({ base: join(dir, 'base-b'), mod: mod.folder, task: 'detect:beta', bootstrap: 0 });
+    // a threshold inside the baseline's beta logits (at the sidecar's 0 this net says "absent" to every display, which diff flags)
+    const logits = await openSnapshot(join(dir, 'base-b')).readChannelMeans('logits');
+    const beta = Array.from({ length: logits.length / 3 }, (_, i) => logits[i * 3 + 1]!).sort((x, y) => x - y);
+    const t = (beta[8]! + beta[9]!) / 2;
+    const report = await diffSnapshots({ base: join(dir, 'base-b'), mod: mod.folder, task: 'detect:beta', threshold: t, bootstrap: 0 });
     const task = report.task!;
-    expect(task.categories[0]!.threshold).toBe(0);
+    expect(task.categories[0]!.threshold).toBe(t);
+    expect(task.categories[0]!.degenerate).toBeNull();
     for (const [side, folder] of [['base', join(dir, 'base-b')], ['mod', mod.folder]] as const) {
       const snap = openSnapshot(folder);
       const scores = await snap.readChannelMeans('logits');
@@ -152,7 +186,7 @@ describe('diffSnapshots', () => {
       let fas = 0;
       let noise = 0;
       snap.stimuli.labels.forEach((labels, i) => {
-        const yes = scores[i * 3 + 1]! > 0;
+        const yes = scores[i * 3 + 1]! > t;
         if (labels.includes('beta')) {
           signal++;
           if (yes) hits++;

@@ -82,7 +82,7 @@ export function diffLayerTable(diff: DiffReport): SafeHtml {
       l.op,
       `${sci(l.relativeChange)}${interval(l.relativeChangeCi, sci)}`,
       fmt(l.cosine, 4),
-      `${fmt(l.channelRatioMean)} ± ${fmt(l.channelRatioSd, 2)}`,
+      l.signedLayer ? 'signed (no ratio)' : `${fmt(l.channelRatioMean)} ± ${fmt(l.channelRatioSd, 2)}`,
       `${pct(l.fractionUp, 0)} / ${pct(l.fractionDown, 0)}`,
       fmt(l.effectSize, 2),
     ];
