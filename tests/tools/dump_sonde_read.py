@@ -25,7 +25,7 @@ for k, folder in enumerate(folders):
     options = {} if os.path.isfile(os.path.join(folder, "export.json")) else {"engine": engine}
     rec = sonde_read.open(folder, **options)
     os.makedirs(os.path.join(out, str(k)), exist_ok=True)
-    entry = {"kind": rec.kind, "ids": rec.stimuli["id"], "labels": [list(l) for l in rec.stimuli["labels"]],
+    entry = {"kind": rec.kind, "engine": getattr(rec, "engine", None), "ids": rec.stimuli["id"], "labels": [list(l) for l in rec.stimuli["labels"]],
              "index": [int(i) for i in rec.stimuli["index"]], "layers": [], "modulated": rec.modulation is not None}
     for j, layer in enumerate(rec.layers):
         name = layer["name"]

@@ -24,6 +24,8 @@ const probe = spawnSync(PYTHON, ['-c', 'import numpy'], { encoding: 'utf8' });
 const hasNumpy = probe.status === 0;
 if (!hasNumpy) console.warn(`sonde-read tests skipped: ${PYTHON} with NumPy is not available (apt-get install python3-numpy python3-xarray)`);
 const hasXarray = hasNumpy && spawnSync(PYTHON, ['-c', 'import xarray'], { encoding: 'utf8' }).status === 0;
+/** A Python with NumPy and pyarrow for the pyarrow engine (not packaged for Debian 12: CI skips it; SONDE_PYARROW_PYTHON names one). */
+const pyarrowPython = [process.env['SONDE_PYARROW_PYTHON'], PYTHON].find((p) => p !== undefined && p !== '' && spawnSync(p, ['-c', 'import numpy, pyarrow']).status === 0);
 
 let dir: string;
 let folders: string[];
@@ -32,6 +34,7 @@ interface Dumped {
   xarray: boolean;
   folders: Array<{
     kind: string;
+    engine: string | null;
     ids: string[];
     labels: string[][];
     index: number[];
@@ -40,10 +43,45 @@ interface Dumped {
   }>;
 }
 
-function runDump(engine: string, inputs: string[]): { out: string; status: number | null; stderr: string } {
+function runDump(engine: string, inputs: string[], python = PYTHON): { out: string; status: number | null; stderr: string } {
   const out = tempFolder('sonde-py-');
-  const result = spawnSync(PYTHON, [SCRIPT, out, engine, ...inputs], { encoding: 'utf8' });
+  const result = spawnSync(python, [SCRIPT, out, engine, ...inputs], { encoding: 'utf8' });
   return { out, status: result.status, stderr: result.stderr };
+}
+
+async function expectSameAsSonde(run: { out: string; status: number | null; stderr: string }): Promise<void> {
+  expect(run.status, run.stderr).toBe(0);
+  const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
+  const sources = ['base', 'mod', 'half', 'means', 'mod']; // the export reads as the snapshot it came from
+  for (let k = 0; k < folders.length; k++) {
+    const snap = openSnapshot(join(dir, sources[k]!));
+    const got = dumped.folders[k]!;
+    expect(got.kind).toBe(k === 4 ? 'export' : 'snapshot');
+    expect(got.ids).toEqual(snap.stimuli.ids);
+    expect(got.labels).toEqual(snap.stimuli.labels);
+    expect(got.index).toEqual(snap.stimuli.ids.map((_, i) => snap.firstIndex + i));
+    expect(got.modulated).toBe(snap.manifest.modulation !== null);
+    expect(got.layers.map((l) => l.name)).toEqual(snap.manifest.layers.map((l) => l.name));
+    for (let j = 0; j < got.layers.length; j++) {
+      const entry = snap.manifest.layers[j]!;
+      const layer = got.layers[j]!;
+      expect(layer.source).toBe(entry.from === 'baseline' ? 'baseline' : 'snapshot');
+      expect(layer.meansDtype).toBe('float32');
+      const means = parseNpy(readFileSync(join(run.out, String(k), `${j}.means.npy`))).data as Float32Array;
+      expect(Buffer.compare(Buffer.from(means.buffer), Buffer.from((await snap.readChannelMeans(entry.name)).buffer)), `${sources[k]} ${entry.name} means`).toBe(0);
+      if (entry.keep === 'channels') {
+        expect(layer.dtype).toBeUndefined();
+        continue;
+      }
+      expect(layer.dtype).toBe(entry.dtype);
+      expect(layer.shape).toEqual([snap.manifest.stimuli.count, ...entry.shape]);
+      if (k === 4) expect(layer.memmap).toBe(true); // exports are memory-mapped
+      const acts = parseNpy(readFileSync(join(run.out, String(k), `${j}.acts.npy`))).data as Float32Array;
+      const expected: number[] = [];
+      for await (const batch of snap.readLayer(entry.name)) for (const v of batch.activation!) expected.push(v);
+      expect(Buffer.compare(Buffer.from(acts.buffer), Buffer.from(Float32Array.from(expected).buffer)), `${sources[k]} ${entry.name}`).toBe(0);
+    }
+  }
 }
 
 beforeAll(async () => {
@@ -64,39 +102,14 @@ beforeAll(async () => {
 
 describe.skipIf(!hasNumpy)('sonde_read.py', () => {
   it('sonde_read.open returns the values, stimuli and label sets openSnapshot reads, for baseline, modulated, float16, channel-means-only snapshots and an export', async () => {
-    const run = runDump('numpy', folders);
-    expect(run.status, run.stderr).toBe(0);
+    await expectSameAsSonde(runDump('numpy', folders));
+  }, 60_000);
+
+  it.skipIf(pyarrowPython === undefined)('sonde_read.open with engine pyarrow returns the values openSnapshot reads (run only where pyarrow is installed)', async () => {
+    const run = runDump('pyarrow', folders, pyarrowPython);
+    await expectSameAsSonde(run);
     const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
-    const sources = ['base', 'mod', 'half', 'means', 'mod']; // the export reads as the snapshot it came from
-    for (let k = 0; k < folders.length; k++) {
-      const snap = openSnapshot(join(dir, sources[k]!));
-      const got = dumped.folders[k]!;
-      expect(got.kind).toBe(k === 4 ? 'export' : 'snapshot');
-      expect(got.ids).toEqual(snap.stimuli.ids);
-      expect(got.labels).toEqual(snap.stimuli.labels);
-      expect(got.index).toEqual(snap.stimuli.ids.map((_, i) => snap.firstIndex + i));
-      expect(got.modulated).toBe(snap.manifest.modulation !== null);
-      expect(got.layers.map((l) => l.name)).toEqual(snap.manifest.layers.map((l) => l.name));
-      for (let j = 0; j < got.layers.length; j++) {
-        const entry = snap.manifest.layers[j]!;
-        const layer = got.layers[j]!;
-        expect(layer.source).toBe(entry.from === 'baseline' ? 'baseline' : 'snapshot');
-        expect(layer.meansDtype).toBe('float32');
-        const means = parseNpy(readFileSync(join(run.out, String(k), `${j}.means.npy`))).data as Float32Array;
-        expect(Buffer.compare(Buffer.from(means.buffer), Buffer.from((await snap.readChannelMeans(entry.name)).buffer)), `${sources[k]} ${entry.name} means`).toBe(0);
-        if (entry.keep === 'channels') {
-          expect(layer.dtype).toBeUndefined();
-          continue;
-        }
-        expect(layer.dtype).toBe(entry.dtype);
-        expect(layer.shape).toEqual([snap.manifest.stimuli.count, ...entry.shape]);
-        if (k === 4) expect(layer.memmap).toBe(true); // exports are memory-mapped
-        const acts = parseNpy(readFileSync(join(run.out, String(k), `${j}.acts.npy`))).data as Float32Array;
-        const expected: number[] = [];
-        for await (const batch of snap.readLayer(entry.name)) for (const v of batch.activation!) expected.push(v);
-        expect(Buffer.compare(Buffer.from(acts.buffer), Buffer.from(Float32Array.from(expected).buffer)), `${sources[k]} ${entry.name}`).toBe(0);
-      }
-    }
+    expect(dumped.folders.map((f) => f.engine)).toEqual(['pyarrow', 'pyarrow', 'pyarrow', 'pyarrow', null]);
   }, 60_000);
 
   it.skipIf(!hasXarray)('sonde_read dataarray labels the stimulus axis with index, id and label set, and names the axes stimulus, channel, y, x', () => {
