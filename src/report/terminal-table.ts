@@ -90,11 +90,13 @@ export function fitTable(head: readonly string[], rows: readonly (readonly strin
 export function wrapText(text: string, width: number, indent = ''): string {
   const out: string[] = [];
   for (const paragraph of text.split('\n')) {
-    const words = paragraph.split(' ');
-    let line = '';
+    // the paragraph's own leading spaces (a bullet's indent) are kept on its first line
+    const lead = /^ */.exec(paragraph)![0];
+    const words = paragraph.slice(lead.length).split(' ');
+    let line = lead;
     for (const word of words) {
-      const candidate = line.length === 0 ? word : `${line} ${word}`;
-      if (line.length > 0 && stringWidth(candidate) > width) {
+      const candidate = line.trim().length === 0 ? `${line}${word}` : `${line} ${word}`;
+      if (line.trim().length > 0 && stringWidth(candidate) > width) {
         out.push(line);
         line = `${indent}${word}`;
       } else {

@@ -2,7 +2,8 @@ import type { Command } from 'commander';
 import { displayPath } from '../../record/record-snapshot.js';
 import { runDemo } from '../../demo/demo.js';
 import { nonNegativeInteger } from '../options.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
+import { renderDemoSummary } from '../../demo/demo-summary.js';
 
 /** `sonde demo`: the whole job on the built-in demo network. */
 export function registerDemo(program: Command): void {
@@ -24,9 +25,6 @@ export function registerDemo(program: Command): void {
         ...(opts.quick ? { quick: true } : {}),
         onStep: (step) => io.stderr(`[${++steps}] ${step} (${((performance.now() - started) / 1000).toFixed(1)} s)\n`),
       });
-      io.stdout(`\nSonde demo — ${result.sites.length} sites, ${result.sweep.cells.length} sweep cells, ${((performance.now() - started) / 1000).toFixed(1)} s\n`);
-      for (const line of result.summary) io.stdout(`  • ${line}\n`);
-      io.stdout(`\nreport: ${displayPath(result.files.report!)}\nsnapshots and tables: ${displayPath(result.folder)}\n`);
-      io.stdout('These figures describe a small trained network on synthetic displays, not a brain; see "What this does not show" in README.md.\n');
+      io.stdout(`\n${renderDemoSummary(result, { width: outputColumns(), seconds: (performance.now() - started) / 1000, reportPath: displayPath(result.files.report!), folderPath: displayPath(result.folder) })}`);
     });
 }

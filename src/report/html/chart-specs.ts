@@ -212,3 +212,38 @@ export function depthLinesSpec(values: readonly DepthValue[], options: { yDomain
     ],
   };
 }
+
+/** One row of the forest plot: a scheme at a site with its interval. */
+export interface ForestRow {
+  /** Row label (site · scheme), unique. */
+  row: string;
+  /** The site as the page names it (short label), for the colour-free grouping. */
+  site: string;
+  scheme: string;
+  estimate: number;
+  low: number;
+  high: number;
+}
+
+/**
+ * Forest plot of the size-matched comparison: one row per site × scheme, the held-out ΔAUC as a point
+ * with its 95 % interval as a bar, a solid line at zero (no change); colours per scheme as elsewhere.
+ * @param rows the rows, in display order (top first).
+ * @param schemes scheme order (colours).
+ */
+export function forestSpec(rows: readonly ForestRow[], schemes: readonly string[]): TopLevelSpec {
+  const values = rows.map((r) => ({ ...r, estimate: Number.isFinite(r.estimate) ? r.estimate : null, low: Number.isFinite(r.low) ? r.low : null, high: Number.isFinite(r.high) ? r.high : null }));
+  const y = { field: 'row', type: 'nominal', sort: rows.map((r) => r.row), title: null, axis: { labelLimit: 260 } } as const;
+  const color = { field: 'scheme', type: 'nominal', scale: { domain: [...schemes], range: schemeColours(schemes) }, legend: { title: 'scheme', orient: 'bottom', direction: 'horizontal' } } as const;
+  return {
+    width: 360,
+    height: { step: 22 },
+    config: CONFIG,
+    data: { values },
+    layer: [
+      { mark: { type: 'rule', color: '#333', strokeWidth: 1.2 }, encoding: { x: { datum: 0, type: 'quantitative' } } },
+      { mark: { type: 'rule', strokeWidth: 2.5 }, encoding: { y, x: { field: 'low', type: 'quantitative', title: 'held-out ΔAUC (95 % interval); 0 = no change' }, x2: { field: 'high' }, color } },
+      { mark: { type: 'point', filled: true, size: 60, opacity: 1 }, encoding: { y, x: { field: 'estimate', type: 'quantitative' }, color } },
+    ],
+  };
+}

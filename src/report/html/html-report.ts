@@ -11,12 +11,14 @@
  *   profiles (with `--depth-profile` sweeps); calibration;
  * - tuning–sensitivity agreement against depth; tuning across depth.
  */
+import { dirname, isAbsolute, relative, resolve } from 'node:path';
 import { replaceFile } from '../../disk/atomic-file.js';
 import { assertOutFileWritable } from '../../outputs/output-file.js';
 import { RuntimeFailure, UsageError } from '../../errors.js';
 import { TOOL_VERSION } from '../../version.js';
 import type { DiffReport } from '../../compare/diff-types.js';
 import type { SweepResult } from '../../replay/sweep-types.js';
+import type { SizeMatchedComparison } from '../../replay/size-matched.js';
 import { agreementData, propagationMatrix, relativeChangeData, runLabel, taskCurves, tuningData, uniqueLabels } from './chart-data.js';
 import { depthLinesSpec, depthProfileSpec, PALETTE, propagationMatrixSpec, relativeChangeSpec, taskCurveSpec } from './chart-specs.js';
 import { classifyReportInput, num, readReportInput, type ReportInput } from './inputs.js';
@@ -25,6 +27,9 @@ import { renderPage, type PageSection } from './page.js';
 import { renderSvg } from './render-svg.js';
 import { describeSizeMatched, sizeMatchedSection } from './size-matched-section.js';
 import type { TopLevelSpec } from 'vega-lite';
+import { CAVEAT_LINE, diffHeadline, sizeMatchedHeadline, sweepHeadline, type Headline } from '../headline.js';
+import { shortLayerLabels } from '../layer-labels.js';
+import { forestSpec } from './chart-specs.js';
 import { agreementTable, bestCellsTable, calibrationTable, comparisonTable, diffLayerTable, diffSummaryTable, fmt, measureWords, pct, sci, sgn, sweepMeasureOf, sweepTaskTable, taskTable, tuningTable } from './tables.js';
 
 /** Options of `renderHtmlReport`. */
@@ -33,6 +38,8 @@ export interface RenderReportOptions {
   title?: string;
   /** Names shown for inputs that are objects rather than paths (default `input 1`, `input 2`, …). */
   names?: readonly string[];
+  /** Folder that paths in the page are shown relative to (default: the working folder; `writeHtmlReport`: the report's folder). */
+  relativeTo?: string;
 }
 
 /** Options of `writeHtmlReport`. */
@@ -82,35 +89,44 @@ function row(...blocks: HtmlValue[]): SafeHtml {
   return html`<div class="tables">${blocks.map((b) => html`<div>${b}</div>`)}</div>`;
 }
 
-function describe(input: ReportInput): string {
+/** A path as the page shows it: relative to `base` when it is absolute (the page may move with its folder). */
+function shownPath(path: unknown, base: string): string {
+  if (typeof path !== 'string') return '?';
+  if (!isAbsolute(path)) return path;
+  const rel = relative(base, path);
+  return rel === '' ? '.' : rel;
+}
+
+function describe(input: ReportInput, base: string): string {
+  const shown = (p: unknown) => shownPath(p, base);
   switch (input.kind) {
     case 'diff': {
       const d = input.diff;
-      return `${d.base?.folder ?? '?'} → ${d.mod?.folder ?? '?'}; site ${d.sites.join(', ') || 'none recorded'}; ${fmt(d.stimuli, 0)} stimuli; ${runLabel(d)}`;
+      return `${shown(d.base?.folder)} → ${shown(d.mod?.folder)}; site ${d.sites.join(', ') || 'none recorded'}; ${fmt(d.stimuli, 0)} stimuli; ${runLabel(d)}`;
     }
     case 'comparison': {
       const c = input.comparison;
-      return `A ${c.a.mod?.folder ?? '?'} vs B ${c.b.mod?.folder ?? '?'}, both against ${c.a.base?.folder ?? '?'}`;
+      return `A ${shown(c.a.mod?.folder)} vs B ${shown(c.b.mod?.folder)}, both against ${shown(c.a.base?.folder)}`;
     }
     case 'sweep': {
       const s = input.sweep;
       const strengths = s.strengths.map(num).filter(Number.isFinite);
       const range = strengths.length > 0 ? `${Math.min(...strengths)}–${Math.max(...strengths)}` : '–';
-      return `model ${s.model?.file ?? '?'}; baseline ${s.baseline ?? '?'}; ${s.sites.length} sites × schemes ${s.schemes.join(', ')} × ${s.strengths.length} strengths (${range}) × ${(s.categories ?? []).length} cued categories; ${s.cells.length} cells`;
+      return `model ${shown(s.model?.file)}; baseline ${shown(s.baseline)}; ${s.sites.length} sites × schemes ${s.schemes.join(', ')} × ${s.strengths.length} strengths (${range}) × ${(s.categories ?? []).length} cued categories; ${s.cells.length} cells`;
     }
     case 'size-matched':
-      return describeSizeMatched(input.comparison);
+      return describeSizeMatched({ ...input.comparison, fitSet: shown(input.comparison.fitSet), heldOutSet: shown(input.comparison.heldOutSet) });
     case 'agreement':
       return `${input.agreement.layers.length} layers; categories ${input.agreement.categories.join(', ')}`;
     case 'tuning':
-      return `${input.tuning.snapshot ? `snapshot ${input.tuning.snapshot}; ` : ''}${input.tuning.layers.length} layers${input.tuning.categories ? `; categories ${input.tuning.categories.join(', ')}` : ''}`;
+      return `${input.tuning.snapshot ? `snapshot ${shown(input.tuning.snapshot)}; ` : ''}${input.tuning.layers.length} layers${input.tuning.categories ? `; categories ${input.tuning.categories.join(', ')}` : ''}`;
   }
 }
 
 const KIND_NAMES: Readonly<Record<ReportInput['kind'], string>> = { diff: 'diff', comparison: 'scheme comparison', sweep: 'sweep', 'size-matched': 'size-matched comparison', agreement: 'tuning–sensitivity agreement', tuning: 'tuning summary' };
 
-function inputsTable(inputs: readonly ReportInput[]): SafeHtml {
-  const rows = inputs.map((i) => html`<tr><td class="name">${i.name}</td><td>${KIND_NAMES[i.kind]}</td><td>${describe(i)}</td></tr>`);
+function inputsTable(inputs: readonly ReportInput[], base: string): SafeHtml {
+  const rows = inputs.map((i) => html`<tr><td class="name">${i.name}</td><td>${KIND_NAMES[i.kind]}</td><td>${describe(i, base)}</td></tr>`);
   return html`<div class="table-wrap"><table class="inputs"><thead><tr><th>input</th><th>kind</th><th>what was compared</th></tr></thead><tbody>${rows}</tbody></table></div>`;
 }
 
@@ -249,6 +265,38 @@ function verdictSection(inputs: readonly ReportInput[], runs: ReturnType<typeof 
   return { id: 'verdicts', heading: 'Verdicts', body: html`<ul class="verdicts">${lines}</ul>` };
 }
 
+/** Every layer and site name the inputs mention, for one set of short labels across the page. */
+function namesOf(inputs: readonly ReportInput[], runs: ReturnType<typeof diffRuns>): string[] {
+  const names = new Set<string>();
+  for (const r of runs) for (const l of r.diff.layers) names.add(l.name);
+  for (const i of inputs) {
+    if (i.kind === 'size-matched') for (const e of i.comparison.effects) for (const site of e.site.split('+')) names.add(site);
+    if (i.kind === 'sweep') for (const site of i.sweep.sites) names.add(site);
+    if (i.kind === 'agreement') for (const l of i.agreement.layers) names.add(l.layer);
+  }
+  return [...names];
+}
+
+/** The headline block: from the first size-matched comparison, else the first diff, else the first sweep. */
+function headlineBlock(inputs: readonly ReportInput[], runs: ReturnType<typeof diffRuns>, short: (name: string) => string): SafeHtml | null {
+  const sizeMatched = inputs.find((i): i is Extract<ReportInput, { kind: 'size-matched' }> => i.kind === 'size-matched');
+  const sweep = inputs.find((i): i is Extract<ReportInput, { kind: 'sweep' }> => i.kind === 'sweep');
+  let headline: Headline | null = null;
+  if (sizeMatched) headline = sizeMatchedHeadline(sizeMatched.comparison, short);
+  else if (runs.length > 0) headline = diffHeadline(runs[0]!.diff, short);
+  else if (sweep) headline = sweepHeadline(sweep.sweep, short);
+  if (!headline) return null;
+  return html`<div class="headline" id="headline"><p>${headline.sentences.join(' ')}</p><p class="caveat-line">${CAVEAT_LINE} <a href="#caveat">What these results are</a></p></div>`;
+}
+
+/** The forest plot of one size-matched comparison. */
+async function forestFigure(c: SizeMatchedComparison, short: (name: string) => string, charts: ChartRenderer): Promise<SafeHtml> {
+  const siteOf = (site: string) => (site.includes('+') ? `all ${site.split('+').length} sites` : short(site));
+  const rows = c.effects.map((e) => ({ row: `${siteOf(e.site)} · ${e.scheme}`, site: siteOf(e.site), scheme: e.scheme, estimate: e.aucChange.estimate, low: e.aucChange.low, high: e.aucChange.high }));
+  const schemes = [...new Set(c.effects.map((e) => e.scheme))];
+  return charts.figure(forestSpec(rows, schemes), `Held-out change in ROC area of every scheme at ${pct(c.size, 0)} modulation size: point = mean over ${c.categories.length} cued categories, bar = 95 % bootstrap interval over the held-out stimuli; the vertical line is no change. A scheme helps detection only where its bar lies right of the line; compare it with the shuffled row of its site (same gains, permuted) and the ceiling (fitted gain of the same size).`);
+}
+
 function classifyAll(inputs: readonly unknown[], names: readonly string[] | undefined): ReportInput[] {
   return inputs.flatMap((value, i) => (typeof value === 'string' ? readReportInput(value) : classifyReportInput(value, names?.[i] ?? `input ${i + 1}`)));
 }
@@ -266,11 +314,16 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   const classified = classifyAll(inputs, options.names);
   const charts = new ChartRenderer();
   const runs = diffRuns(classified);
+  const labels = shortLayerLabels(namesOf(classified, runs));
+  const short = (name: string) => labels.get(name) ?? name;
   const sections: PageSection[] = [];
+  const sizeMatchedInputs = classified.filter((i): i is Extract<ReportInput, { kind: 'size-matched' }> => i.kind === 'size-matched');
+  const forests: SafeHtml[] = [];
+  for (const input of sizeMatchedInputs) forests.push(await forestFigure(input.comparison, short, charts));
+  const sizeMatched = sizeMatchedSection(sizeMatchedInputs, forests, short);
+  if (sizeMatched) sections.push(sizeMatched);
   const verdicts = verdictSection(classified, runs);
   if (verdicts) sections.push(verdicts);
-  const sizeMatched = sizeMatchedSection(classified.filter((i): i is Extract<ReportInput, { kind: 'size-matched' }> => i.kind === 'size-matched'));
-  if (sizeMatched) sections.push(sizeMatched);
   if (runs.length > 0) sections.push(await propagationSection(runs, charts));
   const task = taskSection(runs);
   if (task) sections.push(task);
@@ -284,7 +337,8 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   if (tuning) sections.push(tuning);
   const title = options.title ?? 'Sonde report';
   const counts = Object.entries(classified.reduce<Record<string, number>>((acc, i) => ({ ...acc, [KIND_NAMES[i.kind]]: (acc[KIND_NAMES[i.kind]] ?? 0) + 1 }), {})).map(([k, n]) => `${n} ${k}${n > 1 ? (k.endsWith('y') ? '' : 's') : ''}`);
-  const text = renderPage({ title, subtitle: `Sonde ${TOOL_VERSION} · ${counts.join(', ')} · ${charts.count} charts`, inputs: inputsTable(classified), sections });
+  const base = resolve(options.relativeTo ?? '.');
+  const text = renderPage({ title, subtitle: `Sonde ${TOOL_VERSION} · ${counts.join(', ')} · ${charts.count} charts`, inputs: inputsTable(classified, base), sections, headline: headlineBlock(classified, runs, short) });
   return { html: text, inputs: classified.map((i) => ({ name: i.name, kind: i.kind })), sections: sections.map((s) => s.heading), charts: charts.count, warnings: charts.warnings };
 }
 
@@ -308,7 +362,7 @@ export async function renderHtmlReport(inputs: readonly unknown[], options: Rend
  */
 export async function writeHtmlReport(options: WriteReportOptions): Promise<Omit<HtmlReport, 'html'> & { path: string; bytes: number }> {
   assertOutFileWritable(options.out, { force: options.force ?? false, inputs: options.inputs.map((input, i) => ({ option: `input ${i + 1}`, path: typeof input === 'string' ? input : null })) });
-  const { html: text, ...rest } = await buildHtmlReport(options.inputs, options);
+  const { html: text, ...rest } = await buildHtmlReport(options.inputs, { relativeTo: dirname(resolve(options.out)), ...options });
   try {
     // a temporary file renamed over the target: a failed write leaves an earlier report as it was
     replaceFile(options.out, text);

@@ -1,6 +1,8 @@
 /**
  * The page around the report's sections: document head with inline CSS (system fonts, no external
- * resources), header, table of contents, caveat, and the definitions footer. Pure text assembly.
+ * resources), header with the headline (what was found, and the caveat in one line linking to the full
+ * one), table of contents, the sections, the full caveat, the inputs, and the definitions footer. Below
+ * 700 px the margins shrink and charts keep their size, scrolling inside their own box. Pure text assembly.
  */
 import { html, SafeHtml } from './markup.js';
 
@@ -35,6 +37,22 @@ h3 { font-size: 14.5px; margin: 18px 0 8px; }
 figure { margin: 0; }
 figcaption { color: var(--muted); font-size: 12.5px; max-width: 640px; margin-top: 6px; }
 svg.marks { max-width: 100%; height: auto; display: block; }
+.headline { background: var(--paper); border: 1px solid var(--line); border-left: 5px solid var(--accent); border-radius: 8px; padding: 12px 18px; margin: 14px 0 6px; }
+.headline p { margin: 0 0 6px; font-size: 16px; line-height: 1.5; max-width: 1000px; }
+.headline p.caveat-line { font-size: 13px; color: var(--muted); margin: 0; }
+.headline a { color: var(--accent); }
+figure.chart { max-width: 100%; overflow-x: auto; }
+.pictures { display: flex; flex-wrap: wrap; gap: 12px 22px; align-items: flex-start; }
+.pictures figure { margin: 0; }
+img.raster { image-rendering: pixelated; display: block; border: 1px solid var(--line); }
+@media (max-width: 700px) {
+  main { padding: 12px 8px 30px; }
+  section { padding: 12px 10px 14px; }
+  header h1 { font-size: 20px; }
+  /* charts keep a readable text size and scroll inside their own box instead of shrinking to ~3 px text */
+  figure.chart svg.marks { max-width: none; }
+  .headline p { font-size: 15px; }
+}
 .table-wrap { overflow-x: auto; margin-bottom: 10px; }
 table { border-collapse: collapse; font-size: 12.5px; font-variant-numeric: tabular-nums; }
 caption { caption-side: bottom; text-align: left; color: var(--muted); font-size: 12px; padding-top: 6px; }
@@ -73,7 +91,7 @@ const DEFINITIONS: ReadonlyArray<[string, string]> = [
  * @param options title, a subtitle line, the header's inputs table, and the sections in order.
  * @returns the HTML document text.
  */
-export function renderPage(options: { title: string; subtitle: string; inputs: SafeHtml; sections: readonly PageSection[] }): string {
+export function renderPage(options: { title: string; subtitle: string; inputs: SafeHtml; sections: readonly PageSection[]; headline?: SafeHtml | null }): string {
   const nav = options.sections.map((s) => html`<a href="#${s.id}">${s.heading}</a>`);
   const sections = options.sections.map((s) => html`<section id="${s.id}"><h2>${s.heading}</h2>${s.body}</section>`);
   const definitions = DEFINITIONS.map(([term, text]) => html`<dt>${term}</dt><dd>${text}</dd>`);
@@ -90,11 +108,12 @@ export function renderPage(options: { title: string; subtitle: string; inputs: S
 <header>
 <h1>${options.title}</h1>
 <p class="sub">${options.subtitle}</p>
-${options.inputs}
-<nav>${nav}</nav>
+${options.headline ?? ''}
+<nav>${nav}<a href="#inputs">Inputs</a></nav>
 </header>
-<section class="caveat" id="caveat"><h2>What these results are</h2><p>${CAVEAT}</p></section>
 ${sections}
+<section class="caveat" id="caveat"><h2>What these results are</h2><p>${CAVEAT}</p></section>
+<section id="inputs"><h2>Inputs</h2>${options.inputs}</section>
 <section><footer><h2>Definitions</h2><dl>${definitions}</dl></footer></section>
 </main>
 </body>

@@ -30,18 +30,24 @@ export function describeSizeMatched(c: SizeMatchedComparison): string {
   return `${c.heldOut ? 'held out' : 'not held out'}: gains from ${c.fitSet}, detection on ${c.heldOutSet}; site modulation ${pct(c.size)}; ${c.categories.length} cued categories; ${c.effects.length} scheme rows`;
 }
 
-/** The section: a lead, the table, and the tuning-vs-shuffled intervals. */
-export function sizeMatchedSection(list: ReadonlyArray<{ name: string; comparison: SizeMatchedComparison }>): PageSection | null {
+/**
+ * The section: a lead, per comparison its forest plot (when given), the table, and the tuning-vs-shuffled
+ * intervals.
+ * @param list the comparisons and their names.
+ * @param figures one rendered forest plot per comparison, in the same order (optional).
+ * @param short how a site is named in the table (default: as it is; the full name is in the cell's title).
+ */
+export function sizeMatchedSection(list: ReadonlyArray<{ name: string; comparison: SizeMatchedComparison }>, figures: readonly SafeHtml[] = [], short: (site: string) => string = (s) => s): PageSection | null {
   if (list.length === 0) return null;
-  const parts = list.map(({ name, comparison: c }) => {
+  const parts = list.map(({ name, comparison: c }, index) => {
     const head = ['site', 'scheme', 'size', 'ΔAUC [95 % CI]', 'of ceiling', 'Δhit, fixed threshold', 'Δhit, shift alone', 'Δfalse alarms', 'ceiling, fitting set'];
     const rows = c.effects.map(
       (e) =>
-        html`<tr><td title="${e.site.split('+').join(', ')}">${siteName(e.site)}</td><td>${e.scheme}</td><td${NUM}>${pct(e.size)}</td><td${NUM}>${interval(e.aucChange)}</td><td${NUM}>${e.fractionOfCeiling === null ? '–' : pct(e.fractionOfCeiling, 0)}</td><td${NUM}>${sgn(e.hitRatePp, 1)} pp</td><td${NUM}>${sgn(e.criterionShiftHitRatePp, 1)} pp</td><td${NUM}>${sgn(e.falseAlarmRatePp, 1)} pp</td><td${NUM}>${e.fitSetAucChange === null || e.fitSetAucChange === undefined ? '–' : sgn(e.fitSetAucChange, 3)}</td></tr>`,
+        html`<tr><td title="${e.site.split('+').join(', ')}">${e.site.includes('+') ? siteName(e.site) : short(e.site)}</td><td>${e.scheme}</td><td${NUM}>${pct(e.size)}</td><td${NUM}>${interval(e.aucChange)}</td><td${NUM}>${e.fractionOfCeiling === null ? '–' : pct(e.fractionOfCeiling, 0)}</td><td${NUM}>${sgn(e.hitRatePp, 1)} pp</td><td${NUM}>${sgn(e.criterionShiftHitRatePp, 1)} pp</td><td${NUM}>${sgn(e.falseAlarmRatePp, 1)} pp</td><td${NUM}>${e.fitSetAucChange === null || e.fitSetAucChange === undefined ? '–' : sgn(e.fitSetAucChange, 3)}</td></tr>`,
     );
     const notes = severalSiteNotes(c.effects.map((e) => e.site)).map((line) => html`<p class="note">${line}</p>`);
-    const shuffled = c.versusShuffled.map((v) => html`<li>${siteName(v.site)}: ${v.site.includes('+') ? 'tuning-all − shuffled-all' : 'tuning − shuffled'} ΔAUC ${interval(v.difference)}</li>`);
-    return html`${list.length > 1 ? html`<h3>${name}</h3>` : ''}<p class="note">Unmodulated held-out ROC area ${fmt(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories); ${fmt(c.resamples, 0)} bootstrap resamples of the held-out stimuli, the same for every row.</p><div class="table-wrap"><table><thead><tr>${head.map((h, i) => html`<th${i >= 2 ? NUM : new SafeHtml('')}>${h}</th>`)}</tr></thead><tbody>${rows}</tbody></table></div>${notes}<ul class="verdicts">${shuffled}</ul>`;
+    const shuffled = c.versusShuffled.map((v) => html`<li>${v.site.includes('+') ? siteName(v.site) : short(v.site)}: ${v.site.includes('+') ? 'tuning-all − shuffled-all' : 'tuning − shuffled'} ΔAUC ${interval(v.difference)}</li>`);
+    return html`${list.length > 1 ? html`<h3>${name}</h3>` : ''}${figures[index] ?? ''}<p class="note">Unmodulated held-out ROC area ${fmt(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories); ${fmt(c.resamples, 0)} bootstrap resamples of the held-out stimuli, the same for every row.</p><div class="table-wrap"><table><thead><tr>${head.map((h, i) => html`<th${i >= 2 ? NUM : new SafeHtml('')}>${h}</th>`)}</tr></thead><tbody>${rows}</tbody></table></div>${notes}<ul class="verdicts">${shuffled}</ul>`;
   });
   return {
     id: 'size-matched',

@@ -9,6 +9,19 @@ import type { SweepResult } from '../../replay/sweep-types.js';
 import type { TaskCurvePoint } from './chart-data.js';
 import { num, type TuningSummaries } from './inputs.js';
 import { html, SafeHtml, type HtmlValue } from './markup.js';
+import { shortLayerLabels } from '../layer-labels.js';
+
+/** A short layer label with the full tensor name on hover (`title`); the full name alone when they agree. */
+export function layerCell(name: string, labels: ReadonlyMap<string, string>): HtmlValue {
+  const label = labels.get(name) ?? name;
+  return label === name ? name : html`<span title="${name}">${label}</span>`;
+}
+
+/** Short labels for a list of names, and a cell function using them. */
+function labelled(names: readonly string[]): (name: string) => HtmlValue {
+  const labels = shortLayerLabels(names);
+  return (name) => layerCell(name, labels);
+}
 
 /** Fixed-point number, "–" for null/NaN, "∞" for infinities. */
 export function fmt(value: unknown, digits = 3): string {
@@ -75,10 +88,18 @@ export function diffLayerTable(diff: DiffReport): SafeHtml {
   const head = ['depth', 'layer', 'op', 'relative change [95 % CI]', 'cosine', 'channel ratio', 'up / down', 'effect size'];
   if (withSignature) head.push('signature slope');
   head.push('vs floor');
-  const rows: Row[] = diff.layers.map((l) => {
+  const cell = labelled(diff.layers.map((l) => l.name));
+  // unchanged layers above the site (the baseline's own files, or no change) are folded into one row
+  const above = (l: DiffReport['layers'][number]) => !l.site && !(l.downstream ?? num(l.belowSite) > 0) && (l.unchanged || num(l.relativeChange) === 0);
+  const folded = diff.layers.filter(above);
+  const foldRow: Row[] = folded.length > 1
+    ? [{ cells: [`${fmt(folded[0]!.depth, 0)}–${fmt(folded[folded.length - 1]!.depth, 0)}`, html`<span title="${folded.map((l) => l.name).join(', ')}">${folded.length} layers above the site</span>`, '', '0', '', '', '', '', ...(withSignature ? [''] : []), folded.every((l) => l.unchanged) ? 'same file' : 'unchanged'] }]
+    : [];
+  const shown = folded.length > 1 ? diff.layers.filter((l) => !above(l)) : diff.layers;
+  const rows: Row[] = [...foldRow, ...shown.map((l) => {
     const cells: HtmlValue[] = [
       `${fmt(l.depth, 0)}${l.site ? ' ◆' : ''}`,
-      l.name,
+      cell(l.name),
       l.op,
       `${sci(l.relativeChange)}${interval(l.relativeChangeCi, sci)}`,
       fmt(l.cosine, 4),
@@ -88,8 +109,8 @@ export function diffLayerTable(diff: DiffReport): SafeHtml {
     ];
     if (withSignature) cells.push(l.signature ? `${fmt(l.signature.slope)}${interval(l.signature.ci?.slope, fmt)}` : '');
     cells.push(l.unchanged ? 'same file' : l.aboveFloor ? 'above' : 'below');
-    return l.site ? { cells, className: 'site' } : { cells };
-  });
+    return l.site ? { cells, className: 'site' as const } : { cells };
+  })];
   const numeric = withSignature ? [0, 3, 4, 5, 6, 7, 8] : [0, 3, 4, 5, 6, 7];
   return table(head, rows, numeric, `◆ modulation site · channel ratio = modulated ÷ baseline channel mean (mean ± sd over channels) · floor: ${diff.floor?.description ?? 'not given'}`);
 }
@@ -140,19 +161,20 @@ export function taskTable(task: TaskReport): SafeHtml {
   const arrow = (a: unknown, b: unknown, d = 2) => `${fmt(a, d)} → ${fmt(b, d)}`;
   const aucCells = (auc: TaskReport['auc'] | undefined, matched: unknown) => [arrow(auc?.base, auc?.mod, 3), `${sgn(auc?.change, 3)}${interval(auc?.ci, (v) => fmt(v, 3))}`, `${sgn(matched, 1)} pp`];
   const controlCell = (control: { hitRatePp: number; dPrime: number } | undefined) => (control ? `${sgn(control.hitRatePp, 1)} pp, ${sgn(control.dPrime)}` : '–');
-  const rows: Row[] = task.categories.map((c) => ({
-    cells: [c.category, fmt(c.threshold, 2), ...aucCells(c.auc, c.matchedHitRatePp), arrow(c.base.hitRate, c.mod.hitRate), arrow(c.base.falseAlarmRate, c.mod.falseAlarmRate), arrow(c.base.dPrime, c.mod.dPrime), arrow(c.base.criterion, c.mod.criterion), `${pct(c.base.accuracy)} → ${pct(c.mod.accuracy)}`, `${sgn(c.change.dPrime)}${interval(c.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(c.change.accuracyPp, 1)} pp`, controlCell(c.criterionControl)],
-  }));
-  rows.push({
-    className: 'mean',
-    cells: ['mean', '', ...aucCells(task.auc, task.matchedHitRatePp), arrow(task.base.hitRate, task.mod.hitRate), arrow(task.base.falseAlarmRate, task.mod.falseAlarmRate), arrow(task.base.dPrime, task.mod.dPrime), arrow(task.base.criterion, task.mod.criterion), `${pct(task.base.accuracy)} → ${pct(task.mod.accuracy)}`, `${sgn(task.change.dPrime)}${interval(task.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(task.change.accuracyPp, 1)} pp`, controlCell(task.criterionControl)],
+  // two tables, so that each fits the page: the threshold-free read-out, then the fixed threshold
+  const free = (name: string, auc: TaskReport['auc'] | undefined, matched: unknown, className?: 'mean'): Row => ({ cells: [name, ...aucCells(auc, matched)], ...(className ? { className } : {}) });
+  const fixedRow = (name: string, threshold: string, c: Pick<TaskReport, 'base' | 'mod' | 'change' | 'ci'>, control: { hitRatePp: number; dPrime: number } | undefined, className?: 'mean'): Row => ({
+    cells: [name, threshold, arrow(c.base.hitRate, c.mod.hitRate), arrow(c.base.falseAlarmRate, c.mod.falseAlarmRate), arrow(c.base.dPrime, c.mod.dPrime), arrow(c.base.criterion, c.mod.criterion), `${pct(c.base.accuracy)} → ${pct(c.mod.accuracy)}`, `${sgn(c.change.dPrime)}${interval(c.ci?.dPrime, (v) => fmt(v, 2))}`, `${sgn(c.change.accuracyPp, 1)} pp`, controlCell(control)],
+    ...(className ? { className } : {}),
   });
-  return table(
-    ['category', 'threshold', 'AUC', 'ΔAUC [95 % CI]', 'ΔH at base F', 'hit rate', 'false alarms', 'd′', 'criterion', 'accuracy', 'Δd′ [95 % CI]', 'Δaccuracy', 'criterion shift only: ΔH, Δd′'],
-    rows,
-    [1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12],
-    `detection from "${task.readout}" · ${task.thresholdRule} · base → modulated · AUC: ROC area (threshold-free) · ΔH at base F: hit-rate change at the baseline's false-alarm rate · criterion shift only: the baseline scores shifted by a constant to the modulated false-alarm rate`,
-  );
+  const freeRows = [...task.categories.map((c) => free(c.category, c.auc, c.matchedHitRatePp)), free('mean', task.auc, task.matchedHitRatePp, 'mean')];
+  const fixedRows = [...task.categories.map((c) => fixedRow(c.category, fmt(c.threshold, 2), c, c.criterionControl)), fixedRow('mean', '', task, task.criterionControl, 'mean')];
+  return html`${table(['category', 'AUC', 'ΔAUC [95 % CI]', 'ΔH at base F'], freeRows, [1, 2, 3], `threshold-free: detection from "${task.readout}", base → modulated · AUC: ROC area · ΔH at base F: hit-rate change at the baseline's false-alarm rate`)}${table(
+    ['category', 'threshold', 'hit rate', 'false alarms', 'd′', 'criterion', 'accuracy', 'Δd′ [95 % CI]', 'Δaccuracy', 'shift only: ΔH, Δd′'],
+    fixedRows,
+    [1, 2, 3, 4, 5, 6, 7, 8, 9],
+    `at the fixed threshold: ${task.thresholdRule} · base → modulated · criterion shift only: the baseline scores shifted by a constant to the modulated false-alarm rate (what moving the criterion alone does)`,
+  )}`;
 }
 
 /**
@@ -161,9 +183,10 @@ export function taskTable(task: TaskReport): SafeHtml {
  * @param labels what A and B are called on the page.
  */
 export function comparisonTable(comparison: SchemeComparison, labels: readonly [string, string]): SafeHtml {
+  const cell = labelled(comparison.layers.map((l) => l.name));
   const rows: Row[] = comparison.layers.map((l, i) => {
     const site = comparison.a.layers[i]?.site === true || comparison.b.layers[i]?.site === true;
-    const cells = [`${fmt(l.depth, 0)}${site ? ' ◆' : ''}`, l.name, sci(l.a), sci(l.b), l.larger === 'equal' ? '=' : l.larger === 'a' ? 'A' : 'B', l.separated ? 'yes' : 'no'];
+    const cells = [`${fmt(l.depth, 0)}${site ? ' ◆' : ''}`, cell(l.name), sci(l.a), sci(l.b), l.larger === 'equal' ? '=' : l.larger === 'a' ? 'A' : 'B', l.separated ? 'yes' : 'no'];
     return site ? { cells, className: 'site' } : { cells };
   });
   return table(['depth', 'layer', 'A: relative change', 'B: relative change', 'larger', 'intervals apart'], rows, [0, 2, 3], html`A = ${labels[0]} · B = ${labels[1]}`);
@@ -184,7 +207,8 @@ export function measureWords(measure: 'auc' | 'dprime'): string {
  * @param sweep the sweep result.
  */
 export function bestCellsTable(sweep: SweepResult): SafeHtml {
-  const rows: Row[] = (sweep.best ?? []).map((b) => ({ cells: [b.site, b.scheme, fmt(b.strength, 2), sgn(b.aucChange, 3), sgn(b.dPrimeChange), `${sgn(b.accuracyPp, 1)} pp`, pct(b.siteActivityChange)] }));
+  const cell = labelled(sweep.sites);
+  const rows: Row[] = (sweep.best ?? []).map((b) => ({ cells: [cell(b.site), b.scheme, fmt(b.strength, 2), sgn(b.aucChange, 3), sgn(b.dPrimeChange), `${sgn(b.accuracyPp, 1)} pp`, pct(b.siteActivityChange)] }));
   return table(['site', 'best scheme', 'strength', 'ΔAUC', 'Δd′', 'Δaccuracy', 'activity change'], rows, [2, 3, 4, 5, 6], `best by ${measureWords(sweepMeasureOf(sweep))}; means over cued categories (and control seeds); activity change: mean |gain − 1| at the site`);
 }
 
@@ -202,13 +226,14 @@ export function sweepTaskTable(points: readonly TaskCurvePoint[], measure: 'auc'
     const key = JSON.stringify([p.site, p.scheme]);
     groups.set(key, [...(groups.get(key) ?? []), p]);
   }
+  const siteCell = labelled([...new Set(points.map((p) => p.site))]);
   const rows: Row[] = [...groups.values()].map((list) => {
     const finite = list.filter((p) => Number.isFinite(value(p)));
     const best = finite.reduce<TaskCurvePoint | null>((acc, p) => (acc === null || value(p) > value(acc) ? p : acc), null);
     const last = list[list.length - 1]!;
     const [low, high] = measure === 'auc' ? [last.aucLow, last.aucHigh] : [last.low, last.high];
     const spread = high > low ? ` (${sgn(low, digits)} … ${sgn(high, digits)})` : '';
-    return { cells: [list[0]!.site, list[0]!.scheme, best ? fmt(best.strength, 2) : '–', best ? sgn(best.aucChange, 3) : '–', best ? sgn(best.dPrimeChange) : '–', best ? `${sgn(best.matchedHitRatePp, 1)} pp` : '–', best ? `${sgn(best.accuracyPp, 1)} pp` : '–', `${sgn(value(last), digits)}${spread}`] };
+    return { cells: [siteCell(list[0]!.site), list[0]!.scheme, best ? fmt(best.strength, 2) : '–', best ? sgn(best.aucChange, 3) : '–', best ? sgn(best.dPrimeChange) : '–', best ? `${sgn(best.matchedHitRatePp, 1)} pp` : '–', best ? `${sgn(best.accuracyPp, 1)} pp` : '–', `${sgn(value(last), digits)}${spread}`] };
   });
   const top = points.length > 0 ? Math.max(...points.map((p) => p.strength).filter(Number.isFinite)) : Number.NaN;
   const symbol = measure === 'auc' ? 'ΔAUC' : 'Δd′';
@@ -224,9 +249,17 @@ export function sweepTaskTable(points: readonly TaskCurvePoint[], measure: 'auc'
 export function calibrationTable(sweep: SweepResult): SafeHtml | null {
   const list = sweep.calibration ?? [];
   if (list.length === 0) return null;
-  const rows: Row[] = list.map((c) => ({ cells: [c.site, c.scheme, c.target, c.strength === null ? 'not reached' : fmt(c.strength, 3), c.siteActivityChange === null ? '–' : pct(c.siteActivityChange), c.withinBand === null ? '–' : c.withinBand ? 'inside' : 'outside'] }));
+  const cell = labelled(sweep.sites);
+  // pairs that did not reach the target are listed in one line, not as rows of "not reached"
+  const reached = list.filter((c) => c.strength !== null);
+  const missed = list.filter((c) => c.strength === null);
+  const rows: Row[] = reached.map((c) => ({ cells: [cell(c.site), c.scheme, c.target, fmt(c.strength, 3), c.siteActivityChange === null ? '–' : pct(c.siteActivityChange), c.withinBand === null ? '–' : c.withinBand ? 'inside' : 'outside'] }));
   const band = sweep.band ? `band ${pct(sweep.band.low, 0)}–${pct(sweep.band.high, 0)} (${sweep.band.source})` : 'no band given';
-  return table(['site', 'scheme', 'target', 'strength', 'implied activity change', 'band'], rows, [3, 4], band);
+  const labels = shortLayerLabels(sweep.sites);
+  const missedText = missed.length === 0 ? '' : missed.length === list.length
+    ? html`<p class="note">No site × scheme pair (of ${missed.length}) reached ${missed[0]!.target} within the swept strengths.</p>`
+    : html`<p class="note">Not reached within the swept strengths (${missed.length} of ${list.length}): ${missed.map((c) => `${labels.get(c.site) ?? c.site} ${c.scheme}`).join(', ')}.</p>`;
+  return html`${reached.length > 0 ? table(['site', 'scheme', 'target', 'strength', 'implied activity change', 'band'], rows, [3, 4], band) : ''}${missedText}`;
 }
 
 /**
@@ -235,7 +268,8 @@ export function calibrationTable(sweep: SweepResult): SafeHtml | null {
  */
 export function agreementTable(agreement: TableComparison): SafeHtml {
   const categories = agreement.categories ?? [];
-  const rows: Row[] = agreement.layers.map((l) => ({ cells: [fmt(l.depth, 0), l.layer, fmt(l.channels, 0), fmt(l.pooled.pearson), fmt(l.pooled.spearman), ...categories.map((c) => fmt(l.byCategory?.find((b) => b.category === c)?.pearson, 2))] }));
+  const cell = labelled(agreement.layers.map((l) => l.layer));
+  const rows: Row[] = agreement.layers.map((l) => ({ cells: [fmt(l.depth, 0), cell(l.layer), fmt(l.channels, 0), fmt(l.pooled.pearson), fmt(l.pooled.spearman), ...categories.map((c) => fmt(l.byCategory?.find((b) => b.category === c)?.pearson, 2))] }));
   const numeric = [0, 2, 3, 4, ...categories.map((_, i) => 5 + i)];
   const scale = agreement.sensitivityScale === 'raw' ? 'raw sensitivities (one shared category)' : 'sensitivities z-scored across categories';
   return table(['depth', 'layer', 'channels', 'pooled r', 'pooled ρ', ...categories.map((c) => `r ${c}`)], rows, numeric, `tuning value vs ${scale}, across channels`);
@@ -246,7 +280,8 @@ export function agreementTable(agreement: TableComparison): SafeHtml {
  * @param tuning tuning summaries.
  */
 export function tuningTable(tuning: TuningSummaries): SafeHtml {
-  const rows: Row[] = tuning.layers.map((l) => ({ cells: [fmt(l.depth, 0), l.layer, l.op ?? '', fmt(l.channels, 0), pct(l.selectiveFraction, 0), fmt(l.meanSelectivity), fmt(l.zeroVarianceChannels, 0), fmt(l.nonFiniteChannels, 0)] }));
+  const cell = labelled(tuning.layers.map((l) => l.layer));
+  const rows: Row[] = tuning.layers.map((l) => ({ cells: [fmt(l.depth, 0), cell(l.layer), l.op ?? '', fmt(l.channels, 0), pct(l.selectiveFraction, 0), fmt(l.meanSelectivity), fmt(l.zeroVarianceChannels, 0), fmt(l.nonFiniteChannels, 0)] }));
   const index = Number.isFinite(num(tuning.selectiveIndex)) ? `selective: index ≥ ${fmt(tuning.selectiveIndex, 2)} (preferred category at least twice the others)` : undefined;
   return table(['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], rows, [0, 3, 4, 5, 6, 7], index);
 }
