@@ -19,7 +19,7 @@ import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, typ
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import { readNpyHeader } from '../stimuli/npy.js';
-import type { Preprocessing } from '../stimuli/preprocess.js';
+import { presetValues, resolvedFit, type FitMode, type Interpolation, type NormalisePreset, type Preprocessing } from '../stimuli/preprocess.js';
 import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from '../outputs/output-folder.js';
@@ -64,6 +64,14 @@ export interface RecordOptions {
   std?: number[];
   /** Feed BGR instead of RGB. */
   bgr?: boolean;
+  /** A named mean/std (`imagenet`, `unit` [0, 1], `signed` [−1, 1]); not together with `mean`/`std`. */
+  normalise?: NormalisePreset;
+  /** How images reach the input size: `squash` (default), `crop` (shorter side, then the centre) or `letterbox`. */
+  fit?: FitMode;
+  /** For `crop`: the shorter side before the centre cut (default the larger input side). */
+  shorterSide?: number;
+  /** Resizing kernel (default `lanczos3`). */
+  interpolation?: Interpolation;
   /** Full input shape for models with dynamic spatial axes. */
   inputShape?: number[];
   /**
@@ -152,17 +160,12 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   if (options.size && (options.size[0] !== height || options.size[1] !== width)) {
     throw new UsageError('E_STIMULI_SHAPE', `--size ${options.size.join('x')} does not match the model input ${height}x${width}`);
   }
-  const preprocessing: Preprocessing = {
-    size: [height!, width!],
-    mean: options.mean ?? sidecar?.preprocessing?.mean ?? new Array<number>(channels!).fill(0),
-    std: options.std ?? sidecar?.preprocessing?.std ?? new Array<number>(channels!).fill(1),
-    bgr: options.bgr ?? sidecar?.preprocessing?.bgr ?? false,
-  };
+  const preprocessing = resolvePreprocessing(options, sidecar?.preprocessing, channels!, [height!, width!]);
   for (const [key, list] of [['--mean', preprocessing.mean], ['--std', preprocessing.std]] as const) {
     if (list.length !== channels) throw new UsageError('E_PREPROCESS', `${key} has ${list.length} values but the model input has ${channels} channels`);
   }
   if (preprocessing.std.some((s) => s === 0)) throw new UsageError('E_PREPROCESS', '--std values must not be 0');
-  const source = openStimulusSource(options.stimuli, { preprocessing, channels: channels!, ...(options.labels ? { labelsFile: options.labels } : {}) });
+  const source = openStimulusSource(options.stimuli, { preprocessing, channels: channels!, ...(options.labels ? { labelsFile: options.labels } : {}), ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
   const fixedBatch = typeof declared[0] === 'number' ? declared[0] : null;
   const batch = fixedBatch ?? requestedBatch;
 
@@ -321,6 +324,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     });
     const stimuliFile = writeStimuliFile(`${folder}/stimuli.arrow`, source.ids.slice(range.start, range.end), source.labels.slice(range.start, range.end), { digests: log.digests, firstIndex: range.start });
     total += stimuliFile.bytes;
+    manifest.stimuli.table = { sha256: stimuliFile.sha256, bytes: stimuliFile.bytes };
     const wallSeconds = (performance.now() - run.started) / 1000;
     manifest.stimuli.digest = stimuliDigest(log.digests);
     if (tally) {
@@ -549,6 +553,35 @@ export function chooseInputShape(model: LoadedModel, options: Pick<RecordOptions
     }
   }
   return undefined;
+}
+
+/**
+ * The preprocessing of a recording: options first, then the model's sidecar, then scaling to [0, 1]
+ * with `squash` and `lanczos3`; every field set, so the manifest says exactly how images were fed.
+ * @throws UsageError for a preset given with `mean`/`std`, or an unknown fit or kernel.
+ */
+export function resolvePreprocessing(options: Pick<RecordOptions, 'mean' | 'std' | 'bgr' | 'normalise' | 'fit' | 'shorterSide' | 'interpolation'>, sidecar: { mean?: number[]; std?: number[]; bgr?: boolean } | undefined, channels: number, size: [number, number]): Preprocessing {
+  if (options.normalise && (options.mean || options.std)) {
+    throw new UsageError('E_PREPROCESS', `--normalise ${options.normalise} sets the mean and std; it cannot be combined with --mean or --std`, { hint: 'pass either the preset or both values' });
+  }
+  if (options.shorterSide !== undefined && options.fit !== 'crop') throw new UsageError('E_PREPROCESS', `a shorter side (${options.shorterSide}) only applies to --fit crop`);
+  const preset = options.normalise ? presetValues(options.normalise, channels) : null;
+  const mean = options.mean ?? preset?.mean ?? sidecar?.mean ?? new Array<number>(channels).fill(0);
+  const std = options.std ?? preset?.std ?? sidecar?.std ?? new Array<number>(channels).fill(1);
+  const unit = mean.every((v) => v === 0) && std.every((v) => v === 1);
+  const fit = options.fit ?? 'squash';
+  const preprocessing: Preprocessing = {
+    size,
+    mean,
+    std,
+    bgr: options.bgr ?? sidecar?.bgr ?? false,
+    fit,
+    ...(fit === 'crop' ? { shorterSide: options.shorterSide ?? Math.max(size[0], size[1]) } : {}),
+    interpolation: options.interpolation ?? 'lanczos3',
+    normalise: options.normalise ?? (unit ? 'unit' : 'custom'),
+  };
+  resolvedFit(preprocessing);
+  return preprocessing;
 }
 
 /** For messages: a path relative to the working folder. */

@@ -1,11 +1,12 @@
 import { createHash } from 'node:crypto';
-import { existsSync, readdirSync, readFileSync, statSync } from 'node:fs';
+import { existsSync, readdirSync, readFileSync, statSync, type Dirent } from 'node:fs';
 import { basename, dirname, extname, join, relative, resolve } from 'node:path';
-import sharp from 'sharp';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { assertRegularFile } from '../disk/input-file.js';
 import { parseNpy } from './npy.js';
-import { pixelsToPlanar, type Preprocessing } from './preprocess.js';
+import { pixelsToPlanar, resolvedFit, type PixelBlock, type Preprocessing } from './preprocess.js';
+import { decodeImage } from './decode.js';
+import { labelsFilesBeside, labelsFilesIn, type FoundLabels } from './labels-file.js';
 
 /** Image file extensions read from class folders. */
 export const IMAGE_EXTENSIONS: ReadonlySet<string> = new Set(['.png', '.jpg', '.jpeg', '.webp', '.gif', '.tif', '.tiff', '.bmp', '.avif']);
@@ -36,8 +37,15 @@ export interface StimulusSourceOptions {
   preprocessing: Preprocessing;
   /** Channels the model expects (1 or 3 for images). */
   channels: number;
-  /** A CSV with one `label` column, row order (only for `.npy` sources). */
+  /**
+   * For a `.npy` source: a CSV with one `label` column, row order (default: a labels file beside the
+   * array, see `labelsFilesBeside`), or `none` to record it without labels. For a folder: a `path,label`
+   * CSV to read it through (default: the labels file in the folder, if any), or `folders` to label by
+   * subfolder and ignore labels files.
+   */
   labelsFile?: string;
+  /** Receives one-line notices (a class-folder tree with a single category). The labels file a source was read through is named in its `description`. */
+  onNotice?: (text: string) => void;
 }
 
 /**
@@ -90,32 +98,115 @@ export function readUtf8File(path: string, what: string): string {
 
 function openFolder(path: string, absolute: string, options: StimulusSourceOptions): StimulusSource {
   assertUtf8Entries(absolute, `--stimuli ${path}`);
-  const categories = readdirSync(absolute, { withFileTypes: true }).filter((e) => e.isDirectory()).map((e) => e.name).sort();
+  const labelsFile = options.labelsFile;
+  if (labelsFile === 'none') throw new UsageError('E_STIMULI_LABELS', `--labels none is for .npy arrays; the labels of folder ${path} come from its subfolders or its labels file`, { hint: 'drop --labels, or pass --labels folders to label by subfolder' });
+  if (labelsFile !== undefined && labelsFile !== 'folders') return openCsv(labelsFile, resolve(labelsFile), options, `--labels ${labelsFile}`);
+  if (labelsFile === undefined) {
+    const through = folderLabelsFile(path, absolute);
+    if (through) {
+      if (through.role === 'rows') return openNpy(through.npy!, resolve(through.npy!), { ...options, labelsFile: through.path });
+      return openCsv(through.path, through.path, options);
+    }
+  }
+  const entries = readdirSync(absolute, { withFileTypes: true });
+  const categories = entries.filter((e) => e.isDirectory()).map((e) => e.name).sort();
   const files: string[] = [];
   const labels: string[][] = [];
   for (const category of categories) {
     assertUtf8Entries(join(absolute, category), `--stimuli ${path}`);
-    const entries = readdirSync(join(absolute, category), { withFileTypes: true })
+    const images = readdirSync(join(absolute, category), { withFileTypes: true })
       .filter((e) => e.isFile() && IMAGE_EXTENSIONS.has(extname(e.name).toLowerCase()))
       .map((e) => e.name)
       .sort();
-    for (const name of entries) {
+    for (const name of images) {
       files.push(join(absolute, category, name));
       labels.push([category]);
     }
   }
-  if (categories.length === 0) {
-    const loose = readdirSync(absolute).filter((n) => IMAGE_EXTENSIONS.has(extname(n).toLowerCase()));
-    if (loose.length > 0) {
-      throw new UsageError('E_STIMULI_EMPTY', `--stimuli ${path} holds images but no category subfolders`, { hint: 'put images in one subfolder per category, or list them in a path,label CSV' });
-    }
+  const loose = entries.filter((e) => isImageEntry(e)).map((e) => e.name).sort();
+  if (loose.length > 0) {
+    const what = categories.length === 0 ? 'holds images but no category subfolders' : `holds ${loose.length} image(s) outside its category subfolders (${loose.slice(0, 3).join(', ')}${loose.length > 3 ? ', …' : ''}), which would have no label`;
+    throw new UsageError('E_STIMULI_EMPTY', `--stimuli ${path} ${what}`, { hint: 'put images in one subfolder per category, or list them in a path,label CSV' });
   }
   if (files.length === 0) throw new UsageError('E_STIMULI_EMPTY', `--stimuli ${path} holds no images (expected one subfolder per category with ${[...IMAGE_EXTENSIONS].slice(0, 3).join('/')} files)`);
-  return imageSource('folder', `image folder ${path} (${categories.length} categories)`, absolute, files, labels, options);
+  const used = categories.filter((c) => labels.some((l) => l[0] === c));
+  if (used.length === 1) {
+    options.onNotice?.(`--stimuli ${path} has a single category subfolder "${used[0]}": every stimulus is labelled ${used[0]}, so a detection task has no stimuli without it (if the images hold several categories, list them in a path,label CSV)`);
+  }
+  return imageSource('folder', `image folder ${path} (${used.length} categories)`, absolute, files, labels, options);
 }
 
-function openCsv(path: string, absolute: string, options: StimulusSourceOptions): StimulusSource {
-  const rows = parseCsv(readUtf8File(absolute, path), path);
+function isImageEntry(entry: Dirent): boolean {
+  return entry.isFile() && IMAGE_EXTENSIONS.has(extname(entry.name).toLowerCase());
+}
+
+/**
+ * The labels file a folder is read through, or null when it holds none (then it is read by subfolder).
+ * @throws UsageError, one line saying what to pass, when the folder holds several labels files, one in
+ *   a form Sonde does not read, a row-order list without exactly one array beside it, or a listing that
+ *   leaves images of the folder out.
+ */
+function folderLabelsFile(path: string, absolute: string): (FoundLabels & { npy?: string }) | null {
+  const found = labelsFilesIn(absolute);
+  if (found.length === 0) return null;
+  const shown = (f: FoundLabels): string => join(path, basename(f.path));
+  if (found.length > 1) {
+    throw new UsageError('E_STIMULI_LABELS', `--stimuli ${path} holds ${found.length} labels files (${found.map((f) => basename(f.path)).join(', ')}); Sonde will not guess which one labels the stimuli`, { hint: `pass one as --stimuli, e.g. --stimuli ${shown(found[0]!)}, or --labels folders to label by subfolder` });
+  }
+  const file = found[0]!;
+  if (file.role === 'foreign-labels') {
+    throw new UsageError('E_STIMULI_LABELS', `--stimuli ${path} holds ${basename(file.path)} with header "${file.header}", a labels file Sonde does not read`, { hint: `give it the header path,label (paths relative to it, categories joined by ;) and pass --stimuli ${shown(file)}, or pass --labels folders to label by subfolder` });
+  }
+  if (file.role === 'rows') {
+    const arrays = readdirSync(absolute).filter((n) => extname(n).toLowerCase() === '.npy').sort();
+    if (arrays.length === 1 && !readdirSync(absolute, { withFileTypes: true }).some((e) => isImageEntry(e) || e.isDirectory())) return { ...file, npy: join(path, arrays[0]!) };
+    throw new UsageError('E_STIMULI_LABELS', `--stimuli ${path} holds ${basename(file.path)}, a row-order label list (header "label") that says nothing about which image each row labels`, { hint: arrays.length > 0 ? `pass the array: --stimuli ${join(path, arrays[0]!)} --labels ${shown(file)}` : 'write a path,label CSV, or pass --labels folders to label by subfolder' });
+  }
+  // a listing: every image under the folder must be in it, or those left out would vanish silently
+  const listed = new Set(parseCsv(readUtf8File(file.path, shown(file)), shown(file)).slice(1).map((row) => resolve(dirname(file.path), row[0] ?? '')));
+  const missing = imagesUnder(absolute).filter((f) => !listed.has(f));
+  if (missing.length > 0) {
+    throw new UsageError('E_STIMULI_LABELS', `--stimuli ${path}: its labels file ${basename(file.path)} leaves out ${missing.length} image(s) of the folder (${missing.slice(0, 2).map((f) => relative(absolute, f)).join(', ')}${missing.length > 2 ? ', …' : ''})`, { hint: `pass --stimuli ${shown(file)} to record only the listed images, or --labels folders to label by subfolder` });
+  }
+  return file;
+}
+
+/** Every image file under `folder`, at any depth (links are not followed). */
+function imagesUnder(folder: string): string[] {
+  const out: string[] = [];
+  const walk = (dir: string): void => {
+    for (const entry of readdirSync(dir, { withFileTypes: true })) {
+      if (entry.isDirectory()) walk(join(dir, entry.name));
+      else if (isImageEntry(entry)) out.push(join(dir, entry.name));
+    }
+  };
+  walk(folder);
+  return out;
+}
+
+/**
+ * The labels file of an array: `--labels` when given (`none`: no labels), else the one labels file
+ * beside it.
+ * @throws UsageError when several lie beside it, or one that is not a row-order `label` list.
+ */
+function npyLabelsFile(path: string, absolute: string, options: StimulusSourceOptions): string | null {
+  if (options.labelsFile === 'none') return null;
+  if (options.labelsFile === 'folders') throw new UsageError('E_STIMULI_LABELS', `--labels folders is for image folders; ${path} is an array`, { hint: 'pass a CSV with one "label" column, or --labels none' });
+  if (options.labelsFile !== undefined) return options.labelsFile;
+  const found = labelsFilesBeside(absolute);
+  if (found.length === 0) return null;
+  const shown = (f: FoundLabels): string => join(dirname(path), basename(f.path));
+  const rows = found.filter((f) => f.role === 'rows');
+  if (found.length > 1 || rows.length === 0) {
+    throw new UsageError('E_STIMULI_LABELS', `--stimuli ${path} has ${found.map((f) => `${basename(f.path)} (header "${f.header}")`).join(', ')} beside it; Sonde will not guess whether ${found.length > 1 ? 'one of them labels' : 'it labels'} the array`, { hint: `pass --labels FILE (a CSV with one "label" column, one row per stimulus), e.g. --labels ${shown(rows[0] ?? found[0]!)}, or --labels none` });
+  }
+  return shown(rows[0]!);
+}
+
+function openCsv(path: string, absolute: string, options: StimulusSourceOptions, named = path): StimulusSource {
+  if (!existsSync(absolute)) throw new UsageError('E_STIMULI_MISSING', `${named} does not exist`);
+  assertRegularFile(absolute, named);
+  const rows = parseCsv(readUtf8File(absolute, named), named);
   const header = rows.shift();
   if (!header || header[0] !== 'path' || header[1] !== 'label') {
     throw new UsageError('E_STIMULI_CSV', `${path}: the first line must be the header "path,label", got "${(header ?? []).join(',')}"`);
@@ -143,21 +234,23 @@ function openNpy(path: string, absolute: string, options: StimulusSourceOptions)
   const [height, width] = options.preprocessing.size;
   if (h !== height || w !== width) throw new UsageError('E_STIMULI_SHAPE', `${path} holds ${h}x${w} arrays but the model input is ${height}x${width}`, { hint: 'resize the array, or pass --input-shape for a model with free spatial axes' });
   let labels: string[][] = new Array(n).fill(null).map(() => []);
-  if (options.labelsFile) {
-    const rows = parseCsv(readUtf8File(resolve(options.labelsFile), `--labels ${options.labelsFile}`), options.labelsFile);
+  const labelsFile = npyLabelsFile(path, absolute, options);
+  if (labelsFile) {
+    const named = labelsFile === options.labelsFile ? `--labels ${labelsFile}` : `labels file ${labelsFile} (beside ${path})`;
+    const rows = parseCsv(readUtf8File(resolve(labelsFile), named), labelsFile);
     const header = rows.shift();
     if (!header || header[0] !== 'label' || header.length !== 1) {
-      throw new UsageError('E_STIMULI_CSV', `--labels ${options.labelsFile}: the first line must be the header "label"`);
+      throw new UsageError('E_STIMULI_CSV', `${named}: the first line must be the header "label"`);
     }
     if (rows.length !== n) {
-      throw new UsageError('E_STIMULI_CSV', `--labels ${options.labelsFile} has ${rows.length} rows but ${path} holds ${n} stimuli`, { hint: 'one row per stimulus; a stimulus without labels is a row "" (blank lines are skipped)' });
+      throw new UsageError('E_STIMULI_CSV', `${named} has ${rows.length} rows but ${path} holds ${n} stimuli`, { hint: 'one row per stimulus; a stimulus without labels is a row "" (blank lines are skipped)' });
     }
     labels = rows.map((r) => splitLabels(r[0] ?? ''));
   }
   const data = tensor.data as Float32Array;
   const per = c * h * w;
   return {
-    description: `array ${path}${options.labelsFile ? ` with labels ${options.labelsFile}` : ''}`,
+    description: `array ${path}${labelsFile ? ` with labels ${labelsFile}` : ''}`,
     kind: 'npy',
     count: n,
     ids: Array.from({ length: n }, (_, i) => String(i)),
@@ -172,6 +265,7 @@ function openNpy(path: string, absolute: string, options: StimulusSourceOptions)
 function imageSource(kind: 'folder' | 'csv', description: string, root: string, files: string[], labels: string[][], options: StimulusSourceOptions): StimulusSource {
   const [height, width] = options.preprocessing.size;
   const channels = options.channels;
+  resolvedFit(options.preprocessing); // an unknown fit or kernel is refused before any image is read
   if (channels !== 1 && channels !== 3) {
     throw new UsageError('E_STIMULI_SHAPE', `the model input has ${channels} channels; images can feed 1 (grey) or 3 (RGB) channels`, { hint: 'pass a .npy array instead' });
   }
@@ -186,21 +280,19 @@ function imageSource(kind: 'folder' | 'csv', description: string, root: string, 
     async read(start, rows, out) {
       await Promise.all(
         files.slice(start, start + rows).map(async (file, i) => {
-          let decoded: { data: Buffer; info: { channels: number } };
+          let decoded: PixelBlock;
           if (existsSync(file)) assertRegularFile(file, `stimulus ${relative(process.cwd(), file) || basename(file)}`); // a FIFO would hang the decoder
           try {
-            let image = sharp(file, { failOn: 'error' }).removeAlpha();
-            image = channels === 1 ? image.greyscale() : image.toColourspace('srgb');
-            decoded = await image.resize(width, height, { fit: 'fill' }).raw().toBuffer({ resolveWithObject: true });
+            decoded = await decodeImage(file, options.preprocessing, channels);
           } catch (error) {
             const code = (error as NodeJS.ErrnoException).code;
             if (code === 'ENOENT' || !existsSync(file)) throw new UsageError('E_STIMULI_MISSING', `stimulus ${relative(process.cwd(), file) || basename(file)} does not exist`);
             throw new UsageError('E_STIMULI_DECODE', `cannot decode image ${relative(process.cwd(), file) || basename(file)}: ${(error as Error).message.split('\n')[0]}`);
           }
-          if (decoded.info.channels !== channels) {
-            throw new RuntimeFailure('E_STIMULI_DECODE', `image ${basename(file)} decoded to ${decoded.info.channels} channels, expected ${channels}`);
+          if (decoded.channels !== channels) {
+            throw new RuntimeFailure('E_STIMULI_DECODE', `image ${basename(file)} decoded to ${decoded.channels} channels, expected ${channels}`);
           }
-          pixelsToPlanar(new Uint8Array(decoded.data.buffer, decoded.data.byteOffset, decoded.data.length), height, width, channels, options.preprocessing, out, i * per);
+          pixelsToPlanar(decoded, options.preprocessing, out, i * per);
         }),
       );
     },

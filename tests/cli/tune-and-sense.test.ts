@@ -173,7 +173,7 @@ describe('sonde sense (warnings)', () => {
 describe('sonde tune / sonde sense (bad input)', () => {
   it('sonde tune on a snapshot without labels says so', async () => {
     const bare = join(dir, 'bare');
-    expect((await runSonde(['record', model, '--stimuli', stim.npy, '--out', bare, '--threads', '1'])).code).toBe(0);
+    expect((await runSonde(['record', model, '--stimuli', stim.npy, '--labels', 'none', '--out', bare, '--threads', '1'])).code).toBe(0);
     await expectUsageError(['tune', bare, '--out', join(dir, 't-bare.arrow')], /snapshot .*bare has no labels \(8 stimuli, none labelled\)/);
   });
 
@@ -223,6 +223,6 @@ describe('sonde tune / sonde sense (bad input)', () => {
 
   it('sonde sense --stimuli-of a category no stimulus carries names the labels there are', async () => {
     await expectUsageError(['sense', model, '--stimuli', stim.npy, '--labels', stim.labels, '--site', 'relu1', '--stimuli-of', 'cow', '--out', join(dir, 's6.arrow')], /--stimuli-of "cow": no stimulus carries this category \(labels: bird, cat, dog/);
-    await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu1', '--stimuli-of', 'cat', '--out', join(dir, 's7.arrow')], /--stimuli-of cat: the stimuli carry no labels/);
+    await expectUsageError(['sense', model, '--stimuli', stim.npy, '--labels', 'none', '--site', 'relu1', '--stimuli-of', 'cat', '--out', join(dir, 's7.arrow')], /--stimuli-of cat: the stimuli carry no labels/);
   });
 });

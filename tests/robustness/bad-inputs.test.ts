@@ -150,7 +150,9 @@ const cases: Case[] = [
     argv: async () => {
       const folder = join(dir, 'imgs', 'cat');
       mkdirSync(folder, { recursive: true });
+      mkdirSync(join(dir, 'imgs', 'dog')); // two categories: a single one adds a notice line
       await sharp(Buffer.alloc(16 * 16 * 3, 90), { raw: { width: 16, height: 16, channels: 3 } }).png().toFile(join(folder, 'ok.png'));
+      await sharp(Buffer.alloc(16 * 16 * 3, 20), { raw: { width: 16, height: 16, channels: 3 } }).png().toFile(join(dir, 'imgs', 'dog', 'ok.png'));
       writeFileSync(join(folder, 'fake.png'), 'GIF89a but really just text');
       return ['record', good.model, '--stimuli', join(dir, 'imgs'), '--out', join(dir, 'out-img')];
     },
@@ -164,6 +166,8 @@ const cases: Case[] = [
       const folder = join(dir, 'imgs0', 'dog');
       mkdirSync(folder, { recursive: true });
       writeFileSync(join(folder, 'empty.jpg'), '');
+      mkdirSync(join(dir, 'imgs0', 'cat')); // two categories: a single one adds a notice line
+      writeFileSync(join(dir, 'imgs0', 'cat', 'empty.jpg'), '');
       return ['record', good.model, '--stimuli', join(dir, 'imgs0'), '--out', join(dir, 'out-img0')];
     },
     code: 2,
@@ -242,7 +246,7 @@ beforeAll(async () => {
   good.base = (await recordSnapshot({ model: good.model, stimuli: good.npy, labels: good.labels, out: join(dir, 'base'), layers: 'all', batch: 4 })).folder;
   good.otherModelBase = (await recordSnapshot({ model: other, stimuli: good.npy, labels: good.labels, out: join(dir, 'base-other-model'), layers: 'all', batch: 4 })).folder;
   good.otherStimuliBase = (await recordSnapshot({ model: good.model, stimuli: s2.npy, labels: good.labels, out: join(dir, 'base-other-stimuli'), layers: 'all', batch: 4 })).folder;
-  good.unlabelled = (await recordSnapshot({ model: good.model, stimuli: good.npy, out: join(dir, 'base-unlabelled'), batch: 4 })).folder;
+  good.unlabelled = (await recordSnapshot({ model: good.model, stimuli: good.npy, labels: 'none', out: join(dir, 'base-unlabelled'), batch: 4 })).folder;
   good.spec = spec('good.yaml', 'site: relu1\nkind: uniform\nstrength: 1.5\n');
   good.mod = (await recordModulated({ model: good.model, stimuli: good.npy, labels: good.labels, out: join(dir, 'mod'), modulate: good.spec, from: good.base })).folder;
 }, 120_000);

@@ -2,7 +2,7 @@ import type { Command } from 'commander';
 import { recordSnapshot, displayPath } from '../../record/record-snapshot.js';
 import { recordModulated } from '../../record/record-modulated.js';
 import { loadModulationTables } from '../../replay/modulation-tables.js';
-import { parseChannelList, parseShape, parseSize } from '../../stimuli/preprocess.js';
+import { parseChannelList, parseFit, parseInterpolation, parseNormalise, parseShape, parseSize } from '../../stimuli/preprocess.js';
 import { UsageError } from '../../errors.js';
 import { finiteNumber, megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
 import { parseShard } from '../../record/shard.js';
@@ -22,6 +22,9 @@ interface RecordCliOptions {
   mean?: string;
   std?: string;
   bgr?: boolean;
+  normalise?: string;
+  fit?: string;
+  interpolation?: string;
   inputShape?: string;
   force?: boolean;
   modulate?: string;
@@ -42,13 +45,16 @@ export function registerRecord(program: Command): void {
     .argument('<model>', 'ONNX model file')
     .requiredOption('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W]')
     .requiredOption('--out <dir>', 'snapshot folder (a bare name goes under snapshots/)')
-    .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
+    .option('--labels <csv>', 'labels: for .npy a CSV with one "label" column in row order (default: the labels file beside it; none: no labels); for a folder a path,label CSV (default: its labels file; folders: by subfolder)')
     .option('--layers <selector>', 'default | all | op:Relu,Conv | name globs, joined by +', 'default')
     .option('--keep <what>', 'full (activations and channel means) or channels (channel means only)', 'full')
     .option('--dtype <type>', 'activation storage: float32 or float16', 'float32')
     .option('--batch <n>', 'stimuli per batch', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--size <HxW>', 'image size (default: the model input size)')
+    .option('--fit <mode>', 'squash (stretch to the input size), crop[:S] (shorter side to S, default the input size, then the centre) or letterbox (fit inside, pad with the mean colour)', 'squash')
+    .option('--interpolation <kernel>', 'resizing kernel: nearest, bilinear, bicubic or lanczos3', 'lanczos3')
+    .option('--normalise <preset>', 'imagenet (ImageNet mean/std), unit ([0,1]) or signed ([-1,1]); instead of --mean/--std')
     .option('--mean <a,b,c>', 'per-channel mean after scaling to [0,1] (default: model sidecar, else 0)')
     .option('--std <a,b,c>', 'per-channel std after scaling to [0,1] (default: model sidecar, else 1)')
     .option('--bgr', 'feed channels in BGR order')
@@ -83,6 +89,9 @@ export function registerRecord(program: Command): void {
           ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
           ...(opts.std ? { std: parseChannelList(opts.std, 0, '--std') } : {}),
           ...(opts.bgr ? { bgr: true } : {}),
+          ...(opts.fit !== undefined ? parseFit(opts.fit) : {}),
+          ...(opts.interpolation !== undefined ? { interpolation: parseInterpolation(opts.interpolation) } : {}),
+          ...(opts.normalise !== undefined ? { normalise: parseNormalise(opts.normalise) } : {}),
           ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
           ...(opts.force ? { force: true } : {}),
           ...(opts.resume ? { resume: true } : {}),
