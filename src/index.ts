@@ -33,6 +33,8 @@ export { inspectModel, type ModelInspection, type LayerInfo, type InspectOptions
 export { recordSnapshot, type RecordOptions, type RecordSummary, type RecordProgress } from './record/record-snapshot.js';
 export { recordModulated, type RecordModulatedOptions } from './record/record-modulated.js';
 export { mergeSnapshots, type MergeOptions, type MergeSummary } from './record/merge.js';
+export { exportSnapshot, type ExportOptions, type ExportResult } from './export/export-snapshot.js';
+export { axisNames, EXPORT_FORMAT, type ExportDescription, type ExportLayer, type ExportArrayFile } from './export/export-description.js';
 export { parseShard, shardRange, type ShardSpec, type ShardRange } from './record/shard.js';
 
 // compare: diff, tune, tables
