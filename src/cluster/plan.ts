@@ -88,7 +88,7 @@ export async function planClusterRun(options: ClusterPlanOptions): Promise<Clust
 
   // where the result goes (record: a bare name goes under snapshots/, as for record itself)
   const result = job.kind === 'diff' ? join(run, 'result.json') : job.kind === 'record' ? recordOutFolder(job.out!, cwd) : at(job.out!);
-  if (result === run || result.startsWith(`${run}/`) || run.startsWith(`${result}/`)) {
+  if (job.kind !== 'diff' && (result === run || result.startsWith(`${run}/`) || run.startsWith(`${result}/`))) {
     throw new UsageError('E_CLUSTER_PLAN', `the result ${result} and the run folder ${run} must be apart (neither inside the other)`, { hint: 'give --out a path outside the run folder' });
   }
 
