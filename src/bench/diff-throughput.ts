@@ -1,10 +1,12 @@
 import { execFileSync } from 'node:child_process';
+import { createHash } from 'node:crypto';
 import { mkdirSync, statSync } from 'node:fs';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { LayerFileWriter } from '../snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type SnapshotManifest } from '../snapshot/manifest.js';
-import { writeStimuliFile } from '../snapshot/stimuli-file.js';
+import { stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
+import { listingDigest } from '../stimuli/source.js';
 import { TOOL_VERSION } from '../version.js';
 import { scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
@@ -46,12 +48,15 @@ export function writeSynthetic(folder: string, gain: number, modulated: boolean)
     bytes += result.bytes;
     return { name: layer.name, op: 'Relu', depth, shape: layer.shape, dtype: 'float32' as const, keep: 'full' as const, file, sha256: result.sha256, bytes: result.bytes, rows: result.rows };
   });
-  writeStimuliFile(join(folder, 'stimuli.arrow'), ids, labels);
+  // synthetic per-stimulus digests (of the id): readers verify the table against the manifest
+  const digests = new Uint8Array(STIMULI * 32);
+  ids.forEach((id, i) => digests.set(createHash('sha256').update(id).digest(), i * 32));
+  const table = writeStimuliFile(join(folder, 'stimuli.arrow'), ids, labels, { digests });
   const manifest: SnapshotManifest = {
     format: FORMAT_VERSION,
     tool: { name: 'sonde', version: TOOL_VERSION },
     model: { file: 'synthetic.onnx', sha256: '0'.repeat(64), input: { name: 'input', shape: [3, 64, 64] } },
-    stimuli: { source: 'synthetic', count: STIMULI, digest: 'f'.repeat(64), listingDigest: 'e'.repeat(64), categories: ['even', 'odd'] },
+    stimuli: { source: 'synthetic', count: STIMULI, digest: stimuliDigest(digests), listingDigest: listingDigest({ ids, labels }), categories: ['even', 'odd'], table: { sha256: table.sha256, bytes: table.bytes } },
     preprocessing: null,
     modulation: modulated ? { spec: 'synthetic', modulations: [{ site: 'block1' }] } : null,
     readout: null,

@@ -4,22 +4,38 @@
  * target, fsync the folder (POSIX rename(2) is atomic; the directory entry is durable only after an
  * fsync of the directory). A failed write (a full disk) deletes the temporary file and leaves the
  * target as it was.
+ *
+ * The temporary file has a name of its own per writer (`PATH.<pid>-<8 hex>.partial`) and is created
+ * exclusively (O_CREAT|O_EXCL, which never follows a symbolic link): a link planted at a temporary name
+ * cannot redirect the write, and two processes writing one output at once each write whole files — the
+ * last rename wins, none is torn.
  */
+import { randomBytes } from 'node:crypto';
 import { closeSync, fsyncSync, openSync, renameSync, rmSync, writeSync } from 'node:fs';
 import { dirname } from 'node:path';
 import { writeFailure, type WriteFault } from './write-failure.js';
 
+/** Matches the suffix `uniqueTemporary` appends (`.<pid>-<8 hex>.partial`). */
+export const UNIQUE_TEMPORARY = /\.\d+-[0-9a-f]{8}\.partial$/;
+
+/** A temporary name beside `path` that no other writer uses: `PATH.<pid>-<8 random hex>.partial`. */
+export function uniqueTemporary(path: string): string {
+  return `${path}.${process.pid}-${randomBytes(4).toString('hex')}.partial`;
+}
+
 /**
  * Replaces the file at `path` with `content` (text is written as UTF-8) atomically; the temporary file
- * is `PATH.partial` beside it and is removed again when the write fails.
+ * (`uniqueTemporary`, created exclusively) is removed again when the write fails.
  * @throws RuntimeFailure (E_WRITE) naming the file when it cannot be written (e.g. the disk is full).
  */
 export function replaceFile(path: string, content: string | Uint8Array): void {
-  const temporary = `${path}.partial`;
+  const temporary = uniqueTemporary(path);
   const bytes = typeof content === 'string' ? Buffer.from(content, 'utf8') : content;
   let written = false;
+  let created = false;
   try {
-    const fd = openSync(temporary, 'w');
+    const fd = openSync(temporary, 'wx', 0o644);
+    created = true;
     try {
       let offset = 0;
       while (offset < bytes.byteLength) {
@@ -35,7 +51,7 @@ export function replaceFile(path: string, content: string | Uint8Array): void {
     written = true;
     syncFolder(dirname(path));
   } catch (error) {
-    if (!written) rmSync(temporary, { force: true });
+    if (!written && created) rmSync(temporary, { force: true });
     throw writeFailure(path, error);
   }
 }

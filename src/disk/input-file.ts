@@ -5,9 +5,9 @@
  * link is followed, but a file that must live in a folder (a layer file in its snapshot, external
  * weights beside their model) must resolve there: its real path must lie inside the folder's real path.
  */
-import { realpathSync, statSync, type Stats } from 'node:fs';
+import { closeSync, constants, fstatSync, openSync, readSync, realpathSync, statSync, type Stats } from 'node:fs';
 import { isAbsolute, relative, sep } from 'node:path';
-import { UsageError } from '../errors.js';
+import { RuntimeFailure, UsageError } from '../errors.js';
 
 /**
  * What a non-regular file is, in words, from its `stat` (symbolic links already followed).
@@ -62,4 +62,82 @@ export function realPathInside(folder: string, path: string, what: string): stri
     });
   }
   return real;
+}
+
+/**
+ * Size limits of the files Sonde reads whole into memory, by kind. A file over its limit is refused
+ * before it is read (a `/dev/zero` or a runaway export would otherwise grow the process until it
+ * aborts). JSON is parsed as one string, and V8 strings end at 2^29 − 24 characters, so no JSON kind
+ * may exceed 512 MiB.
+ */
+export const INPUT_LIMITS = {
+  /** Modulation specs, model sidecars, a snapshot's manifest, progress and lock files. */
+  json: 64 * 2 ** 20,
+  /** A spec's per-channel `values` file (.npy or JSON). */
+  values: 64 * 2 ** 20,
+  /** A partial-statistics file (grows with stimuli × layers). */
+  partial: 500 * 2 ** 20,
+  /** `report` inputs (diff.json, sweep.json, comparison.json). */
+  report: 256 * 2 ** 20,
+  /** Tuning and sensitivity tables, `stimuli.arrow`. */
+  table: 1024 * 2 ** 20,
+  /** A CSV stimulus listing or labels file. */
+  listing: 256 * 2 ** 20,
+} as const;
+
+/**
+ * Reads a whole user file safely: opened without blocking (a FIFO then opens at once instead of waiting
+ * for a writer), checked by `fstat` on the open descriptor (so a file swapped after an earlier check is
+ * still caught) to be a regular file no larger than `limit`, and read to its end — at most `limit`
+ * bytes, whatever the file claims.
+ * @param path the file (links followed).
+ * @param what how messages name it, e.g. `modulation spec gain.yaml`.
+ * @param limit the largest size accepted, in bytes (see `INPUT_LIMITS`).
+ * @returns the bytes.
+ * @throws UsageError `E_NOT_A_FILE` (a FIFO, device, socket or folder), `E_INPUT_TOO_LARGE` (over
+ *   `limit`); errors of `open` itself (ENOENT, EACCES) are passed through for the caller's message.
+ */
+export function readInputFile(path: string, what: string, limit: number): Buffer {
+  const fd = openSync(path, constants.O_RDONLY | constants.O_NONBLOCK);
+  try {
+    const stats = fstatSync(fd);
+    const kind = describeNonRegular(stats);
+    if (kind) {
+      throw new UsageError('E_NOT_A_FILE', `${what} is ${kind}, not a regular file; Sonde reads only regular files`, {
+        hint: 'pass the path of an ordinary file (copy the data into one)',
+      });
+    }
+    const tooLarge = (size: string) =>
+      new UsageError('E_INPUT_TOO_LARGE', `${what} is ${size}, more than the ${megabytes(limit)} Sonde reads for this kind of file`, { hint: 'check that this is the right file' });
+    if (stats.size > limit) throw tooLarge(megabytes(stats.size));
+    let bytes = Buffer.allocUnsafe(Math.min(limit, stats.size) + 1);
+    let length = 0;
+    for (;;) {
+      if (length === bytes.length) {
+        // the file grew since fstat: read on, but never past the limit
+        if (length > limit) throw tooLarge(`larger than ${megabytes(limit)} (it grew while being read)`);
+        const grown = Buffer.allocUnsafe(Math.min(limit + 1, 2 * length + 1));
+        bytes.copy(grown, 0, 0, length);
+        bytes = grown;
+      }
+      const read = readSync(fd, bytes, length, bytes.length - length, null);
+      if (read === 0) break;
+      length += read;
+    }
+    return bytes.subarray(0, length);
+  } catch (error) {
+    if ((error as NodeJS.ErrnoException).code === 'EAGAIN') throw new RuntimeFailure('E_INPUT_READ', `${what} cannot be read without waiting (EAGAIN)`, { hint: 'pass an ordinary file' });
+    throw error;
+  } finally {
+    closeSync(fd);
+  }
+}
+
+/** Reads a UTF-8 text file through `readInputFile`. */
+export function readInputText(path: string, what: string, limit: number): string {
+  return readInputFile(path, what, limit).toString('utf8');
+}
+
+function megabytes(bytes: number): string {
+  return bytes >= 2 ** 20 ? `${(bytes / 2 ** 20).toFixed(bytes % 2 ** 20 === 0 ? 0 : 1)} MiB` : `${bytes} bytes`;
 }

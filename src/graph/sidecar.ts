@@ -1,6 +1,8 @@
-import { existsSync, readFileSync } from 'node:fs';
+import { existsSync } from 'node:fs';
+import { z } from 'zod';
 import { UsageError } from '../errors.js';
-import { parseJson } from '../json.js';
+import { parseJson, schemaProblem } from '../json.js';
+import { INPUT_LIMITS, readInputText } from '../disk/input-file.js';
 
 /** Optional JSON beside a model (`net.onnx` → `net.json`) that says how to feed and read it. */
 export interface ModelSidecar {
@@ -12,6 +14,30 @@ export interface ModelSidecar {
   layers?: Array<{ name: string; stage?: string }>;
 }
 
+const positive = z.number().int().positive().max(Number.MAX_SAFE_INTEGER);
+const finite = z.number().finite();
+
+/** A model's readout (sidecar `outputs`, manifest `readout`): output tensor, unit categories, optional finite threshold. */
+export const readoutSchema = z.looseObject({
+  name: z.string().min(1),
+  kinds: z.array(z.string()),
+  threshold: finite.optional(),
+});
+
+/** Schema of a sidecar; every field optional, each of its type when present. */
+export const sidecarSchema = z.looseObject({
+  preprocessing: z
+    .looseObject({
+      size: z.tuple([positive, positive]).optional(),
+      mean: z.array(finite).min(1).optional(),
+      std: z.array(finite.refine((v) => v !== 0, 'must not be 0')).min(1).optional(),
+      bgr: z.boolean().optional(),
+    })
+    .optional(),
+  outputs: readoutSchema.optional(),
+  layers: z.array(z.looseObject({ name: z.string().min(1), stage: z.string().optional() })).optional(),
+});
+
 /** Path of a model's sidecar. */
 export function sidecarPath(modelPath: string): string {
   return modelPath.replace(/\.onnx$/i, '') + '.json';
@@ -19,30 +45,21 @@ export function sidecarPath(modelPath: string): string {
 
 /**
  * Reads the sidecar of `modelPath` when there is one; returns null otherwise.
- * @throws UsageError when the sidecar exists but is not valid JSON of the expected form.
+ * @throws UsageError when the sidecar exists but is not a regular file, too large, not valid JSON, or a
+ *   field is of the wrong type (the message names the field path).
  */
 export function readSidecar(modelPath: string): ModelSidecar | null {
   const path = sidecarPath(modelPath);
   if (path === modelPath || !existsSync(path)) return null;
   let value: unknown;
+  const text = readInputText(path, `model sidecar ${path}`, INPUT_LIMITS.json);
   try {
-    value = parseJson(readFileSync(path, 'utf8'));
+    value = parseJson(text);
   } catch (error) {
     throw new UsageError('E_SIDECAR', `model sidecar ${path} is not valid JSON (${(error as Error).message})`);
   }
-  if (typeof value !== 'object' || value === null) throw new UsageError('E_SIDECAR', `model sidecar ${path} must be a JSON object`);
-  const sidecar = value as ModelSidecar;
-  const prep = sidecar.preprocessing;
-  if (prep) {
-    for (const key of ['mean', 'std'] as const) {
-      const list = prep[key];
-      if (list !== undefined && (!Array.isArray(list) || !list.every((v) => typeof v === 'number' && Number.isFinite(v)))) {
-        throw new UsageError('E_SIDECAR', `model sidecar ${path}: preprocessing.${key} must be a list of numbers`);
-      }
-    }
-  }
-  if (sidecar.outputs && (typeof sidecar.outputs.name !== 'string' || !Array.isArray(sidecar.outputs.kinds))) {
-    throw new UsageError('E_SIDECAR', `model sidecar ${path}: outputs must be {"name": ..., "kinds": [...]}`);
-  }
-  return sidecar;
+  if (typeof value !== 'object' || value === null || Array.isArray(value)) throw new UsageError('E_SIDECAR', `model sidecar ${path} must be a JSON object`);
+  const problem = schemaProblem(sidecarSchema, value);
+  if (problem) throw new UsageError('E_SIDECAR', `model sidecar ${path}: ${problem}`, { hint: 'fix the field or remove the sidecar' });
+  return value as ModelSidecar;
 }

@@ -20,10 +20,10 @@
  * either means exactly what it says or is rejected. Every message starts with the source and the field
  * path, e.g. `spec.yaml: modulations[1].strength must be a finite number, got "abc"`.
  */
-import { readFileSync } from 'node:fs';
+import { INPUT_LIMITS, readInputText } from '../disk/input-file.js';
 import { dirname, isAbsolute, resolve as resolvePath } from 'node:path';
 import { parseDocument } from 'yaml';
-import { closestHint, RuntimeFailure, UsageError } from '../errors.js';
+import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { readValuesFile } from './values-file.js';
 import {
   MODULATION_KINDS,
@@ -88,8 +88,9 @@ export function parseModulationSpec(text: string, options: ParseSpecOptions): Mo
 export function loadModulationSpec(path: string): ModulationSpec {
   let text: string;
   try {
-    text = readFileSync(path, 'utf8');
+    text = readInputText(path, `modulation spec ${JSON.stringify(path)}`, INPUT_LIMITS.json);
   } catch (error) {
+    if (error instanceof SondeError) throw error;
     const code = error instanceof Error && 'code' in error ? (error as NodeJS.ErrnoException).code : undefined;
     if (code === 'ENOENT' || code === 'ENOTDIR') {
       throw new UsageError('E_SPEC_READ', `modulation spec ${JSON.stringify(path)} not found`, { hint: 'pass the path of a .yaml or .json spec file' });

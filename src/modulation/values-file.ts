@@ -17,9 +17,9 @@
  * `.npy` files (see `src/stimuli/npy.ts`) must hold a float or integer array with exactly one axis longer
  * than 1 (shapes `[C]`, `[1, C]`, `[C, 1]` …); NaN/Inf elements are errors.
  */
-import { readFileSync } from 'node:fs';
+import { INPUT_LIMITS, readInputFile } from '../disk/input-file.js';
 import { extname } from 'node:path';
-import { RuntimeFailure, UsageError } from '../errors.js';
+import { RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { parseNpy } from '../stimuli/npy.js';
 
 /** File extensions accepted for `values`. */
@@ -46,8 +46,9 @@ export function readValuesFile(path: string, label: string): number[] {
   let bytes: Uint8Array;
   try {
     // a plain copy: parseNpy's `slice` would share memory (and offsets) with a Node Buffer
-    bytes = new Uint8Array(readFileSync(path));
+    bytes = new Uint8Array(readInputFile(path, `${label}: values file ${path}`, INPUT_LIMITS.values));
   } catch (error) {
+    if (error instanceof SondeError) throw error;
     const code = error instanceof Error && 'code' in error ? (error as NodeJS.ErrnoException).code : undefined;
     if (code === 'ENOENT' || code === 'ENOTDIR') {
       throw new UsageError('E_SPEC_VALUES', `${label}: file not found (${path})`, {

@@ -1,7 +1,7 @@
 import { existsSync, lstatSync, mkdirSync, readdirSync, readFileSync, realpathSync, rmdirSync, rmSync, statSync } from 'node:fs';
 import { basename, dirname, join, resolve, sep } from 'node:path';
 import { UsageError } from '../errors.js';
-import { replaceFile } from '../disk/atomic-file.js';
+import { replaceFile, UNIQUE_TEMPORARY } from '../disk/atomic-file.js';
 import { acquireLock, LOCK_FILE, type FolderLock } from '../disk/lock.js';
 import { readManifest, type SnapshotManifest } from '../snapshot/manifest.js';
 import { DIGEST_LOG_FILE, PROGRESS_FILE, readProgress, type ProgressRecord } from '../snapshot/progress-file.js';
@@ -31,8 +31,13 @@ export const SNAPSHOT_ENTRIES: ReadonlySet<string> = new Set([
   LOCK_FILE,
 ]);
 
-/** How a recording names its layer files: `layers/DDD-slug.arrow` (and `.partial` while written). */
-const LAYER_FILE = /^\d{3,}-[A-Za-z0-9._-]+\.arrow(\.partial)?$/;
+/**
+ * Whether a top-level name is one of `entries` or the per-writer temporary of one of them
+ * (`manifest.json.<pid>-<8 hex>.partial`, see `uniqueTemporary`).
+ */
+function isOwnEntry(name: string, entries: ReadonlySet<string>): boolean {
+  return entries.has(name) || (UNIQUE_TEMPORARY.test(name) && entries.has(name.replace(UNIQUE_TEMPORARY, '')));
+}
 
 /** What an output folder holds, decided before anything in it is touched. */
 export interface OutFolderState {
@@ -64,17 +69,19 @@ export function inspectOutFolder(folder: string): OutFolderState {
   }
   const owned: string[] = [];
   const foreign: string[] = [];
-  const listed = listedLayerFiles(join(folder, 'manifest.json'));
+  const listed = listedLayerFiles(folder);
   for (const name of readdirSync(folder).sort()) {
     const stat = lstatSync(join(folder, name));
     if (name === 'layers' && stat.isDirectory()) {
       for (const file of readdirSync(join(folder, name)).sort()) {
         const path = `layers/${file}`;
-        if ((LAYER_FILE.test(file) || listed.has(path)) && lstatSync(join(folder, path)).isFile()) {
+        // a layer file is Sonde's only when the manifest or the checkpoint lists it (a user's own
+        // layers/900-export.arrow is never deleted, whatever its name looks like)
+        if (listed.has(path) && lstatSync(join(folder, path)).isFile()) {
           owned.push(path);
         } else foreign.push(path);
       }
-    } else if (SNAPSHOT_ENTRIES.has(name) && stat.isFile()) {
+    } else if (isOwnEntry(name, SNAPSHOT_ENTRIES) && stat.isFile()) {
       if (name !== LOCK_FILE) owned.push(name);
     } else foreign.push(name);
   }
@@ -83,7 +90,7 @@ export function inspectOutFolder(folder: string): OutFolderState {
   if (!hasManifest) {
     // what a run killed before its first manifest leaves behind does not make the folder foreign;
     // anything else without a manifest is not known to be Sonde's
-    const unexplained = owned.filter((name) => name !== 'manifest.json.partial');
+    const unexplained = owned.filter((name) => !name.startsWith('manifest.json.') || !name.endsWith('.partial'));
     if (foreign.length === 0 && unexplained.length === 0) return state('fresh', false);
     foreign.push(...unexplained);
     owned.length = 0;
@@ -118,17 +125,27 @@ function sondeManifestJson(path: string): { layers?: unknown } | null {
   }
 }
 
-/** The layer files (`layers/NAME` and their `.partial`) a Sonde manifest file lists; empty for any other file. */
-function listedLayerFiles(manifestPath: string): Set<string> {
+/**
+ * The layer files (`layers/NAME` and their `.partial`) that the folder's Sonde manifest file (valid or
+ * not) or its checkpoint (`progress.json`) lists; empty when neither is Sonde's.
+ */
+function listedLayerFiles(folder: string): Set<string> {
   const listed = new Set<string>();
-  const layers = sondeManifestJson(manifestPath)?.layers;
-  if (!Array.isArray(layers)) return listed;
-  for (const layer of layers as Array<{ file?: unknown; from?: unknown } | null>) {
-    const file = layer?.file;
+  const add = (file: unknown) => {
     // only plain names inside layers/ (a file "from" the baseline lives in the baseline's folder)
-    if (typeof file !== 'string' || layer?.from === 'baseline' || !/^layers\/[^/\\]+$/.test(file) || file.includes('..')) continue;
+    if (typeof file !== 'string' || !/^layers\/[^/\\]+$/.test(file) || file.includes('..')) return;
     listed.add(file);
     listed.add(`${file}.partial`);
+  };
+  const layers = sondeManifestJson(join(folder, 'manifest.json'))?.layers;
+  if (Array.isArray(layers)) {
+    for (const layer of layers as Array<{ file?: unknown; from?: unknown } | null>) if (layer?.from !== 'baseline') add(layer?.file);
+  }
+  try {
+    const progress = readProgress(folder);
+    if (progress) for (const file of Object.keys(progress.files)) add(file);
+  } catch {
+    // an unreadable checkpoint lists nothing
   }
   return listed;
 }
@@ -188,7 +205,7 @@ export const SWEEP_ENTRIES: ReadonlySet<string> = new Set(['cells.jsonl', 'cells
 export function prepareSweepFolder(folder: string): void {
   if (existsSync(folder)) {
     if (!statSync(folder).isDirectory()) throw new UsageError('E_OUT', `--out ${folder} exists and is not a folder`, { hint: 'choose a new or empty folder' });
-    const foreign = readdirSync(folder).sort().filter((name) => !SWEEP_ENTRIES.has(name) || !lstatSync(join(folder, name)).isFile());
+    const foreign = readdirSync(folder).sort().filter((name) => !isOwnEntry(name, SWEEP_ENTRIES) || !lstatSync(join(folder, name)).isFile());
     if (foreign.length > 0) {
       throw new UsageError('E_OUT', `--out ${folder} is not empty and is not a sweep folder (found ${foreign.slice(0, 20).join(', ')}${foreign.length > 20 ? ', …' : ''}); refusing to write into it`, {
         hint: 'choose a new or empty folder for the sweep',

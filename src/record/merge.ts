@@ -155,7 +155,9 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
         }
         options.onLayer?.(i + 1, layers.length, entry.name);
       }
-      bytesWritten += writeStimuliFile(join(folder, 'stimuli.arrow'), ids, labels, { digests }).bytes;
+      const stimuliFile = writeStimuliFile(join(folder, 'stimuli.arrow'), ids, labels, { digests });
+      bytesWritten += stimuliFile.bytes;
+      manifest.stimuli.table = { sha256: stimuliFile.sha256, bytes: stimuliFile.bytes };
       manifest.complete = true;
       writeManifest(folder, manifest);
     } catch (error) {

@@ -8,19 +8,24 @@
  * File layout (our own): `{ kind: "sonde.partial", version: 1, of: "diff" | "tune" | "sense", shard:
  * {index, count, stimuli: [first, last], total}, key: {…}, data: {…} }`; typed arrays are stored as
  * `{ dtype: "f64" | "f32" | "i32", base64 }` of their little-endian bytes, which keeps NaN and ±Infinity
- * (JSON numbers cannot) and every bit of every value. Parts must have equal `key`s.
+ * (JSON numbers cannot) and every bit of every value. Parts must have equal `key`s. Version 2 adds
+ * `sha256`, the SHA-256 of the file's JSON text without that field (the object serialised by
+ * `JSON.stringify` in its written key order): `merge` recomputes it, so a flipped character anywhere —
+ * a base64 digit of a score — is refused instead of merged into other numbers.
  */
-import { readFileSync } from 'node:fs';
-import { UsageError } from '../errors.js';
+import { createHash } from 'node:crypto';
+import { z } from 'zod';
+import { SondeError, UsageError } from '../errors.js';
 import { replaceFile } from '../disk/atomic-file.js';
-import { parseJson } from '../json.js';
+import { parseJson, schemaProblem } from '../json.js';
+import { INPUT_LIMITS, readInputText } from '../disk/input-file.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { shardRange, type ShardSpec } from './shard.js';
 
 /** Tag of a partial-statistics file. */
 export const PARTIAL_KIND = 'sonde.partial';
 /** Version of the partial-statistics layout. */
-export const PARTIAL_VERSION = 1;
+export const PARTIAL_VERSION = 2;
 
 /** A typed array as stored in a partial file. */
 export interface EncodedArray {
@@ -104,25 +109,48 @@ export function partialObject(value: unknown, what: string): Record<string, unkn
 }
 
 
+const count = z.number().int().nonnegative().max(Number.MAX_SAFE_INTEGER);
+
+/** Schema of the envelope; `data` is checked by each kind's merge, field by field. */
+const partialSchema = z.looseObject({
+  kind: z.literal(PARTIAL_KIND),
+  version: z.literal(PARTIAL_VERSION),
+  of: z.enum(['diff', 'tune', 'sense']),
+  shard: z.looseObject({ index: count.min(1), count: count.min(1), stimuli: z.tuple([count, count]), total: count }),
+  key: z.record(z.string(), z.unknown()),
+  data: z.record(z.string(), z.unknown()),
+  sha256: z.string().regex(/^[0-9a-f]{64}$/, 'must be 64 lower-case hex digits'),
+});
+
+/** SHA-256 of a partial's JSON text without its `sha256` field. */
+function partialDigest(partial: Record<string, unknown>): string {
+  const { sha256: _digest, ...rest } = partial;
+  return createHash('sha256').update(JSON.stringify(rest)).digest('hex');
+}
+
 /**
- * Writes a partial file atomically (temporary name, fsync, rename).
+ * Writes a partial file atomically (temporary name, fsync, rename), with its digest.
  * @throws RuntimeFailure when it cannot be written.
  */
 export function writePartial(path: string, partial: PartialFile): { bytes: number } {
-  const text = `${JSON.stringify(partial)}\n`;
+  const body = partial as unknown as Record<string, unknown>;
+  const text = `${JSON.stringify({ ...body, sha256: partialDigest(body) })}\n`;
   replaceFile(path, text);
   return { bytes: Buffer.byteLength(text) };
 }
 
 /**
- * Reads and checks the envelope of a partial file.
- * @throws UsageError when the file is missing, not JSON, not a partial file, or of another version.
+ * Reads and checks a partial file: a regular file within the size limit, valid JSON, the envelope's
+ * schema (field paths named), and the digest over its content.
+ * @throws UsageError when the file is missing, not JSON, not a partial file, of another version, has a
+ *   field of the wrong type, or its content does not match its digest (damaged after it was written).
  */
 export function readPartial(path: string): PartialFile {
   let text: string;
   try {
-    text = readFileSync(path, 'utf8');
+    text = readInputText(path, `partial file ${path}`, INPUT_LIMITS.partial);
   } catch (error) {
+    if (error instanceof SondeError) throw error;
     throw new UsageError('E_PARTIAL', `partial file ${path} cannot be read (${(error as NodeJS.ErrnoException).code ?? (error as Error).message})`);
   }
   let value: unknown;
@@ -131,16 +159,16 @@ export function readPartial(path: string): PartialFile {
   } catch (error) {
     throw new UsageError('E_PARTIAL', `${path} is not valid JSON (${(error as Error).message})`, { hint: 'pass files written by diff/tune --partial' });
   }
-  const v = typeof value === 'object' && value !== null ? (value as Record<string, unknown>) : {};
+  const v = typeof value === 'object' && value !== null && !Array.isArray(value) ? (value as Record<string, unknown>) : {};
   if (v['kind'] !== PARTIAL_KIND) throw new UsageError('E_PARTIAL', `${path} is not a Sonde partial-statistics file`, { hint: 'pass files written by diff/tune --partial, or snapshot folders' });
-  if (v['version'] !== PARTIAL_VERSION) throw new UsageError('E_PARTIAL', `${path} has partial-statistics version ${JSON.stringify(v['version'])}; this Sonde reads ${PARTIAL_VERSION}`);
-  if (v['of'] !== 'diff' && v['of'] !== 'tune' && v['of'] !== 'sense') throw new UsageError('E_PARTIAL', `${path}: "of" must be "diff", "tune" or "sense", got ${JSON.stringify(v['of'])}`);
-  const s = v['shard'] as Record<string, unknown> | undefined;
-  const int = (x: unknown) => Number.isSafeInteger(x) && (x as number) >= 0;
-  if (!s || !int(s['index']) || !int(s['count']) || !int(s['total']) || !Array.isArray(s['stimuli']) || s['stimuli'].length !== 2 || !s['stimuli'].every(int)) {
-    throw new UsageError('E_PARTIAL', `${path}: "shard" must be {index, count, stimuli: [first, last], total}`);
+  if (v['version'] !== PARTIAL_VERSION) {
+    throw new UsageError('E_PARTIAL', `${path} has partial-statistics version ${JSON.stringify(v['version'])}; this Sonde reads ${PARTIAL_VERSION}`, { hint: 'write the parts again with this version (diff/tune/sense --partial)' });
   }
-  if (typeof v['key'] !== 'object' || v['key'] === null || typeof v['data'] !== 'object' || v['data'] === null) throw new UsageError('E_PARTIAL', `${path} lacks "key" or "data"`);
+  const problem = schemaProblem(partialSchema, v);
+  if (problem) throw new UsageError('E_PARTIAL', `${path}: ${problem}`, { hint: 'pass files written by diff/tune/sense --partial' });
+  if (partialDigest(v) !== v['sha256']) {
+    throw new UsageError('E_PARTIAL_INTEGRITY', `${path}: its content does not match its sha256 (the file changed or was damaged after it was written)`, { hint: 'write this part again with the same diff/tune/sense --partial command' });
+  }
   return value as PartialFile;
 }
 

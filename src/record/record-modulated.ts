@@ -232,7 +232,7 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
     format: FORMAT_VERSION,
     tool: { name: 'sonde', version: TOOL_VERSION },
     model: baseline.manifest.model,
-    stimuli: baseline.manifest.stimuli,
+    stimuli: { ...baseline.manifest.stimuli },
     preprocessing: baseline.manifest.preprocessing,
     modulation: run.manifestModulation,
     readout: baseline.manifest.readout ?? null,
@@ -345,7 +345,9 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
       Object.assign(changedEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows, ...(tally ? { nonFinite: tally.get(changedEntries[i]!.file) } : {}) });
       total += result.bytes;
     });
-    total += writeStimuliFile(join(folder, 'stimuli.arrow'), baseline.stimuli.ids, baseline.stimuli.labels, { firstIndex, ...(baseline.stimuli.digests ? { digests: baseline.stimuli.digests } : {}) }).bytes;
+    const stimuliFile = writeStimuliFile(join(folder, 'stimuli.arrow'), baseline.stimuli.ids, baseline.stimuli.labels, { firstIndex, ...(baseline.stimuli.digests ? { digests: baseline.stimuli.digests } : {}) });
+    total += stimuliFile.bytes;
+    manifest.stimuli.table = { sha256: stimuliFile.sha256, bytes: stimuliFile.bytes };
     const wallSeconds = (performance.now() - started) / 1000;
     manifest.run.wallSeconds = Math.round(wallSeconds * 1000) / 1000;
     manifest.complete = true;

@@ -11,7 +11,7 @@
  * cells; concatenated shards carry one header each, and every header must match.
  */
 import { createHash } from 'node:crypto';
-import { readFileSync } from 'node:fs';
+import { INPUT_LIMITS, readInputFile } from '../disk/input-file.js';
 import { join } from 'node:path';
 import { UsageError } from '../errors.js';
 import { TOOL_VERSION } from '../version.js';
@@ -59,7 +59,7 @@ const INPUT_NAMES: Record<keyof SweepInputs, string> = {
 
 /** SHA-256 (hex) of a file's bytes; a missing file is the caller's error to report first. */
 function fileSha256(path: string): string {
-  return createHash('sha256').update(readFileSync(path)).digest('hex');
+  return createHash('sha256').update(readInputFile(path, path, INPUT_LIMITS.table)).digest('hex');
 }
 
 /**

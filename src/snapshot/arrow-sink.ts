@@ -1,5 +1,6 @@
 import { createHash, type Hash } from 'node:crypto';
-import { closeSync, fstatSync, fsyncSync, ftruncateSync, openSync, readSync, renameSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, constants, fstatSync, fsyncSync, ftruncateSync, openSync, readSync, renameSync, rmSync, writeSync } from 'node:fs';
+import { uniqueTemporary } from '../disk/atomic-file.js';
 import { AsyncByteQueue } from 'apache-arrow';
 import { RuntimeFailure } from '../errors.js';
 import { writeFailure, type WriteFault } from '../disk/write-failure.js';
@@ -20,27 +21,32 @@ export class HashingFileSink extends AsyncByteQueue {
   private readonly temporaryPath: string;
 
   /**
-   * @param finalPath the name the file gets on `commit`; it is written as `finalPath.partial`.
+   * @param finalPath the name the file gets on `commit`; it is written as `finalPath.partial` (inside a
+   *   locked snapshot folder, where a resume finds it again), or with `unique` under a name of this
+   *   writer's own (`uniqueTemporary`: single-file outputs two processes might write at once). A fresh
+   *   temporary is created exclusively (an entry already at a fixed name — a leftover, or a planted
+   *   link — is removed first, never followed); a resumed one is opened without following links.
    * @param options `resumeAt`: keep the first `resumeAt` bytes of an existing `.partial` file (truncating
    *   anything after them) and append after them; `resumeSha256`: the SHA-256 those bytes had at the
-   *   checkpoint (from `prefixSha256`), checked before anything is truncated.
+   *   checkpoint (from `prefixSha256`), checked before anything is truncated; `unique`: see above.
    * @throws RuntimeFailure when the file cannot be opened, or (resuming) is missing, shorter than
    *   `resumeAt`, or its first `resumeAt` bytes no longer have the checkpoint's SHA-256.
    */
-  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string } = {}) {
+  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string; unique?: boolean } = {}) {
     super();
-    this.temporaryPath = `${finalPath}.partial`;
+    this.temporaryPath = options.unique ? uniqueTemporary(finalPath) : `${finalPath}.partial`;
     const resumeAt = options.resumeAt;
     if (resumeAt === undefined) {
       try {
-        this.fd = openSync(this.temporaryPath, 'w');
+        if (!options.unique) rmSync(this.temporaryPath, { force: true }); // unlinks a link itself, not its target
+        this.fd = openSync(this.temporaryPath, 'wx', 0o644);
       } catch (error) {
         throw writeFailure(this.temporaryPath, error);
       }
       return;
     }
     try {
-      this.fd = openSync(this.temporaryPath, 'r+');
+      this.fd = openSync(this.temporaryPath, constants.O_RDWR | constants.O_NOFOLLOW);
     } catch (error) {
       throw new RuntimeFailure('E_RESUME', `cannot resume ${this.temporaryPath}: ${(error as NodeJS.ErrnoException).code === 'ENOENT' ? 'the file is missing' : (error as Error).message}`, {
         hint: 'record again without --resume',

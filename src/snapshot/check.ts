@@ -12,18 +12,17 @@
  * Reading is streamed: one record batch at a time, files hashed in 4 MiB chunks. Nothing is written.
  */
 import { createHash } from 'node:crypto';
-import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, statSync } from 'node:fs';
+import { closeSync, existsSync, openSync, readdirSync, readSync, statSync } from 'node:fs';
 import { open } from 'node:fs/promises';
 import { join, resolve } from 'node:path';
-import { DataType, RecordBatchReader, tableFromIPC, type Field, type Schema } from 'apache-arrow';
+import { DataType, RecordBatchReader, type Field, type Schema } from 'apache-arrow';
 import { SondeError } from '../errors.js';
-import { listingDigest } from '../stimuli/source.js';
 import { readLockOwner, isStale, LOCK_FILE } from '../disk/lock.js';
 import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
-import { assertInside, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
-import { STIMULUS_DIGEST_BYTES, stimuliDigest } from './stimuli-file.js';
+import { assertInside, baselineLayerProblems, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
+import { verifyStimulusTable } from './stimuli-file.js';
 import { parseJson } from '../json.js';
-import { describeNonRegular, realPathInside } from '../disk/input-file.js';
+import { describeNonRegular, INPUT_LIMITS, readInputFile, readInputText, realPathInside } from '../disk/input-file.js';
 
 /** One thing that is wrong. */
 export interface CheckProblem {
@@ -78,7 +77,7 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
   }
   let manifest: SnapshotManifest;
   try {
-    manifest = validateManifest(parseJson(readFileSync(manifestPath, 'utf8')), folder);
+    manifest = validateManifest(parseJson(readInputText(manifestPath, 'manifest.json', INPUT_LIMITS.json)), folder);
   } catch (error) {
     problem('manifest.json', error instanceof SyntaxError ? `is not valid JSON (${error.message})` : firstLine(error));
     return report(false);
@@ -176,7 +175,9 @@ function hashFile(path: string): string {
 
 function noteLeftovers(root: string, notes: string[]): void {
   const leftovers: string[] = [];
-  for (const name of ['progress.json', 'stimuli.digests.partial', 'manifest.json.partial', 'stimuli.arrow.partial']) if (existsSync(join(root, name))) leftovers.push(name);
+  for (const name of readdirSync(root).sort()) {
+    if (name === 'progress.json' || name === 'stimuli.digests.partial' || name === 'stimuli.arrow.partial' || /^(manifest\.json|progress\.json)\.\d+-[0-9a-f]{8}\.partial$/.test(name)) leftovers.push(name);
+  }
   if (existsSync(join(root, 'layers'))) {
     for (const name of readdirSync(join(root, 'layers'))) if (name.endsWith('.partial')) leftovers.push(`layers/${name}`);
   }
@@ -191,7 +192,13 @@ function checkBaseline(manifest: SnapshotManifest, baselineRoot: string, problem
     problem('baseline', `${manifest.baseline!.path} (${baselineRoot}) is missing or not a snapshot`);
     return;
   }
-  const bytes = readFileSync(path);
+  let bytes: Buffer;
+  try {
+    bytes = readInputFile(path, `${manifest.baseline!.path}/manifest.json`, INPUT_LIMITS.json);
+  } catch (error) {
+    problem('baseline', firstLine(error));
+    return;
+  }
   if (createHash('sha256').update(bytes).digest('hex') !== manifest.baseline!.manifestSha256) {
     problem('baseline', `${manifest.baseline!.path}: its manifest changed since this snapshot was recorded (manifest SHA-256 differs); the pairing no longer holds`);
   }
@@ -206,6 +213,7 @@ function checkBaseline(manifest: SnapshotManifest, baselineRoot: string, problem
   if (base.model.sha256 !== manifest.model.sha256) problem('baseline', `${manifest.baseline!.path} was recorded from another model`);
   if (base.stimuli.digest !== manifest.stimuli.digest) problem('baseline', `${manifest.baseline!.path} was recorded on other stimuli (stimuli digests differ)`);
   if (base.layers.map((l) => l.name).join('\n') !== manifest.layers.map((l) => l.name).join('\n')) problem('baseline', `${manifest.baseline!.path} recorded other layers`);
+  for (const line of baselineLayerProblems(manifest, base)) problem('manifest.json', line);
 }
 
 function describeType(type: DataType): string {
@@ -299,48 +307,13 @@ function checkStimuli(root: string, manifest: SnapshotManifest, firstIndex: numb
     problem('stimuli.arrow', unsafe);
     return;
   }
-  let table;
+  let bytes: Uint8Array;
   try {
-    table = tableFromIPC(readFileSync(path));
+    bytes = readInputFile(path, 'it', INPUT_LIMITS.table);
   } catch (error) {
-    problem('stimuli.arrow', `is not a readable Arrow file (${firstLine(error)})`);
+    problem('stimuli.arrow', firstLine(error).replace(/^it /, ''));
     return;
   }
-  const count = manifest.stimuli.count;
-  if (table.numRows !== count) problem('stimuli.arrow', `holds ${table.numRows} rows, the manifest says ${count} stimuli`);
-  const index = table.getChild('index');
-  const ids = table.getChild('id');
-  const labelColumn = table.getChild('labels');
-  if (!index || !ids || !labelColumn) {
-    problem('stimuli.arrow', `lacks the ${['index', 'id', 'labels'].filter((n) => !table.getChild(n)).join(', ')} column`);
-    return;
-  }
-  for (let i = 0; i < table.numRows; i++) {
-    if (index.get(i) !== firstIndex + i) {
-      problem('stimuli.arrow', `row ${i} has index ${String(index.get(i))}, expected ${firstIndex + i}`);
-      break;
-    }
-  }
+  for (const line of verifyStimulusTable(bytes, manifest, { firstIndex, all: true }).problems) problem('stimuli.arrow', line);
   if (manifest.shard) notes.push('the listing digest covers the whole listing and is checked when the shards are merged');
-  else {
-    const idList = (ids.toArray() as string[]).map(String);
-    const labels: string[][] = [];
-    for (let i = 0; i < table.numRows; i++) labels.push(Array.from((labelColumn.get(i) as { toArray(): string[] } | null)?.toArray() ?? []).map(String));
-    if (listingDigest({ ids: idList, labels }) !== manifest.stimuli.listingDigest) problem('stimuli.arrow', 'ids and labels do not match the listing digest in the manifest');
-  }
-  const digests = table.getChild('sha256');
-  if (!digests) {
-    problem('stimuli.arrow', 'has no per-stimulus sha256 column, so the stimuli digest cannot be verified');
-    return;
-  }
-  const bytes = new Uint8Array(table.numRows * STIMULUS_DIGEST_BYTES);
-  for (let i = 0; i < table.numRows; i++) {
-    const hex = String(digests.get(i));
-    if (!/^[0-9a-f]{64}$/.test(hex)) {
-      problem('stimuli.arrow', `row ${i} has no valid sha256`);
-      return;
-    }
-    bytes.set(Buffer.from(hex, 'hex'), i * STIMULUS_DIGEST_BYTES);
-  }
-  if (stimuliDigest(bytes) !== manifest.stimuli.digest) problem('stimuli.arrow', 'the per-stimulus digests do not give the stimuli digest in the manifest');
 }

@@ -2,12 +2,13 @@
  * The snapshot manifest (`manifest.json`): the contract every reader of a snapshot relies on.
  * FORMAT_VERSION changes whenever a field changes meaning; readers refuse versions they do not know.
  */
-import { existsSync, readFileSync } from 'node:fs';
+import { existsSync } from 'node:fs';
 import { isAbsolute, join, relative, resolve, sep } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { replaceFile } from '../disk/atomic-file.js';
-import { parseJson } from '../json.js';
-import { assertRegularFile, realPathInside } from '../disk/input-file.js';
+import { parseJson, schemaProblem } from '../json.js';
+import { manifestSchema } from './schema.js';
+import { assertRegularFile, INPUT_LIMITS, readInputText, realPathInside } from '../disk/input-file.js';
 
 /**
  * Version of the snapshot layout written by this build.
@@ -73,7 +74,16 @@ export interface SnapshotManifest {
    * `categories`: the categories of the whole listing; `nonFinite`: NaN/±Infinity values in the input fed
    * to the network (absent when not counted, e.g. a replay from a baseline).
    */
-  stimuli: { source: string; count: number; digest: string; listingDigest: string; categories: string[]; nonFinite?: number };
+  stimuli: {
+    source: string;
+    count: number;
+    digest: string;
+    listingDigest: string;
+    categories: string[];
+    nonFinite?: number;
+    /** SHA-256 and size of `stimuli.arrow` (ids, labels, digests), checked by every reader; absent in snapshots of older builds. */
+    table?: { sha256: string; bytes: number };
+  };
   preprocessing: { size: [number, number]; mean: number[]; std: number[]; bgr: boolean } | null;
   /** The resolved modulation (vectors, seeds), or null for a baseline. */
   modulation: unknown;
@@ -106,8 +116,9 @@ export function readManifest(folder: string): SnapshotManifest {
   realPathInside(folder, path, `${folder}: manifest.json`);
   assertRegularFile(path, `${folder}: manifest.json`);
   let parsed: unknown;
+  const text = readInputText(path, `${folder}: manifest.json`, INPUT_LIMITS.json);
   try {
-    parsed = parseJson(readFileSync(path, 'utf8'));
+    parsed = parseJson(text);
   } catch (error) {
     throw new UsageError('E_MANIFEST', `${path} is not valid JSON (${(error as Error).message})`);
   }
@@ -134,47 +145,25 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
       hint: 'record the snapshot again with this version',
     });
   }
-  const model = record(m.model);
-  if (!model || typeof model.sha256 !== 'string' || typeof model.file !== 'string') fail('"model" must have "file" and "sha256"');
-  const stimuli = record(m.stimuli);
-  if (!stimuli || !isCount(stimuli.count) || typeof stimuli.digest !== 'string') {
-    fail('"stimuli" must have an integer "count" and a "digest"');
-  }
-  if (stimuli!.listingDigest !== undefined && typeof stimuli!.listingDigest !== 'string') fail('"stimuli.listingDigest" must be a string');
-  if (stimuli!.categories !== undefined && !(Array.isArray(stimuli!.categories) && stimuli!.categories.every((c) => typeof c === 'string'))) fail('"stimuli.categories" must be a list of strings');
-  if (stimuli!.nonFinite !== undefined && !isCount(stimuli!.nonFinite)) fail('"stimuli.nonFinite" must be a non-negative integer');
-  const run = record(m.run);
-  if (run && !(Number.isSafeInteger(run.batch) && (run.batch as number) > 0)) fail(`"run.batch" must be a positive integer, got ${JSON.stringify(run.batch)}`);
-  const baseline = m.baseline;
-  if (baseline !== undefined && baseline !== null) {
-    const b = record(baseline);
-    if (!b || typeof b.path !== 'string' || b.path === '' || b.path.includes('\0') || typeof b.manifestSha256 !== 'string') fail('"baseline" must be null or have a "path" and a "manifestSha256"');
-  }
-  if (m.shard !== undefined && m.shard !== null) validateShard(m.shard, stimuli!.count as number, fail);
+  const problem = schemaProblem(manifestSchema, m);
+  if (problem) fail(problem);
+  const stimuli = m.stimuli as SnapshotManifest['stimuli'];
+  if (m.shard !== undefined && m.shard !== null) validateShard(m.shard, stimuli.count, fail);
   if (!Array.isArray(m.layers)) fail('"layers" must be an array');
   const names = new Set<string>();
   const files = new Set<string>();
   (m.layers as unknown[]).forEach((layer: unknown, i: number) => {
-    const l = record(layer);
-    if (!l || typeof l.name !== 'string' || typeof l.file !== 'string' || !Array.isArray(l.shape) || !l.shape.every((d) => Number.isSafeInteger(d) && (d as number) >= 1)) {
-      fail(`layers[${i}] must have "name", "file" and a "shape" of positive integers`);
-    }
-    const entry = l!;
+    const entry = layer as Record<string, unknown>;
     const shape = entry.shape as number[];
-    if (shape.length > 8 || shape.reduce((a, b) => a * b, 1) > 2 ** 31 - 1) fail(`layers[${i}].shape [${shape.join(', ')}] is absurdly large`);
-    if (entry.keep !== 'full' && entry.keep !== 'channels') fail(`layers[${i}].keep must be "full" or "channels"`);
-    if (entry.dtype !== 'float32' && entry.dtype !== 'float16') fail(`layers[${i}].dtype must be "float32" or "float16"`);
-    if (entry.from !== undefined && entry.from !== 'baseline') fail(`layers[${i}].from must be "baseline" when present`);
+    if (shape.reduce((a, b) => a * b, 1) > 2 ** 31 - 1) fail(`layers[${i}].shape [${shape.join(', ')}] is absurdly large`);
     if (entry.from === 'baseline' && (m.baseline === null || m.baseline === undefined)) fail(`layers[${i}] comes from a baseline but "baseline" is null`);
-    for (const key of ['rows', 'bytes', 'nonFinite', 'weightDepth'] as const) {
-      if (entry[key] !== undefined && !isCount(entry[key])) fail(`layers[${i}].${key} must be a non-negative integer`);
-    }
-    if (entry.sha256 !== undefined && !(typeof entry.sha256 === 'string' && /^[0-9a-f]{64}$/.test(entry.sha256))) fail(`layers[${i}].sha256 must be 64 hex digits`);
     if (names.has(entry.name as string)) fail(`layers[${i}].name ${JSON.stringify(entry.name)} appears twice`);
     names.add(entry.name as string);
+    // a file is one layer's, whether it lies here or in the baseline folder
+    const fileKey = `${entry.from === 'baseline' ? 'baseline:' : ''}${entry.file as string}`;
+    if (files.has(fileKey)) fail(`layers[${i}].file ${JSON.stringify(entry.file)}${entry.from === 'baseline' ? ' (in the baseline)' : ''} is used by two layers`);
+    files.add(fileKey);
     if (entry.from !== 'baseline') {
-      if (files.has(entry.file as string)) fail(`layers[${i}].file ${JSON.stringify(entry.file)} is used by two layers`);
-      files.add(entry.file as string);
       assertInside(folder, entry.file as string, `${where}: layers[${i}].file`);
     } else {
       // resolved against the baseline folder by the reader; still never absolute or climbing out of it
@@ -183,7 +172,6 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
       }
     }
   });
-  if (typeof m.complete !== 'boolean') fail('"complete" must be true or false');
   return m as unknown as SnapshotManifest;
 }
 
@@ -222,6 +210,34 @@ export function assertInside(folder: string, file: string, what: string): string
     throw new UsageError('E_MANIFEST_PATH', `${what} "${file}" points outside the snapshot folder`);
   }
   return target;
+}
+
+/**
+ * What is inconsistent between a modulated snapshot's layers and its baseline's: a layer taken `from:
+ * baseline` must be the baseline's layer of the same name, with its file, SHA-256, size, rows, shape,
+ * storage type and keep mode (so two layers can never be mapped to one baseline file, nor a layer to
+ * another's file); a layer recorded here must have the baseline's shape under the same name.
+ * @returns one line per problem, empty when consistent.
+ */
+export function baselineLayerProblems(manifest: SnapshotManifest, base: SnapshotManifest): string[] {
+  const problems: string[] = [];
+  const byName = new Map(base.layers.map((l) => [l.name, l]));
+  manifest.layers.forEach((entry, i) => {
+    const own = byName.get(entry.name);
+    if (!own) {
+      problems.push(`layers[${i}] "${entry.name}" is not a layer of the baseline`);
+      return;
+    }
+    if (JSON.stringify(own.shape) !== JSON.stringify(entry.shape)) problems.push(`layers[${i}] "${entry.name}" has shape [${entry.shape.join(', ')}], the baseline's [${own.shape.join(', ')}]`);
+    if (entry.from !== 'baseline') return;
+    for (const key of ['file', 'sha256', 'bytes', 'rows', 'dtype', 'keep'] as const) {
+      if (own[key] !== entry[key]) {
+        problems.push(`layers[${i}] "${entry.name}" is taken from the baseline with ${key} ${JSON.stringify(entry[key])}, but the baseline's layer "${entry.name}" has ${JSON.stringify(own[key])}`);
+        return;
+      }
+    }
+  });
+  return problems;
 }
 
 /** Throws unless the manifest says the recording finished. */

@@ -1,14 +1,14 @@
 import { open, type FileHandle } from 'node:fs/promises';
-import { existsSync, readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
-import { Message, RecordBatchReader, tableFromIPC, type RecordBatch } from 'apache-arrow';
+import { Message, RecordBatchReader, type RecordBatch } from 'apache-arrow';
 import { RuntimeFailure, SondeError, UsageError, closestHint } from '../errors.js';
-import { assertRegularFile, realPathInside } from '../disk/input-file.js';
+import { INPUT_LIMITS, readInputFile, realPathInside } from '../disk/input-file.js';
+import { verifyStimulusTable } from './stimuli-file.js';
 import { LayerBlockFile } from './block-reader.js';
 import { startLayerCheck, type LayerVerification } from './layer-integrity.js';
 import { float16ToFloat32 } from './float16.js';
 import { channelCount, spatialSize } from './layer-file.js';
-import { assertComplete, assertInside, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
+import { assertComplete, assertInside, baselineLayerProblems, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 
 /** One record batch of a layer, as typed arrays. */
 export interface LayerBatch {
@@ -90,39 +90,31 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
   if (!options.allowIncomplete) assertComplete(manifest, folder);
   const verify = options.verify ?? 'sha256';
   const baselineRoot = manifest.baseline ? resolve(root, manifest.baseline.path) : null;
+  if (baselineRoot && manifest.layers.some((l) => l.from === 'baseline')) {
+    // layers read from the baseline must be the baseline's own layers of those names
+    const problems = baselineLayerProblems(manifest, readManifest(baselineRoot));
+    if (problems.length > 0) {
+      throw new UsageError('E_MANIFEST', `${folder}/manifest.json: ${problems[0]}${problems.length > 1 ? ` (and ${problems.length - 1} more)` : ''}`, { hint: `run \`sonde check ${folder}\`; record the modulated snapshot again` });
+    }
+  }
   const stimuliPath = join(root, 'stimuli.arrow');
-  let ids: string[];
-  let labels: string[][];
-  let digests: Uint8Array | undefined;
-  if (existsSync(stimuliPath)) {
-    realPathInside(root, stimuliPath, `${folder}: stimuli.arrow`);
-    assertRegularFile(stimuliPath, `${folder}: stimuli.arrow`);
-  }
-  try {
-    const table = tableFromIPC(readFileSync(stimuliPath));
-    ids = (table.getChild('id')?.toArray() ?? []) as string[];
-    const labelColumn = table.getChild('labels');
-    labels = [];
-    for (let i = 0; i < table.numRows; i++) {
-      const value = labelColumn?.get(i) as { toArray(): string[] } | null;
-      labels.push(value ? Array.from(value.toArray()) : []);
-    }
-    const digestColumn = table.getChild('sha256');
-    if (digestColumn) {
-      digests = new Uint8Array(table.numRows * 32);
-      for (let i = 0; i < table.numRows; i++) {
-        const hex = String(digestColumn.get(i));
-        if (!/^[0-9a-f]{64}$/.test(hex)) throw new Error(`row ${i} has no valid sha256`);
-        digests.set(Buffer.from(hex, 'hex'), i * 32);
-      }
-    }
-  } catch (error) {
-    throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow cannot be read (${(error as Error).message.split('\n')[0]})`);
-  }
-  if (ids.length !== manifest.stimuli.count) {
-    throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow has ${ids.length} rows but the manifest says ${manifest.stimuli.count}`);
-  }
   const firstIndex = manifest.shard ? manifest.shard.stimuli[0] : 0;
+  let bytes: Uint8Array;
+  try {
+    realPathInside(root, stimuliPath, `${folder}: stimuli.arrow`);
+    bytes = readInputFile(stimuliPath, `${folder}: stimuli.arrow`, INPUT_LIMITS.table);
+  } catch (error) {
+    if (error instanceof SondeError) throw error;
+    throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow cannot be read (${(error as NodeJS.ErrnoException).code ?? (error as Error).message.split('\n')[0]})`, { hint: `run \`sonde check ${folder}\`` });
+  }
+  // the labels and ids decide every detection and tuning number: verified like the layer files
+  const verified = verifyStimulusTable(bytes, manifest, { firstIndex });
+  if (!verified.table) {
+    throw new RuntimeFailure('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow ${verified.problems[0] ?? 'cannot be read'}`, {
+      hint: `run \`sonde check ${folder}\`, then restore the file or record the snapshot again`,
+    });
+  }
+  const { ids, labels, digests } = verified.table;
   const byName = new Map(manifest.layers.map((l) => [l.name, l]));
   const categories = [...new Set(labels.flat())].sort();
   const layer = (name: string): ManifestLayer => {

@@ -11,18 +11,18 @@
  * Sensitivity table columns: `layer` utf8 (the site tensor), `channel` int32, `category` utf8 (readout
  * category), `sensitivity` float64, `fd_error` float64 (the curvature the step sees within ±h, not an
  * error bound), `kind` utf8 (`gain` / `offset`), `step` float64, `n` int32 (stimuli averaged); the
- * finite-difference method (`richardson` / `secant`) is in the schema metadata `sonde.method`.
+ * method (`exact` gradients, or finite differences `richardson` / `secant`) is in the schema metadata `sonde.method`.
  *
  * Schema metadata: `sonde.table` (`tuning` / `sensitivity`), `sonde.format` (`1`), `sonde.categories`
  * (JSON list: the category order), `sonde.layers` (JSON list of `{name, depth, op}` in file order), plus
  * free-form `sonde.*` keys the writer is given (model, readout, snapshot).
  */
-import { readFileSync } from 'node:fs';
+import { INPUT_LIMITS, readInputFile } from '../disk/input-file.js';
 import {
   Bool, DataType, Field, Float64, Int32, makeData, RecordBatch, RecordBatchFileWriter, Schema, Struct, tableFromIPC, Type, Utf8, vectorFromArray,
   type Data, type Table,
 } from 'apache-arrow';
-import { UsageError } from '../errors.js';
+import { SondeError, UsageError } from '../errors.js';
 import { HashingFileSink } from './arrow-sink.js';
 
 /** Version of the table layout written by this build. */
@@ -335,7 +335,7 @@ function checkLengths(layer: string, path: string, C: number, K: number, grid: R
 }
 
 function writeBatches(path: string, schema: Schema, batches: Array<() => Data[]>): { bytes: number; rows: number } {
-  const sink = new HashingFileSink(path);
+  const sink = new HashingFileSink(path, { unique: true });
   const writer = new RecordBatchFileWriter();
   let rows = 0;
   try {
@@ -372,8 +372,9 @@ function float64Column(values: Float64Array): Data {
 function readArrow(path: string, kind: 'tuning' | 'sensitivity'): { table: Table; metadata: Record<string, string> } {
   let bytes: Buffer;
   try {
-    bytes = readFileSync(path);
-  } catch {
+    bytes = readInputFile(path, `${kind} table ${path}`, INPUT_LIMITS.table);
+  } catch (error) {
+    if (error instanceof SondeError) throw error;
     throw new UsageError('E_TABLE_MISSING', `${kind} table ${path} does not exist or cannot be read`, { hint: kind === 'tuning' ? 'make one with `sonde tune SNAPSHOT --out FILE.arrow`' : 'make one with `sonde sense MODEL ... --out FILE.arrow`' });
   }
   let table: Table;

@@ -8,7 +8,9 @@ import { tuneSnapshot } from '../../src/compare/tune.js';
 import { LayerFileWriter } from '../../src/snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../../src/snapshot/manifest.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
-import { writeStimuliFile } from '../../src/snapshot/stimuli-file.js';
+import { stimuliDigest, writeStimuliFile } from '../../src/snapshot/stimuli-file.js';
+import { listingDigest } from '../../src/stimuli/source.js';
+import { createHash } from 'node:crypto';
 import { readTuningTable } from '../../src/snapshot/tables.js';
 import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
@@ -48,12 +50,14 @@ function handMadeSnapshot(folder: string, labels: string[][]): string {
     layers.push({ name, op: 'Relu', depth, shape: [...shape], dtype: 'float32', keep: 'full', file, sha256: done.sha256, bytes: done.bytes, rows: done.rows });
   }
   const ids = labels.map((_, i) => `d${i}`);
-  writeStimuliFile(join(folder, 'stimuli.arrow'), ids, labels);
+  const digests = new Uint8Array(N * 32);
+  ids.forEach((id, i) => digests.set(createHash('sha256').update(id).digest(), i * 32));
+  writeStimuliFile(join(folder, 'stimuli.arrow'), ids, labels, { digests });
   const manifest: SnapshotManifest = {
     format: FORMAT_VERSION,
     tool: { name: 'sonde', version: 'test' },
     model: { file: 'hand.onnx', sha256: '0'.repeat(64), input: { name: 'input', shape: [3, 1, 1] } },
-    stimuli: { source: 'by hand', count: N, digest: 'x', listingDigest: 'y', categories: [...new Set(labels.flat())].sort() },
+    stimuli: { source: 'by hand', count: N, digest: stimuliDigest(digests), listingDigest: listingDigest({ ids, labels }), categories: [...new Set(labels.flat())].sort() },
     preprocessing: null,
     modulation: null,
     baseline: null,

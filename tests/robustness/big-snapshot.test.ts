@@ -10,6 +10,7 @@ import { describe, expect, it } from 'vitest';
 import { LayerFileWriter } from '../../src/snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../../src/snapshot/manifest.js';
 import { stimuliDigest, writeStimuliFile } from '../../src/snapshot/stimuli-file.js';
+import { listingDigest } from '../../src/stimuli/source.js';
 import { createRandom } from '../../src/random.js';
 import { tempFolder } from '../helpers/onnx-builder.js';
 import { ensureBuilt, ROOT } from './cli-process.js';
@@ -58,7 +59,7 @@ function writeSnapshot(folder: string, gain: number, modulation: unknown): void 
     format: FORMAT_VERSION,
     tool: { name: 'sonde', version: 'test' },
     model: { file: 'synthetic.onnx', sha256: '0'.repeat(64), input: { name: 'input', shape: [3, 32, 32] } },
-    stimuli: { source: 'synthetic', count: STIMULI, digest: stimuliDigest(digests), listingDigest: '', categories: ['a', 'b'] },
+    stimuli: { source: 'synthetic', count: STIMULI, digest: stimuliDigest(digests), listingDigest: listingDigest({ ids, labels }), categories: ['a', 'b'] },
     preprocessing: null,
     modulation,
     readout: null,

@@ -12,9 +12,10 @@
  * JSON turns NaN into null, so every number read from an input may be null at run time; the report
  * reads numbers through `num()` and shows such values as "–".
  */
-import { readFileSync, statSync } from 'node:fs';
+import { statSync } from 'node:fs';
+import { INPUT_LIMITS, readInputText } from '../../disk/input-file.js';
 import { basename } from 'node:path';
-import { RuntimeFailure, UsageError } from '../../errors.js';
+import { RuntimeFailure, SondeError, UsageError } from '../../errors.js';
 import type { TableComparison } from '../../compare/compare-tables.js';
 import type { DiffReport, SchemeComparison } from '../../compare/diff-types.js';
 import type { SweepResult } from '../../replay/sweep-types.js';
@@ -129,9 +130,9 @@ export function readReportInput(path: string): ReportInput[] {
   let text: string;
   try {
     if (statSync(path).isDirectory()) throw new UsageError('E_REPORT_INPUT', `${path} is a folder, not a JSON result`, { hint: 'pass the JSON file (sonde diff --json > diff.json, or sweep.json inside the sweep folder)' });
-    text = readFileSync(path, 'utf8');
+    text = readInputText(path, `report input ${path}`, INPUT_LIMITS.report);
   } catch (error) {
-    if (error instanceof UsageError) throw error;
+    if (error instanceof SondeError) throw error;
     const code = (error as NodeJS.ErrnoException).code;
     if (code === 'ENOENT') throw new UsageError('E_REPORT_INPUT', `${path} does not exist`, { hint: 'check the path' });
     throw new RuntimeFailure('E_REPORT_READ', `cannot read ${path} (${code ?? String(error)})`, { cause: error });
