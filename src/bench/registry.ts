@@ -1,4 +1,5 @@
 import { benchDiffThroughput } from './diff-throughput.js';
+import { benchExportThroughput } from './export-throughput.js';
 import { benchRecordOverhead } from './record-overhead.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
 import { benchSweepThroughput } from './sweep-throughput.js';
@@ -9,6 +10,7 @@ import type { Benchmark } from './types.js';
 export const BENCHMARKS: Record<string, Benchmark> = {
   'record-overhead': benchRecordOverhead,
   'diff-throughput': benchDiffThroughput,
+  'export-throughput': benchExportThroughput,
   'tail-replay': benchTailReplay,
   'sensitivity-cost': benchSensitivityCost,
   'sweep-throughput': benchSweepThroughput,
