@@ -24,6 +24,8 @@ export interface StimulusSource {
   labels: string[][];
   /** Channels, height, width of one stimulus as fed to the network. */
   shape: [number, number, number];
+  /** Per stimulus: the absolute path of the image file (image sources only). */
+  files?: string[];
   /**
    * Writes stimuli [start, start + rows) as NCHW float32 into `out` (length ≥ rows·C·H·W).
    * @throws UsageError naming the file when an image cannot be decoded.
@@ -277,6 +279,7 @@ function imageSource(kind: 'folder' | 'csv', description: string, root: string, 
     ids: files.map((f) => relative(root, f).split('\\').join('/')),
     labels,
     shape: [channels, height, width],
+    files,
     async read(start, rows, out) {
       await Promise.all(
         files.slice(start, start + rows).map(async (file, i) => {

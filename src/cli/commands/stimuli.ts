@@ -13,7 +13,23 @@ import {
   type DemoKind,
   type StimulusFormat,
 } from '../../stimuli/demo/index.js';
+import { composeStimulusSet, type CompositeLayout } from '../../stimuli/compose/index.js';
+import { parseFit, parseInterpolation, parseSize } from '../../stimuli/preprocess.js';
 import { cliIo } from '../io.js';
+
+interface ComposeFlags {
+  from: string;
+  labels?: string;
+  out: string;
+  count: string;
+  seed: string;
+  layout: string;
+  weight: string;
+  cued?: string;
+  size: string;
+  fit: string;
+  interpolation: string;
+}
 
 interface MakeFlags {
   out: string;
@@ -26,9 +42,39 @@ interface MakeFlags {
   format: string;
 }
 
-/** Registers `stimuli` (with its subcommand `make`) on the program. */
+/** Registers `stimuli` (with its subcommands `make` and `compose`) on the program. */
 export function registerStimuli(program: Command): void {
-  const stimuli = program.command('stimuli').description('generate demo stimulus sets (cluttered glyph search displays)');
+  const stimuli = program.command('stimuli').description('make stimulus sets: demo glyph displays, or task stimuli composed from your labelled images');
+  stimuli
+    .command('compose')
+    .description('compose overlays or grids from labelled images (class folders or a path,label CSV), with labels and a listing of the sources')
+    .requiredOption('--from <source>', 'labelled images: class-folder tree, path,label CSV, or a folder holding one')
+    .requiredOption('--out <dir>', 'output folder (new or empty)')
+    .requiredOption('--count <n>', 'number of composites')
+    .requiredOption('--seed <s>', 'seed, an integer in [0, 4294967295]; same seed and sources, same bytes')
+    .option('--layout <layout>', 'overlay (two images of different categories blended) or grid:K (K×K images tiled)', 'overlay')
+    .option('--weight <w>', 'overlay: weight of the first image, in (0, 1); the second gets 1 − w', '0.5')
+    .option('--cued <category>', 'exactly half the composites hold this category, the other categories balanced')
+    .option('--size <HxW>', 'size of a composite (a grid cell is size / K)', '224x224')
+    .option('--fit <mode>', 'how a source image fills its cell: crop[:S], squash or letterbox', 'crop')
+    .option('--interpolation <kernel>', 'resizing kernel: nearest, bilinear, bicubic or lanczos3', 'lanczos3')
+    .option('--labels <csv>', 'for a folder: a path,label CSV to read it through, or folders to label by subfolder')
+    .action(async (flags: ComposeFlags) => {
+      const summary = await composeStimulusSet({
+        from: flags.from,
+        ...(flags.labels !== undefined ? { labels: flags.labels } : {}),
+        out: flags.out,
+        count: parseInteger('--count', flags.count),
+        seed: parseInteger('--seed', flags.seed),
+        layout: parseLayout(flags.layout, flags.weight),
+        cued: flags.cued ?? null,
+        size: parseSize(flags.size),
+        ...parseFit(flags.fit),
+        interpolation: parseInterpolation(flags.interpolation),
+      });
+      const counts = Object.entries(summary.composites).map(([category, n]) => `${category} ${n}`).join(', ');
+      cliIo().stdout(`wrote ${summary.count} composites to ${summary.out}: ${summary.files.join(', ')}\ncomposites per category: ${counts}\n`);
+    });
   stimuli
     .command('make')
     .description('write a seeded set of 64×64 search displays with their labels')
@@ -87,6 +133,13 @@ function parseKind(flag: string, text: string): DemoKind {
 
 function parseKinds(text: string): DemoKind[] {
   return text.split(',').map((part) => parseKind('--kinds', part));
+}
+
+function parseLayout(text: string, weight: string): CompositeLayout {
+  const grid = /^grid:(\d+)$/.exec(text.trim());
+  if (grid) return { kind: 'grid', k: Number(grid[1]) };
+  if (text.trim() === 'overlay') return { kind: 'overlay', weight: parseNumber('--weight', weight) };
+  throw new UsageError('E_USAGE', `--layout ${JSON.stringify(text)} is not a layout`, { hint: 'use overlay or grid:K, e.g. grid:2' });
 }
 
 function parseFormat(text: string): StimulusFormat {

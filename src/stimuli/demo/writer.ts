@@ -174,7 +174,8 @@ export function npyFloat32Header(shape: readonly number[]): Uint8Array {
   return out;
 }
 
-async function prepareFolder(out: string): Promise<void> {
+/** Creates `out`, or accepts it when it exists and is empty. @throws UsageError when it holds anything. */
+export async function prepareFolder(out: string): Promise<void> {
   let entries: string[] | null = null;
   try {
     entries = await readdir(out);
