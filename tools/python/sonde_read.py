@@ -114,13 +114,14 @@ def _read_exact(f, position, length, path):
     return data
 
 
-def read_arrow_file(path):
+def read_arrow_file(path, columns=None):
     """Reads an Arrow IPC file as written by Sonde.
 
     Returns (schema fields, list of batches); each batch is a dict column name -> value: a NumPy array
     for int/float columns, [rows, size] for a fixed-size list of numbers, a list of str for utf8, a list
-    of lists for list columns. Raises SondeReadError for anything else (nulls, compression, dictionaries,
-    other types) -- use engine="pyarrow" for general Arrow files.
+    of lists for list columns. `columns`: names to read (default all); the bytes of the others are not
+    read at all. Raises SondeReadError for anything else (nulls, compression, dictionaries, other
+    types) -- use engine="pyarrow" for general Arrow files.
     """
     with builtins.open(path, "rb") as f:
         size = os.fstat(f.fileno()).st_size
@@ -155,14 +156,39 @@ def read_arrow_file(path):
             nodes = iter([struct.unpack_from("<qq", header.buf, n_start + 16 * i) for i in range(n_count)])
             b_start, b_count = header.vector(2)
             buffers = iter([struct.unpack_from("<qq", header.buf, b_start + 16 * i) for i in range(b_count)])
-            body = _read_exact(f, offset + meta_length, body_length, path)
-            batch = {field.name: _decode(field, nodes, buffers, body, path) for field in fields}
+            body_start = offset + meta_length
+
+            def fetch(at, length, body_start=body_start, body_length=body_length):
+                if at < 0 or at + length > body_length:
+                    raise SondeReadError(f"{path}: a buffer of record batch {b} lies outside its body")
+                return _read_exact(f, body_start + at, length, path)
+
+            batch = {}
+            for field in fields:
+                if columns is None or field.name in columns:
+                    batch[field.name] = _decode(field, nodes, buffers, fetch, path)
+                else:
+                    _skip(field, nodes, buffers)
             batch["__rows__"] = rows
             batches.append(batch)
     return fields, batches
 
 
-def _decode(field, nodes, buffers, body, path):
+# buffers per field after the validity bitmap (Arrow columnar format, "Buffer layout"); children follow
+_OWN_BUFFERS = {_INT: 1, _FLOAT: 1, _UTF8: 2, _LIST: 1, _STRUCT: 0, _FIXED_SIZE_LIST: 0}
+
+
+def _skip(field, nodes, buffers):
+    """Consumes a column's nodes and buffers without reading its bytes."""
+    next(nodes)
+    next(buffers)
+    for _ in range(_OWN_BUFFERS.get(field.type_id, 0)):
+        next(buffers)
+    for child in field.children:
+        _skip(child, nodes, buffers)
+
+
+def _decode(field, nodes, buffers, fetch, path):
     length, nulls = next(nodes)
     next(buffers)  # validity bitmap
     if nulls:
@@ -174,7 +200,7 @@ def _decode(field, nodes, buffers, body, path):
         item = np.dtype(dtype).itemsize
         if count * item > size:
             raise SondeReadError(f"{path}: column {field.name!r} holds {size} bytes, fewer than {count} values")
-        return np.frombuffer(body, dtype=dtype, count=count, offset=offset)
+        return np.frombuffer(fetch(offset, count * item), dtype=dtype, count=count)
 
     if t == _INT:
         width, signed = field.type.scalar(0, "<i"), field.type.scalar(1, "<?", False)
@@ -184,25 +210,27 @@ def _decode(field, nodes, buffers, body, path):
     if t == _UTF8:
         offsets = values("<i4", length + 1)
         data_offset, data_size = next(buffers)
-        data = body[data_offset:data_offset + data_size]
+        if length and (int(offsets[0]) < 0 or int(offsets[-1]) > data_size or np.any(np.diff(offsets) < 0)):
+            raise SondeReadError(f"{path}: column {field.name!r} has offsets outside its data")
+        data = fetch(data_offset, int(offsets[-1])) if length else b""
         return [data[offsets[i]:offsets[i + 1]].decode("utf-8") for i in range(length)]
     if t == _LIST:
         offsets = values("<i4", length + 1)
-        child = _decode(field.children[0], nodes, buffers, body, path)
+        child = _decode(field.children[0], nodes, buffers, fetch, path)
         return [list(child[offsets[i]:offsets[i + 1]]) for i in range(length)]
     if t == _FIXED_SIZE_LIST:
         width = field.type.scalar(0, "<i")
-        child = _decode(field.children[0], nodes, buffers, body, path)
+        child = _decode(field.children[0], nodes, buffers, fetch, path)
         return np.asarray(child).reshape(length, width)
     if t == _STRUCT:
-        return {c.name: _decode(c, nodes, buffers, body, path) for c in field.children}
+        return {c.name: _decode(c, nodes, buffers, fetch, path) for c in field.children}
     raise SondeReadError(f"{path}: column {field.name!r} has Arrow type id {t}, which this reader does not handle; use engine='pyarrow'")
 
 
 def _read_layer_pyarrow(path):  # untested in Sonde's CI: pyarrow is not packaged for Debian 12
     import pyarrow as pa
 
-    table = pa.ipc.open_file(path).read_all()
+    table = pa.ipc.open_file(pa.memory_map(path)).read_all()
     out = {"index": table.column("index").to_numpy(), "__rows__": table.num_rows}
     for name in ("channel_mean", "activation"):
         if name in table.column_names:
@@ -359,7 +387,8 @@ class Snapshot(_Recording):
         layer = self.layer(name)
         path = self._file(layer)
         _check_file(path, layer.get("bytes"), layer.get("sha256"), self.verify, f"layer file of {name!r}:")
-        batches = _read_layer_pyarrow(path) if self.engine == "pyarrow" else read_arrow_file(path)[1]
+        wanted = ["index", "channel_mean"] + (["activation"] if want_activation else [])
+        batches = _read_layer_pyarrow(path) if self.engine == "pyarrow" else read_arrow_file(path, columns=wanted)[1]
         n = len(self.stimuli["id"])
         shape = list(layer["shape"])
         channels = shape[0] if shape else 1
