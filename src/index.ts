@@ -15,6 +15,7 @@ export { injectModulations, modulationInputNames, modulationInputDims, type Inje
 export { extractTail, type TailGraph } from './graph/tail.js';
 export { selectLayers, globToRegExp } from './graph/select.js';
 export { readSidecar, sidecarPath, type ModelSidecar } from './graph/sidecar.js';
+export { addReadoutHeads, type ReadoutHeadsSpec, type ReadoutHeadsModel } from './graph/readout-heads.js';
 
 // session
 export { createNetworkSession, type NetworkSession, type NetworkSessionOptions, type FloatTensor } from './session/network-session.js';
@@ -22,7 +23,9 @@ export { createNetworkSession, type NetworkSession, type NetworkSessionOptions, 
 // stimuli
 export { openStimulusSource, type StimulusSource, type StimulusSourceOptions } from './stimuli/source.js';
 export { parseNpy, formatNpy, type NpyTensor } from './stimuli/npy.js';
-export type { Preprocessing } from './stimuli/preprocess.js';
+export { NORMALISE_PRESETS, FIT_MODES, INTERPOLATIONS, type Preprocessing, type FitMode, type Interpolation, type NormalisePreset } from './stimuli/preprocess.js';
+export { decodeImage, fitGeometry, type FitGeometry } from './stimuli/decode.js';
+export { composeStimulusSet, type ComposeOptions, type ComposeSummary, type CompositeLayout } from './stimuli/compose/index.js';
 
 // snapshot
 export { openSnapshot, type Snapshot, type LayerBatch, type ReadLayerOptions } from './snapshot/snapshot.js';
@@ -44,6 +47,7 @@ export type { DiffOptions, DiffReport, LayerDiffRow, TaskReport, SchemeCompariso
 export { tuneSnapshot, type TuneOptions, type TuneResult } from './compare/tune.js';
 export { compareTables, type TableComparison } from './compare/compare-tables.js';
 export { sizeGaps, sizeGapNote, SIZE_TOLERANCE, type SchemeSize, type SizeGap } from './compare/size-match.js';
+export { fitReadoutHeads, DEFAULT_CS, type FitHeadsOptions, type FitHeadsResult, type FittedHead, type HeadScore } from './compare/fit-heads.js';
 
 // replay: sensitivities, sweeps, gain scores, ceiling, size-matched comparison
 export { DEFAULT_OFFSET_STEP, DEFAULT_STEP, defaultStep, SENSE_METHODS, type SenseMethod, type SenseOptions, type SenseResult, type SiteSensitivity } from './replay/sense-types.js';
