@@ -8,9 +8,10 @@
  * /usr/bin/python3 has no NumPy.
  */
 import { spawnSync } from 'node:child_process';
-import { readFileSync, writeFileSync } from 'node:fs';
+import { mkdirSync, readFileSync, renameSync, symlinkSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
+import { axisNames } from '../../src/export/export-description.js';
 import { exportSnapshot } from '../../src/export/export-snapshot.js';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { recordModulated } from '../../src/record/record-modulated.js';
@@ -144,5 +145,22 @@ describe.skipIf(!hasNumpy)('sonde_read.py', () => {
     const run = runDump('numpy', [copy]);
     expect(run.status).not.toBe(0);
     expect(run.stderr).toMatch(/SondeReadError: layer file of 'relu0':.*does not have the SHA-256 its manifest lists/);
+  }, 60_000);
+  it('sonde_read.axis_names follows the same rule as sonde export (axisNames) for ranks 0 to 5', () => {
+    const result = spawnSync(PYTHON, ['-c', 'import json, sonde_read; print(json.dumps([sonde_read.axis_names(r) for r in range(6)]))'], { encoding: 'utf8', env: { ...process.env, PYTHONPATH: join(import.meta.dirname, '..', '..', 'tools', 'python') } });
+    expect(result.status, result.stderr).toBe(0);
+    expect(JSON.parse(result.stdout)).toEqual([0, 1, 2, 3, 4, 5].map(axisNames));
+  });
+
+  it('sonde_read refuses a layer file that is a link leading out of the snapshot folder, as Sonde does', async () => {
+    const copy = join(dir, 'linked');
+    await recordSnapshot({ model: join(dir, 'net.onnx'), stimuli: join(dir, 'stimuli.npy'), labels: join(dir, 'labels.csv'), out: copy, layers: 'relu0', batch: 4, threads: 1 });
+    const file = join(copy, openSnapshot(copy).layer('relu0').file);
+    mkdirSync(join(dir, 'elsewhere'));
+    renameSync(file, join(dir, 'elsewhere', 'relu0.arrow'));
+    symlinkSync(join(dir, 'elsewhere', 'relu0.arrow'), file); // same bytes: only the link check can refuse it
+    const run = runDump('numpy', [copy]);
+    expect(run.status).not.toBe(0);
+    expect(run.stderr).toMatch(/SondeReadError: layer 'relu0' file .* is a link that leads out of/);
   }, 60_000);
 });

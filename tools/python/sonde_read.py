@@ -260,9 +260,14 @@ def _check_file(path, expected_bytes, expected_sha256, verify, what):
 
 
 def _inside(root, relative, what):
+    """`root`/`relative`, refusing absolute paths, `..`, and links that lead out of `root` (as Sonde does)."""
     if os.path.isabs(relative) or ".." in relative.replace("\\", "/").split("/"):
         raise SondeReadError(f"{what} {relative!r} must be a relative path inside {root}")
-    return os.path.join(root, relative)
+    path = os.path.join(root, relative)
+    real_root = os.path.realpath(root)
+    if os.path.commonpath([real_root, os.path.realpath(path)]) != real_root:
+        raise SondeReadError(f"{what} {path} is a link that leads out of {root}")
+    return path
 
 
 def axis_names(rank):
