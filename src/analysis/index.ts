@@ -31,3 +31,4 @@ export { sparkline, type SparklineOptions } from './sparkline.js';
 export { signFlipTest, type SignFlipResult } from './sign-flip.js';
 export { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder, type CriterionShift } from './roc.js';
 export { readoutChanges, type BaselineReadout, type ReadoutChanges } from './readout-change.js';
+export { balancedWeights, crossValidateLogistic, featureScaling, fitLogistic, meanLogLoss, predictLogits, sigmoid, standardiseRows, stratifiedFolds, type LogisticCvOptions, type LogisticCvResult, type LogisticFitOptions, type LogisticModel } from './logistic-regression.js';

@@ -24,7 +24,8 @@ export interface ReadoutChoice {
 /**
  * Parses `OUTPUT[:CATEGORY|INDEX]` against a model. A name that is itself a tensor wins over a split at
  * the last ':' (tensor names may contain colons).
- * @param text the option value; undefined means the first graph output, every unit.
+ * @param text the option value; undefined means the sidecar's readout (`outputs.name`) when the model has
+ *   that tensor, else the first graph output; every unit.
  * @param model the model (its sidecar names the units of `outputs.name`).
  * @param inspection the inspected model (readout shapes).
  * @returns the tensor, unit indices and category names.
@@ -33,7 +34,9 @@ export interface ReadoutChoice {
  */
 export function parseReadout(text: string | undefined, model: LoadedModel, inspection: ModelInspection): ReadoutChoice {
   const names = new Set(inspection.layers.map((l) => l.name));
-  let tensor = text ?? model.outputs[0] ?? '';
+  // default: the readout the sidecar names (e.g. fitted heads), else the first graph output
+  const named = readSidecar(model.path)?.outputs?.name;
+  let tensor = text ?? (named !== undefined && names.has(named) ? named : model.outputs[0] ?? '');
   let unit: string | undefined;
   if (text !== undefined && !names.has(text) && text.includes(':')) {
     const at = text.lastIndexOf(':');

@@ -4,6 +4,7 @@ import { registerCluster } from './cluster.js';
 import { registerMerge } from './merge.js';
 import { registerDemo } from './demo.js';
 import { registerDiff } from './diff.js';
+import { registerHeads } from './heads.js';
 import { registerExport } from './export.js';
 import { registerLayers } from './layers.js';
 import { registerRecord } from './record.js';
@@ -15,4 +16,4 @@ import { registerSweep } from './sweep.js';
 import { registerTune } from './tune.js';
 
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerStimuli, registerSweep, registerSizeMatched, registerCheck, registerMerge, registerCluster, registerExport, registerReport];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerHeads, registerStimuli, registerSweep, registerSizeMatched, registerCheck, registerMerge, registerCluster, registerExport, registerReport];
