@@ -153,6 +153,17 @@ describe('exportSnapshot', () => {
     await expect(exportSnapshot({ snapshot: base, out, layers: 'relu0' })).resolves.toBeDefined();
   });
 
+  it('exportSnapshot of a shard labels its rows with their global stimulus indices', async () => {
+    const shard = join(dir, 'shard2');
+    await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: shard, layers: 'relu0+logits', batch: 2, threads: 1, shard: { index: 2, count: 2 } });
+    const snap = openSnapshot(shard);
+    expect(snap.firstIndex).toBe(5);
+    const result = await exportSnapshot({ snapshot: shard, out: join(dir, 'x-shard') });
+    expect(result.description.stimuli.firstIndex).toBe(5);
+    expect(result.description.stimuli.index).toEqual([5, 6, 7, 8, 9]);
+    await expectSameAsReader(shard, join(dir, 'x-shard'), result.description);
+  });
+
   it('sonde export prints what it wrote and needs --out', async () => {
     const out = join(dir, 'x-cli');
     const upstream = openSnapshot(mod).manifest.layers.find((l) => l.from === 'baseline')!.name;
