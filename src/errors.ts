@@ -52,6 +52,25 @@ export function closestNames(name: string, candidates: readonly string[], limit 
   return scored.slice(0, limit).map((s) => s.candidate);
 }
 
+/** A list of names for a one-line message: all of them up to `limit`, else the first `limit`, "…" and the count (a readout may have 1000 units). */
+export function nameList(names: readonly string[], limit = 8): string {
+  return names.length <= limit ? names.join(', ') : `${names.slice(0, limit).join(', ')}, … (${names.length} in all)`;
+}
+
+/**
+ * The first difference between two category lists compared as sets, in words (`"dog" is in A but not in
+ * B`), or null when they hold the same names.
+ */
+export function firstDifference(a: readonly string[], b: readonly string[], nameA: string, nameB: string): string | null {
+  const inB = new Set(b);
+  const missing = a.find((x) => !inB.has(x));
+  if (missing !== undefined) return `"${missing}" is in ${nameA} but not in ${nameB}`;
+  const inA = new Set(a);
+  const extra = b.find((x) => !inA.has(x));
+  if (extra !== undefined) return `"${extra}" is in ${nameB} but not in ${nameA}`;
+  return null;
+}
+
 /** `closest: "a", "b"` or an empty string; for appending to messages. */
 export function closestHint(name: string, candidates: readonly string[], limit = 3): string {
   const near = closestNames(name, candidates, limit);

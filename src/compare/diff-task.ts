@@ -3,7 +3,7 @@
  * the baseline, ROC area, hit rate at the baseline's false-alarm rate, the criterion-shift-only control,
  * and paired bootstrap intervals over stimuli, per category and averaged.
  */
-import { UsageError } from '../errors.js';
+import { UsageError, nameList } from '../errors.js';
 import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
 import { readoutChanges } from '../analysis/readout-change.js';
 import { rocAuc, rocAucWeighted, rocOrder } from '../analysis/roc.js';
@@ -131,7 +131,7 @@ export function parseDetectionTask(taskText: string, kinds: readonly string[], p
   else if (taskText.startsWith('detect:')) {
     categories = taskText.slice(7).split(',').map((c) => c.trim()).filter((c) => c.length > 0);
     for (const category of categories) {
-      if (!kinds.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: "${category}" has no readout unit (units: ${kinds.join(', ')})`);
+      if (!kinds.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: "${category}" has no readout unit (units: ${nameList(kinds)})`);
       if (!present.includes(category)) throw new UsageError('E_TASK', `--task ${taskText}: no stimulus is labelled "${category}"`);
     }
   } else throw new UsageError('E_TASK', `--task must be detect:CATEGORY[,CATEGORY…], detect:all or labels, got "${taskText}"`);

@@ -6,7 +6,7 @@
  * the ceiling is a held-out figure like the schemes it is compared with.
  */
 import { fitGainCeiling, type GainCeilingFit } from '../analysis/gain-ceiling.js';
-import { UsageError } from '../errors.js';
+import { UsageError, nameList } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { readoutOf } from '../compare/diff-collect.js';
@@ -94,7 +94,7 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
   const weights = await channelWeights(fit, site);
   return options.categories.map((category) => {
     const unit = readout.kinds.indexOf(category);
-    if (unit < 0) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${readout.kinds.join(', ')})`);
+    if (unit < 0) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
     const scores = new Float64Array(n);
     const signal = new Uint8Array(n);
     const jacobian = new Float64Array(n * C);

@@ -3,7 +3,7 @@
  * lookups the modulation resolver needs for the `tuning` and `sensitivity` kinds and for `lesion` with
  * `top` (`ResolveContext['tables']`), plus the category list in table order.
  */
-import { UsageError } from '../errors.js';
+import { firstDifference, nameList, UsageError } from '../errors.js';
 import type { ResolveContext, TableLookup } from '../modulation/types.js';
 import { readSensitivityTable, readTuningTable, type SensitivityTableBlock, type TuningTableBlock } from '../snapshot/tables.js';
 
@@ -54,8 +54,9 @@ export function loadModulationTables(paths: ModulationTablePaths): ModulationTab
     layers.sensitivity = file.blocks.map((b) => b.layer);
     if (categories === undefined) categories = file.categories;
     else if (!sameSet(categories, file.categories)) {
-      throw new UsageError('E_TABLES', `--tuning ${paths.tuning} has categories ${categories.join(', ')} but --sensitivity ${paths.sensitivity} has ${file.categories.join(', ')}; one modulation run needs one category list`, {
-        hint: 'sense with a readout whose units are the label categories (a model sidecar with outputs.kinds)',
+      const difference = firstDifference(categories, file.categories, `--tuning ${paths.tuning}`, `--sensitivity ${paths.sensitivity}`);
+      throw new UsageError('E_TABLES', `the tables have different categories (${categories.length} in the tuning table: ${nameList(categories, 4)}; ${file.categories.length} in the sensitivity table: ${nameList(file.categories, 4)}): ${difference ?? 'a name repeats in one list'}; one modulation run needs one category list`, {
+        hint: 'sense with a readout whose units are the label categories: fit readout heads on the baseline (`sonde heads`) and record, tune and sense with that model',
       });
     }
   }

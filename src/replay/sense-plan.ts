@@ -3,7 +3,7 @@
  * (`OUTPUT[:CATEGORY|INDEX]`), the site tensors (`all-activations` or names), and which stimuli enter
  * each category's average.
  */
-import { UsageError, closestHint } from '../errors.js';
+import { UsageError, closestHint, nameList } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { ACTIVATION_OPS } from '../graph/select.js';
 import { readSidecar } from '../graph/sidecar.js';
@@ -53,14 +53,20 @@ export function parseReadout(text: string | undefined, model: LoadedModel, inspe
     throw new UsageError('E_SENSE_READOUT', `--readout "${tensor}" has shape [${layer.shape.join(', ')}] per stimulus; a readout must be one vector of units per stimulus`, { hint: 'pick the logits or another [N, K] output' });
   }
   const sidecar = readSidecar(model.path);
-  const kinds = sidecar?.outputs && sidecar.outputs.name === tensor && sidecar.outputs.kinds.length === units ? sidecar.outputs.kinds.map(String) : null;
+  if (sidecar?.outputs && sidecar.outputs.name === tensor && sidecar.outputs.kinds.length !== units) {
+    // a partial list cannot say which unit is which category: refuse rather than fall back to indices silently
+    throw new UsageError('E_SENSE_READOUT', `the sidecar of ${model.fileName} names ${sidecar.outputs.kinds.length} kinds (${nameList(sidecar.outputs.kinds.map(String), 4)}) for the ${units} units of "${tensor}"; it needs one kind per unit`, {
+      hint: 'fit one readout unit per category with `sonde heads` and use that model, or list a kind for every unit in outputs.kinds',
+    });
+  }
+  const kinds = sidecar?.outputs && sidecar.outputs.name === tensor ? sidecar.outputs.kinds.map(String) : null;
   const namesOfUnits = kinds ?? Array.from({ length: units }, (_, i) => String(i));
   if (unit === undefined) return { tensor, units: namesOfUnits.map((_, i) => i), categories: namesOfUnits };
   let index = namesOfUnits.indexOf(unit);
   if (index < 0 && /^\d+$/.test(unit) && Number(unit) < units) index = Number(unit);
   if (index < 0) {
     const near = closestHint(unit, namesOfUnits);
-    throw new UsageError('E_SENSE_READOUT', `--readout "${text}": "${unit}" is not a unit of "${tensor}" (${units} units${kinds ? `: ${kinds.join(', ')}` : `, indices 0–${units - 1}`}${near ? `; ${near}` : ''})`);
+    throw new UsageError('E_SENSE_READOUT', `--readout "${text}": "${unit}" is not a unit of "${tensor}" (${units} units${kinds ? `: ${nameList(kinds)}` : `, indices 0–${units - 1}`}${near ? `; ${near}` : ''})`);
   }
   return { tensor, units: [index], categories: [namesOfUnits[index]!] };
 }

@@ -17,7 +17,7 @@
  */
 import { bootstrapIntervals } from '../analysis/bootstrap.js';
 import { criterionShiftControl, rocAuc, rocAucWeighted, rocOrder } from '../analysis/roc.js';
-import { UsageError } from '../errors.js';
+import { UsageError, nameList } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { gainFromValues, normaliseAcrossCategories } from '../modulation/gain-pattern.js';
 import { shuffleChannels } from '../modulation/shuffle.js';
@@ -197,7 +197,7 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
   }
   const column = (scores: Float64Array, category: string): Float64Array => {
     const unit = readout.kinds.indexOf(category);
-    if (unit < 0) throw new UsageError('E_COMPARE', `category "${category}" is not a readout unit (units: ${readout.kinds.join(', ')})`);
+    if (unit < 0) throw new UsageError('E_COMPARE', `category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
     const out = new Float64Array(n);
     for (let i = 0; i < n; i++) out[i] = scores[i * units + unit]!; // [n, units]: i*units + u
     return out;

@@ -108,7 +108,7 @@ describe('table-driven modulation kinds', () => {
     const other = join(dir, 'sens-units.arrow');
     writeFileSync(join(dir, 'plain.onnx'), buildTinyNet({ bias: true, seed: 41, classes: 3 }));
     return senseSites({ model: join(dir, 'plain.onnx'), stimuli: stim.npy, site: 'relu1', threads: 1, out: other }).then(() => {
-      expect(() => loadModulationTables({ tuning: tuningPath, sensitivity: other })).toThrow(/has categories bird, cat, dog but --sensitivity .* has 0, 1, 2/);
+      expect(() => loadModulationTables({ tuning: tuningPath, sensitivity: other })).toThrow(/3 in the tuning table: bird, cat, dog; 3 in the sensitivity table: 0, 1, 2\): "bird" is in --tuning .* but not in --sensitivity/);
       expect(() => loadModulationTables({ tuning: join(dir, 'absent.arrow') })).toThrow(/tuning table .*absent\.arrow does not exist/);
       expect(() => loadModulationTables({})).toThrow(/needs a tuning or a sensitivity table/);
     });

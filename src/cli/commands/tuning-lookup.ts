@@ -1,4 +1,4 @@
-import { closestHint, UsageError } from '../../errors.js';
+import { closestHint, UsageError, nameList } from '../../errors.js';
 import type { TuningLookup } from '../../compare/diff-types.js';
 import { readTuningTable } from '../../snapshot/tables.js';
 
@@ -12,7 +12,7 @@ export function tuningLookup(path: string, target: string): TuningLookup {
   const byLayer = new Map(table.blocks.map((block) => [block.layer, block]));
   const categories = [...new Set(table.blocks.flatMap((b) => b.categories))];
   if (!categories.includes(target)) {
-    throw new UsageError('E_TARGET', `--target "${target}" is not a category of tuning table ${path} (${categories.join(', ')})`, { hint: closestHint(target, categories) || undefined });
+    throw new UsageError('E_TARGET', `--target "${target}" is not a category of tuning table ${path} (${nameList(categories)})`, { hint: closestHint(target, categories) || undefined });
   }
   return (layer: string) => {
     const block = byLayer.get(layer);
