@@ -1,0 +1,63 @@
+import { mkdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import sharp from 'sharp';
+import { beforeAll, describe, expect, it } from 'vitest';
+import { buildTinyNet, runSonde, tempFolder } from '../helpers/onnx-builder.js';
+
+let dir = '';
+let model = '';
+let images = '';
+
+beforeAll(async () => {
+  dir = tempFolder('sonde-record-prep-');
+  model = join(dir, 'net.onnx');
+  writeFileSync(model, buildTinyNet());
+  images = join(dir, 'photos');
+  for (const [k, category] of ['cat', 'dog'].entries()) {
+    mkdirSync(join(images, category), { recursive: true });
+    for (let i = 0; i < 2; i++) {
+      const raw = Buffer.alloc(30 * 20 * 3);
+      for (let p = 0; p < raw.length; p++) raw[p] = (p * (7 + k) + 13 * i) % 256;
+      await sharp(raw, { raw: { width: 30, height: 20, channels: 3 } }).png().toFile(join(images, category, `${i}.png`));
+    }
+  }
+});
+
+const manifest = (out: string): { stimuli: { digest: string }; preprocessing: Record<string, unknown> } => JSON.parse(readFileSync(join(out, 'manifest.json'), 'utf8'));
+
+describe('sonde record (preprocessing options)', () => {
+  it('sonde record --fit crop:20 --interpolation bilinear --normalise imagenet writes every field into the manifest', async () => {
+    const out = join(dir, 'crop');
+    const result = await runSonde(['record', model, '--stimuli', images, '--out', out, '--fit', 'crop:20', '--interpolation', 'bilinear', '--normalise', 'imagenet', '--threads', '1']);
+    expect(result.code, result.stderr).toBe(0);
+    expect(manifest(out).preprocessing).toEqual({ size: [16, 16], mean: [0.485, 0.456, 0.406], std: [0.229, 0.224, 0.225], bgr: false, fit: 'crop', shorterSide: 20, interpolation: 'bilinear', normalise: 'imagenet' });
+  });
+
+  it('sonde record gives the same stimuli digest for the same preprocessing and another for another fit, kernel or normalisation', async () => {
+    const digest = async (name: string, extra: string[]): Promise<string> => {
+      const out = join(dir, name);
+      const result = await runSonde(['record', model, '--stimuli', images, '--out', out, '--threads', '1', '--layers', 'relu0', ...extra]);
+      expect(result.code, result.stderr).toBe(0);
+      return manifest(out).stimuli.digest;
+    };
+    const squash = await digest('d-squash', []);
+    expect(await digest('d-squash-again', ['--fit', 'squash', '--interpolation', 'lanczos3', '--normalise', 'unit'])).toBe(squash);
+    const others = [await digest('d-crop', ['--fit', 'crop']), await digest('d-letterbox', ['--fit', 'letterbox']), await digest('d-nearest', ['--interpolation', 'nearest']), await digest('d-signed', ['--normalise', 'signed'])];
+    expect(new Set([squash, ...others]).size).toBe(5);
+    expect(manifest(join(dir, 'd-squash')).preprocessing).toMatchObject({ fit: 'squash', interpolation: 'lanczos3', normalise: 'unit' });
+  });
+
+  it('sonde record refuses --normalise with --mean, an unknown fit and a shorter side below the input size, in one line (exit 2)', async () => {
+    for (const [args, pattern] of [
+      [['--normalise', 'imagenet', '--mean', '0.5'], /--normalise imagenet sets the mean and std; it cannot be combined with --mean or --std/],
+      [['--fit', 'zoom'], /--fit "zoom" is not a fit mode/],
+      [['--fit', 'crop:8'], /--fit crop:8: the shorter side must be a whole number ≥ the input's larger side 16/],
+      [['--interpolation', 'cubic'], /--interpolation "cubic" is not an interpolation kernel/],
+    ] as const) {
+      const result = await runSonde(['record', model, '--stimuli', images, '--out', join(dir, 'bad'), ...args]);
+      expect(result.code, result.stderr).toBe(2);
+      expect(result.stderr.trim().split('\n')).toHaveLength(1);
+      expect(result.stderr).toMatch(pattern);
+    }
+  });
+});
