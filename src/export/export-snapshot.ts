@@ -19,7 +19,7 @@ import { HashingFileSink } from '../snapshot/arrow-sink.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import type { ManifestLayer } from '../snapshot/manifest.js';
 import { assertApartFromInputs, slugify } from '../outputs/output-folder.js';
-import { EXPORT_FILE, inspectExportFolder, prepareExportFolder } from '../outputs/export-folder.js';
+import { assertExportFolderUsable, EXPORT_FILE, prepareExportFolder } from '../outputs/export-folder.js';
 import { axisNames, EXPORT_FORMAT, type ExportArrayFile, type ExportDescription, type ExportLayer } from './export-description.js';
 
 /** Options of `exportSnapshot`. */
@@ -65,7 +65,7 @@ export async function exportSnapshot(options: ExportOptions): Promise<ExportResu
   ]);
   const chosen = selectLayers(snapshot.manifest.layers.map((l) => ({ ...l, default: true })), options.layers ?? 'all');
   if (baselineFolder && chosen.some((l) => l.from === 'baseline')) assertBaselineUnchanged(snapshot, baselineFolder);
-  if (inspectExportFolder(folder).kind !== 'fresh') prepareExportFolder(folder, options.force === true); // refuse before locking
+  assertExportFolderUsable(folder, options.force === true); // refuse before the lock file is written into it
   mkdirSync(folder, { recursive: true });
   const lock = acquireLock(folder, { label: `export folder ${options.out}` });
   try {

@@ -76,6 +76,18 @@ function readExportMark(path: string): { complete: boolean } | null {
  *   (a complete export without `force`).
  */
 export function prepareExportFolder(folder: string, force: boolean): void {
+  const state = assertExportFolderUsable(folder, force);
+  for (const name of state.owned) rmSync(join(folder, name), { force: true });
+  mkdirSync(join(folder, 'layers'), { recursive: true });
+}
+
+/**
+ * Throws unless an export may go into `folder` (see `prepareExportFolder`); changes nothing, so it can
+ * run before the folder's lock is taken.
+ * @returns the folder's state.
+ * @throws UsageError as `prepareExportFolder`.
+ */
+export function assertExportFolderUsable(folder: string, force: boolean): ExportFolderState {
   const state = inspectExportFolder(folder);
   if (state.kind === 'foreign') {
     throw new UsageError('E_OUT', `--out ${folder} is not empty and is not an export folder (found ${state.foreign.join(', ')}${state.foreign.length >= 20 ? ', …' : ''}); refusing to write into it${force ? ', even with --force (Sonde only deletes what it wrote)' : ''}`, {
@@ -85,6 +97,5 @@ export function prepareExportFolder(folder: string, force: boolean): void {
   if (state.kind === 'export' && state.complete && !force) {
     throw new UsageError('E_OUT_EXISTS', `--out ${folder} already holds a complete export`, { hint: 'pass --force to replace it, or choose another --out' });
   }
-  for (const name of state.owned) rmSync(join(folder, name), { force: true });
-  mkdirSync(join(folder, 'layers'), { recursive: true });
+  return state;
 }

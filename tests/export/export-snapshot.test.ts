@@ -5,9 +5,10 @@
  * layers live in its baseline. The `.npy` files are parsed by the format's own rules (numpy.lib.format:
  * magic, version, header dict, 64-byte alignment), independently of the writer.
  */
-import { mkdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
+import { acquireLock } from '../../src/disk/lock.js';
 import { exportSnapshot } from '../../src/export/export-snapshot.js';
 import type { ExportDescription } from '../../src/export/export-description.js';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
@@ -162,6 +163,22 @@ describe('exportSnapshot', () => {
     expect(result.description.stimuli.firstIndex).toBe(5);
     expect(result.description.stimuli.index).toEqual([5, 6, 7, 8, 9]);
     await expectSameAsReader(shard, join(dir, 'x-shard'), result.description);
+  });
+
+  it('exportSnapshot into a folder another export holds (its lock) is refused and deletes nothing there', async () => {
+    const out = join(dir, 'x-locked');
+    await exportSnapshot({ snapshot: base, out, layers: 'relu0' });
+    const description = JSON.parse(readFileSync(join(out, 'export.json'), 'utf8')) as ExportDescription;
+    writeFileSync(join(out, 'export.json'), JSON.stringify({ ...description, complete: false })); // as while it runs
+    const before = readdirSync(join(out, 'layers'));
+    const lock = acquireLock(out);
+    try {
+      await expect(exportSnapshot({ snapshot: base, out, layers: 'relu0' })).rejects.toThrow(/lock|held|in use|running/i);
+      expect(readdirSync(join(out, 'layers'))).toEqual(before);
+      expect(existsSync(join(out, 'export.json'))).toBe(true);
+    } finally {
+      lock.release();
+    }
   });
 
   it('sonde export prints what it wrote and needs --out', async () => {
