@@ -10,6 +10,7 @@ export type GraphProto = onnxProto.onnx.IGraphProto;
 export type NodeProto = onnxProto.onnx.INodeProto;
 export type TensorProto = onnxProto.onnx.ITensorProto;
 export type ValueInfoProto = onnxProto.onnx.IValueInfoProto;
+export type AttributeProto = onnxProto.onnx.IAttributeProto;
 
 /** ONNX TensorProto.DataType codes Sonde handles, and their names (from onnx.proto3). */
 export const ONNX_DTYPE_NAMES: Readonly<Record<number, string>> = {

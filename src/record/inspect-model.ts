@@ -37,6 +37,13 @@ export interface ModelInspection {
   skipped: number;
   /** Those node outputs, in topological order, each with the reason (for listings and notices). */
   skippedTensors: SkippedTensor[];
+  /**
+   * Element type and full dims (batch axis at `probeBatch`) of every node output and of the data input
+   * from the probe run: what the gradient builder (src/graph/gradient/) needs to know about shapes.
+   */
+  probed: Map<string, { type: string; dims: number[] }>;
+  /** The batch size of the probe run (2 when the batch axis is free). */
+  probeBatch: number;
 }
 
 /** A node output that is not a per-stimulus activation. */
@@ -112,7 +119,8 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
       });
     }
   }
-  return { model, structure, input: { name: model.input.name, declared: model.input.dims, shape: inputShape }, layers, skipped: skippedTensors.length, skippedTensors };
+  shapes.set(model.input.name, { type: 'float32', dims: probeShape });
+  return { model, structure, input: { name: model.input.name, declared: model.input.dims, shape: inputShape }, layers, skipped: skippedTensors.length, skippedTensors, probed: shapes, probeBatch };
 }
 
 /**

@@ -16,7 +16,13 @@ import type { SensitivitySums, SiteSensitivity } from './sense-types.js';
  */
 export function sensitivityFromSums(sums: SensitivitySums, C: number, K: number, step: number): { sensitivity: Float64Array; fdError: Float64Array; extrapolationShift: Float64Array | null } {
   const { variants, perturbed: sumPerturbed, identity: sumIdentity, counts } = sums;
-  if (variants !== 2 && variants !== 4) throw new RuntimeFailure('E_SENSE_SUMS', `sensitivity sums have ${variants} step variants; expected 2 (secant) or 4 (Richardson)`);
+  if (variants === 1) {
+    // exact: the sums are of gradients already; their means are the sensitivities
+    const sensitivity = new Float64Array(C * K);
+    for (let k = 0; k < C; k++) for (let c = 0; c < K; c++) sensitivity[k * K + c] = sumPerturbed[k * K + c]! / counts[c]!;
+    return { sensitivity, fdError: new Float64Array(C * K), extrapolationShift: null };
+  }
+  if (variants !== 2 && variants !== 4) throw new RuntimeFailure('E_SENSE_SUMS', `sensitivity sums have ${variants} step variants; expected 1 (exact), 2 (secant) or 4 (Richardson)`);
   const sensitivity = new Float64Array(C * K);
   const fdError = new Float64Array(C * K);
   const extrapolationShift = variants === 4 ? new Float64Array(C * K) : null;
@@ -51,6 +57,7 @@ export function sensitivityFromSums(sums: SensitivitySums, C: number, K: number,
  * @returns the worst ratio (NaN counts as infinite) and the warning line when some value exceeds `ratio`.
  */
 export function errorCheck(block: SiteSensitivity, ratio: number): { worst: number; warning?: string } {
+  if (block.method === 'exact') return { worst: 0 }; // no step: nothing depends on one
   const { channels: C, categories } = block;
   const K = categories.length;
   const indicator = block.extrapolationShift ?? block.fdError;

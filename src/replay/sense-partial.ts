@@ -26,7 +26,7 @@ export async function sensePartial(options: SenseOptions, shard: ShardSpec): Pro
     readout: result.readout,
     source: result.source,
     warnRatio: options.warnRatio ?? DEFAULT_WARN_RATIO,
-    method: options.method ?? 'richardson',
+    method: options.method ?? 'exact',
     sites: result.sites.map((b) => [b.layer, b.kind, b.step, b.channels]),
   };
   const sites = result.sites.map((block) => {
@@ -85,13 +85,13 @@ export function mergeSensePartials(ordered: readonly OrderedPart[], options: { o
       fdError,
       kind: f['kind'] === 'offset' ? 'offset' : 'gain',
       step,
-      method: extrapolationShift ? 'richardson' : 'secant', // 4 step variants are Richardson's, 2 the secant's
+      method: firstSite.variants === 1 ? 'exact' : extrapolationShift ? 'richardson' : 'secant', // 1 variant is exact, 4 step variants are Richardson's, 2 the secant's
       extrapolationShift,
       count: counts,
       worstErrorRatio: 0,
       ...total,
       downstreamShare: share,
-      forwardEquivalentsPerChannel: (total.rows * share + total.prefixStimuli) / (C * total.stimuliUsed),
+      forwardEquivalentsPerChannel: (total.rows * share * (firstSite.variants === 1 ? 3 : 1) + total.prefixStimuli) / (C * total.stimuliUsed),
     };
     const check = errorCheck(block, key.warnRatio);
     block.worstErrorRatio = check.worst;

@@ -44,7 +44,7 @@ export interface SiteRun {
 }
 
 /** A stimulus's boundary tensors, as views into a batch's arrays. */
-interface StimulusValues {
+export interface StimulusValues {
   index: number;
   /** One per boundary tensor: the stimulus's values. */
   values: Float32Array[];
@@ -299,14 +299,15 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   };
 }
 
-interface BoundaryBatch {
+/** One batch of stimuli with their boundary tensors, and what computing them cost. */
+export interface BoundaryBatch {
   stimuli: StimulusValues[];
   prefixSeconds: number;
   prefixRuns: number;
 }
 
 /** Streams each stimulus's boundary tensors: from the baseline's layer files, or by running the network. */
-async function* boundaryStream(run: SiteRun, boundary: readonly string[]): AsyncGenerator<BoundaryBatch> {
+export async function* boundaryStream(run: SiteRun, boundary: readonly string[]): AsyncGenerator<BoundaryBatch> {
   const perRow = boundary.map((name) => (name === run.model.input.name ? run.inspection.input.shape.slice(1) : run.byName.get(name)!.shape).reduce((a, b) => a * b, 1));
   if (run.baseline) {
     const baseline = run.baseline;

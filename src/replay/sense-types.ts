@@ -25,10 +25,13 @@ export const DEFAULT_OFFSET_STEP = 0.005;
 export function defaultStep(kind: 'gain' | 'offset'): number {
   return kind === 'offset' ? DEFAULT_OFFSET_STEP : DEFAULT_STEP;
 }
-/** How a sensitivity is computed from the perturbed runs (see the file comment). */
-export type SenseMethod = 'richardson' | 'secant';
+/**
+ * How a sensitivity is computed: `exact` (default) by reverse-mode gradients compiled into the ONNX graph
+ * (src/replay/sense-exact.ts); `richardson` and `secant` from perturbed runs (see sense.ts's comment).
+ */
+export type SenseMethod = 'exact' | 'richardson' | 'secant';
 /** The methods, the default first. */
-export const SENSE_METHODS: readonly SenseMethod[] = ['richardson', 'secant'];
+export const SENSE_METHODS: readonly SenseMethod[] = ['exact', 'richardson', 'secant'];
 /** Default rows per downstream run. */
 export const DEFAULT_ROWS_PER_RUN = 256;
 /** Default cap on the feed memory of the two runs in flight (bytes). */
@@ -54,15 +57,15 @@ export interface SenseOptions {
   kind?: 'gain' | 'offset';
   /** Step h > 0 (default DEFAULT_STEP for gains, DEFAULT_OFFSET_STEP for offsets); Richardson also runs at h/2. */
   step?: number;
-  /** `richardson` (default): (4·D(h/2) − D(h))/3, four runs per channel; `secant`: D(h), two runs per channel. */
+  /** `exact` (default): gradients, one forward and backward run per stimulus and category; `richardson`: (4·D(h/2) − D(h))/3, four runs per channel; `secant`: D(h), two runs per channel. */
   method?: SenseMethod;
   /** Average only over stimuli containing this category, or `each`: every readout category over the stimuli containing it. */
   stimuliOf?: string;
-  /** Perturbed rows per downstream run (default 256). */
+  /** Perturbed rows per downstream run (default 256; finite differences only). */
   rowsPerRun?: number;
   /** Cap on feed bytes of the two runs in flight (default 256 MiB); lowers rowsPerRun for wide sites. */
   feedBytes?: number;
-  /** Stimuli per run of the whole network when there is no baseline (default 16). */
+  /** Stimuli per run of the whole network when there is no baseline (default 16); with `exact`, also the rows (stimulus × category) per gradient run. */
   batch?: number;
   /** Runtime intra-op threads (0: the runtime chooses). */
   threads?: number;
@@ -115,6 +118,9 @@ export interface SiteSensitivity extends SensitivityTableBlock {
    * Estimated cost in forward-pass equivalents per channel and stimulus, from the MAC count:
    * (rows · downstreamShare + stimuli run through the whole network) / (channels · stimuli used).
    * The perturbed runs alone need 4 · downstreamShare with Richardson, 2 · downstreamShare with the secant.
+   * With `exact` the rows are (stimulus, category) pairs, each one forward and one backward pass of the
+   * downstream part, counted as 3 · downstreamShare (a backward pass ≈ two forward passes, common practice),
+   * and the result is per stimulus for all channels at once.
    */
   forwardEquivalentsPerChannel: number;
   /** Stimuli run through the whole network to compute boundary tensors (0 with a baseline). */
@@ -127,7 +133,7 @@ export interface SiteSensitivity extends SensitivityTableBlock {
 
 /** Readout sums of one site over some stimuli: what shards add up. */
 export interface SensitivitySums {
-  /** 2 (±h: secant) or 4 (±h, ±h/2: Richardson). */
+  /** 1 (exact: `perturbed` holds Σ of the gradients, [1, C, K]), 2 (±h: secant) or 4 (±h, ±h/2: Richardson). */
   variants: number;
   /** Σ over stimuli of readout c with channel k perturbed by variant v, [V, C, K]: i = (v*C + k)*K + c. */
   perturbed: Float64Array;

@@ -54,6 +54,7 @@ import { shardRange } from '../record/shard.js';
 import { assertOutFileWritable } from '../outputs/output-file.js';
 import { errorCheck } from './sense-estimate.js';
 import { senseOneSite } from './sense-run.js';
+import { senseOneSiteExact } from './sense-exact.js';
 import { chooseSites, parseReadout, stimulusWeights } from './sense-plan.js';
 import { DEFAULT_FEED_BYTES, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, SENSE_METHODS, type SenseOptions, type SenseResult, type SiteSensitivity, defaultStep } from './sense-types.js';
 
@@ -70,7 +71,7 @@ import { DEFAULT_FEED_BYTES, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RA
 export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   const kind = options.kind ?? 'gain';
   if (kind !== 'gain' && kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${String(kind)}"`);
-  const method = options.method ?? 'richardson';
+  const method = options.method ?? 'exact';
   if (!SENSE_METHODS.includes(method)) throw new UsageError('E_SENSE_METHOD', `--method must be ${SENSE_METHODS.map((m) => `"${m}"`).join(' or ')}, got "${String(method)}"`);
   const step = options.step ?? defaultStep(kind);
   if (!Number.isFinite(step) || step <= 0) {
@@ -131,9 +132,11 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     }
     if (baseline) checkBaseline(baseline, tail, options.from!);
     const layer = byName.get(site)!;
-    const block = await senseOneSite({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
+    const measure = method === 'exact' ? senseOneSiteExact : senseOneSite;
+    const block = await measure({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
     block.downstreamShare = downstreamShare(estimate, tail.computed);
-    block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare + block.prefixStimuli) / (block.channels * block.stimuliUsed);
+    // exact: each row is one forward and one backward pass downstream (≈ 3 forward passes, common practice)
+    block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare * (method === 'exact' ? 3 : 1) + block.prefixStimuli) / (block.channels * block.stimuliUsed);
     if (options.shard) {
       blocks.push(block);
       continue;

@@ -120,7 +120,7 @@ describe('sonde tune / sonde sense (CLI)', () => {
     const sens = join(dir, 'sens.arrow');
     const sensed = await runSonde(['sense', model, '--from', snapshot, '--site', 'relu1', '--site', 'relu2', '--readout', 'logits', '--stimuli-of', 'each', '--out', sens, '--threads', '1']);
     expect(sensed.code, sensed.stderr).toBe(0);
-    expect(sensed.stdout).toMatch(/gain sensitivities of logits \(3 units\), Richardson from steps 0\.002 and 0\.001, boundary tensors from baseline/);
+    expect(sensed.stdout).toMatch(/gain sensitivities of logits \(3 units\), exact gradients \(reverse mode, in the ONNX graph\), boundary tensors from baseline/);
     expect(sensed.stdout).toMatch(/relu1 .* 6 .* 3 /);
     const table = readSensitivityTable(sens);
     expect(table.categories).toEqual(['bird', 'cat', 'dog']);
@@ -208,8 +208,8 @@ describe('sonde tune / sonde sense (bad input)', () => {
     }
   });
 
-  it('sonde sense with an unknown --method names the two it knows', async () => {
-    await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu1', '--method', 'forward', '--out', join(dir, 's5m.arrow')], /--method must be richardson or secant, got "forward"/);
+  it('sonde sense with an unknown --method names the three it knows', async () => {
+    await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu1', '--method', 'forward', '--out', join(dir, 's5m.arrow')], /--method must be exact or richardson or secant, got "forward"/);
   });
 
   it('sonde sense --from a baseline that lacks a tensor the downstream part reads, or with a fixed-batch model, says what to do', async () => {

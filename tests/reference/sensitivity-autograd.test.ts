@@ -117,8 +117,9 @@ function kinked(ref: Reference, C: number, K: number): { mask: Uint8Array; count
   return { mask, count };
 }
 
+/** Finite differences (Richardson at the default steps unless `options` say otherwise). */
 async function sense(model: string, site: string, kind: 'gain' | 'offset', options: { method?: SenseMethod; step?: number } = {}): Promise<SiteSensitivity> {
-  const result = await senseSites({ model: join(FIXTURES, `${model}.onnx`), stimuli: join(FIXTURES, 'inputs.npy'), site, kind, threads: 1, ...options });
+  const result = await senseSites({ model: join(FIXTURES, `${model}.onnx`), stimuli: join(FIXTURES, 'inputs.npy'), site, kind, threads: 1, method: 'richardson', ...options });
   return result.sites[0]!;
 }
 
@@ -136,7 +137,7 @@ describe('senseSites vs PyTorch float64 finite differences at the same steps', (
   }
 
   for (const m of MODELS) {
-    it(`senseSites defaults on ${m.name} are Richardson at steps h and h/2 (h = ${defaultStep('gain')} for gains, ${defaultStep('offset')} for offsets) and match PyTorch's float64 Richardson within ${RICHARDSON_ROUNDING}`, async () => {
+    it(`senseSites --method richardson on ${m.name} runs at steps h and h/2 (h = ${defaultStep('gain')} for gains, ${defaultStep('offset')} for offsets) and match PyTorch's float64 Richardson within ${RICHARDSON_ROUNDING}`, async () => {
       for (const kind of KINDS) {
         const ref = reference(m.name, kind);
         expect(ref.richardsonStep).toBe(defaultStep(kind)); // the fixtures were made for Sonde's default steps
@@ -149,9 +150,9 @@ describe('senseSites vs PyTorch float64 finite differences at the same steps', (
   }
 });
 
-describe('senseSites defaults vs PyTorch autograd', () => {
+describe('senseSites --method richardson vs PyTorch autograd', () => {
   for (const m of MODELS) {
-    it(`senseSites defaults on ${m.name} (${m.what}) agree with autograd within ${m.autograd.gain} (gain) and ${m.autograd.offset} (offset) of each category's largest value, away from ${m.kinks.gain + m.kinks.offset} kinked entries`, async () => {
+    it(`senseSites --method richardson on ${m.name} (${m.what}) agrees with autograd within ${m.autograd.gain} (gain) and ${m.autograd.offset} (offset) of each category's largest value, away from ${m.kinks.gain + m.kinks.offset} kinked entries`, async () => {
       for (const kind of KINDS) {
         const ref = reference(m.name, kind);
         const s = await sense(m.name, ref.site, kind);
@@ -164,7 +165,7 @@ describe('senseSites defaults vs PyTorch autograd', () => {
     });
   }
 
-  it('senseSites default gain values on the bias-free network sum over channels to the mean logits (Euler, degree-1 homogeneity; logits from PyTorch fc.npy)', async () => {
+  it('senseSites --method richardson gain values on the bias-free network sum over channels to the mean logits (Euler, degree-1 homogeneity; logits from PyTorch fc.npy)', async () => {
     // Euler's theorem: a positively homogeneous f of degree 1 satisfies Σ_k g_k ∂f/∂g_k = f at g = 1.
     const ref = reference('homogeneous', 'gain');
     const s = await sense('homogeneous', ref.site, 'gain');

@@ -166,8 +166,8 @@ describe('senseSites (exact properties on small networks)', () => {
   });
 
   it('senseSites results do not depend on how rows are batched (7 rows per run vs 256)', async () => {
-    const small = await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', kind: 'gain', threads: 1, rowsPerRun: 7 });
-    const large = await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', kind: 'gain', threads: 1 });
+    const small = await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', kind: 'gain', threads: 1, rowsPerRun: 7, method: 'richardson' });
+    const large = await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', kind: 'gain', threads: 1, method: 'richardson' });
     const a = small.sites[0]!;
     const b = large.sites[0]!;
     expect(a.runs).toBe(Math.ceil(a.rows / 7));
@@ -181,12 +181,12 @@ describe('senseSites (exact properties on small networks)', () => {
     }
   });
 
-  it('senseSites default (Richardson) equals (4·S(h/2) − S(h))/3 of two secant runs, shares their fd_error, and runs twice their rows', async () => {
+  it('senseSites --method richardson equals (4·S(h/2) − S(h))/3 of two secant runs, shares their fd_error, and runs twice their rows', async () => {
     // Richardson extrapolation of central differences (e.g. Burden & Faires, Numerical Analysis, §4.2,
     // from memory): R = (4·D(h/2) − D(h))/3 — here an identity between Sonde's own runs at the same gains.
     const h = 0.01;
     const run = async (method: 'secant' | 'richardson', step: number) => (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, method, step })).sites[0]!;
-    const rich = (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, step: h })).sites[0]!;
+    const rich = (await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, step: h, method: 'richardson' })).sites[0]!;
     const full = await run('secant', h);
     const half = await run('secant', h / 2);
     expect(rich.method).toBe('richardson');
@@ -204,16 +204,16 @@ describe('senseSites (exact properties on small networks)', () => {
   });
 
   it('senseSites rejects an unknown method, naming it', async () => {
-    await expect(senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, method: 'forward' as never })).rejects.toThrow(/--method must be "richardson" or "secant", got "forward"/);
+    await expect(senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'relu0', threads: 1, method: 'forward' as never })).rejects.toThrow(/--method must be "exact" or "richardson" or "secant", got "forward"/);
   });
 
-  it('senseSites all-activations measures every ReLU output upstream of the readout and writes one table block per site', async () => {
+  it('senseSites all-activations measures every ReLU output upstream of the readout and writes one table block per site (default method exact, recorded in the metadata)', async () => {
     const out = join(dir, 'all.arrow');
     const result = await senseSites({ model: residual, from: join(dir, 'base-residual'), site: 'all-activations', threads: 1, out });
     expect(result.sites.map((s) => s.layer)).toEqual(['relu0', 'relu1', 'relu2']);
     const file = readSensitivityTable(out);
-    expect(file.blocks.map((b) => [b.layer, b.channels, b.kind, b.step])).toEqual([['relu0', 4, 'gain', 0.002], ['relu1', 4, 'gain', 0.002], ['relu2', 6, 'gain', 0.002]]);
-    expect(file.metadata['sonde.method']).toBe('richardson');
+    expect(file.blocks.map((b) => [b.layer, b.channels, b.kind, b.step])).toEqual([['relu0', 4, 'gain', 0], ['relu1', 4, 'gain', 0], ['relu2', 6, 'gain', 0]]);
+    expect(file.metadata['sonde.method']).toBe('exact');
     expect(file.categories).toEqual(['0', '1', '2', '3', '4']); // no sidecar: unit indices as text
     expect(file.metadata['sonde.readout']).toBe('logits');
     // the downstream share falls with depth: fewer multiply-adds remain below a later site

@@ -1,8 +1,8 @@
 /**
  * `sonde sense MODEL --site TENSOR --readout OUTPUT[:CATEGORY|INDEX] --out FILE.arrow`: causal gain (or
- * offset) sensitivities of every channel of a site for each readout category, by finite differences
- * through the injected gain input — Richardson-extrapolated central differences by default, the plain
- * central secant with --method secant (see src/replay/sense.ts).
+ * offset) sensitivities of every channel of a site for each readout category: exact derivatives by
+ * reverse-mode gradients compiled into the ONNX graph by default (src/replay/sense-exact.ts), or finite
+ * differences through the injected gain input with --method richardson / secant (see src/replay/sense.ts).
  */
 import Table from 'cli-table3';
 import type { Command } from 'commander';
@@ -48,7 +48,7 @@ interface SenseCliOptions {
 export function registerSense(program: Command): void {
   program
     .command('sense')
-    .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site, by finite differences (Richardson-extrapolated central differences by default)')
+    .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site: exact, by gradients compiled into the ONNX graph (default), or by finite differences (--method richardson|secant)')
     .argument('<model>', 'ONNX model file')
     .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect)
     .option('--out <file.arrow>', 'write the sensitivity table here (required unless --partial; an existing file only with --force)')
@@ -58,11 +58,11 @@ export function registerSense(program: Command): void {
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
     .option('--readout <output[:category|index]>', 'readout tensor, optionally one unit (default: the first graph output, every unit)')
     .option('--kind <kind>', 'gain (multiplicative, at g = 1) or offset (additive, at b = 0)', 'gain')
-    .option('--step <h>', `finite-difference step h > 0 (Richardson also runs at h/2; default ${DEFAULT_STEP} for --kind gain, ${DEFAULT_OFFSET_STEP} for offset)`)
-    .option('--method <method>', 'richardson: (4·D(h/2) − D(h))/3 from central differences D at h and h/2 (4 runs per channel); secant: D(h) alone (2 runs per channel, half the cost)', SENSE_METHODS[0])
+    .option('--step <h>', `finite-difference step h > 0, --method richardson|secant only (Richardson also runs at h/2; default ${DEFAULT_STEP} for --kind gain, ${DEFAULT_OFFSET_STEP} for offset)`)
+    .option('--method <method>', 'exact: reverse-mode gradients of the downstream part, one forward and backward run per stimulus and category, all channels at once; richardson: (4·D(h/2) − D(h))/3 from central differences D at h and h/2 (4 runs per channel); secant: D(h) alone (2 runs per channel, half the cost)', SENSE_METHODS[0])
     .option('--stimuli-of <category|each>', 'average only over stimuli containing CATEGORY; each: every readout category over the stimuli containing it')
-    .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run', positiveInteger, DEFAULT_ROWS_PER_RUN)
-    .option('--batch <n>', 'stimuli per run of the whole network (without --from)', positiveInteger, 16)
+    .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run (finite differences)', positiveInteger, DEFAULT_ROWS_PER_RUN)
+    .option('--batch <n>', 'stimuli per run of the whole network (without --from); with --method exact also the (stimulus, category) rows per gradient run', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
     .option('--mean <a,b,c>', 'per-channel mean after scaling to [0,1] (default: model sidecar, else 0)')
@@ -127,16 +127,18 @@ export function registerSense(program: Command): void {
         io.stdout(`${JSON.stringify({ readout: result.readout, source: result.source, file: result.file, sites }, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
       }
-      const indicator = method === 'richardson' ? 'worst h vs h/2 shift' : 'worst fd_error';
+      const indicator = method === 'exact' ? 'step indicator' : method === 'richardson' ? 'worst h vs h/2 shift' : 'worst fd_error';
       const table = new Table({ head: ['site', 'channels', 'categories', 'stimuli', 'max |s|', indicator, 'rows', 'downstream share', 'fwd-pass eq./channel', 'seconds'], style: { head: [], border: [], compact: true } });
       for (const s of result.sites) {
         let largest = 0;
         for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
-        table.push([s.layer, s.channels, s.categories.length, s.stimuliUsed, largest.toPrecision(3), `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
+        table.push([s.layer, s.channels, s.categories.length, s.stimuliUsed, largest.toPrecision(3), method === 'exact' ? '—' : `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
       }
-      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), ${method === 'richardson' ? `Richardson from steps ${step} and ${step / 2}` : `secant, step ${step}`}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
+      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), ${method === 'exact' ? 'exact gradients (reverse mode, in the ONNX graph)' : method === 'richardson' ? `Richardson from steps ${step} and ${step / 2}` : `secant, step ${step}`}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
       io.stdout(`${table.toString()}\n`);
-      const values = method === 'richardson'
+      const values = method === 'exact'
+        ? 'values are Σ over the site\'s positions of (∂y/∂a)·a (gain) or ∂y/∂a (offset), averaged over the stimuli; no step (at a ReLU kink the derivative is PyTorch\'s: 0 at 0)'
+        : method === 'richardson'
         ? 'values are (4·D(h/2) − D(h))/3 with D(h) = (y(+h) − y(−h))/2h; the shift |D(h/2) − D(h)|/3 is how far extrapolation moved the h/2 secant'
         : 'values are central secants D(h) = (y(+h) − y(−h))/2h; fd_error is the curvature within ±h, |D₊ − D₋|/2, not an error bound';
       io.stdout(`${values}; worst is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%); forward-pass equivalents from Conv/Gemm/MatMul multiply-adds\n`);
