@@ -69,6 +69,9 @@ const PLAN = {
  */
 export const DEMO_DISPLAYS = { clutter: 1, noise: 0.3 } as const;
 
+/** The window of the demo's windowed run: a Gaussian bump centred in the left third of the map (map-relative units). */
+export const DEMO_WINDOW = { shape: 'gaussian', cx: 0.3, cy: 0.5, sigma: 0.15, outside: 1 } as const;
+
 /** Size of site modulation the schemes are compared at: weighted mean |g − 1| of 20 %, inside the 5–30 % band. */
 export const DEMO_COMPARISON_SIZE = 0.2;
 
@@ -175,9 +178,19 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
     diffs.push({ label, site, report });
   }
 
+  step('recording the early cell again inside a spatial window (a Gaussian around the left third of the map), for the window pictures');
+  const early = attentionSizedCell(sweep, sites[0]!);
+  const windowSpec = join(folder, 'cell-window.json');
+  writeFileSync(windowSpec, json({ site: sites[0]!, kind: 'tuning', target: early.category, strength: Math.max(early.strength, 0.2), window: DEMO_WINDOW }));
+  const windowed = await recordModulated({ model, stimuli, labels, out: join(folder, 'modulated-window'), modulate: windowSpec, from: base.folder, tables: tables.tables, categories: tables.categories, threads });
+
   step('writing the HTML report');
   files.report = join(folder, 'report.html');
-  await writeHtmlReport({ inputs: [files.comparison, files['diff-early']!, files['diff-late']!, files.sweep, files.agreement], out: files.report, title: 'Sonde demo: attention-like gain in a glyph-detection network' });
+  const pictures = [
+    { base: base.folder, mod: join(folder, 'modulated-early'), tuning: tuningPath, title: `early site, tuning-based gain toward ${early.category}` },
+    { base: base.folder, mod: windowed.folder, tuning: tuningPath, title: 'early site inside a window' },
+  ];
+  await writeHtmlReport({ inputs: [files.comparison, files['diff-early']!, files['diff-late']!, files.sweep, files.agreement], out: files.report, title: 'Sonde demo: attention-like gain in a glyph-detection network', pictures });
 
   const summary: string[] = comparisonLines(comparison, plan.stimuli, seed, heldOutSeed);
   const head = headlineOf(comparison);

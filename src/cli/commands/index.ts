@@ -7,6 +7,7 @@ import { registerDiff } from './diff.js';
 import { registerHeads } from './heads.js';
 import { registerExport } from './export.js';
 import { registerLayers } from './layers.js';
+import { registerPictures } from './pictures.js';
 import { registerRecord } from './record.js';
 import { registerReport } from './report.js';
 import { registerSense } from './sense.js';
@@ -16,4 +17,4 @@ import { registerSweep } from './sweep.js';
 import { registerTune } from './tune.js';
 
 /** Every command, in the order `sonde --help` lists them. Add a command: write its file, add it here. */
-export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerHeads, registerStimuli, registerSweep, registerSizeMatched, registerCheck, registerMerge, registerCluster, registerExport, registerReport];
+export const COMMANDS: ReadonlyArray<(program: Command) => void> = [registerDemo, registerLayers, registerRecord, registerDiff, registerTune, registerSense, registerHeads, registerStimuli, registerSweep, registerSizeMatched, registerPictures, registerCheck, registerMerge, registerCluster, registerExport, registerReport];

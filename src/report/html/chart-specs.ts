@@ -233,16 +233,17 @@ export interface ForestRow {
  */
 export function forestSpec(rows: readonly ForestRow[], schemes: readonly string[]): TopLevelSpec {
   const values = rows.map((r) => ({ ...r, estimate: Number.isFinite(r.estimate) ? r.estimate : null, low: Number.isFinite(r.low) ? r.low : null, high: Number.isFinite(r.high) ? r.high : null }));
-  const y = { field: 'row', type: 'nominal', sort: rows.map((r) => r.row), title: null, axis: { labelLimit: 260 } } as const;
-  const color = { field: 'scheme', type: 'nominal', scale: { domain: [...schemes], range: schemeColours(schemes) }, legend: { title: 'scheme', orient: 'bottom', direction: 'horizontal' } } as const;
+  const y = { field: 'row', type: 'nominal', sort: rows.map((r) => r.row), title: null, axis: { labelLimit: 180 } } as const;
+  // the row labels name the scheme: no legend (it would make the chart wider than a phone)
+  const color = { field: 'scheme', type: 'nominal', scale: { domain: [...schemes], range: schemeColours(schemes) }, legend: null } as const;
   return {
-    width: 360,
+    width: 300,
     height: { step: 22 },
     config: CONFIG,
     data: { values },
     layer: [
       { mark: { type: 'rule', color: '#333', strokeWidth: 1.2 }, encoding: { x: { datum: 0, type: 'quantitative' } } },
-      { mark: { type: 'rule', strokeWidth: 2.5 }, encoding: { y, x: { field: 'low', type: 'quantitative', title: 'held-out ΔAUC (95 % interval); 0 = no change' }, x2: { field: 'high' }, color } },
+      { mark: { type: 'rule', strokeWidth: 2.5 }, encoding: { y, x: { field: 'low', type: 'quantitative', title: 'held-out ΔAUC, 95 % interval' }, x2: { field: 'high' }, color } },
       { mark: { type: 'point', filled: true, size: 60, opacity: 1 }, encoding: { y, x: { field: 'estimate', type: 'quantitative' }, color } },
     ],
   };

@@ -24,12 +24,14 @@ import { depthLinesSpec, depthProfileSpec, PALETTE, propagationMatrixSpec, relat
 import { classifyReportInput, num, readReportInput, type ReportInput } from './inputs.js';
 import { html, type HtmlValue, type SafeHtml } from './markup.js';
 import { renderPage, type PageSection } from './page.js';
-import { renderSvg } from './render-svg.js';
+import { renderSvg, svgWidth } from './render-svg.js';
 import { describeSizeMatched, sizeMatchedSection } from './size-matched-section.js';
 import type { TopLevelSpec } from 'vega-lite';
 import { CAVEAT_LINE, diffHeadline, sizeMatchedHeadline, sweepHeadline, type Headline } from '../headline.js';
 import { shortLayerLabels } from '../layer-labels.js';
 import { forestSpec } from './chart-specs.js';
+import { pairPictureData } from '../pictures/pair-pictures.js';
+import { pairPictureSections } from '../pictures/pair-picture-sections.js';
 import { agreementTable, bestCellsTable, calibrationTable, comparisonTable, diffLayerTable, diffSummaryTable, fmt, measureWords, pct, sci, sgn, sweepMeasureOf, sweepTaskTable, taskTable, tuningTable } from './tables.js';
 
 /** Options of `renderHtmlReport`. */
@@ -38,6 +40,8 @@ export interface RenderReportOptions {
   title?: string;
   /** Names shown for inputs that are objects rather than paths (default `input 1`, `input 2`, …). */
   names?: readonly string[];
+  /** Snapshot pairs whose pictures (stimuli, feature maps, ROC curves, signature, spatial profile) the report shows, read from the snapshots. */
+  pictures?: ReadonlyArray<{ base: string; mod: string; tuning?: string; target?: string; title: string }>;
   /** Folder that paths in the page are shown relative to (default: the working folder; `writeHtmlReport`: the report's folder). */
   relativeTo?: string;
 }
@@ -71,12 +75,12 @@ class ChartRenderer {
   count = 0;
   readonly warnings: string[] = [];
 
-  async figure(spec: TopLevelSpec, caption: HtmlValue): Promise<SafeHtml> {
+  async figure(spec: TopLevelSpec, caption: HtmlValue, kind = 'chart'): Promise<SafeHtml> {
     this.count++;
     const id = `chart${this.count}`;
     const rendered = await renderSvg(spec, id);
     for (const w of rendered.warnings) this.warnings.push(`${id}: ${w}`);
-    return html`<figure class="chart" id="${id}">${rendered.svg}<figcaption>${caption}</figcaption></figure>`;
+    return html`<figure class="chart" id="${id}" data-picture="${kind}" style="--chart-width: ${svgWidth(rendered.svg)}px">${rendered.svg}<figcaption>${caption}</figcaption></figure>`;
   }
 }
 
@@ -294,7 +298,7 @@ async function forestFigure(c: SizeMatchedComparison, short: (name: string) => s
   const siteOf = (site: string) => (site.includes('+') ? `all ${site.split('+').length} sites` : short(site));
   const rows = c.effects.map((e) => ({ row: `${siteOf(e.site)} · ${e.scheme}`, site: siteOf(e.site), scheme: e.scheme, estimate: e.aucChange.estimate, low: e.aucChange.low, high: e.aucChange.high }));
   const schemes = [...new Set(c.effects.map((e) => e.scheme))];
-  return charts.figure(forestSpec(rows, schemes), `Held-out change in ROC area of every scheme at ${pct(c.size, 0)} modulation size: point = mean over ${c.categories.length} cued categories, bar = 95 % bootstrap interval over the held-out stimuli; the vertical line is no change. A scheme helps detection only where its bar lies right of the line; compare it with the shuffled row of its site (same gains, permuted) and the ceiling (fitted gain of the same size).`);
+  return charts.figure(forestSpec(rows, schemes), `Held-out change in ROC area of every scheme at ${pct(c.size, 0)} modulation size: point = mean over ${c.categories.length} cued categories, bar = 95 % bootstrap interval over the held-out stimuli; the vertical line is no change. A scheme helps detection only where its bar lies right of the line; compare it with the shuffled row of its site (same gains, permuted) and the ceiling (fitted gain of the same size).`, 'forest');
 }
 
 function classifyAll(inputs: readonly unknown[], names: readonly string[] | undefined): ReportInput[] {
@@ -327,6 +331,13 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   if (runs.length > 0) sections.push(await propagationSection(runs, charts));
   const task = taskSection(runs);
   if (task) sections.push(task);
+  for (let k = 0; k < (options.pictures ?? []).length; k++) {
+    const pair = options.pictures![k]!;
+    const data = await pairPictureData({ base: pair.base, mod: pair.mod, ...(pair.tuning ? { tuning: pair.tuning } : {}), ...(pair.target ? { target: pair.target } : {}) });
+    const drawn = await pairPictureSections(data, { idPrefix: `pictures${k + 1}`, title: pair.title });
+    sections.push(...drawn.sections);
+    charts.warnings.push(...drawn.warnings);
+  }
   const comparisons = comparisonSection(classified);
   if (comparisons) sections.push(comparisons);
   const sweeps = classified.filter((i): i is Extract<ReportInput, { kind: 'sweep' }> => i.kind === 'sweep');

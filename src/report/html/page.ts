@@ -49,8 +49,9 @@ img.raster { image-rendering: pixelated; display: block; border: 1px solid var(-
   main { padding: 12px 8px 30px; }
   section { padding: 12px 10px 14px; }
   header h1 { font-size: 20px; }
-  /* charts keep a readable text size and scroll inside their own box instead of shrinking to ~3 px text */
-  figure.chart svg.marks { max-width: none; }
+  /* a chart shrinks to at most 70 % of its drawn size (--chart-width), then scrolls inside its own box:
+     text stays at 70 % or more of its size instead of ~3 px */
+  figure.chart svg.marks { min-width: calc(0.7 * var(--chart-width, 0px)); }
   .headline p { font-size: 15px; }
 }
 .table-wrap { overflow-x: auto; margin-bottom: 10px; }

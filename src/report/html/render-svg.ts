@@ -127,3 +127,12 @@ export async function renderSvg(spec: TopLevelSpec, idPrefix: string): Promise<R
   }
   return { svg: new SafeHtml(sanitiseSvg(svg, idPrefix)), warnings };
 }
+
+/**
+ * The drawn width of a rendered chart (its `width` attribute), for layouts that keep charts readable on
+ * narrow screens; 0 when it has none.
+ */
+export function svgWidth(svg: SafeHtml): number {
+  const match = /^<svg[^>]*\swidth="(\d+(?:\.\d+)?)"/.exec(svg.text);
+  return match ? Number(match[1]) : 0;
+}
