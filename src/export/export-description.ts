@@ -36,7 +36,7 @@ export interface ExportLayer {
   dims: string[];
   /** Channels: the first per-stimulus axis (what channel means average over the others of). */
   channels: number;
-  /** Storage type of the activations. */
+  /** Storage type of the activations in the snapshot (the `.npy` file's own is `activation.dtype`; `--float32` widens float16). */
   dtype: ActivationDtype;
   keep: KeepMode;
   /** `baseline`: read from the modulated snapshot's baseline (the layer is upstream of the modulation). */

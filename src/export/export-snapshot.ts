@@ -32,6 +32,8 @@ export interface ExportOptions {
   layers?: string;
   /** Replace a complete earlier export in `out`. */
   force?: boolean;
+  /** Write float16 layers widened to float32 (`<f4`, exact) for readers without half precision. Default false: as stored. */
+  float32?: boolean;
   /** Called after every record batch written. */
   onProgress?: (progress: { layer: string; layerIndex: number; layers: number; rows: number; totalRows: number; bytesWritten: number }) => void;
 }
@@ -101,7 +103,7 @@ export async function exportSnapshot(options: ExportOptions): Promise<ExportResu
     for (let i = 0; i < chosen.length; i++) {
       const entry = snapshot.layer(chosen[i]!.name);
       const stem = `layers/${String(i).padStart(3, '0')}-${slugify(entry.name)}`;
-      const layer = await exportLayer(snapshot, entry, folder, stem, (rows, bytes) => options.onProgress?.({ layer: entry.name, layerIndex: i, layers: chosen.length, rows, totalRows: count, bytesWritten: bytesWritten + bytes }));
+      const layer = await exportLayer(snapshot, entry, folder, stem, options.float32 === true, (rows, bytes) => options.onProgress?.({ layer: entry.name, layerIndex: i, layers: chosen.length, rows, totalRows: count, bytesWritten: bytesWritten + bytes }));
       bytesWritten += (layer.activation?.bytes ?? 0) + layer.channelMeans.bytes;
       description.layers.push(layer);
       writeDescription();
@@ -115,27 +117,28 @@ export async function exportSnapshot(options: ExportOptions): Promise<ExportResu
 }
 
 /** One layer: activations (when kept) and channel means, streamed batch by batch into two `.npy` files. */
-async function exportLayer(snapshot: Snapshot, entry: ManifestLayer, folder: string, stem: string, progress: (rows: number, bytes: number) => void): Promise<ExportLayer> {
+async function exportLayer(snapshot: Snapshot, entry: ManifestLayer, folder: string, stem: string, widen: boolean, progress: (rows: number, bytes: number) => void): Promise<ExportLayer> {
   const count = snapshot.manifest.stimuli.count;
   const { channels, elements } = snapshot.layerGeometry(entry.name);
   const full = entry.keep === 'full';
+  const half = entry.dtype === 'float16' && !widen; // float16 written as its stored bits
   const activationShape = [count, ...entry.shape];
   const meansShape = [count, channels];
   const activationSink = full ? new HashingFileSink(join(folder, `${stem}.npy`)) : null;
   const meansSink = new HashingFileSink(join(folder, `${stem}.means.npy`));
   try {
-    activationSink?.write(formatNpyHeader(entry.dtype === 'float16' ? '<f2' : '<f4', activationShape));
+    activationSink?.write(formatNpyHeader(half ? '<f2' : '<f4', activationShape));
     meansSink.write(formatNpyHeader('<f4', meansShape));
     let rows = 0;
-    // raw: float16 layers keep their stored bit patterns; reuse: two read buffers, bounded memory
-    for await (const batch of snapshot.readLayer(entry.name, { activation: full, raw: true, reuse: true })) {
+    // raw: float16 layers keep their stored bit patterns (unless widened); reuse: two read buffers, bounded memory
+    for await (const batch of snapshot.readLayer(entry.name, { activation: full, raw: half, reuse: true })) {
       for (let r = 0; r < batch.rows; r++) {
         if (batch.index[r] !== snapshot.firstIndex + rows + r) {
           throw new RuntimeFailure('E_LAYER_READ', `layer "${entry.name}" of ${snapshot.folder}: row ${rows + r} holds stimulus ${batch.index[r]}, expected ${snapshot.firstIndex + rows + r} (rows out of index order)`, { hint: 'run `sonde check` on the snapshot' });
         }
       }
       if (activationSink) {
-        const values = entry.dtype === 'float16' ? batch.activationFloat16 : batch.activation;
+        const values = half ? batch.activationFloat16 : batch.activation;
         if (!values || values.length !== batch.rows * elements) throw new RuntimeFailure('E_LAYER_SCHEMA', `layer "${entry.name}" of ${snapshot.folder}: a batch lacks its ${entry.dtype} activations`);
         activationSink.write(values);
       }
@@ -144,7 +147,7 @@ async function exportLayer(snapshot: Snapshot, entry: ManifestLayer, folder: str
       progress(rows, (activationSink?.byteLength ?? 0) + meansSink.byteLength);
     }
     if (rows !== count) throw new RuntimeFailure('E_LAYER_READ', `layer "${entry.name}" of ${snapshot.folder} holds ${rows} rows, the snapshot has ${count} stimuli`, { hint: 'run `sonde check` on the snapshot' });
-    const activation = activationSink ? arrayFile(`${stem}.npy`, entry.dtype, activationShape, activationSink.commit()) : null;
+    const activation = activationSink ? arrayFile(`${stem}.npy`, half ? 'float16' : 'float32', activationShape, activationSink.commit()) : null;
     const channelMeans = arrayFile(`${stem}.means.npy`, 'float32', meansShape, meansSink.commit());
     return {
       name: entry.name,

@@ -66,11 +66,13 @@ async function expectSameAsReader(snapshotFolder: string, exportFolder: string, 
       continue;
     }
     const acts = readNpy(join(exportFolder, layer.activation!.file));
-    expect(acts.descr).toBe(entry.dtype === 'float16' ? '<f2' : '<f4');
+    const half = layer.activation!.dtype === 'float16';
+    expect(acts.descr).toBe(half ? '<f2' : '<f4');
     expect(acts.shape).toEqual([n, ...entry.shape]);
     const parts: Buffer[] = [];
-    for await (const batch of snap.readLayer(layer.name, { raw: true })) {
-      const values = entry.dtype === 'float16' ? batch.activationFloat16! : batch.activation!;
+    // float16 as stored: the bits; widened (--float32) or float32: the values openSnapshot hands out
+    for await (const batch of snap.readLayer(layer.name, { raw: half })) {
+      const values = half ? batch.activationFloat16! : batch.activation!;
       parts.push(Buffer.from(values.buffer.slice(values.byteOffset, values.byteOffset + values.byteLength)));
     }
     expect(Buffer.compare(acts.data, Buffer.concat(parts)), layer.name).toBe(0);
@@ -105,11 +107,14 @@ describe('exportSnapshot', () => {
     await expectSameAsReader(mod, out, description);
   });
 
-  it('exportSnapshot keeps float16 activations as their stored bits (<f2) and writes channel means only for layers kept that way', async () => {
+  it('exportSnapshot keeps float16 activations as their stored bits (<f2), widens them exactly with float32, and writes channel means only for layers kept that way', async () => {
     const out = join(dir, 'x-half');
     const result = await exportSnapshot({ snapshot: half, out });
     expect(result.description.layers.every((l) => l.activation?.dtype === 'float16')).toBe(true);
     await expectSameAsReader(half, out, result.description);
+    const widened = await exportSnapshot({ snapshot: half, out: join(dir, 'x-half32'), float32: true });
+    expect(widened.description.layers.every((l) => l.dtype === 'float16' && l.activation?.dtype === 'float32')).toBe(true);
+    await expectSameAsReader(half, join(dir, 'x-half32'), widened.description);
     const means = join(dir, 'means');
     await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: means, layers: 'all', batch: 4, threads: 1, keep: 'channels' });
     const onlyMeans = await exportSnapshot({ snapshot: means, out: join(dir, 'x-means') });

@@ -14,6 +14,7 @@ interface ExportCliOptions {
   out?: string;
   layers?: string;
   force?: boolean;
+  float32?: boolean;
 }
 
 /** Registers `sonde export`. */
@@ -25,6 +26,7 @@ export function registerExport(program: Command): void {
     .option('--out <dir>', 'export folder (created; an earlier export there is replaced only with --force)')
     .option('--layers <selector>', 'layers to export: all | names | globs | op:Relu,Conv, joined by + (default: all recorded layers)')
     .option('--force', 'replace a complete export already in --out')
+    .option('--float32', 'write float16 layers widened to float32 (exact), for .npy readers without half precision')
     .action(async (snapshot: string, opts: ExportCliOptions) => {
       const io = cliIo();
       if (opts.out === undefined) throw new UsageError('E_USAGE', 'sonde export SNAPSHOT needs --out DIR (where the .npy files go)', { hint: `e.g. sonde export ${snapshot} --out ${snapshot.replace(/\/+$/, '')}-npy` });
@@ -36,6 +38,7 @@ export function registerExport(program: Command): void {
           out: opts.out,
           ...(opts.layers !== undefined ? { layers: opts.layers } : {}),
           ...(opts.force ? { force: true } : {}),
+          ...(opts.float32 ? { float32: true } : {}),
           onProgress: (p) => bar.update(p.layerIndex * p.totalRows + p.rows, p.layers * p.totalRows, `${p.layerIndex + 1}/${p.layers} ${megabytes(p.bytesWritten)}`),
         });
       } finally {
