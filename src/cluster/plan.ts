@@ -92,6 +92,11 @@ export async function planClusterRun(options: ClusterPlanOptions): Promise<Clust
     throw new UsageError('E_CLUSTER_PLAN', `the result ${result} and the run folder ${run} must be apart (neither inside the other)`, { hint: 'give --out a path outside the run folder' });
   }
 
+  // #SBATCH directives are single lines: a path with a line break cannot be written into one
+  for (const [what, path] of [['run folder', run], ['working folder', cwd], ['result', result]] as const) {
+    if (/[\n\r]/.test(path)) throw new UsageError('E_CLUSTER_PLAN', `the ${what} ${JSON.stringify(path)} contains a line break, which a batch script directive cannot hold`, { hint: 'choose a path without line breaks' });
+  }
+
   // a modulated record pairs task K with shard K of a baseline run
   let baselineRun: string | null = null;
   let baselineResult: string | null = null;

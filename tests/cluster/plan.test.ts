@@ -119,17 +119,20 @@ describe('planClusterRun', () => {
   it('planClusterRun refuses what would mix runs or overwrite results', async () => {
     const job = ['tune', join(dir, 'base'), '--out', join(dir, 't-refuse.arrow')];
     await expect(planClusterRun({ run: join(dir, 'run-m2'), tasks: 2, job: ['record', MODEL, ...stimuli, '--modulate', join(dir, 'gain.json'), '--from', join(dir, 'base'), '--out', join(dir, 'x')] })).rejects.toThrow(/is not the run folder of a baseline record plan/);
-    await expect(planClusterRun({ run: join(dir, 'run-m3'), tasks: 3, job: ['record', MODEL, ...stimuli, '--modulate', join(dir, 'gain.json'), '--from', join(dir, 'run-b'), '--out', join(dir, 'x')] })).rejects.toThrow(/has 2 tasks, this plan 3/);
+    await planClusterRun({ run: join(dir, 'run-b2'), tasks: 2, job: ['record', MODEL, ...stimuli, '--out', join(dir, 'b2-merged')] });
+    await expect(planClusterRun({ run: join(dir, 'run-m3'), tasks: 3, job: ['record', MODEL, ...stimuli, '--modulate', join(dir, 'gain.json'), '--from', join(dir, 'run-b2'), '--out', join(dir, 'x')] })).rejects.toThrow(/has 2 tasks, this plan 3/);
     mkdirSync(join(dir, 'busy'));
     writeFileSync(join(dir, 'busy', 'notes.txt'), 'mine');
     await expect(planClusterRun({ run: join(dir, 'busy'), tasks: 2, job })).rejects.toThrow(/holds files a plan does not write \(notes\.txt\)/);
     await planClusterRun({ run: join(dir, 'run-t2'), tasks: 2, job });
     await planClusterRun({ run: join(dir, 'run-t2'), tasks: 2, job }); // the same plan again: harmless
     await expect(planClusterRun({ run: join(dir, 'run-t2'), tasks: 4, job })).rejects.toThrow(/holds the plan of another job or another number of tasks/);
-    await expect(planClusterRun({ run: join(dir, 'run-t3'), tasks: 2, job: ['tune', join(dir, 'base'), '--out', join(dir, 'tuning.arrow')] })).rejects.toThrow(/exists already/);
+    writeFileSync(join(dir, 'existing.arrow'), 'a table of an earlier run');
+    await expect(planClusterRun({ run: join(dir, 'run-t3'), tasks: 2, job: ['tune', join(dir, 'base'), '--out', join(dir, 'existing.arrow')] })).rejects.toThrow(/exists already/);
     await expect(planClusterRun({ run: join(dir, 'run-t4'), tasks: 21, job })).rejects.toThrow(/holds 20 stimuli, fewer than the tasks/);
     await expect(planClusterRun({ run: join(dir, 'run-t5'), tasks: 2, job, time: '4 hours' })).rejects.toThrow(/not a Slurm time limit/);
     await expect(planClusterRun({ run: join(dir, 'run-t6'), tasks: 2, job, memory: 'lots' })).rejects.toThrow(/--mem "lots" is not a memory size/);
+    await expect(planClusterRun({ run: join(dir, 'run\nt8'), tasks: 2, job })).rejects.toThrow(/contains a line break/);
     await expect(planClusterRun({ run: join(dir, 'run-t7'), tasks: 2, job: ['tune', join(dir, 'base'), '--out', join(dir, 'run-t7', 'x.arrow')] })).rejects.toThrow(/must be apart/);
   });
 
