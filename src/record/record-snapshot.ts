@@ -166,6 +166,10 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   }
   if (preprocessing.std.some((s) => s === 0)) throw new UsageError('E_PREPROCESS', '--std values must not be 0');
   const source = openStimulusSource(options.stimuli, { preprocessing, channels: channels!, ...(options.labels ? { labelsFile: options.labels } : {}), ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
+  if (source.kind === 'npy') {
+    const imageOnly = (['fit', 'shorterSide', 'interpolation', 'normalise', 'mean', 'std', 'bgr'] as const).filter((key) => options[key] !== undefined);
+    if (imageOnly.length > 0) options.onNotice?.(`--stimuli ${options.stimuli} is an array and is fed as it is; ${imageOnly.join(', ')} apply to images only`);
+  }
   const fixedBatch = typeof declared[0] === 'number' ? declared[0] : null;
   const batch = fixedBatch ?? requestedBatch;
 
@@ -352,9 +356,10 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
 
 /**
  * Records the error in the manifest (which stays `complete: false`) and returns the error to throw: a
- * write failure's message says that the snapshot was left incomplete and can be resumed.
+ * write failure's message says that the snapshot was left incomplete and how to continue (`rerun`:
+ * `--resume` for a recording; merge, which has none, runs again).
  */
-export function markIncomplete(folder: string, manifest: SnapshotManifest, error: unknown): unknown {
+export function markIncomplete(folder: string, manifest: SnapshotManifest, error: unknown, rerun = 'run the same command with --resume'): unknown {
   manifest.complete = false;
   manifest.error = error instanceof Error ? error.message.split('\n')[0] : String(error);
   try {
@@ -363,7 +368,7 @@ export function markIncomplete(folder: string, manifest: SnapshotManifest, error
     // the original error matters more
   }
   if (error instanceof SondeError && error.code === 'E_WRITE') {
-    return new RuntimeFailure('E_WRITE', `${error.message}; snapshot ${displayPath(folder)} is left marked incomplete`, { hint: 'free space or fix the cause, then run the same command with --resume' });
+    return new RuntimeFailure('E_WRITE', `${error.message}; snapshot ${displayPath(folder)} is left marked incomplete`, { hint: `free space or fix the cause, then ${rerun}` });
   }
   return error;
 }

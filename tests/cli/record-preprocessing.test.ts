@@ -2,7 +2,7 @@ import { mkdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import sharp from 'sharp';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { buildTinyNet, runSonde, tempFolder } from '../helpers/onnx-builder.js';
+import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 let dir = '';
 let model = '';
@@ -45,6 +45,18 @@ describe('sonde record (preprocessing options)', () => {
     const others = [await digest('d-crop', ['--fit', 'crop']), await digest('d-letterbox', ['--fit', 'letterbox']), await digest('d-nearest', ['--interpolation', 'nearest']), await digest('d-signed', ['--normalise', 'signed'])];
     expect(new Set([squash, ...others]).size).toBe(5);
     expect(manifest(join(dir, 'd-squash')).preprocessing).toMatchObject({ fit: 'squash', interpolation: 'lanczos3', normalise: 'unit' });
+  });
+
+  it('sonde record says in one notice that image options do not apply to a .npy array (fed as it is; manifest preprocessing null)', async () => {
+    const folder = join(dir, 'arr');
+    mkdirSync(folder);
+    const { npy } = writeStimuliNpy(folder, [2, 3, 16, 16]);
+    const out = join(dir, 'npy-out');
+    const result = await runSonde(['record', model, '--stimuli', npy, '--out', out, '--normalise', 'imagenet', '--fit', 'crop', '--threads', '1', '--layers', 'relu0']);
+    expect(result.code, result.stderr).toBe(0);
+    expect(result.stderr.trim().split('\n')).toHaveLength(1);
+    expect(result.stderr).toMatch(/is an array and is fed as it is; fit, normalise apply to images only/);
+    expect(manifest(out).preprocessing).toBeNull();
   });
 
   it('sonde record refuses --normalise with --mean, an unknown fit and a shorter side below the input size, in one line (exit 2)', async () => {
