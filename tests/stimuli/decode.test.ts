@@ -171,6 +171,14 @@ describe('decodeImage', () => {
     expect(fitGeometry(3, 2, unit([3, 3])).resize).toEqual([3, 3]);
   });
 
+  it('decodeImage squash with lanczos3 (what a manifest without fit or kernel means) gives the bytes earlier builds fed, so old baselines still pair', async () => {
+    const png = await coordinatePng(30, 20);
+    // the pipeline of builds before the fit was recorded: drop alpha, sRGB, resize to fill with sharp's default kernel
+    const earlier = await sharp(png, { failOn: 'error' }).removeAlpha().toColourspace('srgb').resize(16, 16, { fit: 'fill' }).raw().toBuffer();
+    const block = await decodeImage(png, { size: [16, 16], mean: [0, 0, 0], std: [1, 1, 1], bgr: false }, 3);
+    expect(Buffer.from(block.pixels.buffer, block.pixels.byteOffset, block.pixels.byteLength).equals(earlier)).toBe(true);
+  });
+
   it('decodeImage feeds a colour image to a one-channel model as luminance', async () => {
     const png = await sharp(Buffer.from([255, 255, 255, 0, 0, 0]), { raw: { width: 2, height: 1, channels: 3 } }).png().toBuffer();
     const block = await decodeImage(png, unit([1, 2], { mean: [0], std: [1] }), 1);
