@@ -141,6 +141,8 @@ describe('exportSnapshot', () => {
     await expect(exportSnapshot({ snapshot: base, out: foreign, force: true })).rejects.toThrow(/not an export folder \(found notes\.txt\).*even with --force/);
     expect(readFileSync(join(foreign, 'notes.txt'), 'utf8')).toBe('mine');
     await expect(exportSnapshot({ snapshot: base, out: join(base, 'inside') })).rejects.toThrow(/lies inside SNAPSHOT/);
+    // a modulated snapshot's baseline is an input too
+    await expect(exportSnapshot({ snapshot: mod, out: join(base, 'npy') })).rejects.toThrow(/lies inside the baseline of/);
   });
 
   it('exportSnapshot refuses a damaged layer file (SHA-256 check) and leaves no array of that layer', async () => {

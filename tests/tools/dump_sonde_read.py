@@ -46,6 +46,10 @@ for k, folder in enumerate(folders):
                                      "channel": [int(v) for v in da["channel"].values], "layer": da.attrs["layer"],
                                      "modulation": json.loads(da.attrs["modulation"]),
                                      "equal": bool(np.array_equal(da.values, np.asarray(acts), equal_nan=True))}
+        if have_xarray:
+            dm = rec.dataarray(name, what="channel_means")
+            item["meansDataarray"] = {"dims": list(dm.dims), "shape": list(dm.shape),
+                                      "equal": bool(np.array_equal(dm.values, np.asarray(means), equal_nan=True))}
         entry["layers"].append(item)
     summary["folders"].append(entry)
 with open(os.path.join(out, "summary.json"), "w") as f:

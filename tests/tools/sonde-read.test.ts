@@ -40,7 +40,7 @@ interface Dumped {
     labels: string[][];
     index: number[];
     modulated: boolean;
-    layers: Array<{ name: string; source: string; dtype?: string; shape?: number[]; memmap?: boolean; meansDtype: string; dataarray?: { dims: string[]; shape: number[]; stimulus: number[]; id: string[]; labels: string[][]; channel: number[]; layer: string; modulation: unknown; equal: boolean } }>;
+    layers: Array<{ name: string; source: string; meansDataarray?: { dims: string[]; shape: number[]; equal: boolean }; dtype?: string; shape?: number[]; memmap?: boolean; meansDtype: string; dataarray?: { dims: string[]; shape: number[]; stimulus: number[]; id: string[]; labels: string[][]; channel: number[]; layer: string; modulation: unknown; equal: boolean } }>;
   }>;
 }
 
@@ -131,6 +131,7 @@ describe.skipIf(!hasNumpy)('sonde_read.py', () => {
         expect(da.labels).toEqual(snap.stimuli.labels);
         expect(da.channel).toEqual(Array.from({ length: entry.shape[0]! }, (_, c) => c));
         expect(da.modulation).toEqual(snap.manifest.modulation);
+        expect(layer.meansDataarray).toEqual({ dims: ['stimulus', 'channel'], shape: [9, entry.shape[0]!], equal: true });
       }
     }
   }, 60_000);
