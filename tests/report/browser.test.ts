@@ -95,3 +95,60 @@ describe.skipIf(!available)(TITLE, () => {
     console.log(`report screenshot: ${shot}`);
   });
 });
+
+/**
+ * The page with a script added at its end that measures the layout: it writes the numbers into the DOM
+ * (read with --dump-dom) and paints a 12 px square at the top left, green when the page is no wider than
+ * the window and red when it overflows sideways (read from a screenshot: headless Chromium keeps a
+ * window of at least 500 px for --dump-dom, but takes screenshots at the asked width).
+ */
+function withMeasurement(text: string): string {
+  const script = `<script>
+const doc = document.documentElement;
+const headline = document.querySelector('.headline');
+const kinds = [...new Set([...document.querySelectorAll('[data-picture]')].map((e) => e.getAttribute('data-picture')))];
+const fits = doc.scrollWidth <= window.innerWidth && document.body.scrollWidth <= window.innerWidth;
+const out = { scrollWidth: doc.scrollWidth, innerWidth: window.innerWidth, headlineTop: headline ? headline.getBoundingClientRect().top : -1, kinds, fits };
+const pre = document.createElement('pre'); pre.id = 'measure'; pre.textContent = JSON.stringify(out); document.body.appendChild(pre);
+const mark = document.createElement('div'); mark.style.cssText = 'position:fixed;left:0;top:0;width:12px;height:12px;z-index:9;background:' + (fits ? '#00ff00' : '#ff0000'); document.body.appendChild(mark);
+</script>`;
+  return text.replace('</body>', `${script}</body>`);
+}
+
+describe.skipIf(!available)(`${TITLE}: the demo's report at 1280 and 390 px`, () => {
+  let demoReport: string;
+  beforeAll(async () => {
+    const { runDemo } = await import('../../src/demo/demo.js');
+    const { tempFolder } = await import('../helpers/onnx-builder.js');
+    mkdirSync(SHOT_DIR, { recursive: true });
+    const demo = await runDemo({ quick: true, out: join(tempFolder(), 'demo'), threads: 1 });
+    demoReport = demo.files.report!;
+  }, 400_000);
+
+  for (const width of [1280, 390]) {
+    it(`chromium at ${width} px: the page body does not overflow sideways, the headline is on the first screen, and every picture kind is there`, async () => {
+      const { readFileSync } = await import('node:fs');
+      const measured = join(SHOT_DIR, `demo-measure-${width}.html`);
+      writeFileSync(measured, withMeasurement(readFileSync(demoReport, 'utf8')));
+      const { stdout } = chromium(measured, ['--dump-dom', `--window-size=${width},900`]);
+      const json = /<pre id="measure">([^<]*)<\/pre>/.exec(stdout)?.[1];
+      expect(json, 'the measuring script ran').toBeDefined();
+      const m = JSON.parse(json!.replace(/&quot;/g, '"')) as { innerWidth: number; headlineTop: number; kinds: string[] };
+      // the headline is the first thing after the title
+      expect(m.headlineTop).toBeGreaterThanOrEqual(0);
+      expect(m.headlineTop).toBeLessThan(400);
+      for (const kind of ['forest', 'stimuli', 'feature-maps', 'roc', 'signature', 'spatial-profile']) expect(m.kinds, kind).toContain(kind);
+      // at this width: no horizontal overflow of the page body (wide tables and charts scroll in their own boxes)
+      const shot = join(SHOT_DIR, `demo-${width}.png`);
+      rmSync(shot, { force: true });
+      chromium(measured, [`--screenshot=${shot}`, `--window-size=${width},3000`]);
+      const meta = await sharp(shot).metadata();
+      expect(meta.width).toBe(width);
+      const { data } = await sharp(shot).extract({ left: 4, top: 4, width: 1, height: 1 }).raw().toBuffer({ resolveWithObject: true });
+      expect([...data.subarray(0, 3)], 'green: the page fits the window; red: it overflows sideways').toEqual([0, 255, 0]);
+      const stats = await sharp(shot).stats();
+      for (const channel of stats.channels.slice(0, 3)) expect(channel.stdev).toBeGreaterThan(10);
+      console.log(`demo report screenshot at ${width} px: ${shot}`);
+    }, 60_000);
+  }
+});
