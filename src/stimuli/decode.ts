@@ -8,10 +8,13 @@
  *   profile); a greyscale image feeds all three channels of an RGB model; a colour image feeding a
  *   one-channel model is converted to luminance (libvips' sRGB → B-W);
  * - **depth**: 16-bit images stay 16-bit (scaled by 1/65535), all others are 8-bit (1/255);
- * - **size**: `squash`, `crop` or `letterbox` with the named kernel (see `fitGeometry`).
+ * - **size**: `squash`, `crop` or `letterbox` with the named kernel (see `fitGeometry`): `bilinear` and
+ *   `bicubic` with Pillow's antialiased resampler (resample.ts, what torchvision applies to PIL images),
+ *   `lanczos3` and `nearest` with libvips'.
  */
 import sharp from 'sharp';
 import { resolvedFit, type Interpolation, type PixelBlock, type Preprocessing } from './preprocess.js';
+import { resamplePixels } from './resample.js';
 
 /** sharp's names of the kernels. */
 const KERNELS: Record<Interpolation, 'nearest' | 'linear' | 'cubic' | 'lanczos3'> = {
@@ -83,15 +86,33 @@ export async function decodeImage(file: string | Buffer, prep: Preprocessing, ch
   let image = sharp(file, { failOn: 'error' }).autoOrient();
   if (meta.hasAlpha) image = image.flatten({ background: { r: 0, g: 0, b: 0 } });
   const [rh, rw] = geometry.resize;
-  if (rh !== upright.height || rw !== upright.width) image = image.resize(rw, rh, { fit: 'fill', kernel: KERNELS[resolvedFit(prep).interpolation] });
-  if (geometry.extract) image = image.extract(geometry.extract);
+  const interpolation = resolvedFit(prep).interpolation;
+  // bilinear and bicubic follow Pillow's resampler (resample.ts), applied here after decoding at full size
+  const own = interpolation === 'bilinear' || interpolation === 'bicubic';
+  const resizes = rh !== upright.height || rw !== upright.width;
+  if (resizes && !own) image = image.resize(rw, rh, { fit: 'fill', kernel: KERNELS[interpolation] });
+  if (geometry.extract && !own) image = image.extract(geometry.extract);
   if (channels === 1) image = sixteen ? image.toColourspace('grey16') : image.greyscale();
   else image = image.toColourspace(sixteen ? 'rgb16' : 'srgb');
   const { data, info } = await image.raw(sixteen ? { depth: 'ushort' } : {}).toBuffer({ resolveWithObject: true });
   // a 16-bit view needs an even byte offset; copy in the rare case the buffer sits at an odd one
-  const pixels = !sixteen ? new Uint8Array(data.buffer, data.byteOffset, data.length) : data.byteOffset % 2 === 0 ? new Uint16Array(data.buffer, data.byteOffset, data.length / 2) : new Uint16Array(Uint8Array.from(data).buffer);
-  if (info.channels !== channels || info.width !== geometry.place.width || info.height !== geometry.place.height) {
-    throw new RangeError(`decoded to ${info.width}x${info.height} with ${info.channels} channels, expected ${geometry.place.width}x${geometry.place.height} with ${channels}`);
+  let pixels: Uint8Array | Uint16Array = !sixteen ? new Uint8Array(data.buffer, data.byteOffset, data.length) : data.byteOffset % 2 === 0 ? new Uint16Array(data.buffer, data.byteOffset, data.length / 2) : new Uint16Array(Uint8Array.from(data).buffer);
+  let [height, width] = [info.height, info.width];
+  if (own) {
+    if (info.channels !== channels || height !== upright.height || width !== upright.width) throw new RangeError(`decoded to ${width}x${height} with ${info.channels} channels, expected ${upright.width}x${upright.height} with ${channels}`);
+    if (resizes) [pixels, height, width] = [resamplePixels(pixels, height, width, channels, rh, rw, interpolation), rh, rw];
+    if (geometry.extract) [pixels, height, width] = [cutWindow(pixels, width, channels, geometry.extract), geometry.extract.height, geometry.extract.width];
   }
-  return { pixels, height: info.height, width: info.width, channels, maxValue: sixteen ? 65535 : 255, top: geometry.place.top, left: geometry.place.left };
+  if (info.channels !== channels || width !== geometry.place.width || height !== geometry.place.height) {
+    throw new RangeError(`decoded to ${width}x${height} with ${info.channels} channels, expected ${geometry.place.width}x${geometry.place.height} with ${channels}`);
+  }
+  return { pixels, height, width, channels, maxValue: sixteen ? 65535 : 255, top: geometry.place.top, left: geometry.place.left };
+}
+
+/** The window `w` of an interleaved image `width` pixels wide, as a new array. */
+function cutWindow<T extends Uint8Array | Uint16Array>(pixels: T, width: number, channels: number, w: { top: number; left: number; height: number; width: number }): T {
+  const out = (pixels instanceof Uint8Array ? new Uint8Array(w.height * w.width * channels) : new Uint16Array(w.height * w.width * channels)) as T;
+  // HWC: row y of the window starts at ((top + y)*width + left)*channels
+  for (let y = 0; y < w.height; y++) out.set(pixels.subarray(((w.top + y) * width + w.left) * channels, ((w.top + y) * width + w.left + w.width) * channels), y * w.width * channels);
+  return out;
 }
