@@ -63,6 +63,12 @@ export { fitSiteCeilings, type SiteCeiling, type SiteCeilingOptions } from './re
 export { compareAtSize, type SizeMatchedComparison, type SizeMatchedOptions, type SchemeEffect } from './replay/size-matched.js';
 export { runSizeMatched, type SizeMatchedRun, type SizeMatchedRunOptions } from './replay/size-matched-run.js';
 
+// cluster: Slurm job arrays over shards, their merge job and the run's status
+export { planClusterRun, readClusterPlan, type ClusterPlanOptions } from './cluster/plan.js';
+export { submitClusterRun, parseTaskList, type SubmitOptions, type Submission } from './cluster/submit.js';
+export { clusterRunStatus, type RunStatus, type ShardStatus } from './cluster/status.js';
+export type { ClusterPlan, TaskResources } from './cluster/plan-types.js';
+
 // demo
 export { runDemo, type DemoOptions, type DemoResult } from './demo/demo.js';
 

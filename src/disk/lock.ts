@@ -15,6 +15,7 @@ import { closeSync, fsyncSync, openSync, readFileSync, rmSync, statSync, writeSy
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { RuntimeFailure } from '../errors.js';
+import { onInterrupt } from './interrupt.js';
 
 /** Name of the lock file inside a snapshot folder. */
 export const LOCK_FILE = '.lock';
@@ -107,17 +108,21 @@ export function acquireLock(folder: string, options: AcquireLockOptions = {}): F
       options.onNotice?.(`took over the stale lock of ${label} (${who}; that process no longer exists)`);
     }
     let released = false;
-    return {
+    // an interrupted process (SIGINT, SIGTERM) releases its locks before it exits
+    const unregister = onInterrupt(() => lock.release());
+    const lock: FolderLock = {
       path,
       owner,
       tookOverFrom,
       release() {
         if (released) return;
         released = true;
+        unregister();
         const now = readLockOwner(path);
         if (now && now.pid === owner.pid && now.host === owner.host && now.started === owner.started) rmSync(path, { force: true });
       },
     };
+    return lock;
   }
   throw new RuntimeFailure('E_LOCK', `cannot take the lock ${path}: another process keeps replacing it`);
 }

@@ -3,6 +3,7 @@ import { basename, dirname, join, resolve, sep } from 'node:path';
 import { UsageError } from '../errors.js';
 import { replaceFile, UNIQUE_TEMPORARY } from '../disk/atomic-file.js';
 import { acquireLock, LOCK_FILE, type FolderLock } from '../disk/lock.js';
+import { onInterrupt } from '../disk/interrupt.js';
 import { readManifest, type SnapshotManifest } from '../snapshot/manifest.js';
 import { DIGEST_LOG_FILE, PROGRESS_FILE, readProgress, type ProgressRecord } from '../snapshot/progress-file.js';
 
@@ -194,15 +195,18 @@ export function prepareOutFolder(folder: string, force: boolean): void {
   mkdirSync(join(folder, 'layers'), { recursive: true });
 }
 
-/** What `sonde sweep` writes into its folder: the cell table, the summary, the progress log, their temporaries. */
-export const SWEEP_ENTRIES: ReadonlySet<string> = new Set(['cells.jsonl', 'cells.arrow', 'cells.arrow.partial', 'sweep.json', 'sweep.json.partial']);
+/** What `sonde sweep` writes into its folder: the cell table, the summary, the progress log, their temporaries, the writer lock. */
+export const SWEEP_ENTRIES: ReadonlySet<string> = new Set(['cells.jsonl', 'cells.arrow', 'cells.arrow.partial', 'sweep.json', 'sweep.json.partial', LOCK_FILE]);
 
 /**
- * Makes `folder` ready for a sweep: creates it, or accepts it when it holds nothing but what a sweep
- * writes (an earlier or interrupted sweep, whose cells the sweep itself reuses or restarts).
- * @throws UsageError E_OUT when the path is not a folder, or the folder holds anything else.
+ * Makes `folder` ready for a sweep and locks it (`.lock`, as a snapshot folder): creates it, or accepts
+ * it when it holds nothing but what a sweep writes (an earlier or interrupted sweep, whose cells the
+ * sweep itself reuses or restarts). A second sweep into the same folder is refused while the first runs.
+ * @returns the lock; release it when the sweep ends (also after errors).
+ * @throws UsageError E_OUT when the path is not a folder, or the folder holds anything else;
+ *   RuntimeFailure E_LOCK when another live process is sweeping into it.
  */
-export function prepareSweepFolder(folder: string): void {
+export function prepareSweepFolder(folder: string, options: { onNotice?: (text: string) => void } = {}): FolderLock {
   if (existsSync(folder)) {
     if (!statSync(folder).isDirectory()) throw new UsageError('E_OUT', `--out ${folder} exists and is not a folder`, { hint: 'choose a new or empty folder' });
     const foreign = readdirSync(folder).sort().filter((name) => !isOwnEntry(name, SWEEP_ENTRIES) || !lstatSync(join(folder, name)).isFile());
@@ -213,6 +217,7 @@ export function prepareSweepFolder(folder: string): void {
     }
   }
   mkdirSync(folder, { recursive: true });
+  return acquireLock(folder, { label: `sweep folder ${folder}`, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
 }
 
 /** The file that marks a folder as written by `sonde demo`; it lists every file the demo wrote there. */
@@ -349,7 +354,16 @@ export function openOutputFolder(folder: string, options: OpenOutputOptions): Op
   if (options.resume && existsSync(join(folder, 'manifest.json')) && writtenBySonde(join(folder, 'manifest.json'))) readManifest(folder);
   else assertOutFolderUsable(folder, options.force);
   mkdirSync(folder, { recursive: true });
-  const lock = acquireLock(folder, { label: `snapshot folder ${folder}`, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
+  const held = acquireLock(folder, { label: `snapshot folder ${folder}`, ...(options.onNotice ? { onNotice: options.onNotice } : {}) });
+  // interrupted while writing: the manifest says why (before the lock goes, see disk/interrupt.ts)
+  const unregister = onInterrupt((signal) => markInterrupted(folder, signal));
+  const lock: FolderLock = {
+    ...held,
+    release() {
+      unregister();
+      held.release();
+    },
+  };
   try {
     if (options.resume && existsSync(join(folder, 'manifest.json'))) {
       const manifest = readManifest(folder);
@@ -363,6 +377,19 @@ export function openOutputFolder(folder: string, options: OpenOutputOptions): Op
     lock.release();
     throw error;
   }
+}
+
+/**
+ * Writes the reason into an incomplete snapshot's manifest when the recording is interrupted by a
+ * signal (`"error": "interrupted by SIGTERM"`); a complete manifest, or none, is left alone.
+ */
+function markInterrupted(folder: string, signal: string): void {
+  const path = join(folder, 'manifest.json');
+  const manifest = sondeManifestJson(path) as { complete?: unknown; error?: unknown } | null;
+  if (!manifest || manifest.complete === true) return;
+  manifest.complete = false;
+  manifest.error = `interrupted by ${signal}`;
+  replaceFile(path, `${JSON.stringify(manifest, null, 2)}\n`);
 }
 
 /** An input a command reads, for `assertApartFromInputs`: the option naming it and its path. */

@@ -161,7 +161,8 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
       manifest.complete = true;
       writeManifest(folder, manifest);
     } catch (error) {
-      throw markIncomplete(folder, manifest, error);
+      // merge has no --resume: run again, it replaces the incomplete folder
+      throw markIncomplete(folder, manifest, error, 'run the same merge again');
     }
     return { folder, manifest, parts: ordered.length, stimuli: total, layers: layers.length, bytesWritten, fromBaseline };
   } finally {

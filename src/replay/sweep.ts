@@ -156,7 +156,55 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   if (!Number.isInteger(seeds) || seeds < 1) throw new UsageError('E_SEEDS', `--control-seeds must be a positive integer, got ${seeds}`);
   const match = options.match ? parseMatchTarget(options.match) : null;
   const measure = parseSweepMeasure(options.measure);
-  prepareSweepFolder(options.out);
+  assertSweepSize({ sites: sites.length, schemes, categories: categories.length, strengths: options.strengths.length, seeds });
+  const lock = prepareSweepFolder(options.out);
+  try {
+    return await sweepLocked(options, { started, model, baseline, inspection, readout, categories, tables, schemes, sites, seeds, match, measure });
+  } finally {
+    lock.release();
+  }
+}
+
+/**
+ * The most cells one sweep may plan (sites × schemes × cued categories × strengths, shuffled cells once
+ * per control seed). Each cell holds a gain vector and costs a downstream replay; far beyond this the
+ * plan alone would exhaust memory.
+ */
+export const MAX_SWEEP_CELLS = 100_000;
+
+/**
+ * Refuses a grid over `MAX_SWEEP_CELLS` with its count, before anything is planned.
+ * @throws UsageError E_SWEEP_SIZE naming the factors.
+ */
+export function assertSweepSize(grid: { sites: number; schemes: readonly SweepScheme[]; categories: number; strengths: number; seeds: number }): void {
+  const perStrength = grid.schemes.reduce((sum, scheme) => sum + (scheme === 'shuffled' ? grid.seeds : 1), 0);
+  const cells = grid.sites * grid.categories * grid.strengths * perStrength;
+  if (cells > MAX_SWEEP_CELLS) {
+    throw new UsageError('E_SWEEP_SIZE', `this sweep has ${cells} cells (${grid.sites} sites × ${grid.categories} categories × ${grid.strengths} strengths × ${perStrength} scheme runs), more than the ${MAX_SWEEP_CELLS} a sweep may have`, {
+      hint: 'use fewer strengths (a larger step), sites or categories, or split it with --shard K/N into several folders',
+    });
+  }
+}
+
+/** What `sweepModulations` resolved before it locked its folder. */
+interface LockedSweep {
+  started: number;
+  model: LoadedModel;
+  baseline: Snapshot;
+  inspection: Awaited<ReturnType<typeof inspectModel>>;
+  readout: ReturnType<typeof readoutOf>;
+  categories: string[];
+  tables: ReturnType<typeof loadModulationTables> | null;
+  schemes: SweepScheme[];
+  sites: string[];
+  seeds: number;
+  match: MatchTarget | null;
+  measure: SweepMeasure;
+}
+
+/** The sweep once its folder is locked: cells reused or computed and appended, then summarised. */
+async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<SweepResult> {
+  const { started, model, baseline, inspection, readout, categories, tables, schemes, sites, seeds, match, measure } = s;
   const progressPath = join(options.out, 'cells.jsonl');
   const done = new Map<string, SweepCell>();
   // cells are reused only when computed from the same inputs (see sweep-inputs.ts)

@@ -110,7 +110,7 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
   // the labels and ids decide every detection and tuning number: verified like the layer files
   const verified = verifyStimulusTable(bytes, manifest, { firstIndex });
   if (!verified.table) {
-    throw new RuntimeFailure('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow ${verified.problems[0] ?? 'cannot be read'}`, {
+    throw new UsageError('E_SNAPSHOT_STIMULI', `${folder}: stimuli.arrow ${verified.problems[0] ?? 'cannot be read'}`, {
       hint: `run \`sonde check ${folder}\`, then restore the file or record the snapshot again`,
     });
   }

@@ -1,9 +1,9 @@
 import { createHash } from 'node:crypto';
-import { existsSync, readdirSync, readFileSync, statSync, type Dirent } from 'node:fs';
+import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, statSync, type Dirent } from 'node:fs';
 import { basename, dirname, extname, join, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { assertRegularFile } from '../disk/input-file.js';
-import { parseNpy } from './npy.js';
+import { assertRegularFile, INPUT_LIMITS, readInputFile } from '../disk/input-file.js';
+import { parseNpy, readNpyHeader } from './npy.js';
 import { pixelsToPlanar, resolvedFit, type PixelBlock, type Preprocessing } from './preprocess.js';
 import { decodeImage } from './decode.js';
 import { labelsFilesBeside, labelsFilesIn, type FoundLabels } from './labels-file.js';
@@ -87,8 +87,7 @@ function assertUtf8Entries(folder: string, option: string): void {
  * @throws UsageError naming the file and the byte offset of the first invalid sequence.
  */
 export function readUtf8File(path: string, what: string): string {
-  if (existsSync(path)) assertRegularFile(path, what);
-  const bytes = readFileSync(path);
+  const bytes = readInputFile(path, what, INPUT_LIMITS.listing);
   try {
     return new TextDecoder('utf-8', { fatal: true, ignoreBOM: false }).decode(bytes);
   } catch {
@@ -226,15 +225,29 @@ function openCsv(path: string, absolute: string, options: StimulusSourceOptions,
   return imageSource('csv', `CSV manifest ${path}`, folder, files, labels, options);
 }
 
+/**
+ * A float32 `.npy` stimulus array, read from its header first: dtype, shape, channels and size are
+ * checked against the model before any data is read (a wrong 1.9 GB array is refused at once), the file
+ * size must be exactly header + data, and stimuli are then read batch by batch with positioned reads —
+ * never the whole file at once, so arrays beyond 2 GiB (Node's limit for one buffer) are read too.
+ * Fortran-ordered arrays (rare) are reordered whole and must fit one buffer.
+ */
 function openNpy(path: string, absolute: string, options: StimulusSourceOptions): StimulusSource {
-  const tensor = parseNpy(readFileSync(absolute), path);
-  if (tensor.descr !== '<f4') throw new UsageError('E_STIMULI_NPY', `${path} holds ${tensor.descr} values; Sonde reads float32 arrays`, { hint: 'save with arr.astype(np.float32)' });
-  if (tensor.shape.length !== 4) throw new UsageError('E_STIMULI_NPY', `${path} has shape [${tensor.shape.join(', ')}]; expected [N, C, H, W]`);
-  const [n, c, h, w] = tensor.shape as [number, number, number, number];
+  const fileSize = assertRegularFile(absolute, `--stimuli ${path}`).size;
+  const header = readNpyHeader(absolute, path);
+  const descr = header.descr === '<u1' ? '|u1' : header.descr;
+  if (descr !== '<f4') throw new UsageError('E_STIMULI_NPY', `${path} holds ${descr} values; Sonde reads float32 arrays`, { hint: 'save with arr.astype(np.float32)' });
+  if (header.shape.length !== 4) throw new UsageError('E_STIMULI_NPY', `${path} has shape [${header.shape.join(', ')}]; expected [N, C, H, W]`);
+  const [n, c, h, w] = header.shape as [number, number, number, number];
   if (n === 0) throw new UsageError('E_STIMULI_EMPTY', `${path} holds 0 stimuli`);
   if (c !== options.channels) throw new UsageError('E_STIMULI_SHAPE', `${path} has ${c} channels but the model input has ${options.channels}`);
   const [height, width] = options.preprocessing.size;
   if (h !== height || w !== width) throw new UsageError('E_STIMULI_SHAPE', `${path} holds ${h}x${w} arrays but the model input is ${height}x${width}`, { hint: 'resize the array, or pass --input-shape for a model with free spatial axes' });
+  const per = c * h * w;
+  const dataBytes = n * per * 4;
+  const present = fileSize - header.dataStart;
+  if (present < dataBytes) throw new UsageError('E_NPY', `${path}: data is truncated (shape [${header.shape.join(', ')}] needs ${dataBytes} bytes, file has ${present})`);
+  if (present > dataBytes) throw new UsageError('E_NPY', `${path}: ${present - dataBytes} bytes follow the data that shape [${header.shape.join(', ')}] describes; the header and the data disagree`, { hint: 'save it again with numpy.save' });
   let labels: string[][] = new Array(n).fill(null).map(() => []);
   const labelsFile = npyLabelsFile(path, absolute, options);
   if (labelsFile) {
@@ -249,8 +262,11 @@ function openNpy(path: string, absolute: string, options: StimulusSourceOptions)
     }
     labels = rows.map((r) => splitLabels(r[0] ?? ''));
   }
-  const data = tensor.data as Float32Array;
-  const per = c * h * w;
+  let whole: Float32Array | null = null;
+  if (header.fortranOrder) {
+    if (fileSize > 2 ** 31 - 1) throw new UsageError('E_STIMULI_NPY', `${path} is Fortran-ordered and over 2 GiB; Sonde streams C-ordered arrays only`, { hint: 'save it with numpy.save(path, np.ascontiguousarray(arr))' });
+    whole = parseNpy(readFileSync(absolute), path).data as Float32Array;
+  }
   return {
     description: `array ${path}${labelsFile ? ` with labels ${labelsFile}` : ''}`,
     kind: 'npy',
@@ -259,7 +275,23 @@ function openNpy(path: string, absolute: string, options: StimulusSourceOptions)
     labels,
     shape: [c, h, w],
     async read(start, rows, out) {
-      out.set(data.subarray(start * per, (start + rows) * per), 0);
+      if (whole) {
+        out.set(whole.subarray(start * per, (start + rows) * per), 0);
+        return;
+      }
+      // NPY data is little-endian '<f4', as this host's Float32Array
+      const target = new Uint8Array(out.buffer, out.byteOffset, rows * per * 4);
+      const fd = openSync(absolute, 'r');
+      try {
+        let done = 0;
+        while (done < target.length) {
+          const got = readSync(fd, target, done, target.length - done, header.dataStart + start * per * 4 + done);
+          if (got <= 0) throw new RuntimeFailure('E_NPY', `${path} ended early while reading stimulus ${start} (it changed during the recording)`);
+          done += got;
+        }
+      } finally {
+        closeSync(fd);
+      }
     },
   };
 }

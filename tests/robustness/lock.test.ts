@@ -83,7 +83,7 @@ describe('sonde record with a lock', () => {
     const out = join(dir, 'busy');
     mkdirSync(out, { recursive: true });
     // a separate process takes the lock the way a recording does, and keeps it
-    const holder = spawn(process.execPath, ['--input-type=module', '-e', `import { acquireLock } from ${JSON.stringify(join(ROOT, 'dist', 'snapshot', 'lock.js'))}; acquireLock(${JSON.stringify(out)}); console.log('locked'); setTimeout(() => {}, 60000);`], { stdio: ['ignore', 'pipe', 'inherit'] });
+    const holder = spawn(process.execPath, ['--input-type=module', '-e', `import { acquireLock } from ${JSON.stringify(join(ROOT, 'dist', 'disk', 'lock.js'))}; acquireLock(${JSON.stringify(out)}); console.log('locked'); setTimeout(() => {}, 60000);`], { stdio: ['ignore', 'pipe', 'inherit'] });
     await new Promise<void>((done) => holder.stdout!.once('data', () => done()));
     const refused = await runSonde(['record', model, '--stimuli', stimuli.npy, '--out', out, '--batch', '50']);
     expect(refused.code).toBe(1);

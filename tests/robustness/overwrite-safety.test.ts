@@ -168,7 +168,9 @@ describe('output folders (record, merge, sweep, demo)', () => {
     expect(() => prepareSweepFolder(foreign)).toThrow(/sweep-foreign is not empty and is not a sweep folder \(found photo\.jpg\)/);
     expect(treeDigest(foreign)).toEqual(before);
     const earlier = userFolder('sweep-earlier', { 'cells.jsonl': '', 'sweep.json': '{}', 'cells.arrow': '' });
-    expect(() => prepareSweepFolder(earlier)).not.toThrow();
+    const lock = prepareSweepFolder(earlier); // and locks it while the sweep runs
+    expect(Object.keys(treeDigest(earlier))).toEqual(['.lock', 'cells.arrow', 'cells.jsonl', 'sweep.json']);
+    lock.release();
     expect(Object.keys(treeDigest(earlier))).toEqual(['cells.arrow', 'cells.jsonl', 'sweep.json']);
   });
 

@@ -62,12 +62,12 @@ describe('stimulus table integrity', () => {
     const mod = (await recordModulated({ model, stimuli: join(dir, 'stimuli.npy'), out: join(dir, 'relabelled-mod'), modulate: join(dir, 'spec.yaml'), from: folder })).folder;
     patchBytes(join(folder, 'stimuli.arrow'), 'dog', 'cat');
     const diff = await runSonde(['diff', folder, mod, '--task', 'labels', '--threshold', 'best', '--json']);
-    expect(diff.code).toBe(1);
+    expect(diff.code).toBe(2);
     expect(diff.stdout).toBe('');
     expect(diff.stderr).toMatch(/stimuli\.arrow does not match the SHA-256 in the manifest/);
     expect(diff.stderr.trim().split('\n')).toHaveLength(1);
     const tune = await runSonde(['tune', folder, '--out', join(dir, 'relabelled.arrow')]);
-    expect(tune.code).toBe(1);
+    expect(tune.code).toBe(2);
     expect(tune.stderr).toMatch(/stimuli\.arrow/);
     const report = await checkSnapshot(folder);
     expect(report.ok).toBe(false);
@@ -85,7 +85,7 @@ describe('stimulus table integrity', () => {
     writeFileSync(path, JSON.stringify(m));
     expect(() => openSnapshot(folder)).toThrow(/per-stimulus digests do not give the stimuli digest/);
     const tune = await runSonde(['tune', folder, '--out', join(dir, 'swapped.arrow')]);
-    expect(tune.code).toBe(1);
+    expect(tune.code).toBe(2);
   });
 
   it('without the table hash, a changed label is caught by the listing digest, a changed index by the order check', () => {

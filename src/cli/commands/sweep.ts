@@ -1,7 +1,7 @@
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
 import { parseShard } from '../../record/shard.js';
-import { parseSweepMeasure, sweepModulations } from '../../replay/sweep.js';
+import { MAX_SWEEP_CELLS, parseSweepMeasure, sweepModulations } from '../../replay/sweep.js';
 import { renderSweep } from '../../report/sweep-table.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
@@ -33,6 +33,9 @@ export function parseStrengths(text: string): number[] {
   if (range) {
     const [start, stop, step] = [Number(range[1]), Number(range[2]), Number(range[3])];
     if (!(step > 0) || !Number.isFinite(start) || !Number.isFinite(stop)) throw new UsageError('E_STRENGTHS', `--strengths ${text}: a range is start:stop:step with step > 0`);
+    // counted before any is made: a tiny step would otherwise fill the heap
+    const count = Math.floor((stop - start) / step + 1e-9) + 1;
+    if (count > MAX_SWEEP_CELLS) throw new UsageError('E_SWEEP_SIZE', `--strengths ${text} gives ${count.toExponential(2)} strengths, more than the ${MAX_SWEEP_CELLS} cells a sweep may have`, { hint: 'use a larger step' });
     const values: number[] = [];
     for (let i = 0; start + i * step <= stop + 1e-9; i++) values.push(Number((start + i * step).toFixed(10)));
     return values;
