@@ -1,3 +1,4 @@
+import { benchDecodeKernels } from './decode-kernels.js';
 import { benchDiffThroughput } from './diff-throughput.js';
 import { benchExportThroughput } from './export-throughput.js';
 import { benchRecordOverhead } from './record-overhead.js';
@@ -14,4 +15,5 @@ export const BENCHMARKS: Record<string, Benchmark> = {
   'tail-replay': benchTailReplay,
   'sensitivity-cost': benchSensitivityCost,
   'sweep-throughput': benchSweepThroughput,
+  'decode-kernels': benchDecodeKernels,
 };
