@@ -159,7 +159,7 @@ describe('sonde heads', () => {
   it('sonde heads prints the per-category table and exits 2 with one line for too many folds', async () => {
     const ok = await runSonde(['heads', model, '--from', base, '--layer', 'relu1', '--out', join(dir, 'cli-heads.onnx'), '--folds', '3', '--c-values', '0.01,0.1,1']);
     expect(ok.code, ok.stderr).toBe(0);
-    expect(ok.stdout).toMatch(/held-out ROC area/);
+    expect(ok.stdout).toMatch(/held-out AUC/);
     expect(ok.stdout).toMatch(/ring/);
     const bad = await runSonde(['heads', model, '--from', base, '--layer', 'relu1', '--out', join(dir, 'cli-bad.onnx'), '--folds', '50']);
     expect(bad.code).toBe(2);

@@ -6,9 +6,9 @@ import type { Command } from 'commander';
 import { fitReadoutHeads } from '../../compare/fit-heads.js';
 import { UsageError } from '../../errors.js';
 import { fixed } from '../../format.js';
-import { DEFAULT_COLUMNS, fitTable } from '../../report/terminal-table.js';
+import { fitTable } from '../../report/terminal-table.js';
 import { nonNegativeInteger, positiveInteger } from '../options.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
 
 interface HeadsCliOptions {
   from: string;
@@ -73,7 +73,7 @@ export function registerHeads(program: Command): void {
       }
       const rows = result.heads.map((h) => [h.category, String(h.C), fixed(h.crossValidated.auc, 3), fixed(h.crossValidated.accuracy, 3), h.heldOut ? fixed(h.heldOut.auc, 3) : '', h.heldOut ? fixed(h.heldOut.accuracy, 3) : '', `${h.crossValidated.positives}/${h.crossValidated.negatives}`]);
       io.stdout(`${result.heads.length} detectors on "${result.layer}" (${result.channels} channels${result.constantChannels > 0 ? `, ${result.constantChannels} constant and left at weight 0` : ''}), ${result.folds}-fold cross-validation on ${result.fitStimuli} stimuli, ${result.heldOutStimuli} held out${result.balanced ? ', classes balanced' : ''}\n`);
-      io.stdout(`${fitTable(['category', 'C', 'CV ROC area', 'CV accuracy', 'held-out ROC area', 'held-out accuracy', 'fit +/−'], rows, { width: process.stdout.columns || DEFAULT_COLUMNS })}\n`);
-      io.stdout(`model: ${result.model} (readout "${result.output}", one output per category); sidecar: ${result.sidecar}\nrecord with it as with any model: sonde record ${result.model} --stimuli … --labels … --out base-heads\n`);
+      io.stdout(`${fitTable(['category', 'C', 'CV AUC', 'CV acc.', 'held-out AUC', 'held-out acc.', 'fit +/−'], rows, { width: outputColumns() })}\n`);
+      io.stdout(`model: ${result.model} (readout "${result.output}", one output per category); sidecar: ${result.sidecar}; AUC: ROC area, acc.: accuracy at logit 0\nrecord with it as with any model: sonde record ${result.model} --stimuli … --labels … --out base-heads\n`);
     });
 }

@@ -6,9 +6,9 @@
 import type { Command } from 'commander';
 import { fixed, signed } from '../../format.js';
 import { runSizeMatched } from '../../replay/size-matched-run.js';
-import { DEFAULT_COLUMNS, fitTable, wrapText } from '../../report/terminal-table.js';
+import { fitTable, wrapText } from '../../report/terminal-table.js';
 import { finiteNumber, nonNegativeInteger, positiveInteger } from '../options.js';
-import { cliIo } from '../io.js';
+import { cliIo, outputColumns } from '../io.js';
 
 interface SizeMatchedCliOptions {
   fit: string;
@@ -75,7 +75,7 @@ export function registerSizeMatched(program: Command): void {
         io.stdout(`${JSON.stringify(c, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
       }
-      const width = process.stdout.columns || DEFAULT_COLUMNS;
+      const width = outputColumns();
       const interval = (i: { estimate: number; low: number; high: number }) => `${signed(i.estimate, 3)} [${signed(i.low, 3)}, ${signed(i.high, 3)}]`;
       const rows = c.effects.map((e) => [e.site, e.scheme, `${fixed(100 * e.size, 1)} %`, interval(e.aucChange), e.fractionOfCeiling === null ? '' : fixed(e.fractionOfCeiling, 2), signed(e.hitRatePp, 1), signed(e.falseAlarmRatePp, 1), signed(e.criterionShiftHitRatePp, 1)]);
       const held = c.heldOut ? `held out (gains from ${c.fitSet}, detection on ${c.heldOutSet})` : `NOT held out: gains and detection on the same stimuli (${c.heldOutSet})`;
