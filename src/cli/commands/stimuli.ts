@@ -13,7 +13,7 @@ import {
   type DemoKind,
   type StimulusFormat,
 } from '../../stimuli/demo/index.js';
-import { composeStimulusSet, type CompositeLayout } from '../../stimuli/compose/index.js';
+import { composeCuedSets, composeStimulusSet, type CompositeLayout } from '../../stimuli/compose/index.js';
 import { parseFit, parseInterpolation, parseSize } from '../../stimuli/preprocess.js';
 import { cliIo } from '../io.js';
 
@@ -54,13 +54,13 @@ export function registerStimuli(program: Command): void {
     .requiredOption('--seed <s>', 'seed, an integer in [0, 4294967295]; same seed and sources, same bytes')
     .option('--layout <layout>', 'overlay (two images of different categories blended) or grid:K (K×K images tiled)', 'overlay')
     .option('--weight <w>', 'overlay: weight of the first image, in (0, 1); the second gets 1 − w', '0.5')
-    .option('--cued <category>', 'exactly half the composites hold this category, the other categories balanced')
+    .option('--cued <categories>', 'exactly half the composites hold this category, the other categories balanced; several (a,b) write one set per category into OUT/CATEGORY/')
     .option('--size <HxW>', 'size of a composite (a grid cell is size / K)', '224x224')
     .option('--fit <mode>', 'how a source image fills its cell: crop[:S], squash or letterbox', 'crop')
     .option('--interpolation <kernel>', 'resizing kernel: nearest, bilinear, bicubic or lanczos3', 'lanczos3')
     .option('--labels <csv>', 'for a folder: a path,label CSV to read it through, or folders to label by subfolder')
     .action(async (flags: ComposeFlags) => {
-      const summary = await composeStimulusSet({
+      const common = {
         from: flags.from,
         ...(flags.labels !== undefined ? { labels: flags.labels } : {}),
         out: flags.out,
@@ -71,9 +71,13 @@ export function registerStimuli(program: Command): void {
         size: parseSize(flags.size),
         ...parseFit(flags.fit),
         interpolation: parseInterpolation(flags.interpolation),
-      });
-      const counts = Object.entries(summary.composites).map(([category, n]) => `${category} ${n}`).join(', ');
-      cliIo().stdout(`wrote ${summary.count} composites to ${summary.out}: ${summary.files.join(', ')}\ncomposites per category: ${counts}\n`);
+      };
+      const cued = flags.cued === undefined ? [] : flags.cued.split(',').map((c) => c.trim());
+      const summaries = cued.length === 0 ? [await composeStimulusSet({ ...common, cued: null })] : await composeCuedSets({ ...common, cued });
+      for (const summary of summaries) {
+        const counts = Object.entries(summary.composites).map(([category, n]) => `${category} ${n}`).join(', ');
+        cliIo().stdout(`wrote ${summary.count} composites to ${summary.out}: ${summary.files.join(', ')}\ncomposites per category: ${counts}\n`);
+      }
     });
   stimuli
     .command('make')

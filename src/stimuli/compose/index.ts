@@ -136,6 +136,28 @@ export async function composeStimulusSet(options: ComposeOptions): Promise<Compo
   return { out: options.out, count: options.count, composites, files: ['images/', 'labels.csv', 'sources.csv', 'set.json'] };
 }
 
+/**
+ * One cued set per category: with a single category the set is written to `out` itself, with several each
+ * goes to `out/CATEGORY/` (same seed, sources and options; the cue alone differs), so `record --stimuli
+ * out/CATEGORY` reads one.
+ * @throws UsageError as `composeStimulusSet`, for a repeated category, or one whose name cannot be a
+ *   folder name.
+ */
+export async function composeCuedSets(options: Omit<ComposeOptions, 'cued'> & { cued: readonly string[] }): Promise<ComposeSummary[]> {
+  const { cued, ...rest } = options;
+  if (cued.length === 1) return [await composeStimulusSet({ ...rest, cued: cued[0]! })];
+  if (new Set(cued).size !== cued.length) throw new UsageError('E_COMPOSE', `--cued ${cued.join(',')} names a category twice`);
+  for (const category of cued) {
+    if (category === '' || category === '.' || category === '..' || /[\\/\0]/.test(category)) {
+      throw new UsageError('E_COMPOSE', `--cued category ${JSON.stringify(category)} cannot name a folder`, { hint: 'compose that category in a run of its own with --cued and its own --out' });
+    }
+  }
+  await prepareFolder(options.out);
+  const summaries: ComposeSummary[] = [];
+  for (const category of cued) summaries.push(await composeStimulusSet({ ...rest, cued: category, out: join(options.out, category) }));
+  return summaries;
+}
+
 function checkOptions(options: ComposeOptions, size: [number, number]): void {
   if (!Number.isSafeInteger(options.count) || options.count <= 0) throw new UsageError('E_COMPOSE', `--count ${options.count} must be a positive integer`);
   if (!Number.isSafeInteger(options.seed) || options.seed < 0 || options.seed > 0xffffffff) throw new UsageError('E_COMPOSE', `--seed ${options.seed} must be an integer in [0, 4294967295]`);

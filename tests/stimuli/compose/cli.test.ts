@@ -16,6 +16,17 @@ describe('sonde stimuli compose', () => {
     expect(set).toMatchObject({ layout: { kind: 'grid', k: 2 }, cued: 'disc', cell: [16, 16] });
   });
 
+  it('sonde stimuli compose --cued ring,disc writes one cued set per category, each read with its own labels', async () => {
+    const out = join(tempFolder('sonde-compose-cli-'), 'sets');
+    const result = await runSonde(['stimuli', 'compose', '--from', GLYPHS, '--out', out, '--count', '8', '--seed', '5', '--cued', 'ring,disc', '--size', '32x32']);
+    expect(result.code, result.stderr).toBe(0);
+    for (const category of ['ring', 'disc']) {
+      const rows = readFileSync(join(out, category, 'labels.csv'), 'utf8').trim().split('\n').slice(1);
+      expect(rows).toHaveLength(8);
+      expect(rows.filter((row) => row.split(',')[1]!.split(';').includes(category))).toHaveLength(4);
+    }
+  });
+
   it('sonde stimuli compose refuses a bad layout, a bad weight and an unknown cue in one line (exit 2)', async () => {
     const dir = tempFolder('sonde-compose-cli-');
     for (const [args, pattern] of [
