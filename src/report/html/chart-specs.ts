@@ -105,7 +105,7 @@ export function propagationMatrixSpec(cells: readonly MatrixCell[], sites: reado
       width: { step },
       height: { step: 24 },
       layer: [
-        { mark: { type: 'rect' }, encoding: { x, y, color: { field: 'value', type: 'quantitative', scale: { type: 'log', scheme: 'viridis' }, legend: { title: 'relative change', orient: 'right', gradientLength: 180, format: '~g' } } } },
+        { mark: { type: 'rect' }, encoding: { x, y, color: { field: 'value', type: 'quantitative', scale: { type: 'log', scheme: 'viridis' }, legend: { title: 'relative change', orient: 'right', gradientLength: 180, format: '~g', tickCount: 4 } } } },
         { transform: [{ filter: 'datum.layer === datum.site' }], mark: { type: 'rect', fill: null, stroke: '#d62728', strokeWidth: 2 }, encoding: { x, y } },
       ],
     },

@@ -177,7 +177,9 @@ function comparisonSection(inputs: readonly ReportInput[]): PageSection | null {
   return { id: 'schemes', heading: 'Scheme comparisons', body: html`${body}` };
 }
 
-async function sweepSections(sweep: SweepResult, name: string, index: number, charts: ChartRenderer): Promise<PageSection[]> {
+async function sweepSections(sweep: SweepResult, name: string, index: number, charts: ChartRenderer, short: (name: string) => string = (n) => n): Promise<PageSection[]> {
+  // charts name sites by their short labels (full names in the tables' hover titles)
+  const shortSites = sweep.sites.map(short);
   const sections: PageSection[] = [];
   const suffix = index > 0 ? ` (${name})` : '';
   const curves = taskCurves(sweep);
@@ -189,7 +191,7 @@ async function sweepSections(sweep: SweepResult, name: string, index: number, ch
     ? html`<p>Control, by ${measureWords(controlMeasure)}: mean ${controlMeasure === 'auc' ? 'ΔAUC' : 'Δd′'} with tuning-based gain ${sgn(control.meanTuning, controlDigits)} vs shuffled ${sgn(control.meanShuffled, controlDigits)} (difference ${sgn(control.difference, controlDigits)}, p = ${fmt(control.pValue, 3)}, ${control.test}).</p>`
     : '';
   const taskFigure = await charts.figure(
-    taskCurveSpec(curves, sweep.sites, sweep.schemes, measure),
+    taskCurveSpec(curves.map((p) => ({ ...p, site: short(p.site) })), shortSites, sweep.schemes, measure),
     `Mean change of detection ${measure === 'auc' ? 'ROC area (AUC, threshold-free)' : 'd′ at the fixed threshold'} (modulated − baseline) against strength, averaged over cued categories; one panel per site. The shuffled control is dashed, its band the range over control seeds; the horizontal line is no change.`,
   );
   sections.push({
@@ -201,10 +203,10 @@ async function sweepSections(sweep: SweepResult, name: string, index: number, ch
   const calibration = calibrationTable(sweep);
   if (matrix.cells.length > 0) {
     const matrixFigure = await charts.figure(
-      propagationMatrixSpec(matrix.cells, sweep.sites, sweep.schemes),
+      propagationMatrixSpec(matrix.cells.map((c) => ({ ...c, site: short(c.site), layer: short(c.layer) })), shortSites, sweep.schemes),
       'Mean relative change at every recorded layer (columns, by depth) when modulating each site (rows), log colour scale; the outlined cell is the site itself; each panel shows one scheme at its largest swept strength. Blank: above the site, or no change.',
     );
-    const profileFigure = await charts.figure(depthProfileSpec(matrix.cells, sweep.sites, sweep.schemes), 'The same cells as depth profiles: relative change against layers below the site, one line per site.');
+    const profileFigure = await charts.figure(depthProfileSpec(matrix.cells.map((c) => ({ ...c, site: short(c.site) })), shortSites, sweep.schemes), 'The same cells as depth profiles: relative change against layers below the site, one line per site.');
     sections.push({
       id: `sweep${index + 1}-matrix`,
       heading: `Propagation matrix${suffix}`,
@@ -317,9 +319,12 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   if (inputs.length === 0) throw new UsageError('E_REPORT_INPUT', 'no inputs to report on', { hint: 'pass diff, sweep or tune JSON files' });
   const classified = classifyAll(inputs, options.names);
   const charts = new ChartRenderer();
-  const runs = diffRuns(classified);
-  const labels = shortLayerLabels(namesOf(classified, runs));
+  const fullRuns = diffRuns(classified);
+  const labels = shortLayerLabels(namesOf(classified, fullRuns));
   const short = (name: string) => labels.get(name) ?? name;
+  // run labels name their sites by short labels too (distinct names keep distinct labels, so runs stay distinct)
+  const renamed = [...labels].filter(([name, label]) => name !== label).sort((a, b) => b[0].length - a[0].length);
+  const runs = fullRuns.map((r) => ({ ...r, label: renamed.reduce((text, [name, label]) => text.split(`@ ${name}`).join(`@ ${label}`), r.label) }));
   const sections: PageSection[] = [];
   const sizeMatchedInputs = classified.filter((i): i is Extract<ReportInput, { kind: 'size-matched' }> => i.kind === 'size-matched');
   const forests: SafeHtml[] = [];
@@ -341,7 +346,7 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   const comparisons = comparisonSection(classified);
   if (comparisons) sections.push(comparisons);
   const sweeps = classified.filter((i): i is Extract<ReportInput, { kind: 'sweep' }> => i.kind === 'sweep');
-  for (let k = 0; k < sweeps.length; k++) sections.push(...(await sweepSections(sweeps[k]!.sweep, sweeps[k]!.name, k, charts)));
+  for (let k = 0; k < sweeps.length; k++) sections.push(...(await sweepSections(sweeps[k]!.sweep, sweeps[k]!.name, k, charts, short)));
   const agreement = await agreementSections(classified, charts);
   if (agreement) sections.push(agreement);
   const tuning = await tuningSections(classified, charts);
