@@ -71,19 +71,20 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
 }
 
 /** The runtime's log severities by name (onnxruntime: 0 verbose, 1 info, 2 warning, 3 error, 4 fatal). */
-const RUNTIME_LOG_LEVELS = { verbose: 0, info: 1, warning: 2, error: 3 } as const;
+const RUNTIME_LOG_LEVELS = { verbose: 0, info: 1, warning: 2, error: 3, fatal: 4 } as const;
 
 /**
- * Severity below which the runtime's own log lines are dropped: `error` (3) unless the environment
+ * Severity below which the runtime's own log lines are dropped: `fatal` (4) unless the environment
  * variable SONDE_RUNTIME_LOG names another level. The runtime writes its log natively to stderr in its
  * own multi-line, coloured format (e.g. "Removing initializer …" for the unused weights of an extracted
- * part); Sonde reports everything a user must act on itself, in its one-line style, and runtime errors
- * arrive as exceptions that become such a line — so by default only the runtime's errors may print.
+ * part, or an error line before it throws on a model it rejects); Sonde reports everything a user must
+ * act on itself, in its one-line style, and runtime errors arrive as exceptions that become such a
+ * line — so by default none of the runtime's own lines print (SONDE_RUNTIME_LOG=error shows them).
  * @throws UsageError for an unknown SONDE_RUNTIME_LOG value.
  */
-export function runtimeLogSeverity(): 0 | 1 | 2 | 3 {
+export function runtimeLogSeverity(): 0 | 1 | 2 | 3 | 4 {
   const name = process.env['SONDE_RUNTIME_LOG'];
-  if (name === undefined || name === '') return RUNTIME_LOG_LEVELS.error;
+  if (name === undefined || name === '') return RUNTIME_LOG_LEVELS.fatal;
   if (!Object.hasOwn(RUNTIME_LOG_LEVELS, name)) throw new UsageError('E_RUNTIME_LOG', `SONDE_RUNTIME_LOG=${JSON.stringify(name)} is not a runtime log level`, { hint: `use ${Object.keys(RUNTIME_LOG_LEVELS).join(', ')}` });
   return RUNTIME_LOG_LEVELS[name as keyof typeof RUNTIME_LOG_LEVELS];
 }
