@@ -129,6 +129,32 @@ describe('record --shard K/N and merge', () => {
     }
   }, 180_000);
 
+  it('record --shard K/3 merged equals a single recording byte for byte with --dtype float16, --keep channels, and a seeded noise modulation', async () => {
+    // float16 values keep their bits through the merge; channel-means-only files re-cut the same way;
+    // noise is drawn per (seed, site, global stimulus index), so a shard draws what the single run draws
+    const noise = join(dir, 'noise.json');
+    writeFileSync(noise, JSON.stringify({ site: 'relu1', kind: 'noise', sd: 0.2, seed: 5 }));
+    const variants: Array<[string, string[], string[]]> = [
+      ['f16', ['--dtype', 'float16'], []],
+      ['ch', ['--keep', 'channels'], []],
+      ['noise', ['--modulate', noise, '--full-run'], ['--layers', 'all']],
+    ];
+    for (const [name, extra, layers] of variants) {
+      const single = await runSondeProcess([...record(join(dir, `${name}-single`), extra), ...layers]);
+      expect(single.code, single.stderr).toBe(0);
+      const shards = [1, 2, 3].map((k) => join(dir, `${name}-shard${k}`));
+      const recorded = await Promise.all(shards.map((out, i) => runSondeProcess([...record(out, [...extra, '--shard', `${i + 1}/3`]), ...layers])));
+      recorded.forEach((r) => expect(r.code, r.stderr).toBe(0));
+      const merged = await runSonde(['merge', ...shards, '--out', join(dir, `${name}-merged`)]);
+      expect(merged.code, merged.stderr).toBe(0);
+      const got = files(join(dir, `${name}-merged`));
+      const want = files(join(dir, `${name}-single`));
+      expect([...got.keys()].sort(), name).toEqual([...want.keys()].sort());
+      for (const [file, bytes] of want) expect(got.get(file)!.equals(bytes), `${name}: ${file}`).toBe(true);
+      expect(manifest(join(dir, `${name}-merged`)), name).toEqual(manifest(join(dir, `${name}-single`)));
+    }
+  }, 240_000);
+
   it('diff and tune on the merged snapshots equal diff and tune on the single recording', async () => {
     const args = (base: string, mod: string) => ['diff', join(dir, base), join(dir, mod), '--json', '--bootstrap', '200', '--task', 'labels', '--threshold', 'best'];
     const a = await runSonde(args('merged', 'merged-mod'));
