@@ -79,7 +79,7 @@ export function registerCluster(program: Command): void {
       const r = plan.resources;
       io.stdout(
         `wrote a plan for \`sonde ${plan.job.kind}\` over ${plan.tasks} tasks in ${plan.run}:\n` +
-          `  ${plan.scripts.array}: tasks 1-${plan.tasks}, ${r.cpus} CPUs and ${r.memoryMib} MiB each (${r.memorySource === 'estimate' ? 'estimated from the model; --mem to set' : 'as given'})${r.time ? `, ${r.time}` : ''}; logs ${plan.run}/logs/task-K.log\n` +
+          `  ${plan.scripts.array}: tasks 1-${plan.tasks}, ${r.cpus} CPU${r.cpus === 1 ? '' : 's'} and ${r.memoryMib} MiB each (${r.memorySource === 'estimate' ? 'estimated from the model; --mem to set' : 'as given'})${r.time ? `, ${r.time}` : ''}; logs ${plan.run}/logs/task-K.log\n` +
           `  ${plan.scripts.merge}: joins the shards into ${plan.result}\n`,
       );
       if (submission) io.stdout(submittedLine(submission, plan));
