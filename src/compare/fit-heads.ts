@@ -173,6 +173,10 @@ export async function fitReadoutHeads(options: FitHeadsOptions): Promise<FitHead
     const names = snapshot.manifest.layers.map((l) => l.name);
     throw new UsageError('E_HEADS', `--layer "${options.layer}" was not recorded in ${options.from} (${names.length} layers, e.g. ${names.slice(-3).join(', ')})`, { hint: 'record the baseline with --layers including it' });
   }
+  if (entry.shape.length === 2) {
+    // [C, L] and token layers [L, D] look alike; averaging the wrong axis would fit on nonsense
+    throw new UsageError('E_HEADS', `--layer "${options.layer}" has shape [${entry.shape.join(', ')}] per stimulus; heads read feature maps [C, H, W] (averaged over space) or vectors [C]`, { hint: 'for a transformer pick a vector layer (the class-token or pooled features before the classifier)' });
+  }
   const categories = [...(options.categories ?? snapshot.categories)];
   if (categories.length === 0) throw new UsageError('E_HEADS', `${options.from} has no labelled stimuli`, { hint: 'record the baseline with --labels' });
   const n = snapshot.manifest.stimuli.count;
