@@ -47,6 +47,23 @@ describe('sonde record (preprocessing options)', () => {
     expect(manifest(join(dir, 'd-squash')).preprocessing).toMatchObject({ fit: 'squash', interpolation: 'lanczos3', normalise: 'unit' });
   });
 
+  it('sonde record takes fit, interpolation and normalise from the model sidecar, options overriding it, and names a bad sidecar value', async () => {
+    const side = join(dir, 'side.onnx');
+    writeFileSync(side, buildTinyNet());
+    writeFileSync(join(dir, 'side.json'), JSON.stringify({ preprocessing: { fit: 'crop:20', interpolation: 'bicubic', normalise: 'signed' } }));
+    const out = join(dir, 'side-out');
+    const first = await runSonde(['record', side, '--stimuli', images, '--out', out, '--threads', '1', '--layers', 'relu0']);
+    expect(first.code, first.stderr).toBe(0);
+    expect(manifest(out).preprocessing).toMatchObject({ fit: 'crop', shorterSide: 20, interpolation: 'bicubic', normalise: 'signed', mean: [0.5, 0.5, 0.5], std: [0.5, 0.5, 0.5] });
+    const over = join(dir, 'side-over');
+    expect((await runSonde(['record', side, '--stimuli', images, '--out', over, '--threads', '1', '--layers', 'relu0', '--fit', 'squash', '--mean', '0.1,0.1,0.1', '--std', '0.2,0.2,0.2'])).code).toBe(0);
+    expect(manifest(over).preprocessing).toMatchObject({ fit: 'squash', interpolation: 'bicubic', normalise: 'custom', mean: [0.1, 0.1, 0.1], std: [0.2, 0.2, 0.2] });
+    writeFileSync(join(dir, 'side.json'), JSON.stringify({ preprocessing: { fit: 'stretch' } }));
+    const bad = await runSonde(['record', side, '--stimuli', images, '--out', join(dir, 'side-bad')]);
+    expect(bad.code).toBe(2);
+    expect(bad.stderr).toMatch(/model sidecar preprocessing\.fit "stretch" is not a fit mode/);
+  });
+
   it('sonde record says in one notice that image options do not apply to a .npy array (fed as it is; manifest preprocessing null)', async () => {
     const folder = join(dir, 'arr');
     mkdirSync(folder);
