@@ -11,7 +11,8 @@
  * Known limit: taking over a stale lock is remove-then-create; two processes that both find the same
  * stale lock at the same instant could both proceed. Plain `open(O_EXCL)` keeps two live writers apart.
  */
-import { closeSync, fsyncSync, openSync, readFileSync, rmSync, statSync, writeSync } from 'node:fs';
+import { closeSync, fsyncSync, openSync, rmSync, statSync, writeSync } from 'node:fs';
+import { readInputText } from './input-file.js';
 import { hostname } from 'node:os';
 import { join } from 'node:path';
 import { RuntimeFailure } from '../errors.js';
@@ -131,7 +132,7 @@ export function acquireLock(folder: string, options: AcquireLockOptions = {}): F
 export function readLockOwner(path: string): LockOwner | null {
   let value: unknown;
   try {
-    value = JSON.parse(readFileSync(path, 'utf8'));
+    value = JSON.parse(readInputText(path, path, 4096)); // a FIFO or a huge file planted as .lock reads as malformed
   } catch {
     return null;
   }

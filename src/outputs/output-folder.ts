@@ -1,4 +1,5 @@
-import { existsSync, lstatSync, mkdirSync, readdirSync, readFileSync, realpathSync, rmdirSync, rmSync, statSync } from 'node:fs';
+import { existsSync, lstatSync, mkdirSync, readdirSync, realpathSync, rmdirSync, rmSync, statSync } from 'node:fs';
+import { INPUT_LIMITS, readInputText } from '../disk/input-file.js';
 import { basename, dirname, join, resolve, sep } from 'node:path';
 import { UsageError } from '../errors.js';
 import { replaceFile, UNIQUE_TEMPORARY } from '../disk/atomic-file.js';
@@ -119,7 +120,7 @@ function writtenBySonde(path: string): boolean {
 /** The parsed manifest file when it says Sonde wrote it (valid or not), else null. */
 function sondeManifestJson(path: string): { layers?: unknown } | null {
   try {
-    const value = JSON.parse(readFileSync(path, 'utf8')) as { tool?: { name?: unknown }; layers?: unknown } | null;
+    const value = JSON.parse(readInputText(path, path, INPUT_LIMITS.json)) as { tool?: { name?: unknown }; layers?: unknown } | null;
     return typeof value === 'object' && value !== null && value.tool?.name === 'sonde' ? value : null;
   } catch {
     return null;
@@ -281,7 +282,7 @@ function readDemoMark(folder: string): DemoMark | null {
   try {
     const path = join(folder, DEMO_MARK);
     if (!lstatSync(path).isFile()) return null;
-    const value = JSON.parse(readFileSync(path, 'utf8')) as Partial<DemoMark> | null;
+    const value = JSON.parse(readInputText(path, path, INPUT_LIMITS.json)) as Partial<DemoMark> | null;
     if (!value || value.tool !== 'sonde' || value.kind !== 'demo' || typeof value.complete !== 'boolean' || !Array.isArray(value.files) || !value.files.every((f) => typeof f === 'string')) return null;
     return value as DemoMark;
   } catch {

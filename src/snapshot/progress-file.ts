@@ -15,7 +15,8 @@
  * the log (checked by the recorder); each file is then truncated to its checkpoint length and writing
  * continues with the next batch; what was written after the checkpoint is simply written again.
  */
-import { closeSync, existsSync, fstatSync, fsyncSync, ftruncateSync, openSync, readFileSync, readSync, rmSync, writeSync } from 'node:fs';
+import { closeSync, existsSync, fstatSync, fsyncSync, ftruncateSync, openSync, readSync, rmSync, writeSync } from 'node:fs';
+import { INPUT_LIMITS, readInputText } from '../disk/input-file.js';
 import { createHash } from 'node:crypto';
 import { join } from 'node:path';
 import { RuntimeFailure } from '../errors.js';
@@ -59,7 +60,7 @@ export function readProgress(folder: string): ProgressRecord | null {
   if (!existsSync(path)) return null;
   let value: unknown;
   try {
-    value = JSON.parse(readFileSync(path, 'utf8'));
+    value = JSON.parse(readInputText(path, path, INPUT_LIMITS.json));
   } catch (error) {
     throw new RuntimeFailure('E_RESUME', `${path} is not valid JSON (${(error as Error).message})`, { hint: 'record again without --resume' });
   }

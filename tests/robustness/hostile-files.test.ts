@@ -159,6 +159,25 @@ describe('inputs that never end or explode', () => {
   }, 120_000);
 });
 
+describe('FIFOs planted inside output folders', () => {
+  it('record --out a folder whose manifest.json, progress.json or .lock is a FIFO answers at once (refused, or the stale lock taken over), never hangs', async () => {
+    for (const name of ['manifest.json', 'progress.json']) {
+      const folder = join(dir, `fifo-${name}`);
+      mkdirSync(folder);
+      execFileSync('mkfifo', [join(folder, name)]);
+      const result = await runSonde(['record', model, '--stimuli', stimuli.npy, '--labels', stimuli.labels, '--out', folder, '--batch', '4', '--force']);
+      expect(result.code, result.stderr).toBe(2);
+      expect(result.stderr).toMatch(new RegExp(`${name.replace('.', '\\.')}`));
+    }
+    const { checkSnapshot } = await import('../../src/snapshot/check.js');
+    const locked = join(dir, 'fifo-lock');
+    expect((await runSonde(['record', model, '--stimuli', stimuli.npy, '--labels', stimuli.labels, '--out', locked, '--batch', '4'])).code).toBe(0);
+    execFileSync('mkfifo', [join(locked, '.lock')]);
+    const report = await checkSnapshot(locked); // reads the lock owner: a FIFO is no owner
+    expect(report.ok).toBe(true);
+  }, 60_000);
+});
+
 describe('partial statistics with a digest', () => {
   it('merge refuses a diff partial with one base64 character of its scores flipped, and merges the intact parts', async () => {
     const parts = [1, 2].map((k) => join(dir, `diff-${k}.json`));
