@@ -1,9 +1,11 @@
 /**
  * The gain ceiling at a site: for each cued category, the per-channel gain of a given size that
  * maximises the ROC area of that category's readout on a fitting set (see `analysis/gain-ceiling.ts`).
- * The derivatives ∂readout/∂g_k come from forward differences of the downstream part replayed on the
- * fitting baseline (`scoreGains`); the fitted gain is then measured on other stimuli by the caller, so
- * the ceiling is a held-out figure like the schemes it is compared with.
+ * The derivatives ∂readout/∂g_k are exact: per-stimulus gradients of the downstream part on the fitting
+ * baseline (`exactGainJacobian`, one forward and backward run per stimulus and category); a site whose
+ * downstream part has an operator without a gradient rule falls back to forward differences (C + 1
+ * replays, `scoreGains`). The fitted gain is then measured on other stimuli by the caller, so the ceiling
+ * is a held-out figure like the schemes it is compared with.
  */
 import { fitGainCeiling, type GainCeilingFit } from '../analysis/gain-ceiling.js';
 import { UsageError, nameList } from '../errors.js';
@@ -11,6 +13,7 @@ import type { LoadedModel } from '../graph/load-model.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { readoutOf } from '../compare/diff-collect.js';
 import { scoreGains } from './gain-scores.js';
+import { exactGainJacobian } from './sense-exact.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 
 /** Options of `fitSiteCeilings`. */
@@ -29,7 +32,7 @@ export interface SiteCeilingOptions {
    * gives the largest ROC area on the others, so the ceiling does not simply memorise the fitting set.
    */
   earlyStopping?: boolean;
-  /** Forward-difference step of the derivatives (default 0.01). */
+  /** Forward-difference step of the derivatives where the exact ones are not available (default 0.01). */
   step?: number;
   threads?: number;
 }
@@ -42,6 +45,8 @@ export interface SiteCeiling {
   gain: Float32Array;
   /** The fit on the fitting stimuli (linearised ROC areas, size, τ). */
   fit: Omit<GainCeilingFit, 'gain'>;
+  /** How the derivatives were computed: `exact` gradients, or `forward` differences (fallback). */
+  derivatives: 'exact' | 'forward';
 }
 
 /**
@@ -69,10 +74,11 @@ export function gainSize(gain: ArrayLike<number>, weights: ArrayLike<number>): n
 }
 
 /**
- * Fits the ceiling gain at one site for every category: C + 1 replays of the downstream part on the
- * fitting baseline (g = 1, and g = 1 + h on each channel in turn), then one constrained fit per category.
- * Forward differences (error O(h) where the readout curves) keep the replays to C + 1; the fitted gain
- * is only a candidate — its held-out effect is measured on the real network, not on the expansion.
+ * Fits the ceiling gain at one site for every category: the readout and its exact gain derivatives on the
+ * fitting baseline, then one constrained fit per category. Where the gradient graph cannot be built (an
+ * operator without a rule) the derivatives are forward differences of C + 1 replays (g = 1, and g = 1 + h
+ * on each channel in turn; error O(h) where the readout curves). The fitted gain is only a candidate —
+ * its held-out effect is measured on the real network, not on the expansion.
  * @throws UsageError for a category the readout does not name, a bad step, or a site whose downstream
  *   part the baseline cannot feed.
  */
@@ -84,29 +90,49 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
   const C = fit.layerGeometry(site).channels;
   const n = fit.manifest.stimuli.count;
   const units = fit.layerGeometry(readout.layer).channels;
+  const unitOf = options.categories.map((category) => {
+    const unit = readout.kinds.indexOf(category);
+    if (unit < 0) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
+    return unit;
+  });
+  const derivatives = await readoutDerivatives(options, readout.layer, unitOf, C, n, units, h);
+  const weights = await channelWeights(fit, site);
+  return options.categories.map((category, c) => {
+    const unit = unitOf[c]!;
+    const scores = new Float64Array(n);
+    const signal = new Uint8Array(n);
+    const jacobian = derivatives.jacobian[c]!; // [n, C]: i*C + k
+    for (let i = 0; i < n; i++) {
+      scores[i] = derivatives.scores[i * units + unit]!;
+      signal[i] = fit.stimuli.labels[i]!.includes(category) ? 1 : 0;
+    }
+    const budget = options.budget(category);
+    const validation = options.earlyStopping === false ? undefined : Uint8Array.from({ length: n }, (_, i) => i % 2);
+    const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget, ...(validation ? { validation } : {}) });
+    return { site, category, budget, gain: Float32Array.from(gain), fit: rest, derivatives: derivatives.method };
+  });
+}
+
+/** Readout [n, units] and per-category gain derivatives [n, C]: exact, or forward differences as a fallback. */
+async function readoutDerivatives(options: SiteCeilingOptions, readout: string, unitOf: readonly number[], C: number, n: number, units: number, h: number): Promise<{ scores: ArrayLike<number>; jacobian: Float64Array[]; method: 'exact' | 'forward' }> {
+  try {
+    const exact = await exactGainJacobian({ model: options.model, inspection: options.inspection, baseline: options.fit, site: options.site, readout, units: unitOf, threads: options.threads ?? 0 });
+    return { scores: exact.scores, jacobian: exact.jacobian, method: 'exact' };
+  } catch (error) {
+    if (!(error instanceof UsageError) || error.code !== 'E_GRADIENT_OP') throw error;
+  }
   const patterns: Float32Array[][] = [[new Float32Array(C).fill(1)]];
   for (let k = 0; k < C; k++) {
     const g = new Float32Array(C).fill(1);
     g[k] = 1 + h;
     patterns.push([g]);
   }
-  const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: fit, sites: [site], gains: patterns, readout: readout.layer, threads: options.threads ?? 0 });
-  const weights = await channelWeights(fit, site);
-  return options.categories.map((category) => {
-    const unit = readout.kinds.indexOf(category);
-    if (unit < 0) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
-    const scores = new Float64Array(n);
-    const signal = new Uint8Array(n);
-    const jacobian = new Float64Array(n * C);
-    for (let i = 0; i < n; i++) {
-      scores[i] = scored[0]![i * units + unit]!;
-      signal[i] = fit.stimuli.labels[i]!.includes(category) ? 1 : 0;
-      // divided by the float32 step actually applied, fround(1 + h) − 1
-      for (let k = 0; k < C; k++) jacobian[i * C + k] = (scored[1 + k]![i * units + unit]! - scores[i]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
-    }
-    const budget = options.budget(category);
-    const validation = options.earlyStopping === false ? undefined : Uint8Array.from({ length: n }, (_, i) => i % 2);
-    const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget, ...(validation ? { validation } : {}) });
-    return { site, category, budget, gain: Float32Array.from(gain), fit: rest };
+  const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: options.fit, sites: [options.site], gains: patterns, readout, threads: options.threads ?? 0 });
+  const jacobian = unitOf.map((unit) => {
+    const out = new Float64Array(n * C);
+    // divided by the float32 step actually applied, fround(1 + h) − 1
+    for (let i = 0; i < n; i++) for (let k = 0; k < C; k++) out[i * C + k] = (scored[1 + k]![i * units + unit]! - scored[0]![i * units + unit]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
+    return out;
   });
+  return { scores: scored[0]!, jacobian, method: 'forward' };
 }

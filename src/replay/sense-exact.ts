@@ -6,23 +6,42 @@
  * stimuli are the values `senseSites` reports. No step, no kinks inside a step: at a ReLU kink the
  * derivative is PyTorch's (ReLU′(0) = 0).
  */
-import { RuntimeFailure } from '../errors.js';
+import { RuntimeFailure, UsageError } from '../errors.js';
 import { buildGradientGraph } from '../graph/gradient/build.js';
 import { exposeTensors } from '../graph/instrument.js';
+import type { LoadedModel } from '../graph/load-model.js';
+import { extractTail } from '../graph/tail.js';
+import type { ModelInspection } from '../record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
+import type { Snapshot } from '../snapshot/snapshot.js';
 import { boundaryStream, type SiteRun, type StimulusValues } from './sense-run.js';
 import type { SiteSensitivity } from './sense-types.js';
 
+/** What one gradient run returns, for the stimuli it held. */
+interface GradientRows {
+  stimuli: StimulusValues[];
+  /** [K·n, C]: row c·n + j is stimulus j's gain (or offset) sensitivities for category c. */
+  values: Float32Array;
+  /** [K·n, Kout]: the readout (rows c·n + j repeat rows j). */
+  readout: Float32Array;
+}
+
+/** Counts and times of a stream of gradient runs. */
+interface GradientStats {
+  runs: number;
+  rows: number;
+  used: number;
+  tailSeconds: number;
+  prefixSeconds: number;
+  prefixRuns: number;
+  prefixStimuli: number;
+}
+
 /**
- * Measures one site exactly: `run.batch` rows per run (⌊batch / categories⌋ stimuli, at least one,
- * each repeated once per category).
- * @returns the site's block (kind as asked; `fdError` all 0, no extrapolation shift); `downstreamShare`
- *   and `forwardEquivalentsPerChannel` NaN (the caller knows the MAC counts).
- * @throws UsageError when an operator between site and readout has no gradient rule; RuntimeFailure
- *   when the runtime returns something unexpected.
+ * Streams the stimuli of `run` (those with a weight for some category) through the gradient graph in
+ * groups of ⌊batch / K⌋ (at least one) and hands each run's rows to `visit`.
  */
-export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> {
-  const started = performance.now();
+async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void): Promise<GradientStats> {
   const { site, tail, layer, readout, weights, kind } = run;
   const C = layer.shape[0]!;
   const K = readout.categories.length;
@@ -34,19 +53,19 @@ export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> 
   const group = Math.max(1, Math.floor(run.batch / K));
   const feedNames = boundary.map((name) => (K === 1 ? name : `${name}::once`));
   const output = kind === 'gain' ? graph.gain : graph.offset;
-  const sums = new Float64Array(C * K); // [C, K]: i = k*K + c
   const N = weights.weights.length / K;
-  let used = 0;
-  let rowsDone = 0;
-  let runs = 0;
-  let tailSeconds = 0;
-  let prefixSeconds = 0;
-  let prefixRuns = 0;
-  let prefixStimuli = 0;
+  const stats: GradientStats = { runs: 0, rows: 0, used: 0, tailSeconds: 0, prefixSeconds: 0, prefixRuns: 0, prefixStimuli: 0 };
   const rowsTotal = (() => {
     let count = 0;
     const [from, to] = run.range ?? [0, N];
-    for (let s = from; s < to; s++) for (let c = 0; c < K; c++) if (weights.weights[s * K + c]) { count++; break; }
+    for (let s = from; s < to; s++) {
+      for (let c = 0; c < K; c++) {
+        if (weights.weights[s * K + c]) {
+          count++;
+          break;
+        }
+      }
+    }
     return count * K;
   })();
   const seeds = new Map<number, Float32Array>();
@@ -71,51 +90,73 @@ export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> 
     });
     feeds[graph.seed] = { data: seedFor(n), dims: [K * n, Kout] };
     const t0 = performance.now();
-    const outputs = await session.run(feeds, [output]);
-    tailSeconds += (performance.now() - t0) / 1000;
+    const outputs = await session.run(feeds, [output, graph.readout]);
+    stats.tailSeconds += (performance.now() - t0) / 1000;
     const values = outputs[output];
-    if (!values || values.data.length !== K * n * C) throw new RuntimeFailure('E_RUNTIME_OUTPUT', `the gradient graph of "${site}" returned ${values ? values.data.length : 0} values for ${K * n} rows of ${C} channels`);
-    const m = values.data; // [K·n, C]: i = (c*n + j)*C + k
-    for (let j = 0; j < n; j++) {
-      const s = stimuli[j]!.index;
-      for (let c = 0; c < K; c++) {
-        if (!weights.weights[s * K + c]) continue;
-        const base = (c * n + j) * C;
-        for (let k = 0; k < C; k++) sums[k * K + c] += m[base + k]!;
-      }
+    const y = outputs[graph.readout];
+    if (!values || values.data.length !== K * n * C || !y || y.data.length !== K * n * Kout) {
+      throw new RuntimeFailure('E_RUNTIME_OUTPUT', `the gradient graph of "${site}" returned ${values ? values.data.length : 0} values for ${K * n} rows of ${C} channels`);
     }
-    runs++;
-    rowsDone += K * n;
-    run.onProgress?.({ site, rowsDone, rowsTotal });
+    visit({ stimuli, values: values.data, readout: y.data });
+    stats.runs++;
+    stats.rows += K * n;
+    run.onProgress?.({ site, rowsDone: stats.rows, rowsTotal });
   };
 
   try {
-    let pendingGroup: StimulusValues[] = [];
+    let pending: StimulusValues[] = [];
     for await (const batch of boundaryStream(run, boundary)) {
-      prefixSeconds += batch.prefixSeconds;
-      prefixRuns += batch.prefixRuns;
-      if (batch.prefixRuns > 0) prefixStimuli += batch.stimuli.length;
+      stats.prefixSeconds += batch.prefixSeconds;
+      stats.prefixRuns += batch.prefixRuns;
+      if (batch.prefixRuns > 0) stats.prefixStimuli += batch.stimuli.length;
       for (const stimulus of batch.stimuli) {
         let needed = false;
         for (let c = 0; c < K; c++) if (weights.weights[stimulus.index * K + c]) needed = true;
         if (!needed) continue;
-        used++;
-        pendingGroup.push(stimulus);
-        if (pendingGroup.length === group) {
-          await runGroup(pendingGroup);
-          pendingGroup = [];
+        stats.used++;
+        pending.push(stimulus);
+        if (pending.length === group) {
+          await runGroup(pending);
+          pending = [];
         }
       }
       // the batch's arrays are views; run what is left before the next batch replaces them
-      if (pendingGroup.length > 0) {
-        await runGroup(pendingGroup);
-        pendingGroup = [];
+      if (pending.length > 0) {
+        await runGroup(pending);
+        pending = [];
       }
     }
   } finally {
     await session.close();
   }
+  return stats;
+}
 
+/**
+ * Measures one site exactly: `run.batch` rows per run (⌊batch / categories⌋ stimuli, at least one,
+ * each repeated once per category).
+ * @returns the site's block (kind as asked; `fdError` all 0, no extrapolation shift, step 0);
+ *   `downstreamShare` and `forwardEquivalentsPerChannel` NaN (the caller knows the MAC counts).
+ * @throws UsageError when an operator between site and readout has no gradient rule; RuntimeFailure
+ *   when the runtime returns something unexpected.
+ */
+export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> {
+  const started = performance.now();
+  const { site, layer, readout, weights, kind } = run;
+  const C = layer.shape[0]!;
+  const K = readout.categories.length;
+  const sums = new Float64Array(C * K); // [C, K]: i = k*K + c
+  const stats = await streamGradients(run, ({ stimuli, values }) => {
+    const n = stimuli.length;
+    for (let j = 0; j < n; j++) {
+      const s = stimuli[j]!.index;
+      for (let c = 0; c < K; c++) {
+        if (!weights.weights[s * K + c]) continue;
+        const base = (c * n + j) * C; // [K·n, C]: i = (c*n + j)*C + k
+        for (let k = 0; k < C; k++) sums[k * K + c] += values[base + k]!;
+      }
+    }
+  });
   const counts = weights.counts;
   const sensitivity = new Float64Array(C * K);
   for (let k = 0; k < C; k++) for (let c = 0; c < K; c++) sensitivity[k * K + c] = sums[k * K + c]! / counts[c]!;
@@ -133,17 +174,75 @@ export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> 
     extrapolationShift: null,
     count: Int32Array.from(counts),
     worstErrorRatio: 0,
-    runs,
-    rows: rowsDone,
+    runs: stats.runs,
+    rows: stats.rows,
     skippedRows: 0,
-    prefixRuns,
-    tailSeconds,
-    prefixSeconds,
+    prefixRuns: stats.prefixRuns,
+    tailSeconds: stats.tailSeconds,
+    prefixSeconds: stats.prefixSeconds,
     wallSeconds: (performance.now() - started) / 1000,
     downstreamShare: Number.NaN,
     forwardEquivalentsPerChannel: Number.NaN,
-    prefixStimuli,
-    stimuliUsed: used,
+    prefixStimuli: stats.prefixStimuli,
+    stimuliUsed: stats.used,
     ...(run.keepSums ? { sums: { variants: 1, perturbed: sums, identity: new Float64Array(K), counts: Int32Array.from(counts) } } : {}),
   };
+}
+
+/** Options of `exactGainJacobian`. */
+export interface GainJacobianOptions {
+  model: LoadedModel;
+  inspection: ModelInspection;
+  /** The baseline whose stimuli are used and whose recorded tensors feed the part downstream of the site. */
+  baseline: Snapshot;
+  site: string;
+  /** The readout tensor and the units to differentiate. */
+  readout: string;
+  units: readonly number[];
+  threads?: number;
+  /** Rows (stimulus × unit) per gradient run (default 16). */
+  batch?: number;
+}
+
+/**
+ * Per-stimulus gain derivatives of readout units: jacobian[u][i·C + k] = ∂y_u(i)/∂g_k at g = 1 for
+ * stimulus i of the baseline and channel k of the site, and the readout itself, scores[i·Kout + u'] —
+ * one gradient run per group of stimuli instead of C + 1 replays.
+ * @throws UsageError when an operator between site and readout has no gradient rule (callers may fall
+ *   back to finite differences), or the baseline cannot feed the part downstream of the site.
+ */
+export async function exactGainJacobian(options: GainJacobianOptions): Promise<{ scores: Float32Array; jacobian: Float64Array[]; channels: number; units: number }> {
+  const { model, inspection, baseline, site } = options;
+  const byName = new Map(inspection.layers.map((l) => [l.name, l]));
+  const layer = byName.get(site);
+  const out = byName.get(options.readout);
+  if (!layer || !out) throw new UsageError('E_SITE', `"${!layer ? site : options.readout}" is not a recordable tensor of ${model.fileName}`);
+  const tail = extractTail(model, inspection.structure, [site], [options.readout]);
+  if (!tail || !tail.computed.has(options.readout)) throw new UsageError('E_SENSE_READOUT', `readout "${options.readout}" does not depend on site "${site}"`);
+  const n = baseline.manifest.stimuli.count;
+  const K = options.units.length;
+  const C = layer.shape[0]!;
+  const Kout = out.elements;
+  const run: SiteRun = {
+    site, layer, tail, model, inspection, byName,
+    readout: { tensor: options.readout, units: [...options.units], categories: options.units.map(String) },
+    weights: { weights: new Uint8Array(n * K).fill(1), counts: new Int32Array(K).fill(n) },
+    kind: 'gain', step: 0, method: 'exact', rowsPerRun: 0, feedBytes: 0, threads: options.threads ?? 0,
+    baseline, source: null, batch: options.batch ?? 16, onProgress: undefined,
+  };
+  const scores = new Float32Array(n * Kout);
+  const jacobian = options.units.map(() => new Float64Array(n * C)); // per unit [n, C]: i*C + k
+  await streamGradients(run, ({ stimuli, values, readout }) => {
+    const rows = stimuli.length;
+    for (let j = 0; j < rows; j++) {
+      const i = stimuli[j]!.index;
+      scores.set(readout.subarray(j * Kout, (j + 1) * Kout), i * Kout);
+      for (let c = 0; c < K; c++) {
+        const target = jacobian[c]!;
+        const base = (c * rows + j) * C;
+        for (let k = 0; k < C; k++) target[i * C + k] = values[base + k]!;
+      }
+    }
+  });
+  return { scores, jacobian, channels: C, units: Kout };
 }

@@ -15,7 +15,7 @@ computed on a float64 copy of the model with the float64 inputs (inputs.npy), th
 that replaces the site output a by a*g + b with g = 1, b = 0 as leaves, and autograd of sum_n y_nc with
 respect to g and b. fixtures/<model>/gradients/index.json lists {module, onnx, slug, channels}.
 
-With `--torchvision OUT` it instead exports seeded torchvision VGG16 and ResNet-50 (torchvision's own
+With `--torchvision OUT [vgg16|resnet50 …]` it instead exports seeded torchvision VGG16 and ResNet-50 (torchvision's own
 initialisation after torch.manual_seed, eval mode, BatchNorm statistics left at their defaults, 10
 classes) to OUT/<model>.onnx, with 2 seeded uniform images per model (OUT/<model>/inputs.npy; VGG16
 at 224 px, where its adaptive pooling to 7 x 7 is exportable, ResNet-50 at 64 px) and the same autograd files under
@@ -42,7 +42,7 @@ TORCHVISION_SEED = 5150
 TORCHVISION_SIZE = {"vgg16": 224, "resnet50": 64}
 TORCHVISION_SITES = {
     "vgg16": ["features.3", "features.15", "features.29", "classifier.1"],
-    "resnet50": ["relu", "layer1.0", "layer2.3", "layer3.5.relu", "layer4.2"],
+    "resnet50": ["relu", "layer1.0", "layer2.3", "layer3.5", "layer4.2"],  # Bottleneck.relu runs 3 times per block: hook whole blocks
 }
 
 
@@ -92,9 +92,11 @@ def reference_networks() -> None:
         print(f"{name}: {len(index)} sites")
 
 
-def torchvision_networks(out: Path) -> None:
+def torchvision_networks(out: Path, only: list[str]) -> None:
     out.mkdir(parents=True, exist_ok=True)
     for name in TORCHVISION_SITES:
+        if only and name not in only:
+            continue
         torch.manual_seed(mf.SEEDS["inputs"])
         size = TORCHVISION_SIZE[name]
         x = torch.rand(2, 3, size, size)
@@ -118,7 +120,7 @@ def torchvision_networks(out: Path) -> None:
 
 
 if __name__ == "__main__":
-    if len(sys.argv) == 3 and sys.argv[1] == "--torchvision":
-        torchvision_networks(Path(sys.argv[2]).resolve())
+    if len(sys.argv) >= 3 and sys.argv[1] == "--torchvision":
+        torchvision_networks(Path(sys.argv[2]).resolve(), sys.argv[3:])
     else:
         reference_networks()

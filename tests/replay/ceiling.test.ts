@@ -67,6 +67,7 @@ describe('fitSiteCeilings', () => {
     const ceilings = await fitSiteCeilings({ model, inspection, fit: baseline, site: 'relu2', categories: kinds, budget: () => 0.1, earlyStopping: false, threads: 1 });
     const scores = await scoreGains({ model, inspection, baseline, sites: ['relu2'], gains: ceilings.map((c) => [c.gain]), readout: 'logits', threads: 1 });
     ceilings.forEach((ceiling, c) => {
+      expect(ceiling.derivatives).toBe('exact'); // gradient graph, not C + 1 replays
       const signal = baseline.stimuli.labels.map((l) => (l.includes(ceiling.category) ? 1 : 0));
       const column = Array.from({ length: 40 }, (_, i) => scores[c]![i * 3 + c]!);
       // gap → linear layer: the readout is affine in the gains, so the first-order expansion is exact

@@ -72,6 +72,8 @@ export interface GradientGraph {
   /** [copies·n, C] outputs: row c·n + s holds stimulus s's sensitivities for seed row c·n + s. */
   gain: string;
   offset: string;
+  /** The readout tensor, also an output ([copies·n, units]; the copies repeat the first n rows). */
+  readout: string;
   /** Nodes that were differentiated (their count, for messages and tests). */
   differentiated: number;
 }
@@ -186,16 +188,17 @@ export function buildGradientGraph(request: GradientRequest): GradientGraph {
     node: [...tiles, ...(graph.node ?? []), ...e.nodes],
     initializer: [...(graph.initializer ?? []), ...e.initializers],
     input: [...declared, makeValueInfo(GRADIENT_NAMES.seed, 1, ['rows', units ?? 'units'])],
-    output: [makeValueInfo(GRADIENT_NAMES.gain, 1), makeValueInfo(GRADIENT_NAMES.offset, 1)],
+    output: [makeValueInfo(GRADIENT_NAMES.gain, 1), makeValueInfo(GRADIENT_NAMES.offset, 1), makeValueInfo(readout, 1)],
     valueInfo: [],
   });
   const proto = Object.assign(Object.create(Object.getPrototypeOf(tail.proto)), tail.proto, { graph: newGraph });
   return {
-    model: { ...tail, proto, outputs: [GRADIENT_NAMES.gain, GRADIENT_NAMES.offset] },
+    model: { ...tail, proto, outputs: [GRADIENT_NAMES.gain, GRADIENT_NAMES.offset, readout] },
     inputs: [...inputs.map((n) => (copies === 1 ? n : `${n}::once`)), GRADIENT_NAMES.seed],
     seed: GRADIENT_NAMES.seed,
     gain: GRADIENT_NAMES.gain,
     offset: GRADIENT_NAMES.offset,
+    readout,
     differentiated,
   };
 }

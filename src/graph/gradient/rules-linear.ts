@@ -56,6 +56,20 @@ const conv: GradientRule = (ctx) => {
   const dilations = readAttribute<number[]>(ctx.node, 'dilations', new Array<number>(s).fill(1));
   const group = readAttribute(ctx.node, 'group', 1);
   const pads = windowPads(ctx, inDims.slice(2), outDims.slice(2), kernel, strides, dilations);
+  // Stride 1: the transposed convolution is a convolution with the kernel flipped and its channel axes
+  // swapped within each group, padded by d·(k − 1) − p; the runtime's convolution kernels (depthwise
+  // ones especially) are much faster than its transposed convolution.
+  const backPads = pads.map((p, i) => dilations[i % s]! * (kernel[i % s]! - 1) - p);
+  if (strides.every((v) => v === 1) && backPads.every((p) => p >= 0)) {
+    const [M, perGroup] = wDims as [number, number];
+    const e = ctx.e;
+    const grouped = e.emit('Reshape', [w, e.ints([group, M / group, perGroup, ...kernel])]);
+    const swapped = e.emit('Transpose', [grouped], { perm: [0, 2, 1, ...kernel.map((_, i) => 3 + i)] });
+    const stacked = e.emit('Reshape', [swapped, e.ints([group * perGroup, M / group, ...kernel])]);
+    const spatialAxes = kernel.map((_, i) => 2 + i);
+    const flipped = e.emit('Slice', [stacked, e.ints(spatialAxes.map(() => -1)), e.ints(spatialAxes.map(() => -(2 ** 53))), e.ints(spatialAxes), e.ints(spatialAxes.map(() => -1))]);
+    return [e.emit('Conv', [gradOut(ctx), flipped], { dilations, group, kernel_shape: kernel, pads: backPads }), null, null];
+  }
   const geometry = transposeGeometry(inDims.slice(2), outDims.slice(2), kernel, strides, dilations, pads);
   const gx = ctx.e.emit('ConvTranspose', [gradOut(ctx), w], { strides, dilations, group, kernel_shape: kernel, pads: geometry.pads, output_padding: geometry.outputPadding });
   return [gx, null, null];
