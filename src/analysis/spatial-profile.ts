@@ -27,9 +27,12 @@ export class SpatialProfileAccumulator {
 
   /**
    * @param height H of the map; @param width W; @param cx, cy the centre (map-relative);
-   * @param rings number of rings (≥ 1).
+   * @param rings number of rings (≥ 1);
+   * @param outer the outer edge of the last ring (default: the largest pixel distance); pixels beyond it
+   *   count in the last ring. A shared edge (the map corner farthest from the centre) gives layers of
+   *   different resolution the same rings.
    */
-  constructor(private readonly channels: number, private readonly height: number, private readonly width: number, cx: number, cy: number, private readonly rings = 8) {
+  constructor(private readonly channels: number, private readonly height: number, private readonly width: number, cx: number, cy: number, private readonly rings = 8, outer?: number) {
     const n = height * width;
     this.ring = new Int32Array(n);
     const distance = new Float64Array(n);
@@ -41,6 +44,7 @@ export class SpatialProfileAccumulator {
         if (d > max) max = d;
       }
     }
+    if (outer !== undefined && outer > 0) max = outer;
     this.maxDistance = max;
     for (let p = 0; p < n; p++) this.ring[p] = max > 0 ? Math.min(rings - 1, Math.floor((distance[p]! / max) * rings)) : 0;
     this.diff2 = new Float64Array(rings);

@@ -39,4 +39,14 @@ describe('SpatialProfileAccumulator', () => {
     expect(rings[3]!.to).toBeCloseTo(Math.hypot(0.45, 0.45), 12);
     expect(rings[0]!.from).toBe(0);
   });
+
+  it('SpatialProfileAccumulator(…, outer): rings split [0, outer]; positions beyond it count in the last ring', () => {
+    const acc = new SpatialProfileAccumulator(1, 4, 4, 0.5, 0.5, 2, 2);
+    acc.add(new Float32Array(16).fill(1), new Float32Array(16).fill(2));
+    const rings = acc.result();
+    expect(rings.map((r) => [r.from, r.to])).toEqual([[0, 1], [1, 2]]);
+    // every pixel centre lies within 1 of the centre: all in the first ring
+    expect(rings[0]!.positions).toBe(16);
+    expect(Number.isNaN(rings[1]!.relativeChange)).toBe(true);
+  });
 });

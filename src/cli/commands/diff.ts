@@ -4,6 +4,8 @@ import { diffSnapshots } from '../../compare/diff-snapshots.js';
 import { nonFiniteFailure } from '../../compare/diff-verdict.js';
 import { type DiffOptions, type DiffReport, type SchemeComparison } from '../../compare/diff-types.js';
 import { diffToCsv, renderComparison, renderDiffReport, reportToJson } from '../../report/diff-table.js';
+import { renderSpatialProfiles } from '../../report/spatial-table.js';
+import { windowSpatialProfiles } from '../../compare/spatial-profiles.js';
 import { finiteNumber, nonNegativeInteger } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo, outputColumns } from '../io.js';
@@ -108,8 +110,10 @@ export function registerDiff(program: Command): void {
       }
       const single = 'verdict' in result && 'layers' in result && !('a' in result) ? (result as DiffReport) : null;
       if (opts.csv) replaceFile(opts.csv, diffToCsv(single ?? (result as SchemeComparison).a));
-      if (opts.json) io.stdout(reportToJson(result));
-      else io.stdout(single ? renderDiffReport(single, { width: outputColumns() }) : renderComparison(result as SchemeComparison, [modPath, opts.vs!], { width: outputColumns() }));
+      // a windowed modulation: the change by distance from the window's centre, per spatial layer below the site
+      const spatial = single ? await windowSpatialProfiles(typeof options.base === 'string' ? openSnapshot(options.base) : options.base, typeof options.mod === 'string' ? openSnapshot(options.mod) : options.mod) : null;
+      if (opts.json) io.stdout(reportToJson(spatial ? { ...result, spatialProfile: spatial } : result));
+      else io.stdout(`${single ? renderDiffReport(single, { width: outputColumns() }) : renderComparison(result as SchemeComparison, [modPath, opts.vs!], { width: outputColumns() })}${spatial ? renderSpatialProfiles(spatial, { width: outputColumns() }) : ''}`);
       // non-finite data: the report is printed (it shows where), but the run fails so no script takes it as an answer
       for (const [report, path] of single ? [[single, modPath] as const] : [[(result as SchemeComparison).a, modPath] as const, [(result as SchemeComparison).b, opts.vs!] as const]) {
         const failure = nonFiniteFailure(report, `diff ${basePath} ${path}`);

@@ -10,12 +10,13 @@
  * - the signature scatter (with a tuning table): each channel's activity ratio against its tuning rank for
  *   the attended category, with the least-squares line, at the site and below;
  * - for a windowed modulation, the spatial profile: relative change against distance from the window's
- *   centre, per spatial layer at or below the site (`analysis/spatial-profile.ts`, at most 64 stimuli).
+ *   centre, per spatial layer at or below the site (`compare/spatial-profiles.ts`, at most 64 stimuli).
  * `pairPictureData` collects the numbers (what `--json` prints); `pairPictureSections` draws them.
  */
 import { fitSignature } from '../../analysis/signature.js';
 import { rocCurve, type RocPoint } from '../../analysis/roc-curve.js';
-import { SpatialProfileAccumulator, type SpatialRing } from '../../analysis/spatial-profile.js';
+import type { SpatialRing } from '../../analysis/spatial-profile.js';
+import { windowSpatialProfiles } from '../../compare/spatial-profiles.js';
 import { rocAuc } from '../../analysis/roc.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
 import { readTuningTable } from '../../snapshot/tables.js';
@@ -81,17 +82,6 @@ async function stimulusActivation(snapshot: Snapshot, layer: string, index: numb
 function channelMeanMap(values: Float32Array, channels: number, plane: number): number[] {
   const out = new Array<number>(plane).fill(0);
   for (let c = 0; c < channels; c++) for (let p = 0; p < plane; p++) out[p] += values[c * plane + p]! / channels;
-  return out;
-}
-
-/** The first `limit` stimuli of a layer, [n][elements]. */
-async function firstStimuli(snapshot: Snapshot, layer: string, limit: number): Promise<Map<number, Float32Array>> {
-  const { elements } = snapshot.layerGeometry(layer);
-  const out = new Map<number, Float32Array>();
-  for await (const batch of snapshot.readLayer(layer)) {
-    for (let r = 0; r < batch.rows && out.size < limit; r++) if (batch.activation) out.set(batch.index[r]!, batch.activation.slice(r * elements, (r + 1) * elements));
-    if (out.size >= limit) break;
-  }
   return out;
 }
 
@@ -179,26 +169,8 @@ export async function pairPictureData(options: PairPictureOptions): Promise<Pair
     }
   }
 
-  // the spatial profile around the window's centre
-  let spatialProfile: PairPictureData['spatialProfile'] = null;
-  if (window) {
-    const cx = window.shape === 'box' ? (window.x0 + window.x1) / 2 : window.cx;
-    const cy = window.shape === 'box' ? (window.y0 + window.y1) / 2 : window.cy;
-    spatialProfile = [];
-    for (const layer of mapLayers.slice(0, 8)) {
-      const geometry = spatial(layer.shape)!;
-      const accumulator = new SpatialProfileAccumulator(geometry.channels, geometry.height, geometry.width, cx, cy, Math.min(8, Math.max(2, Math.floor(Math.min(geometry.height, geometry.width) / 2))));
-      const a = await firstStimuli(base, layer.name, 64);
-      const b = await firstStimuli(mod, layer.name, 64);
-      let used = 0;
-      for (const [index, values] of a) {
-        const other = b.get(index - base.firstIndex + mod.firstIndex);
-        if (!other) continue;
-        accumulator.add(values, other);
-        used++;
-      }
-      spatialProfile.push({ layer: layer.name, stimuli: used, rings: accumulator.result() });
-    }
-  }
+  // the spatial profile around the window's centre (compare/spatial-profiles.ts, as diff --json gives it)
+  const profiles = window ? await windowSpatialProfiles(base, mod) : null;
+  const spatialProfile: PairPictureData['spatialProfile'] = profiles ? profiles.layers : window ? [] : null;
   return { site, target, window, stimuli, featureMaps, roc, signature, spatialProfile };
 }
