@@ -21,6 +21,8 @@ import { TOOL_VERSION } from '../version.js';
 import { replaceFile } from '../disk/atomic-file.js';
 import { DEFAULT_SNAPSHOT_PARENT } from '../outputs/output-folder.js';
 import { inspectModel } from '../record/inspect-model.js';
+import { readNpyHeader } from '../stimuli/npy.js';
+import { openStimulusSource } from '../stimuli/source.js';
 import { arrayScript, mergeScript } from './batch-script.js';
 import { optionValue, parseJobLine, type JobLine } from './job-line.js';
 import { PLAN_FILE, PLAN_KIND, PLAN_VERSION, type ClusterPlan } from './plan-types.js';
@@ -115,9 +117,11 @@ export async function planClusterRun(options: ClusterPlanOptions): Promise<Clust
 
   // N must not exceed the items split, where they are known now (the stimuli of a given snapshot)
   const snapshot = job.kind === 'diff' || job.kind === 'tune' ? job.positionals[0] : job.kind === 'sense' ? optionValue(job, '--from') : undefined;
-  if (snapshot !== undefined) {
-    const count = stimulusCount(at(snapshot));
-    if (count !== null && count < tasks) throw new UsageError('E_CLUSTER_PLAN', `--tasks ${tasks}: ${snapshot} holds ${count} stimuli, fewer than the tasks (a shard must not be empty)`, { hint: `use --tasks ${count} or fewer` });
+  const stimuli = job.kind === 'record' && from === undefined ? optionValue(job, '--stimuli') : undefined;
+  const source = snapshot ?? stimuli;
+  if (source !== undefined) {
+    const count = snapshot !== undefined ? stimulusCount(at(snapshot)) : listedStimuli(at(stimuli!), optionValue(job, '--labels'), at);
+    if (count !== null && count < tasks) throw new UsageError('E_CLUSTER_PLAN', `--tasks ${tasks}: ${source} holds ${count} stimuli, fewer than the tasks (a shard must not be empty)`, { hint: `use --tasks ${count} or fewer` });
   }
 
   const memory = options.memory ?? 'auto';
@@ -224,6 +228,21 @@ function recordOutFolder(out: string, cwd: string): string {
 function stimulusCount(folder: string): number | null {
   const count = manifestOf(folder)?.stimuli?.count;
   return typeof count === 'number' && Number.isSafeInteger(count) ? count : null;
+}
+
+/**
+ * Stimuli a record job lists, or null when the listing cannot be read here (the task then says why).
+ * Only the listing is read (ids and labels), not the images.
+ */
+function listedStimuli(path: string, labels: string | undefined, at: (path: string) => string): number | null {
+  try {
+    // an array's stimuli are its first axis (its header alone says so); a folder or CSV is listed
+    if (path.toLowerCase().endsWith('.npy')) return readNpyHeader(path).shape[0] ?? null;
+    const preprocessing = { size: [1, 1] as [number, number], mean: [0, 0, 0], std: [1, 1, 1], bgr: false };
+    return openStimulusSource(path, { preprocessing, channels: 3, ...(labels !== undefined ? { labelsFile: labels === 'none' || labels === 'folders' ? labels : at(labels) } : {}) }).count;
+  } catch {
+    return null;
+  }
 }
 
 /** The few manifest fields a plan looks at, or null when the manifest cannot be read. */

@@ -130,6 +130,7 @@ describe('planClusterRun', () => {
     writeFileSync(join(dir, 'existing.arrow'), 'a table of an earlier run');
     await expect(planClusterRun({ run: join(dir, 'run-t3'), tasks: 2, job: ['tune', join(dir, 'base'), '--out', join(dir, 'existing.arrow')] })).rejects.toThrow(/exists already/);
     await expect(planClusterRun({ run: join(dir, 'run-t4'), tasks: 21, job })).rejects.toThrow(/holds 20 stimuli, fewer than the tasks/);
+    await expect(planClusterRun({ run: join(dir, 'run-t4b'), tasks: 21, job: ['record', MODEL, ...stimuli, '--out', join(dir, 'x')] })).rejects.toThrow(/stimuli\.npy holds 20 stimuli, fewer than the tasks/);
     await expect(planClusterRun({ run: join(dir, 'run-t5'), tasks: 2, job, time: '4 hours' })).rejects.toThrow(/not a Slurm time limit/);
     await expect(planClusterRun({ run: join(dir, 'run-t6'), tasks: 2, job, memory: 'lots' })).rejects.toThrow(/--mem "lots" is not a memory size/);
     await expect(planClusterRun({ run: join(dir, 'run\nt8'), tasks: 2, job })).rejects.toThrow(/contains a line break/);
