@@ -11,6 +11,7 @@
  */
 import { closeSync, openSync, readSync, readdirSync, statSync } from 'node:fs';
 import { basename, dirname, extname, join } from 'node:path';
+import { UsageError } from '../errors.js';
 
 /** What a CSV's header says it is. */
 export type CsvRole = 'listing' | 'rows' | 'foreign-labels' | 'other';
@@ -34,7 +35,12 @@ export function csvRole(path: string): { role: CsvRole; header: string } {
 }
 
 function readFirstLine(path: string): string {
-  const fd = openSync(path, 'r');
+  let fd: number;
+  try {
+    fd = openSync(path, 'r');
+  } catch (error) {
+    throw new UsageError('E_STIMULI_LABELS', `cannot read ${path} to see whether it is a labels file: ${(error as Error).message}`, { hint: 'make it readable, or move it out of the stimuli folder' });
+  }
   try {
     const buffer = Buffer.alloc(HEADER_BYTES);
     const n = readSync(fd, buffer, 0, HEADER_BYTES, 0);

@@ -15,6 +15,7 @@ import {
 } from '../../stimuli/demo/index.js';
 import { composeCuedSets, composeStimulusSet, type CompositeLayout } from '../../stimuli/compose/index.js';
 import { parseFit, parseInterpolation, parseSize } from '../../stimuli/preprocess.js';
+import { assertApartFromInputs } from '../../outputs/output-folder.js';
 import { cliIo } from '../io.js';
 
 interface ComposeFlags {
@@ -60,6 +61,8 @@ export function registerStimuli(program: Command): void {
     .option('--interpolation <kernel>', 'resizing kernel: nearest, bilinear, bicubic or lanczos3', 'lanczos3')
     .option('--labels <csv>', 'for a folder: a path,label CSV to read it through, or folders to label by subfolder')
     .action(async (flags: ComposeFlags) => {
+      // the set may not be written into (or over) the images it is composed from
+      assertApartFromInputs(flags.out, '--out', [{ option: '--from', path: flags.from }, { option: '--labels', path: flags.labels }]);
       const common = {
         from: flags.from,
         ...(flags.labels !== undefined ? { labels: flags.labels } : {}),

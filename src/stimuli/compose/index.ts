@@ -93,7 +93,9 @@ export async function composeStimulusSet(options: ComposeOptions): Promise<Compo
   const plan = planComposites(createRandom(options.seed).fork('compose'), { imagesPerCategory: new Map(categories.map((c) => [c, byCategory.get(c)!.length])), count: options.count, slots, cued });
 
   await prepareFolder(options.out);
+  // decoded cells are kept for reuse up to about 256 MB, oldest dropped first (a large source would not fit)
   const cells = new Map<number, Uint8Array>();
+  const maxCells = Math.max(16, Math.floor((256 * 2 ** 20) / (cell[0] * cell[1] * 3)));
   const cellOf = async (slot: PlannedSlot): Promise<{ index: number; pixels: Uint8Array }> => {
     const index = byCategory.get(slot.category)![slot.image]!;
     let pixels = cells.get(index);
@@ -104,6 +106,7 @@ export async function composeStimulusSet(options: ComposeOptions): Promise<Compo
         throw new UsageError('E_STIMULI_DECODE', `cannot decode image ${source.ids[index]} of --from ${options.from}: ${(error as Error).message.split('\n')[0]}`);
       }
       cells.set(index, pixels);
+      if (cells.size > maxCells) cells.delete(cells.keys().next().value!);
     }
     return { index, pixels };
   };

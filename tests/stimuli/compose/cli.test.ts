@@ -1,4 +1,4 @@
-import { readFileSync } from 'node:fs';
+import { existsSync, readFileSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { runSonde, tempFolder } from '../../helpers/onnx-builder.js';
@@ -27,14 +27,16 @@ describe('sonde stimuli compose', () => {
     }
   });
 
-  it('sonde stimuli compose refuses a bad layout, a bad weight and an unknown cue in one line (exit 2)', async () => {
+  it('sonde stimuli compose refuses a bad layout, a bad weight, an unknown cue and an --out inside --from in one line (exit 2)', async () => {
     const dir = tempFolder('sonde-compose-cli-');
     for (const [args, pattern] of [
       [['--layout', 'mosaic'], /--layout "mosaic" is not a layout/],
       [['--weight', '1.5'], /--weight 1\.5 must lie strictly between 0 and 1/],
       [['--cued', 'rnig'], /--cued "rnig" is not a category .*closest: "ring"/],
+      [['--out', join(GLYPHS, 'ring', 'inside')], /--out .* lies inside --from/],
     ] as const) {
       const result = await runSonde(['stimuli', 'compose', '--from', GLYPHS, '--out', join(dir, 'x'), '--count', '4', '--seed', '1', ...args]);
+      expect(existsSync(join(GLYPHS, 'ring', 'inside'))).toBe(false);
       expect(result.code, result.stderr).toBe(2);
       expect(result.stderr.trim().split('\n')).toHaveLength(1);
       expect(result.stderr).toMatch(pattern);
