@@ -25,3 +25,13 @@ export function finiteNumber(value: string): number {
 export function megabytes(bytes: number): string {
   return `${(bytes / 1e6).toFixed(bytes < 1e5 ? 3 : 1)} MB`;
 }
+
+/**
+ * commander parser for site lists, the one convention of every site option: comma-separated names, and
+ * the option may be repeated (`--sites a,b --sites c` = a, b, c). An empty item is refused.
+ */
+export function siteList(value: string, previous: string[] | undefined): string[] {
+  const items = value.split(',').map((s) => s.trim());
+  if (items.some((s) => s === '')) throw new InvalidArgumentError(`"${value}" has an empty site name; separate site tensors with commas, e.g. a,b.`);
+  return [...(previous ?? []), ...items];
+}

@@ -122,7 +122,8 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
       ci = [interval!.low, interval!.high];
     }
     let signature: LayerDiffRow['signature'] = null;
-    if (layer.tuning) {
+    // a signed layer (negative channel means) has no meaningful channel ratios, so no signature either
+    if (layer.tuning && !metrics.signed) {
       const means = layer.accumulator.channelMeans();
       const fit = fitSignature({ baseChannelMeans: means.base, modChannelMeans: means.mod, stimuli: means.stimuli, channels: means.channels, tuning: layer.tuning, tolerance, ...(resamples > 0 ? { bootstrap: { resamples, seed: `${seed}:sig:${layer.name}` } } : {}) });
       const { normalisedRank: _r, ratio: _q, ...rest } = fit;

@@ -235,7 +235,7 @@ function comparisonLines(c: SizeMatchedComparison, count: number, seed: number, 
     const short = site.includes('+') ? `all ${site.split('+').length} sites at once (${(100 * rows[0]!.size).toFixed(1)} % each)` : site;
     lines.push(`${short}: ${rows.map((e) => `${e.scheme} ${aucText(e.aucChange)}${e.fractionOfCeiling !== null ? ` (${(100 * e.fractionOfCeiling).toFixed(0)} % of ceiling)` : ''}${e.fitSetAucChange !== null ? ` (${signed(e.fitSetAucChange, 3)} on the fitting set)` : ''}`).join('; ')}`);
   }
-  for (const v of c.versusShuffled) lines.push(`tuning − shuffled at ${v.site.includes('+') ? 'all sites' : v.site}: ΔAUC ${aucText(v.difference)}${v.difference.low > 0 ? ' (interval above 0)' : ' (interval includes 0 or lies below)'}`);
+  for (const v of c.versusShuffled) lines.push(`tuning − shuffled at ${v.site.includes('+') ? 'all sites' : v.site}: ΔAUC ${aucText(v.difference)}${intervalSide(v.difference)}`);
   const head = headlineOf(c);
   const row = c.effects.find((e) => e.site === head.site && e.scheme === head.scheme)!;
   lines.push(`criterion-shift reference for ${row.scheme} at ${row.site.includes('+') ? 'all sites' : row.site}: at the fixed threshold the hit rate changes by ${signed(row.hitRatePp, 1)} pp with false alarms ${signed(row.falseAlarmRatePp, 1)} pp; a constant shift of the readout giving the same false alarms changes it by ${signed(row.criterionShiftHitRatePp, 1)} pp and leaves the ROC area unchanged`);
@@ -257,4 +257,11 @@ export function attentionSizedCell(sweep: SweepResult, site: string): { strength
 
 function json(value: unknown): string {
   return `${JSON.stringify(value, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : ArrayBuffer.isView(v) ? Array.from(v as Float64Array) : v), 2)}\n`;
+}
+
+/** Where a 95 % interval lies against 0, in words: " (interval above 0)", " (interval below 0)" or " (interval includes 0)". */
+export function intervalSide(interval: { low: number; high: number }): string {
+  if (interval.low > 0) return ' (interval above 0)';
+  if (interval.high < 0) return ' (interval below 0)';
+  return ' (interval includes 0)';
 }

@@ -56,6 +56,9 @@ export function selectLayers<T extends SelectableLayer>(layers: readonly T[], se
       }
     } else {
       matched = layers.filter((l) => l.name === term);
+      if (matched.length === 0 && term.includes(',') && term.split(',').every((part) => names.includes(part.trim()))) {
+        throw new UsageError('E_SELECTOR', `--layers "${term}": several tensors are joined with +, not commas`, { hint: `write --layers '${term.split(',').map((p) => p.trim()).join('+')}'` });
+      }
       if (matched.length === 0) {
         throw new UsageError('E_SELECTOR', `--layers: tensor "${term}" not found (model has ${layers.length} recordable tensors)`, {
           hint: closestHint(term, names) || undefined,

@@ -211,7 +211,7 @@ class Resolver {
     const lookup = this.context.tables?.[kind];
     const field = 'target';
     if (lookup === undefined) {
-      this.fail(field, `needs a ${kind} table for ${JSON.stringify(site)} and none was given; make one with \`${TABLE_COMMANDS[kind]}\``);
+      this.fail(field, `needs a ${kind} table for ${JSON.stringify(site)} and none was given: pass it with --${kind} TABLE.arrow (sonde record, sweep), or make one with \`${TABLE_COMMANDS[kind]}\``);
     }
     const categories = this.context.categories ?? [];
     if (categories.length === 0) {

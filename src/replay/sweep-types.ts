@@ -64,6 +64,13 @@ export interface SweepCell {
     auc: number;
     /** Hit rate of the modulated ROC at the baseline's false-alarm rate minus the baseline ROC's there, in pp. */
     matchedHitRatePp: number;
+    /** 95 % percentile bootstrap interval over stimuli of `auc` (null in cells of older sweeps). */
+    aucCi?: [number, number] | null;
+    /** The same for `dPrime`. */
+    dPrimeCi?: [number, number] | null;
+    /** The change in each of the sweep's shared resamples (sweep-intervals.ts), for intervals of means over categories. */
+    aucDraws?: number[];
+    dPrimeDraws?: number[];
   };
   /**
    * Criterion-shift-only control: the baseline scores plus the constant shift that reproduces the modulated
@@ -87,6 +94,8 @@ export interface SweepBest {
   aucChange: number;
   accuracyPp: number;
   siteActivityChange: number;
+  /** 95 % bootstrap interval over stimuli of the mean change in the ranking measure (null in sweeps of older builds). */
+  ci?: [number, number] | null;
 }
 
 /** Calibration of one site and scheme against a target (`--match`). */
@@ -123,6 +132,8 @@ export interface SweepResult {
   band: { low: number; high: number; source: string };
   /** Statistical comparison of the tuning scheme with the shuffled control across categories. */
   control: { meanTuning: number; meanShuffled: number; difference: number; pValue: number; test: string; measure: SweepMeasure } | null;
+  /** What could make the figures mislead: unbalanced cued categories, a control test that cannot reach significance. Also in `summary`. */
+  warnings?: string[];
   summary: string;
   /** Which snapshot the tables' gains came from and which detection was measured on; `heldOut` says whether they differ (see held-out.ts). */
   evaluation?: SweepEvaluation;

@@ -20,7 +20,7 @@ import type { ResolveContext } from '../modulation/types.js';
 import { createNetworkSession } from '../session/network-session.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { writeSweepTable } from '../snapshot/sweep-table.js';
-import { chooseThreshold, parseDetectionTask } from '../compare/diff-task.js';
+import { chooseThreshold, degenerateThreshold, parseDetectionTask } from '../compare/diff-task.js';
 import { readoutOf } from '../compare/diff-collect.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from '../record/record-modulated.js';
@@ -32,10 +32,11 @@ import { ALL_ACTIVATIONS, chooseSites } from './sense-plan.js';
 import { SWEEP_SCHEMES, type MatchTarget, type SweepCell, type SweepDepthPoint, type SweepDetection, type SweepMeasure, type SweepResult, type SweepScheme } from './sweep-types.js';
 import { loadModulationTables } from './modulation-tables.js';
 import { assertSameSweepInputs, isSweepInputsHeader, sweepInputsDigest, sweepInputsHeader, sweepInputsOf, type SweepInputs } from './sweep-inputs.js';
-import { assertApartFromInputs, prepareSweepFolder } from '../outputs/output-folder.js';
+import { assertApartFromInputs, prepareSweepFolder, resolveOutFolder } from '../outputs/output-folder.js';
 import { replaceFile } from '../disk/atomic-file.js';
 import { describeEvaluation } from './held-out.js';
 import { summarise } from './sweep-summary.js';
+import { percentileInterval, readoutDraws, sweepResampling } from './sweep-intervals.js';
 
 /** Options of `sweepModulations`. */
 export interface SweepOptions {
@@ -124,6 +125,10 @@ interface CategoryBase {
   base: ScoreDetection;
   scores: Float64Array;
   auc: number;
+  /** The baseline answers the same for every display at the threshold (`degenerateThreshold`): no d′ or criterion. */
+  degenerate: boolean;
+  /** ROC area and d′ of the baseline in every resample of `resampling` (sweep-intervals.ts). */
+  draws: { auc: Float64Array; dPrime: Float64Array };
 }
 
 /**
@@ -136,6 +141,8 @@ interface CategoryBase {
  */
 export async function sweepModulations(options: SweepOptions): Promise<SweepResult> {
   const started = performance.now();
+  // --out NAME without a slash is snapshots/NAME, as for every folder Sonde writes
+  options = { ...options, out: resolveOutFolder(options.out) };
   // before anything is read or written: the output must be none of the inputs (nor contain or lie inside one)
   assertApartFromInputs(options.out, '--out', [{ option: 'MODEL', path: typeof options.model === 'string' ? options.model : options.model.path, file: true }, { option: '--from', path: typeof options.from === 'string' ? options.from : options.from.folder }, { option: '--tuning', path: options.tuning, file: true }, { option: '--sensitivity', path: options.sensitivity, file: true }]);
   const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
@@ -234,6 +241,8 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
   const units = baseline.layerGeometry(readout.layer).channels;
   const baseScores = await baseline.readChannelMeans(readout.layer);
   const perCategory = new Map<string, CategoryBase>();
+  // one set of bootstrap resamples of the stimuli for every cell (intervals of cells and of their means)
+  const resampling = sweepResampling(n);
   for (const category of categories) {
     const unit = readout.kinds.indexOf(category);
     const scores = new Float64Array(n);
@@ -243,7 +252,8 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
       signal[i] = baseline.stimuli.labels[i]!.includes(category) ? 1 : 0;
     }
     const threshold = chooseThreshold(options.threshold ?? 'auto', readout.threshold, scores, signal);
-    perCategory.set(category, { unit, signal, threshold, base: detectFromScores(scores, signal, threshold), scores, auc: rocAuc(scores, signal) });
+    const base = detectFromScores(scores, signal, threshold);
+    perCategory.set(category, { unit, signal, threshold, base, degenerate: degenerateThreshold(base, threshold) !== null, scores, auc: rocAuc(scores, signal), draws: readoutDraws(scores, signal, threshold, resampling) });
   }
 
   const context: ResolveContext = { sites: siteShapes(inspection.layers), siteNames: inspection.layers.map((l) => l.name), categories: tables?.categories ?? categories, ...(tables ? { tables: tables.tables } : {}) };
@@ -289,7 +299,7 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
     const chunks = Math.ceil(vectorIndex.size / perRun);
     for (let chunk = 0; chunk < chunks; chunk++) {
       const group = cells.filter((_, i) => chunkOf[i] === chunk);
-      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)! });
+      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)!, resampling });
       const fd = openSync(progressPath, 'a');
       try {
         for (const cell of results) {
@@ -347,6 +357,7 @@ interface GroupRun {
   tuningFor: (layer: string, category: string) => Float64Array | undefined;
   threads: number;
   weights: Float64Array;
+  resampling: Float64Array[];
 }
 
 /** One pass over the baseline's stimuli evaluating a group of gain vectors at one site. */
@@ -458,6 +469,10 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
     const mod = detectFromScores(scores[c]!, info.signal, info.threshold);
     const modAuc = rocAuc(scores[c]!, info.signal);
     const readouts = readoutChanges({ scores: info.scores, signal: info.signal, threshold: info.threshold, detection: info.base }, scores[c]!, mod.falseAlarmRate);
+    const draws = readoutDraws(scores[c]!, info.signal, info.threshold, run.resampling);
+    const round = (v: number) => (Number.isFinite(v) ? Math.round(v * 1e5) / 1e5 : Number.NaN);
+    const aucDraws = Array.from(draws.auc, (v, r) => round(v - info.draws.auc[r]!));
+    const dPrimeDraws = Array.from(draws.dPrime, (v, r) => (info.degenerate ? Number.NaN : round(v - info.draws.dPrime[r]!)));
     let activity = 0;
     let weight = 0;
     for (let k = 0; k < C; k++) {
@@ -470,18 +485,23 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
       strength: cell.strength,
       category: cell.category,
       seed: cell.seed,
-      base: detection(info.base, info.auc),
-      mod: detection(mod, modAuc),
+      base: detection(info.base, info.auc, info.degenerate),
+      mod: detection(mod, modAuc, info.degenerate),
       change: {
-        dPrime: mod.dPrime - info.base.dPrime,
-        criterion: mod.criterion - info.base.criterion,
+        // a threshold at which the baseline answers the same for every display gives no d′ (as in diff)
+        dPrime: info.degenerate ? Number.NaN : mod.dPrime - info.base.dPrime,
+        criterion: info.degenerate ? Number.NaN : mod.criterion - info.base.criterion,
         hitRatePp: 100 * (mod.hitRate - info.base.hitRate),
         falseAlarmRatePp: 100 * (mod.falseAlarmRate - info.base.falseAlarmRate),
         accuracyPp: 100 * (mod.accuracy - info.base.accuracy),
         auc: modAuc - info.auc,
         matchedHitRatePp: readouts.matchedHitRatePp,
+        aucCi: percentileInterval(aucDraws),
+        dPrimeCi: percentileInterval(dPrimeDraws),
+        aucDraws,
+        dPrimeDraws,
       },
-      criterionControl: readouts.criterionControl,
+      criterionControl: info.degenerate ? { ...readouts.criterionControl, dPrime: Number.NaN } : readouts.criterionControl,
       siteActivityChange: weight > 0 ? activity / weight : Number.NaN,
     };
     if (run.depthProfile) {
@@ -508,6 +528,6 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   });
 }
 
-function detection(s: ScoreDetection, auc: number): SweepDetection {
-  return { hitRate: s.hitRate, falseAlarmRate: s.falseAlarmRate, dPrime: s.dPrime, criterion: s.criterion, accuracy: s.accuracy, auc };
+function detection(s: ScoreDetection, auc: number, degenerate: boolean): SweepDetection {
+  return { hitRate: s.hitRate, falseAlarmRate: s.falseAlarmRate, dPrime: degenerate ? Number.NaN : s.dPrime, criterion: degenerate ? Number.NaN : s.criterion, accuracy: s.accuracy, auc };
 }

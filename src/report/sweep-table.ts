@@ -42,7 +42,7 @@ export function renderSweep(result: SweepResult, options: RenderSweepOptions = {
     }
     return fitTable(['site', 'scheme', ...result.strengths.map((s) => `β=${s}`)], rows, { width, keyColumns: 2 });
   };
-  out.push(wrap(`mean change in ROC area (AUC, threshold-free) over ${result.categories.length} cued categories:`), grid((c) => c.change.auc, 3));
+  out.push(wrap(`mean change in ROC area (AUC, threshold-free) over ${result.categories.length} cued ${result.categories.length === 1 ? 'category' : 'categories'}:`), grid((c) => c.change.auc, 3));
   const renamed = result.sites.filter((s) => site(s) !== s);
   if (renamed.length > 0) out.push(wrap(`sites: ${renamed.map((s) => `${site(s)} = ${s}`).join('; ')}`));
   out.push(wrap('mean change in d′ at the threshold fixed on the baseline (moves with the criterion too):'), grid((c) => c.change.dPrime, 2));

@@ -32,28 +32,38 @@ describe('sweepModulations', () => {
     expect(zero.length).toBe(3 * (1 + 1 + 2)); // 3 categories × (tuning + uniform + 2 shuffled seeds)
     for (const cell of zero) {
       expect(cell.mod).toEqual(cell.base);
-      expect(cell.change.dPrime).toBe(0);
+      // NaN where the baseline answers the same for every display at the threshold (no d′ there, as in diff)
+      expect(cell.change.dPrime).toBe(Number.isNaN(cell.base.dPrime) ? Number.NaN : 0);
       expect(cell.change.auc).toBe(0);
       expect(cell.change.matchedHitRatePp).toBe(0);
       // no change in false alarms: the criterion-only control is the baseline itself
-      expect(cell.criterionControl).toEqual({ shift: 0, hitRatePp: 0, dPrime: 0 });
+      expect(cell.criterionControl).toEqual({ shift: 0, hitRatePp: 0, dPrime: Number.isNaN(cell.base.dPrime) ? Number.NaN : 0 });
       expect(cell.siteActivityChange).toBe(0);
+      // every resample reproduces the baseline too: a zero-width interval at 0
+      expect(cell.change.aucCi).toEqual([0, 0]);
     }
     expect(result.schemes).toEqual(['tuning', 'uniform', 'shuffled']);
     // verdicts rank by the threshold-free measure by default and say so
     expect(result.measure).toBe('auc');
     expect(result.control!.measure).toBe('auc');
     expect(result.summary).toMatch(/by ROC area \(threshold-free\)/);
+    // the best cell is never strength 0, and only a mean whose 95 % interval lies above 0 (else "none")
     for (const best of result.best) {
-      for (const cell of result.cells.filter((c) => c.scheme !== 'shuffled')) {
-        const same = result.cells.filter((c) => c.scheme === cell.scheme && c.strength === cell.strength);
-        expect(best.aucChange).toBeGreaterThanOrEqual(same.reduce((a, c) => a + c.change.auc, 0) / same.length - 1e-15);
+      if (best.scheme === 'none') {
+        expect(best.strength).toBeNaN();
+        continue;
       }
+      expect(best.strength).not.toBe(0);
+      expect(best.ci![0]).toBeGreaterThan(0);
+    }
+    for (const cell of result.cells.filter((c) => c.strength !== 0)) {
+      expect(cell.change.aucCi![0]).toBeLessThanOrEqual(cell.change.auc + 1e-9);
+      expect(cell.change.aucCi![1]).toBeGreaterThanOrEqual(cell.change.auc - 1e-9);
     }
     // the control in d′ is the mean Δd′ of the tuning cells at non-zero strength (one site, so a plain mean per category)
-    const byDPrime = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], strengths: [0, 0.5], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), out: join(dir, 'sw0-dprime'), threads: 1, controlSeeds: 2, measure: 'dprime' });
+    const byDPrime = await sweepModulations({ model, from: join(dir, 'base'), sites: ['relu1'], strengths: [0, 0.5], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), out: join(dir, 'sw0-dprime'), threads: 1, controlSeeds: 2, measure: 'dprime', threshold: 'best' });
     expect(byDPrime.control!.measure).toBe('dprime');
-    const tuned = byDPrime.cells.filter((c) => c.scheme === 'tuning' && c.strength !== 0);
+    const tuned = byDPrime.cells.filter((c) => c.scheme === 'tuning' && c.strength !== 0 && Number.isFinite(c.change.dPrime));
     expect(byDPrime.control!.meanTuning).toBeCloseTo(tuned.reduce((a, c) => a + c.change.dPrime, 0) / tuned.length, 12);
     const tunedAuc = result.cells.filter((c) => c.scheme === 'tuning' && c.strength !== 0);
     expect(result.control!.meanTuning).toBeCloseTo(tunedAuc.reduce((a, c) => a + c.change.auc, 0) / tunedAuc.length, 12);
@@ -69,13 +79,15 @@ describe('sweepModulations', () => {
     const diff = await diffSnapshots({ base: join(dir, 'base'), mod: mod.folder, task: 'detect:beta', bootstrap: 0 });
     expect(cell.mod.hitRate).toBe(diff.task!.mod.hitRate);
     expect(cell.mod.falseAlarmRate).toBe(diff.task!.mod.falseAlarmRate);
-    expect(cell.change.dPrime).toBeCloseTo(diff.task!.change.dPrime, 12);
+    if (Number.isNaN(diff.task!.change.dPrime)) expect(cell.change.dPrime).toBeNaN();
+    else expect(cell.change.dPrime).toBeCloseTo(diff.task!.change.dPrime, 12);
     const category = diff.task!.categories[0]!;
     expect(cell.base.auc).toBeCloseTo(category.auc.base, 12);
     expect(cell.mod.auc).toBeCloseTo(category.auc.mod, 6);
     expect(cell.change.matchedHitRatePp).toBeCloseTo(category.matchedHitRatePp, 9);
     expect(cell.criterionControl.hitRatePp).toBeCloseTo(category.criterionControl.hitRatePp, 9);
-    expect(cell.criterionControl.dPrime).toBeCloseTo(category.criterionControl.dPrime, 9);
+    if (Number.isNaN(category.criterionControl.dPrime)) expect(cell.criterionControl.dPrime).toBeNaN();
+    else expect(cell.criterionControl.dPrime).toBeCloseTo(category.criterionControl.dPrime, 9);
     for (const point of cell.depthProfile!) {
       const row = diff.layers.find((l) => l.name === point.layer)!;
       expect(point.relativeChange, point.layer).toBeCloseTo(row.relativeChange, 6);

@@ -32,7 +32,7 @@ export function registerLayers(program: Command): void {
       const defaults = inspection.layers.filter((l) => l.default);
       const bytes = (list: typeof defaults) => list.reduce((s, l) => s + l.elements * 4, 0);
       io.stdout(
-        `${inspection.layers.length} recordable tensors (${defaults.length} by default); activations per stimulus: ${megabytes(bytes(defaults))} default, ${megabytes(bytes(inspection.layers))} all; ${inspection.model.parameterCount.toLocaleString('en-US')} parameters; input ${inspection.input.name} [${inspection.input.shape.join(', ')}]\n`,
+        `${inspection.layers.length} recordable tensors (${defaults.length} by default); activations per stimulus: ${megabytes(bytes(defaults))} default, ${megabytes(bytes(inspection.layers))} all; ${inspection.model.parameterCount.toLocaleString('en-US')} parameters; data input "${inspection.input.name}", shape [${inspection.input.shape.join(', ')}]\n`,
       );
       const skipped = describeSkipped(inspection);
       if (skipped) io.stdout(`${skipped}\n`);

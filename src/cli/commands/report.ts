@@ -26,7 +26,7 @@ export function registerReport(program: Command): void {
       const io = cliIo();
       const result = await writeHtmlReport({ inputs, out: opts.out, ...(opts.force ? { force: true } : {}), ...(opts.title !== undefined ? { title: opts.title } : {}) });
       const kinds = result.inputs.map((i) => i.kind).join(', ');
-      io.stdout(`wrote ${displayPath(result.path)} (${(result.bytes / 1024).toFixed(0)} KiB): ${result.charts} charts, ${result.sections.length} sections, from ${result.inputs.length} inputs (${kinds})\n`);
+      io.stdout(`wrote ${displayPath(result.path)} (${(result.bytes / 1024).toFixed(0)} KiB): ${result.charts} chart${result.charts === 1 ? '' : 's'}, ${result.sections.length} section${result.sections.length === 1 ? '' : 's'}, from ${result.inputs.length} input${result.inputs.length === 1 ? '' : 's'} (${kinds})\n`);
       const verbose = command.optsWithGlobals<{ verbose?: boolean }>().verbose === true;
       if (verbose) for (const warning of result.warnings) io.stderr(`sonde: chart warning: ${warning}\n`);
     });

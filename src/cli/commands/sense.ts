@@ -6,14 +6,13 @@
  */
 import Table from 'cli-table3';
 import type { Command } from 'commander';
-import { InvalidArgumentError } from 'commander';
 import { UsageError } from '../../errors.js';
 import { displayPath } from '../../record/record-snapshot.js';
 import { ALL_ACTIVATIONS } from '../../replay/sense-plan.js';
 import { DEFAULT_OFFSET_STEP, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, defaultStep, DEFAULT_WARN_RATIO, SENSE_METHODS, type SenseMethod, type SenseOptions } from '../../replay/sense-types.js';
 import { senseSites } from '../../replay/sense.js';
 import { parseChannelList, parseShape } from '../../stimuli/preprocess.js';
-import { nonNegativeInteger, positiveInteger } from '../options.js';
+import { nonNegativeInteger, positiveInteger, siteList } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo } from '../io.js';
 import { sensePartial } from '../../replay/sense-partial.js';
@@ -25,6 +24,7 @@ interface SenseCliOptions {
   labels?: string;
   from?: string;
   site?: string[];
+  sites?: string[];
   readout?: string;
   kind: string;
   step?: string;
@@ -50,7 +50,8 @@ export function registerSense(program: Command): void {
     .command('sense')
     .description('derivative of each readout category with respect to a gain (or offset) on each channel of a site: exact, by gradients compiled into the ONNX graph (default), or by finite differences (--method richardson|secant)')
     .argument('<model>', 'ONNX model file')
-    .option('--site <tensor>', `site tensor (repeat for several), or ${ALL_ACTIVATIONS}`, collect)
+    .option('--sites <list>', `site tensors, comma-separated (the option may be repeated), or ${ALL_ACTIVATIONS}`, siteList)
+    .option('--site <tensor>', 'the same as --sites', siteList)
     .option('--out <file.arrow>', 'write the sensitivity table here (required unless --partial; an existing file only with --force)')
     .option('--force', 'replace an existing --out file')
     .option('--stimuli <source>', 'class-folder of images, a path,label CSV, or a float32 .npy [N,C,H,W] (optional with --from)')
@@ -76,7 +77,8 @@ export function registerSense(program: Command): void {
       if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });
       if (opts.partial !== undefined && opts.out !== undefined) throw new UsageError('E_PARTIAL', '--partial writes statistics only; --out applies when the parts are merged');
       if (opts.partial === undefined && opts.out === undefined) throw new UsageError('E_USAGE', 'sonde sense needs --out FILE.arrow (where the sensitivity table goes), or --partial FILE.json with --shard');
-      if (opts.site === undefined || opts.site.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --site TENSOR (or --site ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
+      const sites = [...(opts.sites ?? []), ...(opts.site ?? [])];
+      if (sites.length === 0) throw new UsageError('E_SENSE_SITE', `sonde sense needs --sites TENSOR[,TENSOR…] (or --sites ${ALL_ACTIVATIONS})`, { hint: 'list the candidates with `sonde layers MODEL`' });
       if (opts.kind !== 'gain' && opts.kind !== 'offset') throw new UsageError('E_SENSE_KIND', `--kind must be "gain" or "offset", got "${opts.kind}"`);
       if (!(SENSE_METHODS as readonly string[]).includes(opts.method)) throw new UsageError('E_SENSE_METHOD', `--method must be ${SENSE_METHODS.join(' or ')}, got "${opts.method}"`);
       const method = opts.method as SenseMethod;
@@ -85,11 +87,12 @@ export function registerSense(program: Command): void {
         throw new UsageError('E_SENSE_STEP', `--step ${JSON.stringify(opts.step)} is not a positive number`, { hint: `use a step between 1e-3 and 1e-2 for float32 networks (default ${defaultStep(opts.kind)} for --kind ${opts.kind})` });
       }
       const bar = createProgressBar('sense');
+      const overall = acrossSites(bar, sites.includes(ALL_ACTIVATIONS) ? null : sites.length);
       let result;
       try {
         const senseOptions: SenseOptions = {
           model: modelPath,
-          site: opts.site,
+          site: sites,
           kind: opts.kind,
           step,
           method,
@@ -107,7 +110,7 @@ export function registerSense(program: Command): void {
           ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
           ...(opts.std ? { std: parseChannelList(opts.std, 0, '--std') } : {}),
           ...(opts.bgr ? { bgr: true } : {}),
-          onProgress: (p: { site: string; rowsDone: number; rowsTotal: number }) => bar.update(p.rowsDone, p.rowsTotal, p.site),
+          onProgress: (p: { site: string; rowsDone: number; rowsTotal: number }) => overall.update(p),
         };
         if (opts.partial !== undefined) {
           const shard = opts.shard !== undefined ? parseShard(opts.shard) : { index: 1, count: 1 };
@@ -145,7 +148,28 @@ export function registerSense(program: Command): void {
     });
 }
 
-function collect(value: string, previous: string[] | undefined): string[] {
-  if (value.trim() === '') throw new InvalidArgumentError('names no tensor.');
-  return [...(previous ?? []), value];
+/**
+ * One bar over all sites: rows done so far at every site, of a total that adds the finished sites' rows, the
+ * current site's and (when the site count is known) as many again for each site still to come; the
+ * detail names the site and its place ("site 2/3").
+ */
+export function acrossSites(bar: { update(done: number, total: number, detail?: string): void }, siteCount: number | null): { update(p: { site: string; rowsDone: number; rowsTotal: number }): void } {
+  let current = '';
+  let index = 0;
+  let finished = 0;
+  let lastTotal = 0;
+  return {
+    update(p) {
+      if (p.site !== current) {
+        if (current !== '') {
+          finished += lastTotal;
+          index++;
+        }
+        current = p.site;
+      }
+      lastTotal = p.rowsTotal;
+      const ahead = siteCount === null ? 0 : Math.max(0, siteCount - index - 1) * p.rowsTotal;
+      bar.update(finished + Math.min(p.rowsDone, p.rowsTotal), finished + p.rowsTotal + ahead, `${p.site} (site ${index + 1}${siteCount === null ? '' : `/${siteCount}`})`);
+    },
+  };
 }

@@ -1,15 +1,17 @@
 import type { Command } from 'commander';
 import { UsageError } from '../../errors.js';
 import { parseShard } from '../../record/shard.js';
+import { displayPath } from '../../record/record-snapshot.js';
+import { resolveOutFolder } from '../../outputs/output-folder.js';
 import { MAX_SWEEP_CELLS, parseSweepMeasure, sweepModulations } from '../../replay/sweep.js';
 import { renderSweep } from '../../report/sweep-table.js';
-import { nonNegativeInteger, positiveInteger } from '../options.js';
+import { nonNegativeInteger, positiveInteger, siteList } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo, outputColumns } from '../io.js';
 
 interface SweepCliOptions {
   from: string;
-  sites: string;
+  sites: string[];
   schemes?: string;
   strengths: string;
   task: string;
@@ -52,7 +54,7 @@ export function registerSweep(program: Command): void {
     .description('sweep modulation schemes and strengths over sites and cued categories, replaying only the downstream part')
     .argument('<model>', 'ONNX model file (the baseline\'s)')
     .requiredOption('--from <baseline>', 'baseline snapshot detection is measured on (sites and everything downstream recorded at full resolution); tables made from another snapshot give a held-out evaluation')
-    .requiredOption('--sites <list>', 'comma-separated site tensors, or all-activations')
+    .requiredOption('--sites <list>', 'site tensors, comma-separated (the option may be repeated), or all-activations', siteList)
     .option('--schemes <list>', 'comma-separated: tuning, sensitivity, shuffled (g = max(0, 1 + β·v)), uniform (g = 1 + β on every channel, i.e. a spec\'s kind: uniform with gain: 1 + β); default: those whose tables are given')
     .option('--strengths <list>', 'strengths β: a list 0,0.1,0.2 or a range start:stop:step with both ends included, e.g. 0:0.5:0.1 (the step comes last)', '0,0.1,0.2,0.3,0.4,0.5')
     .requiredOption('--task <task>', 'detect:CATEGORY[,CATEGORY…] or detect:all (each cued in turn)')
@@ -62,7 +64,7 @@ export function registerSweep(program: Command): void {
     .option('--depth-profile', 'also measure relative change and signature slope per layer below the site')
     .option('--match <target>', 'calibrate: smallest strength reaching auc:+X, dprime:+X or accuracy:+Xpp')
     .option('--measure <name>', 'what best cells and the tuning-vs-shuffled control rank by: auc (ROC area, threshold-free) or dprime (d′ at the fixed threshold)', 'auc')
-    .requiredOption('--out <dir>', 'result folder (cells.arrow, sweep.json; cells.jsonl lets an interrupted sweep resume)')
+    .requiredOption('--out <dir>', 'result folder: NAME without a slash is snapshots/NAME (cells.arrow, sweep.json; cells.jsonl lets an interrupted sweep resume)')
     .option('--restart', 'ignore finished cells in --out and start again')
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--vectors <n>', 'gain vectors per runtime call', positiveInteger, 16)
@@ -77,7 +79,7 @@ export function registerSweep(program: Command): void {
         result = await sweepModulations({
           model,
           from: opts.from,
-          sites: opts.sites === 'all-activations' ? 'all-activations' : opts.sites.split(',').map((s) => s.trim()).filter((s) => s.length > 0),
+          sites: opts.sites.length === 1 && opts.sites[0] === 'all-activations' ? 'all-activations' : opts.sites,
           strengths: parseStrengths(opts.strengths),
           task: opts.task,
           controlSeeds: opts.controlSeeds,
@@ -101,6 +103,6 @@ export function registerSweep(program: Command): void {
         io.stdout(`${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
       }
-      io.stdout(renderSweep(result, { width: outputColumns(), out: opts.out }));
+      io.stdout(renderSweep(result, { width: outputColumns(), out: displayPath(resolveOutFolder(opts.out)) }));
     });
 }
