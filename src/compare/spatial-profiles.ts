@@ -2,7 +2,8 @@
  * `windowSpatialProfiles`: for a modulation with a spatial window, the spatial profile of the change
  * (`analysis/spatial-profile.ts`) at every spatial layer at or below the site — relative change within
  * rings of equal distance from the window's centre — read from a baseline and a modulated snapshot.
- * Reads at most `stimuli` stimuli of each layer (the first ones), so its cost does not grow with the set.
+ * Reads at most `stimuli` stimuli of each layer (the first ones; fewer where both sides would exceed
+ * 256 MiB), so its cost does not grow with the set and its memory stays bounded on large maps.
  */
 import { SpatialProfileAccumulator, type SpatialRing } from '../analysis/spatial-profile.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
@@ -38,6 +39,9 @@ export function windowOf(modulation: unknown): { site: string; window: WindowRec
   return null;
 }
 
+/** Most bytes of activations held at once for one layer (both snapshots). */
+const MEMORY_BUDGET_BYTES = 256 * 2 ** 20;
+
 async function firstStimuli(snapshot: Snapshot, layer: string, limit: number): Promise<Map<number, Float32Array>> {
   const { elements } = snapshot.layerGeometry(layer);
   const out = new Map<number, Float32Array>();
@@ -68,8 +72,12 @@ export async function windowSpatialProfiles(base: Snapshot, mod: Snapshot, optio
     const [channels, height, width] = layer.shape as [number, number, number];
     // the same rings for every layer: equal widths out to the map corner farthest from the centre
     const accumulator = new SpatialProfileAccumulator(channels, height, width, centre.x, centre.y, options.rings ?? 6, outer);
-    const a = await firstStimuli(base, layer.name, options.stimuli ?? 64);
-    const b = await firstStimuli(mod, layer.name, options.stimuli ?? 64);
+    // both sides of at most `stimuli` stimuli are held at once: cap them at 256 MiB per layer (a 224 px
+    // VGG16 conv1 map is 12.8 MB a stimulus, so 10 stimuli there; the demo's maps take all 64)
+    const bytesPerStimulus = 2 * 4 * channels * height * width;
+    const limit = Math.max(1, Math.min(options.stimuli ?? 64, Math.floor(MEMORY_BUDGET_BYTES / bytesPerStimulus)));
+    const a = await firstStimuli(base, layer.name, limit);
+    const b = await firstStimuli(mod, layer.name, limit);
     let used = 0;
     for (const [n, values] of a) {
       const other = b.get(n);

@@ -50,6 +50,10 @@ describe('terminal output at 80 and 120 columns', () => {
       const vs = await runSonde(['diff', join(folder, 'baseline-heldout'), join(folder, 'modulated-early'), '--vs', join(folder, 'modulated-late'), '--task', 'detect:disc', '--bootstrap', '20']);
       expect(vs.code, vs.stderr).toBe(0);
       expect(overlong(vs.stdout, width)).toEqual([]);
+      const windowed = await runSonde(['diff', join(folder, 'baseline-heldout'), join(folder, 'modulated-window'), '--task', 'detect:disc', '--bootstrap', '20']);
+      expect(windowed.code, windowed.stderr).toBe(0);
+      expect(overlong(windowed.stdout, width)).toEqual([]);
+      expect(windowed.stdout).toMatch(/spatial profile: relative change by distance from the window centre/);
       const tune = await runSonde(['tune', join(folder, 'tuning.arrow'), '--against', join(folder, 'sensitivity.arrow')]);
       expect(tune.code, tune.stderr).toBe(0);
       expect(overlong(tune.stdout, width)).toEqual([]);
