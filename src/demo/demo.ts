@@ -39,6 +39,8 @@ export interface DemoOptions {
   threads?: number;
   /** Called at the start of each step with a one-line description. */
   onStep?: (step: string) => void;
+  /** Called as the long steps advance (the sweep: cells done of all), for a progress bar. */
+  onProgress?: (done: number, total: number, detail: string) => void;
 }
 
 /** What the demo produced. */
@@ -155,6 +157,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
     out: sweepFolder,
     restart: true,
     threads,
+    ...(options.onProgress ? { onProgress: (p: { cellsDone: number; cellsTotal: number }) => options.onProgress!(p.cellsDone, p.cellsTotal, 'cells') } : {}),
   });
   files.sweep = join(sweepFolder, 'sweep.json');
 

@@ -3,6 +3,7 @@ import { displayPath } from '../../record/record-snapshot.js';
 import { runDemo } from '../../demo/demo.js';
 import { nonNegativeInteger } from '../options.js';
 import { cliIo, outputColumns } from '../io.js';
+import { createProgressBar, formatDuration } from '../progress.js';
 import { renderDemoSummary } from '../../demo/demo-summary.js';
 
 /** `sonde demo`: the whole job on the built-in demo network. */
@@ -17,14 +18,50 @@ export function registerDemo(program: Command): void {
     .action(async (opts: { out: string; quick?: boolean; seed: number; threads: number }) => {
       const io = cliIo();
       const started = performance.now();
-      let steps = 0;
-      const result = await runDemo({
-        out: opts.out,
-        seed: opts.seed,
-        threads: opts.threads,
-        ...(opts.quick ? { quick: true } : {}),
-        onStep: (step) => io.stderr(`[${++steps}] ${step} (${((performance.now() - started) / 1000).toFixed(1)} s)\n`),
-      });
+      const steps = stepLog((line) => io.stderr(line));
+      const bar = createProgressBar('demo');
+      let result;
+      try {
+        result = await runDemo({
+          out: opts.out,
+          seed: opts.seed,
+          threads: opts.threads,
+          ...(opts.quick ? { quick: true } : {}),
+          onStep: (step) => {
+            bar.stop();
+            steps.start(step);
+          },
+          onProgress: (done, total, detail) => bar.update(done, total, detail),
+        });
+      } finally {
+        bar.stop();
+      }
+      steps.finish();
       io.stdout(`\n${renderDemoSummary(result, { width: outputColumns(), seconds: (performance.now() - started) / 1000, reportPath: displayPath(result.files.report!), folderPath: displayPath(result.folder) })}`);
     });
+}
+
+/**
+ * The demo's step lines: "[k] what it does" as a step starts, and "[k] done in 12.3 s" — the step's own
+ * duration, not the time since the start — when the next one starts or the demo ends.
+ */
+export function stepLog(write: (line: string) => void, now: () => number = () => performance.now()): { start(step: string): void; finish(): void } {
+  let count = 0;
+  let since = 0;
+  const close = (): void => {
+    if (count > 0) write(`[${count}] done in ${formatSeconds((now() - since) / 1000)}\n`);
+  };
+  return {
+    start(step) {
+      close();
+      count++;
+      since = now();
+      write(`[${count}] ${step}\n`);
+    },
+    finish: close,
+  };
+}
+
+function formatSeconds(seconds: number): string {
+  return seconds < 60 ? `${seconds.toFixed(1)} s` : formatDuration(seconds);
 }
