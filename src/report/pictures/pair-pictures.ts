@@ -20,8 +20,8 @@ import { windowSpatialProfiles } from '../../compare/spatial-profiles.js';
 import { rocAuc } from '../../analysis/roc.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
 import { readTuningTable } from '../../snapshot/tables.js';
-import { parseNpy } from '../../stimuli/npy.js';
-import { readFileSync } from 'node:fs';
+import { readNpyHeader } from '../../stimuli/npy.js';
+import { closeSync, openSync, readSync } from 'node:fs';
 import type { Outline } from './raster.js';
 
 /** Options of `pairPictureData`. */
@@ -111,12 +111,22 @@ export async function pairPictureData(options: PairPictureOptions): Promise<Pair
   const source = /^array (.+?)(?: with labels .*)?$/.exec(String(base.manifest.stimuli.source ?? ''))?.[1];
   if (source?.endsWith('.npy')) {
     try {
-      const tensor = parseNpy(readFileSync(source), source);
-      const [n, c, h, w] = tensor.shape as number[];
-      if (c === 3 && n !== undefined && h !== undefined && w !== undefined) {
-        for (const category of base.categories.slice(0, 12)) {
-          const i = labels.findIndex((l) => l.includes(category));
-          if (i >= 0 && i < n) stimuli.push({ category, index: i, height: h, width: w, pixels: Array.from(tensor.data.subarray(i * 3 * h * w, (i + 1) * 3 * h * w) as ArrayLike<number>) });
+      // read only the header and the rows shown (a stimulus array can be gigabytes): float32, C order, [N, 3, H, W]
+      const header = readNpyHeader(source);
+      const [n, c, h, w] = header.shape as number[];
+      if (header.descr === '<f4' && !header.fortranOrder && header.shape.length === 4 && c === 3 && n !== undefined && h !== undefined && w !== undefined) {
+        const rowBytes = 4 * 3 * h * w;
+        const fd = openSync(source, 'r');
+        try {
+          for (const category of base.categories.slice(0, 12)) {
+            const i = labels.findIndex((l) => l.includes(category));
+            if (i < 0 || i >= n) continue;
+            const bytes = Buffer.alloc(rowBytes);
+            if (readSync(fd, bytes, 0, rowBytes, header.dataStart + i * rowBytes) !== rowBytes) continue;
+            stimuli.push({ category, index: i, height: h, width: w, pixels: Array.from(new Float32Array(bytes.buffer, bytes.byteOffset, rowBytes / 4)) });
+          }
+        } finally {
+          closeSync(fd);
         }
       }
     } catch {
