@@ -133,6 +133,21 @@ describe('inputs that never end or explode', () => {
     expect(readInputFile(big, 'ok', 4096).length).toBe(4096);
   });
 
+  it('/dev/zero as modulation spec, sidecar-free report input, --labels or merge partial: one line, exit 2, nothing read', async () => {
+    const commands: string[][] = [
+      ['record', model, '--stimuli', stimuli.npy, '--labels', stimuli.labels, '--out', join(dir, 'z1'), '--modulate', '/dev/zero', '--from', base],
+      ['report', '/dev/zero', '--out', join(dir, 'z.html')],
+      ['record', model, '--stimuli', stimuli.npy, '--labels', '/dev/zero', '--out', join(dir, 'z2')],
+      ['merge', '/dev/zero'],
+    ];
+    for (const args of commands) {
+      const result = await runSonde(args);
+      expect(result.code, `${args.join(' ')}: ${result.stderr}`).toBe(2);
+      expect(result.stderr.trim().split('\n'), result.stderr).toHaveLength(1);
+      expect(result.stderr).toMatch(/character device|not a regular file|not a partial-statistics file/);
+    }
+  }, 60_000);
+
   it('a FIFO as modulation spec, values file, --tuning, sidecar, report input or merge partial: one line, exit 2, no hang', async () => {
     const fifo = join(dir, 'never.fifo');
     if (!existsSync(fifo)) execFileSync('mkfifo', [fifo]);
@@ -200,5 +215,19 @@ describe('partial statistics with a digest', () => {
     expect((await runSonde(['merge', ...parts, '--json'])).stderr).toMatch(/does not match its sha256/);
     writeFileSync(parts[1]!, text.replace(/,"sha256":"[0-9a-f]{64}"/, ''));
     expect((await runSonde(['merge', ...parts, '--json'])).stderr).toMatch(/sha256 must be a string \(missing\)/);
+  }, 60_000);
+
+  it('merge refuses a tune partial with a flipped character in its key, and one of an older version without a digest', async () => {
+    const parts = [1, 2].map((k) => join(dir, `tune-${k}.json`));
+    for (const [i, part] of parts.entries()) expect((await runSonde(['tune', base, '--shard', `${i + 1}/2`, '--partial', part])).code).toBe(0);
+    expect((await runSonde(['merge', ...parts, '--out', join(dir, 'merged-tuning.arrow')])).code).toBe(0);
+    const text = readFileSync(parts[0]!, 'utf8');
+    const at = text.indexOf('"key":') + 10;
+    writeFileSync(parts[0]!, text.slice(0, at) + (text[at] === 'a' ? 'b' : 'a') + text.slice(at + 1));
+    const flipped = await runSonde(['merge', ...parts, '--out', join(dir, 'merged-tuning-2.arrow')]);
+    expect(flipped.code).toBe(2);
+    expect(flipped.stderr).toMatch(/(does not match its sha256|not valid JSON)/);
+    writeFileSync(parts[0]!, text.replace('"version":2', '"version":1'));
+    expect((await runSonde(['merge', ...parts, '--out', join(dir, 'merged-tuning-3.arrow')])).stderr).toMatch(/has partial-statistics version 1; this Sonde reads 2 \(write the parts again/);
   }, 60_000);
 });
