@@ -11,7 +11,7 @@
  * by the category with the largest raw derivatives. With a single shared category that normalisation is
  * undefined (every value would become 0) and the raw sensitivities are used; `sensitivityScale` says which.
  */
-import { closestHint, UsageError } from '../errors.js';
+import { closestHint, nameList, UsageError } from '../errors.js';
 import { linearFit, pearson, spearman, type LinearFit } from '../analysis/correlation.js';
 import { normaliseAcrossCategories } from '../modulation/gain-pattern.js';
 import type { SensitivityTableBlock, TuningTableBlock } from '../snapshot/tables.js';
@@ -65,9 +65,9 @@ export function compareTables(tuning: readonly TuningTableBlock[], sensitivity: 
   const matched = sensitivity.filter((s) => tuningByLayer.has(s.layer));
   const unmatched = sensitivity.filter((s) => !tuningByLayer.has(s.layer)).map((s) => s.layer);
   if (matched.length === 0) {
-    const sites = sensitivity.map((s) => JSON.stringify(s.layer)).join(', ');
+    const sites = nameList(sensitivity.map((s) => JSON.stringify(s.layer)), 4);
     const near = closestHint(sensitivity[0]?.layer ?? '', [...tuningByLayer.keys()]);
-    throw new UsageError('E_COMPARE_LAYERS', `the sensitivity table's sites (${sites}) are not layers of the tuning table (${tuning.length} layers${near ? `; ${near}` : ''})`, {
+    throw new UsageError('E_COMPARE_LAYERS', `the sensitivity table's sites (${sites}) are not layers of the tuning table (${tuning.length} layer${tuning.length === 1 ? '' : 's'}${near ? `; ${near}` : ''})`, {
       hint: 'tune a snapshot that recorded the sensitivity sites',
     });
   }
@@ -75,7 +75,7 @@ export function compareTables(tuning: readonly TuningTableBlock[], sensitivity: 
   const sensitivityCategories = matched[0]!.categories;
   const categories = tuningCategories.filter((c) => sensitivityCategories.includes(c));
   if (categories.length === 0) {
-    throw new UsageError('E_COMPARE_CATEGORIES', `the tables share no category (tuning: ${tuningCategories.join(', ')}; sensitivity: ${sensitivityCategories.join(', ')})`, {
+    throw new UsageError('E_COMPARE_CATEGORIES', `the tables share no category (${tuningCategories.length} in the tuning table: ${nameList(tuningCategories, 4)}; ${sensitivityCategories.length} in the sensitivity table: ${nameList(sensitivityCategories, 4)})`, {
       hint: 'sense with a readout whose categories are the label names (a model sidecar with outputs.kinds)',
     });
   }

@@ -22,7 +22,7 @@ import {
   Bool, DataType, Field, Float64, Int32, makeData, RecordBatch, RecordBatchFileWriter, Schema, Struct, tableFromIPC, Type, Utf8, vectorFromArray,
   type Data, type Table,
 } from 'apache-arrow';
-import { SondeError, UsageError } from '../errors.js';
+import { nameList, SondeError, UsageError } from '../errors.js';
 import { HashingFileSink } from './arrow-sink.js';
 
 /** Version of the table layout written by this build. */
@@ -304,7 +304,7 @@ function sharedCategories(blocks: readonly { layer: string; categories: readonly
   const seen = new Set<string>();
   for (const b of blocks) {
     if (b.categories.length !== first.length || b.categories.some((c, i) => c !== first[i])) {
-      throw new UsageError('E_TABLE', `cannot write ${path}: layer "${b.layer}" has categories ${JSON.stringify(b.categories)} but "${blocks[0]!.layer}" has ${JSON.stringify(first)}`);
+      throw new UsageError('E_TABLE', `cannot write ${path}: layer "${b.layer}" has ${b.categories.length} categories (${nameList(b.categories, 4)}) but "${blocks[0]!.layer}" has ${first.length} (${nameList(first, 4)})`);
     }
     if (seen.has(b.layer)) throw new UsageError('E_TABLE', `cannot write ${path}: layer "${b.layer}" appears twice`);
     seen.add(b.layer);

@@ -78,8 +78,18 @@ describe('compareTables', () => {
 
   it('compareTables refuses tables without a shared layer or category, and a layer with different channel counts', () => {
     const t = tuning('relu3', 3, ['a', 'b'], [T_A, T_B]);
-    expect(() => compareTables([t], [sensitivity('relu4', ['a', 'b'], [T_A, T_B])])).toThrow(/sites \("relu4"\) are not layers of the tuning table \(1 layers; closest: "relu3"\)/);
-    expect(() => compareTables([t], [sensitivity('relu3', ['x', 'y'], [T_A, T_B])])).toThrow(/share no category \(tuning: a, b; sensitivity: x, y\)/);
+    expect(() => compareTables([t], [sensitivity('relu4', ['a', 'b'], [T_A, T_B])])).toThrow(/sites \("relu4"\) are not layers of the tuning table \(1 layer; closest: "relu3"\)/);
+    expect(() => compareTables([t], [sensitivity('relu3', ['x', 'y'], [T_A, T_B])])).toThrow(/share no category \(2 in the tuning table: a, b; 2 in the sensitivity table: x, y\)/);
+    // a readout of 1000 units: the message names a few and counts the rest (one short line, not thousands of characters)
+    const many = Array.from({ length: 1000 }, (_, i) => `class${i}`);
+    let message = '';
+    try {
+      compareTables([t], [sensitivity('relu3', many, many.map(() => T_A))]);
+    } catch (error) {
+      message = (error as Error).message;
+    }
+    expect(message).toContain('1000 in the sensitivity table: class0, class1, class2, class3, … (1000 in all)');
+    expect(message.length).toBeLessThan(300);
     expect(() => compareTables([t], [sensitivity('relu3', ['a', 'b'], [[1, 2], [2, 1]])])).toThrow(/4 channels in the tuning table but 2 in the sensitivity table/);
   });
 });
