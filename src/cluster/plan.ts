@@ -89,7 +89,7 @@ export async function planClusterRun(options: ClusterPlanOptions): Promise<Clust
   }
 
   // where the result goes (record: a bare name goes under snapshots/, as for record itself)
-  const result = job.kind === 'diff' ? join(run, 'result.json') : job.kind === 'record' ? recordOutFolder(job.out!, cwd) : at(job.out!);
+  const result = job.kind === 'diff' ? join(run, 'result.json') : job.kind === 'record' || job.kind === 'sweep' ? outFolder(job.out!, cwd) : at(job.out!);
   if (job.kind !== 'diff' && (result === run || result.startsWith(`${run}/`) || run.startsWith(`${result}/`))) {
     throw new UsageError('E_CLUSTER_PLAN', `the result ${result} and the run folder ${run} must be apart (neither inside the other)`, { hint: 'give --out a path outside the run folder' });
   }
@@ -218,9 +218,9 @@ function prepareRunFolder(run: string, job: JobLine, tasks: number, force: boole
   }
 }
 
-/** `record --out NAME` without a slash goes under snapshots/ (as resolveOutFolder does), relative to `cwd`. */
-function recordOutFolder(out: string, cwd: string): string {
-  if (out.trim() === '') throw new UsageError('E_CLUSTER_JOB', 'record job: --out is empty', { hint: 'name a folder, e.g. --out base' });
+/** A folder `--out NAME` (record, sweep) without a slash goes under snapshots/ (as resolveOutFolder does), relative to `cwd`. */
+function outFolder(out: string, cwd: string): string {
+  if (out.trim() === '') throw new UsageError('E_CLUSTER_JOB', '--out in the job is empty', { hint: 'name a folder, e.g. --out base' });
   return resolve(cwd, out.includes('/') || out.includes('\\') ? out : join(DEFAULT_SNAPSHOT_PARENT, out));
 }
 

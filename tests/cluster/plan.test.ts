@@ -113,6 +113,8 @@ describe('planClusterRun', () => {
     // a bare --out name goes under snapshots/ of the working folder, as for record itself
     const bare = await planClusterRun({ run: join(dir, 'run-bare'), tasks: 2, job: ['record', MODEL, ...stimuli, '--out', 'glyph-base'], cwd: dir });
     expect(bare.result).toBe(join(dir, 'snapshots', 'glyph-base'));
+    const sweep = await planClusterRun({ run: join(dir, 'run-sweep-bare'), tasks: 2, job: ['sweep', MODEL, '--from', join(dir, 'base'), '--sites', SITE, '--task', 'detect:ring', '--out', 'sweep1'], cwd: dir, memory: '1G' });
+    expect(sweep.result).toBe(join(dir, 'snapshots', 'sweep1'));
     expect(readClusterPlan(bare.run)).toEqual(bare);
   });
 
