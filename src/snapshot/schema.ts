@@ -64,7 +64,7 @@ export const manifestSchema = z.looseObject({
   preprocessing: preprocessingSchema.nullable(),
   modulation: z.unknown(),
   readout: readoutSchema.nullable().optional(),
-  baseline: z.looseObject({ path: plainString.min(1), manifestSha256: hex64 }).nullable(),
+  baseline: z.looseObject({ path: plainString.min(1), manifestSha256: hex64 }).nullable().optional(),
   run: z.looseObject({
     mode: z.enum(['full', 'tail']),
     reason: z.string().optional(),
