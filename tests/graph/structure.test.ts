@@ -52,4 +52,16 @@ describe('weightLayerDepths', () => {
     expect(depths.get('probs')).toBe(1);
     expect(depths.get('out')).toBe(1);
   });
+
+  it('weightLayerDepths of torchvision ResNet-50 and ViT-B/16 at the logits is 50, the layer count their names give', () => {
+    // graph-only exports (tests/graph/fixtures/make_graph_fixtures.py, Debian python3-torch): ResNet-50's longest
+    // path holds 1 + 16 × 3 convolutions and the classifier (its 4 downsampling convolutions are side paths);
+    // ViT-B/16's the patch convolution, 12 × (QKV projection, output projection, 2 MLP layers) and the head —
+    // the attention products of two activations do not count
+    const folder = join(import.meta.dirname, 'fixtures');
+    for (const name of ['resnet50-graph.onnx', 'vit-b16-graph.onnx']) {
+      const depths = weightLayerDepths(analyseGraph(loadModel(join(folder, name))));
+      expect(depths.get('logits'), name).toBe(50);
+    }
+  });
 });
