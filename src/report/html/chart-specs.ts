@@ -49,7 +49,7 @@ const CONFIG = {
  * labelled "site", the noise floor of each run a thin dashed line in the run's colour.
  * @param data rows from `relativeChangeData`.
  */
-export function relativeChangeSpec(data: RelativeChangeData): TopLevelSpec {
+export function relativeChangeSpec(data: RelativeChangeData, layerLabels: ReadonlyArray<{ depth: number; label: string }> = []): TopLevelSpec {
   const range = data.range ?? [1e-3, 1];
   const inRange = (v: number) => v >= range[0] && v <= range[1];
   const rows = data.points.flatMap((p) => {
@@ -61,14 +61,20 @@ export function relativeChangeSpec(data: RelativeChangeData): TopLevelSpec {
   });
   const scale = { domain: data.series, range: seriesColours(data.series.length) };
   const color = { field: 'series', type: 'nominal', scale, legend: { title: 'modulated run', orient: 'bottom', direction: 'vertical', columns: 1, symbolType: 'stroke', symbolStrokeWidth: 3, symbolOpacity: 1, symbolDash: [], labelLimit: 520 } } as const;
-  const x = { field: 'depth', type: 'quantitative', title: 'graph position (recordable tensors in topological order)', axis: { tickMinStep: 1, format: 'd' } } as const;
+  // with layer names (at most 40 distinct positions), the axis names the layers under their positions instead of numbering them
+  const named = layerLabels.length > 0 && layerLabels.length <= 40;
+  const x = { field: 'depth', type: 'quantitative', title: named ? 'layer, in graph order' : 'graph position (recordable tensors in topological order)', axis: named ? { labels: false, ticks: true, tickMinStep: 1, titlePadding: 96 } : { tickMinStep: 1, format: 'd' } } as const;
   const y = { field: 'value', type: 'quantitative', scale: { type: 'log', domain: range }, title: 'relative change ‖mod − base‖ / ‖base‖', axis: { format: '~g' } } as const;
+  const names = named
+    ? [{ data: { values: layerLabels.map((l) => ({ depth: l.depth, label: l.label })) }, mark: { type: 'text' as const, angle: 300, align: 'right' as const, baseline: 'middle' as const, fontSize: 10, dy: 0, y: 300 + 10, color: '#333' }, encoding: { x: { field: 'depth', type: 'quantitative' as const }, text: { field: 'label', type: 'nominal' as const } } }]
+    : [];
   return {
     width: 480,
     height: 300,
     config: CONFIG,
     data: { values: rows },
     layer: [
+      ...names,
       ...(rows.some((r) => r.part === 'floor') ? [{ transform: [{ filter: "datum.part === 'floor'" }], mark: { type: 'line' as const, strokeDash: [3, 3], strokeWidth: 1, opacity: 0.7, clip: true }, encoding: { x, y, color } }] : []),
       { transform: [{ filter: "datum.part === 'change'" }], mark: { type: 'line', strokeWidth: 2, clip: true, point: { filled: true, size: 26 } }, encoding: { x, y, color } },
       { transform: [{ filter: "datum.part === 'site'" }], mark: { type: 'point', shape: 'diamond', size: 190, filled: true, stroke: '#111', strokeWidth: 1, opacity: 1 }, encoding: { x, y, color } },

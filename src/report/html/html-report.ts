@@ -148,11 +148,13 @@ function diffRuns(inputs: readonly ReportInput[]): Array<{ label: string; diff: 
   return runs.map((r, i) => ({ ...r, label: labels[i]! }));
 }
 
-async function propagationSection(runs: ReturnType<typeof diffRuns>, charts: ChartRenderer): Promise<PageSection> {
+async function propagationSection(runs: ReturnType<typeof diffRuns>, charts: ChartRenderer, short: (name: string) => string = (n) => n): Promise<PageSection> {
   const data = relativeChangeData(runs);
   const floor = data.floorInRange ? 'dashed: the noise floor of each run.' : Number.isFinite(data.floorMax) ? `The noise floor (at most ${sci(data.floorMax)}) lies below the plotted range.` : '';
   const caption = html`Relative change of every recorded layer, log scale; ◆ the modulation site. ${floor} ${data.omitted > 0 ? `${data.omitted} layer values of 0 (unchanged, e.g. above the site) or not finite are not drawn on the log axis.` : ''}`;
-  const figure = await charts.figure(relativeChangeSpec(data), caption);
+  const positions = new Map<number, string>();
+  for (const r of runs) for (const l of r.diff.layers) if (!positions.has(num(l.depth))) positions.set(num(l.depth), short(l.name));
+  const figure = await charts.figure(relativeChangeSpec(data, [...positions].map(([depth, label]) => ({ depth, label }))), caption);
   const details = runs.map((r) => html`<details open><summary>${r.label} <span class="note">(${r.input})</span></summary>${diffLayerTable(r.diff)}</details>`);
   return { id: 'propagation', heading: 'Propagation through depth', body: html`<p class="lead">How far the injected change travels below its site, one line per modulated run.</p>${figure}${diffSummaryTable(runs)}${details}` };
 }
@@ -333,7 +335,7 @@ export async function buildHtmlReport(inputs: readonly unknown[], options: Rende
   if (sizeMatched) sections.push(sizeMatched);
   const verdicts = verdictSection(classified, runs);
   if (verdicts) sections.push(verdicts);
-  if (runs.length > 0) sections.push(await propagationSection(runs, charts));
+  if (runs.length > 0) sections.push(await propagationSection(runs, charts, short));
   const task = taskSection(runs);
   if (task) sections.push(task);
   for (let k = 0; k < (options.pictures ?? []).length; k++) {
