@@ -84,3 +84,8 @@ export * as analysis from './analysis/index.js';
 // report
 export { renderHtmlReport, writeHtmlReport, buildHtmlReport } from './report/html/html-report.js';
 export { renderDiffReport, renderComparison, diffToCsv, reportToJson } from './report/diff-table.js';
+export { pairPictureData, type PairPictureData, type PairPictureOptions } from './report/pictures/pair-pictures.js';
+export { writePairPictures } from './report/pictures/pictures-page.js';
+export { sizeMatchedHeadline, diffHeadline, sweepHeadline, type Headline } from './report/headline.js';
+export { shortLayerLabels } from './report/layer-labels.js';
+export { windowSpatialProfiles, type WindowSpatialProfiles } from './compare/spatial-profiles.js';
