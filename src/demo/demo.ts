@@ -39,7 +39,7 @@ export interface DemoOptions {
   threads?: number;
   /** Called at the start of each step with a one-line description. */
   onStep?: (step: string) => void;
-  /** Called as the long steps advance (the sweep: cells done of all), for a progress bar. */
+  /** Called as the long steps advance (the sweep: cells done of all; the comparison: ceiling fits and held-out scores), for a progress bar. */
   onProgress?: (done: number, total: number, detail: string) => void;
 }
 
@@ -164,7 +164,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   step(`comparing the schemes on the held-out set at ${100 * DEMO_COMPARISON_SIZE} % site modulation, with shuffled, criterion-shift and fitted-ceiling references, and tuning-based gain at all ${candidates.length} sites at once`);
   const tables = loadModulationTables({ tuning: tuningPath, sensitivity: sensitivityPath });
   const inspection = await inspectModel(model);
-  const comparison = await compareAtSize({ model, inspection, fit: openSnapshot(fitBase.folder), heldOut: openSnapshot(base.folder), sites, allSites: candidates, categories, size: DEMO_COMPARISON_SIZE, tables, controlSeeds: 2, resamples: plan.resamples, seed: 1, threads });
+  const comparison = await compareAtSize({ model, inspection, fit: openSnapshot(fitBase.folder), heldOut: openSnapshot(base.folder), sites, allSites: candidates, categories, size: DEMO_COMPARISON_SIZE, tables, controlSeeds: 2, resamples: plan.resamples, seed: 1, threads, ...(options.onProgress ? { onProgress: options.onProgress } : {}) });
   files.comparison = join(folder, 'comparison.json');
   writeFileSync(files.comparison, json(comparison));
 

@@ -20,6 +20,8 @@ import { compareAtSize, type SizeMatchedComparison } from './size-matched.js';
 
 /** Options of `runSizeMatched`. */
 export interface SizeMatchedRunOptions {
+  /** Called as ceiling fits and held-out scoring finish (see `SizeMatchedOptions.onProgress`). */
+  onProgress?: (done: number, total: number, detail: string) => void;
   /** The ONNX model (path or loaded), the one both baselines were recorded from. */
   model: string | LoadedModel;
   /** Baseline the tables were computed from; the ceiling is fitted on it and it weights the size. */
@@ -112,6 +114,7 @@ export async function runSizeMatched(options: SizeMatchedRunOptions): Promise<Si
     ...(options.resamples !== undefined ? { resamples: options.resamples } : {}),
     ...(options.seed !== undefined ? { seed: options.seed } : {}),
     threads: options.threads ?? 0,
+    ...(options.onProgress ? { onProgress: options.onProgress } : {}),
   });
   const result: SizeMatchedRun = { ...comparison, evaluation: describeEvaluation(options.from, { tuning: options.tuning, sensitivity: options.sensitivity }) };
   if (options.out !== undefined) replaceFile(options.out, `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);

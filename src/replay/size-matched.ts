@@ -52,6 +52,8 @@ export interface SizeMatchedOptions {
   resamples?: number;
   seed?: number;
   threads?: number;
+  /** Called as the long parts finish: each site's ceiling fit, then each group of gains scored on the held-out set (for a progress bar; the total grows once the groups are known). */
+  onProgress?: (done: number, total: number, detail: string) => void;
 }
 
 /** A percentile interval (95 %). */
@@ -148,6 +150,7 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
     labels: Array<{ scheme: string; category: string; size: number; fitGain?: number }>;
   }
   const groups: Group[] = [];
+  let steps = 0;
   for (const site of options.sites) {
     const weights = await channelWeights(fit, site);
     const C = weights.length;
@@ -157,6 +160,8 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
       group.labels.push({ scheme, category, size: gainSize(gain, weights) });
     };
     const ceilings = await fitSiteCeilings({ model: options.model, inspection: options.inspection, fit, site, categories, budget: () => size, threads: options.threads ?? 0 });
+    steps++;
+    options.onProgress?.(steps, 2 * options.sites.length + (options.allSites && options.allSites.length > 1 ? 1 : 0), `ceiling at ${site}`);
     for (const category of categories) {
       const t = normalised(tuning, site, category);
       add('tuning', category, gainOfSize(t, weights, size));
@@ -214,6 +219,8 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
   let base: Map<string, Float64Array> | null = null;
   for (const group of groups) {
     const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: heldOut, sites: group.sites, gains: group.patterns, readout: readout.layer, threads: options.threads ?? 0 });
+    steps++;
+    options.onProgress?.(steps, options.sites.length + groups.length, `held-out scores at ${group.sites.length > 1 ? 'all sites' : group.sites[0]!}`);
     if (!base) base = new Map(categories.map((c) => [c, column(scored[0]!, c)]));
     const site = group.sites.join('+');
     group.labels.forEach((label, p) => {

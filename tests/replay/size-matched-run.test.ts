@@ -82,7 +82,12 @@ describe('runSizeMatched', () => {
   }, 120_000);
 
   it('runSizeMatched on one baseline says the evaluation is not held out', async () => {
-    const c = await runSizeMatched({ model, fit, from: fit, sites: ['relu2'], size: 0.05, task: 'detect:alpha', tuning, controlSeeds: 1, resamples: 20, threads: 1 });
+    const progress: Array<[number, number]> = [];
+    const c = await runSizeMatched({ model, fit, from: fit, sites: ['relu2'], size: 0.05, task: 'detect:alpha', tuning, controlSeeds: 1, resamples: 20, threads: 1, onProgress: (done, total) => progress.push([done, total]) });
+    // progress over the ceiling fit and the held-out scoring: never past its total, and ends at it
+    expect(progress.length).toBeGreaterThan(1);
+    for (const [done, total] of progress) expect(done).toBeLessThanOrEqual(total);
+    expect(progress[progress.length - 1]![0]).toBe(progress[progress.length - 1]![1]);
     expect(c.heldOut).toBe(false);
     expect(c.categories).toEqual(['alpha']);
   }, 120_000);

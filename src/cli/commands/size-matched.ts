@@ -9,6 +9,7 @@ import { runSizeMatched } from '../../replay/size-matched-run.js';
 import { fitTable, wrapText } from '../../report/terminal-table.js';
 import { finiteNumber, nonNegativeInteger, positiveInteger } from '../options.js';
 import { cliIo, outputColumns } from '../io.js';
+import { createProgressBar } from '../progress.js';
 
 interface SizeMatchedCliOptions {
   fit: string;
@@ -54,23 +55,30 @@ export function registerSizeMatched(program: Command): void {
     .action(async (model: string, opts: SizeMatchedCliOptions) => {
       const io = cliIo();
       io.stderr(`comparing at ${fixed(100 * opts.size, 1)} % site modulation: fitting ceilings on ${opts.fit}, measuring on ${opts.from}\n`);
-      const c = await runSizeMatched({
-        model,
-        fit: opts.fit,
-        from: opts.from,
-        sites: list(opts.sites),
-        ...(opts.allSites !== undefined ? { allSites: list(opts.allSites) } : {}),
-        size: opts.size,
-        task: opts.task,
-        tuning: opts.tuning,
-        ...(opts.sensitivity !== undefined ? { sensitivity: opts.sensitivity } : {}),
-        controlSeeds: opts.controlSeeds,
-        resamples: opts.resamples,
-        seed: opts.seed,
-        threads: opts.threads,
-        out: opts.out,
-        ...(opts.force ? { force: true } : {}),
-      });
+      const bar = createProgressBar('size-matched');
+      let c;
+      try {
+        c = await runSizeMatched({
+          model,
+          fit: opts.fit,
+          from: opts.from,
+          sites: list(opts.sites),
+          ...(opts.allSites !== undefined ? { allSites: list(opts.allSites) } : {}),
+          size: opts.size,
+          task: opts.task,
+          tuning: opts.tuning,
+          ...(opts.sensitivity !== undefined ? { sensitivity: opts.sensitivity } : {}),
+          controlSeeds: opts.controlSeeds,
+          resamples: opts.resamples,
+          seed: opts.seed,
+          threads: opts.threads,
+          out: opts.out,
+          ...(opts.force ? { force: true } : {}),
+          onProgress: (done, total, detail) => bar.update(done, total, detail),
+        });
+      } finally {
+        bar.stop();
+      }
       if (opts.json) {
         io.stdout(`${JSON.stringify(c, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
         return;
