@@ -1,4 +1,5 @@
 import { open, type FileHandle } from 'node:fs/promises';
+import { existsSync } from 'node:fs';
 import { join, resolve } from 'node:path';
 import { Message, RecordBatchReader, type RecordBatch } from 'apache-arrow';
 import { RuntimeFailure, SondeError, UsageError, closestHint } from '../errors.js';
@@ -90,8 +91,9 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
   if (!options.allowIncomplete) assertComplete(manifest, folder);
   const verify = options.verify ?? 'sha256';
   const baselineRoot = manifest.baseline ? resolve(root, manifest.baseline.path) : null;
-  if (baselineRoot && manifest.layers.some((l) => l.from === 'baseline')) {
-    // layers read from the baseline must be the baseline's own layers of those names
+  if (baselineRoot && manifest.layers.some((l) => l.from === 'baseline') && existsSync(join(baselineRoot, 'manifest.json'))) {
+    // layers read from the baseline must be the baseline's own layers of those names (a missing
+    // baseline is reported when one of its layers is read)
     const problems = baselineLayerProblems(manifest, readManifest(baselineRoot));
     if (problems.length > 0) {
       throw new UsageError('E_MANIFEST', `${folder}/manifest.json: ${problems[0]}${problems.length > 1 ? ` (and ${problems.length - 1} more)` : ''}`, { hint: `run \`sonde check ${folder}\`; record the modulated snapshot again` });
