@@ -36,14 +36,24 @@ export function labelSegments(name: string): string[] {
 export function shortLayerLabels(names: readonly string[]): Map<string, string> {
   const distinct = [...new Set(names)];
   const segments = new Map(distinct.map((n) => [n, labelSegments(n)] as const));
+  // how many names end in each k-segment suffix (one pass per k: linear in the names, for models with thousands of tensors)
+  const longest = Math.max(0, ...[...segments.values()].map((s) => s.length));
+  const counts: Array<Map<string, number>> = [];
+  for (let k = 1; k <= longest; k++) {
+    const count = new Map<string, number>();
+    for (const own of segments.values()) {
+      const suffix = own.slice(-k).join('/');
+      count.set(suffix, (count.get(suffix) ?? 0) + 1);
+    }
+    counts.push(count);
+  }
   const labels = new Map<string, string>();
   for (const name of distinct) {
     const own = segments.get(name)!;
     let label = name;
     for (let k = 1; k <= own.length; k++) {
       const suffix = own.slice(-k).join('/');
-      const clash = distinct.some((other) => other !== name && segments.get(other)!.slice(-k).join('/') === suffix);
-      if (!clash) {
+      if (counts[k - 1]!.get(suffix) === 1) {
         label = suffix;
         break;
       }
