@@ -132,7 +132,7 @@ export async function runDemo(options: DemoOptions = {}): Promise<DemoResult> {
   await tuneSnapshot({ snapshot: fitBase.folder, out: tuningPath });
   files.tuning = tuningPath;
 
-  step(`gain sensitivities at ${sites.length} sites (Richardson-extrapolated central differences, downstream part only)`);
+  step(`gain sensitivities at ${sites.length} sites (exact: gradients of the downstream part compiled into the graph)`);
   const sensitivityPath = join(folder, 'sensitivity.arrow');
   await senseSites({ model, from: fitBase.folder, site: sites, stimuliOf: 'each', out: sensitivityPath, threads });
   files.sensitivity = sensitivityPath;

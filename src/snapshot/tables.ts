@@ -79,7 +79,7 @@ export interface SensitivityTableBlock {
   /** Curvature the step sees within ±h, |D₊ − D₋| / 2 from the one-sided differences (not an error bound), [C, K]. */
   fdError: Float64Array;
   kind: 'gain' | 'offset';
-  /** The step h (Richardson also ran at h/2; the method is in the schema metadata `sonde.method`). */
+  /** The step h (Richardson also ran at h/2; 0 for exact gradients; the method is in the schema metadata `sonde.method`). */
   step: number;
   /** Stimuli averaged per category, [K]. */
   count: Int32Array;
