@@ -173,6 +173,6 @@ export function diffTableFooter(report: DiffReport, withSignature: boolean): str
     'effect: mean over channels of |Δ channel mean| ÷ its baseline sd across stimuli',
   ];
   if (withSignature) parts.push('slope, intercept: least-squares line of channel ratio against tuning rank (0 = most preferred; the feature-similarity-gain signature is a negative slope and an intercept above 1)', 'match: fraction of channels that do not prefer the target and are enhanced anyway (feature matching)');
-  parts.push(`floor: whether rel. change is above the noise floor (${report.floor.description}); "same file": the baseline's own file (upstream of the site)`);
+  parts.push(`floor: rel. change above or below the floor (${report.floor.description}); "same file": the baseline's own file (upstream of the site)`);
   return parts.join('; ');
 }

@@ -20,7 +20,7 @@ describe('sonde pictures', () => {
     const { npy, labels } = writeStimuliNpy(dir, [6, 3, 16, 16]);
     await recordSnapshot({ model, stimuli: npy, labels, out: join(dir, 'base') });
     const spec = join(dir, 'spec.json');
-    writeFileSync(spec, JSON.stringify({ site: 'relu0', kind: 'uniform', strength: 1.5, window: { shape: 'gaussian', cx: 0.3, cy: 0.5, sigma: 0.2, outside: 1 } }));
+    writeFileSync(spec, JSON.stringify({ site: 'relu0', kind: 'uniform', gain: 1.5, window: { shape: 'gaussian', cx: 0.3, cy: 0.5, sigma: 0.2, outside: 1 } }));
     await recordModulated({ model, stimuli: npy, labels, out: join(dir, 'mod'), modulate: spec, from: join(dir, 'base') });
   }, 120_000);
 

@@ -56,7 +56,7 @@ describe('recordModulated', () => {
     // f(αx) = α f(x) for bias-free conv/linear, ReLU, max and average pooling (exact property, see DOMAIN.md)
     const base = openSnapshot(join(dir, 'base-h'));
     const g = 1.75;
-    const out = await recordModulated({ model: homogeneous, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'uni'), modulate: spec('uni', { site: 'relu0', kind: 'uniform', strength: g }), from: base.folder, batch: 4, threads: 1 });
+    const out = await recordModulated({ model: homogeneous, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'uni'), modulate: spec('uni', { site: 'relu0', kind: 'uniform', gain: g }), from: base.folder, batch: 4, threads: 1 });
     const mod = openSnapshot(out.folder);
     const siteDepth = base.layer('relu0').depth;
     for (const layer of base.manifest.layers) {
@@ -120,11 +120,11 @@ describe('recordModulated', () => {
   });
 
   it('sonde record --modulate refuses a baseline of another model, and a site that does not exist', async () => {
-    const path = spec('ok', { site: 'relu0', kind: 'uniform', strength: 1.2 });
+    const path = spec('ok', { site: 'relu0', kind: 'uniform', gain: 1.2 });
     const other = await runSonde(['record', homogeneous, '--stimuli', stim.npy, '--labels', stim.labels, '--out', join(dir, 'x1'), '--modulate', path, '--from', join(dir, 'base-b')]);
     expect(other.code).toBe(2);
     expect(other.stderr).toMatch(/different model/);
-    const missing = await runSonde(['record', biased, '--stimuli', stim.npy, '--out', join(dir, 'x2'), '--modulate', spec('bad', { site: 'relu9', kind: 'uniform', strength: 1.2 })]);
+    const missing = await runSonde(['record', biased, '--stimuli', stim.npy, '--out', join(dir, 'x2'), '--modulate', spec('bad', { site: 'relu9', kind: 'uniform', gain: 1.2 })]);
     expect(missing.code).toBe(2);
     expect(missing.stderr).toMatch(/relu9/);
     expect(missing.stderr).toMatch(/closest/);

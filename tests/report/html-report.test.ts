@@ -139,7 +139,7 @@ describe('buildHtmlReport on a recorded network', () => {
     const stim = writeStimuliNpy(dir, [8, 3, 16, 16], 5);
     await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'base'), batch: 4, threads: 1 });
     const specPath = join(dir, 'uni.json');
-    writeFileSync(specPath, JSON.stringify({ site: 'relu0', kind: 'uniform', strength: 1.3 }));
+    writeFileSync(specPath, JSON.stringify({ site: 'relu0', kind: 'uniform', gain: 1.3 }));
     const mod = await recordModulated({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, 'uni'), modulate: specPath, from: join(dir, 'base'), threads: 1 });
     const diff = await diffSnapshots({ base: join(dir, 'base'), mod: mod.folder, bootstrap: 0 });
     const jsonPath = join(dir, 'diff.json');

@@ -191,12 +191,12 @@ const cases: Case[] = [
   { name: '--force absent on a complete snapshot', argv: () => record(good.model, good.base, ['--batch', '3']), code: 2, message: /already holds a complete snapshot/ },
 
   // --- modulation specs
-  { name: 'spec with an unknown key', argv: () => record(good.model, join(dir, 'out-k'), ['--modulate', spec('unknown.yaml', 'site: relu1\nkind: uniform\nstrength: 1.2\nstrenght: 3\n')]), code: 2, message: /unknown\.yaml: .*strenght/, writes: 'out-k' },
-  { name: 'spec with a wrong type', argv: () => record(good.model, join(dir, 'out-t'), ['--modulate', spec('type.json', '{"site": "relu1", "kind": "uniform", "strength": "high"}')]), code: 2, message: /type\.json: strength must be a finite number, got "high"/, writes: 'out-t' },
+  { name: 'spec with an unknown key', argv: () => record(good.model, join(dir, 'out-k'), ['--modulate', spec('unknown.yaml', 'site: relu1\nkind: uniform\ngain: 1.2\nstrenght: 3\n')]), code: 2, message: /unknown\.yaml: .*strenght/, writes: 'out-k' },
+  { name: 'spec with a wrong type', argv: () => record(good.model, join(dir, 'out-t'), ['--modulate', spec('type.json', '{"site": "relu1", "kind": "uniform", "gain": "high"}')]), code: 2, message: /type\.json: gain must be a finite number, got "high"/, writes: 'out-t' },
   { name: 'spec with NaN', argv: () => record(good.model, join(dir, 'out-n'), ['--modulate', spec('nan.yaml', 'site: relu1\nkind: uniform\nstrength: .nan\n')]), code: 2, message: /nan\.yaml: strength must be a finite number, got NaN/, writes: 'out-n' },
   { name: 'zero-byte spec', argv: () => record(good.model, join(dir, 'out-z'), ['--modulate', spec('zero.yaml', '')]), code: 2, message: /zero\.yaml: .*empty/, writes: 'out-z' },
   { name: 'spec that is not YAML', argv: () => record(good.model, join(dir, 'out-y'), ['--modulate', spec('broken.yaml', 'site: [relu1\nkind: : :\n')]), code: 2, message: /broken\.yaml: not valid YAML/, writes: 'out-y' },
-  { name: 'spec naming a site the model lacks', argv: () => record(good.model, join(dir, 'out-site'), ['--modulate', spec('site.yaml', 'site: relu9\nkind: uniform\nstrength: 1.5\n')]), code: 2, message: /relu9/, writes: 'out-site' },
+  { name: 'spec naming a site the model lacks', argv: () => record(good.model, join(dir, 'out-site'), ['--modulate', spec('site.yaml', 'site: relu9\nkind: uniform\ngain: 1.5\n')]), code: 2, message: /relu9/, writes: 'out-site' },
   { name: 'missing spec file', argv: () => record(good.model, join(dir, 'out-ms'), ['--modulate', join(dir, 'nope.yaml')]), code: 2, message: /nope\.yaml" not found/, writes: 'out-ms' },
 
   // --- snapshots and manifests
@@ -247,7 +247,7 @@ beforeAll(async () => {
   good.otherModelBase = (await recordSnapshot({ model: other, stimuli: good.npy, labels: good.labels, out: join(dir, 'base-other-model'), layers: 'all', batch: 4 })).folder;
   good.otherStimuliBase = (await recordSnapshot({ model: good.model, stimuli: s2.npy, labels: good.labels, out: join(dir, 'base-other-stimuli'), layers: 'all', batch: 4 })).folder;
   good.unlabelled = (await recordSnapshot({ model: good.model, stimuli: good.npy, labels: 'none', out: join(dir, 'base-unlabelled'), batch: 4 })).folder;
-  good.spec = spec('good.yaml', 'site: relu1\nkind: uniform\nstrength: 1.5\n');
+  good.spec = spec('good.yaml', 'site: relu1\nkind: uniform\ngain: 1.5\n');
   good.mod = (await recordModulated({ model: good.model, stimuli: good.npy, labels: good.labels, out: join(dir, 'mod'), modulate: good.spec, from: good.base })).folder;
 }, 120_000);
 

@@ -42,7 +42,7 @@ beforeAll(async () => {
   writeFileSync(model, buildTinyNet({ bias: true, classes: 2 }));
   const s = writeStimuliNpy(dir, [9, 3, 16, 16]);
   base = (await recordSnapshot({ model, stimuli: s.npy, labels: s.labels, out: join(dir, 'base'), layers: 'all', batch: 4 })).folder;
-  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\nstrength: 1.4\n');
+  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\ngain: 1.4\n');
   mod = (await recordModulated({ model, stimuli: s.npy, labels: s.labels, out: join(dir, 'mod'), modulate: join(dir, 'spec.yaml'), from: base })).folder;
 });
 

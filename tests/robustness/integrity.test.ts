@@ -94,7 +94,7 @@ beforeAll(async () => {
   writeFileSync(model, buildTinyNet({ bias: true, classes: 2 }));
   stimuli = writeStimuliNpy(dir, [12, 3, 16, 16], 7);
   base = (await recordSnapshot({ ...recordArgs(join(dir, 'base')), checkpointSeconds: 2 })).folder;
-  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\nstrength: 1.4\n');
+  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\ngain: 1.4\n');
   mod = (await recordModulated({ model, stimuli: stimuli.npy, labels: stimuli.labels, out: join(dir, 'mod'), modulate: join(dir, 'spec.yaml'), from: base })).folder;
 });
 

@@ -60,7 +60,7 @@ describe('non-finite data through record and diff', () => {
     // maps (IEEE 754: NaN propagates through + and ×), and ReLU keeps them
     expect(manifest.layers.find((l) => l.name === 'relu0')!.nonFinite).toBe(4 * 9);
     const spec = join(dir, 'uniform.json');
-    writeFileSync(spec, JSON.stringify({ site: 'relu0', kind: 'uniform', strength: 1.5 }));
+    writeFileSync(spec, JSON.stringify({ site: 'relu0', kind: 'uniform', gain: 1.5 }));
     const mod = join(dir, 'nan-mod');
     expect((await runSonde(['record', model, '--stimuli', stim.npy, '--labels', stim.labels, '--out', mod, '--modulate', spec, '--from', base, '--threads', '1'])).code).toBe(0);
     const diff = await runSonde(['diff', base, mod, '--bootstrap', '0']);
@@ -88,7 +88,7 @@ describe('non-finite data through record and diff', () => {
     expect(plain.stderr).not.toMatch(/NaN/);
     expect(manifestOf(base).layers.every((l) => l.nonFinite === 0)).toBe(true);
     const spec = join(dir, 'huge.json');
-    writeFileSync(spec, JSON.stringify({ site: 'relu0', kind: 'uniform', strength: 1e38 }));
+    writeFileSync(spec, JSON.stringify({ site: 'relu0', kind: 'uniform', gain: 1e38 }));
     const mod = join(dir, 'huge-mod');
     const recorded = await runSonde(['record', model, '--stimuli', stim.npy, '--labels', stim.labels, '--out', mod, '--modulate', spec, '--from', base, '--threads', '1']);
     expect(recorded.code, recorded.stderr).toBe(0);

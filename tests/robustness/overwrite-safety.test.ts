@@ -71,7 +71,7 @@ beforeAll(async () => {
   base = join(dir, 'base');
   const recorded = await runSonde(record(base));
   expect(recorded.code, recorded.stderr).toBe(0);
-  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\nstrength: 1.25\n');
+  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\ngain: 1.25\n');
   mod = join(dir, 'mod');
   const modulated = await runSonde(['record', model, '--stimuli', stimuli.npy, '--labels', stimuli.labels, '--out', mod, '--modulate', join(dir, 'spec.yaml'), '--from', base, '--batch', '4', '--threads', '1']);
   expect(modulated.code, modulated.stderr).toBe(0);

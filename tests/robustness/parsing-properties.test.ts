@@ -190,7 +190,7 @@ describe('other parsers', () => {
     const known = new Set(['site', 'kind', 'window', 'allowNegative', 'values', 'strength', 'channels', 'top', 'target', 'rankBy', 'mode', 'sd', 'seed', 'modulations']);
     fc.assert(
       fc.property(fc.string({ minLength: 1, maxLength: 10 }).filter((k) => !known.has(k) && k !== '__proto__'), fc.jsonValue(), (key, value) => {
-        const text = JSON.stringify({ site: 'relu1', kind: 'uniform', strength: 1.5, [key]: value });
+        const text = JSON.stringify({ site: 'relu1', kind: 'uniform', gain: 1.5, [key]: value });
         let message = '';
         try {
           parseModulationSpec(text, { source: 'extra.json' });

@@ -72,7 +72,7 @@ beforeAll(async () => {
   writeFileSync(model, buildTinyNet({ bias: true, classes: 2, seed: 9 }));
   stimuli = writeStimuliNpy(dir, [N, 3, 16, 16], 21);
   spec = join(dir, 'gain.json');
-  writeFileSync(spec, JSON.stringify({ site: 'relu1', kind: 'uniform', strength: 1.3 }));
+  writeFileSync(spec, JSON.stringify({ site: 'relu1', kind: 'uniform', gain: 1.3 }));
   const single = await runSondeProcess(record(join(dir, 'single')));
   expect(single.code, single.stderr).toBe(0);
   const singleMod = await runSondeProcess(record(join(dir, 'single-mod'), ['--modulate', spec, '--from', join(dir, 'single')]));

@@ -47,7 +47,7 @@ beforeAll(async () => {
   mkdirSync(join(dir, 'o'));
   const sb = writeStimuliNpy(join(dir, 'o'), [9, 3, 16, 16], 4, ['cat', 'dog', 'cat', 'dog', 'cat', 'dog', 'cat', 'dog', 'cat']);
   other = (await recordSnapshot({ model, stimuli: sb.npy, labels: sb.labels, out: join(dir, 'other'), layers: 'all', batch: 4 })).folder;
-  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\nstrength: 1.4\n');
+  writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\ngain: 1.4\n');
 }, 60_000);
 
 describe('stimulus table integrity', () => {

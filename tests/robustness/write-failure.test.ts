@@ -61,7 +61,7 @@ describe('write failures', () => {
 
   it('record --modulate --from (downstream replay and full run) stopped by a full disk resumes byte-identical', async () => {
     const base = join(dir, 'clean');
-    writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\nstrength: 1.25\n');
+    writeFileSync(join(dir, 'spec.yaml'), 'site: relu1\nkind: uniform\ngain: 1.25\n');
     const modArgs = (out: string, extra: string[] = []) => ['record', model, '--stimuli', stimuli.npy, '--labels', stimuli.labels, '--out', out, '--modulate', join(dir, 'spec.yaml'), '--from', base, '--batch', '4', '--threads', '1', '--checkpoint-every', '0', ...extra];
     for (const mode of [[], ['--full-run']]) {
       const tag = mode.length ? 'full' : 'tail';
