@@ -28,7 +28,7 @@ export async function benchTailReplay(): Promise<BenchResult> {
     let replayed = 0;
     for (const [i, site] of sites.entries()) {
       const spec = join(work.folder, `spec${i}.json`);
-      writeFileSync(spec, JSON.stringify({ site, kind: 'uniform', strength: 1.1 }));
+      writeFileSync(spec, JSON.stringify({ site, kind: 'uniform', gain: 1.1 }));
       // alternate the order so that neither variant always runs on a warmer cache
       const variants = i % 2 === 0 ? [false, true] : [true, false];
       for (const fullRun of variants) {
