@@ -6,7 +6,8 @@
  * one machine — exact property: the merged snapshots are byte-identical to the single recordings
  * (--threads 1 on both sides, shards re-cut as the single run cut them; see tests/robustness/sharding),
  * the merged sweep's cells equal the single sweep's. Then a shard is removed, `cluster status` names it
- * missing with the command that reruns it, and that command restores the same bytes.
+ * missing with the command that reruns it, and that command restores the same bytes; a task requeued by
+ * Slurm (scontrol requeue, as after a pre-emption) leaves its finished shard as it was.
  *
  * Without a scheduler (no sinfo, no idle node) the test is reported skipped with the reason — never
  * passed. SONDE_SLURM_DOWN (set by .ci/slurm.sh when the daemons could not start) is that reason.
@@ -131,5 +132,19 @@ describe('cluster plan --submit under Slurm', () => {
     expect(jobStates([again.array, again.merge])).toEqual(['COMPLETED', 'COMPLETED']);
     expectSameFiles(join(dir, 'base'), join(dir, 'single'));
     expect(readFileSync(join(dir, 'run-base', 'logs', 'task-2.log'), 'utf8').match(/task 2\/3 on/g)!.length).toBe(2);
+
+    // Slurm's own requeue (as after a pre-emption) of a finished task: it runs again, finds its shard
+    // complete and leaves it byte for byte
+    const shardManifest = readFileSync(join(dir, 'run-base', 'shards', '1', 'manifest.json'));
+    const requeue = spawnSync('scontrol', ['requeue', `${base.array}_1`], { encoding: 'utf8' });
+    expect(requeue.status, requeue.stderr).toBe(0);
+    // a requeued job waits about two minutes before it is eligible again (Slurm's requeue delay): start it now
+    const now = spawnSync('scontrol', ['update', `JobId=${base.array}_1`, 'StartTime=now'], { encoding: 'utf8' });
+    expect(now.status, now.stderr).toBe(0);
+    await drained([base.array]);
+    const log = readFileSync(join(dir, 'run-base', 'logs', 'task-1.log'), 'utf8');
+    expect(log).toMatch(/task 1\/3 on .* restart 1/);
+    expect(log).toMatch(/already holds this complete snapshot; nothing to resume/);
+    expect(readFileSync(join(dir, 'run-base', 'shards', '1', 'manifest.json')).equals(shardManifest)).toBe(true);
   }, 600_000);
 });
