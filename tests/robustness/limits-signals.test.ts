@@ -34,6 +34,18 @@ beforeAll(async () => {
 }, 60_000);
 
 describe('sweep cell limit', () => {
+  it('parseStrengths reads start:stop:step, both ends included, and refuses a range written start:step:stop with the reordered range as the fix', () => {
+    expect(parseStrengths('0:0.4:0.1')).toEqual([0, 0.1, 0.2, 0.3, 0.4]);
+    expect(() => parseStrengths('0:0.1:1')).toThrow(/a range is start:stop:step \(step last\), so this gives only 0/);
+    try {
+      parseStrengths('0:0.1:1');
+    } catch (error) {
+      expect((error as { hint?: string }).hint).toBe('for 0 to 1 in steps of 0.1, write --strengths 0:1:0.1');
+    }
+    expect(() => parseStrengths('1:0:0.1')).toThrow(/gives no strength/);
+    expect(parseStrengths('0.5:0.5:0.1')).toEqual([0.5]);
+  });
+
   it('parseStrengths refuses a range with more strengths than the cell limit, counting them without making them', () => {
     expect(() => parseStrengths('0:1:0.0000001')).toThrow(/gives 1\.00e\+7 strengths, more than the 100000 cells a sweep may have/);
     expect(() => parseStrengths('0:1000000000000:1')).toThrow(/gives 1\.00e\+12 strengths, more than the/);

@@ -35,6 +35,10 @@ export function parseStrengths(text: string): number[] {
   if (range) {
     const [start, stop, step] = [Number(range[1]), Number(range[2]), Number(range[3])];
     if (!(step > 0) || !Number.isFinite(start) || !Number.isFinite(stop)) throw new UsageError('E_STRENGTHS', `--strengths ${text}: a range is start:stop:step with step > 0`);
+    // start:step:stop (as some languages write ranges) reads here as a stop below start + step: one strength or none
+    if (stop < start || (step > stop - start && stop !== start)) {
+      throw new UsageError('E_STRENGTHS', `--strengths ${text}: a range is start:stop:step (step last), so this gives ${stop < start ? 'no strength' : `only ${start}`}`, { hint: `for ${start} to ${step} in steps of ${stop}, write --strengths ${start}:${step}:${stop}` });
+    }
     // counted before any is made: a tiny step would otherwise fill the heap
     const count = Math.floor((stop - start) / step + 1e-9) + 1;
     if (count > MAX_SWEEP_CELLS) throw new UsageError('E_SWEEP_SIZE', `--strengths ${text} gives ${count.toExponential(2)} strengths, more than the ${MAX_SWEEP_CELLS} cells a sweep may have`, { hint: 'use a larger step' });
