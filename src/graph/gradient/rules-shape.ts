@@ -4,7 +4,8 @@
  * permutation), Concat (slices of the gradient), Split (the output gradients concatenated, zeros for an
  * output no gradient reaches), Slice with unit steps (the gradient padded with zeros back to the input),
  * Pad in constant mode (the gradient sliced), and Gather with constant, distinct indices (scattered
- * back into zeros).
+ * back into zeros, along any axis). Concat along axis 0 slices at run-time offsets (the batch axis's size is
+ * not fixed by the probe).
  */
 import { readAttribute } from './emit.js';
 import { gradOut, knownDims, type GradientRule, type RuleContext } from './rule.js';
@@ -31,7 +32,20 @@ function normalAxis(ctx: RuleContext, axis: number, rank: number): number {
 const concat: GradientRule = (ctx) => {
   const g = gradOut(ctx);
   const rank = knownDims(ctx, ctx.outputs[0]!).length;
-  const axis = normalAxis(ctx, readAttribute(ctx.node, 'axis', 0), rank);
+  const raw = readAttribute(ctx.node, 'axis', 0);
+  if ((raw < 0 ? raw + rank : raw) === 0) {
+    // axis 0 may be the batch (whose size the probe does not fix): slice at run-time offsets
+    const e = ctx.e;
+    let start = e.ints([0]);
+    return ctx.inputs.map((input, i) => {
+      const size = e.emit('Slice', [e.emit('Shape', [input]), e.ints([0]), e.ints([1])]);
+      const from = start;
+      const to = e.emit('Add', [from, size]);
+      start = to;
+      return ctx.wants[i] ? e.emit('Slice', [g, from, to, e.ints([0])]) : null;
+    });
+  }
+  const axis = normalAxis(ctx, raw, rank);
   let start = 0;
   return ctx.inputs.map((input, i) => {
     const size = knownDims(ctx, input)[axis]!;
@@ -63,7 +77,9 @@ const slice: GradientRule = (ctx) => {
     ends = en ? ctx.constant(en) : null;
     axes = ax ? ctx.constant(ax) : starts ? starts.map((_, i) => i) : null;
     steps = st ? ctx.constant(st) : null;
-    if (!starts || !ends || !axes || (st && !steps)) ctx.unsupported('its starts, ends, axes or steps are not constant');
+    if (!axes || (st && !steps)) ctx.unsupported('its axes or steps are not constant');
+    if (steps && steps.some((v) => v !== 1)) ctx.unsupported('a step other than 1');
+    if (!starts || !ends) return [runtimeSliceGradient(ctx, rank, axes!), ...ctx.inputs.slice(1).map(() => null)];
   } else {
     starts = readAttribute<number[]>(ctx.node, 'starts', []);
     ends = readAttribute<number[]>(ctx.node, 'ends', []);
@@ -85,6 +101,34 @@ const slice: GradientRule = (ctx) => {
   const gx = e.opset >= 11 ? e.emit('Pad', [g, e.ints(pads)]) : e.emit('Pad', [g], { pads });
   return [gx, ...ctx.inputs.slice(1).map(() => null)];
 };
+
+/**
+ * Slice gradient when starts/ends are computed at run time (e.g. attention's chunking): the pads of the
+ * zero padding are computed in the graph from the clamped starts and ends, as the runtime's Slice
+ * clamps them (negative values count from the end; then clamped to [0, size]).
+ */
+function runtimeSliceGradient(ctx: RuleContext, rank: number, axes: readonly number[]): string {
+  const e = ctx.e;
+  const [x, startsName, endsName] = ctx.inputs as [string, string, string];
+  const shape = e.emit('Shape', [x]);
+  const zero = e.ints([0]);
+  const begin: string[] = new Array<string>(rank).fill(zero);
+  const end: string[] = new Array<string>(rank).fill(zero);
+  axes.forEach((axis, i) => {
+    const a = axis < 0 ? axis + rank : axis;
+    const size = e.emit('Slice', [shape, e.ints([a]), e.ints([a + 1])]);
+    const pick = (name: string): string => {
+      const raw = e.emit('Slice', [name, e.ints([i]), e.ints([i + 1])]);
+      const wrapped = e.emit('Where', [e.emit('Less', [raw, zero]), e.emit('Add', [raw, size]), raw]);
+      return e.emit('Min', [e.emit('Max', [wrapped, zero]), size]);
+    };
+    const from = pick(startsName);
+    const to = e.emit('Max', [pick(endsName), from]);
+    begin[a] = from;
+    end[a] = e.emit('Sub', [size, to]);
+  });
+  return e.emit('Pad', [gradOut(ctx), e.emit('Concat', [...begin, ...end], { axis: 0 })]);
+}
 
 const pad: GradientRule = (ctx) => {
   const e = ctx.e;
@@ -108,7 +152,9 @@ const gather: GradientRule = (ctx) => {
   const [x, indicesName] = ctx.inputs as [string, string];
   const dims = knownDims(ctx, x);
   const rank = dims.length;
-  const axis = normalAxis(ctx, readAttribute(ctx.node, 'axis', 0), rank);
+  // (axis 0 allowed: the indices are constants, scattered back wherever they point)
+  const rawAxis = readAttribute(ctx.node, 'axis', 0);
+  const axis = rawAxis < 0 ? rawAxis + rank : rawAxis;
   const indices = ctx.constant(indicesName);
   const indexDims = ctx.dims(indicesName);
   if (!indices || !indexDims || indexDims.length > 1) ctx.unsupported('its indices are not a constant scalar or list');

@@ -156,6 +156,26 @@ describe('buildGradientGraph operator rules vs central differences', () => {
         }),
     },
     {
+      name: 'Slice with run-time ends (attention-style chunking: Shape → Gather → Div), Gather and Concat along axis 0',
+      graph: () =>
+        net(4, 3, 3, [
+          { op: 'Shape', inputs: ['s'], outputs: ['shape'] },
+          { op: 'Gather', inputs: ['shape', 'one'], outputs: ['channels'], attributes: { axis: 0 } },
+          { op: 'Div', inputs: ['channels', 'two'], outputs: ['half'] },
+          { op: 'Unsqueeze', inputs: ['half', 'zero'], outputs: ['end'] },
+          { op: 'Slice', inputs: ['s', 'start', 'end', 'axis1'], outputs: ['front'] }, // channels [0, 2)
+          { op: 'Sigmoid', inputs: ['s'], outputs: ['sg'] },
+          { op: 'Transpose', inputs: ['sg'], outputs: ['t'], attributes: { perm: [1, 0, 2, 3] } }, // [4, N, 3, 3]
+          { op: 'Gather', inputs: ['t', 'pick'], outputs: ['picked'], attributes: { axis: 0 } }, // [2, N, 3, 3]
+          { op: 'Concat', inputs: ['picked', 't'], outputs: ['cat0'], attributes: { axis: 0 } }, // [6, N, 3, 3]
+          { op: 'Transpose', inputs: ['cat0'], outputs: ['back'], attributes: { perm: [1, 0, 2, 3] } },
+          { op: 'Concat', inputs: ['front', 'back'], outputs: ['a'], attributes: { axis: 1 } }, // 8 channels
+        ], 'a', 8, {
+          one: { dims: [], values: [1], int64: true }, two: { dims: [], values: [2], int64: true }, zero: { dims: [1], values: [0], int64: true },
+          start: { dims: [1], values: [0], int64: true }, axis1: { dims: [1], values: [1], int64: true }, pick: { dims: [2], values: [3, 1], int64: true },
+        }),
+    },
+    {
       name: 'MaxPool with overlapping windows, pads and ceil mode (3×3, stride 2) and AveragePool excluding pads',
       graph: () =>
         net(4, 9, 9, [
