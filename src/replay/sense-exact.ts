@@ -10,11 +10,11 @@ import { RuntimeFailure, UsageError } from '../errors.js';
 import { buildGradientGraph } from '../graph/gradient/build.js';
 import { exposeTensors } from '../graph/instrument.js';
 import type { LoadedModel } from '../graph/load-model.js';
-import { extractTail } from '../graph/tail.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { boundaryStream, type SiteRun, type StimulusValues } from './sense-run.js';
+import { siteTail } from './sense-plan.js';
 import type { SiteSensitivity } from './sense-types.js';
 
 /** What one gradient run returns, for the stimuli it held. */
@@ -217,7 +217,7 @@ export async function exactGainJacobian(options: GainJacobianOptions): Promise<{
   const layer = byName.get(site);
   const out = byName.get(options.readout);
   if (!layer || !out) throw new UsageError('E_SITE', `"${!layer ? site : options.readout}" is not a recordable tensor of ${model.fileName}`);
-  const tail = extractTail(model, inspection.structure, [site], [options.readout]);
+  const tail = siteTail(inspection, site, options.readout);
   if (!tail || !tail.computed.has(options.readout)) throw new UsageError('E_SENSE_READOUT', `readout "${options.readout}" does not depend on site "${site}"`);
   const n = baseline.manifest.stimuli.count;
   const K = options.units.length;

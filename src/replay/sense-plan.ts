@@ -7,6 +7,7 @@ import { UsageError, closestHint, nameList } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { ACTIVATION_OPS } from '../graph/select.js';
 import { readSidecar } from '../graph/sidecar.js';
+import { extractTail, type TailGraph } from '../graph/tail.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 import { siteShapes } from '../record/record-modulated.js';
 
@@ -156,4 +157,24 @@ export function stimulusWeights(labels: readonly (readonly string[])[], categori
     }
   }
   return { weights, counts };
+}
+
+/**
+ * The part of the network downstream of `site` that computes `readout`, with every boundary tensor a
+ * recordable activation (or the data input): tensors the downstream part reads that are not per-stimulus
+ * activations — shape computations such as a Reshape target built from Shape(input) — are recomputed
+ * inside it from their own inputs, repeatedly, until every fed tensor can be fed.
+ * @returns the tail, or null when nothing downstream of the site computes the readout.
+ */
+export function siteTail(inspection: ModelInspection, site: string, readout: string): TailGraph | null {
+  const model = inspection.model;
+  const recordable = new Set(inspection.layers.map((l) => l.name));
+  const recompute = new Set<string>();
+  for (;;) {
+    const tail = extractTail(model, inspection.structure, [site], [readout], recompute);
+    if (!tail) return null;
+    const missing = tail.boundary.filter((name) => name !== site && name !== model.input.name && !recordable.has(name) && !recompute.has(name) && inspection.structure.producer.has(name));
+    if (missing.length === 0) return tail;
+    for (const name of missing) recompute.add(name);
+  }
 }

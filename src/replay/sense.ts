@@ -42,7 +42,7 @@
 import { UsageError } from '../errors.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { readSidecar } from '../graph/sidecar.js';
-import { extractTail, type TailGraph } from '../graph/tail.js';
+import type { TailGraph } from '../graph/tail.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { writeSensitivityTable } from '../snapshot/tables.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
@@ -55,7 +55,7 @@ import { assertOutFileWritable } from '../outputs/output-file.js';
 import { errorCheck } from './sense-estimate.js';
 import { senseOneSite } from './sense-run.js';
 import { senseOneSiteExact } from './sense-exact.js';
-import { chooseSites, parseReadout, stimulusWeights } from './sense-plan.js';
+import { chooseSites, parseReadout, siteTail, stimulusWeights } from './sense-plan.js';
 import { DEFAULT_FEED_BYTES, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, SENSE_METHODS, type SenseOptions, type SenseResult, type SiteSensitivity, defaultStep } from './sense-types.js';
 
 /**
@@ -126,7 +126,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   const blocks: SiteSensitivity[] = [];
   const warnings: string[] = [];
   for (const site of sites) {
-    const tail = extractTail(model, inspection.structure, [site], [readout.tensor]);
+    const tail = siteTail(inspection, site, readout.tensor);
     if (!tail || !tail.computed.has(readout.tensor)) {
       throw new UsageError('E_SENSE_READOUT', `--readout "${readout.tensor}" does not depend on --site "${site}" (it is not downstream of it)`, { hint: 'pick a site upstream of the readout' });
     }
