@@ -5,6 +5,8 @@ Run from the repository root with the Debian interpreter that has torch:
 
     /usr/bin/python3 tests/reference/make_gradient_fixtures.py
 
+It also writes fixtures/attention/ (a small seeded torchvision VisionTransformer, see attention_network).
+
 It rebuilds the seeded models of make_fixtures.py (same builders, same seeds, so the same weights as the
 committed .onnx files), and for every tensor in <model>/mapping.json except the logits writes
 
@@ -92,6 +94,36 @@ def reference_networks() -> None:
         print(f"{name}: {len(index)} sites")
 
 
+ATTENTION_SEED = 7
+
+
+def attention_network() -> None:
+    """A small seeded torchvision VisionTransformer (32 px, patches of 8, 2 layers, 2 heads, width 16,
+    10 classes; the zero-initialised head drawn from N(0, 0.5) with bias U[-0.1, 0.1] so the logits depend
+    on the input), exported at opsets 14 (decomposed LayerNorm) and 17 (LayerNormalization), 2 seeded
+    uniform images, and autograd at the patch-embedding convolution (the only site with a channel axis;
+    everything after it is tokens): fixtures/attention/."""
+    from torchvision.models.vision_transformer import VisionTransformer
+
+    folder = mf.OUT / "attention"
+    torch.manual_seed(ATTENTION_SEED)
+    model = VisionTransformer(image_size=32, patch_size=8, num_layers=2, num_heads=2, hidden_dim=16, mlp_dim=32, num_classes=10).eval()
+    with torch.no_grad():
+        model.heads.head.weight.normal_(0.0, 0.5)
+        model.heads.head.bias.uniform_(-0.1, 0.1)
+    x = torch.rand(2, 3, 32, 32)
+    mf.save(folder / "inputs.npy", x.numpy().astype(np.float32))
+    for opset in (14, 17):
+        mf.export(model, x, folder / f"vit-opset{opset}.onnx", opset)
+    proto = __import__("onnx").load(str(folder / "vit-opset14.onnx"))
+    gain, offset = gradients(model.double(), x.double(), "conv_proj")
+    mf.save(folder / "gradients" / "conv_proj_gain.npy", gain)
+    mf.save(folder / "gradients" / "conv_proj_offset.npy", offset)
+    index = [{"module": "conv_proj", "onnx": mf.onnx_output_of(proto, "conv_proj"), "slug": "conv_proj", "channels": gain.shape[0]}]
+    (folder / "gradients" / "index.json").write_text(json.dumps(index, indent=2) + "\n")
+    print("attention: 1 site, opsets 14 and 17")
+
+
 def torchvision_networks(out: Path, only: list[str]) -> None:
     out.mkdir(parents=True, exist_ok=True)
     for name in TORCHVISION_SITES:
@@ -124,3 +156,4 @@ if __name__ == "__main__":
         torchvision_networks(Path(sys.argv[2]).resolve(), sys.argv[3:])
     else:
         reference_networks()
+        attention_network()

@@ -6,6 +6,8 @@
  * Error measure: max over all entries (none excluded) of |sonde − autograd| / (largest |autograd| of the
  * entry's category); a category whose autograd values are all 0 must be exactly 0.
  *
+ * fixtures/attention/ (same script): a small seeded torchvision VisionTransformer at opsets 14 and 17.
+ *
  * With SONDE_TORCHVISION_GRADIENTS=FOLDER (written by `make_gradient_fixtures.py --torchvision FOLDER`:
  * seeded torchvision VGG16 at 224 px and ResNet-50 at 64 px, too large to commit) the same check runs on
  * those two networks too.
@@ -86,6 +88,14 @@ describe('senseSites --method exact vs PyTorch autograd at every mapped site', (
     it(`senseSites (default method) on ${m.name} matches autograd within ${m.bound} of each category's largest value, gain and offset, no entry excluded`, async () => {
       const flipped = 'flipped' in m ? m.flipped : null;
       await checkSites(join(FIXTURES, `${m.name}.onnx`), join(FIXTURES, 'inputs.npy'), join(FIXTURES, m.name, 'gradients'), (site) => (flipped && (flipped.sites as readonly string[]).includes(site.module) ? flipped.bound : m.bound));
+    }, 120_000);
+  }
+
+  for (const opset of [14, 17]) {
+    it(`senseSites on a seeded torchvision VisionTransformer (opset ${opset}: attention, ${opset === 17 ? 'LayerNormalization' : 'decomposed layer norm'}, GELU via Erf, run-time Slice chunking) matches autograd within 1e-4 at the patch embedding`, async () => {
+      // measured 5.1e-7 (gain) and 3.7e-7 (offset) at opset 14, 5.9e-7 and 3.9e-7 at opset 17
+      const folder = join(FIXTURES, 'attention');
+      await checkSites(join(folder, `vit-opset${opset}.onnx`), join(folder, 'inputs.npy'), join(folder, 'gradients'), () => 1e-4);
     }, 120_000);
   }
 
