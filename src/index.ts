@@ -16,7 +16,6 @@ export { extractTail, type TailGraph } from './graph/tail.js';
 export { selectLayers, globToRegExp } from './graph/select.js';
 export { readSidecar, sidecarPath, type ModelSidecar } from './graph/sidecar.js';
 export { addReadoutHeads, type ReadoutHeadsSpec, type ReadoutHeadsModel } from './graph/readout-heads.js';
-export { addReadoutHeads, type ReadoutHeadsSpec, type ReadoutHeadsModel } from './graph/readout-heads.js';
 
 // session
 export { createNetworkSession, type NetworkSession, type NetworkSessionOptions, type FloatTensor } from './session/network-session.js';
@@ -48,7 +47,6 @@ export type { DiffOptions, DiffReport, LayerDiffRow, TaskReport, SchemeCompariso
 export { tuneSnapshot, type TuneOptions, type TuneResult } from './compare/tune.js';
 export { compareTables, type TableComparison } from './compare/compare-tables.js';
 export { sizeGaps, sizeGapNote, SIZE_TOLERANCE, type SchemeSize, type SizeGap } from './compare/size-match.js';
-export { fitReadoutHeads, DEFAULT_CS, type FitHeadsOptions, type FitHeadsResult, type FittedHead, type HeadScore } from './compare/fit-heads.js';
 export { fitReadoutHeads, DEFAULT_CS, type FitHeadsOptions, type FitHeadsResult, type FittedHead, type HeadScore } from './compare/fit-heads.js';
 
 // replay: sensitivities, sweeps, gain scores, ceiling, size-matched comparison
