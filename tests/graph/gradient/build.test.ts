@@ -176,6 +176,17 @@ describe('buildGradientGraph operator rules vs central differences', () => {
         }),
     },
     {
+      name: 'opset 11 forms: Softmax over all axes from 1 (flattened), ReduceSum and Unsqueeze with axes attributes, Clip with min/max inputs',
+      graph: () =>
+        net(3, 2, 2, [
+          { op: 'Softmax', inputs: ['s'], outputs: ['soft'], attributes: { axis: 1 } }, // over C·H·W at opset 11
+          { op: 'Mul', inputs: ['soft', 's'], outputs: ['m'] },
+          { op: 'ReduceSum', inputs: ['m'], outputs: ['r'], attributes: { axes: [3], keepdims: 0 } },
+          { op: 'Unsqueeze', inputs: ['r'], outputs: ['u'], attributes: { axes: [3] } },
+          { op: 'Clip', inputs: ['u', 'lo', 'hi'], outputs: ['a'] },
+        ], 'a', 3, { lo: { dims: [], values: [-10] }, hi: { dims: [], values: [10] } }, 11),
+    },
+    {
       name: 'MaxPool with overlapping windows, pads and ceil mode (3×3, stride 2) and AveragePool excluding pads',
       graph: () =>
         net(4, 9, 9, [
