@@ -144,7 +144,8 @@ export function registerSense(program: Command): void {
         : method === 'richardson'
         ? 'values are (4·D(h/2) − D(h))/3 with D(h) = (y(+h) − y(−h))/2h; the shift |D(h/2) − D(h)|/3 is how far extrapolation moved the h/2 secant'
         : 'values are central secants D(h) = (y(+h) − y(−h))/2h; fd_error is the curvature within ±h, |D₊ − D₋|/2, not an error bound';
-      io.stdout(`${values}; worst is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%); forward-pass equivalents from Conv/Gemm/MatMul multiply-adds\n`);
+      const indicatorNote = method === 'exact' ? '' : `; worst is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%)`;
+      io.stdout(`${values}${indicatorNote}; forward-pass equivalents from Conv/Gemm/MatMul multiply-adds${method === 'exact' ? ' (a backward pass counted as two forward passes)' : ''}\n`);
     });
 }
 
