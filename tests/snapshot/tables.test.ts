@@ -98,7 +98,7 @@ describe('writeTuningTable / readTuningTable', () => {
   it('writeTuningTable rejects blocks with different category lists, a repeated layer, or arrays of the wrong length', () => {
     const a = tuningBlock('relu1', 3, 0);
     const b = { ...tuningBlock('relu2', 4, 0), categories: ['disc', 'ring', 'star'] };
-    expect(() => writeTuningTable(join(dir, 'bad1.arrow'), [a, b])).toThrow(/layer "relu2" has categories/);
+    expect(() => writeTuningTable(join(dir, 'bad1.arrow'), [a, b])).toThrow(/layer "relu2" has 3 categories \(disc, ring, star\) but "relu1" has 3 \(disc, ring, cross\)/);
     expect(() => writeTuningTable(join(dir, 'bad2.arrow'), [a, a])).toThrow(/"relu1" appears twice/);
     expect(() => writeTuningTable(join(dir, 'bad3.arrow'), [{ ...a, mean: new Float64Array(5) }])).toThrow(/mean has 5 values, expected channels × categories = 2 × 3/);
     expect(() => writeTuningTable(join(dir, 'bad4.arrow'), [])).toThrow(UsageError);
