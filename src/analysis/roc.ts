@@ -109,36 +109,7 @@ export function aucStandardError(auc: number, signalTrials: number, noiseTrials:
  * A constant added to every score, or any strictly increasing transform, leaves the result unchanged.
  */
 export function hitRateAtFalseAlarm(scores: ArrayLike<number>, isSignal: Uint8Array, falseAlarmRate: number): number {
-  checkLengths(scores, isSignal);
-  checkRate('falseAlarmRate', falseAlarmRate);
-  const order = finiteOrder(scores);
-  const n = order.length;
-  let signalCount = 0;
-  for (let k = 0; k < n; k++) if (isSignal[order[k]!] !== 0) signalCount++;
-  const noiseCount = n - signalCount;
-  if (signalCount === 0 || noiseCount === 0) return Number.NaN;
-  // Lower the cut from above the largest score: each group of equal scores moves the ROC point from
-  // (f0, h0) to (f1, h1) along a straight segment.
-  let hits = 0;
-  let falseAlarms = 0;
-  let i = n - 1;
-  while (i >= 0) {
-    const value = scores[order[i]!]!;
-    const h0 = hits / signalCount;
-    const f0 = falseAlarms / noiseCount;
-    while (i >= 0 && scores[order[i]!]! === value) {
-      if (isSignal[order[i]!] !== 0) hits++;
-      else falseAlarms++;
-      i--;
-    }
-    const h1 = hits / signalCount;
-    const f1 = falseAlarms / noiseCount;
-    if (f1 > falseAlarmRate) {
-      // The segment crosses F (f0 ≤ F < f1): interpolate.
-      return h0 + ((h1 - h0) * (falseAlarmRate - f0)) / (f1 - f0);
-    }
-  }
-  return 1;
+  return hitRateRangeAtFalseAlarm(scores, isSignal, falseAlarmRate).high;
 }
 
 /** Where an empirical ROC crosses a false-alarm rate: a single hit rate, or a vertical stretch. */

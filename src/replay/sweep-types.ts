@@ -4,6 +4,7 @@
  */
 
 import type { SweepEvaluation } from './held-out.js';
+import type { SweepTableDetection } from '../snapshot/sweep-table.js';
 
 /** Schemes a sweep knows. */
 export const SWEEP_SCHEMES = ['tuning', 'sensitivity', 'uniform', 'shuffled'] as const;
@@ -15,16 +16,12 @@ export interface MatchTarget {
   value: number;
 }
 
-/** Detection read-out of one condition (baseline or modulated). */
-export interface SweepDetection {
-  hitRate: number;
-  falseAlarmRate: number;
-  dPrime: number;
-  criterion: number;
-  accuracy: number;
-  /** ROC area of the readout score, signal against noise trials (threshold-free; see analysis/roc.ts). */
-  auc: number;
-}
+/**
+ * Detection read-out of one condition (baseline or modulated): hit and false-alarm rates, d′, criterion,
+ * accuracy, and the ROC area of the readout score (threshold-free; see analysis/roc.ts). The sweep table
+ * stores exactly these fields (src/snapshot/sweep-table.ts).
+ */
+export type SweepDetection = SweepTableDetection;
 
 /** Which detection measure a verdict (`best`, `control`, the summary) ranks by. */
 export type SweepMeasure = 'auc' | 'dprime';

@@ -3,6 +3,7 @@ import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, hitRateRa
 import { bootstrapInterval } from '../../src/analysis/bootstrap.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
+import { pairAuc } from '../helpers/pair-auc.js';
 
 /** Expands rating-category counts (categories 1…K) into one score per trial. */
 function ratings(counts: number[]): number[] {
@@ -18,22 +19,6 @@ function trials(noise: number[], signal: number[]): { scores: Float64Array; isSi
   const isSignal = new Uint8Array(scores.length);
   isSignal.fill(1, noise.length);
   return { scores, isSignal };
-}
-
-/** Brute-force P(S > N) + ½·P(S = N) over every signal/noise pair (the definition, O(nS·nN)). */
-function pairAuc(scores: ArrayLike<number>, isSignal: Uint8Array): number {
-  let wins = 0;
-  let pairs = 0;
-  for (let i = 0; i < scores.length; i++) {
-    if (isSignal[i] === 0) continue;
-    for (let j = 0; j < scores.length; j++) {
-      if (isSignal[j] !== 0) continue;
-      pairs++;
-      if (scores[i]! > scores[j]!) wins += 1;
-      else if (scores[i] === scores[j]) wins += 0.5;
-    }
-  }
-  return wins / pairs;
 }
 
 /** Random scores on a coarse grid (so ties occur), signal shifted up; a fixed seed. */

@@ -13,27 +13,13 @@ import { loadModulationTables } from '../../src/replay/modulation-tables.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { createRandom } from '../../src/random.js';
 import { buildTinyNet, runSonde, tempFolder } from '../helpers/onnx-builder.js';
+import { pairAuc } from '../helpers/pair-auc.js';
 
 const kinds = ['ring', 'bar', 'dot'];
 let dir: string;
 let model: string;
 let stimuli: { npy: string; labels: string };
 let base: string;
-
-/** ROC area by direct count over all (signal, noise) pairs, ties one half (Mann–Whitney U / (n₁n₀); exact definition). */
-function pairAuc(scores: ArrayLike<number>, signal: ArrayLike<number>): number {
-  let wins = 0;
-  let pairs = 0;
-  for (let i = 0; i < scores.length; i++) {
-    if (!signal[i]) continue;
-    for (let j = 0; j < scores.length; j++) {
-      if (signal[j]) continue;
-      pairs++;
-      wins += scores[i]! > scores[j]! ? 1 : scores[i]! === scores[j]! ? 0.5 : 0;
-    }
-  }
-  return wins / pairs;
-}
 
 /** n displays [3, 16, 16]: noise, plus per present kind a bright patch in its own colour channel and place (invented demo-like data). */
 function writeDisplays(folder: string, n: number, seed: number): { npy: string; labels: string } {

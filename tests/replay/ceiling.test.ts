@@ -8,24 +8,10 @@ import { inspectModel } from '../../src/record/inspect-model.js';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { pairAuc } from '../helpers/pair-auc.js';
 
 const kinds = ['alpha', 'beta', 'gamma'];
 let dir: string;
-
-/** ROC area by direct count over all (signal, noise) pairs, ties one half (Mann–Whitney U / (n₁n₀)). */
-function pairAuc(scores: ArrayLike<number>, signal: ArrayLike<number>): number {
-  let wins = 0;
-  let pairs = 0;
-  for (let i = 0; i < scores.length; i++) {
-    if (!signal[i]) continue;
-    for (let j = 0; j < scores.length; j++) {
-      if (signal[j]) continue;
-      pairs++;
-      wins += scores[i]! > scores[j]! ? 1 : scores[i]! === scores[j]! ? 0.5 : 0;
-    }
-  }
-  return wins / pairs;
-}
 
 async function setUp(name: string, bias: boolean, seed: number) {
   const folder = join(dir, name);

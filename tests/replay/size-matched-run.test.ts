@@ -7,6 +7,7 @@ import { classifyReportInput } from '../../src/report/html/inputs.js';
 import { runSizeMatched } from '../../src/replay/size-matched-run.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { pairAuc } from '../helpers/pair-auc.js';
 
 const kinds = ['alpha', 'beta', 'gamma'];
 let dir: string;
@@ -14,21 +15,6 @@ let model: string;
 let fit: string;
 let heldOut: string;
 let tuning: string;
-
-/** ROC area by direct count over all (signal, noise) pairs, ties one half (Mann–Whitney U / (n₁n₀); exact definition). */
-function pairAuc(scores: ArrayLike<number>, signal: ArrayLike<number>): number {
-  let wins = 0;
-  let pairs = 0;
-  for (let i = 0; i < scores.length; i++) {
-    if (!signal[i]) continue;
-    for (let j = 0; j < scores.length; j++) {
-      if (signal[j]) continue;
-      pairs++;
-      wins += scores[i]! > scores[j]! ? 1 : scores[i]! === scores[j]! ? 0.5 : 0;
-    }
-  }
-  return wins / pairs;
-}
 
 async function baseline(name: string, seed: number): Promise<string> {
   const folder = join(dir, name);
