@@ -24,6 +24,7 @@ const LAYERS: readonly string[] = [
   'random.ts',
   'format.ts',
   // pure numbers; the disk's safe-file primitives
+  'stats',
   'analysis',
   'disk',
   // the runtime, the model graph, stimuli

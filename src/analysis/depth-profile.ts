@@ -6,7 +6,7 @@
  */
 
 import { UsageError } from '../errors.js';
-import { linearFit } from './correlation.js';
+import { linearFit } from '../stats/correlation.js';
 
 /** One layer's effect at its depth below the site. */
 export interface DepthPoint {

@@ -18,7 +18,7 @@
  */
 
 import { UsageError } from '../errors.js';
-import { rocAuc } from './roc.js';
+import { rocAuc } from '../stats/roc.js';
 
 /** What `fitGainCeiling` maximises over. */
 export interface GainCeilingProblem {

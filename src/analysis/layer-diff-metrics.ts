@@ -3,7 +3,7 @@
  * its single pass: pooled norms, cosine and Pearson correlation, channel activity ratios and their
  * spread, per-channel effect sizes. Each definition and its edge cases are on `LayerDiffMetrics`.
  */
-import { median } from './describe.js';
+import { median } from '../stats/describe.js';
 
 /** Metrics of one layer, baseline a versus modulated b. */
 export interface LayerDiffMetrics {

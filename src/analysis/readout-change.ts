@@ -4,8 +4,8 @@
  * would have done). Used by the diff's task read-out and by every sweep cell.
  */
 
-import { criterionShiftControl, hitRateRangeAtFalseAlarm } from './roc.js';
-import { detectionStats, type ScoreDetection } from './signal-detection.js';
+import { criterionShiftControl, hitRateRangeAtFalseAlarm } from '../stats/roc.js';
+import { detectionStats, type ScoreDetection } from '../stats/signal-detection.js';
 
 /** The baseline side: its scores, signal flags, fixed threshold and the detection there. */
 export interface BaselineReadout {

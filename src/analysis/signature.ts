@@ -7,8 +7,8 @@
  */
 
 import { UsageError } from '../errors.js';
-import { bootstrapIntervals } from './bootstrap.js';
-import { averageRanks, linearFit, spearman } from './correlation.js';
+import { bootstrapIntervals } from '../stats/bootstrap.js';
+import { averageRanks, linearFit, spearman } from '../stats/correlation.js';
 
 /** Input of `fitSignature`. */
 export interface SignatureInput {

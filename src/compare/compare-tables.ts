@@ -12,7 +12,7 @@
  * undefined (every value would become 0) and the raw sensitivities are used; `sensitivityScale` says which.
  */
 import { closestHint, nameList, UsageError } from '../errors.js';
-import { linearFit, pearson, spearman, type LinearFit } from '../analysis/correlation.js';
+import { linearFit, pearson, spearman, type LinearFit } from '../stats/correlation.js';
 import { normaliseAcrossCategories } from '../modulation/gain-pattern.js';
 import type { SensitivityTableBlock, TuningTableBlock } from '../snapshot/tables.js';
 

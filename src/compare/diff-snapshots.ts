@@ -4,7 +4,7 @@
  * accumulators and gather the read-out scores), finish (here: metrics, noise floor, intervals, signature,
  * survival and depth profile, with the task read-out of diff-task.ts), and word (diff-verdict.ts).
  */
-import { bootstrapIntervals } from '../analysis/bootstrap.js';
+import { bootstrapIntervals } from '../stats/bootstrap.js';
 import { fitDepthProfile } from '../analysis/depth-profile.js';
 import { fitSignature } from '../analysis/signature.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';

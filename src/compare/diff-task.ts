@@ -4,10 +4,10 @@
  * and paired bootstrap intervals over stimuli, per category and averaged.
  */
 import { UsageError, nameList } from '../errors.js';
-import { bootstrapIntervals, type BootstrapInterval } from '../analysis/bootstrap.js';
+import { bootstrapIntervals, type BootstrapInterval } from '../stats/bootstrap.js';
 import { readoutChanges } from '../analysis/readout-change.js';
-import { rocAuc, rocAucWeighted, rocOrder } from '../analysis/roc.js';
-import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../analysis/signal-detection.js';
+import { rocAuc, rocAucWeighted, rocOrder } from '../stats/roc.js';
+import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../stats/signal-detection.js';
 import type { TaskCategory, TaskReport } from './diff-types.js';
 
 /** The read-out scores gathered by `collectDiff` for the detection task. */

@@ -1,7 +1,7 @@
 /** What `diffSnapshots` takes and returns: options, per-layer rows, the detection read-out, the report and the two-scheme comparison. */
 import type { DepthProfile } from '../analysis/depth-profile.js';
 import type { SignatureFit } from '../analysis/signature.js';
-import type { DetectionStats } from '../analysis/signal-detection.js';
+import type { DetectionStats } from '../stats/signal-detection.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 
 /** Per-channel tuning values of one layer for the target category (e.g. from a tuning table). */

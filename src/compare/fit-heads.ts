@@ -9,8 +9,8 @@
  * A seeded part of the stimuli (stratified by label set) is held out of the fit and of the
  * cross-validation, and reported separately.
  */
-import { rocAuc } from '../analysis/roc.js';
-import { crossValidateLogistic, featureScaling, predictLogits, standardiseRows, stratifiedFolds } from '../analysis/logistic-regression.js';
+import { rocAuc } from '../stats/roc.js';
+import { crossValidateLogistic, featureScaling, predictLogits, standardiseRows, stratifiedFolds } from '../stats/logistic-regression.js';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { createRandom } from '../random.js';
 import { replaceFile } from '../disk/atomic-file.js';

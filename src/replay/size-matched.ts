@@ -15,8 +15,8 @@
  * Optionally `tuning-all`: tuning-based gain at S sites at once, each with 1/S of the size, and its
  * shuffled counterpart `shuffled-all`.
  */
-import { bootstrapIntervals } from '../analysis/bootstrap.js';
-import { criterionShiftControl, rocAuc, rocAucWeighted, rocOrder } from '../analysis/roc.js';
+import { bootstrapIntervals } from '../stats/bootstrap.js';
+import { criterionShiftControl, rocAuc, rocAucWeighted, rocOrder } from '../stats/roc.js';
 import { UsageError, nameList } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { gainFromValues, normaliseAcrossCategories } from '../modulation/gain-pattern.js';

@@ -5,8 +5,8 @@
  * site × scheme × strength has its interval from the means of the draws, resample by resample (a paired
  * percentile bootstrap over stimuli, as in `diff`).
  */
-import { rocAucWeighted, rocOrder } from '../analysis/roc.js';
-import { detectionStats } from '../analysis/signal-detection.js';
+import { rocAucWeighted, rocOrder } from '../stats/roc.js';
+import { detectionStats } from '../stats/signal-detection.js';
 import { createRandom } from '../random.js';
 
 /** Resamples per sweep (each costs O(stimuli) per cell). */

@@ -3,7 +3,7 @@
  * strength that reaches a target change, and the sign-flip test of tuning-based gain against the shuffled
  * control across categories.
  */
-import { signFlipTest } from '../analysis/sign-flip.js';
+import { signFlipTest } from '../stats/sign-flip.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { signed } from '../format.js';

@@ -18,7 +18,7 @@ export interface MatchTarget {
 
 /**
  * Detection read-out of one condition (baseline or modulated): hit and false-alarm rates, d′, criterion,
- * accuracy, and the ROC area of the readout score (threshold-free; see analysis/roc.ts). The sweep table
+ * accuracy, and the ROC area of the readout score (threshold-free; see stats/roc.ts). The sweep table
  * stores exactly these fields (src/snapshot/sweep-table.ts).
  */
 export type SweepDetection = SweepTableDetection;

@@ -6,10 +6,10 @@
  */
 import { appendFileSync, closeSync, existsSync, fsyncSync, openSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { linearFit } from '../analysis/correlation.js';
+import { linearFit } from '../stats/correlation.js';
 import { readoutChanges } from '../analysis/readout-change.js';
-import { rocAuc } from '../analysis/roc.js';
-import { detectFromScores, type ScoreDetection } from '../analysis/signal-detection.js';
+import { rocAuc } from '../stats/roc.js';
+import { detectFromScores, type ScoreDetection } from '../stats/signal-detection.js';
 import { UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { injectModulations, modulationInputNames, type InjectionSite } from '../graph/inject.js';

@@ -1,7 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { readoutChanges } from '../../src/analysis/readout-change.js';
-import { rocAuc } from '../../src/analysis/roc.js';
-import { detectFromScores } from '../../src/analysis/signal-detection.js';
+import { rocAuc } from '../../src/stats/roc.js';
+import { detectFromScores } from '../../src/stats/signal-detection.js';
 import { createRandom } from '../../src/random.js';
 
 /** Two-class scores with unequal spreads (noise sd 1, signal sd 2.3), on a 1/64 grid so shifts are exact. */

@@ -3,7 +3,7 @@ import { compareTables } from '../../src/compare/compare-tables.js';
 import type { SensitivityTableBlock, TuningTableBlock } from '../../src/snapshot/tables.js';
 
 // Pearson's r and Spearman's ρ themselves are checked against Anscombe's quartet and a worked example
-// in tests/analysis/correlation.test.ts; here the checks are what compareTables feeds them.
+// in tests/stats/correlation.test.ts; here the checks are what compareTables feeds them.
 
 /** A tuning block from per-category columns (values t[c][k]). */
 function tuning(layer: string, depth: number, categories: string[], columns: number[][]): TuningTableBlock {

@@ -1,7 +1,7 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { signFlipTest } from '../../src/analysis/sign-flip.js';
+import { signFlipTest } from '../../src/stats/sign-flip.js';
 import { runDemo, type DemoResult } from '../../src/demo/demo.js';
 import { tempFolder } from '../helpers/onnx-builder.js';
 

@@ -1,7 +1,7 @@
 /**
  * ROC area by direct count over all (signal, noise) pairs, ties counting one half: the Mann–Whitney U
  * statistic divided by n₁·n₀ (the exact definition of the empirical ROC area). An O(n²) reference the
- * fast rank-based kernels in src/analysis/roc.ts are checked against.
+ * fast rank-based kernels in src/stats/roc.ts are checked against.
  * @param scores one score per trial; @param signal truthy for signal trials.
  */
 export function pairAuc(scores: ArrayLike<number>, signal: ArrayLike<number>): number {

@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { rocAuc } from '../../src/analysis/roc.js';
-import { detectFromScores } from '../../src/analysis/signal-detection.js';
+import { rocAuc } from '../../src/stats/roc.js';
+import { detectFromScores } from '../../src/stats/signal-detection.js';
 import { createRandom } from '../../src/random.js';
 import { meanDraws, percentileInterval, readoutDraws, sweepResampling } from '../../src/replay/sweep-intervals.js';
 

@@ -4,8 +4,8 @@
  * that decays exponentially below its site, detection tables from counts through `detectionStats`), but
  * nothing asserts them: tests check what the report does with them (aggregation, escaping, markup).
  */
-import { linearFit } from '../../src/analysis/correlation.js';
-import { detectionStats, type DetectionStats } from '../../src/analysis/signal-detection.js';
+import { linearFit } from '../../src/stats/correlation.js';
+import { detectionStats, type DetectionStats } from '../../src/stats/signal-detection.js';
 import type { TableComparison } from '../../src/compare/compare-tables.js';
 import { compareSchemes, verdictOf } from '../../src/compare/diff-verdict.js';
 import { dtypeFloor } from '../../src/compare/diff-snapshots.js';

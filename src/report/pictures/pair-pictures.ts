@@ -14,10 +14,10 @@
  * `pairPictureData` collects the numbers (what `--json` prints); `pairPictureSections` draws them.
  */
 import { fitSignature } from '../../analysis/signature.js';
-import { rocCurve, type RocPoint } from '../../analysis/roc-curve.js';
+import { rocCurve, type RocPoint } from '../../stats/roc-curve.js';
 import type { SpatialRing } from '../../analysis/spatial-profile.js';
 import { windowSpatialProfiles } from '../../compare/spatial-profiles.js';
-import { rocAuc } from '../../analysis/roc.js';
+import { rocAuc } from '../../stats/roc.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
 import { readTuningTable } from '../../snapshot/tables.js';
 import { readNpyHeader } from '../../stimuli/npy.js';

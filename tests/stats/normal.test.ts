@@ -2,7 +2,7 @@ import { execFileSync } from 'node:child_process';
 import { existsSync } from 'node:fs';
 import stdlibQuantile from '@stdlib/stats-base-dists-normal-quantile';
 import { describe, expect, it } from 'vitest';
-import { normalCdf, normalQuantile } from '../../src/analysis/normal.js';
+import { normalCdf, normalQuantile } from '../../src/stats/normal.js';
 
 const DOUBLE_EPSILON = 2 ** -52;
 

@@ -2,7 +2,7 @@ import { execFileSync } from 'node:child_process';
 import { existsSync } from 'node:fs';
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
-import { averageRanks, linearFit, pearson, spearman } from '../../src/analysis/correlation.js';
+import { averageRanks, linearFit, pearson, spearman } from '../../src/stats/correlation.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
 

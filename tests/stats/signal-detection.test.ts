@@ -1,7 +1,7 @@
 import stdlibQuantile from '@stdlib/stats-base-dists-normal-quantile';
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
-import { accuracyMaximisingThreshold, detectFromScores, detectionStats } from '../../src/analysis/signal-detection.js';
+import { accuracyMaximisingThreshold, detectFromScores, detectionStats } from '../../src/stats/signal-detection.js';
 import { UsageError } from '../../src/errors.js';
 
 const z = (p: number): number => stdlibQuantile(p, 0, 1);

@@ -1,7 +1,7 @@
 import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { balancedWeights, crossValidateLogistic, featureScaling, fitLogistic, predictLogits, sigmoid, standardiseRows, stratifiedFolds } from '../../src/analysis/logistic-regression.js';
+import { balancedWeights, crossValidateLogistic, featureScaling, fitLogistic, predictLogits, sigmoid, standardiseRows, stratifiedFolds } from '../../src/stats/logistic-regression.js';
 
 interface Fit { coef: number[]; intercept: number; probability: number[] }
 interface Case { name: string; n: number; d: number; x: number[]; y: number[]; folds: number[]; fixed: Array<Fit & { C: number; balanced: boolean }>; cv: Array<Fit & { balanced: boolean; Cs: number[]; losses: number[]; C: number }> }

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { signFlipTest } from '../../src/analysis/sign-flip.js';
+import { signFlipTest } from '../../src/stats/sign-flip.js';
 
 describe('signFlipTest', () => {
   it('signFlipTest(all positive, n = 8) gives the exact minimum p = 1/256 (only the observed pattern is as large)', () => {

@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, hitRateRangeAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder } from '../../src/analysis/roc.js';
-import { bootstrapInterval } from '../../src/analysis/bootstrap.js';
+import { aucStandardError, criterionShiftControl, hitRateAtFalseAlarm, hitRateRangeAtFalseAlarm, rocAuc, rocAucWeighted, rocOrder } from '../../src/stats/roc.js';
+import { bootstrapInterval } from '../../src/stats/bootstrap.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
 import { pairAuc } from '../helpers/pair-auc.js';

@@ -1,7 +1,7 @@
 import { execFileSync } from 'node:child_process';
 import { existsSync } from 'node:fs';
 import { describe as group, expect, it } from 'vitest';
-import { describe, mean, median, quantile, quantileSorted, standardDeviation, variance } from '../../src/analysis/describe.js';
+import { describe, mean, median, quantile, quantileSorted, standardDeviation, variance } from '../../src/stats/describe.js';
 import { createRandom } from '../../src/random.js';
 import { UsageError } from '../../src/errors.js';
 

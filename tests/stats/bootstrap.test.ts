@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { bootstrapInterval, bootstrapIntervals } from '../../src/analysis/bootstrap.js';
+import { bootstrapInterval, bootstrapIntervals } from '../../src/stats/bootstrap.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
 

@@ -4,8 +4,8 @@
  * points run from (0, 0) to (1, 1) and never decrease.
  */
 import { describe, expect, it } from 'vitest';
-import { rocCurve, rocCurveArea } from '../../src/analysis/roc-curve.js';
-import { rocAuc } from '../../src/analysis/roc.js';
+import { rocCurve, rocCurveArea } from '../../src/stats/roc-curve.js';
+import { rocAuc } from '../../src/stats/roc.js';
 import { createRandom } from '../../src/random.js';
 
 describe('rocCurve', () => {
