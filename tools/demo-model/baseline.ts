@@ -15,7 +15,7 @@
 import { readFile, writeFile } from 'node:fs/promises';
 import { resolve } from 'node:path';
 import { pathToFileURL } from 'node:url';
-import { detectFromScores } from '../../src/analysis/signal-detection.js';
+import { detectFromScores } from '../../src/stats/signal-detection.js';
 import { RuntimeFailure } from '../../src/errors.js';
 import { exposeTensors } from '../../src/graph/instrument.js';
 import { loadModel } from '../../src/graph/load-model.js';
