@@ -8,9 +8,6 @@ import Table from 'cli-table3';
 import stringWidth from 'string-width';
 import { ellipsize } from './layer-labels.js';
 
-/** The terminal width to assume when none is known (common practice: the classic 80 columns). */
-export const DEFAULT_COLUMNS = 80;
-
 /** Below this many columns the narrow layouts are used (fewer columns per table, folded rows). */
 export const NARROW_COLUMNS = 100;
 

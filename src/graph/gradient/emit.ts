@@ -13,7 +13,6 @@ export type AttributeValue = number | number[] | string | { floats: number[] } |
 /** ONNX TensorProto data types used here (onnx.proto3). */
 export const FLOAT = 1;
 export const INT64 = 7;
-export const BOOL = 9;
 
 /** Writes the backward nodes and their constants. */
 export class Emitter {

@@ -13,9 +13,6 @@ import { shortLayerLabels } from '../layer-labels.js';
 import type { PairPictureData } from './pair-pictures.js';
 import { mapPicture, stimulusPicture } from './raster.js';
 
-/** Picture kinds, as `data-picture` values. */
-export const PICTURE_KINDS = ['stimuli', 'feature-maps', 'roc', 'signature', 'spatial-profile'] as const;
-
 const CONFIG = { font: FONT_STACK, background: 'white', padding: 6, view: { stroke: '#d5d9de' }, axis: { labelFontSize: 11, titleFontSize: 12, titleFontWeight: 600, gridColor: '#eceef1' }, legend: { labelFontSize: 11, titleFontSize: 12 }, header: { labelFontSize: 12, labelFontWeight: 600 } } as const;
 
 function rocSpec(data: PairPictureData['roc']): TopLevelSpec {
