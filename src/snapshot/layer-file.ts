@@ -6,6 +6,7 @@ import { float32ToFloat16 } from './float16.js';
 import { HashingFileSink } from './arrow-sink.js';
 import { ResumableFileWriter, scanRecordBatches } from './resume.js';
 import type { ActivationDtype, KeepMode } from './manifest.js';
+import { featureMeans, layoutGeometry, type LayoutGeometry, type TensorLayout } from '../graph/layout.js';
 
 /** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
 export const SHAPE_METADATA_KEY = 'sonde.shape';
@@ -17,23 +18,24 @@ export interface LayerFileLayout {
   shape: number[];
   dtype: ActivationDtype;
   keep: KeepMode;
+  /** Feature axis and positions (src/graph/layout.ts); absent means features on axis 0 (snapshots before layouts). */
+  layout?: TensorLayout;
 }
 
-/** Channels of a per-stimulus shape: the first axis (C of C×H×W, or the length of a vector). */
-export function channelCount(shape: readonly number[]): number {
-  return shape.length === 0 ? 1 : shape[0]!;
+/** Channels (features) of a per-stimulus shape under its layout: C of C×H×W, D of tokens T×D, the length of a vector. */
+export function channelCount(shape: readonly number[], layout?: TensorLayout | null): number {
+  return shape.length === 0 ? 1 : layoutGeometry(shape, layout).features;
 }
 
-/** Elements per channel (H·W for a feature map, 1 for a vector). */
-export function spatialSize(shape: readonly number[]): number {
-  let s = 1;
-  for (let i = 1; i < shape.length; i++) s *= shape[i]!;
-  return s;
+/** Positions per channel (H·W for a feature map, T for tokens, 1 for a vector). */
+export function spatialSize(shape: readonly number[], layout?: TensorLayout | null): number {
+  const g = layoutGeometry(shape, layout);
+  return g.outer * g.inner;
 }
 
 /** The Arrow schema of a layer file: `index` int32, `channel_mean` FixedSizeList<float32>[C], and `activation` unless keep = channels. */
 export function layerSchema(layout: LayerFileLayout): Schema {
-  const channels = channelCount(layout.shape);
+  const channels = channelCount(layout.shape, layout.layout);
   const elements = layout.shape.reduce((a, b) => a * b, 1);
   const fields: Field[] = [
     new Field('index', new Int32(), false),
@@ -58,7 +60,7 @@ export class LayerFileWriter {
   private readonly sink: HashingFileSink;
   private readonly writer: ResumableFileWriter;
   private readonly channels: number;
-  private readonly spatial: number;
+  private readonly geometry: LayoutGeometry;
   private readonly elements: number;
   rows = 0;
 
@@ -74,9 +76,9 @@ export class LayerFileWriter {
   constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string } = {}) {
     this.layout = layout;
     this.schema = layerSchema(layout);
-    this.channels = channelCount(layout.shape);
-    this.spatial = spatialSize(layout.shape);
-    this.elements = this.channels * this.spatial;
+    this.geometry = layoutGeometry(layout.shape, layout.layout);
+    this.channels = this.geometry.features;
+    this.elements = this.channels * this.geometry.outer * this.geometry.inner;
     this.writer = new ResumableFileWriter();
     if (options.resumeAt === undefined) {
       this.sink = new HashingFileSink(path);
@@ -107,7 +109,7 @@ export class LayerFileWriter {
   write(firstIndex: number, rows: number, activation: Float32Array): void {
     const index = new Int32Array(rows);
     for (let r = 0; r < rows; r++) index[r] = firstIndex + r;
-    const means = computeChannelMeans(activation, rows, this.channels, this.spatial);
+    const means = featureMeans(activation, rows, this.geometry);
     const children: Data[] = [
       makeData({ type: new Int32(), length: rows, nullCount: 0, data: index }),
       fixedSizeList(new Float32(), this.channels, rows, means),
@@ -166,21 +168,4 @@ export class LayerFileWriter {
 function fixedSizeList<T extends Float32 | Float16>(item: T, size: number, rows: number, values: Float32Array | Uint16Array): Data {
   const child = makeData({ type: item as DataType, length: rows * size, nullCount: 0, data: values } as never) as Data;
   return makeData({ type: new FixedSizeList(size, new Field('item', item, false)), length: rows, nullCount: 0, child } as never) as Data;
-}
-
-/**
- * Spatial mean of each channel for each row: out[r*C + c] = mean over positions of
- * activation[(r*C + c)*S + s]. For a vector tensor (S = 1) it is the vector itself.
- */
-export function computeChannelMeans(activation: Float32Array, rows: number, channels: number, spatial: number, out: Float32Array = new Float32Array(rows * channels)): Float32Array {
-  const inverse = 1 / spatial;
-  for (let r = 0; r < rows; r++) {
-    for (let c = 0; c < channels; c++) {
-      const start = (r * channels + c) * spatial; // layout: i = ((r*C + c)*S + s)
-      let sum = 0;
-      for (let s = 0; s < spatial; s++) sum += activation[start + s]!;
-      out[r * channels + c] = sum * inverse;
-    }
-  }
-  return out;
 }
