@@ -21,20 +21,7 @@ export interface TailGraph {
  * Returns null when nothing depends on the sites (e.g. a site that is only a graph output).
  */
 export function extractTail(model: LoadedModel, structure: GraphStructure, sites: readonly string[], outputs: readonly string[], recompute: ReadonlySet<string> = new Set()): TailGraph | null {
-  const inTail = new Uint8Array(structure.nodes.length);
-  const computed = new Set<string>();
-  const queue = [...sites];
-  while (queue.length > 0) {
-    const tensor = queue.pop()!;
-    for (const consumer of structure.consumers.get(tensor) ?? []) {
-      if (inTail[consumer]) continue;
-      inTail[consumer] = 1;
-      for (const out of structure.nodes[consumer]!.outputs) {
-        computed.add(out);
-        queue.push(out);
-      }
-    }
-  }
+  const { inTail, computed } = downstreamOf(structure, sites);
   // Upstream tensors the caller cannot feed are recomputed inside the tail from their own inputs
   // (they are not affected by the modulation, so this reproduces their baseline values).
   const helpers = new Set<string>();
@@ -46,14 +33,7 @@ export function extractTail(model: LoadedModel, structure: GraphStructure, sites
   }
   // Static tensors (initializers, and outputs of nodes fed only by static tensors, e.g. Constant) are
   // computed inside the tail wherever tail nodes read them, instead of being fed.
-  const isStatic = new Uint8Array(structure.nodes.length);
-  const staticTensors = new Set(structure.initializers);
-  structure.nodes.forEach((node, i) => {
-    if (node.inputs.every((input) => !input || staticTensors.has(input))) {
-      isStatic[i] = 1;
-      for (const out of node.outputs) staticTensors.add(out);
-    }
-  });
+  const { isStatic, staticTensors } = staticPart(structure);
   const needStatic = (tensor: string): void => {
     const p = structure.producer.get(tensor);
     if (p === undefined || !isStatic[p] || inTail[p]) return;
@@ -82,7 +62,7 @@ export function extractTail(model: LoadedModel, structure: GraphStructure, sites
     }
   });
   for (const site of sites) {
-    if (!computed.has(site) && !boundarySet.has(site)) {
+    if (!computed.has(site) && !helpers.has(site) && !boundarySet.has(site)) {
       boundarySet.add(site);
       boundary.push(site);
     }
@@ -100,4 +80,76 @@ export function extractTail(model: LoadedModel, structure: GraphStructure, sites
   });
   const proto = Object.assign(Object.create(Object.getPrototypeOf(model.proto)), model.proto, { graph: newGraph });
   return { model: { ...model, proto, outputs: tailOutputs }, boundary, computed };
+}
+
+/** Nodes that depend on any of `sites` (flags in topological order) and the tensors they compute. */
+function downstreamOf(structure: GraphStructure, sites: readonly string[]): { inTail: Uint8Array; computed: Set<string> } {
+  const inTail = new Uint8Array(structure.nodes.length);
+  const computed = new Set<string>();
+  const queue = [...sites];
+  while (queue.length > 0) {
+    const tensor = queue.pop()!;
+    for (const consumer of structure.consumers.get(tensor) ?? []) {
+      if (inTail[consumer]) continue;
+      inTail[consumer] = 1;
+      for (const out of structure.nodes[consumer]!.outputs) {
+        computed.add(out);
+        queue.push(out);
+      }
+    }
+  }
+  return { inTail, computed };
+}
+
+/** Nodes fed only by initializers or by other such nodes (e.g. Constant), and every tensor that is static so. */
+function staticPart(structure: GraphStructure): { isStatic: Uint8Array; staticTensors: Set<string> } {
+  const isStatic = new Uint8Array(structure.nodes.length);
+  const staticTensors = new Set(structure.initializers);
+  structure.nodes.forEach((node, i) => {
+    if (node.inputs.every((input) => !input || staticTensors.has(input))) {
+      isStatic[i] = 1;
+      for (const out of node.outputs) staticTensors.add(out);
+    }
+  });
+  return { isStatic, staticTensors };
+}
+
+/** Where the tail of some sites can be fed from: the upstream tensors it must recompute, or the one it cannot reach. */
+export type UpstreamCut = { recompute: Set<string> } | { missing: string };
+
+/**
+ * Finds the cut between the network input and `sites` that lies closest to the sites among tensors
+ * `canFeed` accepts (e.g. those a baseline recorded at full float32 resolution). Walking upstream from
+ * every tensor the downstream part reads (the sites included, unless one is computed downstream of
+ * another), a tensor that can be fed ends the walk; one that cannot is recomputed from its producer's
+ * inputs, which are walked in turn. Static tensors (weights, constants) are never fed. The recompute
+ * set is what `extractTail` takes, so that the tail computes the sites themselves from the cut.
+ * @returns the tensors to recompute (empty when everything read is fed), or `missing`: the first tensor
+ *   reached that cannot be fed and has no producer (the network input: no such cut exists).
+ */
+export function upstreamCut(structure: GraphStructure, sites: readonly string[], canFeed: (tensor: string) => boolean): UpstreamCut {
+  const { inTail, computed } = downstreamOf(structure, sites);
+  const { staticTensors } = staticPart(structure);
+  const recompute = new Set<string>();
+  const seen = new Set<string>();
+  const queue: string[] = [];
+  const need = (tensor: string): void => {
+    if (!tensor || seen.has(tensor) || computed.has(tensor) || staticTensors.has(tensor)) return;
+    seen.add(tensor);
+    queue.push(tensor);
+  };
+  structure.nodes.forEach((node, i) => {
+    if (inTail[i]) for (const input of node.inputs) need(input);
+  });
+  for (const site of sites) need(site);
+  // breadth first, so that `missing` names a tensor on a shortest unfed path
+  for (let head = 0; head < queue.length; head++) {
+    const tensor = queue[head]!;
+    if (canFeed(tensor)) continue;
+    const p = structure.producer.get(tensor);
+    if (p === undefined) return { missing: tensor };
+    recompute.add(tensor);
+    for (const input of structure.nodes[p]!.inputs) need(input);
+  }
+  return { recompute };
 }

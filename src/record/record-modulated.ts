@@ -5,11 +5,12 @@ import { RuntimeFailure, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
-import { extractTail } from '../graph/tail.js';
+import { extractTail, upstreamCut } from '../graph/tail.js';
 import { fillModulationInputs, inputLength } from '../modulation/inputs.js';
 import { resolveModulations } from '../modulation/resolve.js';
 import { loadModulationSpec } from '../modulation/spec.js';
-import type { ModulationSpec, ResolveContext, ResolvedModulation, SiteShape } from '../modulation/types.js';
+import type { ModulationSpec, ResolveContext, ResolvedModulation } from '../modulation/types.js';
+import { modulationSites } from './site-shapes.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import { LayerFileWriter } from '../snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
@@ -37,20 +38,12 @@ export interface RecordModulatedOptions extends RecordOptions {
   fullRun?: boolean;
 }
 
-/** Per-stimulus site geometry for the resolver: [C, H, W] maps and [C] vectors. */
-export function siteShapes(layers: readonly LayerInfo[]): Map<string, SiteShape> {
-  const sites = new Map<string, SiteShape>();
-  for (const layer of layers) {
-    if (layer.shape.length === 3) sites.set(layer.name, { channels: layer.shape[0]!, height: layer.shape[1]!, width: layer.shape[2]! });
-    else if (layer.shape.length === 1) sites.set(layer.name, { channels: layer.shape[0]!, height: 1, width: 1 });
-  }
-  return sites;
-}
+export { siteShapes } from './site-shapes.js';
 
 /** Resolves a spec against an inspected model (throws UsageErrors naming the field). */
 export function resolveForModel(spec: ModulationSpec, inspection: ModelInspection, categories: readonly string[] | undefined, tables: ResolveContext['tables']): ResolvedModulation[] {
   return resolveModulations(spec, {
-    sites: siteShapes(inspection.layers),
+    sites: modulationSites(inspection),
     siteNames: inspection.layers.map((l) => l.name),
     ...(categories ? { categories } : {}),
     ...(tables ? { tables } : {}),
@@ -58,9 +51,8 @@ export function resolveForModel(spec: ModulationSpec, inspection: ModelInspectio
 }
 
 /** The injection sites for resolved modulations. */
-export function injectionSites(resolved: readonly ResolvedModulation[], inspection: ModelInspection): InjectionSite[] {
-  const byName = new Map(inspection.layers.map((l) => [l.name, l]));
-  return resolved.map((r) => ({ site: r.site, shape: byName.get(r.site)!.shape, spatial: r.spatial }));
+export function injectionSites(resolved: readonly ResolvedModulation[], _inspection?: ModelInspection): InjectionSite[] {
+  return resolved.map((r) => ({ site: r.site, shape: r.siteShape.shape, spatial: r.spatial, featureAxis: r.siteShape.layout.featureAxis ?? 0, ...(r.siteShape.shared ? { shared: true } : {}) }));
 }
 
 /** Builds the G/B feeds of every site for a batch. */
@@ -143,6 +135,11 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
     if ('tail' in plan) {
       return replayTail({ options, model, inspection, baseline, resolved, sites, tail: plan.tail, manifestModulation, manifestBaseline: manifestBaseline! });
     }
+    if (!options.fullRun) {
+      const unrecorded = [...new Set(resolved.map((r) => r.site))].filter((site) => !layerNames.includes(site));
+      const fix = unrecorded.length > 0 ? `record the baseline with --layers 'default+${unrecorded.join('+')}' (full, float32)` : 'record the baseline with --keep full --dtype float32';
+      options.onNotice?.(`running the whole network: ${plan.reason}; to replay only the part downstream of the site, ${fix}`);
+    }
     const summary = await recordSnapshot({
       ...options,
       model,
@@ -177,29 +174,27 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
 /** Either a replayable tail or the reason why the whole network must run. */
 export type TailPlan = { tail: NonNullable<ReturnType<typeof extractTail>> } | { reason: string };
 
-/** Decides whether the tail can be replayed from `baseline`, and why not. */
+/**
+ * Decides whether the tail can be replayed from `baseline`, and why not. The tail is fed from the cut
+ * closest to the sites among the tensors the baseline recorded at full float32 resolution
+ * (`upstreamCut`): a site the baseline did not record (or kept only as channel means or float16) is
+ * computed from recorded tensors further upstream, together with the unrecorded tensors between them.
+ */
 export function planTail(model: LoadedModel, inspection: ModelInspection, baseline: Snapshot, sites: string[], layerNames: string[]): TailPlan {
   const recorded = new Map(baseline.manifest.layers.map((l) => [l.name, l]));
-  const recompute = new Set<string>();
-  // Grow the tail upstream over tensors the baseline cannot feed, until every boundary tensor is recorded.
-  for (let round = 0; round <= inspection.structure.nodes.length; round++) {
-    const tail = extractTail(model, inspection.structure, sites, layerNames, recompute);
-    if (!tail) return { reason: 'nothing downstream of the sites' };
-    let grown = false;
-    for (const name of tail.boundary) {
-      const entry = recorded.get(name);
-      if (entry && entry.keep === 'full' && entry.dtype === 'float32') continue;
-      if (sites.includes(name)) {
-        if (!entry) return { reason: `the baseline did not record the site "${name}"` };
-        return { reason: entry.keep !== 'full' ? `the baseline kept only channel means of the site "${name}"` : `the baseline stored the site "${name}" as ${entry.dtype}` };
-      }
-      if (!inspection.structure.producer.has(name)) return { reason: `the downstream part needs "${name}", which the baseline did not record at full float32 resolution` };
-      recompute.add(name);
-      grown = true;
-    }
-    if (!grown) return { tail };
+  const canFeed = (name: string): boolean => {
+    const entry = recorded.get(name);
+    return entry !== undefined && entry.keep === 'full' && entry.dtype === 'float32';
+  };
+  const cut = upstreamCut(inspection.structure, sites, canFeed);
+  if ('missing' in cut) {
+    const unfed = sites.filter((site) => !canFeed(site));
+    const what = unfed.length > 0 ? `the site${unfed.length > 1 ? 's' : ''} ${unfed.map((s) => `"${s}"`).join(', ')}` : 'the part downstream of the sites';
+    return { reason: `no tensors the baseline recorded at full float32 resolution separate ${what} from "${cut.missing}"` };
   }
-  return { reason: 'the downstream part could not be separated from the rest of the network' };
+  const tail = extractTail(model, inspection.structure, sites, layerNames, cut.recompute);
+  if (!tail) return { reason: 'nothing downstream of the sites' };
+  return { tail };
 }
 
 interface TailRun {
