@@ -6,10 +6,14 @@ import { makeValueInfo, type NodeProto, type ValueInfoProto } from './onnx.js';
 export interface InjectionSite {
   /** The site tensor (a node output or, in a tail graph, a graph input). */
   site: string;
-  /** Per-stimulus shape of the site (batch dropped): [C, H, W] or [C]. */
+  /** Per-stimulus shape of the site (batch dropped): [C, H, W], [C] or tokens [T, D]; for a shared site the whole tensor's shape. */
   shape: number[];
-  /** G and B cover every position ([N, C, H, W]) instead of one value per channel ([N, C, 1, 1]). */
+  /** G and B cover every position ([N, C, H, W], [N, T, D]) instead of one value per feature ([N, C, 1, 1], [N, 1, D]). */
   spatial: boolean;
+  /** Axis of `shape` that holds features (default 0: channels first). */
+  featureAxis?: number;
+  /** The tensor's first axis is not the batch: G and B are one broadcast row `[1, …, F, …]` for every stimulus. */
+  shared?: boolean;
 }
 
 /** Names of the extra graph inputs that carry a site's gain and offset. */
@@ -17,10 +21,16 @@ export function modulationInputNames(site: string): { gain: string; offset: stri
   return { gain: `sonde.gain:${site}`, offset: `sonde.offset:${site}` };
 }
 
-/** Dims of a site's G/B input for `rows` stimuli: [rows, C, 1, ...] or the full shape when spatial. */
+/**
+ * Dims of a site's G/B input for `rows` stimuli: the site's shape with every non-feature axis 1
+ * ([rows, C, 1, 1], [rows, 1, D]), or the full shape when spatial; a shared site's dims have no rows
+ * axis ([1, D] for a [T·N, D] tensor).
+ */
 export function modulationInputDims(site: InjectionSite, rows: number): number[] {
-  const [channels, ...rest] = site.shape;
-  return [rows, channels ?? 1, ...(site.spatial ? rest : rest.map(() => 1))];
+  const axis = site.featureAxis ?? 0;
+  const dims = site.shape.map((size, a) => (site.spatial || a === axis ? size : 1));
+  if (site.shape.length === 0) dims.push(1);
+  return site.shared ? dims : [rows, ...dims];
 }
 
 /**
@@ -57,7 +67,7 @@ export function injectModulations(model: LoadedModel, sites: readonly InjectionS
       inputs[inputIndex] = { ...inputs[inputIndex]!, name: raw };
       nodes.unshift(...inserted);
     }
-    const dims = ['batch', ...modulationInputDims(site, 1).slice(1)];
+    const dims = site.shared ? modulationInputDims(site, 1) : ['batch', ...modulationInputDims(site, 1).slice(1)];
     inputs.push(makeValueInfo(names.gain, 1, dims), makeValueInfo(names.offset, 1, dims));
   }
   const proto = Object.assign(Object.create(Object.getPrototypeOf(model.proto)), model.proto, {

@@ -1,17 +1,21 @@
 /**
  * Filling the injected G (gain) and B (offset) inputs of a modulated model for one batch.
  *
- * Layout: `[rows, C, 1, 1]` when the modulation is not spatial, `[rows, C, H, W]` when it has a window
- * (NCHW: i = ((n*C + c)*H + h)*W + w). With window weight w at a position and the modulation's own
- * gain g and offset b there: G = outside + w·(g − outside), B = w·b (no window: G = g, B = b).
+ * Layout: the site's shape with its position axes set to 1 when the modulation is not spatial
+ * (`[rows, C, 1, 1]`, `[rows, 1, D]`; i = n·F + f), the site's whole shape when a window or a token
+ * selection weighs positions (`[rows, C, H, W]`, `[rows, T, D]`; i = n·O·F·I + (o·F + f)·I + i' in the
+ * layout geometry, so NCHW: i = ((n*C + c)*H + h)*W + w). With position weight w and the modulation's
+ * own gain g and offset b there: G = outside + w·(g − outside), B = w·b (no weights: G = g, B = b). A
+ * shared site (first axis not the batch) gets one row whatever `rows` is.
  *
  * Noise is drawn per stimulus from `createRandom(seed).fork(site).fork(stimulusIndex)`, one standard
- * normal z per channel (per channel and position when spatial) in NCHW order within the stimulus, so a
- * stimulus gets the same draw whatever batch it lands in. Multiplicative: g = g_k·(1 + sd·z), clamped
+ * normal z per feature (per feature and position when spatial) in the element order of the stimulus
+ * (NCHW for maps), so a stimulus gets the same draw whatever batch it lands in. Multiplicative: g = g_k·(1 + sd·z), clamped
  * at 0 unless `allowNegative`; additive: b = b_k + sd·z.
  */
 import { RuntimeFailure } from '../errors.js';
 import { createRandom } from '../random.js';
+import { gainInputDims, siteGeometry } from './site-shape.js';
 import type { ResolvedModulation } from './types.js';
 
 export { gainFromValues, normaliseAcrossCategories } from './gain-pattern.js';
@@ -28,22 +32,25 @@ export interface BatchRange {
 export interface ModulationInputs {
   gain: Float32Array;
   offset: Float32Array;
-  shape: [number, number, number, number];
+  shape: number[];
 }
 
 /**
- * Shape of the G and B inputs for a batch: `[rows, C, 1, 1]`, or `[rows, C, H, W]` when spatial.
+ * Shape of the G and B inputs for a batch: `[rows, C, 1, 1]` or `[rows, C, H, W]` (spatial) for a map,
+ * `[rows, C, 1, 1]` for a vector (as fed: `[rows, C]`), `[rows, 1, D]` or `[rows, T, D]` for tokens;
+ * for a shared site the one broadcast row (`[1, D]`).
  * @throws RuntimeFailure when `rows` is not a non-negative integer.
  */
-export function inputShape(resolved: ResolvedModulation, rows: number): [number, number, number, number] {
+export function inputShape(resolved: ResolvedModulation, rows: number): number[] {
   checkCount(rows, 'rows');
-  return resolved.spatial ? [rows, resolved.channels, resolved.height, resolved.width] : [rows, resolved.channels, 1, 1];
+  const site = resolved.siteShape;
+  if (!site.shared && site.layout.kind === 'vector') return [rows, resolved.features, 1, 1];
+  return gainInputDims(site, rows, resolved.spatial);
 }
 
 /** Number of elements of each of G and B for a batch of `rows` (the product of `inputShape`). */
 export function inputLength(resolved: ResolvedModulation, rows: number): number {
-  const [n, c, h, w] = inputShape(resolved, rows);
-  return n * c * h * w;
+  return inputShape(resolved, rows).reduce((a, b) => a * b, 1);
 }
 
 /**
@@ -67,7 +74,8 @@ export function fillModulationInputs(resolved: ResolvedModulation, batch: BatchR
       `fillModulationInputs(${JSON.stringify(resolved.site)}): buffers must hold ${length} values ([${shape}]), got gain ${gainOut.length}, offset ${offsetOut.length}`,
     );
   }
-  if (resolved.spatial) fillSpatial(resolved, firstStimulus, rows, gainOut, offsetOut);
+  if (resolved.siteShape.shared) fillPerChannel(resolved, 0, 1, gainOut, offsetOut);
+  else if (resolved.spatial) fillSpatial(resolved, firstStimulus, rows, gainOut, offsetOut);
   else fillPerChannel(resolved, firstStimulus, rows, gainOut, offsetOut);
 }
 
@@ -98,9 +106,9 @@ function checkCount(n: number, name: string): void {
   if (!Number.isSafeInteger(n) || n < 0) throw new RuntimeFailure('E_MODULATION_BUFFER', `modulation inputs: ${name} must be an integer ≥ 0, got ${n}`);
 }
 
-// [rows, C, 1, 1]: i = n*C + c
+// [rows, C, 1, 1] or [rows, 1, D]: i = n*F + f
 function fillPerChannel(r: ResolvedModulation, first: number, rows: number, gainOut: Float32Array, offsetOut: Float32Array): void {
-  const channels = r.channels;
+  const channels = r.features;
   const { gain, offset, noise } = r;
   if (noise === null) {
     for (let n = 0; n < rows; n++) {
@@ -134,26 +142,29 @@ function fillPerChannel(r: ResolvedModulation, first: number, rows: number, gain
   }
 }
 
-// [rows, C, H, W]: i = ((n*C + c)*H + h)*W + w = (n*C + c)*P + p with P = H*W, p = h*W + w
+// spatial: i = n*O*F*I + (o*F + f)*I + i' with position p = o*I + i' (NCHW: O = 1, I = H*W, p = h*W + w;
+// tokens: O = T, I = 1, p = token)
 function fillSpatial(r: ResolvedModulation, first: number, rows: number, gainOut: Float32Array, offsetOut: Float32Array): void {
-  const channels = r.channels;
-  const positions = r.height * r.width;
+  const { outer, features: channels, inner } = siteGeometry(r.siteShape);
+  const rowLength = outer * channels * inner;
   const weights = r.window!;
   const outside = r.outside;
   const { gain, offset, noise } = r;
   if (noise === null) {
     // every row is the same: build row 0, then copy it
-    for (let c = 0; c < channels; c++) {
-      const g = gain[c]!;
-      const b = offset[c]!;
-      const start = c * positions;
-      for (let p = 0; p < positions; p++) {
-        const w = weights[p]!;
-        gainOut[start + p] = outside + w * (g - outside);
-        offsetOut[start + p] = w * b;
+    for (let o = 0; o < outer; o++) {
+      for (let c = 0; c < channels; c++) {
+        const g = gain[c]!;
+        const b = offset[c]!;
+        const start = (o * channels + c) * inner;
+        const at = o * inner;
+        for (let i = 0; i < inner; i++) {
+          const w = weights[at + i]!;
+          gainOut[start + i] = outside + w * (g - outside);
+          offsetOut[start + i] = w * b;
+        }
       }
     }
-    const rowLength = channels * positions;
     for (let n = 1; n < rows; n++) {
       gainOut.copyWithin(n * rowLength, 0, rowLength);
       offsetOut.copyWithin(n * rowLength, 0, rowLength);
@@ -163,33 +174,29 @@ function fillSpatial(r: ResolvedModulation, first: number, rows: number, gainOut
   const stream = createRandom(noise.seed).fork(r.site);
   const sd = noise.sd;
   const lower = r.allowNegative ? -Infinity : 0;
-  if (noise.mode === 'multiplicative') {
-    for (let n = 0; n < rows; n++) {
-      const random = stream.fork(first + n);
+  const multiplicative = noise.mode === 'multiplicative';
+  for (let n = 0; n < rows; n++) {
+    const random = stream.fork(first + n);
+    for (let o = 0; o < outer; o++) {
+      const at = o * inner;
       for (let c = 0; c < channels; c++) {
-        const start = (n * channels + c) * positions;
+        const start = n * rowLength + (o * channels + c) * inner;
         const gc = gain[c]!;
-        const b = offset[c]!;
-        for (let p = 0; p < positions; p++) {
-          const w = weights[p]!;
-          let g = gc * (1 + sd * random.normal());
-          if (g < lower) g = lower;
-          gainOut[start + p] = outside + w * (g - outside);
-          offsetOut[start + p] = w * b;
-        }
-      }
-    }
-  } else {
-    for (let n = 0; n < rows; n++) {
-      const random = stream.fork(first + n);
-      for (let c = 0; c < channels; c++) {
-        const start = (n * channels + c) * positions;
-        const g = gain[c]!;
         const bc = offset[c]!;
-        for (let p = 0; p < positions; p++) {
-          const w = weights[p]!;
-          gainOut[start + p] = outside + w * (g - outside);
-          offsetOut[start + p] = w * (bc + sd * random.normal());
+        if (multiplicative) {
+          for (let i = 0; i < inner; i++) {
+            const w = weights[at + i]!;
+            let g = gc * (1 + sd * random.normal());
+            if (g < lower) g = lower;
+            gainOut[start + i] = outside + w * (g - outside);
+            offsetOut[start + i] = w * bc;
+          }
+        } else {
+          for (let i = 0; i < inner; i++) {
+            const w = weights[at + i]!;
+            gainOut[start + i] = outside + w * (gc - outside);
+            offsetOut[start + i] = w * (bc + sd * random.normal());
+          }
         }
       }
     }

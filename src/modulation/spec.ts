@@ -16,7 +16,16 @@
  *
  * `window` is `{ shape: box, x0, x1, y0, y1 }` or `{ shape: gaussian, cx, cy, sigma }`, coordinates in
  * [0, 1] relative to the map, plus optional `outside` (gain outside the window, default 1); see
- * `types.ts` for the weights. A key a kind does not use is an error, as is any unknown key: a spec
+ * `types.ts` for the weights. On a token tensor the window falls on the patch grid (prefix tokens such
+ * as the class token lie outside it).
+ *
+ * Token tensors and heads (keys every kind accepts):
+ * - `tokens`: a token selection, `[class, 5, [2, 3], patches]` (class token, token index, patch
+ *   `[row, column]` of the grid, every patch) or `{ at: [...], outside: G }`; the modulation applies to
+ *   the chosen tokens only, the others get `outside` (default 1). Not together with `window`.
+ * - `per: head`: the vector (`values`), the lesion list and table rows index the heads of a multi-head
+ *   tensor instead of its features; `headCount: H` says how many heads there are when the model does
+ *   not. A lesion may list heads directly: `heads: [3, 7]`. A key a kind does not use is an error, as is any unknown key: a spec
  * either means exactly what it says or is rejected. Every message starts with the source and the field
  * path, e.g. `spec.yaml: modulations[1].strength must be a finite number, got "abc"`.
  */
@@ -33,8 +42,16 @@ import {
   type ModulationKind,
   type ModulationSpec,
   type SpatialWindow,
+  type TokenChoice,
+  type TokenSelection,
 } from './types.js';
-import { parseJson } from '../json.js';
+
+/** One token choice: an index, `class`, `patches`, or a patch `[row, column]`. */
+const TOKEN_CHOICE = z.union([z.number().int().nonnegative(), z.literal('class'), z.literal('patches'), z.tuple([z.number().int().nonnegative(), z.number().int().nonnegative()])]);
+const TOKEN_LIST = z.array(TOKEN_CHOICE).min(1);
+const TOKEN_OBJECT = z.strictObject({ at: TOKEN_LIST, outside: z.number().finite().optional() });
+import { parseJson, schemaProblem } from '../json.js';
+import { z } from 'zod';
 
 /** Options of `parseModulationSpec`. */
 export interface ParseSpecOptions {
@@ -46,14 +63,14 @@ export interface ParseSpecOptions {
   source: string;
 }
 
-const COMMON_KEYS = ['site', 'kind', 'window', 'allowNegative'] as const;
+const COMMON_KEYS = ['site', 'kind', 'window', 'tokens', 'per', 'headCount', 'allowNegative'] as const;
 
 /** Keys each kind accepts, besides the common ones. */
 const KIND_KEYS: Record<ModulationKind, readonly string[]> = {
   gain: ['values'],
   uniform: ['gain', 'strength'],
   offset: ['values'],
-  lesion: ['channels', 'top', 'target', 'rankBy'],
+  lesion: ['channels', 'heads', 'top', 'target', 'rankBy'],
   noise: ['mode', 'sd', 'seed'],
   tuning: ['target', 'strength'],
   sensitivity: ['target', 'strength'],
@@ -151,7 +168,13 @@ export function specToObject(spec: ModulationSpec): Record<string, unknown> {
     delete copy['valuesFile'];
     if (m.window !== undefined) copy['window'] = { ...m.window };
     if ('values' in m) copy['values'] = [...m.values];
-    if ('channels' in m) copy['channels'] = [...m.channels];
+    if (m.tokens !== undefined) copy['tokens'] = { at: m.tokens.at.map((c) => (Array.isArray(c) ? [...c] : c)), outside: m.tokens.outside };
+    if ('channels' in m) {
+      if (m.per === 'head') {
+        delete copy['channels'];
+        copy['heads'] = [...m.channels];
+      } else copy['channels'] = [...m.channels];
+    }
     if (m.kind === 'uniform') {
       // written with the unambiguous key (the gain itself); `strength` still reads the same
       delete copy['strength'];
@@ -267,7 +290,14 @@ class SpecReader {
     if (typeof site !== 'string' || site.length === 0) this.fail(join(path, 'site'), `must be a non-empty tensor name, got ${describeValue(site)}`);
     const allowNegative = this.optionalBoolean(value, join(path, 'allowNegative'), false);
     const window = Object.hasOwn(value, 'window') ? this.window(value['window'], join(path, 'window'), allowNegative) : undefined;
-    const common = window === undefined ? { site, allowNegative } : { site, window, allowNegative };
+    const tokens = Object.hasOwn(value, 'tokens') ? this.tokens(value['tokens'], join(path, 'tokens'), allowNegative) : undefined;
+    if (window !== undefined && tokens !== undefined) this.fail(join(path, 'tokens'), 'cannot be combined with window; select positions either by a window on the grid or by a token list');
+    const perHead = this.unit(value, path, kind);
+    const common: { site: string; window?: SpatialWindow; tokens?: TokenSelection; per?: 'head'; headCount?: number; allowNegative: boolean } = { site, allowNegative };
+    if (window !== undefined) common.window = window;
+    if (tokens !== undefined) common.tokens = tokens;
+    if (perHead.per !== undefined) common.per = perHead.per;
+    if (perHead.headCount !== undefined) common.headCount = perHead.headCount;
     switch (kind) {
       case 'gain': {
         const { values, valuesFile } = this.vector(value, path, 'gains');
@@ -315,28 +345,32 @@ class SpecReader {
     }
   }
 
-  private lesion(value: Record<string, unknown>, path: string, common: { site: string; window?: SpatialWindow; allowNegative: boolean }): Modulation {
-    const hasChannels = Object.hasOwn(value, 'channels');
+  private lesion(value: Record<string, unknown>, path: string, common: { site: string; window?: SpatialWindow; per?: 'head'; allowNegative: boolean }): Modulation {
+    const hasHeads = Object.hasOwn(value, 'heads');
+    const listKey = hasHeads ? 'heads' : 'channels';
+    const unit = hasHeads ? 'head' : 'channel';
+    if (hasHeads && Object.hasOwn(value, 'channels')) this.fail(join(path, 'heads'), 'cannot be combined with channels; lesion either channels: [..] or heads: [..]');
+    const hasChannels = Object.hasOwn(value, listKey);
     const hasTop = Object.hasOwn(value, 'top');
-    if (hasChannels && hasTop) this.fail(join(path, 'top'), 'cannot be combined with channels; give either channels: [..] or top: k with target');
+    if (hasChannels && hasTop) this.fail(join(path, 'top'), `cannot be combined with ${listKey}; give either ${listKey}: [..] or top: k with target`);
     if (hasChannels) {
       for (const key of ['target', 'rankBy']) {
-        if (Object.hasOwn(value, key)) this.fail(join(path, key), 'is only used with top: k (a lesion with channels: [..] lesions exactly those)');
+        if (Object.hasOwn(value, key)) this.fail(join(path, key), `is only used with top: k (a lesion with ${listKey}: [..] lesions exactly those)`);
       }
-      const list = value['channels'];
-      const listPath = join(path, 'channels');
-      if (!Array.isArray(list)) this.fail(listPath, `must be a list of channel indices, got ${describeValue(list)}`);
-      if (list.length === 0) this.fail(listPath, 'is empty; name at least one channel to lesion');
+      const list = value[listKey];
+      const listPath = join(path, listKey);
+      if (!Array.isArray(list)) this.fail(listPath, `must be a list of ${unit} indices, got ${describeValue(list)}`);
+      if (list.length === 0) this.fail(listPath, `is empty; name at least one ${unit} to lesion`);
       const seen = new Set<number>();
       const channels = list.map((c: unknown, i) => {
-        if (typeof c !== 'number' || !Number.isSafeInteger(c) || c < 0) this.fail(`${listPath}[${i}]`, `must be a channel index (integer ≥ 0), got ${describeValue(c)}`);
-        if (seen.has(c)) this.fail(`${listPath}[${i}]`, `repeats channel ${c}`);
+        if (typeof c !== 'number' || !Number.isSafeInteger(c) || c < 0) this.fail(`${listPath}[${i}]`, `must be a ${unit} index (integer ≥ 0), got ${describeValue(c)}`);
+        if (seen.has(c)) this.fail(`${listPath}[${i}]`, `repeats ${unit} ${c}`);
         seen.add(c);
         return c;
       });
-      return { kind: 'lesion', ...common, channels };
+      return hasHeads ? { kind: 'lesion', ...common, per: 'head', channels } : { kind: 'lesion', ...common, channels };
     }
-    if (!hasTop) this.fail(join(path, 'channels'), 'is required: a lesion needs channels: [..] or top: k with target');
+    if (!hasTop) this.fail(join(path, 'channels'), 'is required: a lesion needs channels: [..], heads: [..] or top: k with target');
     const top = value['top'];
     if (typeof top !== 'number' || !Number.isSafeInteger(top) || top < 1) this.fail(join(path, 'top'), `must be an integer ≥ 1, got ${describeValue(top)}`);
     const target = this.category(value, join(path, 'target'), 'lesion with top');
@@ -347,6 +381,45 @@ class SpecReader {
       rankBy = r;
     }
     return { kind: 'lesion', ...common, top, target, rankBy };
+  }
+
+  /** `per` and `headCount` (and a lesion's `heads` list, which implies `per: head`). */
+  private unit(value: Record<string, unknown>, path: string, kind: ModulationKind): { per?: 'head'; headCount?: number } {
+    const out: { per?: 'head'; headCount?: number } = {};
+    if (Object.hasOwn(value, 'per')) {
+      const per = value['per'];
+      if (per !== 'feature' && per !== 'head' && per !== 'channel') this.fail(join(path, 'per'), `must be feature or head, got ${describeValue(per)}`);
+      if (per === 'head') out.per = 'head';
+      if (per !== 'head' && Object.hasOwn(value, 'heads')) this.fail(join(path, 'heads'), `lists heads, but per is ${per}; drop per or write per: head`);
+    }
+    if (Object.hasOwn(value, 'heads')) out.per = 'head';
+    if (out.per === 'head' && kind === 'noise') this.fail(join(path, 'per'), 'is head, but noise is drawn per feature and position; remove per: head');
+    if (Object.hasOwn(value, 'headCount')) {
+      const h = value['headCount'];
+      if (typeof h !== 'number' || !Number.isSafeInteger(h) || h < 1) this.fail(join(path, 'headCount'), `must be an integer ≥ 1, got ${describeValue(h)}`);
+      if (out.per !== 'head') this.fail(join(path, 'headCount'), 'is only used with per: head (or a lesion with heads: [..])');
+      out.headCount = h;
+    }
+    return out;
+  }
+
+  /** A token selection: a list of choices, or `{ at: [...], outside }`. */
+  private tokens(value: unknown, path: string, allowNegative: boolean): TokenSelection {
+    const list = Array.isArray(value);
+    const problem = schemaProblem(list ? TOKEN_LIST : TOKEN_OBJECT, value);
+    if (problem !== null) {
+      this.fail(path, `must be a list of tokens (an index, class, patches or a patch [row, column]) or { at: [..], outside: G }: ${problem}`);
+    }
+    const parsed = list ? { at: value as TokenChoice[] } : (value as { at: TokenChoice[]; outside?: number });
+    const outside = parsed.outside ?? 1;
+    if (outside < 0 && !allowNegative) this.fail(join(path, 'outside'), `is ${outside}; gains must be ≥ 0`, NEGATIVE_HINT);
+    const seen = new Set<string>();
+    parsed.at.forEach((choice, i) => {
+      const key = JSON.stringify(choice);
+      if (seen.has(key)) this.fail(`${list ? path : join(path, 'at')}[${i}]`, `repeats ${key}`);
+      seen.add(key);
+    });
+    return { at: parsed.at.map((c) => (Array.isArray(c) ? [c[0], c[1]] : c)), outside };
   }
 
   private vector(value: Record<string, unknown>, path: string, what: string): { values: number[]; valuesFile?: string } {

@@ -5,8 +5,13 @@
  * `resolve.ts`, tensor filling in `inputs.ts`.
  *
  * Every modulation becomes `y = x * G + B` at its site tensor, where G (gain) and B (offset) are extra
- * model inputs shaped `[N, C, 1, 1]`, or `[N, C, H, W]` when a spatial window is used.
+ * model inputs shaped like the site with every position axis set to 1 (`[N, C, 1, 1]` for a feature
+ * map, `[N, 1, D]` for a token tensor), or like the whole site (`[N, C, H, W]`, `[N, T, D]`) when a
+ * window or a token selection makes the gain differ between positions. A site whose first axis is not
+ * the batch (an attention output with batch and tokens merged, `[T·N, D]`) takes one G shared by every
+ * stimulus, shaped `[1, D]`.
  */
+import type { TensorLayout, TokenGrid } from '../graph/layout.js';
 
 /** The modulation kinds a spec may name. */
 export const MODULATION_KINDS = ['gain', 'uniform', 'offset', 'lesion', 'noise', 'tuning', 'sensitivity'] as const;
@@ -50,12 +55,36 @@ export interface GaussianWindow {
  */
 export type SpatialWindow = BoxWindow | GaussianWindow;
 
+/**
+ * One entry of a token selection: a token index (0 is the first token), `class` (the first token of a
+ * site whose grid has prefix tokens), `patches` (every token of the patch grid), or a patch of the grid
+ * as `[row, column]` (0-based, row-major; token = prefix + row·width + column).
+ */
+export type TokenChoice = number | 'class' | 'patches' | [number, number];
+
+/** A token-selective modulation: weight 1 on the chosen tokens, 0 elsewhere (where the gain is `outside`). */
+export interface TokenSelection {
+  /** The chosen tokens, in the order written. */
+  at: TokenChoice[];
+  /** Gain applied to the tokens not chosen. Default 1. */
+  outside: number;
+}
+
+/** What a modulation's vectors and lists index: features (channels of a feature map) or heads of a multi-head tensor. */
+export type ModulationUnit = 'feature' | 'head';
+
 /** Keys every modulation kind accepts. */
 interface ModulationCommon {
   /** ONNX tensor name of the site. */
   site: string;
   /** Optional spatial window; absent means spatially global. */
   window?: SpatialWindow;
+  /** Optional token selection (token tensors only); absent means every token. Exclusive with `window`. */
+  tokens?: TokenSelection;
+  /** `head`: values, lists and table rows index heads (`headCount` of them) instead of features; absent: features. */
+  per?: 'head';
+  /** Number of heads the feature axis is split into (head h holds features h·d … h·d + d − 1); absent: from the site's layout or the graph. */
+  headCount?: number;
   /** Negative gains (values, `uniform` strength, window `outside`, clamped noise) are errors unless true. */
   allowNegative: boolean;
 }
@@ -85,10 +114,10 @@ export interface OffsetModulation extends ModulationCommon {
   valuesFile?: string;
 }
 
-/** Lesion of an explicit channel list: those channels get gain exactly 0. */
+/** Lesion of an explicit channel list (or, with `per: head`, head list): those get gain exactly 0. */
 export interface LesionListModulation extends ModulationCommon {
   kind: 'lesion';
-  /** Distinct channel indices, in the order written. */
+  /** Distinct channel (feature) indices, or head indices with `per: head` (spec key `heads`), in the order written. */
   channels: number[];
 }
 
@@ -147,14 +176,22 @@ export interface ModulationSpec {
   notices?: string[];
 }
 
-/** Shape of a site tensor as the resolver needs it. */
+/** Shape of a site tensor as the resolver needs it (build one with `siteShapeOf`, site-shape.ts). */
 export interface SiteShape {
-  /** Size of the channel axis (axis 1). */
-  channels: number;
-  /** Height of the map; 1 for `[N, C]` vectors. */
-  height: number;
-  /** Width of the map; 1 for `[N, C]` vectors. */
-  width: number;
+  /** Per-stimulus shape (batch axis dropped); for a shared site, the whole tensor's shape. */
+  shape: number[];
+  /** The tensor's layout: which axis holds features. */
+  layout: TensorLayout;
+  /** Size of the feature axis (channels of a map, D of tokens). */
+  features: number;
+  /** Positions per feature (H·W of a map, T of tokens, 1 of a vector). */
+  positions: number;
+  /** The 2-D arrangement windows and patches map onto (prefix tokens outside it); null without one. */
+  grid: TokenGrid | null;
+  /** Heads of a multi-head tensor, when the layout or the graph says. */
+  heads?: number;
+  /** True when the first axis is not the batch (batch merged with tokens): G is one `[1, …, D]` for every stimulus and position. */
+  shared?: boolean;
 }
 
 /** Looks up one site's table values for one category, or undefined when the table has none. */
@@ -183,18 +220,28 @@ export interface NoiseSettings {
 export interface ResolvedModulation {
   site: string;
   kind: ModulationKind;
-  channels: number;
-  height: number;
-  width: number;
-  /** True when G and B must be `[N, C, H, W]` (a window is set); otherwise `[N, C, 1, 1]`. */
+  /** The site's geometry (shape, layout, features, positions, grid). */
+  siteShape: SiteShape;
+  /** Size of the feature axis (F). */
+  features: number;
+  /** Positions per feature (P = outer · inner of the layout geometry). */
+  positions: number;
+  /** True when G and B cover every position (a window or a token selection is set); otherwise one value per feature. */
   spatial: boolean;
-  /** Per-channel gain g_k before window and noise, `[C]`. */
+  /** What the spec's vectors indexed; the resolved vectors are always per feature. */
+  unit: ModulationUnit;
+  /** Heads the features were grouped into (`per: head`), else null. */
+  heads: number | null;
+  /** Per-feature gain g_k before window and noise, `[F]`. */
   gain: Float32Array;
-  /** Per-channel offset b_k before window and noise, `[C]`. */
+  /** Per-feature offset b_k before window and noise, `[F]`. */
   offset: Float32Array;
-  /** Window weights `[H*W]` (row-major: i = h*W + w), or null when spatially global. */
+  /**
+   * Position weights `[P]` indexed by p = o·inner + i of the layout geometry (a map: p = h·W + w; tokens:
+   * p = token index), from a window or a token selection; null when every position is treated alike.
+   */
   window: Float32Array | null;
-  /** Gain where the window weight is 0; 1 without a window. */
+  /** Gain where the position weight is 0; 1 without a window or token selection. */
   outside: number;
   /** Noise drawn per stimulus, or null. */
   noise: NoiseSettings | null;
@@ -210,12 +257,15 @@ export interface ResolvedModulation {
 export interface ResolvedModulationRecord {
   site: string;
   kind: ModulationKind;
-  shape: { channels: number; height: number; width: number };
+  /** Feature maps and vectors: channels and map size (as before layouts); other layouts: features, positions, per-stimulus dims and layout kind. */
+  shape: { channels: number; height: number; width: number } | { features: number; positions: number; dims: number[]; layout: string; shared: boolean };
   /** The gain vector actually fed (float32 values as numbers). */
   gain: number[];
   /** The offset vector actually fed. */
   offset: number[];
   window: SpatialWindow | null;
+  /** The token selection as written, when one was given (absent otherwise, so older records are unchanged). */
+  tokens?: TokenSelection;
   outside: number;
   noise: NoiseSettings | null;
   allowNegative: boolean;

@@ -12,7 +12,7 @@ import { rocAuc } from '../stats/roc.js';
 import { detectFromScores, type ScoreDetection } from '../stats/signal-detection.js';
 import { UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
-import { injectModulations, modulationInputNames, type InjectionSite } from '../graph/inject.js';
+import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { resolveModulations } from '../modulation/resolve.js';
 import { validateModulationSpec } from '../modulation/spec.js';
@@ -334,7 +334,7 @@ function resolveSchemes(requested: readonly string[] | undefined, options: Sweep
 
 /** The per-channel gain of one cell. */
 function gainVector(site: string, scheme: SweepScheme, strength: number, category: string, seed: number, context: ResolveContext): Float32Array {
-  const channels = context.sites.get(site)!.channels;
+  const channels = context.sites.get(site)!.features;
   if (scheme === 'uniform') return new Float32Array(channels).fill(Math.max(0, 1 + strength));
   const kind = scheme === 'sensitivity' ? 'sensitivity' : 'tuning';
   const spec = validateModulationSpec({ site, kind, target: category, strength }, { source: 'sweep' });
@@ -376,7 +376,9 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   const profiled = profileLayers.filter((l) => tail.computed.has(l.name) || l.name === site);
   const fetch = [...new Set([run.readout, ...profiled.map((l) => l.name)])];
   const siteShape = baseline.layer(site).shape;
-  const injection: InjectionSite = { site, shape: siteShape, spatial: false };
+  // features along the site's layout (channels of a map, D of tokens): G is [rows, C, 1, 1] or [rows, 1, D]
+  const siteInfo = siteShapes(run.inspection.layers).get(site);
+  const injection: InjectionSite = { site, shape: siteShape, spatial: false, featureAxis: siteInfo?.layout.featureAxis ?? 0 };
   const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), fetch), { threads: run.threads, label: `${run.model.fileName} downstream of ${site}` });
   const vectors: Float32Array[] = [];
   const vectorOfCell: number[] = [];
@@ -390,7 +392,7 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
     vectorOfCell.push(seenVectors.get(key)!);
   }
   const M = vectors.length;
-  const C = siteShape[0]!;
+  const C = siteInfo?.features ?? siteShape[0]!;
   const n = baseline.manifest.stimuli.count;
   const scores = group.map(() => new Float64Array(n));
   const profileRows = Math.min(n, Math.max(0, run.profileStimuli));
@@ -413,7 +415,7 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
         const { rows, firstBatch, feeds } = replicateBoundaryFeeds(parts, tail.boundary, new Set([site]), M, baseline);
         const gain = new Float32Array(M * rows * C);
         for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(vectors[m]!, (m * rows + i) * C);
-        const dims = [M * rows, C, ...siteShape.slice(1).map(() => 1)];
+        const dims = modulationInputDims(injection, M * rows);
         feeds[names.gain] = { data: gain, dims };
         feeds[names.offset] = { data: new Float32Array(M * rows * C), dims };
         pendingBase.push(baseParts.map((p) => (p.value as LayerBatch)));

@@ -3,13 +3,14 @@ import { RuntimeFailure } from '../../src/errors.js';
 import { fillModulationInputs, identityInputs, inputLength, inputShape, modulationInputs } from '../../src/modulation/inputs.js';
 import { resolveModulations } from '../../src/modulation/resolve.js';
 import { parseModulationSpec } from '../../src/modulation/spec.js';
+import { siteShapeOf } from '../../src/modulation/site-shape.js';
 import type { ResolvedModulation, SiteShape } from '../../src/modulation/types.js';
 
 const SITES = new Map<string, SiteShape>([
-  ['map', { channels: 3, height: 4, width: 4 }],
-  ['wide', { channels: 64, height: 1, width: 1 }],
-  ['other', { channels: 64, height: 1, width: 1 }],
-  ['small', { channels: 2, height: 2, width: 4 }],
+  ['map', siteShapeOf([3, 4, 4])!],
+  ['wide', siteShapeOf([64])!],
+  ['other', siteShapeOf([64])!],
+  ['small', siteShapeOf([2, 2, 4])!],
 ]);
 
 function resolveOne(text: string): ResolvedModulation {

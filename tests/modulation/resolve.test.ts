@@ -2,12 +2,13 @@ import { describe, expect, it } from 'vitest';
 import { UsageError } from '../../src/errors.js';
 import { parseModulationSpec } from '../../src/modulation/spec.js';
 import { resolveModulations } from '../../src/modulation/resolve.js';
+import { siteShapeOf } from '../../src/modulation/site-shape.js';
 import type { ResolveContext, SiteShape } from '../../src/modulation/types.js';
 
 const SITES = new Map<string, SiteShape>([
-  ['conv1_relu', { channels: 4, height: 4, width: 4 }],
-  ['conv2_relu', { channels: 4, height: 2, width: 2 }],
-  ['fc1', { channels: 3, height: 1, width: 1 }],
+  ['conv1_relu', siteShapeOf([4, 4, 4])!],
+  ['conv2_relu', siteShapeOf([4, 2, 2])!],
+  ['fc1', siteShapeOf([3])!],
 ]);
 const SITE_NAMES = ['input', 'conv1', 'conv1_relu', 'conv2', 'conv2_relu', 'shape_of_conv2', 'fc1', 'logits'];
 const CATEGORIES = ['ring', 'cross', 'bar'];
@@ -49,7 +50,7 @@ modulations:
     expect(Array.from(offset!.gain)).toEqual([1, 1, 1, 1]);
     expect(Array.from(offset!.offset)).toEqual([-1, 0, 0.5, 3]);
     expect(Array.from(uniform!.gain)).toEqual([1.25, 1.25, 1.25]);
-    expect(uniform).toMatchObject({ site: 'fc1', channels: 3, height: 1, width: 1, spatial: false, window: null, outside: 1, noise: null });
+    expect(uniform).toMatchObject({ site: 'fc1', features: 3, positions: 1, spatial: false, window: null, outside: 1, noise: null });
   });
 
   it('resolveModulations(lesion channels) gives exactly 0 gain on the listed channels only', () => {
