@@ -9,6 +9,9 @@ import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import type { ManifestLayer } from '../snapshot/manifest.js';
 import { alignBatches } from './align-batches.js';
 import { parseDetectionTask, type CollectedTask } from './diff-task.js';
+import { categoryReadout, type CategoryReadout } from './category-readout.js';
+import { mapTag } from '../graph/category-map.js';
+import { groupScores } from '../stats/log-sum-exp.js';
 import type { DiffOptions } from './diff-types.js';
 
 /**
@@ -86,10 +89,10 @@ export async function collectDiff(base: Snapshot, mod: Snapshot, options: DiffOp
   if (floorSnapshot) assertPaired(base, floorSnapshot);
   const taskText = options.task ?? (options.target ? `detect:${options.target}` : undefined);
   let task: CollectedTask | null = null;
-  let readout: ReturnType<typeof readoutOf> | null = null;
+  let readout: CategoryReadout | null = null;
   let categories: string[] = [];
   if (taskText) {
-    readout = readoutOf(base);
+    readout = categoryReadout(base, options.readoutMap);
     categories = parseDetectionTask(taskText, readout.kinds, base.categories);
   }
   const collected: CollectedLayer[] = [];
@@ -105,15 +108,19 @@ export async function collectDiff(base: Snapshot, mod: Snapshot, options: DiffOp
   if (readout) {
     const first = range ? range[0] : base.firstIndex;
     const end = range ? range[1] : base.firstIndex + base.manifest.stimuli.count;
+    // under a readout map the scores are the categories' log-sum-exp over their units, [n, G]
+    const map = readout.map;
+    const scores = map ? (raw: Float32Array) => Float32Array.from(groupScores(raw, end - first, readout!.width, map.groups)) : (raw: Float32Array) => raw;
     task = {
       readout: readout.layer,
       kinds: readout.kinds,
       modelThreshold: readout.threshold,
       categories,
-      units: base.layerGeometry(readout.layer).channels,
-      baseScores: await readMeans(base, readout.layer, first, end),
-      modScores: await readMeans(mod, readout.layer, first, end),
+      units: map ? map.groups.length : readout.width,
+      baseScores: scores(await readMeans(base, readout.layer, first, end)),
+      modScores: scores(await readMeans(mod, readout.layer, first, end)),
       labels: base.stimuli.labels.slice(first - base.firstIndex, end - base.firstIndex),
+      ...(map ? { map: mapTag(map)! } : {}),
     };
   }
   return {
@@ -166,14 +173,4 @@ async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLay
   return accumulator;
 }
 
-/** Resolves the readout layer and the unit of each category (from the manifest's readout, else the last layer when its width equals the category count). */
-export function readoutOf(base: Snapshot): { layer: string; kinds: string[]; threshold: number | undefined } {
-  const readout = base.manifest.readout;
-  if (readout) return { layer: readout.name, kinds: readout.kinds, threshold: readout.threshold };
-  const last = base.manifest.layers[base.manifest.layers.length - 1]!;
-  const units = base.layerGeometry(last.name).channels;
-  if (units === base.categories.length) return { layer: last.name, kinds: base.categories, threshold: undefined };
-  throw new UsageError('E_TASK', `cannot tell which readout unit belongs to which category: the snapshot's model has no sidecar naming its outputs, and its last layer "${last.name}" has ${units} units for ${base.categories.length} categories`, {
-    hint: 'write MODEL.json beside the model with {"outputs": {"name": ..., "kinds": [...]}} and record again',
-  });
-}
+export { readoutOf } from './category-readout.js';

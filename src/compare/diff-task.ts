@@ -9,6 +9,7 @@ import { readoutChanges } from '../analysis/readout-change.js';
 import { rocAuc, rocAucWeighted, rocOrder } from '../stats/roc.js';
 import { accuracyMaximisingThreshold, detectFromScores, type DetectionStats } from '../stats/signal-detection.js';
 import type { TaskCategory, TaskReport } from './diff-types.js';
+import type { ReadoutMapTag } from '../graph/category-map.js';
 
 /** The read-out scores gathered by `collectDiff` for the detection task. */
 export interface CollectedTask {
@@ -24,6 +25,8 @@ export interface CollectedTask {
   baseScores: Float32Array;
   modScores: Float32Array;
   labels: string[][];
+  /** The readout map the scores were grouped by (their units are then its categories), absent for the sidecar's units. */
+  map?: ReadoutMapTag;
 }
 
 /**
@@ -106,6 +109,7 @@ export function taskReadout(collected: CollectedTask, rule: number | 'best' | 'a
   return {
     kind: 'detect',
     readout: readout.layer,
+    ...(collected.map ? { readoutMap: collected.map } : {}),
     thresholdRule: typeof rule === 'number' ? `fixed threshold ${rule}` : rule === 'auto' && readout.threshold !== undefined ? `the model's threshold ${readout.threshold} (sidecar)` : 'accuracy-maximising threshold on the baseline, held fixed for the modulated run',
     categories: perCategory,
     base: baseMean,

@@ -3,6 +3,7 @@ import type { DepthProfile } from '../analysis/depth-profile.js';
 import type { SignatureFit } from '../analysis/signature.js';
 import type { DetectionStats } from '../stats/signal-detection.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
+import type { ReadoutMap, ReadoutMapTag } from '../graph/category-map.js';
 
 /** Per-channel tuning values of one layer for the target category (e.g. from a tuning table). */
 export type TuningLookup = (layer: string) => Float64Array | undefined;
@@ -23,6 +24,8 @@ export interface DiffOptions {
   target?: string;
   /** `detect:CATEGORY` (one readout unit) or `labels` (every category with a readout unit). */
   task?: string;
+  /** Readout map (`--readout-map`): categories scored by the log-sum-exp of their readout units instead of the sidecar's one unit each. */
+  readoutMap?: ReadoutMap;
   /** Bootstrap resamples over stimuli (default 1000; 0 disables). */
   bootstrap?: number;
   /** Seed of the bootstrap (default 0). */
@@ -104,6 +107,8 @@ export interface TaskCategory {
 export interface TaskReport {
   kind: 'detect';
   readout: string;
+  /** The readout map the categories' scores came from (log-sum-exp of their units), absent for the sidecar's units. */
+  readoutMap?: ReadoutMapTag;
   thresholdRule: string;
   categories: TaskCategory[];
   base: DetectionStats;

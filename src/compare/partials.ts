@@ -158,6 +158,7 @@ function decodeCollection(part: PartialFile, where: string): DiffCollection {
       baseScores: decodeArray(t['baseScores'], 'f32', `${where}: data.task.baseScores`),
       modScores: decodeArray(t['modScores'], 'f32', `${where}: data.task.modScores`),
       labels: labels as string[][],
+      ...(isMapTag(t['map']) ? { map: { name: t['map'].name, sha256: t['map'].sha256 } } : {}),
     };
   }
   const base = partialObject(d['base'], `${where}: data.base`);
@@ -278,4 +279,9 @@ function concat(a: Float32Array, b: Float32Array): Float32Array {
   out.set(a);
   out.set(b, a.length);
   return out;
+}
+
+/** A readout map tag as a partial file holds it. */
+function isMapTag(value: unknown): value is { name: string; sha256: string } {
+  return typeof value === 'object' && value !== null && typeof (value as Record<string, unknown>)['name'] === 'string' && typeof (value as Record<string, unknown>)['sha256'] === 'string';
 }

@@ -6,6 +6,7 @@ import type { LoadedModel } from '../graph/load-model.js';
 import type { SensitivityTableBlock } from '../snapshot/tables.js';
 import type { ShardSpec } from '../record/shard.js';
 import type { ReadoutChoice } from './sense-plan.js';
+import type { ReadoutMap } from '../graph/category-map.js';
 
 /**
  * Default step h of a gain; with Richardson the runs are at ±h and ±h/2. Chosen on the PyTorch reference
@@ -53,6 +54,11 @@ export interface SenseOptions {
   site: string | readonly string[];
   /** `OUTPUT[:CATEGORY|INDEX]`; default: the model's first graph output, every unit. */
   readout?: string;
+  /**
+   * Readout map (`--readout-map`): the readout's units grouped into categories, each scored by the
+   * log-sum-exp of its units; the categories replace the sidecar's. `readout` then names the tensor only.
+   */
+  readoutMap?: ReadoutMap;
   /** `gain` (default): derivative w.r.t. a multiplicative gain at 1; `offset`: w.r.t. an additive offset at 0. */
   kind?: 'gain' | 'offset';
   /** Step h > 0 (default DEFAULT_STEP for gains, DEFAULT_OFFSET_STEP for offsets); Richardson also runs at h/2. */

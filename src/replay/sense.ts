@@ -55,7 +55,10 @@ import { assertOutFileWritable } from '../outputs/output-file.js';
 import { errorCheck } from './sense-estimate.js';
 import { senseOneSite } from './sense-run.js';
 import { senseOneSiteExact } from './sense-exact.js';
-import { chooseSites, parseReadout, siteTail, stimulusWeights } from './sense-plan.js';
+import { chooseSites, parseReadout, siteTail, stimulusWeights, type ReadoutChoice } from './sense-plan.js';
+import { mapReadout, type MappedReadout } from './mapped-readout.js';
+import { mapTag } from '../graph/category-map.js';
+import { READOUT_MAP_KEY } from '../snapshot/tables.js';
 import { DEFAULT_FEED_BYTES, DEFAULT_ROWS_PER_RUN, DEFAULT_STEP, DEFAULT_WARN_RATIO, SENSE_METHODS, type SenseOptions, type SenseResult, type SiteSensitivity, defaultStep } from './sense-types.js';
 
 /**
@@ -82,7 +85,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   if (!Number.isSafeInteger(rowsPerRun) || rowsPerRun < 1) throw new UsageError('E_SENSE_ROWS', `rowsPerRun must be a positive integer, got ${rowsPerRun}`);
   const warnRatio = options.warnRatio ?? DEFAULT_WARN_RATIO;
   if (options.shard && options.out !== undefined) throw new UsageError('E_SENSE_SHARD', 'a shard measures part of the stimuli: write its partial statistics and merge them instead of writing a table');
-  const model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
+  let model = typeof options.model === 'string' ? loadModel(options.model) : options.model;
   if (options.out !== undefined) {
     const inputs = [{ option: 'MODEL', path: model.path }, { option: '--stimuli', path: options.stimuli }, { option: '--labels', path: options.labels }, { option: '--from', path: options.from }];
     assertOutFileWritable(options.out, { force: options.force ?? false, inputs });
@@ -95,9 +98,15 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   if (options.stimuli === undefined && options.from === undefined) throw new UsageError('E_SENSE_STIMULI', 'sense needs --stimuli or --from (a baseline snapshot)');
   const baseline = options.from !== undefined ? openSnapshot(options.from) : null;
   if (baseline) assertSameModel(baseline, model, options.from!);
-  const inspection = await inspectModel(model, options.inputShape ? { inputShape: options.inputShape } : {});
+  let inspection = await inspectModel(model, options.inputShape ? { inputShape: options.inputShape } : {});
+  let readout: ReadoutChoice;
+  let mapped: MappedReadout | null = null;
+  if (options.readoutMap) {
+    // the map's category scores become the readout (appended as ONNX nodes; see mapped-readout.ts)
+    mapped = await mapReadout(options.readout, model, inspection, options.readoutMap, options.inputShape);
+    ({ model, inspection, readout } = mapped);
+  } else readout = parseReadout(options.readout, model, inspection);
   const byName = new Map(inspection.layers.map((l) => [l.name, l]));
-  const readout = parseReadout(options.readout, model, inspection);
   const sites = chooseSites(options.site, inspection, readout.tensor);
 
   let source: StimulusSource | null = null;
@@ -151,7 +160,8 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   }
   const metadata = {
     'sonde.model': `${model.fileName} sha256:${model.sha256}`,
-    'sonde.readout': readout.tensor,
+    'sonde.readout': mapped ? mapped.map.readout : readout.tensor,
+    ...(mapped ? { [READOUT_MAP_KEY]: JSON.stringify(mapTag(mapped.map)) } : {}),
     'sonde.stimuli_of': options.stimuliOf ?? 'all',
     'sonde.method': method,
     'sonde.source': baseline ? `baseline ${baseline.folder}` : `stimuli ${options.stimuli}`,

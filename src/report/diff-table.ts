@@ -104,7 +104,7 @@ export function renderDiffReport(report: DiffReport, options: { width?: number }
         `${signed(r.control.hitRatePp, 1)} pp, ${signed(r.control.dPrime)}`,
       ]);
     }
-    lines.push('', `task: detection from "${report.task.readout}" (${report.task.thresholdRule}); rates base → modulated`, fitTable(taskHead, task, { width, keyColumns: 1 }));
+    lines.push('', `task: detection from "${report.task.readout}"${report.task.readoutMap ? ` grouped by readout map ${report.task.readoutMap.name} (log-sum-exp of each category's units)` : ''} (${report.task.thresholdRule}); rates base → modulated`, fitTable(taskHead, task, { width, keyColumns: 1 }));
     lines.push("AUC: ROC area of the readout (threshold-free); ΔH at base F: hit-rate change at the baseline's false-alarm rate; criterion shift only: the baseline shifted by a constant to the modulated false-alarm rate");
   }
   lines.push('', `verdict: ${report.verdict}`);

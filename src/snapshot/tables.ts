@@ -24,9 +24,34 @@ import {
 } from 'apache-arrow';
 import { nameList, SondeError, UsageError } from '../errors.js';
 import { HashingFileSink } from './arrow-sink.js';
+import type { ReadoutMapTag } from '../graph/category-map.js';
 
 /** Version of the table layout written by this build. */
 export const TABLE_FORMAT_VERSION = '1';
+
+/**
+ * Schema metadata key of the readout map a table was made under (`--readout-map`): JSON
+ * `{"name": …, "sha256": …}`; absent when the sidecar's units were the categories.
+ */
+export const READOUT_MAP_KEY = 'sonde.readout_map';
+
+/**
+ * The readout map a table records, or null when it records none.
+ * @throws UsageError when the key holds something other than `{name, sha256}` strings.
+ */
+export function tableReadoutMap(table: Pick<TableFile<unknown>, 'path' | 'metadata'>): ReadoutMapTag | null {
+  const text = table.metadata[READOUT_MAP_KEY];
+  if (text === undefined) return null;
+  let value: unknown;
+  try {
+    value = JSON.parse(text);
+  } catch {
+    value = null;
+  }
+  const tag = value as Partial<ReadoutMapTag> | null;
+  if (!tag || typeof tag.name !== 'string' || typeof tag.sha256 !== 'string') throw new UsageError('E_TABLE', `table ${table.path}: metadata ${READOUT_MAP_KEY} is not {"name", "sha256"} (${text.slice(0, 80)})`);
+  return { name: tag.name, sha256: tag.sha256 };
+}
 
 /** Where a layer sits in its network (for ordering by depth). */
 export interface TableLayerInfo {

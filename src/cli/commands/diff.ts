@@ -17,6 +17,7 @@ import { parseSweepMeasure } from '../../replay/sweep.js';
 import { assertOutFileWritable } from '../../outputs/output-file.js';
 import { replaceFile } from '../../disk/atomic-file.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
+import { READOUT_MAP_FLAGS, READOUT_MAP_HELP, readoutMapOption } from '../readout-map-option.js';
 
 interface DiffCliOptions {
   vs?: string;
@@ -35,6 +36,7 @@ interface DiffCliOptions {
   shard?: string;
   partial?: string;
   skipSha256?: boolean;
+  readoutMap?: string;
 }
 
 /** `sonde diff BASE MOD`: layer-by-layer propagation of a modulation and its effect on the task. */
@@ -59,6 +61,7 @@ export function registerDiff(program: Command): void {
     .option('--force', 'replace an existing --csv file')
     .option('--shard <K/N>', 'with --partial: accumulate only shard K of N of the stimuli')
     .option('--partial <file.json>', 'write mergeable partial statistics instead of the report (combine them with `sonde merge`)')
+    .option(READOUT_MAP_FLAGS, READOUT_MAP_HELP)
     .option('--skip-sha256', 'faster: check each layer file against the manifest by size only, not by SHA-256 (a same-size change then goes unnoticed)')
     .action(async (basePath: string, modPath: string, opts: DiffCliOptions) => {
       const io = cliIo();
@@ -86,6 +89,7 @@ export function registerDiff(program: Command): void {
         ...(opts.floor ? { floor: open(opts.floor) } : {}),
         ...(opts.target ? { target: opts.target } : {}),
         ...(opts.task ? { task: opts.task } : {}),
+        ...(opts.readoutMap !== undefined ? { readoutMap: readoutMapOption(opts.readoutMap) } : {}),
         ...(opts.tuning && opts.target ? { tuning: tuningLookup(opts.tuning, opts.target) } : {}),
       };
       if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });

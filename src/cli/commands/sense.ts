@@ -18,6 +18,8 @@ import { cliIo } from '../io.js';
 import { sensePartial } from '../../replay/sense-partial.js';
 import { writePartial } from '../../record/partial-file.js';
 import { parseShard } from '../../record/shard.js';
+import { READOUT_MAP_FLAGS, READOUT_MAP_HELP, readoutMapOption } from '../readout-map-option.js';
+import { READOUT_MAP_KEY } from '../../snapshot/tables.js';
 
 interface SenseCliOptions {
   stimuli?: string;
@@ -42,6 +44,7 @@ interface SenseCliOptions {
   std?: string;
   bgr?: boolean;
   json?: boolean;
+  readoutMap?: string;
 }
 
 /** Registers `sonde sense`. */
@@ -58,6 +61,7 @@ export function registerSense(program: Command): void {
     .option('--labels <csv>', 'labels for .npy stimuli: a CSV with one "label" column, row order')
     .option('--from <baseline>', 'baseline snapshot: feed the part downstream of the site from its recorded tensors')
     .option('--readout <output[:category|index]>', 'readout tensor, optionally one unit (default: the first graph output, every unit)')
+    .option(READOUT_MAP_FLAGS, `${READOUT_MAP_HELP}; gradients are of each category's log-sum-exp (Σ softmax-within-category · ∂unit), appended to the graph, so every --method sees it`)
     .option('--kind <kind>', 'gain (multiplicative, at g = 1) or offset (additive, at b = 0)', 'gain')
     .option('--step <h>', `finite-difference step h > 0, --method richardson|secant only (Richardson also runs at h/2; default ${DEFAULT_STEP} for --kind gain, ${DEFAULT_OFFSET_STEP} for offset)`)
     .option('--method <method>', 'exact: reverse-mode gradients of the downstream part, one forward and backward run per stimulus and category, all channels at once; richardson: (4·D(h/2) − D(h))/3 from central differences D at h and h/2 (4 runs per channel); secant: D(h) alone (2 runs per channel, half the cost)', SENSE_METHODS[0])
@@ -105,6 +109,7 @@ export function registerSense(program: Command): void {
           ...(opts.labels !== undefined ? { labels: opts.labels } : {}),
           ...(opts.from !== undefined ? { from: opts.from } : {}),
           ...(opts.readout !== undefined ? { readout: opts.readout } : {}),
+          ...(opts.readoutMap !== undefined ? { readoutMap: readoutMapOption(opts.readoutMap) } : {}),
           ...(opts.stimuliOf !== undefined ? { stimuliOf: opts.stimuliOf } : {}),
           ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
           ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
@@ -137,7 +142,8 @@ export function registerSense(program: Command): void {
         for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
         table.push([s.layer, s.channels, s.categories.length, s.stimuliUsed, largest.toPrecision(3), method === 'exact' ? '—' : `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
       }
-      io.stdout(`${opts.kind} sensitivities of ${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`}), ${method === 'exact' ? 'exact gradients (reverse mode, in the ONNX graph)' : method === 'richardson' ? `Richardson from steps ${step} and ${step / 2}` : `secant, step ${step}`}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
+      const mapText = result.metadata[READOUT_MAP_KEY] !== undefined ? ` of ${result.metadata['sonde.readout']} grouped by readout map ${opts.readoutMap}` : '';
+      io.stdout(`${opts.kind} sensitivities of ${mapText ? `${result.readout.categories.length} categories${mapText}, each the log-sum-exp of its units` : `${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`})`}, ${method === 'exact' ? 'exact gradients (reverse mode, in the ONNX graph)' : method === 'richardson' ? `Richardson from steps ${step} and ${step / 2}` : `secant, step ${step}`}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
       io.stdout(`${table.toString()}\n`);
       const values = method === 'exact'
         ? 'values are Σ over the site\'s positions of (∂y/∂a)·a (gain) or ∂y/∂a (offset), averaged over the stimuli; no step (at a ReLU kink the derivative is PyTorch\'s: 0 at 0)'

@@ -122,6 +122,29 @@ function reduction(mean: boolean): GradientRule {
   };
 }
 
+/**
+ * y = log Σ_axes exp(x): ∂L/∂x = g · exp(x − y), the softmax over the reduced axes (y and g broadcast
+ * back along them). Used by readout maps' category scores (src/graph/category-scores.ts).
+ */
+const reduceLogSumExp: GradientRule = (ctx) => {
+  const e = ctx.e;
+  const x = ctx.inputs[0]!;
+  const rank = knownDims(ctx, x).length;
+  const axesAsInput = e.opset >= 18;
+  let axes: number[] | null = axesAsInput ? (ctx.inputs[1] ? ctx.constant(ctx.inputs[1]) : null) : readAttribute<number[] | null>(ctx.node, 'axes', null);
+  if (axesAsInput && ctx.inputs[1] && !axes) ctx.unsupported('its axes are not constant');
+  if (!axes || axes.length === 0) {
+    if (readAttribute(ctx.node, 'noop_with_empty_axes', 0) === 1) return [gradOut(ctx), null];
+    axes = Array.from({ length: rank }, (_, i) => i);
+  }
+  const normal = [...new Set(axes.map((a) => (a < 0 ? a + rank : a)))].sort((a, b) => a - b);
+  if (normal.includes(0)) ctx.unsupported('it reduces over the batch axis');
+  const keep = readAttribute(ctx.node, 'keepdims', 1) === 1;
+  const g = keep ? gradOut(ctx) : e.unsqueeze(gradOut(ctx), normal);
+  const y = keep ? ctx.outputs[0]! : e.unsqueeze(ctx.outputs[0]!, normal);
+  return [e.emit('Mul', [g, e.emit('Exp', [e.emit('Sub', [x, y])])]), null];
+};
+
 /** Rules by operator type. */
 export const POOL_RULES: Record<string, GradientRule> = {
   MaxPool: maxPool,
@@ -129,4 +152,5 @@ export const POOL_RULES: Record<string, GradientRule> = {
   GlobalAveragePool: globalAveragePool,
   ReduceMean: reduction(true),
   ReduceSum: reduction(false),
+  ReduceLogSumExp: reduceLogSumExp,
 };
