@@ -49,7 +49,8 @@ export function modulationSites(inspection: ModelInspection): Map<string, SiteSh
     if (heads !== null) sites.set(name, { ...shape, heads });
   }
   for (const skipped of inspection.skippedTensors) {
-    if (skipped.reason !== 'batch') continue;
+    // only tensors skipped for where their batch axis is (not constants, not integer shape arithmetic)
+    if ((skipped.reason as string) === 'constant' || (skipped.reason as string) === 'type') continue;
     const probed = inspection.probed.get(skipped.name);
     if (!probed || probed.type !== 'float32' || probed.dims.length < 2) continue;
     const rank = probed.dims.length;
