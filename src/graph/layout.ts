@@ -8,6 +8,8 @@
  * - `channels-last` [H, W, C]: feature axis = last, as exported from TensorFlow/Keras graphs.
  * - `tokens` [T, D]: T token positions, D features on the last axis (transformer residual stream,
  *   attention output, MLP activations). `grid` says how tokens map onto the image.
+ * - `heads` [H, T, T'] or [H, T, d] (or [T, H, d] with the feature axis on the heads): attention internals
+ *   of a multi-head layer with the batch axis first; the heads are the features, the rest positions.
  * - `vector` [D]: one position.
  * - `scalar` []: one value per stimulus; no feature axis to tune or modulate.
  *
@@ -17,7 +19,7 @@
  */
 
 /** The kind of a tensor layout. */
-export type LayoutKind = 'channels-first' | 'channels-last' | 'tokens' | 'vector' | 'scalar';
+export type LayoutKind = 'channels-first' | 'channels-last' | 'tokens' | 'heads' | 'vector' | 'scalar';
 
 /** Where a layout came from. */
 export type LayoutSource = 'graph' | 'sidecar' | 'shape';
@@ -156,6 +158,8 @@ export function describeLayout(shape: readonly number[], layout?: TensorLayout |
       return `maps ${dims} (features first)`;
     case 'channels-last':
       return `maps ${dims} (features last)`;
+    case 'heads':
+      return `heads ${dims} (${l.featureAxis === null ? '?' : shape[l.featureAxis]} heads on axis ${l.featureAxis})`;
     case 'tokens': {
       const grid = l.grid ? `${l.grid.prefix > 0 ? `${l.grid.prefix}+` : ''}${l.grid.height}×${l.grid.width}` : 'no grid';
       return `tokens ${dims} (${grid}${l.heads ? `, ${l.heads} heads` : ''})`;

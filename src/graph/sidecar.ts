@@ -3,6 +3,7 @@ import { z } from 'zod';
 import { UsageError } from '../errors.js';
 import { parseJson, schemaProblem } from '../json.js';
 import { INPUT_LIMITS, readInputText } from '../disk/input-file.js';
+import type { LayoutDeclaration } from './infer-layout.js';
 
 /** Optional JSON beside a model (`net.onnx` → `net.json`) that says how to feed and read it. */
 export interface ModelSidecar {
@@ -12,6 +13,11 @@ export interface ModelSidecar {
   outputs?: { name: string; kinds: string[]; threshold?: number };
   /** Tensors worth recording, with a short stage label. */
   layers?: Array<{ name: string; stage?: string }>;
+  /**
+   * Tensor layouts that override what the graph says (src/graph/infer-layout.ts): tensor name →
+   * `{ kind, featureAxis?, grid?, heads? }`, e.g. `{ "conv_out_nhwc": { "kind": "channels-last" } }`.
+   */
+  layouts?: Record<string, LayoutDeclaration>;
 }
 
 const positive = z.number().int().positive().max(Number.MAX_SAFE_INTEGER);
@@ -22,6 +28,14 @@ export const readoutSchema = z.looseObject({
   name: z.string().min(1),
   kinds: z.array(z.string()),
   threshold: finite.optional(),
+});
+
+/** One sidecar layout declaration; unknown keys are refused (a misspelt `featureAxis` must not be ignored). */
+export const layoutDeclarationSchema = z.strictObject({
+  kind: z.enum(['channels-first', 'channels-last', 'tokens', 'heads', 'vector', 'scalar']),
+  featureAxis: z.number().int().nonnegative().max(7).optional(),
+  grid: z.strictObject({ prefix: z.number().int().nonnegative().max(4096), height: positive, width: positive }).optional(),
+  heads: positive.optional(),
 });
 
 /** Schema of a sidecar; every field optional, each of its type when present. */
@@ -36,6 +50,7 @@ export const sidecarSchema = z.looseObject({
     .optional(),
   outputs: readoutSchema.optional(),
   layers: z.array(z.looseObject({ name: z.string().min(1), stage: z.string().optional() })).optional(),
+  layouts: z.record(z.string().min(1), layoutDeclarationSchema).optional(),
 });
 
 /** Path of a model's sidecar. */

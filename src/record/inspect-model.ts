@@ -1,7 +1,10 @@
 import { UsageError } from '../errors.js';
 import { loadModel, type Dim, type LoadedModel } from '../graph/load-model.js';
 import { exposeTensors } from '../graph/instrument.js';
-import { ACTIVATION_OPS, LINEAR_OPS, MERGE_OPS, POOLING_OPS } from '../graph/select.js';
+import { defaultTensors } from '../graph/default-layers.js';
+import { inferLayouts, type LayoutDeclaration } from '../graph/infer-layout.js';
+import type { TensorLayout } from '../graph/layout.js';
+import { readSidecar, sidecarPath } from '../graph/sidecar.js';
 import { analyseGraph, weightLayerDepths, type GraphStructure } from '../graph/structure.js';
 import { probeOutputs } from '../session/network-session.js';
 
@@ -23,6 +26,8 @@ export interface LayerInfo {
   default: boolean;
   /** Whether it is a declared graph output of the model. */
   isOutput: boolean;
+  /** Feature axis and positions (src/graph/layout.ts), inferred from the graph or declared in the sidecar. */
+  layout: TensorLayout;
 }
 
 /** The result of `inspectModel`. */
@@ -50,21 +55,33 @@ export interface ModelInspection {
 export interface SkippedTensor {
   name: string;
   op: string;
-  /** `constant`: does not depend on the data input (Constant nodes, values computed from weights only); `type`: not float32; `batch`: its first axis is not the batch. */
-  reason: 'constant' | 'type' | 'batch';
+  /**
+   * `constant`: does not depend on the data input (Constant nodes, values computed from weights only);
+   * `type`: not float32 (shapes, indices, masks); `batch-later`: the batch is on a later axis (e.g. [T, N, D]
+   * inside an attention layer that runs sequence-first); `batch-merged`: the batch is merged with another
+   * axis (e.g. [N·H, T, T], batch times heads): no row per stimulus; `batch`: no batch axis at all
+   * (reduced over the batch, or a shape computation).
+   */
+  reason: 'constant' | 'type' | 'batch-later' | 'batch-merged' | 'batch';
+  /** Full dims of the probe with the batch axis written `N` (`N·12` when merged), when the tensor has dims; absent for constants. */
+  dims?: string[];
 }
 
 /** Words for `SkippedTensor.reason`. */
 export const SKIP_REASONS: Record<SkippedTensor['reason'], string> = {
   constant: 'does not depend on the input',
   type: 'not float32',
-  batch: 'first axis is not the batch',
+  'batch-later': 'batch not on the first axis',
+  'batch-merged': 'batch merged with another axis',
+  batch: 'no batch axis',
 };
 
 /** Options of `inspectModel`. */
 export interface InspectOptions {
   /** Full input shape (batch first) for models with dynamic non-batch axes, e.g. [1, 3, 224, 224]. */
   inputShape?: number[];
+  /** Layout declarations (tensor name → declaration) that override the graph; by default the sidecar's `layouts` (null: none). */
+  layouts?: Readonly<Record<string, LayoutDeclaration>> | null;
 }
 
 /**
@@ -86,7 +103,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const elements = probeShape.reduce((a, b) => a * b, 1);
   const shapes = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName);
   const declaredOutputs = new Set(model.outputs);
-  const layers: LayerInfo[] = [];
+  const found: Array<Omit<LayerInfo, 'layout' | 'default'>> = [];
   const weightDepths = weightLayerDepths(structure);
   const skippedTensors: SkippedTensor[] = [];
   // tensors that depend on the data input (nodes in topological order): the rest are constants, whatever
@@ -100,39 +117,78 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
       const probed = shapes.get(name);
       const reason: SkippedTensor['reason'] | null = !dependent.has(name) ? 'constant' : !probed || probed.type !== 'float32' ? 'type' : probed.dims.length === 0 || probed.dims[0] !== probeBatch ? 'batch' : null;
       if (reason !== null || !probed) {
-        skippedTensors.push({ name, op: node.opType, reason: reason ?? 'type' });
+        skippedTensors.push({ name, op: node.opType, reason: reason ?? 'type', ...(probed && reason !== 'constant' ? { dims: probed.dims.map(String) } : {}) });
         continue;
       }
       const shape = probed.dims.slice(1);
-      const batchedInputs = node.inputs.filter((i) => i && dependent.has(i) && isBatched(i, shapes, probeBatch, model.input.name));
-      const isMerge = MERGE_OPS.has(node.opType) && batchedInputs.length >= 2;
-      const isDefault = ACTIVATION_OPS.has(node.opType) || POOLING_OPS.has(node.opType) || LINEAR_OPS.has(node.opType) || isMerge || declaredOutputs.has(name);
-      layers.push({
-        name,
-        op: node.opType,
-        depth: layers.length,
-        weightDepth: weightDepths.get(name) ?? 0,
-        shape,
-        elements: shape.reduce((a, b) => a * b, 1),
-        default: isDefault,
-        isOutput: declaredOutputs.has(name),
-      });
+      found.push({ name, op: node.opType, depth: found.length, weightDepth: weightDepths.get(name) ?? 0, shape, elements: shape.reduce((a, b) => a * b, 1), isOutput: declaredOutputs.has(name) });
     }
   }
+  if (batchIsDynamic) await placeBatchAxes(model, skippedTensors, probeShape, probeBatch);
+  const declared = options.layouts === undefined ? readSidecar(model.path)?.layouts : options.layouts ?? undefined;
+  const layouts = inferLayouts(model, structure, {
+    shapes: new Map(found.map((l) => [l.name, l.shape])),
+    dependent,
+    probed: shapes,
+    probeBatch,
+    ...(declared ? { declared, declaredIn: sidecarPath(model.path) } : {}),
+  });
+  const candidates = found.map((l) => ({ ...l, layout: layouts.get(l.name)! }));
+  const defaults = defaultTensors(structure, candidates, { dependent, batched: (n) => isBatched(n, shapes, probeBatch, model.input.name) && (n === model.input.name || shapes.get(n)?.type === 'float32'), outputs: declaredOutputs });
+  const layers: LayerInfo[] = candidates.map((l) => ({ ...l, default: defaults.has(l.name) }));
   shapes.set(model.input.name, { type: 'float32', dims: probeShape });
   return { model, structure, input: { name: model.input.name, declared: model.input.dims, shape: inputShape }, layers, skipped: skippedTensors.length, skippedTensors, probed: shapes, probeBatch };
 }
 
 /**
- * One line naming the node outputs that are not recorded, e.g. for `--layers all`: "skipped 2 tensors
- * that are not per-stimulus activations: scale (Constant, does not depend on the input), …" (at most
- * `limit` named), or null when none was skipped.
+ * One line counting the node outputs that are not recorded, by reason, e.g. for `--layers all`:
+ * "skipped 1315 tensors that are not per-stimulus activations: 1042 do not depend on the input, 197 not
+ * float32, 48 batch merged with another axis, 28 batch not on the first axis (`sonde layers MODEL
+ * --skipped` lists them)"; up to `nameUpTo` skipped tensors are named instead. Null when none was skipped.
+ * @param modelPath the model as the user named it, for the listing command.
  */
-export function describeSkipped(inspection: Pick<ModelInspection, 'skippedTensors'>, limit = 6): string | null {
+export function describeSkipped(inspection: Pick<ModelInspection, 'skippedTensors'>, modelPath = 'MODEL', nameUpTo = 3): string | null {
   const list = inspection.skippedTensors;
   if (list.length === 0) return null;
-  const named = list.slice(0, limit).map((t) => `${t.name} (${t.op}, ${SKIP_REASONS[t.reason]})`).join(', ');
-  return `skipped ${list.length} tensor${list.length === 1 ? '' : 's'} that ${list.length === 1 ? 'is' : 'are'} not per-stimulus activations: ${named}${list.length > limit ? `, and ${list.length - limit} more` : ''}`;
+  if (list.length <= nameUpTo) return `skipped ${list.length} tensor${list.length === 1 ? ' that is not a per-stimulus activation' : 's that are not per-stimulus activations'}: ${list.map(describeSkippedTensor).join(', ')}`;
+  const counts = new Map<SkippedTensor['reason'], number>();
+  for (const t of list) counts.set(t.reason, (counts.get(t.reason) ?? 0) + 1);
+  const order: Array<SkippedTensor['reason']> = ['constant', 'type', 'batch-merged', 'batch-later', 'batch'];
+  const parts = order.filter((r) => counts.has(r)).map((r) => `${counts.get(r)} ${r === 'constant' ? (counts.get(r) === 1 ? 'does' : 'do') + ' not depend on the input' : SKIP_REASONS[r]}`);
+  return `skipped ${list.length} tensors that are not per-stimulus activations: ${parts.join(', ')} (\`sonde layers ${modelPath} --skipped\` lists them)`;
+}
+
+/** One skipped tensor in words: "name (Op, batch merged with another axis: [N·12, 197, 197])". */
+export function describeSkippedTensor(t: SkippedTensor): string {
+  return `${t.name} (${t.op}, ${SKIP_REASONS[t.reason]}${t.dims ? `: [${t.dims.join(', ')}]` : ''})`;
+}
+
+/**
+ * Finds where the batch went in the input-dependent float tensors whose first axis is not the batch: a
+ * second probe with one more stimulus, exposing only them; the axis whose size grows with the batch
+ * holds it (size B: the batch on that axis; size B·k: merged with an axis of k). Updates `reason` and
+ * writes the batch axis into `dims` as `N` or `N·k`.
+ */
+async function placeBatchAxes(model: LoadedModel, skipped: SkippedTensor[], probeShape: number[], probeBatch: number): Promise<void> {
+  const open = skipped.filter((t) => t.reason === 'batch' && t.dims !== undefined);
+  if (open.length === 0) return;
+  const shape = [probeBatch + 1, ...probeShape.slice(1)];
+  const bytes = exposeTensors(model, open.map((t) => t.name));
+  const elements = shape.reduce((a, b) => a * b, 1);
+  const second = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, model.fileName);
+  for (const t of open) {
+    const before = t.dims!.map(Number);
+    const after = second.get(t.name)?.dims;
+    if (!after || after.length !== before.length) continue;
+    const grown = before.map((d, i) => (after[i] !== d ? i : -1)).filter((i) => i >= 0);
+    if (grown.length !== 1) continue;
+    const axis = grown[0]!;
+    const k = before[axis]! / probeBatch;
+    // the axis scales with the batch exactly: B·k at the probe, (B + 1)·k at the second
+    if (!Number.isInteger(k) || after[axis] !== (probeBatch + 1) * k) continue;
+    t.reason = k === 1 ? 'batch-later' : 'batch-merged';
+    t.dims = t.dims!.map((d, i) => (i === axis ? (k === 1 ? 'N' : `N·${k}`) : d));
+  }
 }
 
 function isBatched(name: string, shapes: Map<string, { type: string; dims: number[] }>, batch: number, inputName: string): boolean {

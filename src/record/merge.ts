@@ -25,7 +25,7 @@ import { readFileSync, rmSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { LayerFileWriter } from '../snapshot/layer-file.js';
-import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
+import { FORMAT_VERSION, layerLayout, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest } from '../stimuli/source.js';
@@ -221,7 +221,7 @@ async function mergeLayer(parts: readonly Snapshot[], entry: ManifestLayer, path
   const E = geometry.elements;
   const full = entry.keep === 'full';
   const half = entry.dtype === 'float16';
-  const writer = new LayerFileWriter(path, { name: entry.name, shape: entry.shape, dtype: entry.dtype, keep: entry.keep });
+  const writer = new LayerFileWriter(path, { name: entry.name, shape: entry.shape, dtype: entry.dtype, keep: entry.keep, layout: layerLayout(entry) });
   const means = new Float32Array(batch * C);
   const values32 = full && !half ? new Float32Array(batch * E) : null;
   const values16 = full && half ? new Uint16Array(batch * E) : null;

@@ -6,6 +6,7 @@ import { exposeTensors } from '../graph/instrument.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { extractTail, upstreamCut } from '../graph/tail.js';
+import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { fillModulationInputs, inputLength } from '../modulation/inputs.js';
 import { resolveModulations } from '../modulation/resolve.js';
 import { loadModulationSpec } from '../modulation/spec.js';
@@ -36,6 +37,11 @@ export interface RecordModulatedOptions extends RecordOptions {
   categories?: string[];
   /** Never replay the tail; always run the whole network (for checks and benchmarks). */
   fullRun?: boolean;
+  /**
+   * Bytes of tensors one runtime call of the tail replay may hold (default `DEFAULT_RUN_BYTES`): a
+   * baseline batch is split into runs of fewer stimuli where its outputs would exceed it.
+   */
+  runBytes?: number;
 }
 
 export { siteShapes } from './site-shapes.js';
@@ -291,29 +297,31 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     if (!checkpoint) takeCheckpoint(0, 0);
     const injected = injectModulations(tail.model, run.sites);
     const fetch = changedEntries.map((l) => l.name);
+    // rows per runtime call from the bytes the call holds (graph/run-memory.ts), at most a baseline batch
+    const elements = (name: string): number | undefined => byName.get(name)?.elements;
+    const fed = tail.boundary.map((name) => (siteNames.has(name) ? `${name}::raw` : name));
+    const rowBytes = runRowBytes(injected, (name) => elements(name.endsWith('::raw') ? name.slice(0, -5) : name), { fed, fetched: fetch });
+    const rowsPerCall = rowsWithin(runBytesOption(options.runBytes), rowBytes, batchRows);
     const session = await createNetworkSession(exposeTensors(injected, fetch), { threads: options.threads ?? 0, label: `${run.model.fileName} (downstream part)` });
     const firstIndex = baseline.firstIndex;
     const streams = tail.boundary.map((name) => baseline.readLayer(name, doneRows > 0 ? { range: [firstIndex + doneRows, firstIndex + count] } : {}));
+    const rows = new BoundaryRows(streams, tail.boundary, tail.boundary.map((name) => byName.get(name)!.elements), options.from!);
     let bytesWritten = 0;
     let batchesDone = doneBatches;
+    let nextRow = doneRows;
     try {
       await runPipelined(
-        Math.ceil(count / batchRows) - doneBatches,
+        Math.ceil((count - doneRows) / rowsPerCall),
         async () => {
-          const parts = await Promise.all(streams.map((s) => s.next()));
-          const first: LayerBatch | undefined = parts[0]?.value as LayerBatch | undefined;
-          if (!first) throw new RuntimeFailure('E_LAYER_READ', `baseline ${options.from} ended early`);
+          const take = Math.min(rowsPerCall, count - nextRow);
+          nextRow += take;
+          const part = await rows.take(take);
           const feeds: Record<string, FloatTensor> = {};
-          parts.forEach((part, i) => {
-            const batch = part.value as LayerBatch | undefined;
-            const name = tail.boundary[i]!;
-            if (!batch || batch.rows !== first.rows || batch.index[0] !== first.index[0]) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${name}" is not aligned with the others (batch structure differs)`);
-            const shape = byName.get(name)!.shape;
-            // the Arrow view may share a buffer with other columns: copy into a tensor of its own
-            feeds[siteNames.has(name) ? `${name}::raw` : name] = { data: batch.activation!.slice(), dims: [batch.rows, ...shape] };
+          tail.boundary.forEach((name, i) => {
+            feeds[fed[i]!] = { data: part.values[i]!, dims: [take, ...byName.get(name)!.shape] };
           });
-          Object.assign(feeds, modulationFeeds(run.resolved, run.sites, first.index[0]!, first.rows));
-          return { first: first.index[0]!, rows: first.rows, feeds };
+          Object.assign(feeds, modulationFeeds(run.resolved, run.sites, part.first, take));
+          return { first: part.first, rows: take, feeds };
         },
         (feeds) => session.run(feeds, fetch),
         (first, rows, outputs) => {
@@ -331,7 +339,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
         },
       );
     } finally {
-      await Promise.all(streams.map((s) => s.return(undefined)));
+      await rows.close();
       await session.close();
     }
     let total = 0;
@@ -355,5 +363,53 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
   } catch (error) {
     for (const writer of writers) writer.suspend();
     throw markIncomplete(folder, manifest, error);
+  }
+}
+
+/**
+ * Rows of a baseline's boundary layers in runs of any size: the layers' record batches are read in
+ * step, checked to hold the same stimuli, and copied out `rows` at a time (a run may span two record
+ * batches; the copies are the runtime's feeds, never views of the Arrow buffers).
+ */
+class BoundaryRows {
+  private batches: LayerBatch[] | null = null;
+  private at = 0;
+
+  constructor(private readonly streams: AsyncGenerator<LayerBatch>[], private readonly names: readonly string[], private readonly perRow: readonly number[], private readonly from: string) {}
+
+  /** The next `rows` rows: the global index of the first, and one fresh array per boundary layer. */
+  async take(rows: number): Promise<{ first: number; values: Float32Array[] }> {
+    const values = this.perRow.map((per) => new Float32Array(rows * per));
+    let first = -1;
+    for (let filled = 0; filled < rows; ) {
+      if (!this.batches || this.at === this.batches[0]!.rows) await this.next();
+      const batches = this.batches!;
+      const n = Math.min(rows - filled, batches[0]!.rows - this.at);
+      if (first < 0) first = batches[0]!.index[this.at]!;
+      else if (batches[0]!.index[this.at] !== first + filled) throw new RuntimeFailure('E_LAYER_READ', `baseline ${this.from}: stimulus indices are not contiguous at ${first + filled}`);
+      batches.forEach((batch, i) => {
+        const per = this.perRow[i]!;
+        values[i]!.set(batch.activation!.subarray(this.at * per, (this.at + n) * per), filled * per);
+      });
+      this.at += n;
+      filled += n;
+    }
+    return { first, values };
+  }
+
+  private async next(): Promise<void> {
+    const parts = await Promise.all(this.streams.map((s) => s.next()));
+    const head = parts[0]?.value as LayerBatch | undefined;
+    if (!head) throw new RuntimeFailure('E_LAYER_READ', `baseline ${this.from} ended early`);
+    this.batches = parts.map((part, i) => {
+      const batch = part.value as LayerBatch | undefined;
+      if (!batch || batch.rows !== head.rows || batch.index[0] !== head.index[0] || !batch.activation) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${this.names[i]}" is not aligned with the others (batch structure differs)`);
+      return batch;
+    });
+    this.at = 0;
+  }
+
+  async close(): Promise<void> {
+    await Promise.all(this.streams.map((s) => s.return(undefined)));
   }
 }

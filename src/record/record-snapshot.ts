@@ -14,7 +14,7 @@ import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
-import { LayerFileWriter } from '../snapshot/layer-file.js';
+import { channelCount, LayerFileWriter } from '../snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
@@ -150,7 +150,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
   const selected = options.layerNames ? pickLayers(inspection.layers, options.layerNames, model.fileName) : selectLayers(inspection.layers, options.layers);
   if (!options.layerNames && /(^|[\s+])all($|[\s+])/.test(options.layers ?? '')) {
-    const skipped = describeSkipped(inspection);
+    const skipped = describeSkipped(inspection, typeof options.model === 'string' ? options.model : model.path);
     if (skipped) options.onNotice?.(`--layers all: ${skipped}`);
   }
   const [, channels, height, width] = inspection.input.shape.length === 4 ? inspection.input.shape : [0, 0, 0, 0];
@@ -189,6 +189,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
       depth: layer.depth,
       weightDepth: layer.weightDepth,
       shape: layer.shape,
+      layout: layer.layout,
       dtype,
       keep,
       file: `layers/${String(layer.depth).padStart(3, '0')}-${slugify(layer.name)}.arrow`,
@@ -264,7 +265,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     selected.forEach((layer, i) => {
       const file = layerEntries[i]!.file;
       const path = `${folder}/${file}`;
-      const layout = { name: layer.name, shape: layer.shape, dtype, keep };
+      const layout = { name: layer.name, shape: layer.shape, dtype, keep, layout: layer.layout };
       if (checkpoint) {
         const at = checkpoint.files[file];
         if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${file}`, { hint: 'record again without --resume' });
@@ -438,7 +439,7 @@ export function pickLayers(layers: readonly LayerInfo[], names: readonly string[
 }
 
 function channelsOf(layer: LayerInfo): number {
-  return layer.shape.length === 0 ? 1 : layer.shape[0]!;
+  return channelCount(layer.shape, layer.layout);
 }
 
 function checkShape(layer: LayerInfo, tensor: FloatTensor, rows: number, fixedBatch: number | null): void {

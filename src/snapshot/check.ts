@@ -19,7 +19,7 @@ import { DataType, RecordBatchReader, type Field, type Schema } from 'apache-arr
 import { SondeError } from '../errors.js';
 import { readLockOwner, isStale, LOCK_FILE } from '../disk/lock.js';
 import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
-import { assertInside, baselineLayerProblems, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
+import { assertInside, baselineLayerProblems, layerLayout, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 import { verifyStimulusTable } from './stimuli-file.js';
 import { parseJson } from '../json.js';
 import { describeNonRegular, INPUT_LIMITS, readInputFile, readInputText, realPathInside } from '../disk/input-file.js';
@@ -222,8 +222,8 @@ function describeType(type: DataType): string {
 
 /** Schema and rows of one layer file. */
 async function checkLayerFile(path: string, subject: string, entry: ManifestLayer, firstIndex: number, count: number, problem: (s: string, m: string) => void): Promise<void> {
-  const channels = channelCount(entry.shape);
-  const elements = channels * spatialSize(entry.shape);
+  const channels = channelCount(entry.shape, layerLayout(entry));
+  const elements = channels * spatialSize(entry.shape, layerLayout(entry));
   const handle = await open(path, 'r');
   try {
     let reader;

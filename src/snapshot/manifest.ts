@@ -8,6 +8,7 @@ import { RuntimeFailure, UsageError } from '../errors.js';
 import { replaceFile } from '../disk/atomic-file.js';
 import { parseJson, schemaProblem } from '../json.js';
 import { manifestSchema } from './schema.js';
+import { layoutFromShape, type TensorLayout } from '../graph/layout.js';
 import { assertRegularFile, INPUT_LIMITS, readInputText, realPathInside } from '../disk/input-file.js';
 
 /**
@@ -61,6 +62,17 @@ export interface ManifestLayer {
   rows?: number;
   /** NaN/±Infinity elements the layer produced (with float16 storage also the values it overflows to ±Infinity); absent when not counted. */
   nonFinite?: number;
+  /**
+   * Feature axis and positions of `shape` (src/graph/layout.ts): channel means and every per-channel
+   * table run along it. Absent in snapshots of older builds, which mean features on axis 0
+   * (`layoutFromShape`); use `layerLayout(entry)`.
+   */
+  layout?: TensorLayout;
+}
+
+/** The layout of a manifest layer: its recorded one, or the rank rule of snapshots written before layouts. */
+export function layerLayout(entry: Pick<ManifestLayer, 'shape' | 'layout'>): TensorLayout {
+  return entry.layout ?? layoutFromShape(entry.shape);
 }
 
 /** The whole manifest. */
@@ -157,6 +169,8 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
     const shape = entry.shape as number[];
     if (shape.reduce((a, b) => a * b, 1) > 2 ** 31 - 1) fail(`layers[${i}].shape [${shape.join(', ')}] is absurdly large`);
     if (entry.from === 'baseline' && (m.baseline === null || m.baseline === undefined)) fail(`layers[${i}] comes from a baseline but "baseline" is null`);
+    const layoutProblem = entry.layout ? layoutMisfit(shape, entry.layout as TensorLayout) : null;
+    if (layoutProblem) fail(`layers[${i}].layout ${layoutProblem}`);
     if (names.has(entry.name as string)) fail(`layers[${i}].name ${JSON.stringify(entry.name)} appears twice`);
     names.add(entry.name as string);
     // a file is one layer's, whether it lies here or in the baseline folder
@@ -173,6 +187,15 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
     }
   });
   return m as unknown as SnapshotManifest;
+}
+
+/** Why a layout does not fit a shape (feature axis outside it, a scalar with axes, a grid of another token count), or null. */
+function layoutMisfit(shape: readonly number[], layout: TensorLayout): string | null {
+  if (layout.featureAxis === null) return layout.kind === 'scalar' && shape.length === 0 ? null : `has no feature axis but shape [${shape.join(', ')}] is not a scalar`;
+  if (layout.featureAxis >= shape.length) return `has featureAxis ${layout.featureAxis}, outside shape [${shape.join(', ')}]`;
+  if (layout.grid && layout.grid.prefix + layout.grid.height * layout.grid.width !== shape[0]) return `has a grid of ${layout.grid.prefix + layout.grid.height * layout.grid.width} tokens, not ${shape[0]}`;
+  if (layout.heads !== undefined && shape[layout.featureAxis]! % layout.heads !== 0) return `has ${layout.heads} heads, which do not divide ${shape[layout.featureAxis]} features`;
+  return null;
 }
 
 function record(value: unknown): Record<string, unknown> | null {
@@ -229,6 +252,7 @@ export function baselineLayerProblems(manifest: SnapshotManifest, base: Snapshot
       return;
     }
     if (JSON.stringify(own.shape) !== JSON.stringify(entry.shape)) problems.push(`layers[${i}] "${entry.name}" has shape [${entry.shape.join(', ')}], the baseline's [${own.shape.join(', ')}]`);
+    else if (layerLayout(own).featureAxis !== layerLayout(entry).featureAxis) problems.push(`layers[${i}] "${entry.name}" has features on axis ${layerLayout(entry).featureAxis}, the baseline's on axis ${layerLayout(own).featureAxis}`);
     if (entry.from !== 'baseline') return;
     for (const key of ['file', 'sha256', 'bytes', 'rows', 'dtype', 'keep'] as const) {
       if (own[key] !== entry[key]) {

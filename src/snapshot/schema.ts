@@ -31,6 +31,15 @@ const shardSchema = z.looseObject({
   total: positive,
 });
 
+/** A tensor layout (src/graph/layout.ts); its fit to the layer's shape is checked by `readManifest`. */
+const layoutSchema = z.looseObject({
+  kind: z.enum(['channels-first', 'channels-last', 'tokens', 'heads', 'vector', 'scalar']),
+  featureAxis: z.number().int().nonnegative().max(7).nullable(),
+  source: z.enum(['graph', 'sidecar', 'shape']),
+  grid: z.looseObject({ prefix: count, height: positive, width: positive }).optional(),
+  heads: positive.optional(),
+});
+
 const layerSchema = z.looseObject({
   name: z.string().min(1),
   op: z.string(),
@@ -45,6 +54,7 @@ const layerSchema = z.looseObject({
   bytes: count.optional(),
   rows: count.optional(),
   nonFinite: count.optional(),
+  layout: layoutSchema.optional(),
 });
 
 /** `manifest.json` of a snapshot (format 2). */

@@ -9,7 +9,7 @@ import { LayerBlockFile } from './block-reader.js';
 import { startLayerCheck, type LayerVerification } from './layer-integrity.js';
 import { float16ToFloat32 } from './float16.js';
 import { channelCount, spatialSize } from './layer-file.js';
-import { assertComplete, assertInside, baselineLayerProblems, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
+import { assertComplete, assertInside, baselineLayerProblems, layerLayout, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 
 /** One record batch of a layer, as typed arrays. */
 export interface LayerBatch {
@@ -137,8 +137,8 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
   };
   const layerGeometry = (name: string) => {
     const entry = layer(name);
-    const channels = channelCount(entry.shape);
-    const spatial = spatialSize(entry.shape);
+    const channels = channelCount(entry.shape, layerLayout(entry));
+    const spatial = spatialSize(entry.shape, layerLayout(entry));
     return { channels, spatial, elements: channels * spatial };
   };
   async function* readLayer(name: string, readOptions: ReadLayerOptions = {}): AsyncGenerator<LayerBatch> {
