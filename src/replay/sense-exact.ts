@@ -1,8 +1,9 @@
 /**
  * One site's exact sensitivities (`--method exact`): the gradient graph of the part of the network
  * downstream of the site (src/graph/gradient/build.ts) runs forward and backward once per group of
- * stimuli, with one seed row per readout category, and returns every channel's gain sensitivity
- * Σ (∂y_c/∂a)·a and offset sensitivity Σ ∂y_c/∂a per stimulus; the averages over each category's
+ * stimuli, with one seed row per readout category, and returns every channel's (feature's) gain
+ * sensitivity Σ (∂y_c/∂a)·a and offset sensitivity Σ ∂y_c/∂a per stimulus, summed over the site's
+ * positions (a map's pixels, a token tensor's tokens); the averages over each category's
  * stimuli are the values `senseSites` reports. No step, no kinks inside a step: at a ReLU kink the
  * derivative is PyTorch's (ReLU′(0) = 0).
  */
@@ -13,7 +14,7 @@ import type { LoadedModel } from '../graph/load-model.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
-import { boundaryStream, type SiteRun, type StimulusValues } from './sense-run.js';
+import { boundaryStream, siteGeometryOf, type SiteRun, type StimulusValues } from './sense-run.js';
 import { siteTail } from './sense-plan.js';
 import type { SiteSensitivity } from './sense-types.js';
 
@@ -43,10 +44,11 @@ interface GradientStats {
  */
 async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void): Promise<GradientStats> {
   const { site, tail, layer, readout, weights, kind } = run;
-  const C = layer.shape[0]!;
+  // features along the site's layout (channels of a map, D of tokens); the graph sums over the other axes
+  const { features: C, featureAxis } = siteGeometryOf(layer);
   const K = readout.categories.length;
   const Kout = run.byName.get(readout.tensor)!.elements;
-  const graph = buildGradientGraph({ tail: tail.model, site, readout: readout.tensor, copies: K, probed: run.inspection.probed, modelName: run.model.fileName });
+  const graph = buildGradientGraph({ tail: tail.model, site, readout: readout.tensor, copies: K, probed: run.inspection.probed, modelName: run.model.fileName, featureAxis: featureAxis + 1 });
   const boundary = tail.boundary;
   const boundaryShapes = boundary.map((name) => (name === run.model.input.name ? run.inspection.input.shape.slice(1) : run.byName.get(name)!.shape));
   const perRow = boundaryShapes.map((shape) => shape.reduce((a, b) => a * b, 1));
@@ -143,7 +145,7 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
 export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> {
   const started = performance.now();
   const { site, layer, readout, weights, kind } = run;
-  const C = layer.shape[0]!;
+  const C = siteGeometryOf(layer).features;
   const K = readout.categories.length;
   const sums = new Float64Array(C * K); // [C, K]: i = k*K + c
   const stats = await streamGradients(run, ({ stimuli, values }) => {
@@ -221,7 +223,7 @@ export async function exactGainJacobian(options: GainJacobianOptions): Promise<{
   if (!tail || !tail.computed.has(options.readout)) throw new UsageError('E_SENSE_READOUT', `readout "${options.readout}" does not depend on site "${site}"`);
   const n = baseline.manifest.stimuli.count;
   const K = options.units.length;
-  const C = layer.shape[0]!;
+  const C = siteGeometryOf(layer).features;
   const Kout = out.elements;
   const run: SiteRun = {
     site, layer, tail, model, inspection, byName,

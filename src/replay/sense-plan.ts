@@ -91,7 +91,7 @@ export function chooseSites(site: string | readonly string[], inspection: ModelI
     if (shapes.has(name)) continue;
     const layer = inspection.layers.find((l) => l.name === name);
     if (layer) {
-      throw new UsageError('E_SENSE_SITE', `--site "${name}" has no channel axis (shape [${layer.shape.join(', ')}] per stimulus); a site must be [N, C] or [N, C, H, W]`, { hint: 'pick a feature map or a vector layer' });
+      throw new UsageError('E_SENSE_SITE', `--site "${name}" has no feature axis (shape [${layer.shape.join(', ')}] per stimulus); a site must be [N, C], [N, C, H, W] or tokens [N, T, D]`, { hint: 'pick a feature map, a token tensor or a vector layer' });
     }
     const near = closestHint(name, inspection.layers.map((l) => l.name));
     throw new UsageError('E_SENSE_SITE', `--site "${name}" not found (model has ${inspection.layers.length} recordable tensors${near ? `; ${near}` : ''})`);

@@ -4,8 +4,11 @@
  * channel, category); boundary tensors streamed from a baseline or computed by running the network.
  * The formulas turning the sums into sensitivities are in sense-estimate.ts.
  */
-import { RuntimeFailure } from '../errors.js';
+import { RuntimeFailure, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
+import { siteGeometry } from '../modulation/site-shape.js';
+import type { SiteShape } from '../modulation/types.js';
+import { siteShapes } from '../record/site-shapes.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { TailGraph } from '../graph/tail.js';
@@ -102,7 +105,9 @@ class RowBuffer {
 export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   const started = performance.now();
   const { site, tail, layer, readout, weights, kind, step } = run;
-  const C = layer.shape[0]!;
+  // features along the site's layout: channels of a map ([C, H, W]: o = 1, inner = H·W), D of tokens ([T, D]: outer = T, inner = 1)
+  const siteInfo = siteGeometryOf(layer);
+  const C = siteInfo.features;
   const K = readout.categories.length;
   const Kout = run.byName.get(readout.tensor)!.elements;
   const boundary = tail.boundary;
@@ -111,7 +116,7 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   const bytesPerRow = 4 * (perRow.reduce((a, b) => a + b, 0) + 2 * C);
   const capacity = Math.max(1, Math.min(run.rowsPerRun, Math.floor(run.feedBytes / (2 * bytesPerRow))));
   const variants = run.method === 'richardson' ? 4 : 2;
-  const injection: InjectionSite = { site, shape: layer.shape, spatial: false };
+  const injection: InjectionSite = { site, shape: layer.shape, spatial: false, featureAxis: siteInfo.featureAxis };
   const inputNames = modulationInputNames(site);
   const sumPerturbed = new Float64Array(variants * C * K); // [V, C, K]: i = (v*C + k)*K + c
   const sumIdentity = new Float64Array(K);
@@ -134,7 +139,7 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   let prefixStimuli = 0;
   let skippedRows = 0;
   const siteIndex = boundary.indexOf(site);
-  const siteSpatial = perRow[siteIndex]! / C;
+  const { outer: siteOuter, inner: siteInner } = siteInfo;
 
   const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), [readout.tensor]), { threads: run.threads, label: `${run.model.fileName} (downstream of ${site})` });
   const buffers = [new RowBuffer(capacity, perRow, C), new RowBuffer(capacity, perRow, C)];
@@ -231,10 +236,13 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
       const dead: number[] = [];
       for (let k = 0; k < C; k++) {
         let zero = true;
-        for (let p = k * siteSpatial, end = p + siteSpatial; p < end; p++) {
-          if (values[p] !== 0) {
-            zero = false;
-            break;
+        // element (o·C + k)·inner + i of the layout geometry
+        for (let o = 0; o < siteOuter && zero; o++) {
+          for (let p = (o * C + k) * siteInner, end = p + siteInner; p < end; p++) {
+            if (values[p] !== 0) {
+              zero = false;
+              break;
+            }
           }
         }
         if (zero) dead.push(k);
@@ -364,4 +372,16 @@ export async function* boundaryStream(run: SiteRun, boundary: readonly string[])
   } finally {
     await session.close();
   }
+}
+
+/**
+ * A site's feature geometry for sensitivities: features F along its layout, the positions outside
+ * (outer) and inside (inner) the feature axis, and the feature axis of the per-stimulus shape.
+ * @throws UsageError when the layer has no feature axis (a scalar per stimulus).
+ */
+export function siteGeometryOf(layer: LayerInfo): { features: number; outer: number; inner: number; featureAxis: number; shape: SiteShape } {
+  const shape = siteShapes([layer]).get(layer.name);
+  if (!shape) throw new UsageError('E_SENSE_SITE', `--site "${layer.name}" has no feature axis (shape [${layer.shape.join(', ')}] per stimulus)`, { hint: 'pick a feature map, a token tensor or a vector layer' });
+  const g = siteGeometry(shape);
+  return { features: g.features, outer: g.outer, inner: g.inner, featureAxis: shape.layout.featureAxis ?? 0, shape };
 }

@@ -61,6 +61,11 @@ export interface GradientRequest {
   probed: ReadonlyMap<string, { type: string; dims: number[] }>;
   /** Names for messages: the model file. */
   modelName: string;
+  /**
+   * Axis of the site tensor (batch axis included) that holds features; the sensitivities are summed over
+   * every other non-batch axis. Default 1 (NCHW maps, [N, C] vectors); 2 for [N, T, D] tokens.
+   */
+  featureAxis?: number;
 }
 
 /** The gradient graph and the names to feed and fetch. */
@@ -171,9 +176,10 @@ export function buildGradientGraph(request: GradientRequest): GradientGraph {
   const siteGradient = gradientOf(site);
   if (!siteGradient) throw new UsageError('E_GRADIENT_PATH', `readout "${readout}" of ${request.modelName} does not depend on site "${site}"`, { hint: 'pick a site upstream of the readout' });
 
-  // per-channel sums over the site's positions ([rows, C, ...] → [rows, C])
+  // per-feature sums over the site's positions ([rows, C, ...] → [rows, C]; tokens [rows, T, D] → [rows, D])
   const siteRank = probed.get(site)?.dims.length ?? 2;
-  const spatial = Array.from({ length: siteRank - 2 }, (_, i) => i + 2);
+  const featureAxis = request.featureAxis ?? 1;
+  const spatial = Array.from({ length: siteRank - 1 }, (_, i) => i + 1).filter((axis) => axis !== featureAxis);
   e.emit('Identity', [e.reduceSum(e.emit('Mul', [siteGradient, site]), spatial, false)], {}, 'gain');
   e.nodes[e.nodes.length - 1]!.output = [GRADIENT_NAMES.gain];
   e.emit('Identity', [e.reduceSum(siteGradient, spatial, false)], {}, 'offset');
