@@ -7,7 +7,7 @@
  */
 import { UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
-import { injectModulations, modulationInputNames, type InjectionSite } from '../graph/inject.js';
+import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { createNetworkSession } from '../session/network-session.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
@@ -15,6 +15,7 @@ import type { ModelInspection } from '../record/inspect-model.js';
 import { planTail } from '../record/record-modulated.js';
 import { runPipelined } from '../record/record-snapshot.js';
 import { replicateBoundaryFeeds } from './replicate-feeds.js';
+import { siteGeometryOf } from './sense-run.js';
 
 /** Options of `scoreGains`. */
 export interface GainScoringOptions {
@@ -44,16 +45,22 @@ export interface GainScoringOptions {
 export async function scoreGains(options: GainScoringOptions): Promise<Float64Array[]> {
   const { baseline, sites, gains, readout } = options;
   const shapes = sites.map((site) => baseline.layer(site).shape);
+  // features along each site's layout (channels of a map, D of tokens) and the dims of its G input
+  const byName = new Map(options.inspection.layers.map((l) => [l.name, l]));
+  const geometry = sites.map((site, s) => {
+    const layer = byName.get(site);
+    return layer ? siteGeometryOf(layer) : { features: shapes[s]![0]!, featureAxis: 0 };
+  });
   gains.forEach((pattern, p) => {
     if (pattern.length !== sites.length) throw new UsageError('E_GAINS', `gain pattern ${p} has ${pattern.length} vectors for ${sites.length} sites`);
     pattern.forEach((vector, s) => {
-      if (vector.length !== shapes[s]![0]) throw new UsageError('E_GAINS', `gain pattern ${p} at "${sites[s]}" has ${vector.length} values; the site has ${shapes[s]![0]} channels`);
+      if (vector.length !== geometry[s]!.features) throw new UsageError('E_GAINS', `gain pattern ${p} at "${sites[s]}" has ${vector.length} values; the site has ${geometry[s]!.features} features`);
     });
   });
   const plan = planTail(options.model, options.inspection, baseline, [...sites], [readout]);
   if (!('tail' in plan)) throw new UsageError('E_GAINS_TAIL', `gains at ${sites.join(', ')}: ${plan.reason}`, { hint: 'record the baseline with --keep full --dtype float32 and the default (or a wider) --layers selector' });
   const tail = plan.tail;
-  const injections: InjectionSite[] = sites.map((site, s) => ({ site, shape: shapes[s]!, spatial: false }));
+  const injections: InjectionSite[] = sites.map((site, s) => ({ site, shape: shapes[s]!, spatial: false, featureAxis: geometry[s]!.featureAxis }));
   const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, injections), [readout]), { threads: options.threads ?? 0, label: `${options.model.fileName} downstream of ${sites.join(', ')}` });
   const n = baseline.manifest.stimuli.count;
   const units = baseline.layerGeometry(readout).channels;
@@ -72,11 +79,10 @@ export async function scoreGains(options: GainScoringOptions): Promise<Float64Ar
             const parts = await Promise.all(streams.map((s) => s.next()));
             const { rows, firstBatch, feeds } = replicateBoundaryFeeds(parts, tail.boundary, siteSet, M, baseline);
             sites.forEach((site, s) => {
-              const shape = shapes[s]!;
-              const C = shape[0]!;
+              const C = geometry[s]!.features;
               const gain = new Float32Array(M * rows * C);
               for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(group[m]![s]!, (m * rows + i) * C);
-              const dims = [M * rows, C, ...shape.slice(1).map(() => 1)];
+              const dims = modulationInputDims(injections[s]!, M * rows);
               const names = modulationInputNames(site);
               feeds[names.gain] = { data: gain, dims };
               feeds[names.offset] = { data: new Float32Array(M * rows * C), dims };
