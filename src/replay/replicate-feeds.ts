@@ -23,18 +23,38 @@ export function replicateBoundaryFeeds(
   M: number,
   baseline: Snapshot,
 ): { rows: number; firstBatch: LayerBatch; feeds: Record<string, FloatTensor> } {
+  const batches = alignedBoundary(parts, boundary, baseline);
+  const rows = batches[0]!.rows;
+  return { rows, firstBatch: batches[0]!, feeds: replicateRows(batches, boundary, rawSites, baseline, 0, rows, M) };
+}
+
+/**
+ * The next batch of every boundary stream, checked to hold the same stimuli.
+ * @throws RuntimeFailure when a stream ends early or the layers are not aligned.
+ */
+export function alignedBoundary(parts: ReadonlyArray<IteratorResult<LayerBatch>>, boundary: readonly string[], baseline: Snapshot): LayerBatch[] {
   const firstBatch = parts[0]!.value as LayerBatch | undefined;
   if (!firstBatch) throw new RuntimeFailure('E_LAYER_READ', `baseline ${baseline.folder} ended early`);
-  const rows = firstBatch.rows;
+  return parts.map((part, i) => {
+    const batch = part.value as LayerBatch | undefined;
+    if (!batch || batch.rows !== firstBatch.rows || batch.index[0] !== firstBatch.index[0] || !batch.activation) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${boundary[i]}" is not aligned with the others`);
+    return batch;
+  });
+}
+
+/**
+ * Feeds of rows [i0, i0 + rows) of aligned boundary batches, repeated M times along the batch axis
+ * (row m·rows + i is stimulus i0 + i under pattern m); sites feed `NAME::raw`.
+ */
+export function replicateRows(batches: readonly LayerBatch[], boundary: readonly string[], rawSites: ReadonlySet<string>, baseline: Snapshot, i0: number, rows: number, M: number): Record<string, FloatTensor> {
   const feeds: Record<string, FloatTensor> = {};
-  parts.forEach((part, i) => {
-    const batch = part.value as LayerBatch;
+  batches.forEach((batch, i) => {
     const name = boundary[i]!;
-    if (!batch || batch.rows !== rows || batch.index[0] !== firstBatch.index[0]) throw new RuntimeFailure('E_LAYER_READ', `baseline layer "${name}" is not aligned with the others`);
-    const per = batch.activation!.length / rows;
+    const per = batch.activation!.length / batch.rows;
+    const source = batch.activation!.subarray(i0 * per, (i0 + rows) * per);
     const replicated = new Float32Array(M * rows * per);
-    for (let m = 0; m < M; m++) replicated.set(batch.activation!, m * rows * per);
+    for (let m = 0; m < M; m++) replicated.set(source, m * rows * per);
     feeds[rawSites.has(name) ? `${name}::raw` : name] = { data: replicated, dims: [M * rows, ...baseline.layer(name).shape] };
   });
-  return { rows, firstBatch, feeds };
+  return feeds;
 }

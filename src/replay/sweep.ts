@@ -25,8 +25,8 @@ import { readoutOf } from '../compare/diff-collect.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from '../record/record-modulated.js';
 import { shuffleChannels } from '../modulation/shuffle.js';
-import { replicateBoundaryFeeds } from './replicate-feeds.js';
-import { runPipelined } from '../record/record-snapshot.js';
+import { alignedBoundary, replicateRows } from './replicate-feeds.js';
+import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { shardRange } from '../record/shard.js';
 import { ALL_ACTIVATIONS, chooseSites } from './sense-plan.js';
 import { SWEEP_SCHEMES, type MatchTarget, type SweepCell, type SweepDepthPoint, type SweepDetection, type SweepMeasure, type SweepResult, type SweepScheme } from './sweep-types.js';
@@ -69,8 +69,10 @@ export interface SweepOptions {
   out: string;
   /** Start afresh instead of skipping the cells already in `out/cells.jsonl`. */
   restart?: boolean;
-  /** Gain vectors evaluated per runtime call (default 16). */
+  /** Gain vectors evaluated per pass over the stimuli (default 16); a pass is split into runtime calls by `runBytes`. */
   vectorsPerRun?: number;
+  /** Bytes of tensors one runtime call may hold (default `DEFAULT_RUN_BYTES`): fewer vectors or stimuli per call where they would exceed it. */
+  runBytes?: number;
   /** Runtime threads (0: the runtime chooses). */
   threads?: number;
   /** Decision threshold rule, as in `diffSnapshots` (default `auto`). */
@@ -162,6 +164,7 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
   const seeds = options.controlSeeds ?? 3;
   if (!Number.isInteger(seeds) || seeds < 1) throw new UsageError('E_SEEDS', `--control-seeds must be a positive integer, got ${seeds}`);
   const match = options.match ? parseMatchTarget(options.match) : null;
+  runBytesOption(options.runBytes); // a bad budget is refused before the folder is touched
   const measure = parseSweepMeasure(options.measure);
   assertSweepSize({ sites: sites.length, schemes, categories: categories.length, strengths: options.strengths.length, seeds });
   const lock = prepareSweepFolder(options.out);
@@ -299,7 +302,7 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
     const chunks = Math.ceil(vectorIndex.size / perRun);
     for (let chunk = 0; chunk < chunks; chunk++) {
       const group = cells.filter((_, i) => chunkOf[i] === chunk);
-      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)!, resampling });
+      const results = await evaluateGroup({ model, inspection, baseline, site, group, perCategory, readout: readout.layer, units, depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64, tuningFor, threads: options.threads ?? 0, weights: siteWeights.get(site)!, resampling, runBytes: runBytesOption(options.runBytes) });
       const fd = openSync(progressPath, 'a');
       try {
         for (const cell of results) {
@@ -358,6 +361,8 @@ interface GroupRun {
   threads: number;
   weights: Float64Array;
   resampling: Float64Array[];
+  /** Bytes of tensors one runtime call may hold. */
+  runBytes: number;
 }
 
 /** One pass over the baseline's stimuli evaluating a group of gain vectors at one site. */
@@ -402,65 +407,82 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   const profileStreams = profiled.map((l) => baseline.readLayer(l.name));
   const names = modulationInputNames(site);
   const count = Math.ceil(n / baseline.manifest.run.batch);
-  const pendingBase: LayerBatch[][] = [];
-  let runIndex = 0;
   const batchRows = baseline.manifest.run.batch;
-  const profiledBatch = (): boolean => run.depthProfile && (runIndex++) * batchRows < profileRows;
-  try {
-    await runPipelined(
-      count,
-      async () => {
-        const parts = await Promise.all(boundaryStreams.map((s) => s.next()));
-        const baseParts = await Promise.all(profileStreams.map((s) => s.next()));
-        const { rows, firstBatch, feeds } = replicateBoundaryFeeds(parts, tail.boundary, new Set([site]), M, baseline);
-        const gain = new Float32Array(M * rows * C);
-        for (let m = 0; m < M; m++) for (let i = 0; i < rows; i++) gain.set(vectors[m]!, (m * rows + i) * C);
-        const dims = modulationInputDims(injection, M * rows);
-        feeds[names.gain] = { data: gain, dims };
-        feeds[names.offset] = { data: new Float32Array(M * rows * C), dims };
-        pendingBase.push(baseParts.map((p) => (p.value as LayerBatch)));
-        return { first: firstBatch.index[0]!, rows, feeds };
-      },
-      // the depth profile is measured on the first stimuli only: later batches fetch the readout alone
-      (feeds) => session.run(feeds, profiledBatch() ? fetch : [run.readout]),
-      (first, rows, outputs) => {
-        const readout = outputs[run.readout]!.data;
-        group.forEach((cell, c) => {
-          const unit = run.perCategory.get(cell.category)!.unit;
-          const m = vectorOfCell[c]!;
-          for (let i = 0; i < rows; i++) scores[c]![first + i] = readout[(m * rows + i) * run.units + unit]!;
-        });
-        const baseBatches = pendingBase.shift()!;
-        if (first >= profileRows) return;
-        profiled.forEach((layer, li) => {
-          const { channels, spatial, elements } = geometry[li]!;
-          const a = baseBatches[li]!.activation!;
-          const b = outputs[layer.name]!.data;
-          for (let m = 0; m < M; m++) {
-            const acc = sums[m]![li]!;
-            for (let i = 0; i < Math.min(rows, profileRows - first); i++) {
-              const aBase = i * elements;
-              const bBase = (m * rows + i) * elements;
-              for (let k = 0; k < channels; k++) {
-                let sa = 0;
-                let sb = 0;
-                for (let s = 0; s < spatial; s++) {
-                  const av = a[aBase + k * spatial + s]!;
-                  const bv = b[bBase + k * spatial + s]!;
-                  const d = bv - av;
-                  acc.dd += d * d;
-                  acc.aa += av * av;
-                  sa += av;
-                  sb += bv;
-                }
-                acc.baseMeans[k] += sa / spatial;
-                acc.modMeans[k] += sb / spatial;
-              }
+  // rows per runtime call (gain vectors × stimuli) from the bytes a call holds (graph/run-memory.ts)
+  const injected = injectModulations(tail.model, [injection]);
+  const elementsOf = new Map(run.inspection.layers.map((l) => [l.name, l.elements]));
+  const rowBytes = runRowBytes(injected, (name) => elementsOf.get(name.endsWith('::raw') ? name.slice(0, -5) : name), { fed: tail.boundary.map((name) => (name === site ? `${name}::raw` : name)), fetched: fetch });
+  const cap = rowsWithin(run.runBytes, rowBytes, M * batchRows);
+  /** One runtime call: gain vectors [m0, m0 + mc) on the batch's stimuli [i0, i0 + ic); scores and depth sums taken from it. */
+  const evaluateCall = async (parts: LayerBatch[], baseBatches: LayerBatch[], first: number, m0: number, mc: number, i0: number, ic: number): Promise<void> => {
+    const rows = mc * ic;
+    const feeds = replicateRows(parts, tail.boundary, new Set([site]), baseline, i0, ic, mc);
+    const gain = new Float32Array(rows * C);
+    for (let m = 0; m < mc; m++) for (let i = 0; i < ic; i++) gain.set(vectors[m0 + m]!, (m * ic + i) * C);
+    const dims = modulationInputDims(injection, rows);
+    feeds[names.gain] = { data: gain, dims };
+    feeds[names.offset] = { data: new Float32Array(rows * C), dims };
+    const start = first + i0;
+    // the depth profile is measured on the first stimuli only: later calls fetch the readout alone
+    const profiling = run.depthProfile && start < profileRows;
+    const outputs = await session.run(feeds, profiling ? fetch : [run.readout]);
+    const readout = outputs[run.readout]!.data;
+    group.forEach((cell, c) => {
+      const unit = run.perCategory.get(cell.category)!.unit;
+      const m = vectorOfCell[c]! - m0;
+      if (m < 0 || m >= mc) return;
+      for (let i = 0; i < ic; i++) scores[c]![start + i] = readout[(m * ic + i) * run.units + unit]!;
+    });
+    if (!profiling) return;
+    profiled.forEach((layer, li) => {
+      const { channels, spatial, elements } = geometry[li]!;
+      const a = baseBatches[li]!.activation!;
+      const b = outputs[layer.name]!.data;
+      for (let m = 0; m < mc; m++) {
+        const acc = sums[m0 + m]![li]!;
+        for (let i = 0; i < Math.min(ic, profileRows - start); i++) {
+          const aBase = (i0 + i) * elements;
+          const bBase = (m * ic + i) * elements;
+          for (let k = 0; k < channels; k++) {
+            let sa = 0;
+            let sb = 0;
+            for (let s = 0; s < spatial; s++) {
+              const av = a[aBase + k * spatial + s]!;
+              const bv = b[bBase + k * spatial + s]!;
+              const d = bv - av;
+              acc.dd += d * d;
+              acc.aa += av * av;
+              sa += av;
+              sb += bv;
             }
+            acc.baseMeans[k] += sa / spatial;
+            acc.modMeans[k] += sb / spatial;
           }
-        });
-      },
-    );
+        }
+      }
+    });
+  };
+  const read = async (): Promise<{ parts: LayerBatch[]; baseBatches: LayerBatch[] }> => {
+    const parts = alignedBoundary(await Promise.all(boundaryStreams.map((s) => s.next())), tail.boundary, baseline);
+    const baseBatches = (await Promise.all(profileStreams.map((s) => s.next()))).map((p) => p.value as LayerBatch);
+    return { parts, baseBatches };
+  };
+  try {
+    // the next baseline batch is read while the calls of the current one run
+    let next: Promise<{ parts: LayerBatch[]; baseBatches: LayerBatch[] }> | null = count > 0 ? read() : null;
+    for (let k = 0; k < count; k++) {
+      const { parts, baseBatches } = await next!;
+      next = k + 1 < count ? read() : null;
+      next?.catch(() => undefined); // surfaced when awaited
+      const rows = parts[0]!.rows;
+      const first = parts[0]!.index[0]!;
+      // all stimuli of the batch and as many vectors as fit, or one vector and as many stimuli as fit
+      const stimuliPerCall = Math.min(rows, cap);
+      const vectorsPerCall = Math.max(1, Math.floor(cap / stimuliPerCall));
+      for (let m0 = 0; m0 < M; m0 += vectorsPerCall) {
+        for (let i0 = 0; i0 < rows; i0 += stimuliPerCall) await evaluateCall(parts, baseBatches, first, m0, Math.min(vectorsPerCall, M - m0), i0, Math.min(stimuliPerCall, rows - i0));
+      }
+    }
   } finally {
     await Promise.all([...boundaryStreams, ...profileStreams].map((s) => s.return(undefined)));
     await session.close();

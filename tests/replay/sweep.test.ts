@@ -94,6 +94,15 @@ describe('sweepModulations', () => {
     }
   });
 
+  it('sweepModulations split into one gain vector and one stimulus per runtime call by a tiny run-bytes budget gives the same cells, depth profile included', async () => {
+    // the calls only regroup rows; each row is computed on its own (common practice: the runtime's kernels loop over the batch outside the arithmetic)
+    const common = { model, from: join(dir, 'base'), sites: ['relu1'], schemes: ['tuning', 'uniform'], strengths: [0.5, 1], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), threads: 1, depthProfile: true, profileStimuli: 12 };
+    const whole = await sweepModulations({ ...common, out: join(dir, 'sw-bytes-whole') });
+    const split = await sweepModulations({ ...common, out: join(dir, 'sw-bytes-split'), runBytes: 1 });
+    expect(split.cells).toEqual(whole.cells);
+    await expect(sweepModulations({ ...common, out: join(dir, 'sw-bytes-bad'), runBytes: 0 })).rejects.toThrow(/--run-memory/);
+  });
+
   it('sweepModulations resumed after an interruption equals an uninterrupted sweep', async () => {
     const common = { model, from: join(dir, 'base'), sites: ['relu0', 'relu1'], strengths: [0, 0.3, 0.6], task: 'detect:all', tuning: join(dir, 'tuning.arrow'), threads: 1, vectorsPerRun: 4, controlSeeds: 2 } as const;
     const whole = await sweepModulations({ ...common, out: join(dir, 'sw-whole') });
