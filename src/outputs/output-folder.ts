@@ -7,6 +7,7 @@ import { acquireLock, LOCK_FILE, type FolderLock } from '../disk/lock.js';
 import { onInterrupt } from '../disk/interrupt.js';
 import { readManifest, type SnapshotManifest } from '../snapshot/manifest.js';
 import { DIGEST_LOG_FILE, PROGRESS_FILE, readProgress, type ProgressRecord } from '../snapshot/progress-file.js';
+import { meansFileName } from '../snapshot/layer-file.js';
 
 /** Default parent folder for `--out` names without a slash. */
 export const DEFAULT_SNAPSHOT_PARENT = 'snapshots';
@@ -138,6 +139,9 @@ function listedLayerFiles(folder: string): Set<string> {
     if (typeof file !== 'string' || !/^layers\/[^/\\]+$/.test(file) || file.includes('..')) return;
     listed.add(file);
     listed.add(`${file}.partial`);
+    // the channel-means file a full layer's writer adds when it finishes (snapshot format 3)
+    listed.add(meansFileName(file));
+    listed.add(`${meansFileName(file)}.partial`);
   };
   const layers = sondeManifestJson(join(folder, 'manifest.json'))?.layers;
   if (Array.isArray(layers)) {

@@ -9,7 +9,8 @@
  *
  * Layer files are rewritten: rows are re-cut into batches of the recording's batch size aligned at
  * stimulus 0, the stored columns are copied as they are (channel means are not recomputed, float16 bit
- * patterns are not widened). An unsharded recording with the same batch size cuts its batches the same
+ * patterns are not widened), compressed with the parts' codec, each full layer with its channel-means
+ * file. An unsharded recording with the same batch size cuts its batches the same
  * way, so with deterministic runtime output (`--threads 1`) the merged layer files are byte-identical to
  * the unsharded run's. `stimuli.arrow` is the parts' rows in order; the stimuli digest is recomputed over
  * the per-stimulus digests and so equals the unsharded run's.
@@ -24,7 +25,7 @@ import { createHash } from 'node:crypto';
 import { readFileSync, rmSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { LayerFileWriter } from '../snapshot/layer-file.js';
+import { LayerFileWriter, manifestFields, meansFileName, type LayerFileResult } from '../snapshot/layer-file.js';
 import { FORMAT_VERSION, layerLayout, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
@@ -115,7 +116,7 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
   // NaN/±Inf counts add up over the parts (kept only when every part counted them)
   const sumOver = (pick: (m: SnapshotManifest) => number | undefined): number | undefined => (ordered.every((p) => pick(p.manifest) !== undefined) ? ordered.reduce((sum, p) => sum + pick(p.manifest)!, 0) : undefined);
   const layers: ManifestLayer[] = template.layers.map((l, i) => {
-    const { sha256: _s, bytes: _b, rows: _r, from: _f, nonFinite: _n, ...rest } = l;
+    const { sha256: _s, bytes: _b, rows: _r, from: _f, nonFinite: _n, means: _m, ...rest } = l;
     const nonFinite = sumOver((m) => m.layers[i]?.nonFinite);
     return { ...rest, ...(nonFinite !== undefined ? { nonFinite } : {}) };
   });
@@ -145,13 +146,14 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
         const entry = layers[i]!;
         const result = await mergeLayer(ordered, entry, join(folder, entry.file), template.run.batch, total);
         const baseEntry = baseline?.manifest.layers[i];
-        if (baseEntry && baseEntry.sha256 === result.sha256 && baseEntry.keep === entry.keep && baseEntry.dtype === entry.dtype) {
+        if (baseEntry && baseEntry.sha256 === result.sha256 && baseEntry.keep === entry.keep && baseEntry.dtype === entry.dtype && baseEntry.means?.sha256 === result.means?.sha256) {
           rmSync(join(folder, entry.file), { force: true });
+          rmSync(join(folder, meansFileName(entry.file)), { force: true });
           layers[i] = { ...baseEntry, from: 'baseline' };
           fromBaseline++;
         } else {
-          Object.assign(entry, result);
-          bytesWritten += result.bytes;
+          Object.assign(entry, manifestFields(entry.file, result));
+          bytesWritten += result.bytes + (result.means?.bytes ?? 0);
         }
         options.onLayer?.(i + 1, layers.length, entry.name);
       }
@@ -215,13 +217,13 @@ export async function mergeSnapshots(options: MergeOptions): Promise<MergeSummar
 }
 
 /** Copies one layer from every part, in order, into batches of `batch` rows aligned at stimulus 0. */
-async function mergeLayer(parts: readonly Snapshot[], entry: ManifestLayer, path: string, batch: number, total: number): Promise<{ sha256: string; bytes: number; rows: number }> {
+async function mergeLayer(parts: readonly Snapshot[], entry: ManifestLayer, path: string, batch: number, total: number): Promise<LayerFileResult> {
   const geometry = parts[0]!.layerGeometry(entry.name);
   const C = geometry.channels;
   const E = geometry.elements;
   const full = entry.keep === 'full';
   const half = entry.dtype === 'float16';
-  const writer = new LayerFileWriter(path, { name: entry.name, shape: entry.shape, dtype: entry.dtype, keep: entry.keep, layout: layerLayout(entry) });
+  const writer = new LayerFileWriter(path, { name: entry.name, shape: entry.shape, dtype: entry.dtype, keep: entry.keep, layout: layerLayout(entry), compression: entry.compression ?? 'none' });
   const means = new Float32Array(batch * C);
   const values32 = full && !half ? new Float32Array(batch * E) : null;
   const values16 = full && half ? new Uint16Array(batch * E) : null;

@@ -13,7 +13,7 @@ import { loadModulationSpec } from '../modulation/spec.js';
 import type { ModulationSpec, ResolveContext, ResolvedModulation } from '../modulation/types.js';
 import { modulationSites } from './site-shapes.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
-import { LayerFileWriter } from '../snapshot/layer-file.js';
+import { LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { writeStimuliFile } from '../snapshot/stimuli-file.js';
@@ -226,8 +226,9 @@ async function replayTail(run: TailRun): Promise<RecordSummary> {
   const changed = baseline.manifest.layers.filter((l) => tail.computed.has(l.name) || siteNames.has(l.name));
   const layers: ManifestLayer[] = baseline.manifest.layers.map((l) => {
     if (!changed.includes(l)) return { ...l, from: 'baseline' as const };
-    const { sha256: _s, bytes: _b, rows: _r, from: _f, ...rest } = l;
-    return { ...rest, dtype: options.dtype ?? l.dtype };
+    const { sha256: _s, bytes: _b, rows: _r, from: _f, means: _m, compression: baseCompression, ...rest } = l;
+    const compression = options.compress ?? baseCompression ?? 'none';
+    return { ...rest, dtype: options.dtype ?? l.dtype, ...(compression !== 'none' ? { compression } : {}) };
   });
   const manifest: SnapshotManifest = {
     format: FORMAT_VERSION,
@@ -273,7 +274,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
   try {
     for (const l of changedEntries) {
       const path = join(folder, l.file);
-      const layout = { name: l.name, shape: l.shape, dtype: l.dtype, keep: l.keep };
+      const layout = { name: l.name, shape: l.shape, dtype: l.dtype, keep: l.keep, compression: l.compression ?? ('none' as const) };
       if (checkpoint) {
         const at = checkpoint.files[l.file];
         if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${l.file}`, { hint: 'record again without --resume' });
@@ -345,8 +346,8 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     let total = 0;
     writers.forEach((writer, i) => {
       const result = writer.finish();
-      Object.assign(changedEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows, ...(tally ? { nonFinite: tally.get(changedEntries[i]!.file) } : {}) });
-      total += result.bytes;
+      Object.assign(changedEntries[i]!, { ...manifestFields(changedEntries[i]!.file, result), ...(tally ? { nonFinite: tally.get(changedEntries[i]!.file) } : {}) });
+      total += result.bytes + (result.means?.bytes ?? 0);
     });
     const stimuliFile = writeStimuliFile(join(folder, 'stimuli.arrow'), baseline.stimuli.ids, baseline.stimuli.labels, { firstIndex, ...(baseline.stimuli.digests ? { digests: baseline.stimuli.digests } : {}) });
     total += stimuliFile.bytes;

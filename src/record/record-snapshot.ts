@@ -14,7 +14,8 @@ import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
-import { channelCount, LayerFileWriter } from '../snapshot/layer-file.js';
+import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
+import { parseCompression, type LayerCompression } from '../snapshot/compression.js';
 import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
@@ -53,6 +54,8 @@ export interface RecordOptions {
   keep?: KeepMode;
   /** Storage of activations: `float32` (default) or `float16`. */
   dtype?: ActivationDtype;
+  /** Arrow IPC buffer compression of the layer files: `none` (default), `lz4` or `zstd` (snapshot/compression.ts). */
+  compress?: LayerCompression;
   /** Stimuli per batch (default 16). */
   batch?: number;
   /** Runtime intra-op threads; 0 (default) lets the runtime choose. */
@@ -143,6 +146,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const dtype = options.dtype ?? 'float32';
   if (keep !== 'full' && keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${String(keep)}"`);
   if (dtype !== 'float32' && dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${String(dtype)}"`);
+  const compression = parseCompression(options.compress ?? 'none');
   const requestedBatch = options.batch ?? 16;
   if (!Number.isInteger(requestedBatch) || requestedBatch <= 0) throw new UsageError('E_BATCH', `--batch must be a positive integer, got ${requestedBatch}`);
   const inputShape = chooseInputShape(model, options);
@@ -192,6 +196,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
       layout: layer.layout,
       dtype,
       keep,
+      ...(compression !== 'none' ? { compression } : {}),
       file: `layers/${String(layer.depth).padStart(3, '0')}-${slugify(layer.name)}.arrow`,
     }));
     const manifest: SnapshotManifest = {
@@ -265,7 +270,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     selected.forEach((layer, i) => {
       const file = layerEntries[i]!.file;
       const path = `${folder}/${file}`;
-      const layout = { name: layer.name, shape: layer.shape, dtype, keep, layout: layer.layout };
+      const layout = { name: layer.name, shape: layer.shape, dtype, keep, layout: layer.layout, compression: (layerEntries[i]!.compression ?? 'none') as LayerCompression };
       if (checkpoint) {
         const at = checkpoint.files[file];
         if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${file}`, { hint: 'record again without --resume' });
@@ -324,8 +329,8 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     let total = 0;
     writers.forEach((writer, i) => {
       const result = writer.finish();
-      Object.assign(layerEntries[i]!, { sha256: result.sha256, bytes: result.bytes, rows: result.rows });
-      total += result.bytes;
+      Object.assign(layerEntries[i]!, manifestFields(layerEntries[i]!.file, result));
+      total += result.bytes + (result.means?.bytes ?? 0);
     });
     const stimuliFile = writeStimuliFile(`${folder}/stimuli.arrow`, source.ids.slice(range.start, range.end), source.labels.slice(range.start, range.end), { digests: log.digests, firstIndex: range.start });
     total += stimuliFile.bytes;
@@ -401,7 +406,7 @@ export function settleOutputFolder(opened: OpenedOutput, manifest: SnapshotManif
 }
 
 export function assertSameRecording(stored: SnapshotManifest, wanted: SnapshotManifest, folder: string): void {
-  const layerKey = (m: SnapshotManifest) => m.layers.map((l) => ({ name: l.name, op: l.op, depth: l.depth, shape: l.shape, dtype: l.dtype, keep: l.keep, file: l.file, from: l.from ?? null }));
+  const layerKey = (m: SnapshotManifest) => m.layers.map((l) => ({ name: l.name, op: l.op, depth: l.depth, shape: l.shape, dtype: l.dtype, keep: l.keep, compression: l.compression ?? 'none', file: l.file, from: l.from ?? null }));
   const checks: Array<[string, unknown, unknown]> = [
     ['the model', stored.model.sha256, wanted.model.sha256],
     ['the model input', stored.model.input, wanted.model.input],
@@ -411,7 +416,7 @@ export function assertSameRecording(stored: SnapshotManifest, wanted: SnapshotMa
     ['the baseline', stored.baseline?.manifestSha256 ?? null, wanted.baseline?.manifestSha256 ?? null],
     ['the run mode', stored.run.mode, wanted.run.mode],
     ['--batch', stored.run.batch, wanted.run.batch],
-    ['the layers (or --keep/--dtype)', layerKey(stored), layerKey(wanted)],
+    ['the layers (or --keep/--dtype/--compress)', layerKey(stored), layerKey(wanted)],
     ['--shard', stored.shard ?? null, wanted.shard ?? null],
   ];
   for (const [what, a, b] of checks) {

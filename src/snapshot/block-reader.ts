@@ -7,6 +7,11 @@
  * format" in the Arrow columnar specification). The next batch is read ahead on the thread pool while the
  * current one is consumed. Files of another schema are rejected so that callers fall back to the
  * general Arrow reader.
+ *
+ * Compressed batches (Arrow's `BodyCompression`, LZ4 frame or ZSTD; see compression.ts) are read the
+ * same way: only the byte ranges of the buffers asked for are read, and each is decompressed on the
+ * thread pool (as part of the read-ahead). With `activation` false neither reads nor decompresses the
+ * activation buffer.
  */
 import { closeSync, fstatSync, openSync, readSync } from 'node:fs';
 import { read as readAsync } from 'node:fs';
@@ -14,6 +19,7 @@ import { Footer, FileBlock } from 'apache-arrow/ipc/metadata/file';
 import { Message } from 'apache-arrow/ipc/metadata/message';
 import { Type } from 'apache-arrow';
 import type { Schema } from 'apache-arrow';
+import { compressionName, decodeBuffer, decodeBufferSync, type LayerCompression } from './compression.js';
 
 /** One batch as views: rows, global indices, channel means, activations (float32 or float16 bits). */
 export interface RawBatch {
@@ -102,6 +108,17 @@ export class LayerBlockFile {
     const block = this.blocks[i]!;
     const meta = new Uint8Array(block.metaDataLength);
     await positionedRead(this.fd, meta, 0, meta.length, block.offset);
+    return this.decodeHeader(i, meta);
+  }
+
+  private headerSync(i: number) {
+    const block = this.blocks[i]!;
+    const meta = new Uint8Array(block.metaDataLength);
+    readFully(this.fd, meta, block.offset);
+    return this.decodeHeader(i, meta);
+  }
+
+  private decodeHeader(i: number, meta: Uint8Array) {
     // encapsulated message: 0xFFFFFFFF continuation, int32 flatbuffer length, flatbuffer, padding
     const view = new DataView(meta.buffer, meta.byteOffset, meta.byteLength);
     let start = 4;
@@ -113,6 +130,19 @@ export class LayerBlockFile {
     const message = Message.decode(meta.subarray(start, start + length));
     if (!message.isRecordBatch()) throw new Error(`block ${i} of ${this.path} is not a record batch`);
     return message.header();
+  }
+
+  /** The codec of batch `i` (`none` for plain buffers). @throws Error for a codec Sonde does not read. */
+  private codecOf(i: number, header: { compression: { type: number } | null }): LayerCompression {
+    if (!header.compression) return 'none';
+    const name = compressionName(header.compression.type);
+    if (!name) throw new Error(`record batch ${i} of ${this.path} uses compression codec ${header.compression.type}, which Sonde does not read (LZ4 frame and ZSTD only)`);
+    return name;
+  }
+
+  /** How batch `i` is stored (`none`, `lz4`, `zstd`), from its metadata only. */
+  compressionOf(i: number): LayerCompression {
+    return this.codecOf(i, this.headerSync(i));
   }
 
   /** Number of record batches. */
@@ -131,20 +161,50 @@ export class LayerBlockFile {
     const regions = header.buffers;
     const wanted = activation && this.activationKind ? 8 : 5;
     if (regions.length < wanted) throw new Error(`record batch ${i} of ${this.path} has ${regions.length} buffers, expected ${wanted}`);
-    if (header.compression) throw new Error(`record batch ${i} of ${this.path} is compressed; Sonde writes uncompressed files`);
+    const codec = this.codecOf(i, header);
     const end = regions[wanted - 1]!.offset + regions[wanted - 1]!.length;
+    if (end > block.bodyLength) throw new Error(`record batch ${i} of ${this.path} lists buffers up to byte ${end} of a ${block.bodyLength}-byte body`);
     const body = buffer && buffer.byteLength >= end ? buffer : new Uint8Array(Math.max(end, 8));
     await positionedRead(this.fd, body, 0, end, block.offset + block.metaDataLength);
-    // region lengths are padded to 8 bytes: the views take exactly rows × width values
-    const view = <T extends Float32Array | Uint16Array | Int32Array>(Ctor: { new (b: ArrayBuffer, o: number, l: number): T; BYTES_PER_ELEMENT: number }, region: { offset: number; length: number }, count: number, what: string): T => {
-      if (count * Ctor.BYTES_PER_ELEMENT > region.length) throw new Error(`${what} of batch ${i} holds ${region.length} bytes, fewer than ${count} values`);
-      return new Ctor(body.buffer as ArrayBuffer, body.byteOffset + region.offset, count);
+    const bytes = (r: number): Uint8Array => body.subarray(regions[r]!.offset, regions[r]!.offset + regions[r]!.length);
+    const [indexBytes, meanBytes, valueBytes] = codec === 'none'
+      ? [bytes(1), bytes(4), wanted === 8 ? bytes(7) : null]
+      : await Promise.all([decodeBuffer(codec, bytes(1)), decodeBuffer(codec, bytes(4)), wanted === 8 ? decodeBuffer(codec, bytes(7)) : Promise.resolve(null)]);
+    return { batch: this.viewBatch(i, rows, indexBytes, meanBytes, valueBytes), buffer: body };
+  }
+
+  /**
+   * Reads the index and channel means of batch `i` synchronously (never the activation buffer): what a
+   * writer reads back from a file it has just finished.
+   */
+  readMeansSync(i: number): RawBatch {
+    const block = this.blocks[i]!;
+    const header = this.headerSync(i);
+    const regions = header.buffers;
+    if (regions.length < 5) throw new Error(`record batch ${i} of ${this.path} has ${regions.length} buffers, expected 5`);
+    const codec = this.codecOf(i, header);
+    const end = regions[4]!.offset + regions[4]!.length;
+    if (end > block.bodyLength) throw new Error(`record batch ${i} of ${this.path} lists buffers up to byte ${end} of a ${block.bodyLength}-byte body`);
+    const body = new Uint8Array(Math.max(end, 8));
+    readFully(this.fd, body.subarray(0, end), block.offset + block.metaDataLength);
+    const bytes = (r: number): Uint8Array => body.subarray(regions[r]!.offset, regions[r]!.offset + regions[r]!.length);
+    const decode = (r: number) => (codec === 'none' ? bytes(r) : decodeBufferSync(codec, bytes(r)));
+    return this.viewBatch(i, header.length, decode(1), decode(4), null);
+  }
+
+  /** Typed views of a batch's buffers (region lengths are padded to 8 bytes: the views take exactly rows × width values). */
+  private viewBatch(i: number, rows: number, indexBytes: Uint8Array, meanBytes: Uint8Array, valueBytes: Uint8Array | null): RawBatch {
+    const view = <T extends Float32Array | Uint16Array | Int32Array>(Ctor: { new (b: ArrayBuffer, o: number, l: number): T; BYTES_PER_ELEMENT: number }, bytes: Uint8Array, count: number, what: string): T => {
+      if (count * Ctor.BYTES_PER_ELEMENT > bytes.byteLength) throw new Error(`${what} of batch ${i} holds ${bytes.byteLength} bytes, fewer than ${count} values`);
+      // a decompressed buffer may start anywhere: copy it when it is not aligned for the view
+      const aligned = bytes.byteOffset % Ctor.BYTES_PER_ELEMENT === 0 ? bytes : bytes.slice(0, count * Ctor.BYTES_PER_ELEMENT);
+      return new Ctor(aligned.buffer as ArrayBuffer, aligned.byteOffset, count);
     };
-    const index = view(Int32Array, regions[1]!, rows, 'index');
-    const channelMeans = view(Float32Array, regions[4]!, rows * this.widths.channels, 'channel_mean');
+    const index = view(Int32Array, indexBytes, rows, 'index');
+    const channelMeans = view(Float32Array, meanBytes, rows * this.widths.channels, 'channel_mean');
     let values: Float32Array | Uint16Array | null = null;
-    if (wanted === 8) values = this.activationKind === 'float16' ? view(Uint16Array, regions[7]!, rows * this.widths.elements, 'activation') : view(Float32Array, regions[7]!, rows * this.widths.elements, 'activation');
-    return { batch: { rows, index, channelMeans, activation: values }, buffer: body };
+    if (valueBytes) values = this.activationKind === 'float16' ? view(Uint16Array, valueBytes, rows * this.widths.elements, 'activation') : view(Float32Array, valueBytes, rows * this.widths.elements, 'activation');
+    return { rows, index, channelMeans, activation: values };
   }
 
   close(): void {
@@ -156,6 +216,15 @@ export class LayerBlockFile {
 function close(fd: number): null {
   closeSync(fd);
   return null;
+}
+
+function readFully(fd: number, target: Uint8Array, position: number): void {
+  let done = 0;
+  while (done < target.byteLength) {
+    const bytes = readSync(fd, target, done, target.byteLength - done, position + done);
+    if (bytes === 0) throw new Error(`unexpected end of file at byte ${position + done}`);
+    done += bytes;
+  }
 }
 
 function positionedRead(fd: number, target: Uint8Array, offset: number, length: number, position: number): Promise<void> {

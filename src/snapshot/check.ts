@@ -21,6 +21,8 @@ import { readLockOwner, isStale, LOCK_FILE } from '../disk/lock.js';
 import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
 import { assertInside, baselineLayerProblems, layerLayout, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 import { verifyStimulusTable } from './stimuli-file.js';
+import { registerArrowCodecs } from './compression.js';
+import { meansFileProblems } from './means-check.js';
 import { parseJson } from '../json.js';
 import { describeNonRegular, INPUT_LIMITS, readInputFile, readInputText, realPathInside } from '../disk/input-file.js';
 
@@ -129,10 +131,48 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
     if (entry.bytes !== undefined && size !== entry.bytes) problem(subject, `is ${size} bytes, the manifest says ${entry.bytes} (truncated or changed after recording)`);
     else if (entry.sha256 !== undefined && hashFile(path) !== entry.sha256) problem(subject, 'SHA-256 differs from the manifest (the file changed after recording)');
     await checkLayerFile(path, subject, entry, firstIndex, count, problem);
+    if (entry.means) checkMeansFile(entry, path, entry.from === 'baseline' ? baselineRoot! : root, layersUnsafe !== null, problem, checked);
   }
   checkStimuli(root, manifest, firstIndex, problem, notes);
   checked.stimuli = count;
   return report(true);
+}
+
+/**
+ * A layer's channel-means file (format 3): inside the folder, a regular file, its size and SHA-256 as the
+ * manifest says, and its content in agreement with the layer file (`meansFileProblems`).
+ */
+function checkMeansFile(entry: ManifestLayer, layerPath: string, folder: string, layersEscape: boolean, problem: (s: string, m: string) => void, checked: CheckReport['checked']): void {
+  const means = entry.means!;
+  const subject = `${entry.from === 'baseline' ? 'baseline ' : ''}${means.file}`;
+  let path: string;
+  try {
+    path = assertInside(folder, means.file, `layer "${entry.name}" means file`);
+  } catch (error) {
+    problem(means.file, firstLine(error));
+    return;
+  }
+  if (!existsSync(path)) {
+    problem(subject, `is missing (channel means of layer "${entry.name}")`);
+    return;
+  }
+  const unsafe = escapes(folder, path) ?? notRegular(path);
+  if (unsafe) {
+    if (!layersEscape || !unsafe.startsWith('resolves')) problem(subject, `${unsafe} (channel means of layer "${entry.name}")`);
+    return;
+  }
+  const size = statSync(path).size;
+  checked.bytes += size;
+  if (size !== means.bytes) {
+    problem(subject, `is ${size} bytes, the manifest says ${means.bytes} (truncated or changed after recording)`);
+    return;
+  }
+  if (hashFile(path) !== means.sha256) {
+    problem(subject, 'SHA-256 differs from the manifest (the file changed after recording)');
+    return;
+  }
+  const channels = channelCount(entry.shape, layerLayout(entry));
+  for (const line of meansFileProblems(layerPath, path, entry, channels)) problem(subject, line);
 }
 
 /** Why `path` may not be read as part of the folder `root`: a link that leads out of it, or null. */
@@ -224,6 +264,7 @@ function describeType(type: DataType): string {
 async function checkLayerFile(path: string, subject: string, entry: ManifestLayer, firstIndex: number, count: number, problem: (s: string, m: string) => void): Promise<void> {
   const channels = channelCount(entry.shape, layerLayout(entry));
   const elements = channels * spatialSize(entry.shape, layerLayout(entry));
+  registerArrowCodecs(); // compressed layer files are read through apache-arrow's codec registry
   const handle = await open(path, 'r');
   try {
     let reader;

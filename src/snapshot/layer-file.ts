@@ -5,6 +5,8 @@ import {
 import { float32ToFloat16 } from './float16.js';
 import { HashingFileSink } from './arrow-sink.js';
 import { ResumableFileWriter, scanRecordBatches } from './resume.js';
+import { arrowCompressionType, registerArrowCodecs, type LayerCompression } from './compression.js';
+import { LayerBlockFile } from './block-reader.js';
 import type { ActivationDtype, KeepMode } from './manifest.js';
 import { featureMeans, layoutGeometry, type LayoutGeometry, type TensorLayout } from '../graph/layout.js';
 
@@ -20,6 +22,35 @@ export interface LayerFileLayout {
   keep: KeepMode;
   /** Feature axis and positions (src/graph/layout.ts); absent means features on axis 0 (snapshots before layouts). */
   layout?: TensorLayout;
+  /** Arrow IPC buffer compression of the record batches (compression.ts); absent: `none`. */
+  compression?: LayerCompression;
+}
+
+/** What a finished layer file is: its SHA-256, size and rows, and for a full layer its channel-means file. */
+export interface LayerFileResult {
+  sha256: string;
+  bytes: number;
+  rows: number;
+  /** The channel-means file written beside a full layer (`meansFileName`); absent for keep = channels. */
+  means?: { sha256: string; bytes: number };
+}
+
+/**
+ * The channel-means file of a full layer file: `layers/003-conv.arrow` → `layers/003-conv.means.arrow`.
+ * It holds the layer file's `index` and `channel_mean` columns only (the schema of a keep = channels
+ * layer file, uncompressed), so that channel means are read and verified without touching activation
+ * bytes.
+ */
+export function meansFileName(file: string): string {
+  return `${file.endsWith('.arrow') ? file.slice(0, -'.arrow'.length) : file}.means.arrow`;
+}
+
+/** Target size of one record batch of a channel-means file (rows × C × 4 bytes). */
+const MEANS_BATCH_BYTES = 1 << 20;
+
+/** The manifest fields of a finished layer file (`means` with its file name when there is one). */
+export function manifestFields(file: string, result: LayerFileResult): { sha256: string; bytes: number; rows: number; means?: { file: string; sha256: string; bytes: number } } {
+  return { sha256: result.sha256, bytes: result.bytes, rows: result.rows, ...(result.means ? { means: { file: meansFileName(file), ...result.means } } : {}) };
 }
 
 /** Channels (features) of a per-stimulus shape under its layout: C of C×H×W, D of tokens T×D, the length of a vector. */
@@ -62,6 +93,7 @@ export class LayerFileWriter {
   private readonly channels: number;
   private readonly geometry: LayoutGeometry;
   private readonly elements: number;
+  private readonly path: string;
   rows = 0;
 
   /**
@@ -75,11 +107,14 @@ export class LayerFileWriter {
    */
   constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string } = {}) {
     this.layout = layout;
+    this.path = path;
     this.schema = layerSchema(layout);
     this.geometry = layoutGeometry(layout.shape, layout.layout);
     this.channels = this.geometry.features;
     this.elements = this.channels * this.geometry.outer * this.geometry.inner;
-    this.writer = new ResumableFileWriter();
+    const compressionType = arrowCompressionType(layout.compression ?? 'none');
+    if (compressionType !== null) registerArrowCodecs();
+    this.writer = new ResumableFileWriter(compressionType !== null ? { compressionType } : undefined);
     if (options.resumeAt === undefined) {
       this.sink = new HashingFileSink(path);
       this.writer.reset(this.sink, this.schema);
@@ -147,11 +182,17 @@ export class LayerFileWriter {
     this.rows += rows;
   }
 
-  /** Writes the footer, flushes, renames to the final name; returns hash and size. */
-  finish(): { sha256: string; bytes: number; rows: number } {
+  /**
+   * Writes the footer, flushes, renames to the final name; for a full layer then writes its channel-means
+   * file (`meansFileName`) from the finished file's own `index` and `channel_mean` buffers (so it also
+   * holds the rows written before a resume). Returns hashes and sizes.
+   */
+  finish(): LayerFileResult {
     this.writer.finish();
     this.writer.close();
-    return { ...this.sink.commit(), rows: this.rows };
+    const result = { ...this.sink.commit(), rows: this.rows };
+    if (this.layout.keep !== 'full') return result;
+    return { ...result, means: writeMeansFile(this.path, this.layout) };
   }
 
   /** Stops writing and keeps `path.partial` as it is on disk (a later resume truncates it to its checkpoint). */
@@ -162,6 +203,49 @@ export class LayerFileWriter {
   /** Abandons the file (deletes the temporary). */
   discard(): void {
     this.sink.discard();
+  }
+}
+
+/**
+ * Writes `meansFileName(path)` from the index and channel means of the finished layer file at `path`,
+ * in record batches of about 1 MiB, uncompressed.
+ */
+function writeMeansFile(path: string, layout: LayerFileLayout): { sha256: string; bytes: number } {
+  const source = LayerBlockFile.open(path);
+  if (!source) throw new Error(`${path} is not in Sonde's layer layout`);
+  const writer = new LayerFileWriter(meansFileName(path), { name: layout.name, shape: layout.shape, dtype: layout.dtype, keep: 'channels', ...(layout.layout ? { layout: layout.layout } : {}) });
+  try {
+    const channels = source.widths.channels;
+    const capacity = Math.max(1, Math.floor(MEANS_BATCH_BYTES / (4 * Math.max(1, channels))));
+    const means = new Float32Array(capacity * channels);
+    let filled = 0;
+    let first = 0;
+    const flush = () => {
+      if (filled > 0) writer.writeColumns(first, filled, means.subarray(0, filled * channels), null);
+      first += filled;
+      filled = 0;
+    };
+    for (let b = 0; b < source.count; b++) {
+      const batch = source.readMeansSync(b);
+      for (let r = 0; r < batch.rows; r++) {
+        // rows keep their global index: consecutive in a layer file (checked again by `sonde check`)
+        if (filled === 0) first = batch.index[r]!;
+        else if (batch.index[r] !== first + filled) {
+          flush();
+          first = batch.index[r]!;
+        }
+        means.set(batch.channelMeans.subarray(r * channels, (r + 1) * channels), filled * channels);
+        if (++filled === capacity) flush();
+      }
+    }
+    flush();
+    const { sha256, bytes } = writer.finish();
+    return { sha256, bytes };
+  } catch (error) {
+    writer.discard();
+    throw error;
+  } finally {
+    source.close();
   }
 }
 

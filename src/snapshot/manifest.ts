@@ -15,8 +15,17 @@ import { assertRegularFile, INPUT_LIMITS, readInputText, realPathInside } from '
  * Version of the snapshot layout written by this build.
  * 2: `stimuli.digest` is the SHA-256 over the per-stimulus SHA-256 digests of the input bytes (kept in
  * `stimuli.arrow`, column `sha256`), so shards can be merged; manifests may carry `shard`.
+ * 3: layer files may be compressed (Arrow IPC buffer compression, LZ4 frame or ZSTD; a layer's
+ * `compression`), and a full layer has a channel-means file of its own (a layer's `means`: file,
+ * SHA-256, size), so channel means are read and verified without the activation bytes.
  */
-export const FORMAT_VERSION = 2;
+export const FORMAT_VERSION = 3;
+
+/**
+ * Formats this build reads. A format-2 snapshot is read as it is (no layer has `means` or
+ * `compression`: channel means come from the layer file, verified whole).
+ */
+export const READABLE_FORMATS: readonly number[] = [2, 3];
 
 /** Where a shard snapshot sits in the whole stimulus listing (see `src/record/shard.ts`). */
 export interface ShardInfo {
@@ -62,6 +71,13 @@ export interface ManifestLayer {
   rows?: number;
   /** NaN/±Infinity elements the layer produced (with float16 storage also the values it overflows to ±Infinity); absent when not counted. */
   nonFinite?: number;
+  /** How the layer file's record batches are compressed (Arrow IPC buffer compression); absent: not compressed (format 3). */
+  compression?: 'lz4' | 'zstd';
+  /**
+   * The channel-means file of a full layer (format 3): `file` relative to the same folder as `file`,
+   * holding the layer's `index` and `channel_mean` columns, with its SHA-256 and size.
+   */
+  means?: { file: string; sha256: string; bytes: number };
   /**
    * Feature axis and positions of `shape` (src/graph/layout.ts): channel means and every per-channel
    * table run along it. Absent in snapshots of older builds, which mean features on axis 0
@@ -152,9 +168,10 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
   };
   if (typeof value !== 'object' || value === null || Array.isArray(value)) throw new UsageError('E_MANIFEST', `${where} is not a JSON object`);
   const m = value as Record<string, unknown>;
-  if (m.format !== FORMAT_VERSION) {
-    throw new UsageError('E_MANIFEST_VERSION', `${where} has format ${JSON.stringify(m.format) ?? 'missing'}; this Sonde reads format ${FORMAT_VERSION}`, {
-      hint: 'record the snapshot again with this version',
+  if (!READABLE_FORMATS.includes(m.format as number)) {
+    const newer = typeof m.format === 'number' && m.format > FORMAT_VERSION;
+    throw new UsageError('E_MANIFEST_VERSION', `${where} has format ${JSON.stringify(m.format) ?? 'missing'}; this Sonde reads formats ${READABLE_FORMATS.join(' and ')}`, {
+      hint: newer ? 'read it with the newer Sonde that wrote it, or convert it there with `sonde export`' : 'record the snapshot again with this version',
     });
   }
   const problem = schemaProblem(manifestSchema, m);
@@ -177,12 +194,21 @@ export function validateManifest(value: unknown, folder: string): SnapshotManife
     const fileKey = `${entry.from === 'baseline' ? 'baseline:' : ''}${entry.file as string}`;
     if (files.has(fileKey)) fail(`layers[${i}].file ${JSON.stringify(entry.file)}${entry.from === 'baseline' ? ' (in the baseline)' : ''} is used by two layers`);
     files.add(fileKey);
-    if (entry.from !== 'baseline') {
-      assertInside(folder, entry.file as string, `${where}: layers[${i}].file`);
-    } else {
-      // resolved against the baseline folder by the reader; still never absolute or climbing out of it
-      if (isAbsolute(entry.file as string) || (entry.file as string).split(/[\\/]/).includes('..')) {
-        throw new UsageError('E_MANIFEST_PATH', `${where}: layers[${i}].file "${String(entry.file)}" must be a plain path inside the baseline folder`);
+    const means = entry.means as ManifestLayer['means'];
+    if (means !== undefined) {
+      if (m.format === 2) fail(`layers[${i}].means is a format-3 field, but the manifest says format 2`);
+      if (entry.keep !== 'full') fail(`layers[${i}].means is set, but the layer keeps channel means only (its file is the means file)`);
+      const meansKey = `${entry.from === 'baseline' ? 'baseline:' : ''}${means.file}`;
+      if (files.has(meansKey)) fail(`layers[${i}].means.file ${JSON.stringify(means.file)} is used by two files`);
+      files.add(meansKey);
+    }
+    const paths: Array<[string, string]> = [[entry.file as string, 'file'], ...(means ? [[means.file, 'means.file'] as [string, string]] : [])];
+    for (const [file, key] of paths) {
+      if (entry.from !== 'baseline') {
+        assertInside(folder, file, `${where}: layers[${i}].${key}`);
+      } else if (isAbsolute(file) || file.split(/[\\/]/).includes('..')) {
+        // resolved against the baseline folder by the reader; still never absolute or climbing out of it
+        throw new UsageError('E_MANIFEST_PATH', `${where}: layers[${i}].${key} "${file}" must be a plain path inside the baseline folder`);
       }
     }
   });
@@ -254,8 +280,8 @@ export function baselineLayerProblems(manifest: SnapshotManifest, base: Snapshot
     if (JSON.stringify(own.shape) !== JSON.stringify(entry.shape)) problems.push(`layers[${i}] "${entry.name}" has shape [${entry.shape.join(', ')}], the baseline's [${own.shape.join(', ')}]`);
     else if (layerLayout(own).featureAxis !== layerLayout(entry).featureAxis) problems.push(`layers[${i}] "${entry.name}" has features on axis ${layerLayout(entry).featureAxis}, the baseline's on axis ${layerLayout(own).featureAxis}`);
     if (entry.from !== 'baseline') return;
-    for (const key of ['file', 'sha256', 'bytes', 'rows', 'dtype', 'keep'] as const) {
-      if (own[key] !== entry[key]) {
+    for (const key of ['file', 'sha256', 'bytes', 'rows', 'dtype', 'keep', 'compression', 'means'] as const) {
+      if (JSON.stringify(own[key]) !== JSON.stringify(entry[key])) {
         problems.push(`layers[${i}] "${entry.name}" is taken from the baseline with ${key} ${JSON.stringify(entry[key])}, but the baseline's layer "${entry.name}" has ${JSON.stringify(own[key])}`);
         return;
       }

@@ -10,6 +10,7 @@ import { closeSync, openSync, readSync } from 'node:fs';
 import { Message, MessageHeader, RecordBatchFileWriter, type Schema } from 'apache-arrow';
 import { FileBlock } from 'apache-arrow/ipc/metadata/file';
 import { RuntimeFailure } from '../errors.js';
+import { compressBodyBuffers, compressionName } from './compression.js';
 import type { HashingFileSink } from './arrow-sink.js';
 
 /** The Arrow file magic and its padding: the first 8 bytes of every IPC file. */
@@ -75,9 +76,17 @@ export function scanRecordBatches(path: string, byteLength: number): ScannedBatc
 /**
  * A `RecordBatchFileWriter` that can take up an interrupted file: `resume` points it at a sink that
  * already holds `position` bytes (magic plus the listed batches) instead of writing the magic again.
- * Without `resume` it behaves exactly like its base class.
+ * Without `resume` it behaves exactly like its base class, except that compressed bodies (option
+ * `compressionType`) are laid out by `compressBodyBuffers` with the length prefix the Arrow format
+ * specifies (see compression.ts).
  */
 export class ResumableFileWriter extends RecordBatchFileWriter {
+  protected override _compressBodyBuffers(buffers: ArrayBufferView[]): ReturnType<RecordBatchFileWriter['_compressBodyBuffers']> {
+    const codec = this._compression ? compressionName(this._compression.type) : null;
+    if (!codec) throw new Error(`unsupported Arrow compression codec ${String(this._compression?.type)}`);
+    return compressBodyBuffers(codec, buffers);
+  }
+
   /**
    * Continues after a checkpoint.
    * @param sink a sink opened with `resumeAt: position`.

@@ -54,10 +54,12 @@ const layerSchema = z.looseObject({
   bytes: count.optional(),
   rows: count.optional(),
   nonFinite: count.optional(),
+  compression: z.enum(['lz4', 'zstd']).optional(),
+  means: z.looseObject({ file: plainString.min(1), sha256: hex64, bytes: count }).optional(),
   layout: layoutSchema.optional(),
 });
 
-/** `manifest.json` of a snapshot (format 2). */
+/** `manifest.json` of a snapshot (formats 2 and 3). */
 export const manifestSchema = z.looseObject({
   format: z.number(),
   tool: z.looseObject({ name: z.string(), version: z.string() }),

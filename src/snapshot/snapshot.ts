@@ -8,6 +8,7 @@ import { verifyStimulusTable } from './stimuli-file.js';
 import { LayerBlockFile } from './block-reader.js';
 import { startLayerCheck, type LayerVerification } from './layer-integrity.js';
 import { float16ToFloat32 } from './float16.js';
+import { registerArrowCodecs } from './compression.js';
 import { channelCount, spatialSize } from './layer-file.js';
 import { assertComplete, assertInside, baselineLayerProblems, layerLayout, readManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 
@@ -128,12 +129,12 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
     }
     return entry;
   };
-  const fileOf = (entry: ManifestLayer): { path: string; inside: string } => {
+  const fileOf = (entry: ManifestLayer, file = entry.file): { path: string; inside: string } => {
     if (entry.from === 'baseline') {
       if (!baselineRoot) throw new UsageError('E_MANIFEST', `${folder}: layer "${entry.name}" comes from a baseline but the manifest names none`);
-      return { path: assertInside(baselineRoot, entry.file, `baseline layer "${entry.name}" file`), inside: baselineRoot };
+      return { path: assertInside(baselineRoot, file, `baseline layer "${entry.name}" file`), inside: baselineRoot };
     }
-    return { path: assertInside(root, entry.file, `layer "${entry.name}" file`), inside: root };
+    return { path: assertInside(root, file, `layer "${entry.name}" file`), inside: root };
   };
   const layerGeometry = (name: string) => {
     const entry = layer(name);
@@ -147,14 +148,17 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
     const wantActivation = entry.keep === 'full' && readOptions.activation !== false;
     const raw = readOptions.raw === true && entry.dtype === 'float16';
     const range = readOptions.range;
-    const { path, inside } = fileOf(entry);
+    // channel means alone come from the layer's means file (format 3), verified on its own: the
+    // activation bytes are neither read nor hashed
+    const checked: ManifestLayer = !wantActivation && entry.keep === 'full' && entry.means ? { ...entry, file: entry.means.file, sha256: entry.means.sha256, bytes: entry.means.bytes } : entry;
+    const { path, inside } = fileOf(entry, checked.file);
     let blocks: LayerBlockFile | null = null;
     let verified: () => Promise<void>;
     try {
       // a link (the file's or the layers folder's) may not lead out of the snapshot; size checked here,
       // the hash before the last batch is handed out
       realPathInside(inside, path, `layer file ${path} of "${name}"`);
-      verified = startLayerCheck(path, entry, inside, verify);
+      verified = startLayerCheck(path, checked, inside, verify);
       blocks = LayerBlockFile.open(path);
     } catch (error) {
       if (error instanceof SondeError) throw error;
@@ -168,6 +172,7 @@ export function openSnapshot(folder: string, options: OpenSnapshotOptions = {}):
       return;
     }
     await verified(); // another writer's layout: verify the whole file before reading any of it
+    registerArrowCodecs(); // the general reader decompresses through apache-arrow's codec registry
     let handle;
     try {
       handle = await open(path, 'r');

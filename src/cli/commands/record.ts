@@ -6,6 +6,7 @@ import { parseChannelList, parseFit, parseInterpolation, parseNormalise, parseSh
 import { UsageError } from '../../errors.js';
 import { finiteNumber, megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
 import { parseShard } from '../../record/shard.js';
+import { parseCompression } from '../../snapshot/compression.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo } from '../io.js';
 
@@ -16,6 +17,7 @@ interface RecordCliOptions {
   layers?: string;
   keep: string;
   dtype: string;
+  compress?: string;
   batch: number;
   threads: number;
   size?: string;
@@ -49,6 +51,7 @@ export function registerRecord(program: Command): void {
     .option('--layers <selector>', 'default | all | op:Relu,Conv | name globs, joined by +', 'default')
     .option('--keep <what>', 'full (activations and channel means) or channels (channel means only)', 'full')
     .option('--dtype <type>', 'activation storage: float32 or float16', 'float32')
+    .option('--compress <codec>', 'compress the layer files (Arrow IPC buffer compression): none, lz4 or zstd (default none; with --from: the baseline\'s)')
     .option('--batch <n>', 'stimuli per batch', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--size <HxW>', 'image size (default: the model input size)')
@@ -82,6 +85,7 @@ export function registerRecord(program: Command): void {
           layers: opts.layers,
           keep: opts.keep,
           dtype: opts.dtype,
+          ...(opts.compress !== undefined ? { compress: parseCompression(opts.compress) } : {}),
           batch: opts.batch,
           threads: opts.threads,
           ...(opts.labels ? { labels: opts.labels } : {}),
