@@ -185,3 +185,50 @@ describe('fillModulationInputs', () => {
     expect(() => fillModulationInputs(r, { firstStimulus: 0, rows: 0 }, new Float32Array(0), new Float32Array(0))).not.toThrow();
   });
 });
+
+describe('fillModulationInputs at token tensors', () => {
+  const TOKEN_SITES = new Map<string, SiteShape>([
+    ['tok', siteShapeOf([5, 3])!], // 1 class token + 2×2 patches, 3 features
+    ['att', siteShapeOf([10, 4], { kind: 'tokens', featureAxis: 1, source: 'graph' }, { shared: true, heads: 2 })!],
+  ]);
+  const resolveToken = (text: string): ResolvedModulation =>
+    resolveModulations(parseModulationSpec(text, { source: 'spec.yaml' }), { sites: TOKEN_SITES, siteNames: [...TOKEN_SITES.keys()] })[0]!;
+
+  it('inputShape(tokens) is [rows, 1, D] for one gain per feature and [rows, T, D] with a token selection; a shared site is one [1, D] row', () => {
+    expect(inputShape(resolveToken('{ site: tok, kind: gain, values: [1, 2, 3] }'), 4)).toEqual([4, 1, 3]);
+    expect(inputShape(resolveToken('{ site: tok, kind: uniform, gain: 2, tokens: [class] }'), 4)).toEqual([4, 5, 3]);
+    expect(inputShape(resolveToken('{ site: att, kind: gain, per: head, values: [1, 0] }'), 7)).toEqual([1, 4]);
+  });
+
+  it('fillModulationInputs(token selection) writes G = outside + w_t·(g_f − outside) at [n, t, f] (closed form)', () => {
+    const r = resolveToken('{ site: tok, kind: gain, values: [2, 3, 4], tokens: { at: [class, [1, 1]], outside: 0.5 } }');
+    const { gain, offset } = modulationInputs(r, { firstStimulus: 0, rows: 2 });
+    const chosen = new Set([0, 1 + 1 * 2 + 1]);
+    const g = [2, 3, 4];
+    for (let n = 0; n < 2; n++) {
+      for (let t = 0; t < 5; t++) {
+        for (let f = 0; f < 3; f++) {
+          const i = (n * 5 + t) * 3 + f; // [N, T, D]
+          expect(gain[i]).toBe(chosen.has(t) ? g[f] : 0.5);
+          expect(offset[i]).toBe(0);
+        }
+      }
+    }
+  });
+
+  it('fillModulationInputs(shared per-head gain) fills one row whatever the batch, each head value over its features', () => {
+    const r = resolveToken('{ site: att, kind: gain, per: head, values: [1.5, 0] }');
+    const { gain, shape } = modulationInputs(r, { firstStimulus: 10, rows: 3 });
+    expect(shape).toEqual([1, 4]);
+    expect(Array.from(gain)).toEqual([1.5, 1.5, 0, 0]);
+  });
+
+  it('fillModulationInputs(noise on tokens with a selection) draws per stimulus, whatever the batch split', () => {
+    const r = resolveToken('{ site: tok, kind: noise, sd: 0.3, seed: 5, tokens: [patches] }');
+    const whole = modulationInputs(r, { firstStimulus: 0, rows: 3 }).gain;
+    const last = modulationInputs(r, { firstStimulus: 2, rows: 1 }).gain;
+    expect(sameBits(whole.subarray(2 * 15, 3 * 15), last)).toBe(true);
+    // the class token lies outside the selection: gain exactly 1 there
+    for (let n = 0; n < 3; n++) for (let f = 0; f < 3; f++) expect(whole[n * 15 + f]).toBe(1);
+  });
+});

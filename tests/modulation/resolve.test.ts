@@ -148,3 +148,97 @@ modulations:
     expect(message).not.toContain('\n');
   });
 });
+
+// Token sites: [17, 16] is a ViT-like residual stream (class token + 4×4 patches, 16 features), [34, 16]
+// the attention output with batch and tokens merged (a shared site of 2 heads), [3, 16] a token tensor
+// without a patch grid (3 tokens is no prefix plus a square ≥ 4).
+const TOKEN_SITES = new Map<string, SiteShape>([
+  ['tok', siteShapeOf([17, 16])!],
+  ['att', siteShapeOf([34, 16], { kind: 'tokens', featureAxis: 1, source: 'graph' }, { shared: true, heads: 2 })!],
+  ['seq', siteShapeOf([3, 16])!],
+  ['map', siteShapeOf([4, 4, 4])!],
+]);
+const tokenContext = (extra: Partial<ResolveContext> = {}): ResolveContext => ({ sites: TOKEN_SITES, siteNames: [...TOKEN_SITES.keys()], categories: CATEGORIES, ...extra });
+const resolveTokens = (text: string, extra: Partial<ResolveContext> = {}) => resolveModulations(parseModulationSpec(text, { source: 'spec.yaml' }), tokenContext(extra));
+const ramp = (n: number, f: (i: number) => number): number[] => Array.from({ length: n }, (_, i) => f(i));
+
+describe('resolveModulations at token tensors', () => {
+  it('resolveModulations(gain on tokens) gives one gain per feature (D = 16, not T = 17), the same at every token', () => {
+    const values = ramp(16, (i) => 0.5 + i / 16);
+    const [r] = resolveTokens(JSON.stringify({ site: 'tok', kind: 'gain', values }));
+    expect(r!.features).toBe(16);
+    expect(r!.positions).toBe(17);
+    expect(r!.spatial).toBe(false);
+    expect(Array.from(r!.gain)).toEqual(values.map(Math.fround));
+    expect(r!.source.shape).toEqual({ features: 16, positions: 17, dims: [17, 16], layout: 'tokens', shared: false });
+  });
+
+  it('resolveModulations(per: head) expands each head value to its d = D / H features (head h: features h·d … h·d + d − 1)', () => {
+    const [r] = resolveTokens('{ site: tok, kind: gain, per: head, headCount: 4, values: [2, 0.5, 1, 0] }');
+    expect(Array.from(r!.gain)).toEqual([2, 2, 2, 2, 0.5, 0.5, 0.5, 0.5, 1, 1, 1, 1, 0, 0, 0, 0]);
+    expect(r!.unit).toBe('head');
+    expect(r!.heads).toBe(4);
+    expect(r!.source.details).toMatchObject({ per: 'head', headCount: 4 });
+  });
+
+  it('resolveModulations(lesion heads) zeroes exactly the listed heads, with the head count the model gives', () => {
+    const [r] = resolveTokens('{ site: att, kind: lesion, heads: [1] }');
+    expect(Array.from(r!.gain)).toEqual([...new Array(8).fill(1), ...new Array(8).fill(0)]);
+    expect(r!.source.details['heads']).toEqual([1]);
+    expect(r!.description).toContain('lesion of 1/2 heads');
+  });
+
+  it('resolveModulations(lesion top heads) ranks heads by the mean normalised table value of their features', () => {
+    // per-feature table: features 0–7 (head 0) prefer ring, 8–15 (head 1) prefer bar
+    const values: Record<string, number[]> = { ring: ramp(16, (i) => (i < 8 ? 3 : 0)), cross: ramp(16, () => 1), bar: ramp(16, (i) => (i < 8 ? 0 : 3)) };
+    const tuning = (site: string, category: string) => (site === 'att' ? Float64Array.from(values[category]!) : undefined);
+    const [r] = resolveTokens('{ site: att, kind: lesion, per: head, top: 1, target: bar }', { tables: { tuning } });
+    expect(r!.source.details['heads']).toEqual([1]);
+    // a table with one value per head is used as it is
+    const perHead = (site: string, category: string) => (site === 'att' ? Float64Array.from(category === 'ring' ? [5, 0] : [0, 5]) : undefined);
+    const [h] = resolveTokens('{ site: att, kind: lesion, per: head, top: 1, target: ring }', { tables: { tuning: perHead } });
+    expect(h!.source.details['heads']).toEqual([0]);
+  });
+
+  it('resolveModulations(tokens) weighs the class token, a patch [row, column] and index lists on token positions', () => {
+    const [r] = resolveTokens('{ site: tok, kind: uniform, gain: 2, tokens: { at: [class, [1, 2], 16], outside: 0.5 } }');
+    const expected = new Array(17).fill(0);
+    expected[0] = 1; // class
+    expected[1 + 1 * 4 + 2] = 1; // patch row 1, column 2 of the 4×4 grid
+    expected[16] = 1;
+    expect(Array.from(r!.window!)).toEqual(expected);
+    expect(r!.spatial).toBe(true);
+    expect(r!.outside).toBe(0.5);
+    const [all] = resolveTokens('{ site: tok, kind: uniform, gain: 2, tokens: [patches] }');
+    expect(Array.from(all!.window!)).toEqual([0, ...new Array(16).fill(1)]);
+  });
+
+  it('resolveModulations(window on tokens) falls on the patch grid; the class token is outside it', () => {
+    const [r] = resolveTokens('{ site: tok, kind: uniform, gain: 2, window: { shape: box, x0: 0, x1: 0.5, y0: 0, y1: 0.5 } }');
+    const expected = new Array(17).fill(0);
+    for (const [row, column] of [[0, 0], [0, 1], [1, 0], [1, 1]]) expected[1 + row! * 4 + column!] = 1;
+    expect(Array.from(r!.window!)).toEqual(expected);
+  });
+
+  const BAD_TOKENS: Array<[string, string, string[]]> = [
+    ['a head count that does not divide D', '{ site: tok, kind: gain, per: head, headCount: 3, values: [1, 1, 1] }', ['headCount is 3, which does not divide the 16 features']],
+    ['per head without a known head count', '{ site: tok, kind: gain, per: head, values: [1, 1] }', ['number of heads of "tok" is not known', 'headCount: H']],
+    ['a head count other than the model\'s', '{ site: att, kind: gain, per: head, headCount: 4, values: [1, 1, 1, 1] }', ['splits "att" into 2 heads']],
+    ['a head value list of the wrong length', '{ site: att, kind: gain, per: head, values: [1, 1, 1] }', ['values has 3 values', 'has 2 heads; give one value per head']],
+    ['a lesioned head out of range', '{ site: att, kind: lesion, heads: [2] }', ['heads[0] is 2', 'has 2 heads (0–1)']],
+    ['a token index out of range', '{ site: tok, kind: uniform, gain: 2, tokens: [17] }', ['tokens[0] is token 17', 'has 17 tokens (0–16)']],
+    ['a patch outside the grid', '{ site: tok, kind: uniform, gain: 2, tokens: [[4, 0]] }', ['tokens[0] is patch [4, 0]', 'patch grid of "tok" is 4×4']],
+    ['the class token of a tensor without prefix tokens', '{ site: seq, kind: uniform, gain: 2, tokens: [class] }', ['tokens[0] is class', 'has no class token']],
+    ['a window on a token tensor without a grid', '{ site: seq, kind: uniform, gain: 2, window: { shape: box, x0: 0, x1: 0.5, y0: 0, y1: 1 } }', ['window is set', 'token tensor without a patch grid', 'tokens: [..]']],
+    ['a patch on a token tensor without a grid', '{ site: seq, kind: uniform, gain: 2, tokens: [[0, 0]] }', ['has no patch grid']],
+    ['tokens on a feature map', '{ site: map, kind: uniform, gain: 2, tokens: [0] }', ['is not a token tensor', 'use a window']],
+    ['noise at a shared site', '{ site: att, kind: noise, sd: 0.1 }', ['merges the batch with other axes']],
+    ['a token selection at a shared site', '{ site: att, kind: uniform, gain: 2, tokens: [0] }', ['is not a token tensor (its first axis is not the batch)']],
+  ];
+  it.each(BAD_TOKENS)('resolveModulations(spec) rejects %s with a one-line UsageError', (_what, text, parts) => {
+    const message = usageMessage(() => resolveTokens(text));
+    expect(message.startsWith('spec.yaml: ')).toBe(true);
+    for (const part of parts) expect(message).toContain(part);
+    expect(message).not.toContain('\n');
+  });
+});

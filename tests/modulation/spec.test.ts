@@ -318,3 +318,53 @@ describe('parseModulationSpec properties', () => {
     );
   });
 });
+
+describe('parseModulationSpec (token selections and heads)', () => {
+  it('parseModulationSpec(tokens list or object, per: head, heads) reads them with their defaults', () => {
+    const listed = parseModulationSpec('{ site: a, kind: uniform, gain: 2, tokens: [class, 5, [1, 2], patches] }', { source: 's.yaml' }).modulations[0]!;
+    expect(listed.tokens).toStrictEqual({ at: ['class', 5, [1, 2], 'patches'], outside: 1 });
+    const object = parseModulationSpec('{ site: a, kind: uniform, gain: 2, tokens: { at: [0], outside: 0.5 } }', { source: 's.yaml' }).modulations[0]!;
+    expect(object.tokens).toStrictEqual({ at: [0], outside: 0.5 });
+    const heads = parseModulationSpec('{ site: a, kind: gain, per: head, headCount: 2, values: [1, 0.5] }', { source: 's.yaml' }).modulations[0]!;
+    expect(heads).toMatchObject({ per: 'head', headCount: 2, values: [1, 0.5] });
+    const lesion = parseModulationSpec('{ site: a, kind: lesion, heads: [3, 0] }', { source: 's.yaml' }).modulations[0]!;
+    expect(lesion).toStrictEqual({ kind: 'lesion', site: 'a', per: 'head', allowNegative: false, channels: [3, 0] });
+    // per: feature is the default and leaves no key
+    expect('per' in parseModulationSpec('{ site: a, kind: gain, per: feature, values: [1] }', { source: 's.yaml' }).modulations[0]!).toBe(false);
+  });
+
+  it('validateModulationSpec(specToObject(spec)) returns token and head specs unchanged (lesions of heads written as heads: [..])', () => {
+    const spec = parseModulationSpec(`
+modulations:
+  - { site: a, kind: lesion, heads: [1], headCount: 4 }
+  - { site: b, kind: tuning, target: ring, strength: 0.5, per: head, tokens: { at: [class, [0, 1]], outside: 0.25 } }
+`, { source: 's.yaml' });
+    const object = specToObject(spec) as { modulations: Array<Record<string, unknown>> };
+    expect(object.modulations[0]!['heads']).toEqual([1]);
+    expect(validateModulationSpec(object, { source: 's.yaml' }).modulations).toStrictEqual(spec.modulations);
+  });
+
+  const BAD_TOKENS: Array<[string, string, string]> = [
+    ['tokens with a window', '{ site: a, kind: uniform, gain: 2, tokens: [0], window: { shape: box, x0: 0, x1: 1, y0: 0, y1: 1 } }', 'tokens cannot be combined with window'],
+    ['a token that is not an index, class, patches or a patch', '{ site: a, kind: uniform, gain: 2, tokens: [first] }', 'tokens must be a list of tokens'],
+    ['a negative token index', '{ site: a, kind: uniform, gain: 2, tokens: [-1] }', 'tokens must be a list of tokens'],
+    ['an empty token list', '{ site: a, kind: uniform, gain: 2, tokens: [] }', 'tokens must be a list of tokens'],
+    ['a repeated token', '{ site: a, kind: uniform, gain: 2, tokens: [3, 3] }', 'tokens[1] repeats 3'],
+    ['a negative outside gain', '{ site: a, kind: uniform, gain: 2, tokens: { at: [0], outside: -1 } }', 'tokens.outside is -1; gains must be ≥ 0'],
+    ['an unknown key in a token object', '{ site: a, kind: uniform, gain: 2, tokens: { at: [0], inside: 2 } }', 'tokens must be a list of tokens'],
+    ['per with another word', '{ site: a, kind: gain, per: token, values: [1] }', 'per must be feature or head, got "token"'],
+    ['headCount without per: head', '{ site: a, kind: gain, headCount: 2, values: [1] }', 'headCount is only used with per: head'],
+    ['headCount of 0', '{ site: a, kind: gain, per: head, headCount: 0, values: [1] }', 'headCount must be an integer ≥ 1'],
+    ['per: head on noise', '{ site: a, kind: noise, sd: 0.1, per: head }', 'per is head, but noise is drawn per feature'],
+    ['heads with channels', '{ site: a, kind: lesion, heads: [0], channels: [1] }', 'heads cannot be combined with channels'],
+    ['heads with per: feature', '{ site: a, kind: lesion, heads: [0], per: feature }', 'lists heads, but per is feature'],
+    ['heads on a gain', '{ site: a, kind: gain, values: [1], heads: [0] }', 'heads is not used by kind "gain"'],
+    ['a repeated head', '{ site: a, kind: lesion, heads: [2, 2] }', 'heads[1] repeats head 2'],
+  ];
+  it.each(BAD_TOKENS)('parseModulationSpec(text) rejects %s with a one-line UsageError naming the field', (_what, text, expected) => {
+    const message = usageMessage(() => parseModulationSpec(text, { source: 'bad.yaml' }));
+    expect(message).toContain(expected);
+    expect(message.startsWith('bad.yaml: ')).toBe(true);
+    expect(message).not.toContain('\n');
+  });
+});
