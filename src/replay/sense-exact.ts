@@ -14,7 +14,8 @@ import type { LoadedModel } from '../graph/load-model.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
-import { boundaryStream, siteGeometryOf, type SiteRun, type StimulusValues } from './sense-run.js';
+import { boundaryStream, siteGeometryOf, tensorElements, type SiteRun, type StimulusValues } from './sense-run.js';
+import { DEFAULT_RUN_BYTES, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { siteTail } from './sense-plan.js';
 import type { SiteSensitivity } from './sense-types.js';
 
@@ -52,7 +53,9 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
   const boundary = tail.boundary;
   const boundaryShapes = boundary.map((name) => (name === run.model.input.name ? run.inspection.input.shape.slice(1) : run.byName.get(name)!.shape));
   const perRow = boundaryShapes.map((shape) => shape.reduce((a, b) => a * b, 1));
-  const group = Math.max(1, Math.floor(run.batch / K));
+  // stimuli per run: ⌊batch / K⌋, fewer where the forward tensors kept for the backward pass would exceed runBytes
+  const rowBytes = runRowBytes(tail.model, (name) => tensorElements(run, name), { fed: boundary, fetched: [readout.tensor], backward: true });
+  const group = rowsWithin(run.runBytes, K * rowBytes, Math.max(1, Math.floor(run.batch / K)));
   const feedNames = boundary.map((name) => (K === 1 ? name : `${name}::once`));
   const output = kind === 'gain' ? graph.gain : graph.offset;
   const N = weights.weights.length / K;
@@ -204,6 +207,8 @@ export interface GainJacobianOptions {
   threads?: number;
   /** Rows (stimulus × unit) per gradient run (default 16). */
   batch?: number;
+  /** Bytes of tensors one gradient run may hold (default `DEFAULT_RUN_BYTES`). */
+  runBytes?: number;
 }
 
 /**
@@ -229,7 +234,7 @@ export async function exactGainJacobian(options: GainJacobianOptions): Promise<{
     site, layer, tail, model, inspection, byName,
     readout: { tensor: options.readout, units: [...options.units], categories: options.units.map(String) },
     weights: { weights: new Uint8Array(n * K).fill(1), counts: new Int32Array(K).fill(n) },
-    kind: 'gain', step: 0, method: 'exact', rowsPerRun: 0, feedBytes: 0, threads: options.threads ?? 0,
+    kind: 'gain', step: 0, method: 'exact', rowsPerRun: 0, feedBytes: 0, runBytes: options.runBytes ?? DEFAULT_RUN_BYTES, threads: options.threads ?? 0,
     baseline, source: null, batch: options.batch ?? 16, onProgress: undefined,
   };
   const scores = new Float32Array(n * Kout);

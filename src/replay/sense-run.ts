@@ -10,6 +10,7 @@ import { siteGeometry } from '../modulation/site-shape.js';
 import type { SiteShape } from '../modulation/types.js';
 import { siteShapes } from '../record/site-shapes.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
+import { runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { TailGraph } from '../graph/tail.js';
 import { createNetworkSession, type FloatTensor, type NetworkSession } from '../session/network-session.js';
@@ -34,6 +35,8 @@ export interface SiteRun {
   method: SenseMethod;
   rowsPerRun: number;
   feedBytes: number;
+  /** Bytes of tensors one runtime call may hold (graph/run-memory.ts): caps the rows per call with `rowsPerRun` and `feedBytes`. */
+  runBytes: number;
   threads: number;
   baseline: Snapshot | null;
   source: StimulusSource | null;
@@ -114,9 +117,12 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   const boundaryShapes = boundary.map((name) => (name === run.model.input.name ? run.inspection.input.shape.slice(1) : run.byName.get(name)!.shape));
   const perRow = boundaryShapes.map((shape) => shape.reduce((a, b) => a * b, 1));
   const bytesPerRow = 4 * (perRow.reduce((a, b) => a + b, 0) + 2 * C);
-  const capacity = Math.max(1, Math.min(run.rowsPerRun, Math.floor(run.feedBytes / (2 * bytesPerRow))));
   const variants = run.method === 'richardson' ? 4 : 2;
   const injection: InjectionSite = { site, shape: layer.shape, spatial: false, featureAxis: siteInfo.featureAxis };
+  const injected = injectModulations(tail.model, [injection]);
+  // rows per call: the feed buffers within feedBytes, and everything the call holds within runBytes
+  const rowBytes = runRowBytes(injected, (name) => tensorElements(run, name.endsWith('::raw') ? name.slice(0, -5) : name), { fed: boundary.map((name) => (name === site ? `${name}::raw` : name)), fetched: [readout.tensor] });
+  const capacity = rowsWithin(run.runBytes, rowBytes, Math.max(1, Math.min(run.rowsPerRun, Math.floor(run.feedBytes / (2 * bytesPerRow)))));
   const inputNames = modulationInputNames(site);
   const sumPerturbed = new Float64Array(variants * C * K); // [V, C, K]: i = (v*C + k)*K + c
   const sumIdentity = new Float64Array(K);
@@ -141,7 +147,7 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   const siteIndex = boundary.indexOf(site);
   const { outer: siteOuter, inner: siteInner } = siteInfo;
 
-  const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), [readout.tensor]), { threads: run.threads, label: `${run.model.fileName} (downstream of ${site})` });
+  const session = await createNetworkSession(exposeTensors(injected, [readout.tensor]), { threads: run.threads, label: `${run.model.fileName} (downstream of ${site})` });
   const buffers = [new RowBuffer(capacity, perRow, C), new RowBuffer(capacity, perRow, C)];
   let current = 0;
   let pending: Promise<void> | null = null;
@@ -384,4 +390,10 @@ export function siteGeometryOf(layer: LayerInfo): { features: number; outer: num
   if (!shape) throw new UsageError('E_SENSE_SITE', `--site "${layer.name}" has no feature axis (shape [${layer.shape.join(', ')}] per stimulus)`, { hint: 'pick a feature map, a token tensor or a vector layer' });
   const g = siteGeometry(shape);
   return { features: g.features, outer: g.outer, inner: g.inner, featureAxis: shape.layout.featureAxis ?? 0, shape };
+}
+
+/** Per-stimulus elements of a tensor of the run's network (the data input included), or undefined. */
+export function tensorElements(run: SiteRun, name: string): number | undefined {
+  if (name === run.model.input.name) return run.inspection.input.shape.slice(1).reduce((a, b) => a * b, 1);
+  return run.byName.get(name)?.elements;
 }

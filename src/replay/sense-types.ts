@@ -71,6 +71,8 @@ export interface SenseOptions {
   rowsPerRun?: number;
   /** Cap on feed bytes of the two runs in flight (default 256 MiB); lowers rowsPerRun for wide sites. */
   feedBytes?: number;
+  /** Bytes of tensors one runtime call may hold (default `DEFAULT_RUN_BYTES`, src/graph/run-memory.ts): fewer rows per call where they would exceed it. */
+  runBytes?: number;
   /** Stimuli per run of the whole network when there is no baseline (default 16); with `exact`, also the rows (stimulus × category) per gradient run. */
   batch?: number;
   /** Runtime intra-op threads (0: the runtime chooses). */

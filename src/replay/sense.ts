@@ -40,6 +40,7 @@
  * readout is used for them.
  */
 import { UsageError } from '../errors.js';
+import { runBytesOption } from '../graph/run-memory.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { readSidecar } from '../graph/sidecar.js';
 import type { TailGraph } from '../graph/tail.js';
@@ -142,7 +143,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     if (baseline) checkBaseline(baseline, tail, options.from!);
     const layer = byName.get(site)!;
     const measure = method === 'exact' ? senseOneSiteExact : senseOneSite;
-    const block = await measure({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
+    const block = await measure({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, runBytes: runBytesOption(options.runBytes), threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
     block.downstreamShare = downstreamShare(estimate, tail.computed);
     // exact: each row is one forward and one backward pass downstream (≈ 3 forward passes, common practice)
     block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare * (method === 'exact' ? 3 : 1) + block.prefixStimuli) / (block.channels * block.stimuliUsed);
