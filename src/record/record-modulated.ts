@@ -14,7 +14,7 @@ import type { ModulationSpec, ResolveContext, ResolvedModulation } from '../modu
 import { modulationSites } from './site-shapes.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import { LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
-import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
+import { FORMAT_VERSION, layerLayout, writeManifest, type ManifestLayer, type SnapshotManifest } from '../snapshot/manifest.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource } from '../stimuli/source.js';
@@ -274,7 +274,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
   try {
     for (const l of changedEntries) {
       const path = join(folder, l.file);
-      const layout = { name: l.name, shape: l.shape, dtype: l.dtype, keep: l.keep, compression: l.compression ?? ('none' as const) };
+      const layout = { name: l.name, shape: l.shape, dtype: l.dtype, keep: l.keep, layout: layerLayout(l), compression: l.compression ?? ('none' as const) };
       if (checkpoint) {
         const at = checkpoint.files[l.file];
         if (at === undefined) throw new RuntimeFailure('E_RESUME', `${folder}/progress.json has no checkpoint for ${l.file}`, { hint: 'record again without --resume' });
