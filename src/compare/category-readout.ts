@@ -7,7 +7,7 @@
  * paths read the same numbers where they overlap.
  */
 import { UsageError } from '../errors.js';
-import { resolveReadoutMap, type ReadoutMap, type ResolvedReadoutMap } from '../graph/category-map.js';
+import { describeMapTag, resolveReadoutMap, type ReadoutMap, type ReadoutMapTag, type ResolvedReadoutMap } from '../graph/category-map.js';
 import { groupColumn } from '../stats/log-sum-exp.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 
@@ -93,5 +93,25 @@ export function readoutOf(base: Snapshot): { layer: string; kinds: string[]; thr
   if (units === base.categories.length) return { layer: last.name, kinds: base.categories, threshold: undefined };
   throw new UsageError('E_TASK', `cannot tell which readout unit belongs to which category: the snapshot's model has no sidecar naming its outputs, and its last layer "${last.name}" has ${units} units for ${base.categories.length} categories`, {
     hint: 'write MODEL.json beside the model with {"outputs": {"name": ..., "kinds": [...]}} and record again, or group its units into your categories with --readout-map',
+  });
+}
+
+/** One side of a readout-map comparison: what it is (for the message) and the map it was made under. */
+export interface MapSide {
+  /** e.g. `--tuning T.arrow`, `--sensitivity S.arrow`, `this run`. */
+  what: string;
+  tag: ReadoutMapTag | null;
+}
+
+/**
+ * Refuses to combine tables (or a table and a run) made under different readout maps: one line naming
+ * both sides' maps and the fix.
+ * @throws UsageError when the maps' digests differ, or one side has a map and the other none.
+ */
+export function assertSameReadoutMap(a: MapSide, b: MapSide): void {
+  if ((a.tag?.sha256 ?? null) === (b.tag?.sha256 ?? null)) return;
+  const named = a.tag ?? b.tag!;
+  throw new UsageError('E_READOUT_MAP', `${a.what} was made under ${describeMapTag(a.tag)} but ${b.what} under ${describeMapTag(b.tag)}; their categories are not scored alike`, {
+    hint: `make both with the same --readout-map (e.g. the map ${named.name} given to tune, sense, sweep and size-matched alike)`,
   });
 }

@@ -8,13 +8,14 @@
  * population SD, the same normalisation `normaliseAcrossCategories` applies to a table before it becomes
  * a gain pattern, so a tuning table passes through the modulation resolver unchanged.
  */
-import { UsageError } from '../errors.js';
+import { closestHint, UsageError } from '../errors.js';
 import { computeTuning, type TuningTable } from '../analysis/tuning.js';
 import { selectLayers } from '../graph/select.js';
 import type { ManifestLayer } from '../snapshot/manifest.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
-import { writeTuningTable, type TuningTableBlock } from '../snapshot/tables.js';
+import { READOUT_MAP_KEY, writeTuningTable, type TuningTableBlock } from '../snapshot/tables.js';
 import { assertOutFileWritable } from '../outputs/output-file.js';
+import { mapTag, resolveReadoutMap, type ReadoutMap } from '../graph/category-map.js';
 
 /**
  * A channel counts as selective when its selectivity index (r_max − r_rest)/(r_max + r_rest) is at least
@@ -33,6 +34,12 @@ export interface TuneOptions {
   singleLabel?: boolean;
   /** Categories to tune for, in table order; default: every category in the snapshot's labels. */
   categories?: string[];
+  /**
+   * Readout map (`--readout-map`): tune for its categories, in its order, and record it in the table, so
+   * the table pairs with sensitivity tables made under the same map. Checked against the snapshot's
+   * readout when the sidecar named one at record time.
+   */
+  readoutMap?: ReadoutMap;
   /** Write the tuning table here (an `.arrow` file); omit to only compute. */
   out?: string;
   /** Replace an existing file at `out` (without it an existing file is refused before any work). */
@@ -92,7 +99,7 @@ export async function tuneSnapshot(options: TuneOptions): Promise<TuneResult> {
       hint: 'record it from a class folder, a path,label CSV, or a .npy with --labels',
     });
   }
-  const { categories, layers } = planTuning(snapshot, options, folder);
+  const { categories, layers } = planTuning(snapshot, { ...options, ...(options.readoutMap ? { categories: mapCategories(snapshot, options.readoutMap, folder) } : {}) }, folder);
   const tables: Array<{ layer: ManifestLayer; table: TuningTable }> = [];
   for (const layer of layers) {
     const { channels } = snapshot.layerGeometry(layer.name);
@@ -143,7 +150,7 @@ export function planTuning(snapshot: Snapshot, options: Pick<TuneOptions, 'categ
  * @param options singleLabel and out.
  * @throws RuntimeFailure when the table cannot be written.
  */
-export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out'>): TuneResult {
+export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out' | 'readoutMap'>): TuneResult {
   const blocks: TuningTableBlock[] = [];
   const summaries: LayerTuningSummary[] = [];
   for (const { layer, table } of tables) {
@@ -161,6 +168,7 @@ export function assembleTuneResult(source: { folder: string; model: { file: stri
       'sonde.snapshot': source.folder,
       'sonde.model': `${source.model.file} sha256:${source.model.sha256}`,
       'sonde.single_label': String(options.singleLabel ?? false),
+      ...(options.readoutMap ? { [READOUT_MAP_KEY]: JSON.stringify(mapTag(options.readoutMap)) } : {}),
     });
     result.file = { path: options.out, ...written };
   }
@@ -203,4 +211,28 @@ export function summariseLayer(layer: string, op: string, depth: number, table: 
     nonFiniteChannels: nonFinite,
     negativeChannels: negative,
   };
+}
+
+/**
+ * The categories of a readout map for tuning a snapshot: the map's, in its order, each carried by some
+ * stimulus; the map is resolved against the snapshot's readout when the sidecar named one (so unknown
+ * units and repeats are refused here as in `sense`).
+ * @throws UsageError for a map category no stimulus carries, or a map that does not resolve.
+ */
+export function mapCategories(snapshot: Snapshot, map: ReadoutMap, folder: string): string[] {
+  const readout = snapshot.manifest.readout;
+  if (readout && readout.kinds.length > 0 && snapshot.manifest.layers.some((l) => l.name === readout.name)) {
+    const width = snapshot.layerGeometry(readout.name).channels;
+    resolveReadoutMap(map, { tensor: readout.name, width, names: readout.kinds.length === width ? readout.kinds : null });
+  }
+  const categories = map.entries.map((e) => e.category);
+  for (const category of categories) {
+    if (!snapshot.categories.includes(category)) {
+      const near = closestHint(category, snapshot.categories);
+      throw new UsageError('E_READOUT_MAP', `${map.source}: category "${category}" has no stimuli in ${folder} (labels: ${snapshot.categories.slice(0, 8).join(', ')}${snapshot.categories.length > 8 ? ', …' : ''}${near ? `; ${near}` : ''})`, {
+        hint: 'name the map\'s categories after the stimulus labels',
+      });
+    }
+  }
+  return categories;
 }

@@ -11,7 +11,11 @@ import { fitGainCeiling, type GainCeilingFit } from '../analysis/gain-ceiling.js
 import { UsageError, nameList } from '../errors.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
-import { readoutOf } from '../compare/diff-collect.js';
+import { categoryReadout, type CategoryReadout } from '../compare/category-readout.js';
+import type { ReadoutMap } from '../graph/category-map.js';
+import { withCategoryScores } from '../graph/category-scores.js';
+import { groupColumn } from '../stats/log-sum-exp.js';
+import { inspectModel } from '../record/inspect-model.js';
 import { scoreGains } from './gain-scores.js';
 import { exactGainJacobian } from './sense-exact.js';
 import type { ModelInspection } from '../record/inspect-model.js';
@@ -23,8 +27,10 @@ export interface SiteCeilingOptions {
   /** The stimuli the gain is fitted on (the ones the tuning and sensitivity tables came from). */
   fit: Snapshot;
   site: string;
-  /** Cued categories (readout units named by the model's sidecar). */
+  /** Cued categories (readout units named by the model's sidecar, or the categories of `readoutMap`). */
   categories: readonly string[];
+  /** Readout map: each category scores the log-sum-exp of its units (default: the sidecar's units). */
+  readoutMap?: ReadoutMap;
   /** Allowed weighted mean |g − 1| at the site, per category. */
   budget: (category: string) => number;
   /**
@@ -86,26 +92,21 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
   const { fit, site } = options;
   const h = options.step ?? 0.01;
   if (!(h > 0 && h < 1)) throw new UsageError('E_CEILING', `ceiling step ${h} must be in (0, 1)`);
-  const readout = readoutOf(fit);
+  const readout = categoryReadout(fit, options.readoutMap);
   const C = fit.layerGeometry(site).channels;
   const n = fit.manifest.stimuli.count;
-  const units = fit.layerGeometry(readout.layer).channels;
-  const unitOf = options.categories.map((category) => {
-    const unit = readout.kinds.indexOf(category);
-    if (unit < 0) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
-    return unit;
+  const groups = options.categories.map((category) => {
+    const units = readout.unitsOf(category);
+    if (!units) throw new UsageError('E_CEILING', `ceiling: category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
+    return units;
   });
-  const derivatives = await readoutDerivatives(options, readout.layer, unitOf, C, n, units, h);
+  const derivatives = await readoutDerivatives(options, readout, groups, C, n, h);
   const weights = await channelWeights(fit, site);
   return options.categories.map((category, c) => {
-    const unit = unitOf[c]!;
-    const scores = new Float64Array(n);
+    const scores = derivatives.scores[c]!;
     const signal = new Uint8Array(n);
     const jacobian = derivatives.jacobian[c]!; // [n, C]: i*C + k
-    for (let i = 0; i < n; i++) {
-      scores[i] = derivatives.scores[i * units + unit]!;
-      signal[i] = fit.stimuli.labels[i]!.includes(category) ? 1 : 0;
-    }
+    for (let i = 0; i < n; i++) signal[i] = fit.stimuli.labels[i]!.includes(category) ? 1 : 0;
     const budget = options.budget(category);
     const validation = options.earlyStopping === false ? undefined : Uint8Array.from({ length: n }, (_, i) => i % 2);
     const { gain, ...rest } = fitGainCeiling({ scores, jacobian, channels: C, isSignal: signal, weights, budget, ...(validation ? { validation } : {}) });
@@ -113,11 +114,24 @@ export async function fitSiteCeilings(options: SiteCeilingOptions): Promise<Site
   });
 }
 
-/** Readout [n, units] and per-category gain derivatives [n, C]: exact, or forward differences as a fallback. */
-async function readoutDerivatives(options: SiteCeilingOptions, readout: string, unitOf: readonly number[], C: number, n: number, units: number, h: number): Promise<{ scores: ArrayLike<number>; jacobian: Float64Array[]; method: 'exact' | 'forward' }> {
+/**
+ * Per category: its readout score [n] and gain derivatives [n, C], exact or forward differences as a
+ * fallback. A category of several units (a readout map) scores the log-sum-exp of its units: its exact
+ * derivatives come from the category scores appended to the graph (src/graph/category-scores.ts), its
+ * forward differences from the log-sum-exp of replayed readouts.
+ */
+async function readoutDerivatives(options: SiteCeilingOptions, readout: CategoryReadout, groups: ReadonlyArray<readonly number[]>, C: number, n: number, h: number): Promise<{ scores: Float64Array[]; jacobian: Float64Array[]; method: 'exact' | 'forward' }> {
+  const width = readout.width;
   try {
-    const exact = await exactGainJacobian({ model: options.model, inspection: options.inspection, baseline: options.fit, site: options.site, readout, units: unitOf, threads: options.threads ?? 0 });
-    return { scores: exact.scores, jacobian: exact.jacobian, method: 'exact' };
+    if (readout.map) {
+      const scored = withCategoryScores(options.model, readout.layer, groups);
+      const inspection = await inspectModel(scored.model);
+      const exact = await exactGainJacobian({ model: scored.model, inspection, baseline: options.fit, site: options.site, readout: scored.output, units: groups.map((_, g) => g), threads: options.threads ?? 0 });
+      return { scores: groups.map((_, g) => groupColumn(exact.scores, n, groups.length, [g])), jacobian: exact.jacobian, method: 'exact' };
+    }
+    const units = groups.map((g) => g[0]!);
+    const exact = await exactGainJacobian({ model: options.model, inspection: options.inspection, baseline: options.fit, site: options.site, readout: readout.layer, units, threads: options.threads ?? 0 });
+    return { scores: groups.map((g) => groupColumn(exact.scores, n, width, g)), jacobian: exact.jacobian, method: 'exact' };
   } catch (error) {
     if (!(error instanceof UsageError) || error.code !== 'E_GRADIENT_OP') throw error;
   }
@@ -127,12 +141,17 @@ async function readoutDerivatives(options: SiteCeilingOptions, readout: string, 
     g[k] = 1 + h;
     patterns.push([g]);
   }
-  const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: options.fit, sites: [options.site], gains: patterns, readout, threads: options.threads ?? 0 });
-  const jacobian = unitOf.map((unit) => {
+  const scored = await scoreGains({ model: options.model, inspection: options.inspection, baseline: options.fit, sites: [options.site], gains: patterns, readout: readout.layer, threads: options.threads ?? 0 });
+  const scores = groups.map((g) => groupColumn(scored[0]!, n, width, g));
+  const jacobian = groups.map((g, c) => {
     const out = new Float64Array(n * C);
-    // divided by the float32 step actually applied, fround(1 + h) − 1
-    for (let i = 0; i < n; i++) for (let k = 0; k < C; k++) out[i * C + k] = (scored[1 + k]![i * units + unit]! - scored[0]![i * units + unit]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
+    const base = scores[c]!;
+    for (let k = 0; k < C; k++) {
+      const moved = groupColumn(scored[1 + k]!, n, width, g);
+      // divided by the float32 step actually applied, fround(1 + h) − 1
+      for (let i = 0; i < n; i++) out[i * C + k] = (moved[i]! - base[i]!) / (Math.fround(1 + h) - 1); // [n, C]: i*C + k
+    }
     return out;
   });
-  return { scores: scored[0]!, jacobian, method: 'forward' };
+  return { scores, jacobian, method: 'forward' };
 }

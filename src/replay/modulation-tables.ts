@@ -5,7 +5,9 @@
  */
 import { firstDifference, nameList, UsageError } from '../errors.js';
 import type { ResolveContext, TableLookup } from '../modulation/types.js';
-import { readSensitivityTable, readTuningTable, type SensitivityTableBlock, type TuningTableBlock } from '../snapshot/tables.js';
+import { readSensitivityTable, readTuningTable, tableReadoutMap, type SensitivityTableBlock, type TuningTableBlock } from '../snapshot/tables.js';
+import { assertSameReadoutMap, type MapSide } from '../compare/category-readout.js';
+import type { ReadoutMapTag } from '../graph/category-map.js';
 
 /** Paths of the tables to load. */
 export interface ModulationTablePaths {
@@ -23,6 +25,8 @@ export interface ModulationTables {
   categories: string[];
   /** Layers (sites) each table covers. */
   layers: { tuning: string[]; sensitivity: string[] };
+  /** The readout map the tables were made under (`sonde.readout_map`; the same for both), or null. */
+  readoutMap: ReadoutMapTag | null;
 }
 
 /**
@@ -42,8 +46,10 @@ export function loadModulationTables(paths: ModulationTablePaths): ModulationTab
   const tables: NonNullable<ResolveContext['tables']> = {};
   const layers = { tuning: [] as string[], sensitivity: [] as string[] };
   let categories: string[] | undefined;
+  let readoutMap: MapSide | null = null;
   if (paths.tuning !== undefined) {
     const file = readTuningTable(paths.tuning);
+    readoutMap = { what: `--tuning ${paths.tuning}`, tag: tableReadoutMap(file) };
     tables.tuning = lookupOf(file.blocks, (b) => b.tuning);
     categories = file.categories;
     layers.tuning = file.blocks.map((b) => b.layer);
@@ -52,15 +58,19 @@ export function loadModulationTables(paths: ModulationTablePaths): ModulationTab
     const file = readSensitivityTable(paths.sensitivity);
     tables.sensitivity = lookupOf(file.blocks, (b) => b.sensitivity);
     layers.sensitivity = file.blocks.map((b) => b.layer);
+    const side = { what: `--sensitivity ${paths.sensitivity}`, tag: tableReadoutMap(file) };
+    // tables made under different readout maps do not pair, even with the same category names
+    if (readoutMap) assertSameReadoutMap(readoutMap, side);
+    else readoutMap = side;
     if (categories === undefined) categories = file.categories;
     else if (!sameSet(categories, file.categories)) {
       const difference = firstDifference(categories, file.categories, `--tuning ${paths.tuning}`, `--sensitivity ${paths.sensitivity}`);
       throw new UsageError('E_TABLES', `the tables have different categories (${categories.length} in the tuning table: ${nameList(categories, 4)}; ${file.categories.length} in the sensitivity table: ${nameList(file.categories, 4)}): ${difference ?? 'a name repeats in one list'}; one modulation run needs one category list`, {
-        hint: 'sense with a readout whose units are the label categories: fit readout heads on the baseline (`sonde heads`) and record, tune and sense with that model',
+        hint: 'sense with a readout whose units are the label categories: group the readout\'s units into the label categories with --readout-map (tune and sense with the same map), or fit readout heads on the baseline (`sonde heads`) and record, tune and sense with that model',
       });
     }
   }
-  return { tables, categories: categories!, layers };
+  return { tables, categories: categories!, layers, readoutMap: readoutMap?.tag ?? null };
 }
 
 /** A lookup over blocks: column c of the block's [C, K] values. */

@@ -9,7 +9,8 @@ import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { replaceFile } from '../disk/atomic-file.js';
 import { assertOutFileWritable } from '../outputs/output-file.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
-import { readoutOf } from '../compare/diff-collect.js';
+import { assertSameReadoutMap, categoryReadout } from '../compare/category-readout.js';
+import { mapTag, type ReadoutMap, type ReadoutMapTag } from '../graph/category-map.js';
 import { parseDetectionTask } from '../compare/diff-task.js';
 import { assertSameModel } from '../record/record-modulated.js';
 import { inspectModel } from '../record/inspect-model.js';
@@ -38,6 +39,8 @@ export interface SizeMatchedRunOptions {
   task?: string;
   /** Tuning table (`sonde tune`). */
   tuning: string;
+  /** Readout map (`--readout-map`): categories scored by the log-sum-exp of their units; the tables must be made under the same map. */
+  readoutMap?: ReadoutMap;
   /** Sensitivity table (`sonde sense`): adds the `sensitivity` rows. */
   sensitivity?: string;
   /** Seeds of the shuffled control (default 3). */
@@ -53,7 +56,7 @@ export interface SizeMatchedRunOptions {
 }
 
 /** The comparison plus where its tables came from. */
-export type SizeMatchedRun = SizeMatchedComparison & { evaluation: SweepEvaluation };
+export type SizeMatchedRun = SizeMatchedComparison & { evaluation: SweepEvaluation; /** The readout map the categories were scored by, when one was given. */ readoutMap?: ReadoutMapTag };
 
 /**
  * Checks the inputs, runs `compareAtSize` and writes `out`.
@@ -75,13 +78,14 @@ export async function runSizeMatched(options: SizeMatchedRunOptions): Promise<Si
   assertSameModel(fit, model, options.fit);
   assertSameModel(heldOut, model, options.from);
   const inspection = await inspectModel(model);
-  const readout = readoutOf(heldOut);
+  const readout = categoryReadout(heldOut, options.readoutMap);
   const sites = chooseSites(options.sites, inspection, readout.layer);
   const allSites = options.allSites && options.allSites.length > 0 ? chooseSites(options.allSites, inspection, readout.layer) : [];
   for (const site of new Set([...sites, ...allSites])) {
     for (const [snapshot, option] of [[fit, '--fit'], [heldOut, '--from']] as const) assertRecorded(snapshot, site, option);
   }
   const tables = loadModulationTables({ tuning: options.tuning, ...(options.sensitivity !== undefined ? { sensitivity: options.sensitivity } : {}) });
+  assertSameReadoutMap({ what: 'this comparison', tag: mapTag(readout.map) }, { what: `--tuning ${options.tuning}`, tag: tables.readoutMap });
   const task = options.task ?? 'detect:all';
   const every = task === 'detect:all' || task === 'labels';
   // detect:all keeps the categories the tables have; a named category without table values is refused below
@@ -110,13 +114,14 @@ export async function runSizeMatched(options: SizeMatchedRunOptions): Promise<Si
     categories,
     size: options.size,
     tables,
+    ...(options.readoutMap ? { readoutMap: options.readoutMap } : {}),
     ...(options.controlSeeds !== undefined ? { controlSeeds: options.controlSeeds } : {}),
     ...(options.resamples !== undefined ? { resamples: options.resamples } : {}),
     ...(options.seed !== undefined ? { seed: options.seed } : {}),
     threads: options.threads ?? 0,
     ...(options.onProgress ? { onProgress: options.onProgress } : {}),
   });
-  const result: SizeMatchedRun = { ...comparison, evaluation: describeEvaluation(options.from, { tuning: options.tuning, sensitivity: options.sensitivity }) };
+  const result: SizeMatchedRun = { ...comparison, evaluation: describeEvaluation(options.from, { tuning: options.tuning, sensitivity: options.sensitivity }), ...(readout.map ? { readoutMap: mapTag(readout.map)! } : {}) };
   if (options.out !== undefined) replaceFile(options.out, `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   return result;
 }

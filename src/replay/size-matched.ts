@@ -24,7 +24,8 @@ import { shuffleChannels } from '../modulation/shuffle.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { channelWeights, fitSiteCeilings, gainSize } from './ceiling.js';
 import { chooseThreshold } from '../compare/diff-task.js';
-import { readoutOf } from '../compare/diff-collect.js';
+import { categoryColumn, categoryReadout } from '../compare/category-readout.js';
+import type { ReadoutMap } from '../graph/category-map.js';
 import { scoreGains } from './gain-scores.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 import type { ModulationTables } from './modulation-tables.js';
@@ -46,6 +47,8 @@ export interface SizeMatchedOptions {
   size: number;
   /** Tuning (needed) and sensitivity (optional) lookups. */
   tables: ModulationTables;
+  /** Readout map: each category scores the log-sum-exp of its readout units (default: the sidecar's units). */
+  readoutMap?: ReadoutMap;
   /** Seeds of the shuffled control (default 3). */
   controlSeeds?: number;
   /** Bootstrap resamples of the held-out stimuli (default 500). */
@@ -131,8 +134,7 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
   const tableCategories = options.tables.categories;
   const categories = [...options.categories];
   const seeds = options.controlSeeds ?? 3;
-  const readout = readoutOf(heldOut);
-  const units = heldOut.layerGeometry(readout.layer).channels;
+  const readout = categoryReadout(heldOut, options.readoutMap);
   const n = heldOut.manifest.stimuli.count;
   const normalised = (lookup: NonNullable<typeof tuning>, site: string, category: string): Float64Array => {
     const rows = tableCategories.map((c) => {
@@ -159,7 +161,7 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
       group.patterns.push([gain]);
       group.labels.push({ scheme, category, size: gainSize(gain, weights) });
     };
-    const ceilings = await fitSiteCeilings({ model: options.model, inspection: options.inspection, fit, site, categories, budget: () => size, threads: options.threads ?? 0 });
+    const ceilings = await fitSiteCeilings({ model: options.model, inspection: options.inspection, fit, site, categories, budget: () => size, threads: options.threads ?? 0, ...(options.readoutMap ? { readoutMap: options.readoutMap } : {}) });
     steps++;
     options.onProgress?.(steps, 2 * options.sites.length + (options.allSites && options.allSites.length > 1 ? 1 : 0), `ceiling at ${site}`);
     for (const category of categories) {
@@ -201,11 +203,8 @@ export async function compareAtSize(options: SizeMatchedOptions): Promise<SizeMa
     signalOf.set(category, signal);
   }
   const column = (scores: Float64Array, category: string): Float64Array => {
-    const unit = readout.kinds.indexOf(category);
-    if (unit < 0) throw new UsageError('E_COMPARE', `category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
-    const out = new Float64Array(n);
-    for (let i = 0; i < n; i++) out[i] = scores[i * units + unit]!; // [n, units]: i*units + u
-    return out;
+    if (!readout.unitsOf(category)) throw new UsageError('E_COMPARE', `category "${category}" is not a readout unit (units: ${nameList(readout.kinds)})`);
+    return categoryColumn(readout, scores, n, category); // [n, units] → the category's (log-sum-exp) score
   };
   interface Row {
     scheme: string;

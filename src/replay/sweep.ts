@@ -21,7 +21,9 @@ import { createNetworkSession } from '../session/network-session.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { writeSweepTable } from '../snapshot/sweep-table.js';
 import { chooseThreshold, degenerateThreshold, parseDetectionTask } from '../compare/diff-task.js';
-import { readoutOf } from '../compare/diff-collect.js';
+import { assertSameReadoutMap, categoryColumn, categoryReadout, type CategoryReadout } from '../compare/category-readout.js';
+import { mapTag, type ReadoutMap } from '../graph/category-map.js';
+import { logSumExp } from '../stats/log-sum-exp.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from '../record/record-modulated.js';
 import { shuffleChannels } from '../modulation/shuffle.js';
@@ -51,6 +53,8 @@ export interface SweepOptions {
   strengths: readonly number[];
   /** `detect:CATEGORY[,…]` or `detect:all`: the cued categories (each is attended in turn). */
   task: string;
+  /** Readout map (`--readout-map`): categories scored by the log-sum-exp of their readout units; the tables must be made under the same map. */
+  readoutMap?: ReadoutMap;
   /** Tuning table (`sonde tune`), needed by `tuning` and `shuffled`. */
   tuning?: string;
   /** Sensitivity table (`sonde sense`), needed by `sensitivity`. */
@@ -121,7 +125,8 @@ export function parseSweepMeasure(text: string | undefined): SweepMeasure {
 
 /** Baseline readout of one cued category: its scores, signal flags, fixed threshold and detection there. */
 interface CategoryBase {
-  unit: number;
+  /** Readout units the category's score is the log-sum-exp of (one: the sidecar's unit). */
+  units: number[];
   signal: Uint8Array;
   threshold: number;
   base: ScoreDetection;
@@ -154,9 +159,10 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
     throw new UsageError('E_STRENGTHS', `--strengths must be finite numbers, got ${options.strengths.join(',') || 'none'}`);
   }
   const inspection = await inspectModel(model);
-  const readout = readoutOf(baseline);
+  const readout = categoryReadout(baseline, options.readoutMap);
   const categories = parseDetectionTask(options.task, readout.kinds, baseline.categories);
   const tables = options.tuning || options.sensitivity ? loadModulationTables({ ...(options.tuning ? { tuning: options.tuning } : {}), ...(options.sensitivity ? { sensitivity: options.sensitivity } : {}) }) : null;
+  if (tables) assertSameReadoutMap({ what: 'this sweep', tag: mapTag(readout.map) }, { what: options.tuning ? `--tuning ${options.tuning}` : `--sensitivity ${options.sensitivity}`, tag: tables.readoutMap });
   const schemes = resolveSchemes(options.schemes, options);
   const sites = (typeof options.sites === 'string' && options.sites === ALL_ACTIVATIONS ? chooseSites(ALL_ACTIVATIONS, inspection, readout.layer) : chooseSites(options.sites, inspection, readout.layer)).filter(
     (site) => typeof options.sites !== 'string' || options.sites !== ALL_ACTIVATIONS || baseline.manifest.layers.some((l) => l.name === site && l.keep === 'full'),
@@ -202,7 +208,7 @@ interface LockedSweep {
   model: LoadedModel;
   baseline: Snapshot;
   inspection: Awaited<ReturnType<typeof inspectModel>>;
-  readout: ReturnType<typeof readoutOf>;
+  readout: CategoryReadout;
   categories: string[];
   tables: ReturnType<typeof loadModulationTables> | null;
   schemes: SweepScheme[];
@@ -218,7 +224,7 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
   const progressPath = join(options.out, 'cells.jsonl');
   const done = new Map<string, SweepCell>();
   // cells are reused only when computed from the same inputs (see sweep-inputs.ts)
-  const inputs = sweepInputsOf({ modelSha256: model.sha256, baselineFolder: baseline.folder, tuning: options.tuning, sensitivity: options.sensitivity, task: options.task, threshold: options.threshold ?? 'auto', depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64 });
+  const inputs = sweepInputsOf({ modelSha256: model.sha256, baselineFolder: baseline.folder, tuning: options.tuning, sensitivity: options.sensitivity, task: readout.map ? `${options.task} (readout map ${readout.map.name} sha256:${readout.map.sha256})` : options.task, threshold: options.threshold ?? 'auto', depthProfile: options.depthProfile ?? false, profileStimuli: options.profileStimuli ?? 64 });
   if (!options.restart && existsSync(progressPath)) {
     const headers: { sweepInputs: string; of?: Partial<SweepInputs> }[] = [];
     for (const line of readFileSync(progressPath, 'utf8').split('\n')) {
@@ -247,16 +253,12 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
   // one set of bootstrap resamples of the stimuli for every cell (intervals of cells and of their means)
   const resampling = sweepResampling(n);
   for (const category of categories) {
-    const unit = readout.kinds.indexOf(category);
-    const scores = new Float64Array(n);
+    const scores = categoryColumn(readout, baseScores, n, category);
     const signal = new Uint8Array(n);
-    for (let i = 0; i < n; i++) {
-      scores[i] = baseScores[i * units + unit]!;
-      signal[i] = baseline.stimuli.labels[i]!.includes(category) ? 1 : 0;
-    }
+    for (let i = 0; i < n; i++) signal[i] = baseline.stimuli.labels[i]!.includes(category) ? 1 : 0;
     const threshold = chooseThreshold(options.threshold ?? 'auto', readout.threshold, scores, signal);
     const base = detectFromScores(scores, signal, threshold);
-    perCategory.set(category, { unit, signal, threshold, base, degenerate: degenerateThreshold(base, threshold) !== null, scores, auc: rocAuc(scores, signal), draws: readoutDraws(scores, signal, threshold, resampling) });
+    perCategory.set(category, { units: readout.unitsOf(category)!, signal, threshold, base, degenerate: degenerateThreshold(base, threshold) !== null, scores, auc: rocAuc(scores, signal), draws: readoutDraws(scores, signal, threshold, resampling) });
   }
 
   const context: ResolveContext = { sites: siteShapes(inspection.layers), siteNames: inspection.layers.map((l) => l.name), categories: tables?.categories ?? categories, ...(tables ? { tables: tables.tables } : {}) };
@@ -428,10 +430,11 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
     const outputs = await session.run(feeds, profiling ? fetch : [run.readout]);
     const readout = outputs[run.readout]!.data;
     group.forEach((cell, c) => {
-      const unit = run.perCategory.get(cell.category)!.unit;
+      const units = run.perCategory.get(cell.category)!.units;
       const m = vectorOfCell[c]! - m0;
       if (m < 0 || m >= mc) return;
-      for (let i = 0; i < ic; i++) scores[c]![start + i] = readout[(m * ic + i) * run.units + unit]!;
+      // [mc·ic, units]: row (m*ic + i); one unit's log-sum-exp is its value, bit for bit
+      for (let i = 0; i < ic; i++) scores[c]![start + i] = logSumExp(readout, (m * ic + i) * run.units, units);
     });
     if (!profiling) return;
     profiled.forEach((layer, li) => {

@@ -10,6 +10,7 @@ import { fitTable, wrapText } from '../../report/terminal-table.js';
 import { finiteNumber, nonNegativeInteger, positiveInteger } from '../options.js';
 import { cliIo, outputColumns } from '../io.js';
 import { createProgressBar } from '../progress.js';
+import { READOUT_MAP_FLAGS, READOUT_MAP_HELP, readoutMapOption } from '../readout-map-option.js';
 
 interface SizeMatchedCliOptions {
   fit: string;
@@ -19,6 +20,7 @@ interface SizeMatchedCliOptions {
   size: number;
   task: string;
   tuning: string;
+  readoutMap?: string;
   sensitivity?: string;
   controlSeeds: number;
   resamples: number;
@@ -49,6 +51,7 @@ export function registerSizeMatched(program: Command): void {
     .option('--resamples <n>', 'bootstrap resamples over the held-out stimuli', positiveInteger, 500)
     .option('--seed <n>', 'seed of the bootstrap', nonNegativeInteger, 1)
     .requiredOption('--out <file.json>', 'write the comparison here (read by sonde report; an existing file only with --force)')
+    .option(READOUT_MAP_FLAGS, `${READOUT_MAP_HELP}; the tables must be made under the same map`)
     .option('--force', 'replace an existing --out file')
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--json', 'print the comparison JSON to stdout')
@@ -67,6 +70,7 @@ export function registerSizeMatched(program: Command): void {
           size: opts.size,
           task: opts.task,
           tuning: opts.tuning,
+          ...(opts.readoutMap !== undefined ? { readoutMap: readoutMapOption(opts.readoutMap) } : {}),
           ...(opts.sensitivity !== undefined ? { sensitivity: opts.sensitivity } : {}),
           controlSeeds: opts.controlSeeds,
           resamples: opts.resamples,
@@ -86,8 +90,9 @@ export function registerSizeMatched(program: Command): void {
       const width = outputColumns();
       const interval = (i: { estimate: number; low: number; high: number }) => `${signed(i.estimate, 3)} [${signed(i.low, 3)}, ${signed(i.high, 3)}]`;
       const rows = c.effects.map((e) => [e.site, e.scheme, `${fixed(100 * e.size, 1)} %`, interval(e.aucChange), e.fractionOfCeiling === null ? '' : fixed(e.fractionOfCeiling, 2), signed(e.hitRatePp, 1), signed(e.falseAlarmRatePp, 1), signed(e.criterionShiftHitRatePp, 1)]);
+      const mapped = c.readoutMap ? `; categories scored by readout map ${c.readoutMap.name} (log-sum-exp of their units)` : '';
       const held = c.heldOut ? `held out (gains from ${c.fitSet}, detection on ${c.heldOutSet})` : `NOT held out: gains and detection on the same stimuli (${c.heldOutSet})`;
-      io.stdout(`${wrapText(`${held}; unmodulated ROC area ${fixed(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories); every gain scaled to ${fixed(100 * c.size, 1)} % mean |g − 1| at its site; ΔAUC with ${Math.round(100 * c.level)} % bootstrap intervals over ${c.resamples} resamples of the held-out stimuli`, width)}\n`);
+      io.stdout(`${wrapText(`${held}; unmodulated ROC area ${fixed(c.baseAuc, 3)} (mean over ${c.categories.length} cued categories${mapped}); every gain scaled to ${fixed(100 * c.size, 1)} % mean |g − 1| at its site; ΔAUC with ${Math.round(100 * c.level)} % bootstrap intervals over ${c.resamples} resamples of the held-out stimuli`, width)}\n`);
       io.stdout(`${fitTable(['site', 'scheme', 'size', 'ΔAUC [95 %]', 'of ceiling', 'Δhit pp', 'Δfalse alarm pp', 'criterion shift Δhit pp'], rows, { width, keyColumns: 2 })}\n`);
       for (const v of c.versusShuffled) io.stdout(`${v.site}: tuning − shuffled ΔAUC ${interval(v.difference)}${v.difference.low > 0 ? ' (above the shuffled control)' : v.difference.high < 0 ? ' (below the shuffled control)' : ' (not separated from the shuffled control)'}\n`);
       io.stdout(`criterion shift: a constant shift of the baseline readout with the same false-alarm rate; it changes hit rates but never the ROC area\ncomparison: ${opts.out} (sonde report ${opts.out} --out report.html)\n`);

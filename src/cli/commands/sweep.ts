@@ -8,6 +8,7 @@ import { renderSweep } from '../../report/sweep-table.js';
 import { nonNegativeInteger, positiveInteger, siteList } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo, outputColumns } from '../io.js';
+import { READOUT_MAP_FLAGS, READOUT_MAP_HELP, readoutMapOption } from '../readout-map-option.js';
 
 interface SweepCliOptions {
   from: string;
@@ -16,6 +17,7 @@ interface SweepCliOptions {
   strengths: string;
   task: string;
   tuning?: string;
+  readoutMap?: string;
   sensitivity?: string;
   controlSeeds: number;
   depthProfile?: boolean;
@@ -25,6 +27,7 @@ interface SweepCliOptions {
   restart?: boolean;
   threads: number;
   vectors: number;
+  runMemory?: number;
   shard?: string;
   json?: boolean;
 }
@@ -71,8 +74,10 @@ export function registerSweep(program: Command): void {
     .requiredOption('--out <dir>', 'result folder: NAME without a slash is snapshots/NAME (cells.arrow, sweep.json; cells.jsonl lets an interrupted sweep resume)')
     .option('--restart', 'ignore finished cells in --out and start again')
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
-    .option('--vectors <n>', 'gain vectors per runtime call', positiveInteger, 16)
+    .option('--vectors <n>', 'gain vectors per pass over the stimuli', positiveInteger, 16)
+    .option('--run-memory <MB>', 'MB of tensors one runtime call may hold (default 512): fewer vectors or stimuli per call where they would exceed it', positiveInteger)
     .option('--shard <k/n>', 'only the K-th of N contiguous parts of the cells (job arrays; merge by concatenating cells.jsonl)')
+    .option(READOUT_MAP_FLAGS, `${READOUT_MAP_HELP}; the tables must be made under the same map`)
     .option('--json', 'print sweep.json to stdout')
     .action(async (model: string, opts: SweepCliOptions) => {
       const io = cliIo();
@@ -91,9 +96,11 @@ export function registerSweep(program: Command): void {
           out: opts.out,
           threads: opts.threads,
           vectorsPerRun: opts.vectors,
+          ...(opts.runMemory ? { runBytes: opts.runMemory * 2 ** 20 } : {}),
           onProgress: (p) => bar.update(p.cellsDone, p.cellsTotal, 'cells'),
           ...(opts.schemes ? { schemes: opts.schemes.split(',').map((s) => s.trim()) } : {}),
           ...(opts.tuning ? { tuning: opts.tuning } : {}),
+          ...(opts.readoutMap !== undefined ? { readoutMap: readoutMapOption(opts.readoutMap) } : {}),
           ...(opts.sensitivity ? { sensitivity: opts.sensitivity } : {}),
           ...(opts.depthProfile ? { depthProfile: true } : {}),
           ...(opts.match ? { match: opts.match } : {}),

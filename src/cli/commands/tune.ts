@@ -10,13 +10,16 @@ import { sparkline } from '../../analysis/sparkline.js';
 import { compareTables } from '../../compare/compare-tables.js';
 import { displayPath } from '../../record/record-snapshot.js';
 import { SELECTIVE_INDEX, summariseLayer, tuneSnapshot, type LayerTuningSummary } from '../../compare/tune.js';
-import { readSensitivityTable, readTuningTable, type TuningTableBlock } from '../../snapshot/tables.js';
+import { readSensitivityTable, readTuningTable, tableReadoutMap, type TuningTableBlock } from '../../snapshot/tables.js';
+import { assertSameReadoutMap } from '../../compare/category-readout.js';
+import { mapTag, type ReadoutMapTag } from '../../graph/category-map.js';
 import { cliIo, outputColumns } from '../io.js';
 import { renderAgreement, renderTuningSummaries } from '../../report/tune-table.js';
 import { wrapText } from '../../report/terminal-table.js';
 import { tunePartial } from '../../compare/partials.js';
 import { writePartial } from '../../record/partial-file.js';
 import { parseShard } from '../../record/shard.js';
+import { READOUT_MAP_FLAGS, READOUT_MAP_HELP, readoutMapOption } from '../readout-map-option.js';
 
 interface TuneCliOptions {
   out?: string;
@@ -27,6 +30,7 @@ interface TuneCliOptions {
   shard?: string;
   partial?: string;
   force?: boolean;
+  readoutMap?: string;
 }
 
 
@@ -41,6 +45,7 @@ export function registerTune(program: Command): void {
     .option('--layers <selector>', 'layers to tune: all | globs | names joined by + (default: every layer with a channel axis)')
     .option('--single-label', 'use only stimuli with exactly one label (default: multi-label stimuli count for each label)')
     .option('--against <sens.arrow>', 'also correlate tuning with a sensitivity table (Pearson and Spearman across channels, per layer)')
+    .option(READOUT_MAP_FLAGS, `${READOUT_MAP_HELP}; tune tunes for the map's categories and records the map, so the table pairs with sensitivity tables made under it`)
     .option('--json', 'print JSON instead of tables')
     .option('--shard <K/N>', 'with --partial: accumulate only shard K of N of the stimuli')
     .option('--partial <file.json>', 'write mergeable partial statistics (counts, means, sums of squares) instead of the table; combine with `sonde merge … --out T.arrow`')
@@ -48,6 +53,7 @@ export function registerTune(program: Command): void {
       const io = cliIo();
       if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });
       if (opts.partial !== undefined) {
+        if (opts.readoutMap !== undefined) throw new UsageError('E_PARTIAL', '--readout-map is not supported with --partial yet (the merged table would not record the map)', { hint: 'tune the whole snapshot with --readout-map, or tune without it' });
         if (opts.against !== undefined || opts.out !== undefined) throw new UsageError('E_PARTIAL', '--partial writes statistics only; --out and --against apply when the parts are merged');
         const shard = opts.shard !== undefined ? parseShard(opts.shard) : { index: 1, count: 1 };
         const partial = await tunePartial({ snapshot: source, ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) }, shard);
@@ -59,19 +65,27 @@ export function registerTune(program: Command): void {
       let blocks: TuningTableBlock[];
       let summaries: LayerTuningSummary[];
       let header: Record<string, unknown> = {};
+      let mapTagOfTuning: ReadoutMapTag | null = null;
       if (isTable) {
+        if (opts.readoutMap !== undefined) throw new UsageError('E_USAGE', `${source} is a tuning table; --readout-map applies when tuning a snapshot (the table records the map it was made under)`);
         if (opts.layers !== undefined || opts.singleLabel) throw new UsageError('E_USAGE', `${source} is a tuning table; --layers and --single-label apply when tuning a snapshot`);
         if (opts.against === undefined) throw new UsageError('E_USAGE', `${source} is already a tuning table; pass --against SENS.arrow to compare it, or a snapshot folder to tune`);
-        blocks = readTuningTable(source).blocks;
+        const file = readTuningTable(source);
+        blocks = file.blocks;
+        mapTagOfTuning = tableReadoutMap(file);
         summaries = blocks.map((b) => summariseLayer(b.layer, b.op ?? '', b.depth ?? -1, { ...b, nonFinite: new Int32Array(b.channels), stimuliUsed: 0, stimuliSkipped: 0 }));
       } else {
         if (opts.out === undefined) throw new UsageError('E_USAGE', 'sonde tune SNAPSHOT needs --out FILE.arrow (where the tuning table goes)');
-        const result = await tuneSnapshot({ snapshot: source, out: opts.out, ...(opts.force ? { force: true } : {}), ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) });
+        const tuneMap = readoutMapOption(opts.readoutMap);
+        const result = await tuneSnapshot({ snapshot: source, out: opts.out, ...(opts.force ? { force: true } : {}), ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}), ...(tuneMap ? { readoutMap: tuneMap } : {}) });
         blocks = result.blocks;
         summaries = result.summaries;
+        mapTagOfTuning = tuneMap ? mapTag(tuneMap) : null;
         header = { snapshot: source, out: opts.out, categories: result.categories, counts: result.counts, stimuliUsed: result.stimuliUsed, stimuliSkipped: result.stimuliSkipped, bytes: result.file?.bytes };
       }
-      const comparison = opts.against !== undefined ? compareTables(blocks, readSensitivityTable(opts.against).blocks) : null;
+      const against = opts.against !== undefined ? readSensitivityTable(opts.against) : null;
+      if (against) assertSameReadoutMap({ what: isTable ? `tuning table ${source}` : `the tuning of ${source}`, tag: mapTagOfTuning }, { what: `--against ${opts.against}`, tag: tableReadoutMap(against) });
+      const comparison = against ? compareTables(blocks, against.blocks) : null;
       if (opts.json) {
         io.stdout(`${JSON.stringify({ ...header, selectiveIndex: SELECTIVE_INDEX, layers: summaries, ...(comparison ? { comparison } : {}) }, jsonNumbers, 2)}\n`);
         return;
