@@ -243,4 +243,15 @@ describe('recordModulated tail replay split by bytes', () => {
       for (let i = 0; i < x.length; i++) if (x[i] !== y[i]) throw new Error(`${layer.name}[${i}]: ${x[i]} vs ${y[i]}`);
     }
   });
+
+  it('sonde record --modulate --from --run-memory takes MB (a positive integer) and refuses 0 with one line naming the option', async () => {
+    const path = spec('split-cli', { site: 'pool0', kind: 'gain', values: [0.5, 1.5, 2, 0.75] });
+    const ok = await runSonde(['record', residual, '--stimuli', stim.npy, '--labels', stim.labels, '--out', join(dir, 'split-cli'), '--modulate', path, '--from', join(dir, 'base-r'), '--batch', '4', '--run-memory', '1']);
+    expect(ok.code, ok.stderr).toBe(0);
+    expect(ok.stdout).toMatch(/replayed the downstream part/);
+    const bad = await runSonde(['record', residual, '--stimuli', stim.npy, '--out', join(dir, 'split-cli0'), '--modulate', path, '--from', join(dir, 'base-r'), '--run-memory', '0']);
+    expect(bad.code).toBe(2);
+    expect(bad.stderr).toMatch(/--run-memory/);
+    expect(bad.stderr.trim().split('\n')).toHaveLength(1);
+  });
 });

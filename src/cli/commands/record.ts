@@ -32,6 +32,7 @@ interface RecordCliOptions {
   modulate?: string;
   from?: string;
   fullRun?: boolean;
+  runMemory?: number;
   tuning?: string;
   sensitivity?: string;
   resume?: boolean;
@@ -68,6 +69,7 @@ export function registerRecord(program: Command): void {
     .option('--tuning <file.arrow>', 'tuning table for the tuning kind and lesion top (from `sonde tune`)')
     .option('--sensitivity <file.arrow>', 'sensitivity table for the sensitivity kind (from `sonde sense`)')
     .option('--full-run', 'with --from: run the whole network instead of replaying the downstream part')
+    .option('--run-memory <MB>', 'with --from: MB of tensors one runtime call of the downstream replay may hold (default 512); a baseline batch is split into smaller calls to stay within it', positiveInteger)
     .option('--resume', 'continue an interrupted recording in --out from its last checkpoint (same options); a complete one is left alone')
     .option('--shard <K/N>', 'record only shard K of N of the stimuli (contiguous, balanced; 1-based K), e.g. $SLURM_ARRAY_TASK_ID/8')
     .option('--checkpoint-every <seconds>', 'seconds between resume checkpoints (0: after every batch)', finiteNumber, 2)
@@ -107,7 +109,7 @@ export function registerRecord(program: Command): void {
         if ((opts.tuning || opts.sensitivity) && !opts.modulate) throw new UsageError('E_TABLES', '--tuning and --sensitivity need --modulate (they feed the tuning, sensitivity and lesion-top kinds)');
         const loaded = opts.tuning || opts.sensitivity ? loadModulationTables({ ...(opts.tuning ? { tuning: opts.tuning } : {}), ...(opts.sensitivity ? { sensitivity: opts.sensitivity } : {}) }) : null;
         const summary = opts.modulate
-          ? await recordModulated({ ...common, modulate: opts.modulate, ...(loaded ? { tables: loaded.tables, categories: loaded.categories } : {}), ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}) })
+          ? await recordModulated({ ...common, modulate: opts.modulate, ...(loaded ? { tables: loaded.tables, categories: loaded.categories } : {}), ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}), ...(opts.runMemory ? { runBytes: opts.runMemory * 2 ** 20 } : {}) })
           : await recordSnapshot(common);
         bar.stop();
         if (summary.resumed === 'complete') return;

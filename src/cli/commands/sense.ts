@@ -38,6 +38,7 @@ interface SenseCliOptions {
   partial?: string;
   rows: number;
   batch: number;
+  runMemory?: number;
   threads: number;
   inputShape?: string;
   mean?: string;
@@ -69,6 +70,7 @@ export function registerSense(program: Command): void {
     .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run (finite differences)', positiveInteger, DEFAULT_ROWS_PER_RUN)
     .option('--batch <n>', 'stimuli per run of the whole network (without --from); with --method exact also the (stimulus, category) rows per gradient run', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
+    .option('--run-memory <MB>', 'MB of tensors one downstream (or gradient) run may hold (default 512): fewer rows per run where they would exceed it', positiveInteger)
     .option('--input-shape <NxCxHxW>', 'input shape for models with dynamic spatial axes')
     .option('--mean <a,b,c>', 'per-channel mean after scaling to [0,1] (default: model sidecar, else 0)')
     .option('--std <a,b,c>', 'per-channel std after scaling to [0,1] (default: model sidecar, else 1)')
@@ -102,6 +104,7 @@ export function registerSense(program: Command): void {
           method,
           rowsPerRun: opts.rows,
           batch: opts.batch,
+          ...(opts.runMemory ? { runBytes: opts.runMemory * 2 ** 20 } : {}),
           threads: opts.threads,
           ...(opts.out !== undefined ? { out: opts.out } : {}),
           ...(opts.force ? { force: true } : {}),
