@@ -202,7 +202,7 @@ const cases: Case[] = [
   // --- snapshots and manifests
   { name: 'diff of a folder that is not a snapshot', argv: () => (mkdirSync(join(dir, 'plain'), { recursive: true }), ['diff', join(dir, 'plain'), good.mod]), code: 2, message: /is not a snapshot \(no manifest\.json\)/ },
   { name: 'manifest that is not JSON', argv: () => { const t = copyWithManifest('m-json', () => undefined); writeFileSync(join(t, 'manifest.json'), '{"format": 2,'); return ['diff', t, good.mod]; }, code: 2, message: /manifest\.json is not valid JSON/ },
-  { name: 'unknown format version', argv: () => ['diff', copyWithManifest('m-version', (m) => (m.format = 99)), good.mod], code: 2, message: /has format 99; this Sonde reads format 2/ },
+  { name: 'unknown format version', argv: () => ['diff', copyWithManifest('m-version', (m) => (m.format = 99)), good.mod], code: 2, message: /has format 99; this Sonde reads formats 2 and 3/ },
   { name: 'manifest path escaping with ../', argv: () => ['diff', copyWithManifest('m-escape', (m) => (m.layers[0]!.file = '../../etc/passwd')), good.mod], code: 2, message: /layers\[0\]\.file "\.\.\/\.\.\/etc\/passwd" points outside the snapshot folder/ },
   { name: 'manifest absolute path', argv: () => ['tune', copyWithManifest('m-abs', (m) => (m.layers[1]!.file = '/etc/hostname')), '--out', join(dir, 't.arrow')], code: 2, message: /layers\[1\]\.file "\/etc\/hostname" is absolute/ },
   { name: 'manifest with an absurd shape', argv: () => ['diff', copyWithManifest('m-shape', (m) => (m.layers[0]!.shape = [100000, 100000, 1000])), good.mod], code: 2, message: /shape \[100000, 100000, 1000\] is absurdly large/ },

@@ -4,12 +4,14 @@
  * the DataArray checks; `.ci/run` installs both), it must hand out the same values, bit for bit, for a
  * float32 baseline, a modulated snapshot whose upstream layers live in the baseline, a float16 snapshot
  * (widened by NumPy's own float16, independently of Sonde's conversion), a channel-means-only snapshot,
- * and an export of the modulated snapshot (memory-mapped .npy). Skipped, saying why, where
- * /usr/bin/python3 has no NumPy.
+ * and an export of the modulated snapshot (memory-mapped .npy); compressed snapshots (LZ4 frame and ZSTD,
+ * decompressed by Debian's python3-lz4 / python3-zstandard, independent implementations of the codecs)
+ * and the committed format-2 fixture the same way. Skipped, saying why, where /usr/bin/python3 has no
+ * NumPy.
  */
 import { spawnSync } from 'node:child_process';
 import { mkdirSync, readFileSync, renameSync, symlinkSync, writeFileSync } from 'node:fs';
-import { join } from 'node:path';
+import { isAbsolute, join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { axisNames } from '../../src/export/export-description.js';
 import { exportSnapshot } from '../../src/export/export-snapshot.js';
@@ -50,14 +52,14 @@ function runDump(engine: string, inputs: string[], python = PYTHON): { out: stri
   return { out, status: result.status, stderr: result.stderr };
 }
 
-async function expectSameAsSonde(run: { out: string; status: number | null; stderr: string }): Promise<void> {
+async function expectSameAsSonde(run: { out: string; status: number | null; stderr: string }, sources = ['base', 'mod', 'half', 'means', 'mod'], exported = 4): Promise<void> {
   expect(run.status, run.stderr).toBe(0);
   const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
-  const sources = ['base', 'mod', 'half', 'means', 'mod']; // the export reads as the snapshot it came from
-  for (let k = 0; k < folders.length; k++) {
-    const snap = openSnapshot(join(dir, sources[k]!));
+  // the export reads as the snapshot it came from
+  for (let k = 0; k < sources.length; k++) {
+    const snap = openSnapshot(isAbsolute(sources[k]!) ? sources[k]! : join(dir, sources[k]!));
     const got = dumped.folders[k]!;
-    expect(got.kind).toBe(k === 4 ? 'export' : 'snapshot');
+    expect(got.kind).toBe(k === exported ? 'export' : 'snapshot');
     expect(got.ids).toEqual(snap.stimuli.ids);
     expect(got.labels).toEqual(snap.stimuli.labels);
     expect(got.index).toEqual(snap.stimuli.ids.map((_, i) => snap.firstIndex + i));
@@ -76,7 +78,7 @@ async function expectSameAsSonde(run: { out: string; status: number | null; stde
       }
       expect(layer.dtype).toBe(entry.dtype);
       expect(layer.shape).toEqual([snap.manifest.stimuli.count, ...entry.shape]);
-      if (k === 4) expect(layer.memmap).toBe(true); // exports are memory-mapped
+      if (k === exported) expect(layer.memmap).toBe(true); // exports are memory-mapped
       const acts = parseNpy(readFileSync(join(run.out, String(k), `${j}.acts.npy`))).data as Float32Array;
       const expected: number[] = [];
       for await (const batch of snap.readLayer(entry.name)) for (const v of batch.activation!) expected.push(v);
@@ -99,7 +101,16 @@ beforeAll(async () => {
   await recordModulated({ ...common, out: join(dir, 'mod'), batch: 4, modulate: join(dir, 'gain.json'), from: join(dir, 'base') });
   await exportSnapshot({ snapshot: join(dir, 'mod'), out: join(dir, 'mod-npy') });
   folders = ['base', 'mod', 'half', 'means', 'mod-npy'].map((f) => join(dir, f));
+  await recordSnapshot({ ...common, layers: 'all', out: join(dir, 'lz4'), batch: 4, compress: 'lz4' });
+  await recordSnapshot({ ...common, layers: 'all', out: join(dir, 'zstd'), batch: 4, compress: 'zstd' });
+  await recordSnapshot({ ...common, layers: 'all', out: join(dir, 'half-zstd'), batch: 3, dtype: 'float16', compress: 'zstd' });
+  await recordModulated({ ...common, out: join(dir, 'mod-zstd'), batch: 4, modulate: join(dir, 'gain.json'), from: join(dir, 'zstd') });
 }, 60_000);
+
+const codecsProbe = hasNumpy ? spawnSync(PYTHON, ['-c', 'import lz4.frame, zstandard'], { encoding: 'utf8' }) : null;
+const hasCodecs = codecsProbe?.status === 0;
+if (hasNumpy && !hasCodecs) console.warn(`sonde-read compressed-snapshot tests skipped: ${PYTHON} lacks lz4 or zstandard (apt-get install python3-lz4 python3-zstandard)`);
+const FORMAT2 = join(import.meta.dirname, '..', 'snapshot', 'fixtures', 'format2');
 
 describe.skipIf(!hasNumpy)('sonde_read.py', () => {
   it('sonde_read.open returns the values, stimuli and label sets openSnapshot reads, for baseline, modulated, float16, channel-means-only snapshots and an export', async () => {
@@ -135,6 +146,37 @@ describe.skipIf(!hasNumpy)('sonde_read.py', () => {
       }
     }
   }, 60_000);
+
+  it.skipIf(!hasCodecs)('sonde_read.open reads LZ4- and ZSTD-compressed snapshots (float32, float16, modulated from a compressed baseline) with the values openSnapshot reads', async () => {
+    const sources = ['lz4', 'zstd', 'half-zstd', 'mod-zstd'];
+    expect(openSnapshot(join(dir, 'zstd')).manifest.layers.every((l) => l.compression === 'zstd')).toBe(true);
+    await expectSameAsSonde(runDump('numpy', sources.map((f) => join(dir, f))), sources, -1);
+  }, 60_000);
+
+  it('sonde_read.open reads the committed format-2 snapshots (written before compression and means files) with the values openSnapshot reads', async () => {
+    const sources = ['base', 'half', 'means', 'mod'].map((f) => join(FORMAT2, f));
+    await expectSameAsSonde(runDump('numpy', sources), sources, -1);
+  }, 60_000);
+
+  it('sonde_read refuses a compressed snapshot in one line naming the package and `sonde export` when the codec module is missing', () => {
+    const code = `import sys; sys.modules['zstandard'] = None\nimport sonde_read\nsonde_read.open(sys.argv[1]).activations(sys.argv[2])`;
+    const name = openSnapshot(join(dir, 'zstd')).manifest.layers[0]!.name;
+    const result = spawnSync(PYTHON, ['-c', code, join(dir, 'zstd'), name], { encoding: 'utf8', env: { ...process.env, PYTHONPATH: join(import.meta.dirname, '..', '..', 'tools', 'python') } });
+    expect(result.status).not.toBe(0);
+    expect(result.stderr).toMatch(/SondeReadError: .* is compressed with zstd, and Python module zstandard is not installed: install it \(Debian python3-zstandard\), or convert the snapshot with `sonde export`/);
+  });
+
+  it('sonde_read reads channel means from the means file without the layer file (format 3)', () => {
+    const copy = join(dir, 'means-only-read');
+    mkdirSync(copy);
+    const snap = openSnapshot(join(dir, 'zstd'));
+    const entry = snap.manifest.layers.find((l) => l.keep === 'full')!;
+    // the layer file is gone: channel means still read (and verified), activations refused
+    const code = `import sys, os, shutil\nimport sonde_read\nrec = sonde_read.open(sys.argv[1])\nos.rename(rec._file(rec.layer(sys.argv[2])), sys.argv[3])\ntry:\n  m = rec.channel_means(sys.argv[2]); print(m.shape)\nfinally:\n  os.rename(sys.argv[3], rec._file(rec.layer(sys.argv[2])))`;
+    const result = spawnSync(PYTHON, ['-c', code, join(dir, 'zstd'), entry.name, join(copy, 'moved.arrow')], { encoding: 'utf8', env: { ...process.env, PYTHONPATH: join(import.meta.dirname, '..', '..', 'tools', 'python') } });
+    expect(result.status, result.stderr).toBe(0);
+    expect(result.stdout.trim()).toBe(`(9, ${snap.layerGeometry(entry.name).channels})`);
+  });
 
   it('sonde_read refuses a layer file whose bytes differ from its manifest SHA-256, as Sonde does', async () => {
     const copy = join(dir, 'damaged');

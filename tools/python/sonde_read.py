@@ -15,8 +15,13 @@ its manifest (or export.json) lists before its values are returned (``verify="si
 
 Snapshot layer files are Arrow IPC files. Without pyarrow they are read by the small reader below, which
 understands exactly the columns Sonde writes (int32, float16/32/64, utf8, list, fixed-size list; no
-nulls, no compression, no dictionaries) -- Arrow columnar format specification, "IPC File Format" and
-"Buffer layout", with the flatbuffer schemas File.fbs, Message.fbs and Schema.fbs. ``engine="pyarrow"``
+nulls, no dictionaries) -- Arrow columnar format specification, "IPC File Format" and "Buffer layout",
+with the flatbuffer schemas File.fbs, Message.fbs and Schema.fbs. Compressed layer files (snapshot format
+3, ``record --compress lz4|zstd``: Arrow's buffer compression, "Compression" in the same specification)
+are read when the codec's module is installed -- ``lz4`` (Debian python3-lz4) for LZ4 frames,
+``zstandard`` (Debian python3-zstandard) for ZSTD -- and refused in one line otherwise (``sonde export``
+writes plain .npy files). Channel means of a format-3 snapshot come from the layer's own channel-means
+file (manifest ``means``), checked against its own size and SHA-256, without reading the activations. ``engine="pyarrow"``
 reads them with pyarrow instead; that path is NOT tested in Sonde's CI (pyarrow is not packaged for
 Debian 12). Exports are plain .npy files, memory-mapped by ``numpy.load(mmap_mode="r")``.
 
@@ -34,7 +39,7 @@ import numpy as np
 
 __all__ = ["open", "open_snapshot", "open_export", "read_arrow_file", "axis_names", "SondeReadError"]
 
-SNAPSHOT_FORMAT = 2
+SNAPSHOT_FORMATS = (2, 3)
 EXPORT_FORMAT = 1
 
 
@@ -149,8 +154,12 @@ def read_arrow_file(path, columns=None):
             if message.scalar(1, "<B") != _RECORD_BATCH:
                 raise SondeReadError(f"{path}: block {b} is not a record batch")
             header = message.table(2)
-            if header.table(3) is not None:
-                raise SondeReadError(f"{path}: record batch {b} is compressed (Sonde writes uncompressed files)")
+            compression = header.table(3)  # BodyCompression: codec (0 LZ4_FRAME, 1 ZSTD), method (0 BUFFER)
+            codec = None
+            if compression is not None:
+                codec = compression.scalar(0, "<b")
+                if compression.scalar(1, "<b") != 0 or codec not in _CODECS:
+                    raise SondeReadError(f"{path}: record batch {b} uses a compression this reader does not know (codec {codec})")
             rows = header.scalar(0, "<q")
             n_start, n_count = header.vector(1)
             nodes = iter([struct.unpack_from("<qq", header.buf, n_start + 16 * i) for i in range(n_count)])
@@ -158,10 +167,12 @@ def read_arrow_file(path, columns=None):
             buffers = iter([struct.unpack_from("<qq", header.buf, b_start + 16 * i) for i in range(b_count)])
             body_start = offset + meta_length
 
-            def fetch(at, length, body_start=body_start, body_length=body_length):
+            def fetch(at, length, body_start=body_start, body_length=body_length, codec=codec, b=b):
+                """The bytes of one body buffer (`length` as the message lists it), decompressed when the batch is."""
                 if at < 0 or at + length > body_length:
                     raise SondeReadError(f"{path}: a buffer of record batch {b} lies outside its body")
-                return _read_exact(f, body_start + at, length, path)
+                data = _read_exact(f, body_start + at, length, path)
+                return _decompress(data, codec, path, b) if codec is not None else data
 
             batch = {}
             for field in fields:
@@ -172,6 +183,34 @@ def read_arrow_file(path, columns=None):
             batch["__rows__"] = rows
             batches.append(batch)
     return fields, batches
+
+
+# BodyCompression codecs (Message.fbs CompressionType) -> (name, Python module, Debian package)
+_CODECS = {0: ("lz4", "lz4.frame", "python3-lz4"), 1: ("zstd", "zstandard", "python3-zstandard")}
+
+
+def _decompress(data, codec, path, batch):
+    """One buffer of a compressed batch: int64 uncompressed length (-1: stored as is), then the codec's frame."""
+    if len(data) == 0:
+        return data
+    if len(data) < 8:
+        raise SondeReadError(f"{path}: a compressed buffer of record batch {batch} has no room for its length prefix")
+    length = struct.unpack_from("<q", data, 0)[0]
+    if length == -1:
+        return data[8:]
+    name, module, package = _CODECS[codec]
+    try:
+        if codec == 0:
+            import lz4.frame
+            out = lz4.frame.decompress(data[8:])
+        else:
+            import zstandard
+            out = zstandard.ZstdDecompressor().decompress(data[8:], max_output_size=length)
+    except ImportError:
+        raise SondeReadError(f"{path} is compressed with {name}, and Python module {module} is not installed: install it (Debian {package}), or convert the snapshot with `sonde export`") from None
+    if len(out) != length:
+        raise SondeReadError(f"{path}: a {name} buffer of record batch {batch} decompressed to {len(out)} bytes, its prefix says {length}")
+    return out
 
 
 # buffers per field after the validity bitmap (Arrow columnar format, "Buffer layout"); children follow
@@ -198,9 +237,10 @@ def _decode(field, nodes, buffers, fetch, path):
     def values(dtype, count):
         offset, size = next(buffers)
         item = np.dtype(dtype).itemsize
-        if count * item > size:
-            raise SondeReadError(f"{path}: column {field.name!r} holds {size} bytes, fewer than {count} values")
-        return np.frombuffer(fetch(offset, count * item), dtype=dtype, count=count)
+        data = fetch(offset, size)
+        if count * item > len(data):
+            raise SondeReadError(f"{path}: column {field.name!r} holds {len(data)} bytes, fewer than {count} values")
+        return np.frombuffer(data, dtype=dtype, count=count)
 
     if t == _INT:
         width, signed = field.type.scalar(0, "<i"), field.type.scalar(1, "<?", False)
@@ -210,9 +250,9 @@ def _decode(field, nodes, buffers, fetch, path):
     if t == _UTF8:
         offsets = values("<i4", length + 1)
         data_offset, data_size = next(buffers)
-        if length and (int(offsets[0]) < 0 or int(offsets[-1]) > data_size or np.any(np.diff(offsets) < 0)):
+        data = fetch(data_offset, data_size) if length else b""
+        if length and (int(offsets[0]) < 0 or int(offsets[-1]) > len(data) or np.any(np.diff(offsets) < 0)):
             raise SondeReadError(f"{path}: column {field.name!r} has offsets outside its data")
-        data = fetch(data_offset, int(offsets[-1])) if length else b""
         return [data[offsets[i]:offsets[i + 1]].decode("utf-8") for i in range(length)]
     if t == _LIST:
         offsets = values("<i4", length + 1)
@@ -351,8 +391,8 @@ class Snapshot(_Recording):
             raise SondeReadError(f"{folder} is not a snapshot (no manifest.json)")
         with builtins.open(path, "rb") as f:
             self.manifest = json.loads(f.read().decode("utf-8"))
-        if self.manifest.get("format") != SNAPSHOT_FORMAT:
-            raise SondeReadError(f"{path} has format {self.manifest.get('format')!r}; this reader reads format {SNAPSHOT_FORMAT}")
+        if self.manifest.get("format") not in SNAPSHOT_FORMATS:
+            raise SondeReadError(f"{path} has format {self.manifest.get('format')!r}; this reader reads formats {' and '.join(map(str, SNAPSHOT_FORMATS))}")
         if not self.manifest.get("complete"):
             raise SondeReadError(f"snapshot {folder} is incomplete (the recording did not finish)")
         baseline = self.manifest.get("baseline")
@@ -391,7 +431,13 @@ class Snapshot(_Recording):
     def _columns(self, name, want_activation):
         layer = self.layer(name)
         path = self._file(layer)
-        _check_file(path, layer.get("bytes"), layer.get("sha256"), self.verify, f"layer file of {name!r}:")
+        means_file = layer.get("means")
+        if not want_activation and means_file:
+            # format 3: the layer's channel-means file, checked on its own; the activations are not read
+            path = self._file(dict(layer, file=means_file["file"]))
+            _check_file(path, means_file.get("bytes"), means_file.get("sha256"), self.verify, f"channel-means file of {name!r}:")
+        else:
+            _check_file(path, layer.get("bytes"), layer.get("sha256"), self.verify, f"layer file of {name!r}:")
         wanted = ["index", "channel_mean"] + (["activation"] if want_activation else [])
         batches = _read_layer_pyarrow(path) if self.engine == "pyarrow" else read_arrow_file(path, columns=wanted)[1]
         n = len(self.stimuli["id"])
