@@ -265,7 +265,7 @@ class Resolver {
   heads(m: Modulation, shape: SiteShape): number {
     const given = m.headCount ?? shape.heads;
     if (given === undefined) {
-      this.fail('per', `is head, but the number of heads of ${JSON.stringify(m.site)} is not known from the model; give it with headCount: H (H divides its ${shape.features} features)`);
+      this.fail('per', `is head, but the number of heads of ${JSON.stringify(m.site)} is not known from the model; give it with headCount: H (H divides its ${shape.features} features)`, 'heads are separate features only before the attention output projection (in torchvision exports: the tensor its Gemm/MatMul reads, listed by `sonde layers --skipped`)');
     }
     if (shape.features % given !== 0) {
       this.fail(m.headCount !== undefined ? 'headCount' : 'per', `${m.headCount !== undefined ? `is ${given}` : `is head with the model's ${given} heads`}, which does not divide the ${shape.features} features of ${JSON.stringify(m.site)}; give a head count that does`);

@@ -3,9 +3,10 @@
  * recordable tensor with a feature axis (feature maps, vectors, token tensors, along its layout), and
  * the float tensors whose first axis is not the batch (torchvision's attention output before the output
  * projection is [T·N, D], batch and tokens merged), which take one gain shared by every stimulus.
- * Heads of a multi-head tensor come from its layout or, failing that, from the graph: the nearest
- * attention-weighted values (a MatMul reading a Softmax) upstream through Reshape/Transpose hold
- * d = D / H features per head.
+ * Heads of a multi-head tensor come from the graph: the nearest attention-weighted values (a MatMul
+ * reading a Softmax) upstream through Reshape/Transpose hold d = D / H features per head. A head count
+ * a layout inferred for a tensor after the output projection (which mixes the heads) is dropped; one
+ * declared in the sidecar is kept.
  */
 import type { TensorLayout } from '../graph/layout.js';
 import type { GraphStructure } from '../graph/structure.js';
@@ -44,9 +45,15 @@ export function siteShapes(layers: readonly LayerInfo[]): Map<string, SiteShape>
 export function modulationSites(inspection: ModelInspection): Map<string, SiteShape> {
   const sites = siteShapes(inspection.layers);
   for (const [name, shape] of sites) {
-    if (shape.heads !== undefined || shape.layout.kind !== 'tokens') continue;
+    if (shape.layout.kind !== 'tokens' || shape.layout.source === 'sidecar') continue;
+    // heads are separate features only up to the attention's output projection, which mixes them: a
+    // head count the graph does not trace back to the attention-weighted values is not used for gains
     const heads = headsFromGraph(inspection.structure, inspection.probed, name, shape.features);
     if (heads !== null) sites.set(name, { ...shape, heads });
+    else if (shape.heads !== undefined) {
+      const { heads: _mixed, ...rest } = shape;
+      sites.set(name, rest);
+    }
   }
   for (const skipped of inspection.skippedTensors) {
     // only tensors skipped for where their batch axis is (not constants, not integer shape arithmetic)

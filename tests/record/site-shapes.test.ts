@@ -28,4 +28,11 @@ describe('modulationSites', () => {
     expect(headsFromGraph(inspection.structure, inspection.probed, ATTENTION1, 16)).toBe(2);
     expect(headsFromGraph(inspection.structure, inspection.probed, BLOCK0, 16)).toBeNull();
   });
+
+  it('modulationSites(vit) gives no heads to the attention output after the output projection, which mixes them, whatever its layout says', async () => {
+    const inspection = await inspectModel(MODEL);
+    const mixed = '/encoder/layers/encoder_layer_0/self_attention/Transpose_5_output_0';
+    expect(modulationSites(inspection).get(mixed)).toMatchObject({ features: 16, positions: 17 });
+    expect(modulationSites(inspection).get(mixed)!.heads).toBeUndefined();
+  });
 });
