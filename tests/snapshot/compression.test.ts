@@ -1,0 +1,189 @@
+/**
+ * Compressed layer files (src/snapshot/compression.ts) against outside references:
+ * - the body layout of a compressed record batch follows the Arrow columnar format specification
+ *   ("Compression" under "IPC Format"; Message.fbs BodyCompression): each non-empty buffer is its
+ *   uncompressed length as a little-endian int64 and then one codec frame, −1 when stored as is, empty
+ *   buffers empty, regions 8-byte aligned;
+ * - every frame decompresses with independent codec implementations: Debian's python3-lz4 (LZ4 frame
+ *   format, liblz4) and python3-zstandard (libzstd) — and frames they write decode with Sonde's reader;
+ * - recorded files read by nodejs-polars (the Rust Arrow IPC reader, an independent implementation)
+ *   hold the same values as an uncompressed recording, and Sonde's reader hands out the same bits.
+ * Python checks are skipped, saying why, where /usr/bin/python3 lacks the codec modules (`.ci/run`
+ * installs python3-lz4 and python3-zstandard).
+ */
+import { spawnSync } from 'node:child_process';
+import { readFileSync, statSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import pl from 'nodejs-polars';
+import { beforeAll, describe, expect, it } from 'vitest';
+import { recordSnapshot } from '../../src/record/record-snapshot.js';
+import { LayerBlockFile } from '../../src/snapshot/block-reader.js';
+import { compressBodyBuffers, decodeBuffer, decodeBufferSync, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
+import { openSnapshot } from '../../src/snapshot/snapshot.js';
+import { createRandom } from '../../src/random.js';
+import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+
+const PYTHON = '/usr/bin/python3';
+const hasCodecs = spawnSync(PYTHON, ['-c', 'import lz4.frame, zstandard'], { encoding: 'utf8' }).status === 0;
+if (!hasCodecs) console.warn(`compression tests against python3-lz4/python3-zstandard skipped: ${PYTHON} lacks them (apt-get install python3-lz4 python3-zstandard)`);
+
+/** Runs Python on stdin bytes; `mode` c/d, codec lz4/zstd. Returns stdout bytes. */
+function python(mode: 'compress' | 'decompress', codec: 'lz4' | 'zstd', input: Uint8Array): Buffer {
+  const code = [
+    'import sys, lz4.frame, zstandard',
+    'data = sys.stdin.buffer.read()',
+    `mode, codec = ${JSON.stringify(mode)}, ${JSON.stringify(codec)}`,
+    'if codec == "lz4": out = lz4.frame.compress(data) if mode == "compress" else lz4.frame.decompress(data)',
+    // a frame need not carry its content size (Sonde's writer leaves it out; the Arrow prefix has it)
+    'else: out = zstandard.ZstdCompressor(level=3).compress(data) if mode == "compress" else zstandard.ZstdDecompressor().decompress(data, max_output_size=1 << 28)',
+    'sys.stdout.buffer.write(out)',
+  ].join('\n');
+  const result = spawnSync(PYTHON, ['-c', code], { input, maxBuffer: 1 << 28 });
+  expect(result.status, String(result.stderr)).toBe(0);
+  return result.stdout;
+}
+
+/** ReLU-like float32 values: about half exact zeros, the rest positive with full mantissas. */
+function reluValues(count: number, seed: number): Float32Array {
+  const rng = createRandom(seed);
+  return new Float32Array(count).map(() => Math.max(0, rng.normal()));
+}
+
+const bytesOf = (a: ArrayBufferView) => new Uint8Array(a.buffer, a.byteOffset, a.byteLength);
+
+describe('compressBodyBuffers', () => {
+  for (const codec of ['lz4', 'zstd'] as const) {
+    it(`compressBodyBuffers(${codec}) lays out prefix + frame per buffer, −1 for bytes kept as they are, empty buffers empty, regions aligned to 8 (Arrow IPC compression)`, () => {
+      const relu = reluValues(5000, 1);
+      const index = Int32Array.from({ length: 37 }, (_, i) => i + 100);
+      const rng = createRandom(9);
+      const noise = new Uint8Array(3001).map(() => Math.floor(rng.uniform() * 256));
+      const buffers = [new Uint8Array(0), index, new Uint8Array(0), relu, noise];
+      const body = compressBodyBuffers(codec, buffers);
+      expect(body.bufferRegions).toHaveLength(buffers.length);
+      expect(body.buffers).toHaveLength(2 * buffers.length); // [prefix, data] pairs, as apache-arrow's writer writes them
+      let end = 0;
+      body.bufferRegions.forEach((region, i) => {
+        const prefix = body.buffers[2 * i]!;
+        const data = body.buffers[2 * i + 1]!;
+        if (buffers[i]!.byteLength === 0) {
+          expect(region.length).toBe(0);
+          expect(prefix.byteLength + data.byteLength).toBe(0);
+          return;
+        }
+        expect(region.offset % 8).toBe(0);
+        expect(region.offset).toBeGreaterThanOrEqual(end);
+        expect(region.length).toBe(8 + data.byteLength);
+        end = region.offset + region.length;
+        const length = new DataView(prefix.buffer, prefix.byteOffset, 8).getBigInt64(0, true);
+        if (length === -1n) {
+          // stored as it is: the bytes themselves
+          expect(Buffer.compare(bytesOf(data), bytesOf(buffers[i]!))).toBe(0);
+        } else {
+          expect(length).toBe(BigInt(buffers[i]!.byteLength)); // the UNcompressed length
+          expect(data.byteLength).toBeLessThan(buffers[i]!.byteLength);
+        }
+        // ReLU values compress; uniformly random bytes do not and are stored behind −1
+        if (i === 3) expect(length).toBe(BigInt(relu.byteLength));
+        if (i === 4) expect(length).toBe(-1n);
+        // the region, prefix included, decodes to the original bytes
+        const region8 = new Uint8Array(8 + data.byteLength);
+        region8.set(bytesOf(prefix), 0);
+        region8.set(bytesOf(data), 8);
+        expect(Buffer.compare(decodeBufferSync(codec, region8), bytesOf(buffers[i]!))).toBe(0);
+      });
+      expect(body.byteLength % 8).toBe(0);
+      expect(body.byteLength).toBeGreaterThanOrEqual(end);
+    });
+
+    it.skipIf(!hasCodecs)(`compressBodyBuffers(${codec}) frames decompress with ${codec === 'lz4' ? 'python3-lz4' : 'python3-zstandard'}, and its frames decode with decodeBuffer`, async () => {
+      const relu = reluValues(20000, 2);
+      const body = compressBodyBuffers(codec, [relu]);
+      const frame = bytesOf(body.buffers[1]!);
+      expect(Buffer.compare(python('decompress', codec, frame), bytesOf(relu))).toBe(0);
+      const theirs = python('compress', codec, bytesOf(relu));
+      const region = new Uint8Array(8 + theirs.byteLength);
+      new DataView(region.buffer).setBigInt64(0, BigInt(relu.byteLength), true);
+      region.set(theirs, 8);
+      expect(Buffer.compare(await decodeBuffer(codec, region), bytesOf(relu))).toBe(0);
+      expect(Buffer.compare(decodeBufferSync(codec, region), bytesOf(relu))).toBe(0);
+    });
+  }
+
+  it('decodeBuffer refuses a frame whose length differs from its prefix, and a region too short for a prefix', async () => {
+    const relu = reluValues(1000, 3);
+    const body = compressBodyBuffers('zstd', [relu]);
+    const region = new Uint8Array(8 + body.buffers[1]!.byteLength);
+    region.set(bytesOf(body.buffers[1]!), 8);
+    new DataView(region.buffer).setBigInt64(0, 3999n, true);
+    await expect(decodeBuffer('zstd', region)).rejects.toThrow(/decompressed to 4000 bytes, its prefix says 3999/);
+    expect(() => decodeBufferSync('zstd', new Uint8Array(5))).toThrow(/no room for its length prefix/);
+  });
+});
+
+describe('parseCompression', () => {
+  it('parseCompression accepts none, lz4 and zstd and names the choices otherwise', () => {
+    expect(['none', 'lz4', 'zstd'].map((v) => parseCompression(v))).toEqual(['none', 'lz4', 'zstd']);
+    expect(() => parseCompression('gzip')).toThrow(/--compress must be one of none, lz4, zstd, got "gzip"/);
+  });
+});
+
+describe('recordSnapshot with compression', () => {
+  let dir: string;
+  const codecs: LayerCompression[] = ['none', 'lz4', 'zstd'];
+  beforeAll(async () => {
+    dir = tempFolder('sonde-compress-');
+    const model = join(dir, 'net.onnx');
+    writeFileSync(model, buildTinyNet({ bias: true, seed: 4, widths: [8, 8, 8] }));
+    const stim = writeStimuliNpy(dir, [12, 3, 16, 16], 5);
+    for (const compress of codecs) {
+      await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, compress), layers: 'all', batch: 5, threads: 1, compress });
+      await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, `${compress}-f16`), layers: 'op:Relu', batch: 5, threads: 1, compress, dtype: 'float16' });
+    }
+  }, 60_000);
+
+  it('recordSnapshot(compress) stores every batch with the codec the manifest names, and the reader hands out the same bits as an uncompressed recording', async () => {
+    for (const suffix of ['', '-f16']) {
+      const plain = openSnapshot(join(dir, `none${suffix}`));
+      for (const codec of ['lz4', 'zstd'] as const) {
+        const snap = openSnapshot(join(dir, `${codec}${suffix}`));
+        for (const entry of snap.manifest.layers) {
+          expect(entry.compression).toBe(codec);
+          const file = LayerBlockFile.open(join(snap.folder, entry.file))!;
+          for (let b = 0; b < file.count; b++) expect(file.compressionOf(b)).toBe(codec);
+          file.close();
+          const read = async (s: typeof snap) => {
+            const parts: Buffer[] = [];
+            for await (const batch of s.readLayer(entry.name, { raw: true })) {
+              parts.push(Buffer.from(bytesOf(batch.activationFloat16 ?? batch.activation!)), Buffer.from(bytesOf(batch.channelMeans)), Buffer.from(bytesOf(batch.index)));
+            }
+            return Buffer.concat(parts);
+          };
+          expect(Buffer.compare(await read(snap), await read(plain)), `${codec}${suffix} ${entry.name}`).toBe(0);
+        }
+      }
+      expect(plain.manifest.layers.every((l) => l.compression === undefined)).toBe(true);
+    }
+  });
+
+  it('recordSnapshot(compress) files are read by nodejs-polars with the values of the uncompressed files', () => {
+    for (const codec of ['lz4', 'zstd'] as const) {
+      const snap = openSnapshot(join(dir, codec));
+      for (const entry of snap.manifest.layers) {
+        const theirs = pl.readIPC(readFileSync(join(snap.folder, entry.file)));
+        const plain = pl.readIPC(readFileSync(join(dir, 'none', entry.file)));
+        expect(theirs.columns).toEqual(['index', 'channel_mean', 'activation']);
+        expect(theirs.height).toBe(12);
+        expect(theirs.frameEqual(plain), `${codec} ${entry.name}`).toBe(true);
+      }
+    }
+  });
+
+  it('recordSnapshot(compress) makes ReLU layer files smaller than uncompressed ones with both codecs (common practice: a large share of a ReLU map is exact zeros; sizes on real networks are in the benchmark)', () => {
+    const snap = openSnapshot(join(dir, 'none'));
+    for (const entry of snap.manifest.layers.filter((l) => l.op === 'Relu')) {
+      const plain = statSync(join(dir, 'none', entry.file)).size;
+      for (const codec of ['lz4', 'zstd']) expect(statSync(join(dir, codec, entry.file)).size, `${codec} ${entry.name}`).toBeLessThan(plain);
+    }
+  });
+});
