@@ -6,7 +6,8 @@
 import { UsageError } from '../errors.js';
 import { LayerDiffAccumulator } from '../analysis/layer-diff.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
-import type { ManifestLayer } from '../snapshot/manifest.js';
+import { layerLayout, type ManifestLayer } from '../snapshot/manifest.js';
+import { featureFirstOrder, layoutGeometry } from '../graph/layout.js';
 import { alignBatches } from './align-batches.js';
 import { parseDetectionTask, type CollectedTask } from './diff-task.js';
 import { categoryReadout, type CategoryReadout } from './category-readout.js';
@@ -159,16 +160,25 @@ async function accumulateLayer(base: Snapshot, mod: Snapshot, entry: ManifestLay
   const accumulator = new LayerDiffAccumulator({ elements: width, channels: geometry.channels, spatial, tolerance, layer: entry.name, expectedStimuli: expected, keepChannelMeans: keepMeans });
   const read = { activation: full, reuse: true, ...(range ? { range } : {}) };
   const sameFile = modEntry.from === 'baseline' && entry.sha256 !== undefined && modEntry.sha256 === entry.sha256;
+  // the accumulator reads each channel as one run: tokens and channels-last rows are put in that order first
+  const layout = layoutGeometry(entry.shape, layerLayout(entry));
+  const reorder = full && layout.outer > 1;
+  const scratch = [new Float32Array(0), new Float32Array(0)];
+  const ordered = (values: Float32Array, rows: number, side: 0 | 1): Float32Array => {
+    if (!reorder) return values;
+    if (scratch[side]!.length < rows * width) scratch[side] = new Float32Array(rows * width);
+    return featureFirstOrder(values, rows, layout, scratch[side]!.subarray(0, rows * width));
+  };
   if (sameFile) {
     // identical bytes: read once and compare the data with itself
     for await (const batch of base.readLayer(entry.name, read)) {
-      const values = full ? batch.activation! : batch.channelMeans;
+      const values = ordered(full ? batch.activation! : batch.channelMeans, batch.rows, 0);
       accumulator.add(values, values, batch.rows);
     }
   } else {
     const left = base.readLayer(entry.name, read);
     const right = mod.readLayer(entry.name, read);
-    for await (const part of alignBatches(left, right, width, geometry.channels, entry.name)) accumulator.add(part.a, part.b, part.rows);
+    for await (const part of alignBatches(left, right, width, geometry.channels, entry.name)) accumulator.add(ordered(part.a, part.rows, 0), ordered(part.b, part.rows, 1), part.rows);
   }
   return accumulator;
 }

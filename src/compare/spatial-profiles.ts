@@ -7,6 +7,7 @@
  */
 import { SpatialProfileAccumulator, type SpatialRing } from '../analysis/spatial-profile.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
+import { layerLayout } from '../snapshot/manifest.js';
 
 /** A window as the manifest records it (map-relative units). */
 export type WindowRecord = { shape: 'box'; x0: number; x1: number; y0: number; y1: number } | { shape: 'gaussian'; cx: number; cy: number; sigma: number };
@@ -65,7 +66,7 @@ export async function windowSpatialProfiles(base: Snapshot, mod: Snapshot, optio
   const siteEntry = base.manifest.layers.find((l) => l.name === site);
   if (!siteEntry) return null;
   const centre = window.shape === 'box' ? { x: (window.x0 + window.x1) / 2, y: (window.y0 + window.y1) / 2 } : { x: window.cx, y: window.cy };
-  const spatialLayers = base.manifest.layers.filter((l) => l.depth >= siteEntry.depth && l.keep === 'full' && l.shape.length === 3 && l.shape[1]! * l.shape[2]! > 1).slice(0, options.layers ?? 12);
+  const spatialLayers = base.manifest.layers.filter((l) => l.depth >= siteEntry.depth && l.keep === 'full' && l.shape.length === 3 && l.shape[1]! * l.shape[2]! > 1 && isChannelsFirst(l)).slice(0, options.layers ?? 12);
   const outer = Math.hypot(Math.max(centre.x, 1 - centre.x), Math.max(centre.y, 1 - centre.y));
   const layers: LayerSpatialProfile[] = [];
   for (const layer of spatialLayers) {
@@ -88,4 +89,10 @@ export async function windowSpatialProfiles(base: Snapshot, mod: Snapshot, optio
     layers.push({ layer: layer.name, stimuli: used, rings: accumulator.result() });
   }
   return { site, window, centre, layers };
+}
+
+/** Maps with features on axis 0 ([C, H, W]): the layout the ring kernel reads (token and channels-last layers are left out). */
+function isChannelsFirst(entry: Parameters<typeof layerLayout>[0]): boolean {
+  const layout = layerLayout(entry);
+  return layout.kind === 'channels-first' && layout.featureAxis === 0;
 }

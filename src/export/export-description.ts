@@ -4,6 +4,7 @@
  * (`tools/python/sonde_read.py` does it for NumPy and xarray).
  */
 import type { ActivationDtype, KeepMode, SnapshotManifest } from '../snapshot/manifest.js';
+import type { TensorLayout } from '../graph/layout.js';
 
 /** Version of the `export.json` layout written by this build; readers refuse versions they do not know. */
 export const EXPORT_FORMAT = 1;
@@ -34,8 +35,10 @@ export interface ExportLayer {
   shape: number[];
   /** Axis names of the activation array, stimulus first (see `axisNames`). */
   dims: string[];
-  /** Channels: the first per-stimulus axis (what channel means average over the others of). */
+  /** Channels (features) along the layout's feature axis (`layout`): what channel means keep, averaged over the other axes. */
   channels: number;
+  /** The layer's layout (feature axis, token grid, heads); absent for snapshots recorded before layouts (features on the first axis). */
+  layout?: TensorLayout;
   /** Storage type of the activations in the snapshot (the `.npy` file's own is `activation.dtype`; `--float32` widens float16). */
   dtype: ActivationDtype;
   keep: KeepMode;
@@ -72,13 +75,17 @@ export interface ExportDescription {
 }
 
 /**
- * Axis names of a layer's activation array, stimulus axis first. The first per-stimulus axis is Sonde's
- * channel axis (the one channel means keep; for a token tensor [T, D] that is the token axis). A
- * three-axis tensor is read as channel × y × x (ONNX's NCHW for feature maps, common practice); other
- * axes are named by position.
+ * Axis names of a layer's activation array, stimulus axis first, from the layer's layout
+ * (src/graph/layout.ts): token × feature for tokens [T, D], y × x × channel for channels-last maps, `head`
+ * on the heads axis of attention internals; otherwise the first per-stimulus axis is the channel axis and
+ * a three-axis tensor is channel × y × x (ONNX's NCHW for feature maps, common practice); other axes are
+ * named by position. Channel means keep the feature axis.
  */
-export function axisNames(rank: number): string[] {
+export function axisNames(rank: number, layout?: TensorLayout): string[] {
   if (rank === 0) return ['stimulus'];
+  if (layout?.kind === 'tokens' && rank === 2) return ['stimulus', 'token', 'feature'];
+  if (layout?.kind === 'channels-last' && rank === 3 && layout.featureAxis === 2) return ['stimulus', 'y', 'x', 'channel'];
+  if (layout?.kind === 'heads' && layout.featureAxis !== null) return ['stimulus', ...Array.from({ length: rank }, (_, k) => (k === layout.featureAxis ? 'head' : `axis${k + 1}`))];
   if (rank === 3) return ['stimulus', 'channel', 'y', 'x'];
   return ['stimulus', 'channel', ...Array.from({ length: rank - 1 }, (_, k) => `axis${k + 2}`)];
 }

@@ -17,7 +17,7 @@ import { selectLayers } from '../graph/select.js';
 import { formatNpyHeader } from '../stimuli/npy.js';
 import { HashingFileSink } from '../snapshot/arrow-sink.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
-import type { ManifestLayer } from '../snapshot/manifest.js';
+import { layerLayout, type ManifestLayer } from '../snapshot/manifest.js';
 import { assertApartFromInputs, slugify } from '../outputs/output-folder.js';
 import { assertExportFolderUsable, EXPORT_FILE, prepareExportFolder } from '../outputs/export-folder.js';
 import { axisNames, EXPORT_FORMAT, type ExportArrayFile, type ExportDescription, type ExportLayer } from './export-description.js';
@@ -155,7 +155,8 @@ async function exportLayer(snapshot: Snapshot, entry: ManifestLayer, folder: str
       depth: entry.depth,
       ...(entry.weightDepth !== undefined ? { weightDepth: entry.weightDepth } : {}),
       shape: entry.shape,
-      dims: axisNames(entry.shape.length),
+      dims: axisNames(entry.shape.length, layerLayout(entry)),
+      ...(entry.layout ? { layout: entry.layout } : {}),
       channels,
       dtype: entry.dtype,
       keep: entry.keep,

@@ -145,6 +145,30 @@ export function featureMeans(data: Float32Array, rows: number, g: LayoutGeometry
   return out;
 }
 
+/**
+ * Reorders rows so that each feature's positions are contiguous (channels-first order), for kernels that
+ * read a feature as one run: out[r·E + (f·O + o)·I + i] = data[r·E + (o·F + f)·I + i], E = O·F·I. With
+ * O = 1 the order is already that and `data` is returned as it is (no copy).
+ */
+export function featureFirstOrder(data: Float32Array, rows: number, g: LayoutGeometry, out?: Float32Array): Float32Array {
+  const { outer, features, inner } = g;
+  if (outer === 1) return data;
+  const per = outer * features * inner;
+  const target = out ?? new Float32Array(rows * per);
+  for (let r = 0; r < rows; r++) {
+    const base = r * per;
+    // source [o][f][i] → target [f][o][i]
+    for (let o = 0; o < outer; o++) {
+      for (let f = 0; f < features; f++) {
+        const from = base + (o * features + f) * inner;
+        const to = base + (f * outer + o) * inner;
+        for (let i = 0; i < inner; i++) target[to + i] = data[from + i]!;
+      }
+    }
+  }
+  return target;
+}
+
 /** Words for a layout in listings, e.g. "tokens 197×768 (1+14×14, features last)". */
 export function describeLayout(shape: readonly number[], layout?: TensorLayout | null): string {
   const l = layout ?? layoutFromShape(shape);

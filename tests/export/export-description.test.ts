@@ -25,4 +25,10 @@ describe('axisNames', () => {
       expect([10, ...shape][names.indexOf('channel')]).toBe(channelCount(shape));
     }
   });
+  it('axisNames follows the layout: token × feature, y × x × channel for NHWC, head on the heads axis', () => {
+    expect(axisNames(2, { kind: 'tokens', featureAxis: 1, source: 'graph' })).toEqual(['stimulus', 'token', 'feature']);
+    expect(axisNames(3, { kind: 'channels-last', featureAxis: 2, source: 'graph' })).toEqual(['stimulus', 'y', 'x', 'channel']);
+    expect(axisNames(3, { kind: 'heads', featureAxis: 0, source: 'graph' })).toEqual(['stimulus', 'head', 'axis2', 'axis3']);
+    expect(axisNames(3, { kind: 'channels-first', featureAxis: 0, source: 'graph' })).toEqual(['stimulus', 'channel', 'y', 'x']);
+  });
 });

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { featureMeans, inferTokenGrid, layoutFromShape, layoutGeometry, spatialGrid } from '../../src/graph/layout.js';
+import { featureFirstOrder, featureMeans, inferTokenGrid, layoutFromShape, layoutGeometry, spatialGrid } from '../../src/graph/layout.js';
 
 // Exact arithmetic properties of the index rule element = (o·F + f)·I + i (no outside source needed:
 // the means are of small integers, exact in float32).
@@ -27,5 +27,12 @@ describe('tensor layouts', () => {
     expect(inferTokenGrid(17)).toEqual({ prefix: 1, height: 4, width: 4 });
     expect(inferTokenGrid(3)).toBeNull();
     expect(spatialGrid([64, 8, 8])).toEqual({ prefix: 0, height: 8, width: 8 });
+  });
+  it('featureFirstOrder puts each feature\'s positions in one run and leaves channels-first rows as they are', () => {
+    const tokens = new Float32Array([1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12]); // 2 rows of T = 2, D = 3: [t][f]
+    const g = layoutGeometry([2, 3], { kind: 'tokens', featureAxis: 1, source: 'graph' });
+    expect(Array.from(featureFirstOrder(tokens, 2, g))).toEqual([1, 4, 2, 5, 3, 6, 7, 10, 8, 11, 9, 12]);
+    const maps = new Float32Array([1, 2, 3, 4]);
+    expect(featureFirstOrder(maps, 1, layoutGeometry([2, 2]))).toBe(maps);
   });
 });

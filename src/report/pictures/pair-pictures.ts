@@ -20,6 +20,7 @@ import { windowSpatialProfiles } from '../../compare/spatial-profiles.js';
 import { rocAuc } from '../../stats/roc.js';
 import { openSnapshot, type Snapshot } from '../../snapshot/snapshot.js';
 import { readTuningTable } from '../../snapshot/tables.js';
+import { layerLayout, type ManifestLayer } from '../../snapshot/manifest.js';
 import { readNpyHeader } from '../../stimuli/npy.js';
 import { closeSync, openSync, readSync } from 'node:fs';
 import type { Outline } from './raster.js';
@@ -64,8 +65,11 @@ function outlineOf(window: ModulationRecord['window']): Outline | null {
   return null;
 }
 
-/** The spatial size of a per-stimulus shape [C, H, W], or null for vectors. */
-function spatial(shape: readonly number[]): { channels: number; height: number; width: number } | null {
+/** The spatial size of a channels-first map [C, H, W], or null for vectors, tokens and other layouts. */
+function spatial(entry: Pick<ManifestLayer, 'shape' | 'layout'>): { channels: number; height: number; width: number } | null {
+  const { shape } = entry;
+  const layout = layerLayout(entry);
+  if (layout.kind !== 'channels-first' || layout.featureAxis !== 0) return null;
   return shape.length === 3 && shape[1]! * shape[2]! > 1 ? { channels: shape[0]!, height: shape[1]!, width: shape[2]! } : null;
 }
 
@@ -136,11 +140,11 @@ export async function pairPictureData(options: PairPictureOptions): Promise<Pair
 
   // feature maps of one stimulus at the site and the deepest spatial layer below it
   const chosen = options.stimulus ?? Math.max(0, target ? labels.findIndex((l) => l.includes(target)) : 0);
-  const mapLayers = below.filter((l) => spatial(l.shape) && l.keep === 'full');
+  const mapLayers = below.filter((l) => spatial(l) && l.keep === 'full');
   const shownLayers = [...new Set([mapLayers[0], mapLayers[mapLayers.length - 1]].filter((l) => l !== undefined))];
   const featureMaps: PairPictureData['featureMaps'] = [];
   for (const layer of shownLayers) {
-    const geometry = spatial(layer.shape)!;
+    const geometry = spatial(layer)!;
     const a = await stimulusActivation(base, layer.name, base.firstIndex + chosen);
     const b = await stimulusActivation(mod, layer.name, mod.firstIndex + chosen);
     if (!a || !b) continue;
