@@ -41,7 +41,8 @@ interface GradientStats {
 
 /**
  * Streams the stimuli of `run` (those with a weight for some category) through the gradient graph in
- * groups of ⌊batch / K⌋ (at least one) and hands each run's rows to `visit`.
+ * groups of ⌊batch / K⌋ (at least one; fewer, down to one stimulus with the categories in chunks, where
+ * a run would hold more than `run.runBytes`) and hands each group's rows, all K categories, to `visit`.
  */
 async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void): Promise<GradientStats> {
   const { site, tail, layer, readout, weights, kind } = run;
@@ -49,14 +50,17 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
   const { features: C, featureAxis } = siteGeometryOf(layer);
   const K = readout.categories.length;
   const Kout = run.byName.get(readout.tensor)!.elements;
-  const graph = buildGradientGraph({ tail: tail.model, site, readout: readout.tensor, copies: K, probed: run.inspection.probed, modelName: run.model.fileName, featureAxis: featureAxis + 1 });
   const boundary = tail.boundary;
   const boundaryShapes = boundary.map((name) => (name === run.model.input.name ? run.inspection.input.shape.slice(1) : run.byName.get(name)!.shape));
   const perRow = boundaryShapes.map((shape) => shape.reduce((a, b) => a * b, 1));
-  // stimuli per run: ⌊batch / K⌋, fewer where the forward tensors kept for the backward pass would exceed runBytes
+  // Rows per run within runBytes (every forward tensor is kept for the backward pass): ⌊batch / K⌋
+  // stimuli with all K categories, fewer stimuli where that exceeds the budget, and where even one
+  // stimulus with K categories does, one stimulus with the categories in chunks of Kc per run.
   const rowBytes = runRowBytes(tail.model, (name) => tensorElements(run, name), { fed: boundary, fetched: [readout.tensor], backward: true });
-  const group = rowsWithin(run.runBytes, K * rowBytes, Math.max(1, Math.floor(run.batch / K)));
-  const feedNames = boundary.map((name) => (K === 1 ? name : `${name}::once`));
+  const Kc = Math.min(K, rowsWithin(run.runBytes, rowBytes, K));
+  const group = Kc < K ? 1 : rowsWithin(run.runBytes, K * rowBytes, Math.max(1, Math.floor(run.batch / K)));
+  const graph = buildGradientGraph({ tail: tail.model, site, readout: readout.tensor, copies: Kc, probed: run.inspection.probed, modelName: run.model.fileName, featureAxis: featureAxis + 1 });
+  const feedNames = boundary.map((name) => (Kc === 1 ? name : `${name}::once`));
   const output = kind === 'gain' ? graph.gain : graph.offset;
   const N = weights.weights.length / K;
   const stats: GradientStats = { runs: 0, rows: 0, used: 0, tailSeconds: 0, prefixSeconds: 0, prefixRuns: 0, prefixStimuli: 0 };
@@ -73,13 +77,15 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
     }
     return count * K;
   })();
-  const seeds = new Map<number, Float32Array>();
-  const seedFor = (n: number): Float32Array => {
-    let seed = seeds.get(n);
+  const seeds = new Map<string, Float32Array>();
+  /** Seed rows for categories [c0, c0 + Kc): [Kc·n, Kout], row c*n + j selects unit units[c0 + c] (none past K). */
+  const seedFor = (n: number, c0: number): Float32Array => {
+    let seed = seeds.get(`${n}:${c0}`);
     if (!seed) {
-      seed = new Float32Array(K * n * Kout); // [K·n, Kout]: row c*n + j selects unit units[c]
-      for (let c = 0; c < K; c++) for (let j = 0; j < n; j++) seed[(c * n + j) * Kout + readout.units[c]!] = 1;
-      seeds.set(n, seed);
+      seed = new Float32Array(Kc * n * Kout);
+      for (let c = 0; c < Math.min(Kc, K - c0); c++) for (let j = 0; j < n; j++) seed[(c * n + j) * Kout + readout.units[c0 + c]!] = 1;
+      if (seeds.size > 4) seeds.clear();
+      seeds.set(`${n}:${c0}`, seed);
     }
     return seed;
   };
@@ -93,18 +99,30 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
       stimuli.forEach((stimulus, j) => data.set(stimulus.values[i]!, j * perRow[i]!));
       feeds[feedNames[i]!] = { data, dims: [n, ...boundaryShapes[i]!] };
     });
-    feeds[graph.seed] = { data: seedFor(n), dims: [K * n, Kout] };
-    const t0 = performance.now();
-    const outputs = await session.run(feeds, [output, graph.readout]);
-    stats.tailSeconds += (performance.now() - t0) / 1000;
-    const values = outputs[output];
-    const y = outputs[graph.readout];
-    if (!values || values.data.length !== K * n * C || !y || y.data.length !== K * n * Kout) {
-      throw new RuntimeFailure('E_RUNTIME_OUTPUT', `the gradient graph of "${site}" returned ${values ? values.data.length : 0} values for ${K * n} rows of ${C} channels`);
+    // one run per chunk of categories; the chunks' rows are gathered into [K·n, C] and [K·n, Kout]
+    const values = Kc === K ? null : new Float32Array(K * n * C);
+    const y = Kc === K ? null : new Float32Array(K * n * Kout);
+    for (let c0 = 0; c0 < K; c0 += Kc) {
+      feeds[graph.seed] = { data: seedFor(n, c0), dims: [Kc * n, Kout] };
+      const t0 = performance.now();
+      const outputs = await session.run(feeds, [output, graph.readout]);
+      stats.tailSeconds += (performance.now() - t0) / 1000;
+      const v = outputs[output];
+      const r = outputs[graph.readout];
+      if (!v || v.data.length !== Kc * n * C || !r || r.data.length !== Kc * n * Kout) {
+        throw new RuntimeFailure('E_RUNTIME_OUTPUT', `the gradient graph of "${site}" returned ${v ? v.data.length : 0} values for ${Kc * n} rows of ${C} channels`);
+      }
+      stats.runs++;
+      stats.rows += Math.min(Kc, K - c0) * n;
+      if (!values || !y) {
+        visit({ stimuli, values: v.data, readout: r.data });
+        break;
+      }
+      const rows = Math.min(Kc, K - c0) * n; // rows c*n + j of the chunk are rows (c0 + c)*n + j of the whole
+      values.set(v.data.subarray(0, rows * C), c0 * n * C);
+      y.set(r.data.subarray(0, rows * Kout), c0 * n * Kout);
     }
-    visit({ stimuli, values: values.data, readout: y.data });
-    stats.runs++;
-    stats.rows += K * n;
+    if (values && y) visit({ stimuli, values, readout: y });
     run.onProgress?.({ site, rowsDone: stats.rows, rowsTotal });
   };
 

@@ -81,13 +81,14 @@ describe('exactGainJacobian', () => {
 });
 
 describe('senseSites split by run bytes', () => {
-  it('senseSites with a run-bytes budget below one row runs one stimulus per gradient run (and one row per finite-difference run) and gives the same table', async () => {
+  it('senseSites with a run-bytes budget below one row runs one stimulus and one category per gradient run (one row per finite-difference run) and gives the same table', async () => {
     // rows are computed independently and summed in the same order however they are grouped (common practice: batch-independent kernels)
     for (const method of ['exact', 'secant'] as const) {
       const whole = (await senseSites({ model, from: base, site: 'relu1', method, threads: 1 })).sites[0]!;
       const split = (await senseSites({ model, from: base, site: 'relu1', method, threads: 1, runBytes: 1 })).sites[0]!;
       expect(split.rows).toBe(whole.rows);
-      expect(split.runs).toBe(method === 'exact' ? split.stimuliUsed : split.rows);
+      expect(split.runs).toBe(method === 'exact' ? split.stimuliUsed * split.categories.length : split.rows);
+      if (method === 'exact') expect(split.categories.length).toBeGreaterThan(1);
       expect(split.runs).toBeGreaterThan(whole.runs);
       expect(Array.from(split.sensitivity)).toEqual(Array.from(whole.sensitivity));
     }
