@@ -22,7 +22,7 @@ import { channelCount, SHAPE_METADATA_KEY, spatialSize } from './layer-file.js';
 import { assertInside, baselineLayerProblems, layerLayout, validateManifest, type ManifestLayer, type SnapshotManifest } from './manifest.js';
 import { verifyStimulusTable } from './stimuli-file.js';
 import { registerArrowCodecs } from './compression.js';
-import { meansFileProblems } from './means-check.js';
+import { layerCodecProblem, meansFileProblems } from './means-check.js';
 import { parseJson } from '../json.js';
 import { describeNonRegular, INPUT_LIMITS, readInputFile, readInputText, realPathInside } from '../disk/input-file.js';
 
@@ -131,6 +131,8 @@ export async function checkSnapshot(folder: string): Promise<CheckReport> {
     if (entry.bytes !== undefined && size !== entry.bytes) problem(subject, `is ${size} bytes, the manifest says ${entry.bytes} (truncated or changed after recording)`);
     else if (entry.sha256 !== undefined && hashFile(path) !== entry.sha256) problem(subject, 'SHA-256 differs from the manifest (the file changed after recording)');
     await checkLayerFile(path, subject, entry, firstIndex, count, problem);
+    const codec = layerCodecProblem(path, entry);
+    if (codec) problem(subject, codec);
     if (entry.means) checkMeansFile(entry, path, entry.from === 'baseline' ? baselineRoot! : root, layersUnsafe !== null, problem, checked);
   }
   checkStimuli(root, manifest, firstIndex, problem, notes);

@@ -3,11 +3,36 @@
  * SHA-256: that it is a means file (`index` int32 and `channel_mean` FixedSizeList<float32>[C], no
  * activations), that its rows run over the snapshot's stimuli in order, and that it agrees with the
  * layer file — the same indices and, bit for bit, the same channel means, row by row. It also checks
- * that every record batch of the layer file is stored the way the manifest's `compression` says.
+ * (`layerCodecProblem`) that every record batch of a layer file is stored the way the manifest's
+ * `compression` says.
  * Reads only the index and channel-mean buffers of both files (never the activations).
  */
 import { LayerBlockFile } from './block-reader.js';
 import type { ManifestLayer } from './manifest.js';
+
+/**
+ * Whether every record batch of a layer file is stored as the manifest's `compression` says.
+ * @returns one line for the first batch stored otherwise, or null (also for a file the reader cannot
+ *   open: the layer file's own check reports that).
+ */
+export function layerCodecProblem(layerPath: string, entry: ManifestLayer): string | null {
+  let layer: LayerBlockFile | null = null;
+  try {
+    layer = LayerBlockFile.open(layerPath);
+    if (!layer) return null;
+    const wanted = entry.compression ?? 'none';
+    const words = (codec: string) => (codec === 'none' ? 'uncompressed' : `compressed with ${codec}`);
+    for (let b = 0; b < layer.count; b++) {
+      const codec = layer.compressionOf(b);
+      if (codec !== wanted) return `stores record batch ${b} ${words(codec)}, the manifest says ${words(wanted)}`;
+    }
+    return null;
+  } catch {
+    return null;
+  } finally {
+    layer?.close();
+  }
+}
 
 /**
  * Compares a layer file with its channel-means file.
@@ -35,14 +60,6 @@ export function meansFileProblems(layerPath: string, meansPath: string, entry: M
       return []; // the layer file's own check reports it
     }
     if (!layer) return [];
-    const wanted = entry.compression ?? 'none';
-    for (let b = 0; b < layer.count; b++) {
-      const codec = layer.compressionOf(b);
-      if (codec !== wanted) {
-        problems.push(`(the layer file) stores batch ${b} ${codec === 'none' ? 'uncompressed' : `compressed with ${codec}`}, the manifest says ${wanted === 'none' ? 'uncompressed' : wanted}`);
-        break;
-      }
-    }
     const mismatch = firstDifference(layer, means, channels);
     if (mismatch) problems.push(mismatch);
     return problems;
