@@ -78,14 +78,15 @@ export async function runSizeMatched(options: SizeMatchedRunOptions): Promise<Si
   assertSameModel(fit, model, options.fit);
   assertSameModel(heldOut, model, options.from);
   const inspection = await inspectModel(model);
+  // first: a comparison under another readout map than its tables (or under none) cannot pair with them
+  const tables = loadModulationTables({ tuning: options.tuning, ...(options.sensitivity !== undefined ? { sensitivity: options.sensitivity } : {}) });
+  assertSameReadoutMap({ what: 'this comparison', tag: mapTag(options.readoutMap) }, { what: `--tuning ${options.tuning}`, tag: tables.readoutMap });
   const readout = categoryReadout(heldOut, options.readoutMap);
   const sites = chooseSites(options.sites, inspection, readout.layer);
   const allSites = options.allSites && options.allSites.length > 0 ? chooseSites(options.allSites, inspection, readout.layer) : [];
   for (const site of new Set([...sites, ...allSites])) {
     for (const [snapshot, option] of [[fit, '--fit'], [heldOut, '--from']] as const) assertRecorded(snapshot, site, option);
   }
-  const tables = loadModulationTables({ tuning: options.tuning, ...(options.sensitivity !== undefined ? { sensitivity: options.sensitivity } : {}) });
-  assertSameReadoutMap({ what: 'this comparison', tag: mapTag(readout.map) }, { what: `--tuning ${options.tuning}`, tag: tables.readoutMap });
   const task = options.task ?? 'detect:all';
   const every = task === 'detect:all' || task === 'labels';
   // detect:all keeps the categories the tables have; a named category without table values is refused below

@@ -159,10 +159,11 @@ export async function sweepModulations(options: SweepOptions): Promise<SweepResu
     throw new UsageError('E_STRENGTHS', `--strengths must be finite numbers, got ${options.strengths.join(',') || 'none'}`);
   }
   const inspection = await inspectModel(model);
+  const tables = options.tuning || options.sensitivity ? loadModulationTables({ ...(options.tuning ? { tuning: options.tuning } : {}), ...(options.sensitivity ? { sensitivity: options.sensitivity } : {}) }) : null;
+  // first: a sweep under another readout map than its tables (or under none) cannot pair with them
+  if (tables) assertSameReadoutMap({ what: 'this sweep', tag: mapTag(options.readoutMap) }, { what: options.tuning ? `--tuning ${options.tuning}` : `--sensitivity ${options.sensitivity}`, tag: tables.readoutMap });
   const readout = categoryReadout(baseline, options.readoutMap);
   const categories = parseDetectionTask(options.task, readout.kinds, baseline.categories);
-  const tables = options.tuning || options.sensitivity ? loadModulationTables({ ...(options.tuning ? { tuning: options.tuning } : {}), ...(options.sensitivity ? { sensitivity: options.sensitivity } : {}) }) : null;
-  if (tables) assertSameReadoutMap({ what: 'this sweep', tag: mapTag(readout.map) }, { what: options.tuning ? `--tuning ${options.tuning}` : `--sensitivity ${options.sensitivity}`, tag: tables.readoutMap });
   const schemes = resolveSchemes(options.schemes, options);
   const sites = (typeof options.sites === 'string' && options.sites === ALL_ACTIVATIONS ? chooseSites(ALL_ACTIVATIONS, inspection, readout.layer) : chooseSites(options.sites, inspection, readout.layer)).filter(
     (site) => typeof options.sites !== 'string' || options.sites !== ALL_ACTIVATIONS || baseline.manifest.layers.some((l) => l.name === site && l.keep === 'full'),
