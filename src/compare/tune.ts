@@ -11,7 +11,8 @@
 import { closestHint, UsageError } from '../errors.js';
 import { computeTuning, type TuningTable } from '../analysis/tuning.js';
 import { selectLayers } from '../graph/select.js';
-import type { ManifestLayer } from '../snapshot/manifest.js';
+import { layerLayout, type ManifestLayer } from '../snapshot/manifest.js';
+import type { TensorLayout } from '../graph/layout.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { READOUT_MAP_KEY, writeTuningTable, type TuningTableBlock } from '../snapshot/tables.js';
 import { assertOutFileWritable } from '../outputs/output-file.js';
@@ -46,12 +47,22 @@ export interface TuneOptions {
   force?: boolean;
 }
 
+/** What the tuned units of a layer are (see `LayerTuningSummary.unit`). */
+export type TuningUnit = 'channels' | 'features' | 'heads';
+
+/** The tuned units of a layer with this layout. */
+export function tuningUnit(layout: TensorLayout): TuningUnit {
+  return layout.kind === 'tokens' ? 'features' : layout.kind === 'heads' ? 'heads' : 'channels';
+}
+
 /** The terminal summary of one layer. */
 export interface LayerTuningSummary {
   layer: string;
   op: string;
   depth: number;
   channels: number;
+  /** What a channel is at this layer, from its layout: `features` of token tensors (tuned over all tokens, not per position), `heads` of attention internals, `channels` of maps and vectors. */
+  unit?: TuningUnit;
   /** Fraction of channels with selectivity ≥ SELECTIVE_INDEX (channels with NaN selectivity count as not selective). */
   selectiveFraction: number;
   /** Mean selectivity over channels with a finite index (NaN when none). */
@@ -150,12 +161,12 @@ export function planTuning(snapshot: Snapshot, options: Pick<TuneOptions, 'categ
  * @param options singleLabel and out.
  * @throws RuntimeFailure when the table cannot be written.
  */
-export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out' | 'readoutMap'>): TuneResult {
+export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'> & Partial<Pick<ManifestLayer, 'shape' | 'layout'>>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out' | 'readoutMap'>): TuneResult {
   const blocks: TuningTableBlock[] = [];
   const summaries: LayerTuningSummary[] = [];
   for (const { layer, table } of tables) {
     blocks.push({ layer: layer.name, depth: layer.depth, op: layer.op, ...table });
-    summaries.push(summariseLayer(layer.name, layer.op, layer.depth, table));
+    summaries.push({ ...summariseLayer(layer.name, layer.op, layer.depth, table), ...(layer.shape ? { unit: tuningUnit(layerLayout({ shape: layer.shape, ...(layer.layout ? { layout: layer.layout } : {}) })) } : {}) });
   }
   const last = tables[tables.length - 1]!.table;
   blocks.sort((a, b) => (a.depth ?? 0) - (b.depth ?? 0));

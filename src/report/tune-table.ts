@@ -34,9 +34,12 @@ export function renderTuningSummaries(summaries: readonly LayerTuningSummary[], 
       signed = true;
       selectivity = Number.isFinite(s.meanSelectivity) ? `${selectivity} *` : '– *';
     }
-    return [String(s.depth), labels.get(s.layer)!, s.op, String(s.channels), `${(100 * s.selectiveFraction).toFixed(0)}%`, selectivity, s.zeroVarianceChannels ? String(s.zeroVarianceChannels) : '', s.nonFiniteChannels ? String(s.nonFiniteChannels) : ''];
+    // token tensors are tuned per feature (over all tokens), attention internals per head: the count says which
+    const count = s.unit && s.unit !== 'channels' ? `${s.channels} ${s.unit}` : String(s.channels);
+    return [String(s.depth), labels.get(s.layer)!, s.op, count, `${(100 * s.selectiveFraction).toFixed(0)}%`, selectivity, s.zeroVarianceChannels ? String(s.zeroVarianceChannels) : '', s.nonFiniteChannels ? String(s.nonFiniteChannels) : ''];
   });
-  const table = fitTable(['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], rows, { width, keyColumns: 2 });
+  const mixed = summaries.some((s) => s.unit && s.unit !== 'channels');
+  const table = fitTable(['depth', 'layer', 'op', mixed ? 'units' : 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], rows, { width, keyColumns: 2 });
   const note = signed ? `\n${wrapText('* channels with a negative mean response to some category have no selectivity index (it needs non-negative responses); the mean is over the others', width, '  ')}` : '';
   return `${table}${note}`;
 }

@@ -13,6 +13,8 @@ import { listingDigest } from '../../src/stimuli/source.js';
 import { createHash } from 'node:crypto';
 import { readTuningTable } from '../../src/snapshot/tables.js';
 import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { parseNpy } from '../../src/stimuli/npy.js';
+import { renderTuningSummaries } from '../../src/report/tune-table.js';
 
 let dir: string;
 
@@ -206,6 +208,33 @@ describe('tuneSnapshot (recorded snapshot)', () => {
           if (sd > 1e-3 * largest) expect(Math.abs(block.tuning[k * 3 + c]! - (means[c]! - centre) / sd), `${name} t ${k},${c}`).toBeLessThanOrEqual(1e-4);
         }
       }
+    }
+  });
+});
+
+describe('tuneSnapshot on token tensors', () => {
+  // The seeded small torchvision VisionTransformer and NumPy's per-feature means over its 17 tokens
+  // (tests/reference/make_layout_fixtures.py, Debian python3-torch): with one display per category,
+  // r_kc is that display's token mean of feature k.
+  const ATTENTION = new URL('../reference/fixtures/attention/', import.meta.url).pathname;
+  const index = JSON.parse(readFileSync(join(ATTENTION, 'hooks', 'index-opset14.json'), 'utf8')) as Array<{ onnx: string; slug: string; role: string }>;
+
+  it('tuneSnapshot tunes a [T, D] block output per feature (16), not per token (17), from NumPy\'s token means; the table says features', async () => {
+    const folder = tempFolder();
+    const labels = join(folder, 'labels.csv');
+    writeFileSync(labels, 'label\na\nb\n');
+    const out = join(folder, 'vit');
+    await recordSnapshot({ model: join(ATTENTION, 'vit-opset14.onnx'), stimuli: join(ATTENTION, 'inputs.npy'), labels, out, batch: 2, threads: 1 });
+    const block = index.find((e) => e.role === 'block output')!;
+    const result = await tuneSnapshot({ snapshot: out, layers: block.onnx });
+    const table = result.blocks[0]!;
+    expect(table.channels).toBe(16);
+    expect(result.summaries[0]!.unit).toBe('features');
+    const path = join(ATTENTION, 'hooks', `${block.slug}_means.npy`);
+    const means = parseNpy(readFileSync(path), path).data as ArrayLike<number>; // [2, 16], C order
+    expect(renderTuningSummaries(result.summaries)).toMatch(/units[\s\S]*16 features/);
+    for (let k = 0; k < 16; k++) {
+      for (let c = 0; c < 2; c++) expect(table.mean[k * 2 + c]).toBeCloseTo(means[c * 16 + k]!, 5);
     }
   });
 });
