@@ -34,7 +34,7 @@ let mod: string;
 const guards: ChildProcess[] = [];
 
 interface Manifest {
-  layers: Array<{ name: string; file: string; bytes: number; from?: string }>;
+  layers: Array<{ name: string; file: string; bytes: number; from?: string; means?: { file: string; bytes: number } }>;
 }
 
 const manifestOf = (folder: string) => JSON.parse(readFileSync(join(folder, 'manifest.json'), 'utf8')) as Manifest;
@@ -46,10 +46,11 @@ function copy(name: string, from = base): string {
 }
 
 /** The largest layer file of a snapshot that is its own (not the baseline's). */
-function largestOwnLayer(folder: string): { name: string; file: string; path: string; bytes: number } {
+function largestOwnLayer(folder: string): { name: string; file: string; path: string; bytes: number; means: { file: string; path: string; bytes: number } } {
   const own = manifestOf(folder).layers.filter((l) => l.from !== 'baseline');
   const layer = own.reduce((a, b) => (b.bytes > a.bytes ? b : a));
-  return { ...layer, path: join(folder, layer.file) };
+  // snapshot format 3: channel means (what tune reads) live in the layer's means file
+  return { ...layer, path: join(folder, layer.file), means: { ...layer.means!, path: join(folder, layer.means!.file) } };
 }
 
 function flipByte(path: string, at: number): void {
@@ -141,7 +142,11 @@ describe('symbolic links out of their folder', () => {
     const outside = join(dir, 'outside-layer.arrow');
     renameSync(layer.path, outside);
     symlinkSync(outside, layer.path);
-    await expect(tuneSnapshot({ snapshot: folder })).rejects.toThrow(/layer file .* resolves to .*outside-layer\.arrow, outside .* \(a symbolic link points out of the folder\)/);
+    const outsideMeans = join(dir, 'outside-means.arrow');
+    renameSync(layer.means.path, outsideMeans);
+    symlinkSync(outsideMeans, layer.means.path);
+    await expect(tuneSnapshot({ snapshot: folder })).rejects.toThrow(/layer file .* resolves to .*outside-means\.arrow, outside .* \(a symbolic link points out of the folder\)/);
+    await expect(diffSnapshots({ base: folder, mod, bootstrap: 0 })).rejects.toThrow(/layer file .* resolves to .*outside-(layer|means)\.arrow, outside .* \(a symbolic link points out of the folder\)/);
     const report = await checkSnapshot(folder);
     expect(report.ok).toBe(false);
     expect(report.problems).toContainEqual({ subject: layer.file, message: expect.stringMatching(/^resolves to .*outside-layer\.arrow, outside .*layer "/) });
@@ -222,7 +227,9 @@ describe('FIFOs and devices are refused, never opened', () => {
     const layer = largestOwnLayer(folder);
     rmSync(layer.path);
     fifo(layer.path);
-    await expect(tuneSnapshot({ snapshot: folder })).rejects.toThrow(/layer file .* is a FIFO \(named pipe\), not a regular file/);
+    rmSync(layer.means.path);
+    fifo(layer.means.path);
+    await expect(tuneSnapshot({ snapshot: folder })).rejects.toThrow(/layer file .*\.means\.arrow of .* is a FIFO \(named pipe\), not a regular file/);
     const report = await checkSnapshot(folder);
     expect(report.problems).toContainEqual({ subject: layer.file, message: expect.stringMatching(/^is a FIFO \(named pipe\), not a regular file/) });
   }, 30_000);
@@ -233,9 +240,10 @@ describe('layer files are checked against the manifest before their numbers are 
     const folder = copy('truncated');
     const layer = largestOwnLayer(folder);
     truncateSync(layer.path, layer.bytes - 100);
+    truncateSync(layer.means.path, layer.means.bytes - 100);
     const tune = await runSonde(['tune', folder, '--out', join(dir, 'truncated-tuning.arrow')]);
     expect(tune.code).toBe(1);
-    expect(tune.stderr).toContain(`layer file ${layer.path} of "${layer.name}" is ${layer.bytes - 100} bytes, the manifest says ${layer.bytes} (truncated or changed after recording)`);
+    expect(tune.stderr).toContain(`layer file ${layer.means.path} of "${layer.name}" is ${layer.means.bytes - 100} bytes, the manifest says ${layer.means.bytes} (truncated or changed after recording)`);
     expect(tune.stderr).toMatch(/sonde check .*truncated/);
     expect(existsSync(join(dir, 'truncated-tuning.arrow'))).toBe(false);
     await expect(diffSnapshots({ base: folder, mod, bootstrap: 0 })).rejects.toThrow(/is \d+ bytes, the manifest says \d+ \(truncated/);
@@ -258,7 +266,7 @@ describe('layer files are checked against the manifest before their numbers are 
 
     const baseFlip = copy('base-flip');
     const own = largestOwnLayer(baseFlip);
-    flipByte(own.path, Math.floor(own.bytes / 2));
+    flipByte(own.means.path, Math.floor(own.means.bytes / 2)); // tune reads the means file
     await expect(tuneSnapshot({ snapshot: baseFlip })).rejects.toThrow(/does not match the SHA-256 in the manifest/);
     await expect(tuneSnapshot({ snapshot: openSnapshot(baseFlip, { verify: 'size-only' }) })).resolves.toBeDefined();
     expect(readdirSync(dir)).not.toContain('base-flip-tuning.arrow');
