@@ -10,8 +10,10 @@
  *   list (or one entry) of units;
  * - inline: `dog=151..268;cat=281,282,tabby` — categories separated by `;`, units by `,` (names with
  *   `;`, `,` or `=` need the file form).
- * A unit is an index (a JSON integer, or digits), an inclusive index range `A..B`, or a unit name from
- * the model's sidecar (`outputs.kinds`); a name wins over the number it looks like.
+ * A unit is an index (a JSON integer; inline, digits), an inclusive index range `A..B`, or a unit name
+ * from the model's sidecar (`outputs.kinds`); in a file, a string of digits is a name when a unit has
+ * that name, else an index. The inline form and a file with the same entries are the same map (one
+ * digest).
  *
  * The map's identity, recorded in the tables made under it, is its name (the file name, or `inline`)
  * and the SHA-256 of its canonical form (categories in order, each with its unit entries as written).
@@ -102,7 +104,8 @@ export function readReadoutMap(text: string): ReadoutMap {
       const eq = part.indexOf('=');
       if (eq < 0) throw new UsageError('E_READOUT_MAP', `${source}: "${part.trim()}" has no "="; write CATEGORY=UNIT,UNIT;…`, { hint: 'e.g. dog=151..268;cat=281,282' });
       const category = part.slice(0, eq).trim();
-      const units = part.slice(eq + 1).split(',').map((u) => u.trim()).filter((u) => u.length > 0);
+      // digits are indices here (as JSON integers are in a file), so the two forms of one map agree
+      const units = part.slice(eq + 1).split(',').map((u) => u.trim()).filter((u) => u.length > 0).map((u): UnitEntry => (/^\d+$/.test(u) && Number.isSafeInteger(Number(u)) ? Number(u) : u));
       if (entries.some((e) => e.category === category)) throw new UsageError('E_READOUT_MAP', `${source}: category "${category}" is named twice`, { hint: 'list all of its units once: CATEGORY=A,B,C' });
       entries.push({ category, units });
     }

@@ -36,6 +36,7 @@ describe('readReadoutMap', () => {
     expect(fromFile.name).toBe('animals.json');
     expect(fromFile.entries).toEqual([{ category: 'dog', units: ['151..268'] }, { category: 'cat', units: [281, 'tiger cat', '283..285'] }, { category: 'ring', units: [7] }]);
     const inline = readReadoutMap('dog=151..268; cat=281,tiger cat,283..285 ;ring=7');
+    expect(inline.entries[1]!.units).toEqual([281, 'tiger cat', '283..285']);
     expect(inline.name).toBe('inline');
     const a = resolveReadoutMap(fromFile, readout);
     const b = resolveReadoutMap(inline, readout);
@@ -47,6 +48,8 @@ describe('readReadoutMap', () => {
     // the digest is of the entries as written: the same file content gives the same digest, another map another one
     expect(readReadoutMap(file).sha256).toBe(fromFile.sha256);
     expect(readReadoutMap('dog=151..267').sha256).not.toBe(readReadoutMap('dog=151..268').sha256);
+    // the inline form of a file's entries is the same map
+    expect(inline.sha256).toBe(fromFile.sha256);
     expect(mapTag(fromFile)).toEqual({ name: 'animals.json', sha256: fromFile.sha256 });
     expect(describeMapTag(mapTag(fromFile))).toBe(`animals.json sha256:${fromFile.sha256.slice(0, 12)}`);
     expect(describeMapTag(null)).toMatch(/no readout map/);
@@ -82,7 +85,7 @@ describe('resolveReadoutMap', () => {
     const unknown = refusal(() => resolveReadoutMap(readReadoutMap('cat=tabbby'), readout));
     expect(unknown.message).toMatch(/"tabbby", which is not a unit of readout "logits" \(1000 units, indices 0–999: class 0, .*closest: "tabby"/);
     expect(unknown.message.length).toBeLessThan(400);
-    expect(refusal(() => resolveReadoutMap(readReadoutMap('dog=1000'), readout)).message).toMatch(/"1000", outside readout "logits" \(1000 units, indices 0–999\)/);
+    expect(refusal(() => resolveReadoutMap(readReadoutMap('dog=1000'), readout)).message).toMatch(/lists 1000, outside readout "logits" \(1000 units, indices 0–999\)/);
     expect(refusal(() => resolveReadoutMap(readReadoutMap('dog=990..1005'), readout)).message).toMatch(/"990\.\.1005", outside readout/);
     expect(refusal(() => resolveReadoutMap(readReadoutMap('dog=20..10'), readout)).message).toMatch(/runs backwards/);
     // without unit names only indices resolve, and the message says why
@@ -90,10 +93,13 @@ describe('resolveReadoutMap', () => {
     expect(resolveReadoutMap(readReadoutMap('cat=281'), { tensor: 'logits', width: 1000, names: null }).groups).toEqual([[281]]);
   });
 
-  it('resolveReadoutMap: a unit name wins over the index it looks like; units not listed are ignored', () => {
+  it('resolveReadoutMap: in a file a string of digits is a unit name first, a JSON integer (or inline digits) an index; units not listed are ignored', () => {
     const numeric = Array.from({ length: 10 }, (_, u) => String(9 - u)); // unit u is named "9 − u"
-    const resolved = resolveReadoutMap(readReadoutMap('a=0;b=7..8'), { tensor: 'y', width: 10, names: numeric });
-    expect(resolved.groups).toEqual([[9], [7, 8]]);
-    expect(resolved.groups.flat().length).toBe(3);
+    const file = join(tempFolder(), 'numeric.json');
+    writeFileSync(file, JSON.stringify({ a: ['0'], b: ['7..8'], c: [1] }));
+    const resolved = resolveReadoutMap(readReadoutMap(file), { tensor: 'y', width: 10, names: numeric });
+    expect(resolved.groups).toEqual([[9], [7, 8], [1]]);
+    expect(resolveReadoutMap(readReadoutMap('a=0'), { tensor: 'y', width: 10, names: numeric }).groups).toEqual([[0]]);
+    expect(resolved.groups.flat().length).toBe(4);
   });
 });
