@@ -289,6 +289,7 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
     depth: layer.depth,
     op: layer.op,
     channels: C,
+    unit: siteInfo.unit,
     categories: [...readout.categories],
     sensitivity,
     fdError,
@@ -385,11 +386,12 @@ export async function* boundaryStream(run: SiteRun, boundary: readonly string[])
  * (outer) and inside (inner) the feature axis, and the feature axis of the per-stimulus shape.
  * @throws UsageError when the layer has no feature axis (a scalar per stimulus).
  */
-export function siteGeometryOf(layer: LayerInfo): { features: number; outer: number; inner: number; featureAxis: number; shape: SiteShape } {
+export function siteGeometryOf(layer: LayerInfo): { features: number; outer: number; inner: number; featureAxis: number; shape: SiteShape; unit: 'channel' | 'feature' } {
   const shape = siteShapes([layer]).get(layer.name);
   if (!shape) throw new UsageError('E_SENSE_SITE', `--site "${layer.name}" has no feature axis (shape [${layer.shape.join(', ')}] per stimulus)`, { hint: 'pick a feature map, a token tensor or a vector layer' });
   const g = siteGeometry(shape);
-  return { features: g.features, outer: g.outer, inner: g.inner, featureAxis: shape.layout.featureAxis ?? 0, shape };
+  const unit = shape.layout.kind === 'tokens' ? 'feature' : 'channel';
+  return { features: g.features, outer: g.outer, inner: g.inner, featureAxis: shape.layout.featureAxis ?? 0, shape, unit };
 }
 
 /** Per-stimulus elements of a tensor of the run's network (the data input included), or undefined. */

@@ -103,6 +103,8 @@ export interface SenseOptions {
 export interface SiteSensitivity extends SensitivityTableBlock {
   /** How `sensitivity` was computed. */
   method: SenseMethod;
+  /** What one value is of: a channel of a feature map or vector, or a feature of a token tensor (along the site's layout). */
+  unit?: 'channel' | 'feature';
   /** Richardson: |D(h/2) − D(h)| / 3, how far the extrapolation moved the h/2 secant, [C, K]; null for the secant. */
   extrapolationShift: Float64Array | null;
   /** The warning line, when the method's indicator (extrapolationShift, or fd_error for the secant) is large somewhere. */

@@ -191,8 +191,8 @@ describe('sonde tune / sonde sense (bad input)', () => {
     await expectUsageError(['record', model, '--stimuli', stim.npy, '--out', join(dir, 'x'), '--tuning', join(dir, 'tuning.arrow')], /--tuning and --sensitivity need --modulate/);
   });
 
-  it('sonde sense with a site that has no channel axis, or does not exist, says which', async () => {
-    await expectUsageError(['sense', scalarModel, '--stimuli', small.npy, '--site', 'score', '--readout', 'logits', '--out', join(dir, 's1.arrow')], /--site "score" has no channel axis \(shape \[\] per stimulus\)/);
+  it('sonde sense with a site that has no feature axis, or does not exist, says which', async () => {
+    await expectUsageError(['sense', scalarModel, '--stimuli', small.npy, '--site', 'score', '--readout', 'logits', '--out', join(dir, 's1.arrow')], /--site "score" has no feature axis \(shape \[\] per stimulus\)/);
     await expectUsageError(['sense', model, '--stimuli', stim.npy, '--site', 'relu9', '--out', join(dir, 's2.arrow')], /--site "relu9" not found .*closest: "relu0"/);
     await expectUsageError(['sense', model, '--stimuli', stim.npy, '--out', join(dir, 's2b.arrow')], /needs --sites TENSOR/);
   });
