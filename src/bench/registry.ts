@@ -2,6 +2,7 @@ import { benchDecodeKernels } from './decode-kernels.js';
 import { benchDiffThroughput } from './diff-throughput.js';
 import { benchExportThroughput } from './export-throughput.js';
 import { benchRecordOverhead } from './record-overhead.js';
+import { benchReplayMemory } from './replay-memory.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
 import { benchSweepThroughput } from './sweep-throughput.js';
 import { benchTailReplay } from './tail-replay.js';
@@ -15,5 +16,6 @@ export const BENCHMARKS: Record<string, Benchmark> = {
   'tail-replay': benchTailReplay,
   'sensitivity-cost': benchSensitivityCost,
   'sweep-throughput': benchSweepThroughput,
+  'replay-memory': benchReplayMemory,
   'decode-kernels': benchDecodeKernels,
 };
