@@ -23,6 +23,9 @@ Run from the repository root with the Debian interpreter that has torch:
      ([N, H, T, d] queries, [N, H, T, T] softmax as an nn.Softmax module), output projection, residual,
      LayerNorm, token mean, Linear; softmax.npy [2, 2, 16, 16] and softmax_means.npy [2, 2] (mean over
      T × T per head: exactly 1/T, since every row of a softmax sums to 1).
+   - mlp-gelu-tanh.onnx: patch embedding, then an MLP block with nn.GELU(approximate="tanh") (written out
+     with Tanh, Pow, Mul and Add at opset 14) and a residual; no values, only the ONNX name of the GELU's
+     output for the default selection.
    index.json names the ONNX tensor of each hooked module.
 """
 
@@ -140,6 +143,21 @@ class BatchFirstNet(nn.Module):
         return self.head(self.norm(tokens).mean(dim=1))
 
 
+class TanhGeluNet(nn.Module):
+    def __init__(self) -> None:
+        super().__init__()
+        self.embed = nn.Conv2d(3, 8, 4, stride=4)
+        self.up = nn.Linear(8, 16)
+        self.act = nn.GELU(approximate="tanh")
+        self.down = nn.Linear(16, 8)
+        self.head = nn.Linear(8, 3)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        tokens = self.embed(x).flatten(2).transpose(1, 2)
+        tokens = tokens + self.down(self.act(self.up(tokens)))
+        return self.head(tokens.mean(dim=1))
+
+
 def layout_networks() -> None:
     folder = mf.OUT / "layouts"
     index = {}
@@ -162,8 +180,13 @@ def layout_networks() -> None:
     mf.save(folder / "softmax.npy", softmax.astype(np.float32))
     mf.save(folder / "softmax_means.npy", softmax.astype(np.float64).mean(axis=(2, 3)))
     index["attention-batch-first"] = {"softmax": mf.onnx_output_of(proto, "attention.softmax"), "attention": mf.onnx_output_of(proto, "attention")}
+
+    torch.manual_seed(LAYOUT_SEED + 2)
+    net = TanhGeluNet().eval()
+    proto = mf.export(net, torch.rand(2, 3, 16, 16), folder / "mlp-gelu-tanh.onnx", 14)
+    index["mlp-gelu-tanh"] = {"act": mf.onnx_output_of(proto, "act")}
     (folder / "index.json").write_text(json.dumps(index, indent=2) + "\n")
-    print("layouts: channels-last and batch-first attention")
+    print("layouts: channels-last, batch-first attention, tanh GELU")
 
 
 if __name__ == "__main__":
