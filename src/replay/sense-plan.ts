@@ -57,7 +57,7 @@ export function parseReadout(text: string | undefined, model: LoadedModel, inspe
   if (sidecar?.outputs && sidecar.outputs.name === tensor && sidecar.outputs.kinds.length !== units) {
     // a partial list cannot say which unit is which category: refuse rather than fall back to indices silently
     throw new UsageError('E_SENSE_READOUT', `the sidecar of ${model.fileName} names ${sidecar.outputs.kinds.length} kinds (${nameList(sidecar.outputs.kinds.map(String), 4)}) for the ${units} units of "${tensor}"; it needs one kind per unit`, {
-      hint: 'fit one readout unit per category with `sonde heads` and use that model, or list a kind for every unit in outputs.kinds',
+      hint: 'group the units into your stimulus categories with --readout-map, fit one readout unit per category with `sonde heads` and use that model, or list a kind for every unit in outputs.kinds',
     });
   }
   const kinds = sidecar?.outputs && sidecar.outputs.name === tensor ? sidecar.outputs.kinds.map(String) : null;
@@ -152,7 +152,7 @@ export function stimulusWeights(labels: readonly (readonly string[])[], categori
     if (counts[c] === 0) {
       const near = closestHint(categories[c]!, present);
       throw new UsageError('E_SENSE_STIMULI_OF', `--stimuli-of each: readout category "${categories[c]}" has no stimuli containing it (labels: ${present.join(', ')}${near ? `; ${near}` : ''})`, {
-        hint: 'the readout categories must be label names; pick one readout category with --readout OUTPUT:CATEGORY',
+        hint: 'the readout categories must be label names: group the readout\'s units into label categories with --readout-map (e.g. dog=151..268;cat=281..285), or pick one readout category with --readout OUTPUT:CATEGORY',
       });
     }
   }
