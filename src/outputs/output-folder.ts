@@ -145,7 +145,11 @@ function listedLayerFiles(folder: string): Set<string> {
   };
   const layers = sondeManifestJson(join(folder, 'manifest.json'))?.layers;
   if (Array.isArray(layers)) {
-    for (const layer of layers as Array<{ file?: unknown; from?: unknown } | null>) if (layer?.from !== 'baseline') add(layer?.file);
+    for (const layer of layers as Array<{ file?: unknown; from?: unknown; means?: { file?: unknown } | null } | null>) {
+      if (layer?.from === 'baseline') continue;
+      add(layer?.file);
+      if (typeof layer?.means === 'object' && layer.means !== null) add(layer.means.file);
+    }
   }
   try {
     const progress = readProgress(folder);
