@@ -15,6 +15,7 @@ import { selectLayers } from '../graph/select.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
+import { BackgroundWriter } from '../snapshot/background-writer.js';
 import { parseCompression, type LayerCompression } from '../snapshot/compression.js';
 import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
@@ -24,7 +25,7 @@ import { parseFit, parseInterpolation, parseNormalise, presetValues, resolvedFit
 import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from '../outputs/output-folder.js';
-import { countNonFinite, nonFiniteNotice, NonFiniteTally, STIMULI_KEY, storageBound } from './non-finite.js';
+import { countNonFinite, nonFiniteNotice, NonFiniteTally, STIMULI_KEY } from './non-finite.js';
 import { checkpointSha256, DIGEST_LOG_FILE, DigestLog, removeProgress, writeProgress, type ProgressRecord } from '../snapshot/progress-file.js';
 import { shardRange, type ShardSpec } from './shard.js';
 
@@ -82,6 +83,11 @@ export interface RecordOptions {
    * computation; false runs it on the calling thread (the benchmark measures the difference).
    */
   sessionInWorker?: boolean;
+  /**
+   * Write and hash the layer files on a thread of their own (default true; src/snapshot/background-writer.ts);
+   * false writes them on the calling thread (the benchmark measures the difference).
+   */
+  writeInBackground?: boolean;
   /** Replace a complete snapshot already in `out`. */
   force?: boolean;
   /**
@@ -261,6 +267,8 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
   const writers: LayerFileWriter[] = [];
   let digests: DigestLog | null = null;
   let lastCheckpoint = performance.now();
+  // layer bytes are written and hashed on a thread of their own, beside the network's
+  const background = options.writeInBackground === false ? undefined : new BackgroundWriter();
   try {
     // resuming: the digest log and the stimuli first (nothing of the layer files is touched before the
     // stimuli are known to be the same), then each partial file against its checkpoint hash
@@ -277,9 +285,9 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
         const resumeSha256 = checkpointSha256(folder, checkpoint, file);
         // killed after the file was finished and renamed, before the manifest was: take it back
         if (!existsSync(`${path}.partial`) && existsSync(path)) renameSync(path, `${path}.partial`);
-        writers.push(new LayerFileWriter(path, layout, { resumeAt: at, resumeSha256 }));
+        writers.push(new LayerFileWriter(path, layout, { resumeAt: at, resumeSha256, ...(background ? { background } : {}) }));
         if (writers[i]!.rows !== doneRows) throw new RuntimeFailure('E_RESUME', `${path}.partial holds ${writers[i]!.rows} rows at the checkpoint, expected ${doneRows}`, { hint: 'record again without --resume' });
-      } else writers.push(new LayerFileWriter(path, layout));
+      } else writers.push(new LayerFileWriter(path, layout, background ? { background } : {}));
     });
     // NaN/±Inf counts: per layer as written, per stimulus row as fed (the feeds run one batch ahead)
     const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);
@@ -312,8 +320,9 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
             const tensor = outputs[layer.name];
             if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
             checkShape(layer, tensor, rows, fixedBatch);
-            writers[i]!.write(first, rows, tensor.data);
-            tally?.add(layerEntries[i]!.file, countNonFinite(tensor.data, 0, rows * layer.elements, storageBound(dtype, keep)));
+            // the runtime's buffer moves on to the writer thread (not copied); the count comes from the means pass
+            const nonFinite = writers[i]!.write(first, rows, tensor.data, true);
+            tally?.add(layerEntries[i]!.file, nonFinite);
           });
           log.append(first - range.start, rows);
           batchesDone += 1;
@@ -357,6 +366,8 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     for (const writer of writers) writer.suspend();
     digests?.close();
     throw markIncomplete(folder, manifest, error);
+  } finally {
+    await background?.terminate();
   }
 }
 

@@ -4,6 +4,7 @@ import { uniqueTemporary } from '../disk/atomic-file.js';
 import { AsyncByteQueue } from 'apache-arrow';
 import { RuntimeFailure } from '../errors.js';
 import { writeFailure, type WriteFault } from '../disk/write-failure.js';
+import { BackgroundWriteError, type BackgroundWriter } from './background-writer.js';
 
 /**
  * A byte sink for apache-arrow's IPC writers that writes straight to a file descriptor (no queueing in
@@ -19,6 +20,15 @@ export class HashingFileSink extends AsyncByteQueue {
   private readonly hash: Hash = createHash('sha256');
   private bytesWritten = 0;
   private readonly temporaryPath: string;
+  /** With a background writer: its stream for this file (writes, hashing and fsync happen on its thread). */
+  private readonly background: BackgroundWriter | null;
+  private stream = 0;
+  /** ArrayBuffers the caller gave up (`donate`): chunks on them move to the writer thread uncopied. */
+  private readonly donated = new Set<ArrayBufferLike>();
+  /** ArrayBuffers already moved: a chunk on one of them would be empty (detached), which must never pass silently. */
+  private readonly moved = new WeakSet<ArrayBufferLike>();
+  /** A donated chunk written last, not yet moved (see `write`). */
+  private pending: { bytes: Uint8Array; position: number } | null = null;
 
   /**
    * @param finalPath the name the file gets on `commit`; it is written as `finalPath.partial` (inside a
@@ -28,13 +38,16 @@ export class HashingFileSink extends AsyncByteQueue {
    *   link — is removed first, never followed); a resumed one is opened without following links.
    * @param options `resumeAt`: keep the first `resumeAt` bytes of an existing `.partial` file (truncating
    *   anything after them) and append after them; `resumeSha256`: the SHA-256 those bytes had at the
-   *   checkpoint (from `prefixSha256`), checked before anything is truncated; `unique`: see above.
+   *   checkpoint (from `prefixSha256`), checked before anything is truncated; `unique`: see above;
+   *   `background`: write and hash on that writer's thread (see background-writer.ts) instead of the
+   *   caller's.
    * @throws RuntimeFailure when the file cannot be opened, or (resuming) is missing, shorter than
    *   `resumeAt`, or its first `resumeAt` bytes no longer have the checkpoint's SHA-256.
    */
-  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string; unique?: boolean } = {}) {
+  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string; unique?: boolean; background?: BackgroundWriter } = {}) {
     super();
     this.temporaryPath = options.unique ? uniqueTemporary(finalPath) : `${finalPath}.partial`;
+    this.background = options.background ?? null;
     const resumeAt = options.resumeAt;
     if (resumeAt === undefined) {
       try {
@@ -43,6 +56,7 @@ export class HashingFileSink extends AsyncByteQueue {
       } catch (error) {
         throw writeFailure(this.temporaryPath, error);
       }
+      if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath);
       return;
     }
     try {
@@ -70,7 +84,7 @@ export class HashingFileSink extends AsyncByteQueue {
       closeSync(this.fd);
       throw writeFailure(this.temporaryPath, error);
     }
-    if (options.resumeSha256 !== undefined && this.prefixSha256() !== options.resumeSha256) {
+    if (options.resumeSha256 !== undefined && this.hash.copy().digest('hex') !== options.resumeSha256) {
       closeSync(this.fd);
       throw new RuntimeFailure('E_RESUME', `cannot resume ${this.temporaryPath}: its first ${resumeAt} bytes changed since the checkpoint (SHA-256 differs from progress.json)`, {
         hint: 'the partial file was damaged or replaced; record again without --resume (into a new folder, or with --force)',
@@ -83,11 +97,40 @@ export class HashingFileSink extends AsyncByteQueue {
       throw writeFailure(this.temporaryPath, error);
     }
     this.bytesWritten = resumeAt;
+    if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, resumeAt);
   }
 
   /** SHA-256 (hex) of the bytes written so far (the file stays open; hashing continues). */
   prefixSha256(): string {
+    if (this.background) return this.backgroundCall(() => this.background!.sha256(this.stream)).toString('hex');
     return this.hash.copy().digest('hex');
+  }
+
+  /**
+   * Gives up `buffer`: a chunk written later that lies on it may move to the writer thread without a
+   * copy (background mode only; the caller must not use the buffer again). `undonate` withdraws what
+   * was not written.
+   */
+  donate(buffer: ArrayBufferLike): void {
+    if (this.background) this.donated.add(buffer);
+  }
+
+  /** Withdraws every donation not used by a write (and hands on a donated chunk still held). */
+  undonate(): void {
+    this.donated.clear();
+    try {
+      this.flushPending();
+    } catch (error) {
+      throw this.failure(error);
+    }
+  }
+
+  /** Moves a donated chunk held back by `write` to the writer thread. */
+  private flushPending(): void {
+    if (!this.pending) return;
+    const { bytes, position } = this.pending;
+    this.pending = null;
+    this.background!.write(this.stream, bytes, position, true);
   }
 
   /** Bytes in the file so far. */
@@ -97,17 +140,28 @@ export class HashingFileSink extends AsyncByteQueue {
 
   override write(value: ArrayBufferView | Uint8Array | ArrayBuffer): void {
     const bytes = value instanceof Uint8Array ? value : ArrayBuffer.isView(value) ? new Uint8Array(value.buffer, value.byteOffset, value.byteLength) : new Uint8Array(value);
+    if (this.moved.has(bytes.buffer)) throw new Error(`internal: a chunk of ${this.temporaryPath} lies on memory already handed to the writer thread`);
     if (bytes.byteLength === 0) return;
     try {
       if (writeFault) {
         const fault = writeFault(this.temporaryPath, this.bytesWritten, bytes.byteLength);
         if (fault) throw fault;
       }
+      if (this.background) {
+        this.flushPending();
+        if (this.donated.delete(bytes.buffer)) {
+          // moved only at the next call: the Arrow writer reads the chunk's length after this call returns
+          this.moved.add(bytes.buffer);
+          this.pending = { bytes, position: this.bytesWritten };
+        } else this.background.write(this.stream, bytes, this.bytesWritten, false);
+        this.bytesWritten += bytes.byteLength;
+        return;
+      }
       let offset = 0;
       // explicit positions: after a resume the descriptor's own offset is not at the end
       while (offset < bytes.byteLength) offset += writeSync(this.fd, bytes, offset, bytes.byteLength - offset, this.bytesWritten + offset);
     } catch (error) {
-      throw writeFailure(this.temporaryPath, error);
+      throw this.failure(error);
     }
     this.hash.update(bytes);
     this.bytesWritten += bytes.byteLength;
@@ -115,10 +169,28 @@ export class HashingFileSink extends AsyncByteQueue {
 
   /** Flushes what was written so far to disk (a checkpoint); the file stays open. */
   sync(): void {
+    if (this.background) {
+      this.backgroundCall(() => this.background!.sync(this.stream));
+      return;
+    }
     try {
       fsyncSync(this.fd);
     } catch (error) {
       throw writeFailure(this.temporaryPath, error);
+    }
+  }
+
+  /** A write failure named after the file it happened on (the writer thread's may be another layer's). */
+  private failure(error: unknown): Error {
+    return writeFailure(error instanceof BackgroundWriteError && error.path ? error.path : this.temporaryPath, error);
+  }
+
+  private backgroundCall<T>(call: () => T): T {
+    try {
+      this.flushPending();
+      return call();
+    } catch (error) {
+      throw this.failure(error);
     }
   }
 
@@ -127,6 +199,19 @@ export class HashingFileSink extends AsyncByteQueue {
 
   /** Flushes to disk, renames to the final name, and returns the file's SHA-256 and size. */
   commit(): { sha256: string; bytes: number } {
+    if (this.background) {
+      this.backgroundCall(() => this.background!.sync(this.stream));
+      const sha256 = this.backgroundCall(() => this.background!.sha256(this.stream)).toString('hex');
+      this.background.close(this.stream);
+      try {
+        closeSync(this.fd);
+        this.fd = -1;
+        renameSync(this.temporaryPath, this.finalPath);
+      } catch (error) {
+        throw writeFailure(this.finalPath, error);
+      }
+      return { sha256, bytes: this.bytesWritten };
+    }
     try {
       fsyncSync(this.fd);
       closeSync(this.fd);
@@ -140,6 +225,8 @@ export class HashingFileSink extends AsyncByteQueue {
 
   /** Closes the temporary file and keeps it (after an error, so that a resume can continue it). */
   suspend(): void {
+    this.pending = null;
+    if (this.background && this.fd >= 0) this.background.close(this.stream); // nothing may still write to the descriptor once it is closed
     try {
       if (this.fd >= 0) closeSync(this.fd);
     } catch {
@@ -150,6 +237,8 @@ export class HashingFileSink extends AsyncByteQueue {
 
   /** Closes and deletes the temporary file (after an error). */
   discard(): void {
+    this.pending = null;
+    if (this.background && this.fd >= 0) this.background.close(this.stream);
     try {
       if (this.fd >= 0) closeSync(this.fd);
     } catch {

@@ -8,7 +8,9 @@ import { ResumableFileWriter, scanRecordBatches } from './resume.js';
 import { arrowCompressionType, registerArrowCodecs, type LayerCompression } from './compression.js';
 import { LayerBlockFile } from './block-reader.js';
 import type { ActivationDtype, KeepMode } from './manifest.js';
-import { featureMeans, layoutGeometry, type LayoutGeometry, type TensorLayout } from '../graph/layout.js';
+import { layoutGeometry, type LayoutGeometry, type TensorLayout } from '../graph/layout.js';
+import { float16Pass, float32Pass, countHalfNonFinite } from './activation-pass.js';
+import type { BackgroundWriter } from './background-writer.js';
 
 /** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
 export const SHAPE_METADATA_KEY = 'sonde.shape';
@@ -102,10 +104,11 @@ export class LayerFileWriter {
    * @param options `resumeAt`: continue an interrupted `path.partial` after its first `resumeAt` bytes
    *   (a checkpoint from `checkpoint()`); the rows already there count in `rows`. `resumeSha256`: the
    *   SHA-256 of those bytes at the checkpoint (`checkpointSha256()`), verified before resuming.
+   *   `background`: write and hash on that writer's thread (background-writer.ts).
    * @throws RuntimeFailure when the file cannot be created, or the partial file does not hold complete
    *   record batches up to `resumeAt`, or those bytes do not have `resumeSha256`.
    */
-  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string } = {}) {
+  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string; background?: BackgroundWriter } = {}) {
     this.layout = layout;
     this.path = path;
     this.schema = layerSchema(layout);
@@ -116,11 +119,11 @@ export class LayerFileWriter {
     if (compressionType !== null) registerArrowCodecs();
     this.writer = new ResumableFileWriter(compressionType !== null ? { compressionType } : undefined);
     if (options.resumeAt === undefined) {
-      this.sink = new HashingFileSink(path);
+      this.sink = new HashingFileSink(path, options.background ? { background: options.background } : {});
       this.writer.reset(this.sink, this.schema);
     } else {
       const scanned = scanRecordBatches(`${path}.partial`, options.resumeAt);
-      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt, ...(options.resumeSha256 !== undefined ? { resumeSha256: options.resumeSha256 } : {}) });
+      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt, ...(options.resumeSha256 !== undefined ? { resumeSha256: options.resumeSha256 } : {}), ...(options.background ? { background: options.background } : {}) });
       this.writer.resume(this.sink, this.schema, options.resumeAt, scanned.blocks);
       this.rows = scanned.rows.reduce((a, b) => a + b, 0);
     }
@@ -139,23 +142,47 @@ export class LayerFileWriter {
 
   /**
    * Appends `rows` stimuli. `activation` holds rows × elements values, row-major (the runtime's output
-   * buffer); `firstIndex` is the global index of the first row.
+   * buffer): float32 values, or — for a float16 layout only — float16 bit patterns already converted
+   * (e.g. by a Cast in the graph). `firstIndex` is the global index of the first row. Channel means and
+   * the non-finite count come from one pass over the values (activation-pass.ts); means of float32
+   * values are taken before any float16 rounding, means of float16 bits of the stored values.
+   * @param donate the caller gives up `activation`'s memory: with a background writer its bytes move to
+   *   the writer thread without a copy, and the array must not be used again.
+   * @returns how many stored values are NaN or ±Infinity (for float16 storage: after rounding, so
+   *   float32 values of magnitude ≥ 65520 count).
    */
-  write(firstIndex: number, rows: number, activation: Float32Array): void {
+  write(firstIndex: number, rows: number, activation: Float32Array | Uint16Array, donate = false): number {
     const index = new Int32Array(rows);
     for (let r = 0; r < rows; r++) index[r] = firstIndex + r;
-    const means = featureMeans(activation, rows, this.geometry);
+    const count = rows * this.elements;
+    const half = activation instanceof Uint16Array;
+    if (half && this.layout.dtype !== 'float16') throw new RangeError(`${this.layout.name}: float16 bits given for a ${this.layout.dtype} layer`);
+    const pass = half ? float16Pass(activation, rows, this.geometry) : float32Pass(activation, rows, this.geometry);
+    let nonFinite = pass.nonFinite;
     const children: Data[] = [
       makeData({ type: new Int32(), length: rows, nullCount: 0, data: index }),
-      fixedSizeList(new Float32(), this.channels, rows, means),
+      fixedSizeList(new Float32(), this.channels, rows, pass.means),
     ];
     if (this.layout.keep === 'full') {
-      const values = activation.length === rows * this.elements ? activation : activation.subarray(0, rows * this.elements);
-      children.push(this.layout.dtype === 'float16' ? fixedSizeList(new Float16(), this.elements, rows, float32ToFloat16(values)) : fixedSizeList(new Float32(), this.elements, rows, values));
+      const values = activation.length === count ? activation : activation.subarray(0, count);
+      if (this.layout.dtype === 'float16' && !half) {
+        const bits = float32ToFloat16(values as Float32Array);
+        nonFinite = countHalfNonFinite(bits);
+        this.sink.donate(bits.buffer);
+        children.push(fixedSizeList(new Float16(), this.elements, rows, bits));
+      } else {
+        if (donate) this.sink.donate(activation.buffer);
+        children.push(fixedSizeList(half ? new Float16() : new Float32(), this.elements, rows, values));
+      }
     }
     const struct = makeData({ type: new Struct(this.schema.fields), length: rows, nullCount: 0, children });
-    this.writer.write(new RecordBatch(this.schema, struct));
+    try {
+      this.writer.write(new RecordBatch(this.schema, struct));
+    } finally {
+      this.sink.undonate();
+    }
     this.rows += rows;
+    return nonFinite;
   }
 
   /**
