@@ -188,6 +188,7 @@ export async function senseOneSiteExact(run: SiteRun): Promise<SiteSensitivity> 
     depth: layer.depth,
     op: layer.op,
     channels: C,
+    unit: siteGeometryOf(layer).unit,
     categories: [...readout.categories],
     sensitivity,
     fdError: new Float64Array(C * K),
