@@ -5,6 +5,7 @@ import { RuntimeFailure, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
+import { weightLayerDepths } from '../graph/structure.js';
 import { extractTail, upstreamCut } from '../graph/tail.js';
 import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { fillModulationInputs, inputLength } from '../modulation/inputs.js';
@@ -116,7 +117,12 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
   // where each site sits in the graph (recorded or not): diff places the site and counts depth below it from these
   const placeOf = (name: string) => {
     const info = inspection.layers.find((l) => l.name === name);
-    return { name, depth: info?.depth ?? -1, weightDepth: info?.weightDepth ?? -1 };
+    if (info) return { name, depth: info.depth, weightDepth: info.weightDepth };
+    // a site that is not recordable (batch merged with tokens): placed after the last recordable tensor above it
+    const at = inspection.structure.producer.get(name);
+    let depth = -1;
+    for (const l of inspection.layers) if (at !== undefined && (inspection.structure.producer.get(l.name) ?? -1) < at) depth = Math.max(depth, l.depth);
+    return { name, depth, weightDepth: at === undefined ? -1 : weightLayerDepths(inspection.structure).get(name) ?? -1 };
   };
   const manifestModulation = { spec: spec.source, modulations: resolved.map((r) => r.source), sites: [...new Set(resolved.map((r) => r.site))].map(placeOf) };
   const manifestBaseline = baseline ? { path: relative(resolveOutFolder(options.out), baseline.folder) || '.', manifestSha256: createHash('sha256').update(readFileSync(join(baseline.folder, 'manifest.json'))).digest('hex') } : null;

@@ -10,6 +10,7 @@
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
+import { diffSnapshots } from '../../src/compare/diff-snapshots.js';
 import { recordModulated } from '../../src/record/record-modulated.js';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
@@ -87,8 +88,14 @@ describe('recordModulated at token tensors vs PyTorch hooks (small seeded Vision
   });
 
   it('recordModulated(lesion heads: [0]) matches a hook zeroing head 0 of the attention output', async () => {
-    const { logits } = await modulatedLogits('lesion', { site: INDEX.attention1, kind: 'lesion', heads: [0] });
+    const { logits, snap } = await modulatedLogits('lesion', { site: INDEX.attention1, kind: 'lesion', heads: [0] });
     expect(maxRelativeError(logits, npy(join(TOKENS, 'logits_head_lesion.npy')))).toBeLessThanOrEqual(1e-4);
+    // the site is not recordable, yet diff places it: after block 1's first layer norm, before its attention output
+    const report = await diffSnapshots({ base: baseline, mod: snap });
+    const row = (suffix: string) => report.layers.find((l) => l.name.endsWith(suffix))!;
+    expect(row('encoder_layer_1/ln_1/Add_1_output_0').downstream).toBe(false);
+    expect(row('encoder_layer_1/self_attention/Transpose_5_output_0').downstream).toBe(true);
+    expect(row('encoder_layer_1/self_attention/Transpose_5_output_0').belowSite).toBe(1); // the output projection
   });
 
   it('recordModulated(tokens: [class, [1, 2]]) matches a hook scaling those tokens, and leaves every other token of the site bit for bit', async () => {
