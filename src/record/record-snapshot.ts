@@ -12,6 +12,7 @@ import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.j
 import { exposeTensors } from '../graph/instrument.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
+import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
@@ -57,8 +58,13 @@ export interface RecordOptions {
   dtype?: ActivationDtype;
   /** Arrow IPC buffer compression of the layer files: `none` (default), `lz4` or `zstd` (snapshot/compression.ts). */
   compress?: LayerCompression;
-  /** Stimuli per batch (default 16). */
+  /** Stimuli per batch (default 16): the unit of checkpoints; runtime calls may take fewer (`runBytes`). */
   batch?: number;
+  /**
+   * Bytes of tensors one runtime call may hold (default `DEFAULT_RUN_BYTES`, 512 MiB; graph/run-memory.ts):
+   * a batch whose inputs, recorded outputs and working set would exceed it runs in calls of fewer stimuli.
+   */
+  runBytes?: number;
   /** Runtime intra-op threads; 0 (default) lets the runtime choose. */
   threads?: number;
   /** Image size HxW; defaults to the model's input size. */
@@ -155,6 +161,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const compression = parseCompression(options.compress ?? 'none');
   const requestedBatch = options.batch ?? 16;
   if (!Number.isInteger(requestedBatch) || requestedBatch <= 0) throw new UsageError('E_BATCH', `--batch must be a positive integer, got ${requestedBatch}`);
+  runBytesOption(options.runBytes);
   const inputShape = chooseInputShape(model, options);
   const declared = model.input.dims;
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
@@ -232,7 +239,8 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
       }
     }
     writeManifest(folder, manifest);
-    return await recordInto(folder, manifest, checkpoint, { options, model: transformed, source, selected, batch, fixedBatch, range, channels: channels!, height: height!, width: width!, started, checkpointSeconds, keep, dtype });
+    const elementsByName = new Map(inspection.layers.map((l) => [l.name, l.elements]));
+    return await recordInto(folder, manifest, checkpoint, { options, elements: (name) => elementsByName.get(name), model: transformed, source, selected, batch, fixedBatch, range, channels: channels!, height: height!, width: width!, started, checkpointSeconds, keep, dtype });
   } finally {
     opened.lock.release();
   }
@@ -240,6 +248,8 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
 
 interface RecordRun {
   options: RecordOptions;
+  /** Per-stimulus element count of a tensor of the model (undefined when unknown, e.g. weights). */
+  elements: (tensor: string) => number | undefined;
   model: LoadedModel;
   source: StimulusSource;
   selected: LayerInfo[];
@@ -307,13 +317,12 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     if (!checkpoint) takeCheckpoint(0, 0);
     const session = await createNetworkSession(exposeTensors(run.model, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true });
     let bytesWritten = 0;
-    let batchesDone = doneBatches;
     try {
-      const batches = Math.ceil(rowsTotal / batch);
-      const read = stimulusBatches(source, batch, fixedBatch, range, run.model.input.name, [run.channels, run.height, run.width], log.digests, options.extension?.extraFeeds?.bind(options.extension), fedNonFinite);
+      const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows(run));
+      const read = stimulusBatches(source, fixedBatch, range, run.model.input.name, [run.channels, run.height, run.width], log.digests, options.extension?.extraFeeds?.bind(options.extension), fedNonFinite);
       await runPipelined(
-        batches - doneBatches,
-        (k) => read(k + doneBatches),
+        calls.length,
+        (k) => read(calls[k]!.first, calls[k]!.rows),
         (feeds) => session.run(feeds, selected.map((l) => l.name)),
         (first, rows, outputs) => {
           selected.forEach((layer, i) => {
@@ -325,9 +334,10 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
             tally?.add(layerEntries[i]!.file, nonFinite);
           });
           log.append(first - range.start, rows);
-          batchesDone += 1;
           const done = first + rows - range.start;
-          if (done === rowsTotal || (performance.now() - lastCheckpoint) / 1000 >= run.checkpointSeconds) takeCheckpoint(batchesDone, done);
+          // checkpoints fall on whole batches (a resume counts in batches of --batch), however the runtime calls split them
+          const batchEnd = done % batch === 0 || done === rowsTotal;
+          if (batchEnd && (done === rowsTotal || (performance.now() - lastCheckpoint) / 1000 >= run.checkpointSeconds)) takeCheckpoint(Math.ceil(done / batch), done);
           bytesWritten += selected.reduce((sum, l) => sum + rows * ((keep === 'full' ? l.elements * (dtype === 'float16' ? 2 : 4) : 0) + channelsOf(l) * 4), 0);
           options.onProgress?.({ done, total: rowsTotal, elapsedSeconds: (performance.now() - run.started) / 1000, bytesWritten });
         },
@@ -498,15 +508,41 @@ export async function runPipelined(
 }
 
 /**
- * Reads the stimulus batches of `range` as input feeds (batch k covers local rows [k·batch, …)), and
- * stores the SHA-256 of each stimulus's exact input bytes at its local row in `digests`.
+ * Rows per runtime call: a fixed-batch model's batch; otherwise as many of a batch as keep the call's
+ * tensors — the fed stimuli, every exposed output, the largest node's working set (graph/run-memory.ts) —
+ * within the run-bytes budget (`runBytes`, default 512 MiB), so that peak memory does not grow with the
+ * batch size or the bytes of the recorded layers.
  */
-function stimulusBatches(source: StimulusSource, batch: number, fixedBatch: number | null, range: { start: number; end: number }, inputName: string, shape: [number, number, number], digests: Uint8Array, extraFeeds: RecordExtension['extraFeeds'], nonFinite: Uint32Array) {
+export function callRows(run: Pick<RecordRun, 'options' | 'model' | 'selected' | 'batch' | 'fixedBatch' | 'channels' | 'height' | 'width' | 'elements'>): number {
+  if (run.fixedBatch !== null) return run.fixedBatch;
+  const input = run.channels * run.height * run.width;
+  const rowBytes = runRowBytes(run.model, (name) => (name === run.model.input.name ? input : run.elements(name)), { fed: [run.model.input.name], fetched: run.selected.map((l) => l.name) });
+  return rowsWithin(runBytesOption(run.options.runBytes), rowBytes, run.batch);
+}
+
+/**
+ * The runtime calls of local rows [from, total): each batch of `batch` rows (batch k covers
+ * [k·batch, (k+1)·batch)) split into calls of at most `perCall` rows.
+ * @param from where the recording continues (a multiple of `batch`, or `total`).
+ */
+export function runtimeCalls(from: number, total: number, batch: number, perCall: number): Array<{ first: number; rows: number }> {
+  const calls: Array<{ first: number; rows: number }> = [];
+  for (let start = from; start < total; start += batch) {
+    const end = Math.min(total, start + batch);
+    for (let first = start; first < end; first += perCall) calls.push({ first, rows: Math.min(perCall, end - first) });
+  }
+  return calls;
+}
+
+/**
+ * Reads stimuli of `range` as input feeds (`local` rows from the start of the range), and stores the
+ * SHA-256 of each stimulus's exact input bytes at its local row in `digests`.
+ */
+function stimulusBatches(source: StimulusSource, fixedBatch: number | null, range: { start: number; end: number }, inputName: string, shape: [number, number, number], digests: Uint8Array, extraFeeds: RecordExtension['extraFeeds'], nonFinite: Uint32Array) {
   const [c, h, w] = shape;
   const per = c * h * w;
-  return async (k: number): Promise<FeedBatch> => {
-    const first = range.start + k * batch;
-    const rows = Math.min(batch, range.end - first);
+  return async (local: number, rows: number): Promise<FeedBatch> => {
+    const first = range.start + local;
     const padded = fixedBatch ?? rows;
     const data = new Float32Array(padded * per); // zero padding for fixed-batch models
     await source.read(first, rows, data);

@@ -69,7 +69,7 @@ export function registerRecord(program: Command): void {
     .option('--tuning <file.arrow>', 'tuning table for the tuning kind and lesion top (from `sonde tune`)')
     .option('--sensitivity <file.arrow>', 'sensitivity table for the sensitivity kind (from `sonde sense`)')
     .option('--full-run', 'with --from: run the whole network instead of replaying the downstream part')
-    .option('--run-memory <MB>', 'with --from: MB of tensors one runtime call of the downstream replay may hold (default 512); a baseline batch is split into smaller calls to stay within it', positiveInteger)
+    .option('--run-memory <MB>', 'MB of tensors one runtime call may hold (default 512; with --from: of the downstream replay); a batch is split into smaller calls to stay within it', positiveInteger)
     .option('--resume', 'continue an interrupted recording in --out from its last checkpoint (same options); a complete one is left alone')
     .option('--shard <K/N>', 'record only shard K of N of the stimuli (contiguous, balanced; 1-based K), e.g. $SLURM_ARRAY_TASK_ID/8')
     .option('--checkpoint-every <seconds>', 'seconds between resume checkpoints (0: after every batch)', finiteNumber, 2)
@@ -110,7 +110,7 @@ export function registerRecord(program: Command): void {
         const loaded = opts.tuning || opts.sensitivity ? loadModulationTables({ ...(opts.tuning ? { tuning: opts.tuning } : {}), ...(opts.sensitivity ? { sensitivity: opts.sensitivity } : {}) }) : null;
         const summary = opts.modulate
           ? await recordModulated({ ...common, modulate: opts.modulate, ...(loaded ? { tables: loaded.tables, categories: loaded.categories } : {}), ...(opts.from ? { from: opts.from } : {}), ...(opts.fullRun ? { fullRun: true } : {}), ...(opts.runMemory ? { runBytes: opts.runMemory * 2 ** 20 } : {}) })
-          : await recordSnapshot(common);
+          : await recordSnapshot({ ...common, ...(opts.runMemory ? { runBytes: opts.runMemory * 2 ** 20 } : {}) });
         bar.stop();
         if (summary.resumed === 'complete') return;
         io.stdout(
