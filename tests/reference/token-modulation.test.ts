@@ -54,10 +54,10 @@ describe('recordModulated at token tensors vs PyTorch hooks (small seeded Vision
     baseline = openSnapshot(base);
   });
 
-  async function modulatedLogits(name: string, spec: object): Promise<{ logits: Float32Array; snap: Snapshot; mode: string }> {
+  async function modulatedLogits(name: string, spec: object, fullRun = false): Promise<{ logits: Float32Array; snap: Snapshot; mode: string }> {
     const path = join(dir, `${name}.json`);
     writeFileSync(path, JSON.stringify(spec));
-    const result = await recordModulated({ model: MODEL, stimuli: INPUTS, out: join(dir, name), modulate: path, from: base, threads: 1 });
+    const result = await recordModulated({ model: MODEL, stimuli: INPUTS, out: join(dir, name), modulate: path, from: base, threads: 1, fullRun });
     const snap = openSnapshot(result.folder);
     return { logits: await layerValues(snap, 'logits'), snap, mode: result.manifest.run.mode };
   }
@@ -85,6 +85,10 @@ describe('recordModulated at token tensors vs PyTorch hooks (small seeded Vision
     expect(record.details).toMatchObject({ per: 'head', headCount: 2 });
     // head h covers features 8h … 8h + 7 of the 16
     expect(record.gain).toEqual([...new Array(8).fill(Math.fround(1.75)), ...new Array(8).fill(Math.fround(0.4))]);
+    // the whole network with the shared [1, D] gain gives the same logits as the tail replay
+    const full = await modulatedLogits('heads-full', { site: INDEX.attention1, kind: 'gain', per: 'head', values }, true);
+    expect(full.mode).toBe('full');
+    expect(maxRelativeError(full.logits, logits)).toBeLessThanOrEqual(1e-6);
   });
 
   it('recordModulated(lesion heads: [0]) matches a hook zeroing head 0 of the attention output', async () => {
