@@ -10,11 +10,12 @@ import { existsSync, renameSync, statSync } from 'node:fs';
 import { extname, relative } from 'node:path';
 import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
+import { exposeTensorsAsFloat16, halfOutputName } from '../graph/expose-half.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { readSidecar } from '../graph/sidecar.js';
-import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
+import { createNetworkSession, type FloatTensor, type StoredTensor } from '../session/network-session.js';
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
 import { BackgroundWriter } from '../snapshot/background-writer.js';
 import { parseCompression, type LayerCompression } from '../snapshot/compression.js';
@@ -94,6 +95,11 @@ export interface RecordOptions {
    * false writes them on the calling thread (the benchmark measures the difference).
    */
   writeInBackground?: boolean;
+  /**
+   * With `dtype: 'float16'` (and `keep: 'full'`): convert in the graph with ONNX Cast nodes (default
+   * true; graph/expose-half.ts) rather than in JavaScript after the run (the benchmark compares them).
+   */
+  float16InGraph?: boolean;
   /** Replace a complete snapshot already in `out`. */
   force?: boolean;
   /**
@@ -315,7 +321,11 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       lastCheckpoint = performance.now();
     };
     if (!checkpoint) takeCheckpoint(0, 0);
-    const session = await createNetworkSession(exposeTensors(run.model, selected.map((l) => l.name)), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true });
+    // float16 activations: Cast nodes in the graph convert them, so the runtime hands over half the bytes
+    const castInGraph = dtype === 'float16' && keep === 'full' && options.float16InGraph !== false;
+    const names = selected.map((l) => l.name);
+    const fetch = castInGraph ? names.map(halfOutputName) : names;
+    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true });
     let bytesWritten = 0;
     try {
       const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows(run));
@@ -323,10 +333,10 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       await runPipelined(
         calls.length,
         (k) => read(calls[k]!.first, calls[k]!.rows),
-        (feeds) => session.run(feeds, selected.map((l) => l.name)),
+        (feeds) => session.runStored(feeds, fetch),
         (first, rows, outputs) => {
           selected.forEach((layer, i) => {
-            const tensor = outputs[layer.name];
+            const tensor = outputs[fetch[i]!];
             if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
             checkShape(layer, tensor, rows, fixedBatch);
             // the runtime's buffer moves on to the writer thread (not copied); the count comes from the means pass
@@ -468,7 +478,7 @@ function channelsOf(layer: LayerInfo): number {
   return channelCount(layer.shape, layer.layout);
 }
 
-function checkShape(layer: LayerInfo, tensor: FloatTensor, rows: number, fixedBatch: number | null): void {
+function checkShape(layer: LayerInfo, tensor: StoredTensor, rows: number, fixedBatch: number | null): void {
   const expected = (fixedBatch ?? rows) * layer.elements;
   if (tensor.data.length !== expected) {
     throw new UsageError('E_RUNTIME_OUTPUT', `"${layer.name}" came back with shape [${tensor.dims.join(', ')}], expected [${fixedBatch ?? rows}, ${layer.shape.join(', ')}] (shapes that depend on the batch are not supported)`);
@@ -486,15 +496,15 @@ export interface FeedBatch {
  * The pipelined loop: while the runtime computes batch k, the feeds of batch k+1 are prepared and the
  * outputs of batch k−1 are written. At most two feed batches and two output batches are alive.
  */
-export async function runPipelined(
+export async function runPipelined<T = Record<string, FloatTensor>>(
   batches: number,
   readBatch: (k: number) => Promise<FeedBatch>,
-  run: (feeds: Record<string, FloatTensor>) => Promise<Record<string, FloatTensor>>,
-  write: (first: number, rows: number, outputs: Record<string, FloatTensor>) => void,
+  run: (feeds: Record<string, FloatTensor>) => Promise<T>,
+  write: (first: number, rows: number, outputs: T) => void,
 ): Promise<void> {
   let nextInput = batches > 0 ? readBatch(0) : null;
   nextInput?.catch(() => undefined);
-  let pending: { first: number; rows: number; outputs: Record<string, FloatTensor> } | null = null;
+  let pending: { first: number; rows: number; outputs: T } | null = null;
   for (let k = 0; k < batches; k++) {
     const input = await nextInput!;
     nextInput = k + 1 < batches ? readBatch(k + 1) : null;

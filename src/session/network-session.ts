@@ -13,6 +13,12 @@ export interface FloatTensor {
   dims: number[];
 }
 
+/** An output as the runtime stores it: float32 values, or float16 bit patterns (IEEE 754 binary16) for float16 outputs. */
+export interface StoredTensor {
+  data: Float32Array | Uint16Array;
+  dims: number[];
+}
+
 /** Options of `createNetworkSession`. */
 export interface NetworkSessionOptions {
   /** Intra-op threads of the runtime; 0 lets the runtime decide. Default 0. */
@@ -32,6 +38,8 @@ export interface NetworkSession {
    * caller; the input arrays stay the caller's (they are copied).
    */
   run(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, FloatTensor>>;
+  /** As `run`, but float16 outputs are allowed too and come back as their bit patterns (Uint16Array). */
+  runStored(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, StoredTensor>>;
   /** Releases native resources. */
   close(): Promise<void>;
 }
@@ -110,6 +118,14 @@ class OrtNetworkSession implements NetworkSession {
   }
 
   async run(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, FloatTensor>> {
+    return (await this.invoke(feeds, fetch, false)) as Record<string, FloatTensor>;
+  }
+
+  runStored(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, StoredTensor>> {
+    return this.invoke(feeds, fetch, true);
+  }
+
+  private async invoke(feeds: Record<string, FloatTensor>, fetch: readonly string[] | undefined, half: boolean): Promise<Record<string, StoredTensor>> {
     const ortFeeds: Record<string, ort.Tensor> = {};
     for (const [name, tensor] of Object.entries(feeds)) ortFeeds[name] = new ort.Tensor('float32', tensor.data, tensor.dims);
     let results: ort.InferenceSession.OnnxValueMapType;
@@ -122,13 +138,13 @@ class OrtNetworkSession implements NetworkSession {
     } finally {
       this.inFlight.delete(running);
     }
-    const out: Record<string, FloatTensor> = {};
+    const out: Record<string, StoredTensor> = {};
     for (const [name, value] of Object.entries(results)) {
       const tensor = value as ort.Tensor;
-      if (tensor.type !== 'float32') {
+      if (tensor.type !== 'float32' && !(half && tensor.type === 'float16')) {
         throw new RuntimeFailure('E_RUNTIME_DTYPE', `${this.label}: output "${name}" is ${tensor.type}; Sonde records float32 tensors only`);
       }
-      out[name] = { data: tensor.data as Float32Array, dims: tensor.dims.slice() };
+      out[name] = { data: tensor.data as Float32Array | Uint16Array, dims: tensor.dims.slice() };
     }
     return out;
   }
@@ -165,7 +181,7 @@ async function handle(m) {
       const transfer = [];
       for (const name of Object.keys(results)) {
         const t = results[name];
-        if (t.type !== 'float32') throw new Error('output "' + name + '" is ' + t.type + '; Sonde records float32 tensors only');
+        if (t.type !== 'float32' && !(m.half && t.type === 'float16')) throw new Error('output "' + name + '" is ' + t.type + '; Sonde records float32 tensors only');
         out[name] = { data: t.data, dims: t.dims.slice() };
         if (!transfer.includes(t.data.buffer)) transfer.push(t.data.buffer);
       }
@@ -184,7 +200,7 @@ async function handle(m) {
 interface WorkerReply {
   id: number;
   error?: string;
-  out?: Record<string, FloatTensor>;
+  out?: Record<string, StoredTensor>;
   inputNames?: string[];
   outputNames?: string[];
 }
@@ -241,7 +257,15 @@ class WorkerNetworkSession implements NetworkSession {
   }
 
   async run(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, FloatTensor>> {
-    const reply = await this.call({ type: 'run', feeds, fetch: fetch ? [...fetch] : undefined });
+    return (await this.invoke(feeds, fetch, false)) as Record<string, FloatTensor>;
+  }
+
+  runStored(feeds: Record<string, FloatTensor>, fetch?: readonly string[]): Promise<Record<string, StoredTensor>> {
+    return this.invoke(feeds, fetch, true);
+  }
+
+  private async invoke(feeds: Record<string, FloatTensor>, fetch: readonly string[] | undefined, half: boolean): Promise<Record<string, StoredTensor>> {
+    const reply = await this.call({ type: 'run', feeds, fetch: fetch ? [...fetch] : undefined, half });
     if (reply.error) throw new RuntimeFailure('E_RUNTIME_RUN', `running ${this.label} failed: ${reply.error}`);
     return reply.out!;
   }

@@ -10,7 +10,9 @@ import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { createNetworkSession } from '../../src/session/network-session.js';
 import { loadModel } from '../../src/graph/load-model.js';
 import { exposeTensors } from '../../src/graph/instrument.js';
-import { parseNpy } from '../../src/stimuli/npy.js';
+import { formatNpy, parseNpy } from '../../src/stimuli/npy.js';
+import { createRandom } from '../../src/random.js';
+import { fromFloat16Bits } from '../../src/snapshot/float16.js';
 import { buildTinyNet, externalise, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 let folder: string;
@@ -213,5 +215,41 @@ describe('recordSnapshot', () => {
       }
       expect(next).toBe(Math.max(from, total));
     }
+  });
+
+  it('recordSnapshot --dtype float16 casts in the graph to the same bits as IEEE 754 round-to-nearest-even in JavaScript, counts overflow to ±Infinity the same, and stores the means of the stored values', async () => {
+    // inputs large enough that some activations pass the float16 range (65504) and become ±Infinity
+    const own = join(folder, 'half-stimuli');
+    mkdirSync(own, { recursive: true });
+    const rng = createRandom(11);
+    const data = new Float32Array(6 * 3 * 16 * 16).map(() => (rng.uniform() - 0.3) * 40000);
+    const npy = join(own, 'big.npy');
+    writeFileSync(npy, formatNpy(data, [6, 3, 16, 16]));
+    const inGraph = await recordSnapshot({ model: modelPath, stimuli: npy, out: join(folder, 'half-graph'), dtype: 'float16', batch: 4, layers: 'all' });
+    const inScript = await recordSnapshot({ model: modelPath, stimuli: npy, out: join(folder, 'half-script'), dtype: 'float16', batch: 4, layers: 'all', float16InGraph: false });
+    let overflowed = 0;
+    for (const [i, layer] of inGraph.manifest.layers.entries()) {
+      const a = tableFromIPC(readFileSync(join(inGraph.folder, layer.file)));
+      const b = tableFromIPC(readFileSync(join(inScript.folder, layer.file)));
+      const bitsA = a.batches.flatMap((batch) => Array.from(batch.getChild('activation')!.data[0]!.children[0]!.values as Uint16Array));
+      const bitsB = b.batches.flatMap((batch) => Array.from(batch.getChild('activation')!.data[0]!.children[0]!.values as Uint16Array));
+      expect(bitsA, layer.name).toEqual(bitsB);
+      const infinite = bitsA.filter((bits) => (bits & 0x7c00) === 0x7c00).length;
+      overflowed += infinite;
+      expect(layer.nonFinite, layer.name).toBe(infinite);
+      expect(inScript.manifest.layers[i]!.nonFinite, layer.name).toBe(infinite);
+      // channel means of the in-graph snapshot: float64 means of the stored float16 values (exact property of the definition)
+      const channels = layer.shape[0]!;
+      const per = layer.shape.reduce((x, y) => x * y, 1);
+      const means = a.batches.flatMap((batch) => Array.from(batch.getChild('channel_mean')!.data[0]!.children[0]!.values as Float32Array));
+      for (let r = 0; r < 6; r++) {
+        for (let c = 0; c < channels; c++) {
+          let sum = 0;
+          for (let k = 0; k < per / channels; k++) sum += fromFloat16Bits(bitsA[r * per + c * (per / channels) + k]!);
+          expect(means[r * channels + c]).toBe(Math.fround(sum / (per / channels)));
+        }
+      }
+    }
+    expect(overflowed).toBeGreaterThan(0);
   });
 });
