@@ -1,6 +1,8 @@
+import { benchCompressedRecord } from './compressed-record.js';
 import { benchDecodeKernels } from './decode-kernels.js';
 import { benchDiffThroughput } from './diff-throughput.js';
 import { benchExportThroughput } from './export-throughput.js';
+import { benchMeansRead } from './means-read.js';
 import { benchRecordOverhead } from './record-overhead.js';
 import { benchReplayMemory } from './replay-memory.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
@@ -18,4 +20,6 @@ export const BENCHMARKS: Record<string, Benchmark> = {
   'sweep-throughput': benchSweepThroughput,
   'replay-memory': benchReplayMemory,
   'decode-kernels': benchDecodeKernels,
+  'compressed-record': benchCompressedRecord,
+  'means-read': benchMeansRead,
 };
