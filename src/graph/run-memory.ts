@@ -66,6 +66,17 @@ export function rowsWithin(budget: number, rowBytes: number, most: number, least
 }
 
 /**
+ * Rows per call that split `total` rows into the fewest calls of at most `cap` rows, all about the same
+ * size (⌈total / ⌈total / cap⌉⌉): 16 rows under a cap of 10 go as 8 + 8, not 10 + 6, so every call has
+ * nearly the same shape and the runtime can reuse one memory plan.
+ */
+export function evenRows(total: number, cap: number): number {
+  if (total <= 0) return Math.max(1, cap);
+  const calls = Math.ceil(total / Math.max(1, Math.min(cap, total)));
+  return Math.ceil(total / calls);
+}
+
+/**
  * The run-bytes budget of an option (bytes), or the default when undefined.
  * @throws UsageError E_RUN_MEMORY for a budget that is not a positive finite number.
  */

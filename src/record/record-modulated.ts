@@ -7,7 +7,7 @@ import { injectModulations, modulationInputDims, modulationInputNames, type Inje
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { weightLayerDepths } from '../graph/structure.js';
 import { extractTail, upstreamCut } from '../graph/tail.js';
-import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
+import { evenRows, runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { fillModulationInputs, inputLength } from '../modulation/inputs.js';
 import { resolveModulations } from '../modulation/resolve.js';
 import { loadModulationSpec } from '../modulation/spec.js';
@@ -308,7 +308,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     const elements = (name: string): number | undefined => byName.get(name)?.elements;
     const fed = tail.boundary.map((name) => (siteNames.has(name) ? `${name}::raw` : name));
     const rowBytes = runRowBytes(injected, (name) => elements(name.endsWith('::raw') ? name.slice(0, -5) : name), { fed, fetched: fetch });
-    const rowsPerCall = rowsWithin(runBytesOption(options.runBytes), rowBytes, batchRows);
+    const rowsPerCall = evenRows(batchRows, rowsWithin(runBytesOption(options.runBytes), rowBytes, batchRows));
     const session = await createNetworkSession(exposeTensors(injected, fetch), { threads: options.threads ?? 0, label: `${run.model.fileName} (downstream part)` });
     const firstIndex = baseline.firstIndex;
     const streams = tail.boundary.map((name) => baseline.readLayer(name, doneRows > 0 ? { range: [firstIndex + doneRows, firstIndex + count] } : {}));

@@ -15,7 +15,7 @@ import type { ModelInspection } from '../record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import { boundaryStream, siteGeometryOf, tensorElements, type SiteRun, type StimulusValues } from './sense-run.js';
-import { DEFAULT_RUN_BYTES, runRowBytes, rowsWithin } from '../graph/run-memory.js';
+import { DEFAULT_RUN_BYTES, evenRows, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { siteTail } from './sense-plan.js';
 import type { SiteSensitivity } from './sense-types.js';
 
@@ -57,8 +57,9 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
   // stimuli with all K categories, fewer stimuli where that exceeds the budget, and where even one
   // stimulus with K categories does, one stimulus with the categories in chunks of Kc per run.
   const rowBytes = runRowBytes(tail.model, (name) => tensorElements(run, name), { fed: boundary, fetched: [readout.tensor], backward: true });
-  const Kc = Math.min(K, rowsWithin(run.runBytes, rowBytes, K));
-  const group = Kc < K ? 1 : rowsWithin(run.runBytes, K * rowBytes, Math.max(1, Math.floor(run.batch / K)));
+  const Kc = evenRows(K, rowsWithin(run.runBytes, rowBytes, K));
+  const most = Math.max(1, Math.floor(run.batch / K));
+  const group = Kc < K ? 1 : evenRows(most, rowsWithin(run.runBytes, K * rowBytes, most));
   const graph = buildGradientGraph({ tail: tail.model, site, readout: readout.tensor, copies: Kc, probed: run.inspection.probed, modelName: run.model.fileName, featureAxis: featureAxis + 1 });
   const feedNames = boundary.map((name) => (Kc === 1 ? name : `${name}::once`));
   const output = kind === 'gain' ? graph.gain : graph.offset;

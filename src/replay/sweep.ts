@@ -28,7 +28,7 @@ import { inspectModel } from '../record/inspect-model.js';
 import { assertSameModel, planTail, siteShapes } from '../record/record-modulated.js';
 import { shuffleChannels } from '../modulation/shuffle.js';
 import { alignedBoundary, replicateRows } from './replicate-feeds.js';
-import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
+import { evenRows, runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { shardRange } from '../record/shard.js';
 import { ALL_ACTIVATIONS, chooseSites } from './sense-plan.js';
 import { SWEEP_SCHEMES, type MatchTarget, type SweepCell, type SweepDepthPoint, type SweepDetection, type SweepMeasure, type SweepResult, type SweepScheme } from './sweep-types.js';
@@ -481,8 +481,8 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
       const rows = parts[0]!.rows;
       const first = parts[0]!.index[0]!;
       // all stimuli of the batch and as many vectors as fit, or one vector and as many stimuli as fit
-      const stimuliPerCall = Math.min(rows, cap);
-      const vectorsPerCall = Math.max(1, Math.floor(cap / stimuliPerCall));
+      const stimuliPerCall = evenRows(rows, Math.min(rows, cap));
+      const vectorsPerCall = evenRows(M, Math.max(1, Math.floor(cap / stimuliPerCall)));
       for (let m0 = 0; m0 < M; m0 += vectorsPerCall) {
         for (let i0 = 0; i0 < rows; i0 += stimuliPerCall) await evaluateCall(parts, baseBatches, first, m0, Math.min(vectorsPerCall, M - m0), i0, Math.min(stimuliPerCall, rows - i0));
       }

@@ -4,7 +4,7 @@
  */
 import { describe, expect, it } from 'vitest';
 import { loadModel } from '../../src/graph/load-model.js';
-import { DEFAULT_RUN_BYTES, rowsWithin, runBytesOption, runRowBytes } from '../../src/graph/run-memory.js';
+import { DEFAULT_RUN_BYTES, evenRows, rowsWithin, runBytesOption, runRowBytes } from '../../src/graph/run-memory.js';
 import { writeOpGraph } from '../helpers/op-graph.js';
 
 describe('runRowBytes', () => {
@@ -43,6 +43,21 @@ describe('rowsWithin', () => {
     expect(rowsWithin(50, 100, 16)).toBe(1);
     expect(rowsWithin(50, 100, 16, 3)).toBe(3);
     expect(rowsWithin(1000, 0, 16)).toBe(16);
+  });
+
+  it('evenRows splits a total into the fewest calls within the cap, of nearly equal size', () => {
+    expect(evenRows(16, 10)).toBe(8);
+    expect(evenRows(16, 16)).toBe(16);
+    expect(evenRows(16, 40)).toBe(16);
+    expect(evenRows(17, 8)).toBe(6); // 3 calls: 6 + 6 + 5
+    expect(evenRows(16, 1)).toBe(1);
+    for (let total = 1; total <= 40; total++) {
+      for (let cap = 1; cap <= 45; cap++) {
+        const rows = evenRows(total, cap);
+        expect(rows).toBeLessThanOrEqual(Math.max(1, cap));
+        expect(Math.ceil(total / rows)).toBe(Math.ceil(total / Math.min(cap, total)));
+      }
+    }
   });
 
   it('runBytesOption defaults to DEFAULT_RUN_BYTES and refuses a budget that is not positive', () => {
