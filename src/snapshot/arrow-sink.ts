@@ -29,6 +29,10 @@ export class HashingFileSink extends AsyncByteQueue {
   private readonly moved = new WeakSet<ArrayBufferLike>();
   /** A donated chunk written last, not yet moved (see `write`). */
   private pending: { bytes: Uint8Array; position: number } | null = null;
+  /** Small chunks gathered for one message to the writer thread: `staged` bytes from file position `stagingAt`. */
+  private staging: Uint8Array | null = null;
+  private staged = 0;
+  private stagingAt = 0;
 
   /**
    * @param finalPath the name the file gets on `commit`; it is written as `finalPath.partial` (inside a
@@ -133,6 +137,15 @@ export class HashingFileSink extends AsyncByteQueue {
     this.background!.write(this.stream, bytes, position, true);
   }
 
+  /** Moves the staged small chunks to the writer thread (they always follow a pending chunk). */
+  private flushStaging(): void {
+    if (!this.staging) return;
+    const staged = this.staging.subarray(0, this.staged);
+    this.staging = null;
+    this.staged = 0;
+    this.background!.write(this.stream, staged, this.stagingAt, true);
+  }
+
   /** Bytes in the file so far. */
   get byteLength(): number {
     return this.bytesWritten;
@@ -150,10 +163,23 @@ export class HashingFileSink extends AsyncByteQueue {
       if (this.background) {
         this.flushPending();
         if (this.donated.delete(bytes.buffer)) {
+          this.flushStaging();
           // moved only at the next call: the Arrow writer reads the chunk's length after this call returns
           this.moved.add(bytes.buffer);
           this.pending = { bytes, position: this.bytesWritten };
-        } else this.background.write(this.stream, bytes, this.bytesWritten, false);
+        } else if (bytes.byteLength <= STAGED_CHUNK_BYTES) {
+          // small chunks (Arrow metadata, padding, indices, means) travel together, one message per stage
+          if (this.staging && this.staged + bytes.byteLength > this.staging.length) this.flushStaging();
+          if (!this.staging) {
+            this.staging = new Uint8Array(STAGE_BYTES);
+            this.stagingAt = this.bytesWritten;
+          }
+          this.staging.set(bytes, this.staged);
+          this.staged += bytes.byteLength;
+        } else {
+          this.flushStaging();
+          this.background.write(this.stream, bytes, this.bytesWritten, false);
+        }
         this.bytesWritten += bytes.byteLength;
         return;
       }
@@ -188,6 +214,7 @@ export class HashingFileSink extends AsyncByteQueue {
   private backgroundCall<T>(call: () => T): T {
     try {
       this.flushPending();
+      this.flushStaging();
       return call();
     } catch (error) {
       throw this.failure(error);
@@ -226,6 +253,7 @@ export class HashingFileSink extends AsyncByteQueue {
   /** Closes the temporary file and keeps it (after an error, so that a resume can continue it). */
   suspend(): void {
     this.pending = null;
+    this.staging = null;
     if (this.background && this.fd >= 0) this.background.close(this.stream); // nothing may still write to the descriptor once it is closed
     try {
       if (this.fd >= 0) closeSync(this.fd);
@@ -238,6 +266,7 @@ export class HashingFileSink extends AsyncByteQueue {
   /** Closes and deletes the temporary file (after an error). */
   discard(): void {
     this.pending = null;
+    this.staging = null;
     if (this.background && this.fd >= 0) this.background.close(this.stream);
     try {
       if (this.fd >= 0) closeSync(this.fd);
@@ -248,6 +277,11 @@ export class HashingFileSink extends AsyncByteQueue {
     rmSync(this.temporaryPath, { force: true });
   }
 }
+
+/** Chunks up to this size are gathered (background mode) rather than sent one by one. */
+const STAGED_CHUNK_BYTES = 16 * 1024;
+/** Size of one gathering buffer. */
+const STAGE_BYTES = 256 * 1024;
 
 /** The fault every sink write consults (tests only; see `injectWriteFault`). */
 let writeFault: WriteFault | null = null;
