@@ -47,7 +47,7 @@ export async function diffPartial(options: DiffOptions, shard: ShardSpec): Promi
     base: snapshotKey(base),
     mod: snapshotKey(mod),
     floor: collection.floor?.folder ?? null,
-    options: { bootstrap: options.bootstrap ?? 1000, seed: options.seed ?? 0, tolerance: options.tolerance ?? 0.01, threshold: options.threshold ?? 'auto', task: options.task ?? null, target: options.target ?? null },
+    options: { bootstrap: options.bootstrap ?? 1000, seed: options.seed ?? 0, tolerance: options.tolerance ?? 0.01, threshold: options.threshold ?? 'auto', task: options.task ?? null, target: options.target ?? null, ...(options.readoutMap ? { readoutMap: options.readoutMap.sha256 } : {}) },
     layers: collection.layers.map((l) => [l.name, l.tuning ? encodeArray(l.tuning).base64 : null]),
   };
   const data = {

@@ -149,6 +149,15 @@ describe('--readout-map', () => {
     }
     const text = await ok(['diff', held, mod, '--task', 'detect:ring', '--readout-map', map, '--bootstrap', '0']);
     expect(text).toMatch(/grouped by readout map kinds\.json/);
+    // sharded: two partial diffs under the map merge into the same task figures; a shard under another map does not merge
+    const parts = [1, 2].map((k) => join(dir, `part-${k}.json`));
+    for (const [k, part] of parts.entries()) await ok(['diff', held, mod, '--task', 'detect:all', '--readout-map', map, '--bootstrap', '0', '--shard', `${k + 1}/2`, '--partial', part]);
+    const merged = JSON.parse(await ok(['merge', ...parts, '--json'])) as typeof report;
+    for (const t of merged.task.categories) expect(t.auc.base).toBeCloseTo(heldAucs[t.category]!, 12);
+    expect(merged.task.readoutMap.name).toBe('kinds.json');
+    const otherPart = join(dir, 'part-2-other.json');
+    await ok(['diff', held, mod, '--task', 'detect:all', '--readout-map', 'ring=151..268;bar=281..285;disc=7;cross=600', '--bootstrap', '0', '--shard', '2/2', '--partial', otherPart]);
+    expect(await refused(['merge', parts[0]!, otherPart, '--json'])).toMatch(/comes from another run/);
   }, 240_000);
 
   it('--readout-map refuses in one line: tables made under different maps, a sweep without the tables\' map, an unknown unit name, a map category no stimulus carries', async () => {
