@@ -199,3 +199,19 @@ describe('exportSnapshot', () => {
     expect(missing.stderr).toMatch(/needs --out/);
   });
 });
+
+describe('exportSnapshot (compressed snapshots)', () => {
+  it('exportSnapshot of a ZSTD-compressed snapshot writes the .npy bytes of the uncompressed recording\'s export (the reader hands out the stored values whatever the codec)', async () => {
+    const zstdSnap = join(dir, 'base-zstd');
+    await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: zstdSnap, layers: 'all', batch: 4, threads: 1, compress: 'zstd' });
+    const zstd = await exportSnapshot({ snapshot: zstdSnap, out: join(dir, 'base-zstd-npy') });
+    const plain = await exportSnapshot({ snapshot: base, out: join(dir, 'base-plain-npy') });
+    expect(zstd.description.layers.map((l) => l.name)).toEqual(plain.description.layers.map((l) => l.name));
+    zstd.description.layers.forEach((layer, i) => {
+      const other = plain.description.layers[i]!;
+      expect(layer.activation!.sha256, layer.name).toBe(other.activation!.sha256);
+      expect(layer.channelMeans.sha256, layer.name).toBe(other.channelMeans.sha256);
+      expect(readFileSync(join(zstd.folder, layer.activation!.file)).equals(readFileSync(join(plain.folder, other.activation!.file)))).toBe(true);
+    });
+  });
+});
