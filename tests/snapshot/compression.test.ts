@@ -186,4 +186,20 @@ describe('recordSnapshot with compression', () => {
       for (const codec of ['lz4', 'zstd']) expect(statSync(join(dir, codec, entry.file)).size, `${codec} ${entry.name}`).toBeLessThan(plain);
     }
   });
+
+  it('recordSnapshot(compress) interrupted after 8 stimuli and resumed writes layer and means files byte-identical to an uninterrupted run; resuming with another codec is refused', async () => {
+    const args = { model: join(dir, 'net.onnx'), stimuli: join(dir, 'stimuli.npy'), labels: join(dir, 'labels.csv'), layers: 'all', batch: 4, threads: 1, checkpointSeconds: 0, compress: 'zstd' as const };
+    const whole = await recordSnapshot({ ...args, out: join(dir, 'resume-whole') });
+    const out = join(dir, 'resume-cut');
+    await expect(recordSnapshot({ ...args, out, onProgress: (p) => {
+      if (p.done >= 8) throw new Error('stopped by the test after 8 stimuli');
+    } })).rejects.toThrow(/stopped by the test/);
+    await expect(recordSnapshot({ ...args, out, resume: true, compress: 'lz4' })).rejects.toThrow(/--resume: .* was recorded with other layers \(or --keep\/--dtype\/--compress\)/);
+    const resumed = await recordSnapshot({ ...args, out, resume: true });
+    expect(resumed.resumed).toBe(8);
+    for (const entry of whole.manifest.layers) {
+      expect(readFileSync(join(out, entry.file)).equals(readFileSync(join(whole.folder, entry.file))), entry.file).toBe(true);
+      expect(readFileSync(join(out, entry.means!.file)).equals(readFileSync(join(whole.folder, entry.means!.file))), entry.means!.file).toBe(true);
+    }
+  });
 });
