@@ -119,5 +119,7 @@ describe('sonde record (bad input)', () => {
     await expectFailure(['record', model, '--stimuli', npy.npy, '--out', join(dir, 'o14'), '--batch', '0'], 2, /--batch/);
     await expectFailure(['record', model, '--stimuli', npy.npy, '--out', join(dir, 'o15'), '--keep', 'some'], 2, /--keep must be/);
     await expectFailure(['record', model, '--stimuli', npy.npy, '--out', join(dir, 'o16'), '--mean', '0.5,x'], 2, /--mean/);
+    await expectFailure(['record', model, '--stimuli', npy.npy, '--out', join(dir, 'o17'), '--compress', 'gzip'], 2, /--compress must be one of none, lz4, zstd, got "gzip"/);
+    expect(existsSync(join(dir, 'o17'))).toBe(false);
   });
 });
