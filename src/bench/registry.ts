@@ -4,6 +4,8 @@ import { benchDiffThroughput } from './diff-throughput.js';
 import { benchExportThroughput } from './export-throughput.js';
 import { benchMeansRead } from './means-read.js';
 import { benchRecordOverhead } from './record-overhead.js';
+import { benchRecordPeer } from './record-peer.js';
+import { benchRecordMemory } from './record-memory.js';
 import { benchReplayMemory } from './replay-memory.js';
 import { benchSensitivityCost } from './sensitivity-cost.js';
 import { benchSweepThroughput } from './sweep-throughput.js';
@@ -13,6 +15,8 @@ import type { Benchmark } from './types.js';
 /** Every benchmark by name. Add one: write `src/bench/<name>.ts` exporting a Benchmark, list it here. */
 export const BENCHMARKS: Record<string, Benchmark> = {
   'record-overhead': benchRecordOverhead,
+  'record-peer': benchRecordPeer,
+  'record-memory': benchRecordMemory,
   'diff-throughput': benchDiffThroughput,
   'export-throughput': benchExportThroughput,
   'tail-replay': benchTailReplay,

@@ -1,0 +1,164 @@
+/**
+ * Record against its peer: a hand-written PyTorch forward-hook script (tools/bench/torch_hook_record.py)
+ * that saves the same tensors of the same network, over the same stimuli at the same batch and threads,
+ * to .npy files. Runs where Debian's PyTorch is installed (`/usr/bin/python3` with torch and torchvision;
+ * SONDE_BENCH_PYTHON names another interpreter) and says "skipped" otherwise.
+ *
+ * The tensors are the default layers that are outputs of a module — ReLU, ReLU6 (ONNX Clip), max
+ * pooling, linear layers — found from the exporter's node scopes (`/layer1/layer1.0/relu_1/Relu` is the
+ * second call of module `layer1.0.relu`); the first rows both sides wrote are compared, so the figures
+ * are known to be about the same tensors. Default: the residual reference model (rebuilt by
+ * tests/reference/make_fixtures.py), 1024 stimuli at 64 px, batch 8. SONDE_BENCH_PEER_MODEL=/tmp/tv/vgg16.onnx
+ * (a network exported by tools/torchvision/export_seeded.py, named after its builder) and
+ * SONDE_BENCH_PEER_STIMULI / _BATCH / _REPEATS resize it.
+ */
+import { execFileSync } from 'node:child_process';
+import { closeSync, existsSync, openSync, readSync, rmSync, writeFileSync } from 'node:fs';
+import { basename, join } from 'node:path';
+import { loadModel } from '../graph/load-model.js';
+import { selectLayers } from '../graph/select.js';
+import { inspectModel } from '../record/inspect-model.js';
+import { recordSnapshot } from '../record/record-snapshot.js';
+import { openSnapshot } from '../snapshot/snapshot.js';
+import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import type { BenchResult } from './types.js';
+
+const THREADS = 2;
+const PEER_SCRIPT = new URL('../../tools/bench/torch_hook_record.py', import.meta.url).pathname;
+
+/** The module (dotted path) and call index whose output an exported ONNX node computes, from its scope. */
+export function moduleOfNode(nodeName: string): { module: string; call: number } | null {
+  const scopes = nodeName.split('/').filter((s) => s.length > 0).slice(0, -1);
+  if (scopes.length === 0) return null;
+  let path = '';
+  let call = 0;
+  for (const [i, scope] of scopes.entries()) {
+    const match = /^(.*?)(?:_(\d+))?$/.exec(scope)!;
+    const base = match[1]!;
+    if (i === scopes.length - 1) call = match[2] ? Number(match[2]) : 0;
+    path = path && !base.startsWith(`${path}.`) ? `${path}.${base}` : base;
+  }
+  return { module: path, call };
+}
+
+/** ONNX operators whose output is the output of a module of their own in torchvision networks. */
+const MODULE_OPS = new Set(['Relu', 'Clip', 'MaxPool', 'Gemm']);
+
+function findPython(): string | null {
+  const python = process.env['SONDE_BENCH_PYTHON'] || '/usr/bin/python3';
+  if (!existsSync(python)) return null;
+  try {
+    execFileSync(python, ['-c', 'import torch, torchvision, numpy'], { stdio: 'ignore', timeout: 120_000 });
+    return python;
+  } catch {
+    return null;
+  }
+}
+
+/** The first `rows` rows of a float32 .npy file (its header read from the file itself). */
+function npyRows(path: string, rows: number, rowLength: number): Float32Array {
+  const fd = openSync(path, 'r');
+  try {
+    const head = Buffer.alloc(10);
+    readSync(fd, head, 0, 10, 0);
+    const headerLength = head.readUInt16LE(8);
+    const out = new Float32Array(rows * rowLength);
+    readSync(fd, new Uint8Array(out.buffer), 0, out.byteLength, 10 + headerLength);
+    return out;
+  } finally {
+    closeSync(fd);
+  }
+}
+
+export async function benchRecordPeer(): Promise<BenchResult> {
+  const model = process.env['SONDE_BENCH_PEER_MODEL'] || join(REFERENCE_FIXTURES, 'residual.onnx');
+  const kind = basename(model).replace(/\.onnx$/, '');
+  const count = Number(process.env['SONDE_BENCH_PEER_STIMULI'] || 1024);
+  const batch = Number(process.env['SONDE_BENCH_PEER_BATCH'] || 8);
+  const repeats = Number(process.env['SONDE_BENCH_PEER_REPEATS'] || 3);
+  const description = `record vs a PyTorch forward-hook script saving the same tensors to .npy, ${kind}, ${count} stimuli, batch ${batch}, ${THREADS} threads`;
+  const python = findPython();
+  if (!python) return { name: 'record-peer', description, figures: {}, notes: ['skipped: no Python with torch and torchvision (Debian: apt-get install -y python3-torch python3-torchvision; or set SONDE_BENCH_PYTHON)'] };
+  const loaded = loadModel(model);
+  const size = typeof loaded.input.dims[2] === 'number' ? loaded.input.dims[2] : 224;
+  const work = scratch('sonde-bench-peer-');
+  try {
+    const { path } = benchStimuli(work.folder, count, size);
+    const inspection = await inspectModel(loaded, { inputShape: [1, 3, size, size] });
+    const producers = new Map<string, string>();
+    for (const node of loaded.proto.graph!.node ?? []) for (const out of node.output ?? []) producers.set(out, node.name ?? '');
+    const layers = selectLayers(inspection.layers, 'default').filter((l) => MODULE_OPS.has(l.op) && moduleOfNode(producers.get(l.name) ?? '') !== null);
+    const tensors = layers.map((l) => moduleOfNode(producers.get(l.name)!)!);
+    const names = layers.map((l) => l.name);
+    const spec = (out: string) => {
+      const file = join(work.folder, 'peer.json');
+      writeFileSync(file, JSON.stringify({ kind, stimuli: path, batch, threads: THREADS, out, tensors }));
+      return file;
+    };
+    const peer = (out: string): { seconds: number; bytes: number } => JSON.parse(execFileSync(python, [PEER_SCRIPT, spec(out)], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'] }).toString().trim().split('\n').pop()!) as { seconds: number; bytes: number };
+    let run = 0;
+    const record = async (keep: boolean) => {
+      const start = performance.now();
+      const summary = await recordSnapshot({ model, stimuli: path, out: join(work.folder, `snap${run++}`), layerNames: names, batch, threads: THREADS });
+      const seconds = (performance.now() - start) / 1000;
+      if (!keep) rmSync(summary.folder, { recursive: true, force: true });
+      return { seconds, bytes: summary.bytesWritten, folder: summary.folder };
+    };
+    // one pair kept to check that both sides wrote the same tensors (first rows of every tensor)
+    const checkRows = Math.min(batch, count);
+    const kept = await record(true);
+    const peerOut = join(work.folder, 'peer-check');
+    peer(peerOut);
+    const snapshot = openSnapshot(kept.folder);
+    let worst = 0;
+    for (const [i, layer] of layers.entries()) {
+      const theirs = npyRows(join(peerOut, `${String(i).padStart(3, '0')}.npy`), checkRows, layer.elements);
+      const ours = new Float32Array(checkRows * layer.elements);
+      let filled = 0;
+      for await (const part of snapshot.readLayer(layer.name)) {
+        const take = Math.min(part.activation!.length, ours.length - filled);
+        ours.set(part.activation!.subarray(0, take), filled);
+        filled += take;
+        if (filled === ours.length) break;
+      }
+      let scale = 0;
+      for (let k = 0; k < ours.length; k++) scale = Math.max(scale, Math.abs(theirs[k]!));
+      for (let k = 0; k < ours.length; k++) worst = Math.max(worst, Math.abs(ours[k]! - theirs[k]!) / (scale || 1));
+    }
+    rmSync(kept.folder, { recursive: true, force: true });
+    rmSync(peerOut, { recursive: true, force: true });
+    const ours: number[] = [];
+    const theirs: number[] = [];
+    let bytes = 0;
+    let peerBytes = 0;
+    for (let r = 0; r < repeats; r++) {
+      const a = await record(false);
+      ours.push(a.seconds);
+      bytes = a.bytes;
+      const out = join(work.folder, `peer${r}`);
+      const b = peer(out);
+      rmSync(out, { recursive: true, force: true });
+      theirs.push(b.seconds);
+      peerBytes = b.bytes;
+    }
+    return {
+      name: 'record-peer',
+      description: `${description}, median of ${repeats}`,
+      figures: {
+        'tensors recorded (default layers that are module outputs)': layers.length,
+        'record s': median(ours),
+        'PyTorch hooks to .npy s': median(theirs),
+        'record / PyTorch hooks': median(ours) / median(theirs),
+        'record written MB': bytes / 1e6,
+        'PyTorch hooks written MB': peerBytes / 1e6,
+        'largest difference of the first rows, relative to the tensor maximum': worst,
+      },
+      targets: { 'record / PyTorch hooks': '<= 0.7' },
+      notes: [
+        "record: the whole command (model inspection, stimulus reading and hashing, channel means, Arrow files, SHA-256, fsync); the script: its loop only (forward passes with hooks, .npy writes, fsync), not building the model",
+      ],
+    };
+  } finally {
+    work.dispose();
+  }
+}

@@ -1,0 +1,87 @@
+"""The peer of `npm run bench -- record-peer`: a hand-written PyTorch forward-hook recorder.
+
+It runs the same network as the ONNX model Sonde records (rebuilt from the same seeded code), over the
+same stimuli (.npy), at the same batch size and thread count, and saves the same tensors — the outputs
+of the modules the bench names — to one .npy file per tensor, written batch by batch and fsynced at the
+end, the way a researcher would script it. It prints one JSON line: the seconds of the loop (stimulus
+reading, forward passes, saving, fsync; model building excluded) and the bytes written.
+
+Usage (Debian's PyTorch): /usr/bin/python3 tools/bench/torch_hook_record.py SPEC.json
+SPEC: {"kind": "residual" | a torchvision builder name (vgg16, resnet50, …), "stimuli": path, "batch": n,
+       "threads": n, "out": folder, "tensors": [{"module": "features.0.2", "call": 0}, …]}
+"""
+import json
+import os
+import sys
+import time
+
+import numpy as np
+import torch
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.dirname(os.path.dirname(HERE))
+
+
+def build(kind: str) -> torch.nn.Module:
+    if kind == 'residual':
+        sys.path.insert(0, os.path.join(ROOT, 'tests', 'reference'))
+        import make_fixtures  # the committed reference models are built here
+        return make_fixtures.BUILDERS['residual']()
+    sys.path.insert(0, os.path.join(ROOT, 'tools', 'torchvision'))
+    import export_seeded  # seeded torchvision networks, as exported for the real-size checks
+    return export_seeded.build(kind)
+
+
+def main() -> None:
+    with open(sys.argv[1]) as f:
+        spec = json.load(f)
+    torch.set_num_threads(int(spec['threads']))
+    model = build(spec['kind'])
+    modules = dict(model.named_modules())
+    x = np.load(spec['stimuli'], mmap_mode='r')
+    count = x.shape[0]
+    wanted = {}  # module path -> {call index: tensor index}
+    for i, t in enumerate(spec['tensors']):
+        if t['module'] not in modules:
+            sys.exit(f"no module {t['module']!r} in {spec['kind']}")
+        wanted.setdefault(t['module'], {})[int(t['call'])] = i
+    os.makedirs(spec['out'], exist_ok=True)
+    files = [open(os.path.join(spec['out'], f'{i:03d}.npy'), 'wb') for i in range(len(spec['tensors']))]
+    started = [False] * len(files)
+    calls = {}
+    written = [0]
+
+    def hook_for(path):
+        def hook(_module, _inputs, output):
+            k = calls.get(path, 0)
+            calls[path] = k + 1
+            i = wanted[path].get(k)
+            if i is None:
+                return
+            array = output.detach().numpy()
+            if not started[i]:
+                header = {'descr': '<f4', 'fortran_order': False, 'shape': (count,) + array.shape[1:]}
+                np.lib.format.write_array_header_1_0(files[i], header)
+                started[i] = True
+            array.tofile(files[i])
+            written[0] += array.nbytes
+        return hook
+
+    for path in wanted:
+        modules[path].register_forward_hook(hook_for(path))
+    batch = int(spec['batch'])
+    start = time.perf_counter()
+    with torch.no_grad():
+        for first in range(0, count, batch):
+            calls.clear()
+            model(torch.from_numpy(np.ascontiguousarray(x[first:first + batch])))
+    for f in files:
+        f.flush()
+        os.fsync(f.fileno())
+        f.close()
+    seconds = time.perf_counter() - start
+    print(json.dumps({'seconds': seconds, 'bytes': written[0], 'tensors': len(files)}))
+
+
+if __name__ == '__main__':
+    main()
