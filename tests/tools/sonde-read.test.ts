@@ -153,6 +153,14 @@ describe.skipIf(!hasNumpy)('sonde_read.py', () => {
     await expectSameAsSonde(runDump('numpy', sources.map((f) => join(dir, f))), sources, -1);
   }, 60_000);
 
+  it.skipIf(!hasCodecs || pyarrowPython === undefined)('sonde_read.open with engine pyarrow (Arrow C++) reads the LZ4- and ZSTD-compressed snapshots with the values openSnapshot reads (run only where pyarrow is installed)', async () => {
+    const sources = ['lz4', 'zstd', 'half-zstd', 'mod-zstd'];
+    const run = runDump('pyarrow', sources.map((f) => join(dir, f)), pyarrowPython);
+    await expectSameAsSonde(run, sources, -1);
+    const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
+    expect(dumped.folders.map((f) => f.engine)).toEqual(['pyarrow', 'pyarrow', 'pyarrow', 'pyarrow']);
+  }, 60_000);
+
   it('sonde_read.open reads the committed format-2 snapshots (written before compression and means files) with the values openSnapshot reads', async () => {
     const sources = ['base', 'half', 'means', 'mod'].map((f) => join(FORMAT2, f));
     await expectSameAsSonde(runDump('numpy', sources), sources, -1);
