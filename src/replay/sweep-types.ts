@@ -5,6 +5,7 @@
 
 import type { SweepEvaluation } from './held-out.js';
 import type { SweepTableDetection } from '../snapshot/sweep-table.js';
+import type { ReadoutMapTag } from '../graph/category-map.js';
 
 /** Schemes a sweep knows. */
 export const SWEEP_SCHEMES = ['tuning', 'sensitivity', 'uniform', 'shuffled'] as const;
@@ -134,6 +135,8 @@ export interface SweepResult {
   summary: string;
   /** Which snapshot the tables' gains came from and which detection was measured on; `heldOut` says whether they differ (see held-out.ts). */
   evaluation?: SweepEvaluation;
+  /** The readout map the categories were scored under (log-sum-exp of their units; also in cells.arrow's metadata `sonde.readout_map`), absent for the sidecar's units. */
+  readoutMap?: ReadoutMapTag;
   /** What the cells were computed from and its digest (a rerun into the same --out must match it; see sweep-inputs.ts). */
   inputs?: { digest: string; sonde: string; cellFormat: number; model: string; baseline: string; tuning: string | null; sensitivity: string | null; task: string; threshold: number | 'best' | 'auto'; depthProfileStimuli: number | null };
 }

@@ -20,6 +20,7 @@ import type { ResolveContext } from '../modulation/types.js';
 import { createNetworkSession } from '../session/network-session.js';
 import { openSnapshot, type LayerBatch, type Snapshot } from '../snapshot/snapshot.js';
 import { writeSweepTable } from '../snapshot/sweep-table.js';
+import { READOUT_MAP_KEY } from '../snapshot/tables.js';
 import { chooseThreshold, degenerateThreshold, parseDetectionTask } from '../compare/diff-task.js';
 import { assertSameReadoutMap, categoryColumn, categoryReadout, type CategoryReadout } from '../compare/category-readout.js';
 import { mapTag, type ReadoutMap } from '../graph/category-map.js';
@@ -323,7 +324,8 @@ async function sweepLocked(options: SweepOptions, s: LockedSweep): Promise<Sweep
   const cells = mine.map((c) => done.get(c.key)!);
   const evaluation = describeEvaluation(baseline.folder, { tuning: options.tuning, sensitivity: options.sensitivity });
   const result: SweepResult = { ...summarise(cells, { model, baseline, sites, schemes, strengths: options.strengths, categories, controlSeeds: Array.from({ length: seeds }, (_, i) => i + 1), match, matchText: options.match, measure }), inputs: { digest: sweepInputsDigest(inputs), ...inputs }, evaluation };
-  writeSweepTable(join(options.out, 'cells.arrow'), cells);
+  if (readout.map) result.readoutMap = mapTag(readout.map)!;
+  writeSweepTable(join(options.out, 'cells.arrow'), cells, readout.map ? { [READOUT_MAP_KEY]: JSON.stringify(result.readoutMap) } : {});
   replaceFile(join(options.out, 'sweep.json'), `${JSON.stringify(result, (_k, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v), 2)}\n`);
   return result;
 }

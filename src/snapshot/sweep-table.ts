@@ -36,7 +36,7 @@ export interface SweepTableRow {
  * `site_activity_change` float64.
  * Written under a temporary name, fsynced and renamed (`replaceFile`).
  */
-export function writeSweepTable(path: string, cells: readonly SweepTableRow[]): void {
+export function writeSweepTable(path: string, cells: readonly SweepTableRow[], metadata: Record<string, string> = {}): void {
   const f64 = (pick: (c: SweepTableRow) => number) => Float64Array.from(cells, pick);
   const table = tableFromArrays({
     site: cells.map((c) => c.site),
@@ -64,5 +64,7 @@ export function writeSweepTable(path: string, cells: readonly SweepTableRow[]): 
     criterion_control_d_prime: f64((c) => c.criterionControl.dPrime),
     site_activity_change: f64((c) => c.siteActivityChange),
   });
+  // schema metadata (`sonde.*` keys, e.g. the readout map the cells were scored under)
+  for (const [key, value] of Object.entries(metadata)) table.schema.metadata.set(key, value);
   replaceFile(path, tableToIPC(table, 'file'));
 }

@@ -10,6 +10,7 @@
  */
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
+import { tableFromIPC } from 'apache-arrow';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { readSensitivityTable, readTuningTable, READOUT_MAP_KEY } from '../../src/snapshot/tables.js';
@@ -121,6 +122,8 @@ describe('--readout-map', () => {
     await ok(['sweep', model, '--from', held, '--sites', 'relu1', '--tuning', tuning, '--sensitivity', sens, '--strengths', '0,0.5', '--task', 'detect:all', '--readout-map', map, '--out', sweepDir, '--threads', '1']);
     const sweep = JSON.parse(readFileSync(join(sweepDir, 'sweep.json'), 'utf8')) as { categories: string[]; cells: Array<{ category: string; strength: number; base: { auc: number }; change: { auc: number } }> };
     expect([...sweep.categories].sort()).toEqual([...KINDS].sort());
+    expect((sweep as unknown as { readoutMap: { name: string } }).readoutMap.name).toBe('kinds.json');
+    expect(tableFromIPC(readFileSync(join(sweepDir, 'cells.arrow'))).schema.metadata.get(READOUT_MAP_KEY)).toBe(tuned.metadata[READOUT_MAP_KEY]);
     const heldAucs = await expectedAucs(held);
     for (const cell of sweep.cells) {
       expect(cell.base.auc).toBeCloseTo(heldAucs[cell.category]!, 12);
