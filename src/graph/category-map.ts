@@ -174,7 +174,7 @@ export function resolveReadoutMap(map: ReadoutMap, readout: { tensor: string; wi
         continue;
       }
       const near = names ? closestHint(entry, names) : '';
-      throw new UsageError('E_READOUT_MAP', `${map.source}: category "${category}" lists "${entry}", which is not a unit of readout "${tensor}" (${names ? `${range}: ${nameList(names, 4)}` : `${range}, no unit names: the model has no sidecar naming them`}${near ? `; ${near}` : ''})`, {
+      throw new UsageError('E_READOUT_MAP', `${map.source}: category "${category}" lists "${entry}", which is not a unit of readout "${tensor}" (${names ? `${range}: ${nameList(names, 4)}` : `${range}, no unit names: no sidecar names every unit`}${near ? `; ${near}` : ''})`, {
         hint: 'use a unit name from the sidecar\'s outputs.kinds, an index, or a range A..B',
       });
     }

@@ -89,7 +89,7 @@ describe('resolveReadoutMap', () => {
     expect(refusal(() => resolveReadoutMap(readReadoutMap('dog=990..1005'), readout)).message).toMatch(/"990\.\.1005", outside readout/);
     expect(refusal(() => resolveReadoutMap(readReadoutMap('dog=20..10'), readout)).message).toMatch(/runs backwards/);
     // without unit names only indices resolve, and the message says why
-    expect(refusal(() => resolveReadoutMap(readReadoutMap('cat=tabby'), { tensor: 'logits', width: 1000, names: null })).message).toMatch(/no unit names: the model has no sidecar/);
+    expect(refusal(() => resolveReadoutMap(readReadoutMap('cat=tabby'), { tensor: 'logits', width: 1000, names: null })).message).toMatch(/no unit names: no sidecar names every unit/);
     expect(resolveReadoutMap(readReadoutMap('cat=281'), { tensor: 'logits', width: 1000, names: null }).groups).toEqual([[281]]);
   });
 
