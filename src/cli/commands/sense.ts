@@ -145,7 +145,8 @@ export function registerSense(program: Command): void {
         for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
         table.push([s.layer, `${s.channels} ${s.unit === 'feature' ? 'features' : 'channels'}`, s.categories.length, s.stimuliUsed, largest.toPrecision(3), method === 'exact' ? '—' : `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
       }
-      const mapText = result.metadata[READOUT_MAP_KEY] !== undefined ? ` of ${result.metadata['sonde.readout']} grouped by readout map ${opts.readoutMap}` : '';
+      const mapTagText = result.metadata[READOUT_MAP_KEY];
+      const mapText = mapTagText !== undefined ? ` of ${result.metadata['sonde.readout']} grouped by readout map ${(JSON.parse(mapTagText) as { name: string }).name}` : '';
       io.stdout(`${opts.kind} sensitivities of ${mapText ? `${result.readout.categories.length} categories${mapText}, each the log-sum-exp of its units` : `${result.readout.tensor} (${result.readout.categories.length === 1 ? result.readout.categories[0] : `${result.readout.categories.length} units`})`}, ${method === 'exact' ? 'exact gradients (reverse mode, in the ONNX graph)' : method === 'richardson' ? `Richardson from steps ${step} and ${step / 2}` : `secant, step ${step}`}, boundary tensors from ${result.source === 'baseline' ? `baseline ${opts.from}` : 'runs of the whole network'} → ${displayPath(opts.out!)}\n`);
       io.stdout(`${table.toString()}\n`);
       const values = method === 'exact'
