@@ -25,7 +25,8 @@ import type { ShardSpec } from '../record/shard.js';
 import { collectDiff, type CollectedLayer, type DiffCollection } from './diff-collect.js';
 import { finishDiff } from './diff-snapshots.js';
 import { type DiffOptions, type DiffReport } from './diff-types.js';
-import { assembleTuneResult, planTuning, type TuneOptions, type TuneResult } from './tune.js';
+import { assembleTuneResult, mapCategories, planTuning, type TuneOptions, type TuneResult } from './tune.js';
+import { mapTag, type ReadoutMapTag } from '../graph/category-map.js';
 
 // ---------------------------------------------------------------------------------------------------
 // diff
@@ -187,7 +188,7 @@ export async function tunePartial(options: TuneOptions, shard: ShardSpec): Promi
   if (!snapshot.stimuli.labels.some((l) => l.length > 0)) {
     throw new UsageError('E_TUNE_LABELS', `snapshot ${folder} has no labels; tuning needs labelled stimuli`, { hint: 'record it from a class folder, a path,label CSV, or a .npy with --labels' });
   }
-  const { categories, layers } = planTuning(snapshot, options, folder);
+  const { categories, layers } = planTuning(snapshot, { ...options, ...(options.readoutMap ? { categories: mapCategories(snapshot, options.readoutMap, folder) } : {}) }, folder);
   const { range, info } = shardOf(snapshot, shard);
   const labels = snapshot.stimuli.labels.slice(range[0] - snapshot.firstIndex, range[1] - snapshot.firstIndex);
   const rows = range[1] - range[0];
@@ -204,7 +205,7 @@ export async function tunePartial(options: TuneOptions, shard: ShardSpec): Promi
     const moments = accumulateTuning({ channelMeans: means, stimuli: rows, channels, labels, categories, singleLabel: options.singleLabel ?? false });
     out.push({ name: layer.name, op: layer.op, depth: layer.depth, moments: { ...moments, count: encodeArray(moments.count), mean: encodeArray(moments.mean), m2: encodeArray(moments.m2), nonFinite: encodeArray(moments.nonFinite) } });
   }
-  const key = { snapshot: snapshotKey(snapshot), model: snapshot.manifest.model, categories, singleLabel: options.singleLabel ?? false, layers: layers.map((l) => l.name) };
+  const key = { snapshot: snapshotKey(snapshot), model: snapshot.manifest.model, categories, singleLabel: options.singleLabel ?? false, layers: layers.map((l) => l.name), ...(options.readoutMap ? { readoutMap: mapTag(options.readoutMap) } : {}) };
   return { kind: PARTIAL_KIND, version: PARTIAL_VERSION, of: 'tune', shard: info, key, data: { folder: snapshot.folder, layers: out } };
 }
 
@@ -269,8 +270,8 @@ export function mergeTunePartials(ordered: readonly OrderedPart[], options: { ou
     for (const list of layerLists.slice(1)) moments = mergeTuningMoments(moments, list[i]!.moments);
     return { layer: { name: layer.name, op: layer.op, depth: layer.depth }, table: tuningFromMoments(moments) };
   });
-  const key = first.key as { model: { file: string; sha256: string }; categories: string[]; singleLabel: boolean };
-  const result = assembleTuneResult({ folder: String(first.data['folder']), model: key.model }, tables, key.categories, { singleLabel: key.singleLabel, ...(options.out !== undefined ? { out: options.out } : {}) });
+  const key = first.key as { model: { file: string; sha256: string }; categories: string[]; singleLabel: boolean; readoutMap?: ReadoutMapTag };
+  const result = assembleTuneResult({ folder: String(first.data['folder']), model: key.model }, tables, key.categories, { singleLabel: key.singleLabel, ...(options.out !== undefined ? { out: options.out } : {}), ...(key.readoutMap ? { readoutMap: key.readoutMap } : {}) });
   return result;
 }
 

@@ -16,7 +16,7 @@ import type { TensorLayout } from '../graph/layout.js';
 import { openSnapshot, type Snapshot } from '../snapshot/snapshot.js';
 import { READOUT_MAP_KEY, writeTuningTable, type TuningTableBlock } from '../snapshot/tables.js';
 import { assertOutFileWritable } from '../outputs/output-file.js';
-import { mapTag, resolveReadoutMap, type ReadoutMap } from '../graph/category-map.js';
+import { mapTag, resolveReadoutMap, type ReadoutMap, type ReadoutMapTag } from '../graph/category-map.js';
 
 /**
  * A channel counts as selective when its selectivity index (r_max − r_rest)/(r_max + r_rest) is at least
@@ -161,7 +161,7 @@ export function planTuning(snapshot: Snapshot, options: Pick<TuneOptions, 'categ
  * @param options singleLabel and out.
  * @throws RuntimeFailure when the table cannot be written.
  */
-export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'> & Partial<Pick<ManifestLayer, 'shape' | 'layout'>>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out' | 'readoutMap'>): TuneResult {
+export function assembleTuneResult(source: { folder: string; model: { file: string; sha256: string } }, tables: ReadonlyArray<{ layer: Pick<ManifestLayer, 'name' | 'op' | 'depth'> & Partial<Pick<ManifestLayer, 'shape' | 'layout'>>; table: TuningTable }>, categories: readonly string[], options: Pick<TuneOptions, 'singleLabel' | 'out'> & { readoutMap?: ReadoutMapTag }): TuneResult {
   const blocks: TuningTableBlock[] = [];
   const summaries: LayerTuningSummary[] = [];
   for (const { layer, table } of tables) {

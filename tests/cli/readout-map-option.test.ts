@@ -111,6 +111,19 @@ describe('--readout-map', () => {
       }
     }
 
+    // sharded: two partial tunings under the map merge into the same table, map recorded
+    const tuneParts = [1, 2].map((k) => join(dir, `tune-part-${k}.json`));
+    for (const [k, part] of tuneParts.entries()) await ok(['tune', fit, '--readout-map', map, '--shard', `${k + 1}/2`, '--partial', part]);
+    const mergedTuning = join(dir, 'tuning-merged.arrow');
+    await ok(['merge', ...tuneParts, '--out', mergedTuning]);
+    const mergedTable = readTuningTable(mergedTuning);
+    expect(mergedTable.categories).toEqual(KINDS);
+    expect(mergedTable.metadata[READOUT_MAP_KEY]).toBe(tuned.metadata[READOUT_MAP_KEY]);
+    for (const block of mergedTable.blocks) {
+      const whole = tuned.block(block.layer)!;
+      for (let i = 0; i < block.tuning.length; i++) expect(block.tuning[i]).toBeCloseTo(whole.tuning[i]!, 10);
+    }
+
     const senseOut = await ok(['sense', model, '--from', fit, '--sites', 'relu1', '--stimuli-of', 'each', '--readout-map', map, '--out', sens]);
     expect(senseOut).toMatch(/4 categories of logits grouped by readout map/);
     const table = readSensitivityTable(sens);

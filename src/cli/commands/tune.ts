@@ -53,10 +53,9 @@ export function registerTune(program: Command): void {
       const io = cliIo();
       if (opts.shard !== undefined && opts.partial === undefined) throw new UsageError('E_PARTIAL', '--shard needs --partial FILE.json (where the shard\'s statistics go)', { hint: 'merge the files with `sonde merge`' });
       if (opts.partial !== undefined) {
-        if (opts.readoutMap !== undefined) throw new UsageError('E_PARTIAL', '--readout-map is not supported with --partial yet (the merged table would not record the map)', { hint: 'tune the whole snapshot with --readout-map, or tune without it' });
         if (opts.against !== undefined || opts.out !== undefined) throw new UsageError('E_PARTIAL', '--partial writes statistics only; --out and --against apply when the parts are merged');
         const shard = opts.shard !== undefined ? parseShard(opts.shard) : { index: 1, count: 1 };
-        const partial = await tunePartial({ snapshot: source, ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}) }, shard);
+        const partial = await tunePartial({ snapshot: source, ...(opts.layers !== undefined ? { layers: opts.layers } : {}), ...(opts.singleLabel ? { singleLabel: true } : {}), ...(opts.readoutMap !== undefined ? { readoutMap: readoutMapOption(opts.readoutMap) } : {}) }, shard);
         const written = writePartial(opts.partial, partial);
         io.stdout(`wrote partial tuning statistics of shard ${shard.index}/${shard.count} (stimuli ${partial.shard.stimuli[0]}..${partial.shard.stimuli[1]}) to ${opts.partial} (${written.bytes} bytes)\n`);
         return;
