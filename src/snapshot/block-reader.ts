@@ -167,9 +167,10 @@ export class LayerBlockFile {
     const body = buffer && buffer.byteLength >= end ? buffer : new Uint8Array(Math.max(end, 8));
     await positionedRead(this.fd, body, 0, end, block.offset + block.metaDataLength);
     const bytes = (r: number): Uint8Array => body.subarray(regions[r]!.offset, regions[r]!.offset + regions[r]!.length);
+    const limits = this.limits(rows);
     const [indexBytes, meanBytes, valueBytes] = codec === 'none'
       ? [bytes(1), bytes(4), wanted === 8 ? bytes(7) : null]
-      : await Promise.all([decodeBuffer(codec, bytes(1)), decodeBuffer(codec, bytes(4)), wanted === 8 ? decodeBuffer(codec, bytes(7)) : Promise.resolve(null)]);
+      : await Promise.all([decodeBuffer(codec, bytes(1), limits.index), decodeBuffer(codec, bytes(4), limits.means), wanted === 8 ? decodeBuffer(codec, bytes(7), limits.activation) : Promise.resolve(null)]);
     return { batch: this.viewBatch(i, rows, indexBytes, meanBytes, valueBytes), buffer: body };
   }
 
@@ -188,8 +189,15 @@ export class LayerBlockFile {
     const body = new Uint8Array(Math.max(end, 8));
     readFully(this.fd, body.subarray(0, end), block.offset + block.metaDataLength);
     const bytes = (r: number): Uint8Array => body.subarray(regions[r]!.offset, regions[r]!.offset + regions[r]!.length);
-    const decode = (r: number) => (codec === 'none' ? bytes(r) : decodeBufferSync(codec, bytes(r)));
-    return this.viewBatch(i, header.length, decode(1), decode(4), null);
+    const limits = this.limits(header.length);
+    const decode = (r: number, limit: number) => (codec === 'none' ? bytes(r) : decodeBufferSync(codec, bytes(r), limit));
+    return this.viewBatch(i, header.length, decode(1, limits.index), decode(4, limits.means), null);
+  }
+
+  /** The most bytes each decompressed buffer of a batch of `rows` may hold (its values, padded to 64 bytes). */
+  private limits(rows: number): { index: number; means: number; activation: number } {
+    const padded = (bytes: number) => Math.ceil(bytes / 64) * 64;
+    return { index: padded(rows * 4), means: padded(rows * this.widths.channels * 4), activation: padded(rows * this.widths.elements * (this.activationKind === 'float16' ? 2 : 4)) };
   }
 
   /** Typed views of a batch's buffers (region lengths are padded to 8 bytes: the views take exactly rows × width values). */

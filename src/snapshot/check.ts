@@ -23,6 +23,7 @@ import { assertInside, baselineLayerProblems, layerLayout, validateManifest, typ
 import { verifyStimulusTable } from './stimuli-file.js';
 import { registerArrowCodecs } from './compression.js';
 import { layerCodecProblem, meansFileProblems } from './means-check.js';
+import { LayerBlockFile } from './block-reader.js';
 import { parseJson } from '../json.js';
 import { describeNonRegular, INPUT_LIMITS, readInputFile, readInputText, realPathInside } from '../disk/input-file.js';
 
@@ -288,24 +289,40 @@ async function checkLayerFile(path: string, subject: string, entry: ManifestLaye
     }
     let rows = 0;
     let next = firstIndex;
-    for (let b = 0; b < reader.numRecordBatches; b++) {
-      let batch;
-      try {
-        batch = await reader.readRecordBatch(b);
-      } catch (error) {
-        problem(subject, `batch ${b} cannot be read (${firstLine(error)})`);
-        return;
-      }
-      if (!batch) break;
-      const index = batch.getChild('index')!.toArray() as Int32Array;
-      for (let r = 0; r < index.length; r++) {
-        if (index[r] !== next) {
-          problem(subject, `row ${rows + r} has stimulus index ${index[r]}, expected ${next} (indices must run ${firstIndex}..${firstIndex + count - 1} in order)`);
+    // Sonde's layout (the schema just matched): the index buffer alone, decompressed within its batch's
+    // bounds, never the activations; the general reader otherwise
+    let blocks: LayerBlockFile | null = null;
+    try {
+      blocks = LayerBlockFile.open(path);
+    } catch {
+      blocks = null;
+    }
+    try {
+      const batches = blocks ? blocks.count : reader.numRecordBatches;
+      for (let b = 0; b < batches; b++) {
+        let index: Int32Array;
+        try {
+          if (blocks) index = blocks.readMeansSync(b).index;
+          else {
+            const batch = await reader.readRecordBatch(b);
+            if (!batch) break;
+            index = batch.getChild('index')!.toArray() as Int32Array;
+          }
+        } catch (error) {
+          problem(subject, `batch ${b} cannot be read (${firstLine(error)})`);
           return;
         }
-        next++;
+        for (let r = 0; r < index.length; r++) {
+          if (index[r] !== next) {
+            problem(subject, `row ${rows + r} has stimulus index ${index[r]}, expected ${next} (indices must run ${firstIndex}..${firstIndex + count - 1} in order)`);
+            return;
+          }
+          next++;
+        }
+        rows += index.length;
       }
-      rows += batch.numRows;
+    } finally {
+      blocks?.close();
     }
     if (entry.rows !== undefined && rows !== entry.rows) problem(subject, `holds ${rows} rows, the manifest says ${entry.rows}`);
     if (rows !== count) problem(subject, `holds ${rows} rows, the snapshot has ${count} stimuli`);

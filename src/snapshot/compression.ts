@@ -128,24 +128,115 @@ export function splitCompressedBuffer(region: Uint8Array): { stored: Uint8Array 
 }
 
 /**
- * Decodes one body buffer of a compressed batch (see `splitCompressedBuffer`), synchronously.
- * @throws Error when the frame is damaged or decompresses to another length than its prefix says.
+ * The most bytes a frame can decompress to, from its block headers alone (nothing is decompressed), so
+ * that a small hostile frame cannot expand into gigabytes. Zstandard (RFC 8878, "Zstandard Frames"):
+ * raw and RLE blocks regenerate their Block_Size, a compressed block at most 128 KiB. LZ4 frame format
+ * (lz4 "Frame format" 1.6.x): an uncompressed block is its size, a compressed block at most the frame's
+ * Block Maximum Size. Concatenated frames add up.
+ * @throws Error for bytes that are not a complete frame of the codec (bad magic, cut short, reserved bits).
  */
-export function decodeBufferSync(compression: Exclude<LayerCompression, 'none'>, region: Uint8Array): Uint8Array {
+export function frameOutputBound(compression: Exclude<LayerCompression, 'none'>, frame: Uint8Array): number {
+  const view = new DataView(frame.buffer, frame.byteOffset, frame.byteLength);
+  const need = (at: number, bytes: number) => {
+    if (at + bytes > frame.byteLength) throw new Error(`a ${compression} frame is cut short at byte ${at}`);
+  };
+  let at = 0;
+  let bound = 0;
+  do {
+    need(at, 4);
+    const magic = view.getUint32(at, true);
+    if (compression === 'zstd') {
+      if (magic !== 0xfd2fb528) throw new Error(`not a Zstandard frame (magic 0x${magic.toString(16)})`);
+      need(at + 4, 1);
+      const descriptor = frame[at + 4]!;
+      if (descriptor & 0x08) throw new Error('a Zstandard frame header sets its reserved bit');
+      const single = (descriptor & 0x20) !== 0;
+      const fcsFlag = descriptor >> 6;
+      const dictionary = [0, 1, 2, 4][descriptor & 0x03]!;
+      const contentSize = fcsFlag === 0 ? (single ? 1 : 0) : [0, 2, 4, 8][fcsFlag]!;
+      at += 5 + (single ? 0 : 1) + dictionary + contentSize;
+      for (let last = false; !last; ) {
+        need(at, 3);
+        const header = frame[at]! | (frame[at + 1]! << 8) | (frame[at + 2]! << 16);
+        last = (header & 1) === 1;
+        const type = (header >> 1) & 3;
+        const size = header >>> 3;
+        if (type === 3) throw new Error('a Zstandard block has the reserved type');
+        const content = type === 1 ? 1 : size;
+        need(at + 3, content);
+        bound += type === 2 ? 128 * 1024 : size;
+        at += 3 + content;
+      }
+      if (descriptor & 0x04) at += 4; // content checksum
+    } else {
+      if (magic !== 0x184d2204) throw new Error(`not an LZ4 frame (magic 0x${magic.toString(16)})`);
+      need(at + 4, 2);
+      const flags = frame[at + 4]!;
+      if (flags >> 6 !== 1) throw new Error('an LZ4 frame of another version');
+      const maxBlock = [0, 0, 0, 0, 64 << 10, 256 << 10, 1 << 20, 4 << 20][(frame[at + 5]! >> 4) & 7]!;
+      if (maxBlock === 0) throw new Error('an LZ4 frame with an invalid block maximum size');
+      at += 6 + (flags & 0x08 ? 8 : 0) + (flags & 0x01 ? 4 : 0) + 1;
+      for (;;) {
+        need(at, 4);
+        const word = view.getUint32(at, true);
+        at += 4;
+        if (word === 0) break; // end mark
+        const size = word & 0x7fffffff;
+        need(at, size);
+        bound += word & 0x80000000 ? size : maxBlock;
+        at += size + (flags & 0x10 ? 4 : 0);
+      }
+      if (flags & 0x04) at += 4; // content checksum
+    }
+    need(at, 0);
+  } while (at < frame.byteLength);
+  return bound;
+}
+
+/**
+ * Checks a frame before it is decompressed: its stated length must fit `limit` (what the batch can
+ * hold) and its block headers must not allow more than that length plus one block.
+ * @throws Error naming what does not fit.
+ */
+function assertFrameFits(compression: Exclude<LayerCompression, 'none'>, frame: Uint8Array, length: number, limit: number): void {
+  if (length > limit) throw new Error(`a ${compression} buffer says it holds ${length} bytes, more than the ${limit} its batch can hold`);
+  const bound = frameOutputBound(compression, frame);
+  const block = compression === 'zstd' ? 128 * 1024 : 4 << 20;
+  if (bound > length + block) throw new Error(`a ${compression} frame can expand to ${bound} bytes, far more than the ${length} its prefix says (refused unread)`);
+}
+
+/**
+ * Decodes one body buffer of a compressed batch (see `splitCompressedBuffer`), synchronously.
+ * @param limit the most bytes the buffer may hold (from the batch's rows and the column's width): a
+ *   larger stated length, or a frame whose blocks could expand past it, is refused before decompressing.
+ * @throws Error when the frame is damaged, too large, or decompresses to another length than its prefix says.
+ */
+export function decodeBufferSync(compression: Exclude<LayerCompression, 'none'>, region: Uint8Array, limit = Number.MAX_SAFE_INTEGER): Uint8Array {
   const parts = splitCompressedBuffer(region);
   if ('stored' in parts) return parts.stored;
+  assertFrameFits(compression, parts.frame, parts.length, limit);
   const out = decompressSync(compression, parts.frame);
   if (out.byteLength !== parts.length) throw new Error(`a ${compression} buffer decompressed to ${out.byteLength} bytes, its prefix says ${parts.length}`);
   return out;
 }
 
 /** `decodeBufferSync` on the thread pool. */
-export async function decodeBuffer(compression: Exclude<LayerCompression, 'none'>, region: Uint8Array): Promise<Uint8Array> {
+export async function decodeBuffer(compression: Exclude<LayerCompression, 'none'>, region: Uint8Array, limit = Number.MAX_SAFE_INTEGER): Promise<Uint8Array> {
   const parts = splitCompressedBuffer(region);
   if ('stored' in parts) return parts.stored;
+  assertFrameFits(compression, parts.frame, parts.length, limit);
   const out = await decompressAsync(compression, parts.frame);
   if (out.byteLength !== parts.length) throw new Error(`a ${compression} buffer decompressed to ${out.byteLength} bytes, its prefix says ${parts.length}`);
   return out;
+}
+
+/** What apache-arrow's general reader may decompress per buffer (it does not know the batch's widths). */
+const GENERAL_READER_LIMIT = 2 ** 31;
+
+function boundedDecode(compression: Exclude<LayerCompression, 'none'>, frame: Uint8Array): Uint8Array {
+  const bound = frameOutputBound(compression, frame);
+  if (bound > GENERAL_READER_LIMIT) throw new Error(`a ${compression} frame can expand to ${bound} bytes (refused unread)`);
+  return decompressSync(compression, frame);
 }
 
 /**
@@ -193,6 +284,6 @@ let registered = false;
 export function registerArrowCodecs(): void {
   if (registered) return;
   registered = true;
-  compressionRegistry.set(CompressionType.LZ4_FRAME, { encode: (data) => compressSync('lz4', data), decode: (data) => decompressSync('lz4', data) });
-  compressionRegistry.set(CompressionType.ZSTD, { encode: (data) => compressSync('zstd', data), decode: (data) => decompressSync('zstd', data) });
+  compressionRegistry.set(CompressionType.LZ4_FRAME, { encode: (data) => compressSync('lz4', data), decode: (data) => boundedDecode('lz4', data) });
+  compressionRegistry.set(CompressionType.ZSTD, { encode: (data) => compressSync('zstd', data), decode: (data) => boundedDecode('zstd', data) });
 }

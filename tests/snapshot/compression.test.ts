@@ -18,7 +18,7 @@ import pl from 'nodejs-polars';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { LayerBlockFile } from '../../src/snapshot/block-reader.js';
-import { compressBodyBuffers, decodeBuffer, decodeBufferSync, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
+import { compressBodyBuffers, compressSync, decodeBuffer, decodeBufferSync, frameOutputBound, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { createRandom } from '../../src/random.js';
 import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
@@ -118,6 +118,43 @@ describe('compressBodyBuffers', () => {
     new DataView(region.buffer).setBigInt64(0, 3999n, true);
     await expect(decodeBuffer('zstd', region)).rejects.toThrow(/decompressed to 4000 bytes, its prefix says 3999/);
     expect(() => decodeBufferSync('zstd', new Uint8Array(5))).toThrow(/no room for its length prefix/);
+  });
+});
+
+describe('frameOutputBound', () => {
+  for (const codec of ['lz4', 'zstd'] as const) {
+    it.skipIf(!hasCodecs)(`frameOutputBound(${codec}) bounds what frames of Sonde's encoder and of ${codec === 'lz4' ? 'python3-lz4' : 'python3-zstandard'} decompress to, from their block headers (within one block above)`, () => {
+      const block = codec === 'zstd' ? 128 * 1024 : 4 << 20;
+      for (const data of [bytesOf(reluValues(300_000, 6)), new Uint8Array(3 << 20), new Uint8Array(7)]) {
+        for (const frame of [compressSync(codec, data), python('compress', codec, data)]) {
+          const bound = frameOutputBound(codec, frame);
+          expect(bound).toBeGreaterThanOrEqual(data.byteLength);
+          expect(bound).toBeLessThanOrEqual(data.byteLength + block);
+        }
+      }
+    });
+  }
+
+  it('frameOutputBound refuses bytes that are not a whole frame, and decodeBuffer refuses a small frame that would expand far past its stated length or past its batch, before decompressing', async () => {
+    const zeros = new Uint8Array(64 << 20); // 64 MiB of zeros: a frame of a few kB
+    for (const codec of ['lz4', 'zstd'] as const) {
+      const frame = compressSync(codec, zeros);
+      expect(frame.byteLength).toBeLessThan(1 << 20);
+      expect(() => frameOutputBound(codec, frame.subarray(0, frame.byteLength - 3))).toThrow(/cut short/);
+      expect(() => frameOutputBound(codec, new Uint8Array(16))).toThrow(/not a(n LZ4| Zstandard) frame/);
+      const region = (length: number) => {
+        const out = new Uint8Array(8 + frame.byteLength);
+        new DataView(out.buffer).setBigInt64(0, BigInt(length), true);
+        out.set(frame, 8);
+        return out;
+      };
+      // a prefix that lies about a small length: the blocks allow 64 MiB
+      expect(() => decodeBufferSync(codec, region(1000))).toThrow(/can expand to \d+ bytes, far more than the 1000 its prefix says/);
+      await expect(decodeBuffer(codec, region(1000))).rejects.toThrow(/far more than the 1000/);
+      // an honest prefix, but more than the batch holds
+      expect(() => decodeBufferSync(codec, region(zeros.byteLength), 4096)).toThrow(/says it holds 67108864 bytes, more than the 4096 its batch can hold/);
+      expect(decodeBufferSync(codec, region(zeros.byteLength)).byteLength).toBe(zeros.byteLength);
+    }
   });
 });
 
