@@ -43,7 +43,7 @@ for k, folder in enumerate(folders):
                 da = rec.dataarray(name)
                 item["dataarray"] = {"dims": list(da.dims), "shape": list(da.shape), "stimulus": [int(v) for v in da["stimulus"].values],
                                      "id": [str(v) for v in da["id"].values], "labels": [list(v) for v in da["labels"].values],
-                                     "channel": [int(v) for v in da["channel"].values], "layer": da.attrs["layer"],
+                                     "channel": [int(v) for v in da["channel"].values] if "channel" in da.coords else None, "layer": da.attrs["layer"],
                                      "modulation": json.loads(da.attrs["modulation"]),
                                      "equal": bool(np.array_equal(da.values, np.asarray(acts), equal_nan=True))}
         if have_xarray:

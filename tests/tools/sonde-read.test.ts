@@ -161,6 +161,23 @@ describe.skipIf(!hasNumpy)('sonde_read.py', () => {
     expect(dumped.folders.map((f) => f.engine)).toEqual(['pyarrow', 'pyarrow', 'pyarrow', 'pyarrow']);
   }, 60_000);
 
+  it('sonde_read.open reads token and channels-last layers (PyTorch-exported ViT and NHWC fixtures) with the channel means openSnapshot reads, per feature', async () => {
+    const reference = join(import.meta.dirname, '..', 'reference', 'fixtures');
+    const vit = join(dir, 'vit');
+    const nhwc = join(dir, 'nhwc');
+    await recordSnapshot({ model: join(reference, 'attention', 'vit-opset14.onnx'), stimuli: join(reference, 'attention', 'inputs.npy'), out: vit, batch: 2, threads: 1 });
+    await recordSnapshot({ model: join(reference, 'layouts', 'channels-last.onnx'), stimuli: join(reference, 'layouts', 'channels-last-inputs.npy'), out: nhwc, layers: 'all', batch: 2, threads: 1 });
+    await exportSnapshot({ snapshot: vit, out: join(dir, 'vit-npy') });
+    const run = runDump('numpy', [vit, nhwc, join(dir, 'vit-npy')]);
+    await expectSameAsSonde(run, [vit, nhwc, vit], 2);
+    if (!hasXarray) return;
+    const dumped = JSON.parse(readFileSync(join(run.out, 'summary.json'), 'utf8')) as Dumped;
+    const dims = (k: number, name: string) => dumped.folders[k]!.layers.find((l) => l.name === name)!.dataarray!.dims;
+    expect(dims(0, '/encoder/layers/encoder_layer_0/Add_1_output_0')).toEqual(['stimulus', 'token', 'feature']);
+    expect(dims(2, '/encoder/layers/encoder_layer_0/Add_1_output_0')).toEqual(['stimulus', 'token', 'feature']);
+    expect(dims(1, '/relu/Relu_output_0')).toEqual(['stimulus', 'y', 'x', 'channel']);
+  }, 60_000);
+
   it('sonde_read.open reads the committed format-2 snapshots (written before compression and means files) with the values openSnapshot reads', async () => {
     const sources = ['base', 'half', 'means', 'mod'].map((f) => join(FORMAT2, f));
     await expectSameAsSonde(runDump('numpy', sources), sources, -1);

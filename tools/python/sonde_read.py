@@ -310,15 +310,34 @@ def _inside(root, relative, what):
     return path
 
 
-def axis_names(rank):
-    """Axis names of a layer's activation array, stimulus first: Sonde's channel axis is the first
-    per-stimulus axis; a three-axis tensor is channel, y, x (NCHW); other axes are named by position.
-    The same rule as `sonde export` (src/export/export-description.ts)."""
+def axis_names(rank, layout=None):
+    """Axis names of a layer's activation array, stimulus first, from the layer's layout: token, feature
+    for tokens [T, D]; y, x, channel for channels-last maps; head on the heads axis of attention
+    internals; otherwise the channel axis is the first per-stimulus axis, a three-axis tensor is
+    channel, y, x (NCHW) and other axes are named by position. The same rule as `sonde export`
+    (src/export/export-description.ts)."""
     if rank == 0:
         return ["stimulus"]
+    kind = (layout or {}).get("kind")
+    axis = (layout or {}).get("featureAxis")
+    if kind == "tokens" and rank == 2:
+        return ["stimulus", "token", "feature"]
+    if kind == "channels-last" and rank == 3 and axis == 2:
+        return ["stimulus", "y", "x", "channel"]
+    if kind == "heads" and axis is not None:
+        return ["stimulus"] + ["head" if k == axis else f"axis{k + 1}" for k in range(rank)]
     if rank == 3:
         return ["stimulus", "channel", "y", "x"]
     return ["stimulus", "channel"] + [f"axis{k + 2}" for k in range(rank - 1)]
+
+
+def feature_count(shape, layout=None):
+    """Channels (features) of a per-stimulus shape: along the layout's feature axis (src/graph/layout.ts),
+    the first axis for snapshots recorded before layouts, 1 for a scalar."""
+    if not shape:
+        return 1
+    axis = 0 if layout is None else layout.get("featureAxis")
+    return 1 if axis is None else shape[axis]
 
 
 # --------------------------------------------------------------------------------------------------
@@ -353,12 +372,13 @@ class _Recording:
 
         layer = self.layer(name)
         data = self.activations(name) if what == "activation" else self.channel_means(name)
-        dims = axis_names(len(layer["shape"])) if what == "activation" else ["stimulus", "channel"]
+        dims = axis_names(len(layer["shape"]), layer.get("layout")) if what == "activation" else ["stimulus", "channel"]
         labels = np.empty(len(self.stimuli["labels"]), dtype=object)
         labels[:] = [tuple(l) for l in self.stimuli["labels"]]
         coords = {"stimulus": np.asarray(self.stimuli["index"]), "id": ("stimulus", np.asarray(self.stimuli["id"], dtype=object)), "labels": ("stimulus", labels)}
-        if len(dims) > 1:
-            coords["channel"] = np.arange(data.shape[1])
+        for axis, dim in enumerate(dims):
+            if dim in ("channel", "feature", "head", "token"):
+                coords[dim] = np.arange(data.shape[axis])
         attrs = {"layer": name, "op": layer["op"], "depth": layer["depth"], "dtype": layer["dtype"], "source": layer["source"],
                  "modulation": json.dumps(self.modulation), "folder": self.folder}
         return xr.DataArray(data, dims=dims, coords=coords, name=name, attrs=attrs)
@@ -442,7 +462,7 @@ class Snapshot(_Recording):
         batches = _read_layer_pyarrow(path) if self.engine == "pyarrow" else read_arrow_file(path, columns=wanted)[1]
         n = len(self.stimuli["id"])
         shape = list(layer["shape"])
-        channels = shape[0] if shape else 1
+        channels = feature_count(shape, layer.get("layout"))
         means = np.empty((n, channels), dtype=np.float32)
         acts = np.empty([n] + shape, dtype=np.float16 if layer["dtype"] == "float16" else np.float32) if want_activation else None
         seen = np.zeros(n, dtype=bool)
