@@ -244,6 +244,22 @@ describe('recordModulated tail replay split by bytes', () => {
     }
   });
 
+  it('recordModulated tail replay interrupted between runtime calls inside a baseline batch resumes to the same values', async () => {
+    const base = openSnapshot(join(dir, 'base-r'));
+    const path = spec('split-resume', { site: 'pool0', kind: 'gain', values: [0.5, 1.5, 2, 0.75] });
+    const common = { model: residual, stimuli: stim.npy, labels: stim.labels, modulate: path, from: base.folder, batch: 4, threads: 1, runBytes: 1, checkpointSeconds: 0 };
+    const whole = await recordModulated({ ...common, out: join(dir, 'resume-whole') });
+    // stop after 3 stimuli: inside the baseline's first batch of 4
+    await expect(recordModulated({ ...common, out: join(dir, 'resume-part'), onProgress: (p) => { if (p.done === 3) throw new Error('interrupted'); } })).rejects.toThrow('interrupted');
+    const resumed = await recordModulated({ ...common, out: join(dir, 'resume-part'), resume: true });
+    expect(resumed.resumed).toBe(3);
+    const a = openSnapshot(whole.folder);
+    const b = openSnapshot(resumed.folder);
+    for (const layer of a.manifest.layers.filter((l) => l.from === undefined)) {
+      expect(b.layer(layer.name).sha256, layer.name).toBe(layer.sha256);
+    }
+  });
+
   it('sonde record --modulate --from --run-memory takes MB (a positive integer) and refuses 0 with one line naming the option', async () => {
     const path = spec('split-cli', { site: 'pool0', kind: 'gain', values: [0.5, 1.5, 2, 0.75] });
     const ok = await runSonde(['record', residual, '--stimuli', stim.npy, '--labels', stim.labels, '--out', join(dir, 'split-cli'), '--modulate', path, '--from', join(dir, 'base-r'), '--batch', '4', '--run-memory', '1']);
