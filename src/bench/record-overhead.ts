@@ -84,6 +84,7 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
       default: {},
       all: { layers: 'all' },
       'default, writes on the main thread': { writeInBackground: false },
+      'default, runtime threads spinning': { runtimeSpinning: true },
       'default float16': { dtype: 'float16' },
       'default float16 converted in JavaScript': { dtype: 'float16', float16InGraph: false },
     };
@@ -123,6 +124,8 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
         'ratio all to floor': t('all') / floor('all'),
         'record default, writes on the main thread s': t('default, writes on the main thread'),
         'writer thread gain (main thread / writer thread)': t('default, writes on the main thread') / t('default'),
+        'record default with spinning runtime threads s': t('default, runtime threads spinning'),
+        'parking gain (spinning / parked)': t('default, runtime threads spinning') / t('default'),
         'record default float16 s': t('default float16'),
         'float16 / float32': t('default float16') / t('default'),
         'float16 converted in JavaScript / float32': t('default float16 converted in JavaScript') / t('default'),

@@ -100,6 +100,12 @@ export interface RecordOptions {
    * true; graph/expose-half.ts) rather than in JavaScript after the run (the benchmark compares them).
    */
   float16InGraph?: boolean;
+  /**
+   * Let the runtime's threads spin while they wait (`NetworkSessionOptions.spinning`). Default false: a
+   * recording computes channel means and writes beside the network, and spinning threads would take
+   * the cores those need.
+   */
+  runtimeSpinning?: boolean;
   /** Replace a complete snapshot already in `out`. */
   force?: boolean;
   /**
@@ -325,7 +331,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     const castInGraph = dtype === 'float16' && keep === 'full' && options.float16InGraph !== false;
     const names = selected.map((l) => l.name);
     const fetch = castInGraph ? names.map(halfOutputName) : names;
-    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true });
+    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false });
     let bytesWritten = 0;
     try {
       const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows(run));

@@ -27,6 +27,12 @@ export interface NetworkSessionOptions {
   label?: string;
   /** Run the session in a worker thread (default true), so the caller's thread stays free while it computes. */
   inWorker?: boolean;
+  /**
+   * Let the runtime's intra-op threads spin while they wait for work (default true, the runtime's own
+   * default). False parks them instead, which leaves the cores to other threads of the process — the
+   * recording's channel means and its writer thread — when there are few cores.
+   */
+  spinning?: boolean;
 }
 
 /** A loaded network ready to run batches. */
@@ -63,6 +69,7 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
     executionMode: 'sequential',
     intraOpNumThreads: threads,
     interOpNumThreads: 1,
+    ...(options.spinning === false ? { extra: { session: { intra_op: { allow_spinning: '0' } } } } : {}),
     logSeverityLevel: runtimeLogSeverity(),
   };
   const label = options.label ?? 'the model';
