@@ -10,9 +10,9 @@
  *   attention (so the Add after the MLP, not the one after attention);
  * - the attention output: the operand of a residual Add that comes from a multi-head attention, after
  *   its output projection and bias (src/graph/infer-layout.ts finds the heads);
- * - the MLP activation: an activation operator (Relu, Gelu, …) or a GELU written out as
- *   x·½·(1 + erf(x/√2)) or with tanh (opsets before 20): the last Mul of that chain, x·Φ(x), never
- *   its parts (the product x·(1 + erf) is 2·GELU).
+ * - the MLP activation: an activation operator (Relu, Gelu, …), a GELU written out as
+ *   x·½·(1 + erf(x/√2)) or with tanh (opsets before 20) — the last Mul of that chain, x·Φ(x), never
+ *   its parts (the product x·(1 + erf) is 2·GELU) — or a SiLU written out as x·σ(x) (the Mul, not σ).
  * Attention internals (heads layouts) are never default. Declared outputs always are.
  */
 import { ACTIVATION_OPS, LINEAR_OPS, MERGE_OPS, POOLING_OPS } from './select.js';
@@ -40,7 +40,7 @@ export interface DefaultContext {
 /** The names of the tensors the default selector records. */
 export function defaultTensors(structure: GraphStructure, candidates: readonly DefaultCandidate[], context: DefaultContext): Set<string> {
   const byName = new Map(candidates.map((c) => [c.name, c]));
-  const gelu = decomposedGelus(structure, context.dependent);
+  const gelu = writtenOutActivations(structure, context.dependent);
   const chosen = new Set<string>();
   const attentionOutputs = new Set<string>();
   const blockOutputs = new Set<string>();
@@ -86,12 +86,12 @@ function isBiasFollowed(structure: GraphStructure, name: string, biasAdded: Read
 }
 
 /**
- * GELUs written out with standard operators: Erf (or Tanh) → Add of a constant → a chain of at most two
- * Muls, one of them by an activation (x or ½x), the others by constants. `outputs`: the last Mul of
- * each chain (x·Φ(x)); `inner`: every tensor between x and it (the scaled input, Erf/Tanh and its
- * argument, 1 + erf, the partial products).
+ * Activations written out with standard operators. GELU: Erf (or Tanh) → Add of a constant → a chain of
+ * at most two Muls, one of them by an activation (x or ½x), the others by constants. SiLU: Sigmoid(x) →
+ * Mul by x. `outputs`: the last Mul of each chain (x·Φ(x), x·σ(x)); `inner`: every tensor between x and
+ * it (the scaled input, Erf/Tanh/Sigmoid and its argument, 1 + erf, the partial products).
  */
-export function decomposedGelus(structure: GraphStructure, dependent: ReadonlySet<string>): { outputs: Set<string>; inner: Set<string> } {
+export function writtenOutActivations(structure: GraphStructure, dependent: ReadonlySet<string>): { outputs: Set<string>; inner: Set<string> } {
   const outputs = new Set<string>();
   const inner = new Set<string>();
   const single = (tensor: string) => {
@@ -99,6 +99,14 @@ export function decomposedGelus(structure: GraphStructure, dependent: ReadonlySe
     return list.length === 1 ? structure.nodes[list[0]!]! : null;
   };
   for (const node of structure.nodes) {
+    if (node.opType === 'Sigmoid') {
+      const mul = single(node.outputs[0]!);
+      if (mul && mul.opType === 'Mul' && mul.inputs.includes(node.inputs[0]!)) {
+        outputs.add(mul.outputs[0]!);
+        inner.add(node.outputs[0]!);
+      }
+      continue;
+    }
     if (node.opType !== 'Erf' && node.opType !== 'Tanh') continue;
     const add = single(node.outputs[0]!);
     if (!add || add.opType !== 'Add' || add.inputs.filter((i) => dependent.has(i)).length !== 1) continue;

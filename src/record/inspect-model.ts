@@ -59,10 +59,11 @@ export interface SkippedTensor {
    * `constant`: does not depend on the data input (Constant nodes, values computed from weights only);
    * `type`: not float32 (shapes, indices, masks); `batch-later`: the batch is on a later axis (e.g. [T, N, D]
    * inside an attention layer that runs sequence-first); `batch-merged`: the batch is merged with another
-   * axis (e.g. [N·H, T, T], batch times heads): no row per stimulus; `batch`: no batch axis at all
-   * (reduced over the batch, or a shape computation).
+   * axis (e.g. [N·H, T, T], batch times heads): no row per stimulus; `unbatched`: no axis grows with the
+   * batch (reduced over it, or computed from shapes); `batch`: the first axis is not the batch, and where
+   * the batch went is not known (a model with a fixed batch size is probed once).
    */
-  reason: 'constant' | 'type' | 'batch-later' | 'batch-merged' | 'batch';
+  reason: 'constant' | 'type' | 'batch-later' | 'batch-merged' | 'unbatched' | 'batch';
   /** Full dims of the probe with the batch axis written `N` (`N·12` when merged), when the tensor has dims; absent for constants. */
   dims?: string[];
 }
@@ -73,7 +74,8 @@ export const SKIP_REASONS: Record<SkippedTensor['reason'], string> = {
   type: 'not float32',
   'batch-later': 'batch not on the first axis',
   'batch-merged': 'batch merged with another axis',
-  batch: 'no batch axis',
+  unbatched: 'no batch axis',
+  batch: 'first axis is not the batch',
 };
 
 /** Options of `inspectModel`. */
@@ -153,7 +155,7 @@ export function describeSkipped(inspection: Pick<ModelInspection, 'skippedTensor
   if (list.length <= nameUpTo) return `skipped ${list.length} tensor${list.length === 1 ? ' that is not a per-stimulus activation' : 's that are not per-stimulus activations'}: ${list.map(describeSkippedTensor).join(', ')}`;
   const counts = new Map<SkippedTensor['reason'], number>();
   for (const t of list) counts.set(t.reason, (counts.get(t.reason) ?? 0) + 1);
-  const order: Array<SkippedTensor['reason']> = ['constant', 'type', 'batch-merged', 'batch-later', 'batch'];
+  const order: Array<SkippedTensor['reason']> = ['constant', 'type', 'batch-merged', 'batch-later', 'unbatched', 'batch'];
   const parts = order.filter((r) => counts.has(r)).map((r) => `${counts.get(r)} ${r === 'constant' ? (counts.get(r) === 1 ? 'does' : 'do') + ' not depend on the input' : SKIP_REASONS[r]}`);
   return `skipped ${list.length} tensors that are not per-stimulus activations: ${parts.join(', ')} (\`sonde layers ${modelPath} --skipped\` lists them)`;
 }
@@ -181,6 +183,7 @@ async function placeBatchAxes(model: LoadedModel, skipped: SkippedTensor[], prob
     const after = second.get(t.name)?.dims;
     if (!after || after.length !== before.length) continue;
     const grown = before.map((d, i) => (after[i] !== d ? i : -1)).filter((i) => i >= 0);
+    if (grown.length === 0) t.reason = 'unbatched';
     if (grown.length !== 1) continue;
     const axis = grown[0]!;
     const k = before[axis]! / probeBatch;

@@ -8,6 +8,7 @@ import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { inspectModel } from '../../src/record/inspect-model.js';
+import { writeOpGraph } from '../helpers/op-graph.js';
 
 const LAYOUTS = new URL('../reference/fixtures/layouts/', import.meta.url).pathname;
 const INDEX = JSON.parse(readFileSync(join(LAYOUTS, 'index.json'), 'utf8')) as Record<string, Record<string, string>>;
@@ -32,5 +33,26 @@ describe('defaultTensors', () => {
     expect(pick(INDEX['channels-last']!.relu!)).toBe(true);
     expect(pick('logits')).toBe(true);
     expect(pick('/conv/Conv_output_0')).toBe(false);
+  });
+
+  it('defaultTensors picks x·σ(x) of a SiLU written out as Sigmoid and Mul in a token MLP, not the Sigmoid (exact graph, common practice for SiLU exports)', async () => {
+    const model = writeOpGraph({
+      input: [4, 6], // [T, D] tokens per stimulus
+      nodes: [
+        { op: 'MatMul', inputs: ['x', 'w1'], outputs: ['up'] },
+        { op: 'Add', inputs: ['up', 'b1'], outputs: ['h'] },
+        { op: 'Sigmoid', inputs: ['h'], outputs: ['gate'] },
+        { op: 'Mul', inputs: ['h', 'gate'], outputs: ['silu'] },
+        { op: 'MatMul', inputs: ['silu', 'w2'], outputs: ['down'] },
+        { op: 'Add', inputs: ['x', 'down'], outputs: ['block'] },
+        { op: 'ReduceMean', inputs: ['block'], outputs: ['pooled'], attributes: { axes: [1], keepdims: 0 } },
+      ],
+      weights: { w1: { dims: [6, 8] }, b1: { dims: [8] }, w2: { dims: [8, 6] } },
+      output: 'pooled',
+      opset: 13,
+    });
+    const { layers } = await inspectModel(model);
+    expect(layers.find((l) => l.name === 'silu')!.layout.kind).toBe('tokens');
+    expect(layers.filter((l) => l.default).map((l) => l.name).sort()).toEqual(['block', 'pooled', 'silu']);
   });
 });

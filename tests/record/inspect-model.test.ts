@@ -34,6 +34,7 @@ describe('describeSkipped', () => {
     );
     expect(count('batch-merged')).toBe(26); // 13 per block
     expect(count('batch-later')).toBe(14); // 7 per block
+    expect(count('batch')).toBe(0); // with a free batch axis every one is placed
     const few = { skippedTensors: inspection.skippedTensors.slice(0, 2) };
     expect(describeSkipped(few)).toBe(`skipped 2 tensors that are not per-stimulus activations: ${few.skippedTensors.map(describeSkippedTensor).join(', ')}`);
     expect(describeSkipped({ skippedTensors: [] })).toBeNull();
