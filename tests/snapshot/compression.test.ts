@@ -17,6 +17,7 @@ import { join } from 'node:path';
 import pl from 'nodejs-polars';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
+import { recordModulated } from '../../src/record/record-modulated.js';
 import { LayerBlockFile } from '../../src/snapshot/block-reader.js';
 import { compressBodyBuffers, compressSync, decodeBuffer, decodeBufferSync, frameOutputBound, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
@@ -237,6 +238,25 @@ describe('recordSnapshot with compression', () => {
     for (const entry of whole.manifest.layers) {
       expect(readFileSync(join(out, entry.file)).equals(readFileSync(join(whole.folder, entry.file))), entry.file).toBe(true);
       expect(readFileSync(join(out, entry.means!.file)).equals(readFileSync(join(whole.folder, entry.means!.file))), entry.means!.file).toBe(true);
+    }
+  });
+
+  it('recordModulated from a ZSTD baseline (tail replay fed from compressed boundary tensors) writes the values of the same run from the uncompressed baseline, in ZSTD files', async () => {
+    writeFileSync(join(dir, 'gain.json'), JSON.stringify({ site: 'relu1', kind: 'uniform', gain: 1.3 }));
+    const args = { model: join(dir, 'net.onnx'), stimuli: join(dir, 'stimuli.npy'), labels: join(dir, 'labels.csv'), batch: 5, threads: 1, modulate: join(dir, 'gain.json') };
+    const fromZstd = await recordModulated({ ...args, out: join(dir, 'mod-zstd'), from: join(dir, 'zstd') });
+    const fromPlain = await recordModulated({ ...args, out: join(dir, 'mod-none'), from: join(dir, 'none') });
+    expect(fromZstd.manifest.run.mode).toBe('tail');
+    const a = openSnapshot(fromZstd.folder);
+    const b = openSnapshot(fromPlain.folder);
+    for (const entry of a.manifest.layers) {
+      expect(entry.compression).toBe('zstd');
+      const bytes = async (s: typeof a) => {
+        const parts: Buffer[] = [];
+        for await (const batch of s.readLayer(entry.name)) parts.push(Buffer.from(bytesOf(batch.activation!)));
+        return Buffer.concat(parts);
+      };
+      expect(Buffer.compare(await bytes(a), await bytes(b)), entry.name).toBe(0);
     }
   });
 });
