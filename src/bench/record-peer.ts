@@ -30,15 +30,19 @@ const PEER_SCRIPT = new URL('../../tools/bench/torch_hook_record.py', import.met
 export function moduleOfNode(nodeName: string): { module: string; call: number } | null {
   const scopes = nodeName.split('/').filter((s) => s.length > 0).slice(0, -1);
   if (scopes.length === 0) return null;
-  let path = '';
+  // a scope extends the one before it (features → features.0 → features.0.2) or names a child of the
+  // module reached so far (layer1.0 → relu; features.1 → conv → conv.0, qualified within features.1)
+  let prefix = '';
+  let last = '';
   let call = 0;
   for (const [i, scope] of scopes.entries()) {
     const match = /^(.*?)(?:_(\d+))?$/.exec(scope)!;
-    const base = match[1]!;
+    const name = match[1]!;
     if (i === scopes.length - 1) call = match[2] ? Number(match[2]) : 0;
-    path = path && !base.startsWith(`${path}.`) ? `${path}.${base}` : base;
+    if (!(last && name.startsWith(`${last}.`))) prefix = last ? `${prefix}${last}.` : prefix;
+    last = name;
   }
-  return { module: path, call };
+  return { module: `${prefix}${last}`, call };
 }
 
 /** ONNX operators whose output is the output of a module of their own in torchvision networks. */

@@ -12,6 +12,7 @@ describe('moduleOfNode', () => {
     expect(moduleOfNode('/layer1/layer1.0/relu_2/Relu')).toEqual({ module: 'layer1.0.relu', call: 2 });
     expect(moduleOfNode('/maxpool/MaxPool')).toEqual({ module: 'maxpool', call: 0 });
     expect(moduleOfNode('/classifier/classifier.6/Gemm')).toEqual({ module: 'classifier.6', call: 0 });
+    expect(moduleOfNode('/features/features.1/conv/conv.0/conv.0.2/Clip')).toEqual({ module: 'features.1.conv.0.2', call: 0 });
     expect(moduleOfNode('/GlobalAveragePool')).toBeNull();
   });
 });

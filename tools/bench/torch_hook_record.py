@@ -74,7 +74,7 @@ def main() -> None:
     with torch.no_grad():
         for first in range(0, count, batch):
             calls.clear()
-            model(torch.from_numpy(np.ascontiguousarray(x[first:first + batch])))
+            model(torch.from_numpy(np.array(x[first:first + batch], dtype=np.float32)))
     for f in files:
         f.flush()
         os.fsync(f.fileno())
