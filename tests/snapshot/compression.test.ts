@@ -18,6 +18,8 @@ import pl from 'nodejs-polars';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { recordModulated } from '../../src/record/record-modulated.js';
+import { diffSnapshots } from '../../src/compare/diff-snapshots.js';
+import { tuneSnapshot } from '../../src/compare/tune.js';
 import { LayerBlockFile } from '../../src/snapshot/block-reader.js';
 import { compressBodyBuffers, compressSync, decodeBuffer, decodeBufferSync, frameOutputBound, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
@@ -258,5 +260,14 @@ describe('recordSnapshot with compression', () => {
       };
       expect(Buffer.compare(await bytes(a), await bytes(b)), entry.name).toBe(0);
     }
+  });
+
+  it('diffSnapshots and tuneSnapshot on ZSTD snapshots give the numbers they give on the uncompressed recordings', async () => {
+    const zstd = await diffSnapshots({ base: join(dir, 'zstd'), mod: join(dir, 'mod-zstd'), bootstrap: 0 });
+    const plain = await diffSnapshots({ base: join(dir, 'none'), mod: join(dir, 'mod-none'), bootstrap: 0 });
+    expect(JSON.stringify(zstd.layers)).toBe(JSON.stringify(plain.layers));
+    const tunedZstd = await tuneSnapshot({ snapshot: join(dir, 'zstd') });
+    const tunedPlain = await tuneSnapshot({ snapshot: join(dir, 'none') });
+    expect(JSON.stringify(tunedZstd.blocks)).toBe(JSON.stringify(tunedPlain.blocks));
   });
 });
