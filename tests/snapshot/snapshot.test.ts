@@ -125,4 +125,25 @@ describe('openSnapshot (format 2)', () => {
     copyFileSync(join(FORMAT2, 'base', 'manifest.json'), join(copy, 'manifest.json'));
     expect(readManifest(copy).format).toBe(2);
   });
+
+  it('readManifest refuses a means field in a format-2 manifest, on a channels-only layer, or naming another layer\'s file', () => {
+    const folder = join(dir, 'means-fields');
+    cpSync(join(dir, 'zstd'), folder, { recursive: true });
+    const original = readFileSync(join(folder, 'manifest.json'), 'utf8');
+    const edit = (change: (m: { format: number; layers: Array<{ file: string; keep: string; means?: { file: string } }> }) => void) => {
+      const m = JSON.parse(original);
+      change(m);
+      writeFileSync(join(folder, 'manifest.json'), JSON.stringify(m));
+    };
+    edit((m) => (m.format = 2));
+    expect(() => readManifest(folder)).toThrow(/layers\[0\]\.means is a format-3 field, but the manifest says format 2/);
+    edit((m) => (m.layers[0]!.keep = 'channels'));
+    expect(() => readManifest(folder)).toThrow(/layers\[0\]\.means is set, but the layer keeps channel means only/);
+    edit((m) => (m.layers[1]!.means!.file = m.layers[0]!.file));
+    expect(() => readManifest(folder)).toThrow(/layers\[1\]\.means\.file .* is used by two files/);
+    edit((m) => (m.layers[1]!.means!.file = '../outside.arrow'));
+    expect(() => readManifest(folder)).toThrow(/points outside the snapshot folder/);
+    writeFileSync(join(folder, 'manifest.json'), original);
+    expect(readManifest(folder).format).toBe(3);
+  });
 });
