@@ -317,6 +317,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     const takeCheckpoint = (batches: number, stimuli: number) => {
       const files: Record<string, number> = {};
       const sha256: Record<string, string> = {};
+      background?.syncAll(); // all layer files at once; each writer's own fsync below then finds them clean
       writers.forEach((writer, i) => {
         files[layerEntries[i]!.file] = writer.checkpoint();
         sha256[layerEntries[i]!.file] = writer.checkpointSha256();
@@ -362,6 +363,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       await session.close();
     }
     let total = 0;
+    background?.syncAll();
     writers.forEach((writer, i) => {
       const result = writer.finish();
       Object.assign(layerEntries[i]!, manifestFields(layerEntries[i]!.file, result));

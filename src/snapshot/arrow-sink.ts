@@ -60,7 +60,7 @@ export class HashingFileSink extends AsyncByteQueue {
       } catch (error) {
         throw writeFailure(this.temporaryPath, error);
       }
-      if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath);
+      if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, 0, () => this.handOver());
       return;
     }
     try {
@@ -101,7 +101,7 @@ export class HashingFileSink extends AsyncByteQueue {
       throw writeFailure(this.temporaryPath, error);
     }
     this.bytesWritten = resumeAt;
-    if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, resumeAt);
+    if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, resumeAt, () => this.handOver());
   }
 
   /** SHA-256 (hex) of the bytes written so far (the file stays open; hashing continues). */
@@ -127,6 +127,12 @@ export class HashingFileSink extends AsyncByteQueue {
     } catch (error) {
       throw this.failure(error);
     }
+  }
+
+  /** Hands every chunk held back (a donated one, staged small ones) to the writer thread. */
+  private handOver(): void {
+    this.flushPending();
+    this.flushStaging();
   }
 
   /** Moves a donated chunk held back by `write` to the writer thread. */

@@ -22,7 +22,7 @@ export const DEFAULT_QUEUED_BYTES = 256 * 2 ** 20;
 // Plain CommonJS evaluated from a string, so it runs the same from compiled code and under the test runner.
 const WORKER_SOURCE = `
 const { parentPort, workerData } = require('node:worker_threads');
-const { writeSync, fsyncSync, readSync } = require('node:fs');
+const { writeSync, fsyncSync, readSync, fsync } = require('node:fs');
 const { createHash } = require('node:crypto');
 const state = new Int32Array(workerData.state);
 const digest = new Uint8Array(workerData.digest);
@@ -37,7 +37,22 @@ function fail(e, stream) {
   errorText.set(bytes.subarray(0, errorText.length));
   Atomics.store(state, 1, 1);
 }
+// fsync of every open file at once: the file system can commit them together
+function syncAll() {
+  return Promise.all([...streams.entries()].map(([id, s]) => new Promise((resolve, reject) => fsync(s.fd, (e) => (e ? reject(Object.assign(e, { stream: id })) : resolve())))));
+}
+let queue = Promise.resolve();
 parentPort.on('message', (m) => {
+  if (m.type === 'syncAll') {
+    queue = queue.then(() => (failed ? undefined : syncAll())).catch((e) => { if (!failed) fail(e, e && e.stream); }).then(() => {
+      Atomics.store(state, 0, m.seq);
+      Atomics.notify(state, 0);
+    });
+    return;
+  }
+  queue = queue.then(() => handle(m));
+});
+function handle(m) {
   try {
     if (m.type === 'open') {
       const hash = createHash('sha256');
@@ -71,7 +86,7 @@ parentPort.on('message', (m) => {
   }
   Atomics.store(state, 0, m.seq);
   Atomics.notify(state, 0);
-});
+}
 `;
 
 /** The first failure of the worker: the stream it happened on and the error's code and message. */
@@ -101,6 +116,8 @@ export class BackgroundWriter {
   private queuedBytes = 0;
   private closed = false;
   private readonly paths = new Map<number, string>();
+  /** Per stream: hands on what its sink still holds back (called before `syncAll`). */
+  private readonly flushers = new Map<number, () => void>();
 
   /** @param maxQueuedBytes bytes that may wait before `write` blocks (default `DEFAULT_QUEUED_BYTES`). */
   constructor(readonly maxQueuedBytes = DEFAULT_QUEUED_BYTES) {
@@ -110,13 +127,15 @@ export class BackgroundWriter {
   }
 
   /**
-   * Starts a stream on an open file descriptor (`path` names it in errors) whose first `prefix` bytes are already in the file (0 for
+   * Starts a stream on an open file descriptor (`path` names it in errors; `flush` hands on chunks its
+   * sink holds back, before `syncAll`) whose first `prefix` bytes are already in the file (0 for
    * a new file); the worker hashes that prefix again before anything is appended.
    * @returns the stream's id for the other calls.
    */
-  open(fd: number, path: string, prefix = 0): number {
+  open(fd: number, path: string, prefix = 0, flush?: () => void): number {
     const stream = this.nextStream++;
     this.paths.set(stream, path);
+    if (flush) this.flushers.set(stream, flush);
     this.post({ type: 'open', stream, fd, prefix }, 0);
     return stream;
   }
@@ -148,6 +167,17 @@ export class BackgroundWriter {
     this.throwIfFailed();
   }
 
+  /**
+   * Waits until everything queued is written, then fsyncs every open stream's file at once (the file
+   * system can commit them together, where one fsync after another waits for a commit each).
+   * @throws BackgroundWriteError
+   */
+  syncAll(): void {
+    for (const flush of this.flushers.values()) flush();
+    this.waitFor(this.post({ type: 'syncAll' }, 0));
+    this.throwIfFailed();
+  }
+
   /** SHA-256 of every byte of `stream` so far (its prefix and all writes), after they are written. @throws BackgroundWriteError */
   sha256(stream: number): Buffer {
     this.waitFor(this.post({ type: 'digest', stream }, 0));
@@ -157,6 +187,7 @@ export class BackgroundWriter {
 
   /** Waits for the stream's queued writes and forgets it (the caller closes the descriptor afterwards). Never throws. */
   close(stream: number): void {
+    this.flushers.delete(stream);
     if (this.closed) return;
     try {
       this.waitFor(this.post({ type: 'close', stream }, 0));

@@ -65,6 +65,26 @@ describe('BackgroundWriter', () => {
     }
   });
 
+  it('BackgroundWriter.syncAll hands on the chunks every sink holds back, writes them and fsyncs every file (the files then hold every byte written)', async () => {
+    const background = new BackgroundWriter();
+    try {
+      const sinks = [0, 1, 2].map((k) => new HashingFileSink(join(dir, `all-${k}.bin`), { background }));
+      const written = sinks.map(() => [] as number[]);
+      sinks.forEach((sink, k) => {
+        for (const chunk of chunks(10 + k)) {
+          if (chunk.byteLength > 4096) continue; // small chunks only: all of them wait in the sink's stage
+          sink.write(chunk);
+          written[k]!.push(...chunk);
+        }
+      });
+      background.syncAll();
+      sinks.forEach((_, k) => expect(Array.from(readFileSync(join(dir, `all-${k}.bin.partial`)))).toEqual(written[k]));
+      for (const sink of sinks) sink.commit();
+    } finally {
+      await background.terminate();
+    }
+  });
+
   it('BackgroundWriter reports a failed write (EBADF: a read-only descriptor) with its code and file, and writeFailure words it in one line', async () => {
     const background = new BackgroundWriter();
     const path = join(dir, 'read-only.bin');
