@@ -61,8 +61,9 @@ function resolveOne(m: Modulation, r: Resolver): ResolvedModulation {
   const heads = m.per === 'head' ? r.heads(m, shape) : null;
   // `units` is what the spec's vectors index: features, or heads (expanded to their features below)
   const units = heads ?? features;
-  const unitWord = heads !== null ? 'head' : shape.layout.kind === 'channels-first' || shape.layout.kind === 'vector' ? 'channel' : 'feature';
-  const ch = `${units} ${heads !== null ? 'heads' : unitWord === 'channel' ? 'ch' : 'features'}`;
+  // words for messages: a map's channels, a token tensor's features, an attention tensor's heads (its features)
+  const unitWord = heads !== null || shape.layout.kind === 'heads' ? 'head' : shape.layout.kind === 'channels-first' || shape.layout.kind === 'vector' ? 'channel' : 'feature';
+  const ch = `${units} ${unitWord === 'head' ? 'heads' : unitWord === 'channel' ? 'ch' : 'features'}`;
   const gain = new Float32Array(units).fill(1);
   const offset = new Float32Array(units);
   let noise: NoiseSettings | null = null;
@@ -93,7 +94,7 @@ function resolveOne(m: Modulation, r: Resolver): ResolvedModulation {
     }
     case 'lesion': {
       let lesioned: number[];
-      const plural = heads !== null ? 'heads' : unitWord === 'channel' ? 'channels' : 'features';
+      const plural = `${unitWord}s`;
       if ('channels' in m) {
         const field = heads !== null ? 'heads' : 'channels';
         m.channels.forEach((c, i) => {
