@@ -232,3 +232,18 @@ describe('fillModulationInputs at token tensors', () => {
     for (let n = 0; n < 3; n++) for (let f = 0; f < 3; f++) expect(whole[n * 15 + f]).toBe(1);
   });
 });
+
+describe('fillModulationInputs on channels-last maps', () => {
+  it('fillModulationInputs(window on [H, W, C] features last) writes G = outside + w(h, w)·(g_c − outside) at [n, h, w, c]', () => {
+    const sites = new Map<string, SiteShape>([['nhwc', siteShapeOf([2, 3, 2], { kind: 'channels-last', featureAxis: 2, source: 'sidecar' })!]]);
+    const r = resolveModulations(parseModulationSpec('{ site: nhwc, kind: gain, values: [2, 4], window: { shape: box, x0: 0, x1: 0.34, y0: 0, y1: 1, outside: 0.5 } }', { source: 'spec.yaml' }), { sites, siteNames: ['nhwc'] })[0]!;
+    expect(inputShape(r, 1)).toEqual([1, 2, 3, 2]);
+    const { gain } = modulationInputs(r, { firstStimulus: 0, rows: 1 });
+    for (let h = 0; h < 2; h++) {
+      for (let w = 0; w < 3; w++) {
+        for (let c = 0; c < 2; c++) expect(gain[(h * 3 + w) * 2 + c]).toBe(w === 0 ? [2, 4][c] : 0.5); // only column 0 has its centre (1/6) in [0, 0.34)
+      }
+    }
+    expect(inputShape(resolveModulations(parseModulationSpec('{ site: nhwc, kind: gain, values: [2, 4] }', { source: 'spec.yaml' }), { sites, siteNames: ['nhwc'] })[0]!, 5)).toEqual([5, 1, 1, 2]);
+  });
+});
