@@ -7,43 +7,78 @@
  * ±Infinity (onnx Operators.md, Cast), the same as IEEE 754 binary16 conversion.
  */
 import type { LoadedModel } from './load-model.js';
-import { encodeModel, makeValueInfo, type NodeProto, type ValueInfoProto } from './onnx.js';
+import type { LayoutGeometry } from './layout.js';
+import { encodeModel, makeValueInfo, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
 
-/** ONNX TensorProto.DataType of float16. */
+/** ONNX TensorProto.DataType of float16, float32 and int64. */
 const FLOAT16 = 10;
+const FLOAT32 = 1;
+const INT64 = 7;
 
 /** The graph output name that carries tensor `name` cast to float16. */
 export function halfOutputName(name: string): string {
   return `${name}::float16`;
 }
 
+/** The graph output name that carries the feature means of tensor `name` (float32, [N, features]). */
+export function meansOutputName(name: string): string {
+  return `${name}::means`;
+}
+
 /**
  * Returns ONNX bytes of `model` with every tensor in `names` cast to float16 and exposed as
- * `halfOutputName(name)` (the model's own outputs stay as they are). Nodes and initializers of the
+ * `halfOutputName(name)` (the model's own outputs stay as they are). With `geometries` (one per name:
+ * outer × features × inner per stimulus, graph/layout.ts), each tensor's feature means over its
+ * positions are exposed too, as `meansOutputName(name)` — a Reshape to [N, outer, features, inner] and a
+ * ReduceMean over axes 1 and 3, in float32 before any rounding to float16. Nodes and initializers of the
  * model are untouched, so weights stay byte-identical.
  * @throws RangeError when an output name is already taken in the graph.
  */
-export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly string[]): Uint8Array {
+export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly string[], geometries?: readonly LayoutGeometry[]): Uint8Array {
   const graph = model.proto.graph!;
   const originalNodes = graph.node ?? [];
   const originalOutputs = graph.output ?? [];
+  const originalInitializers = graph.initializer ?? [];
   const taken = new Set<string>();
   for (const node of originalNodes) for (const out of node.output ?? []) taken.add(out);
   for (const info of graph.input ?? []) taken.add(info.name ?? '');
-  const casts: NodeProto[] = [];
+  for (const init of originalInitializers) taken.add(init.name ?? '');
+  const fresh = (name: string): string => {
+    if (taken.has(name)) throw new RangeError(`tensor "${name}" already exists in ${model.fileName}`);
+    taken.add(name);
+    return name;
+  };
+  const added: NodeProto[] = [];
   const outputs: ValueInfoProto[] = [];
-  for (const name of new Set(names)) {
-    const half = halfOutputName(name);
-    if (taken.has(half)) throw new RangeError(`tensor "${half}" already exists in ${model.fileName}`);
-    casts.push({ name: `sonde_float16/${name}`, opType: 'Cast', input: [name], output: [half], attribute: [{ name: 'to', type: 2, i: FLOAT16 }] });
+  const initializers: TensorProto[] = [];
+  names.forEach((name, i) => {
+    const half = fresh(halfOutputName(name));
+    added.push({ name: `sonde_float16/${name}`, opType: 'Cast', input: [name], output: [half], attribute: [{ name: 'to', type: 2, i: FLOAT16 }] });
     outputs.push(makeValueInfo(half, FLOAT16));
-  }
-  graph.node = [...originalNodes, ...casts];
+    const g = geometries?.[i];
+    if (!g) return;
+    const shape = fresh(`sonde_means/${name}/shape`);
+    const grouped = fresh(`sonde_means/${name}/grouped`);
+    const means = fresh(meansOutputName(name));
+    initializers.push(onnx.TensorProto.create({ name: shape, dataType: INT64, dims: [4], int64Data: [-1, g.outer, g.features, g.inner] }));
+    added.push({ name: `sonde_means/${name}/reshape`, opType: 'Reshape', input: [name, shape], output: [grouped] });
+    if (model.opset >= 18) {
+      const axes = fresh(`sonde_means/${name}/axes`);
+      initializers.push(onnx.TensorProto.create({ name: axes, dataType: INT64, dims: [2], int64Data: [1, 3] }));
+      added.push({ name: `sonde_means/${name}/mean`, opType: 'ReduceMean', input: [grouped, axes], output: [means], attribute: [{ name: 'keepdims', type: 2, i: 0 }] });
+    } else {
+      added.push({ name: `sonde_means/${name}/mean`, opType: 'ReduceMean', input: [grouped], output: [means], attribute: [{ name: 'keepdims', type: 2, i: 0 }, { name: 'axes', type: 7, ints: [1, 3] }] });
+    }
+    outputs.push(makeValueInfo(means, FLOAT32));
+  });
+  graph.node = [...originalNodes, ...added];
   graph.output = [...originalOutputs, ...outputs];
+  graph.initializer = [...originalInitializers, ...initializers];
   try {
     return encodeModel(model.proto);
   } finally {
     graph.node = originalNodes;
     graph.output = originalOutputs;
+    graph.initializer = originalInitializers;
   }
 }

@@ -10,7 +10,8 @@ import { existsSync, renameSync, statSync } from 'node:fs';
 import { extname, relative } from 'node:path';
 import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
-import { exposeTensorsAsFloat16, halfOutputName } from '../graph/expose-half.js';
+import { exposeTensorsAsFloat16, halfOutputName, meansOutputName } from '../graph/expose-half.js';
+import { layoutGeometry } from '../graph/layout.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
@@ -331,8 +332,10 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     // float16 activations: Cast nodes in the graph convert them, so the runtime hands over half the bytes
     const castInGraph = dtype === 'float16' && keep === 'full' && options.float16InGraph !== false;
     const names = selected.map((l) => l.name);
-    const fetch = castInGraph ? names.map(halfOutputName) : names;
-    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false });
+    // and their channel means too, in float32 before the rounding (the stored means stay those of the float32 values)
+    const fetch = castInGraph ? [...names.map(halfOutputName), ...names.map(meansOutputName)] : names;
+    const geometries = selected.map((l) => layoutGeometry(l.shape, l.layout));
+    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false });
     let bytesWritten = 0;
     try {
       const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows(run));
@@ -347,7 +350,9 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
             if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
             checkShape(layer, tensor, rows, fixedBatch);
             // the runtime's buffer moves on to the writer thread (not copied); the count comes from the means pass
-            const nonFinite = writers[i]!.write(first, rows, tensor.data, true);
+            const means = castInGraph ? (outputs[meansOutputName(layer.name)]?.data as Float32Array | undefined) : undefined;
+            if (castInGraph && !means) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no channel means for "${layer.name}"`);
+            const nonFinite = writers[i]!.write(first, rows, tensor.data, true, means);
             tally?.add(layerEntries[i]!.file, nonFinite);
           });
           log.append(first - range.start, rows);

@@ -137,3 +137,13 @@ export function countHalfNonFinite(bits: Uint16Array, start = 0, end = bits.leng
   for (let i = start; i < end; i++) if ((bits[i]! & 0x7c00) === 0x7c00) count++;
   return count;
 }
+
+/** Count of NaN/±Infinity among the first `end` values (a plain scan, for when the means come from elsewhere). */
+export function countNonFiniteValues(data: Float32Array, end = data.length): number {
+  let largest = 0;
+  for (let i = 0; i < end; i++) largest = Math.max(largest, Math.abs(data[i]!));
+  if (largest < Number.POSITIVE_INFINITY) return 0;
+  let count = 0;
+  for (let i = 0; i < end; i++) if (!Number.isFinite(data[i]!)) count++;
+  return count;
+}

@@ -9,7 +9,7 @@ import { arrowCompressionType, registerArrowCodecs, type LayerCompression } from
 import { LayerBlockFile } from './block-reader.js';
 import type { ActivationDtype, KeepMode } from './manifest.js';
 import { layoutGeometry, type LayoutGeometry, type TensorLayout } from '../graph/layout.js';
-import { float16Pass, float32Pass, countHalfNonFinite } from './activation-pass.js';
+import { float16Pass, float32Pass, countHalfNonFinite, countNonFiniteValues } from './activation-pass.js';
 import type { BackgroundWriter } from './background-writer.js';
 
 /** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
@@ -148,16 +148,20 @@ export class LayerFileWriter {
    * values are taken before any float16 rounding, means of float16 bits of the stored values.
    * @param donate the caller gives up `activation`'s memory: with a background writer its bytes move to
    *   the writer thread without a copy, and the array must not be used again.
+   * @param means channel means computed elsewhere (at least rows × C values, e.g. by the runtime from the
+   *   float32 tensor before a float16 cast); then the values are only scanned for NaN/±Infinity.
    * @returns how many stored values are NaN or ±Infinity (for float16 storage: after rounding, so
    *   float32 values of magnitude ≥ 65520 count).
    */
-  write(firstIndex: number, rows: number, activation: Float32Array | Uint16Array, donate = false): number {
+  write(firstIndex: number, rows: number, activation: Float32Array | Uint16Array, donate = false, means?: Float32Array): number {
     const index = new Int32Array(rows);
     for (let r = 0; r < rows; r++) index[r] = firstIndex + r;
     const count = rows * this.elements;
     const half = activation instanceof Uint16Array;
     if (half && this.layout.dtype !== 'float16') throw new RangeError(`${this.layout.name}: float16 bits given for a ${this.layout.dtype} layer`);
-    const pass = half ? float16Pass(activation, rows, this.geometry) : float32Pass(activation, rows, this.geometry);
+    if (means && means.length < rows * this.channels) throw new RangeError(`${this.layout.name}: ${means.length} channel means for ${rows} rows of ${this.channels} channels`);
+    const given = means ? { means: means.length === rows * this.channels ? means : means.slice(0, rows * this.channels), nonFinite: half ? countHalfNonFinite(activation, 0, count) : countNonFiniteValues(activation, count) } : null;
+    const pass = given ?? (half ? float16Pass(activation, rows, this.geometry) : float32Pass(activation, rows, this.geometry));
     let nonFinite = pass.nonFinite;
     const children: Data[] = [
       makeData({ type: new Int32(), length: rows, nullCount: 0, data: index }),
