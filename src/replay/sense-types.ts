@@ -67,6 +67,8 @@ export interface SenseOptions {
   method?: SenseMethod;
   /** Average only over stimuli containing this category, or `each`: every readout category over the stimuli containing it. */
   stimuliOf?: string;
+  /** `head`: one value per head of a multi-head site (the sum of its features' values; see sense-heads.ts); default one per feature (channel). */
+  per?: 'feature' | 'head';
   /** Perturbed rows per downstream run (default 256; finite differences only). */
   rowsPerRun?: number;
   /** Cap on feed bytes of the two runs in flight (default 256 MiB); lowers rowsPerRun for wide sites. */
@@ -103,8 +105,8 @@ export interface SenseOptions {
 export interface SiteSensitivity extends SensitivityTableBlock {
   /** How `sensitivity` was computed. */
   method: SenseMethod;
-  /** What one value is of: a channel of a feature map or vector, or a feature of a token tensor (along the site's layout). */
-  unit?: 'channel' | 'feature';
+  /** What one value is of: a channel of a feature map or vector, a feature of a token tensor (along the site's layout), or a head (`per: head`). */
+  unit?: 'channel' | 'feature' | 'head';
   /** Richardson: |D(h/2) − D(h)| / 3, how far the extrapolation moved the h/2 secant, [C, K]; null for the secant. */
   extrapolationShift: Float64Array | null;
   /** The warning line, when the method's indicator (extrapolationShift, or fd_error for the secant) is large somewhere. */

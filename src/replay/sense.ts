@@ -56,6 +56,7 @@ import { assertOutFileWritable } from '../outputs/output-file.js';
 import { errorCheck } from './sense-estimate.js';
 import { senseOneSite } from './sense-run.js';
 import { senseOneSiteExact } from './sense-exact.js';
+import { foldHeads, siteHeads } from './sense-heads.js';
 import { chooseSites, parseReadout, siteTail, stimulusWeights, type ReadoutChoice } from './sense-plan.js';
 import { mapReadout, type MappedReadout } from './mapped-readout.js';
 import { mapTag } from '../graph/category-map.js';
@@ -109,6 +110,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
   } else readout = parseReadout(options.readout, model, inspection);
   const byName = new Map(inspection.layers.map((l) => [l.name, l]));
   const sites = chooseSites(options.site, inspection, readout.tensor);
+  const headsOf = new Map(options.per === 'head' ? sites.map((site) => [site, siteHeads(inspection, site)] as const) : []);
 
   let source: StimulusSource | null = null;
   if (options.stimuli !== undefined) {
@@ -143,10 +145,11 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     if (baseline) checkBaseline(baseline, tail, options.from!);
     const layer = byName.get(site)!;
     const measure = method === 'exact' ? senseOneSiteExact : senseOneSite;
-    const block = await measure({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, runBytes: runBytesOption(options.runBytes), threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
+    let block = await measure({ site, layer, tail, model, inspection, readout, weights, kind, step, method, rowsPerRun, feedBytes: options.feedBytes ?? DEFAULT_FEED_BYTES, runBytes: runBytesOption(options.runBytes), threads: options.threads ?? 0, baseline, source, batch: options.batch ?? 16, byName, onProgress: options.onProgress, range, keepSums: options.shard !== undefined });
     block.downstreamShare = downstreamShare(estimate, tail.computed);
     // exact: each row is one forward and one backward pass downstream (≈ 3 forward passes, common practice)
     block.forwardEquivalentsPerChannel = (block.rows * block.downstreamShare * (method === 'exact' ? 3 : 1) + block.prefixStimuli) / (block.channels * block.stimuliUsed);
+    if (options.per === 'head') block = foldHeads(block, headsOf.get(site)!); // per head: the sum over its features (sense-heads.ts)
     if (options.shard) {
       blocks.push(block);
       continue;
@@ -165,6 +168,7 @@ export async function senseSites(options: SenseOptions): Promise<SenseResult> {
     ...(mapped ? { [READOUT_MAP_KEY]: JSON.stringify(mapTag(mapped.map)) } : {}),
     'sonde.stimuli_of': options.stimuliOf ?? 'all',
     'sonde.method': method,
+    ...(options.per === 'head' ? { 'sonde.per': 'head' } : {}),
     'sonde.source': baseline ? `baseline ${baseline.folder}` : `stimuli ${options.stimuli}`,
   };
   const result: SenseResult = { sites: blocks, readout, source: baseline ? 'baseline' : 'network', warnings, stimuli: labels.length, range, metadata };

@@ -22,6 +22,10 @@ float32 inputs (fixtures/attention/inputs.npy) through forward hooks:
     <slug>_gain.npy            [16, 10] mean_n sum_t (dy_nc / da_ntf) a_ntf   (per-feature gain sensitivity)
     <slug>_offset.npy          [16 or 32, 10] mean_n sum_t dy_nc / da_ntf
     index.json                 ONNX names of the sites and slugs
+    heads-net.onnx             a tiny attention network whose heads stay batch-first before the output
+                               projection ([N, T, 4·4], as timm writes it), seed 1911, opset 14
+    heads_net_logits*.npy      its logits, unmodulated and with gains (1.5, 0, 0.75, 1.25) on its 4 heads
+    heads_net_head_gain.npy    [4, 10] per-head gain sensitivities: mean_n d y_nc / d g_h at g = 1
 
 PyTorch's MultiheadAttention calls torch.nn.functional.linear for the output projection inside
 multi_head_attention_forward, so no module hook sees its input; the per-head hook wraps that function
@@ -121,6 +125,63 @@ def attention_input_name(proto, block: int) -> str:
     raise RuntimeError(f"no output projection in {scope}")
 
 
+class HeadsNet(torch.nn.Module):
+    """A tiny attention network whose heads stay batch-first before the output projection (as in timm's
+    Attention: (attn @ v).transpose(1, 2).reshape(N, T, D)): patch embedding (3 → 16, patches of 8 on
+    32 px: 16 tokens), one multi-head self-attention (4 heads of 4), output projection, mean over tokens,
+    a linear head to 10 units."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.embed = torch.nn.Conv2d(3, 16, 8, 8)
+        self.qkv = torch.nn.Linear(16, 48)
+        self.proj = torch.nn.Linear(16, 16)
+        self.head = torch.nn.Linear(16, 10)
+        self.heads = 4
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        t = self.embed(x).flatten(2).transpose(1, 2)  # [N, T, D]
+        n, tokens, d = t.shape
+        qkv = self.qkv(t).reshape(n, tokens, 3, self.heads, d // self.heads).permute(2, 0, 3, 1, 4)
+        q, k, v = qkv[0], qkv[1], qkv[2]
+        attn = torch.softmax(q @ k.transpose(-2, -1) * (d // self.heads) ** -0.5, dim=-1)
+        merged = self.merge(attn @ v)  # [N, T, D], heads concatenated: the site
+        return self.head(self.proj(merged).mean(1))
+
+    def merge(self, values: torch.Tensor) -> torch.Tensor:
+        n, h, tokens, dh = values.shape
+        return values.transpose(1, 2).reshape(n, tokens, h * dh)
+
+
+HEADS_SEED = 1911
+
+
+def heads_network(x: torch.Tensor) -> dict:
+    """heads-net.onnx with a per-head gain reference and per-head autograd sensitivities at its merged heads."""
+    torch.manual_seed(HEADS_SEED)
+    net = HeadsNet().eval()
+    mf.export(net, x.float(), OUT / "heads-net.onnx", 14)
+    proto = __import__("onnx").load(str(OUT / "heads-net.onnx"))
+    site = next(n.output[0] for n in proto.graph.node if n.op_type == "Reshape" and any(c.op_type in ("MatMul", "Gemm") and n.output[0] in c.input for c in proto.graph.node))
+    net = net.double()
+    mf.save(OUT / "heads_net_logits.npy", net(x).detach().numpy())
+    gains = torch.tensor([1.5, 0.0, 0.75, 1.25], dtype=torch.float64)
+    original = net.merge
+    net.merge = lambda v: original(v * gains.view(1, -1, 1, 1))  # head h of the merged tensor = values[:, h]
+    mf.save(OUT / "heads_net_logits_gain.npy", net(x).detach().numpy())
+    g = torch.ones(4, dtype=torch.float64, requires_grad=True)
+    net.merge = lambda v: original(v * g.view(1, -1, 1, 1))
+    y = net(x)
+    n, k_out = y.shape
+    per_head = np.zeros((4, k_out))
+    for c in range(k_out):
+        (dg,) = torch.autograd.grad(y[:, c].sum(), [g], retain_graph=True)
+        per_head[:, c] = dg.detach().numpy() / n
+    net.merge = original
+    mf.save(OUT / "heads_net_head_gain.npy", per_head)
+    return {"onnx": site, "heads": 4, "gains": gains.tolist()}
+
+
 def main() -> None:
     import onnx
 
@@ -154,6 +215,7 @@ def main() -> None:
         mf.save(OUT / f"{s}_gain.npy", gain)
         mf.save(OUT / f"{s}_offset.npy", offset)
         index["sensitivities"].append({"module": module, "onnx": onnx_name, "slug": s, "features": gain.shape[0]})
+    index["headsNet"] = heads_network(x)
     (OUT / "index.json").write_text(json.dumps(index, indent=2) + "\n")
     print(f"tokens: {json.dumps(index)}")
 

@@ -127,3 +127,20 @@ describe('recordModulated at token tensors vs PyTorch hooks (small seeded Vision
     expect(changed).toBeGreaterThan(0);
   });
 });
+
+describe('recordModulated per head at a batch-first multi-head tensor vs PyTorch', () => {
+  it('recordModulated(per: head gains on the merged heads [N, 16, 4·4], heads traced from the graph) matches a hook scaling each head of the attention values', async () => {
+    const dir = tempFolder();
+    const model = join(TOKENS, 'heads-net.onnx');
+    const index = JSON.parse(readFileSync(join(TOKENS, 'index.json'), 'utf8')) as { headsNet: { onnx: string; gains: number[] } };
+    const base = join(dir, 'base');
+    await recordSnapshot({ model, stimuli: INPUTS, out: base, layers: 'all', batch: 2, threads: 1 });
+    expect(maxRelativeError(await layerValues(openSnapshot(base), 'logits'), npy(join(TOKENS, 'heads_net_logits.npy')))).toBeLessThanOrEqual(1e-4);
+    const path = join(dir, 'heads.json');
+    writeFileSync(path, JSON.stringify({ site: index.headsNet.onnx, kind: 'gain', per: 'head', values: index.headsNet.gains }));
+    const result = await recordModulated({ model, stimuli: INPUTS, out: join(dir, 'mod'), modulate: path, from: base, threads: 1 });
+    expect(result.manifest.run.mode).toBe('tail');
+    const logits = await layerValues(openSnapshot(result.folder), 'logits');
+    expect(maxRelativeError(logits, npy(join(TOKENS, 'heads_net_logits_gain.npy')))).toBeLessThanOrEqual(1e-4);
+  });
+});

@@ -15,7 +15,8 @@ const FOLDER = new URL('./fixtures/attention/', import.meta.url).pathname;
 const TOKENS = join(FOLDER, 'tokens');
 const MODEL = join(FOLDER, 'vit-opset14.onnx');
 const INPUTS = join(FOLDER, 'inputs.npy');
-const INDEX = JSON.parse(readFileSync(join(TOKENS, 'index.json'), 'utf8')) as { sensitivities: Array<{ module: string; onnx: string; slug: string; features: number }> };
+const INDEX = JSON.parse(readFileSync(join(TOKENS, 'index.json'), 'utf8')) as { sensitivities: Array<{ module: string; onnx: string; slug: string; features: number }>; headsNet: { onnx: string; heads: number } };
+const HEADS_NET = join(TOKENS, 'heads-net.onnx');
 
 function npy64(path: string): Float64Array {
   const t = parseNpy(readFileSync(path), path);
@@ -60,4 +61,20 @@ describe('senseSites at token tensors vs PyTorch autograd (small seeded VisionTr
     // float32 central differences at the default step: truncation O(h²) plus rounding ~ε/h (../shared/DOMAIN.md)
     expect(worst).toBeLessThanOrEqual(1e-2);
   }, 120_000);
+
+  it('senseSites --per head at the merged heads of an attention layer (batch-first, 4 heads of 4) gives one value per head, the sum over its features, within 1e-4 of autograd for a gain per head', async () => {
+    const result = await senseSites({ model: HEADS_NET, stimuli: INPUTS, site: INDEX.headsNet.onnx, kind: 'gain', per: 'head', threads: 1 });
+    const block = result.sites[0]!;
+    expect(block.channels).toBe(INDEX.headsNet.heads);
+    expect(block.unit).toBe('head');
+    expect(result.metadata['sonde.per']).toBe('head');
+    const worst = worstRelative(block.sensitivity, npy64(join(TOKENS, 'heads_net_head_gain.npy')), INDEX.headsNet.heads, block.categories.length);
+    if (process.env['SONDE_PRINT']) console.log(`per head ${worst.toExponential(2)}`);
+    expect(worst).toBeLessThanOrEqual(1e-4);
+  }, 120_000);
+
+  it('senseSites --per head refuses a site whose heads are not known (after the output projection), naming it', async () => {
+    const mixed = INDEX.sensitivities[0]!.onnx; // a block output: heads already mixed
+    await expect(senseSites({ model: MODEL, stimuli: INPUTS, site: mixed, kind: 'gain', per: 'head', threads: 1 })).rejects.toThrow(/--per head: the heads of ".*Add_1_output_0" are not known/);
+  });
 });

@@ -32,6 +32,7 @@ interface SenseCliOptions {
   step?: string;
   method: string;
   stimuliOf?: string;
+  per?: string;
   out?: string;
   force?: boolean;
   shard?: string;
@@ -67,6 +68,7 @@ export function registerSense(program: Command): void {
     .option('--step <h>', `finite-difference step h > 0, --method richardson|secant only (Richardson also runs at h/2; default ${DEFAULT_STEP} for --kind gain, ${DEFAULT_OFFSET_STEP} for offset)`)
     .option('--method <method>', 'exact: reverse-mode gradients of the downstream part, one forward and backward run per stimulus and category, all channels at once; richardson: (4·D(h/2) − D(h))/3 from central differences D at h and h/2 (4 runs per channel); secant: D(h) alone (2 runs per channel, half the cost)', SENSE_METHODS[0])
     .option('--stimuli-of <category|each>', 'average only over stimuli containing CATEGORY; each: every readout category over the stimuli containing it')
+    .option('--per <unit>', 'feature (default: one value per channel or token feature) or head: one value per head of a multi-head site, the sum over its features')
     .option('--rows <n>', 'perturbed (stimulus, channel, sign) rows per downstream run (finite differences)', positiveInteger, DEFAULT_ROWS_PER_RUN)
     .option('--batch <n>', 'stimuli per run of the whole network (without --from); with --method exact also the (stimulus, category) rows per gradient run', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
@@ -114,6 +116,7 @@ export function registerSense(program: Command): void {
           ...(opts.readout !== undefined ? { readout: opts.readout } : {}),
           ...(opts.readoutMap !== undefined ? { readoutMap: readoutMapOption(opts.readoutMap) } : {}),
           ...(opts.stimuliOf !== undefined ? { stimuliOf: opts.stimuliOf } : {}),
+          ...(opts.per !== undefined ? { per: perUnit(opts.per) } : {}),
           ...(opts.inputShape ? { inputShape: parseShape(opts.inputShape) } : {}),
           ...(opts.mean ? { mean: parseChannelList(opts.mean, 0, '--mean') } : {}),
           ...(opts.std ? { std: parseChannelList(opts.std, 0, '--std') } : {}),
@@ -143,7 +146,7 @@ export function registerSense(program: Command): void {
       for (const s of result.sites) {
         let largest = 0;
         for (let i = 0; i < s.sensitivity.length; i++) largest = Math.max(largest, Math.abs(s.sensitivity[i]!));
-        table.push([s.layer, `${s.channels} ${s.unit === 'feature' ? 'features' : 'channels'}`, s.categories.length, s.stimuliUsed, largest.toPrecision(3), method === 'exact' ? '—' : `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
+        table.push([s.layer, `${s.channels} ${s.unit === 'feature' ? 'features' : s.unit === 'head' ? 'heads' : 'channels'}`, s.categories.length, s.stimuliUsed, largest.toPrecision(3), method === 'exact' ? '—' : `${(100 * s.worstErrorRatio).toPrecision(2)}%`, s.rows, s.downstreamShare.toFixed(3), s.forwardEquivalentsPerChannel.toFixed(3), s.wallSeconds.toFixed(2)]);
       }
       const mapTagText = result.metadata[READOUT_MAP_KEY];
       const mapText = mapTagText !== undefined ? ` of ${result.metadata['sonde.readout']} grouped by readout map ${(JSON.parse(mapTagText) as { name: string }).name}` : '';
@@ -183,4 +186,11 @@ export function acrossSites(bar: { update(done: number, total: number, detail?: 
       bar.update(finished + Math.min(p.rowsDone, p.rowsTotal), finished + p.rowsTotal + ahead, `${p.site} (site ${index + 1}${siteCount === null ? '' : `/${siteCount}`})`);
     },
   };
+}
+
+/** `--per`: feature (channel) or head. */
+function perUnit(text: string): 'feature' | 'head' {
+  if (text === 'feature' || text === 'channel') return 'feature';
+  if (text === 'head') return 'head';
+  throw new UsageError('E_SENSE_PER', `--per must be feature or head, got "${text}"`);
 }
