@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { modulationWindows, windowLabel } from '../../src/modulation/label.js';
+import { modulationWindows, tokensLabel, windowLabel } from '../../src/modulation/label.js';
 
 describe('windowLabel', () => {
   it('windowLabel names the shape, its place and size, and a gain outside other than 1', () => {
@@ -17,5 +17,15 @@ describe('modulationWindows', () => {
     expect(modulationWindows({ modulations: [{ site: 'relu1', window: gaussian }] })).toEqual(['gaussian window at (0.5, 0.5) σ 0.2']);
     expect(modulationWindows({ modulations: [{ site: 'relu0', window: null }, { site: 'relu1', window: gaussian }] })).toEqual(['gaussian window at (0.5, 0.5) σ 0.2 at relu1']);
     expect(modulationWindows(null)).toEqual([]);
+  });
+});
+
+describe('tokensLabel', () => {
+  it('tokensLabel names the chosen tokens and a gain elsewhere other than 1; modulationWindows lists token selections like windows', () => {
+    expect(tokensLabel({ at: ['class', [1, 2], 5], outside: 1 })).toBe('token selection class, patch [1, 2], token 5');
+    expect(tokensLabel({ at: ['patches'], outside: 0.5 })).toBe('token selection every patch, outside ×0.5');
+    expect(tokensLabel(null)).toBeNull();
+    expect(tokensLabel({ at: [] })).toBeNull();
+    expect(modulationWindows({ modulations: [{ site: 'block0', window: null, tokens: { at: ['class'], outside: 1 } }] })).toEqual(['token selection class']);
   });
 });

@@ -6,7 +6,7 @@
 import { basename } from 'node:path';
 import type { TableComparison } from '../../compare/compare-tables.js';
 import type { DiffReport } from '../../compare/diff-types.js';
-import { windowLabel } from '../../modulation/label.js';
+import { tokensLabel, windowLabel } from '../../modulation/label.js';
 import type { SweepCell, SweepResult } from '../../replay/sweep-types.js';
 import { num, type TuningSummaries } from './inputs.js';
 
@@ -66,7 +66,7 @@ export function runLabel(diff: DiffReport): string {
     if (typeof strength === 'number') words.push(`${strength}`);
     if (typeof target === 'string') words.push(`→ ${target}`);
     if (typeof m.site === 'string') words.push(`@ ${m.site}`);
-    const window = windowLabel(m.window);
+    const window = windowLabel(m.window) ?? tokensLabel((m as { tokens?: unknown }).tokens);
     if (window !== null) words.push(`in ${window}`);
     return words.join(' ');
   }).filter((p) => p.length > 0);
