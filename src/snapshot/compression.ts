@@ -194,21 +194,31 @@ export function frameOutputBound(compression: Exclude<LayerCompression, 'none'>,
 }
 
 /**
+ * How far a frame's block-header bound may exceed what its batch holds: a compressed block counts as its
+ * largest possible output (128 KiB for ZSTD, the frame's block maximum for LZ4) although encoders also
+ * write smaller ones (1.4× on a VGG16 layer's ZSTD frames), so a legitimate frame's bound exceeds its
+ * length by some factor; a hostile one (thousands of RLE or tiny blocks) by orders of magnitude.
+ */
+export const FRAME_BOUND_FACTOR = 8;
+
+/**
  * Checks a frame before it is decompressed: its stated length must fit `limit` (what the batch can
- * hold) and its block headers must not allow more than that length plus one block.
+ * hold) and its block headers must not allow more than `FRAME_BOUND_FACTOR` × `limit` plus one block,
+ * so decompressing it can never take more memory than that.
  * @throws Error naming what does not fit.
  */
 function assertFrameFits(compression: Exclude<LayerCompression, 'none'>, frame: Uint8Array, length: number, limit: number): void {
   if (length > limit) throw new Error(`a ${compression} buffer says it holds ${length} bytes, more than the ${limit} its batch can hold`);
   const bound = frameOutputBound(compression, frame);
   const block = compression === 'zstd' ? 128 * 1024 : 4 << 20;
-  if (bound > length + block) throw new Error(`a ${compression} frame can expand to ${bound} bytes, far more than the ${length} its prefix says (refused unread)`);
+  if (bound > FRAME_BOUND_FACTOR * limit + block) throw new Error(`a ${compression} frame can expand to ${bound} bytes, far more than the ${limit} its batch can hold (refused unread)`);
 }
 
 /**
  * Decodes one body buffer of a compressed batch (see `splitCompressedBuffer`), synchronously.
  * @param limit the most bytes the buffer may hold (from the batch's rows and the column's width): a
- *   larger stated length, or a frame whose blocks could expand past it, is refused before decompressing.
+ *   larger stated length, or a frame whose blocks could expand far past it (`FRAME_BOUND_FACTOR`), is
+ *   refused before decompressing.
  * @throws Error when the frame is damaged, too large, or decompresses to another length than its prefix says.
  */
 export function decodeBufferSync(compression: Exclude<LayerCompression, 'none'>, region: Uint8Array, limit = Number.MAX_SAFE_INTEGER): Uint8Array {
