@@ -158,7 +158,8 @@ export function registerSense(program: Command): void {
         ? 'values are (4·D(h/2) − D(h))/3 with D(h) = (y(+h) − y(−h))/2h; the shift |D(h/2) − D(h)|/3 is how far extrapolation moved the h/2 secant'
         : 'values are central secants D(h) = (y(+h) − y(−h))/2h; fd_error is the curvature within ±h, |D₊ − D₋|/2, not an error bound';
       const indicatorNote = method === 'exact' ? '' : `; worst is relative to the category's largest |s| (warning above ${(100 * DEFAULT_WARN_RATIO).toFixed(0)}%)`;
-      io.stdout(`${values}${indicatorNote}; forward-pass equivalents from Conv/Gemm/MatMul multiply-adds${method === 'exact' ? ' (a backward pass counted as two forward passes)' : ''}\n`);
+      const perHead = result.sites.some((b) => b.unit === 'head') ? '; per head: the sum over the head\'s features (the derivative for one gain shared by the head)' : '';
+      io.stdout(`${values}${indicatorNote}${perHead}; forward-pass equivalents from Conv/Gemm/MatMul multiply-adds${method === 'exact' ? ' (a backward pass counted as two forward passes)' : ''}\n`);
     });
 }
 
