@@ -226,3 +226,22 @@ describe('sonde tune / sonde sense (bad input)', () => {
     await expectUsageError(['sense', model, '--stimuli', stim.npy, '--labels', 'none', '--site', 'relu1', '--stimuli-of', 'cat', '--out', join(dir, 's7.arrow')], /--stimuli-of cat: the stimuli carry no labels/);
   });
 });
+
+describe('sonde sense --per head', () => {
+  const heads = new URL('../reference/fixtures/attention/tokens/heads-net.onnx', import.meta.url).pathname;
+  const inputs = new URL('../reference/fixtures/attention/inputs.npy', import.meta.url).pathname;
+
+  it('sonde sense --per head lists one value per head of the merged heads of a tiny attention network, and says what they sum', async () => {
+    const out = join(dir, 'per-head.arrow');
+    const result = await runSonde(['sense', heads, '--stimuli', inputs, '--sites', '/Reshape_2_output_0', '--per', 'head', '--out', out, '--threads', '1']);
+    expect(result.code, result.stderr).toBe(0);
+    expect(result.stdout).toMatch(/4 heads/);
+    expect(result.stdout).toMatch(/per head: the sum over the head's features/);
+    expect(readSensitivityTable(out).block('/Reshape_2_output_0')!.channels).toBe(4);
+  });
+
+  it('sonde sense --per with another word, or at a tensor whose heads are mixed, is a one-line usage error', async () => {
+    await expectUsageError(['sense', heads, '--stimuli', inputs, '--sites', '/Reshape_2_output_0', '--per', 'heads', '--out', join(dir, 'p1.arrow')], /--per must be feature or head, got "heads"/);
+    await expectUsageError(['sense', heads, '--stimuli', inputs, '--sites', '/proj/Add_output_0', '--per', 'head', '--out', join(dir, 'p2.arrow')], /--per head: the heads of "\/proj\/Add_output_0" are not known/);
+  });
+});
