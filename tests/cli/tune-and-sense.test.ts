@@ -244,4 +244,29 @@ describe('sonde sense --per head', () => {
     await expectUsageError(['sense', heads, '--stimuli', inputs, '--sites', '/Reshape_2_output_0', '--per', 'heads', '--out', join(dir, 'p1.arrow')], /--per must be feature or head, got "heads"/);
     await expectUsageError(['sense', heads, '--stimuli', inputs, '--sites', '/proj/Add_output_0', '--per', 'head', '--out', join(dir, 'p2.arrow')], /--per head: the heads of "\/proj\/Add_output_0" are not known/);
   });
+
+  it('sonde record --modulate lesion top: 1 per: head rankBy: sensitivity takes a per-head table: it silences the head with the largest z-scored value for the target', async () => {
+    const table = join(dir, 'per-head-rank.arrow');
+    expect((await runSonde(['sense', heads, '--stimuli', inputs, '--sites', '/Reshape_2_output_0', '--per', 'head', '--out', table, '--threads', '1'])).code).toBe(0);
+    const base = join(dir, 'heads-base');
+    expect((await runSonde(['record', heads, '--stimuli', inputs, '--out', base, '--layers', 'all', '--threads', '1'])).code).toBe(0);
+    const spec = join(dir, 'lesion-top-head.yaml');
+    writeFileSync(spec, 'site: /Reshape_2_output_0\nkind: lesion\nper: head\ntop: 1\ntarget: "3"\nrankBy: sensitivity\n');
+    const mod = join(dir, 'heads-lesioned');
+    const run = await runSonde(['record', heads, '--stimuli', inputs, '--modulate', spec, '--sensitivity', table, '--from', base, '--out', mod, '--threads', '1']);
+    expect(run.code, run.stderr).toBe(0);
+    // by hand: z-score each head's 10 values across categories (population sd), take category "3"
+    const block = readSensitivityTable(table).block('/Reshape_2_output_0')!;
+    const K = 10;
+    const z = Array.from({ length: 4 }, (_, h) => {
+      const row = Array.from({ length: K }, (_, c) => block.sensitivity[h * K + c]!);
+      const mean = row.reduce((a, b) => a + b, 0) / K;
+      const sd = Math.sqrt(row.reduce((a, b) => a + (b - mean) ** 2, 0) / K);
+      return (row[3]! - mean) / sd;
+    });
+    const best = z.indexOf(Math.max(...z));
+    const manifest = JSON.parse(readFileSync(join(mod, 'manifest.json'), 'utf8')) as { modulation: { modulations: Array<{ details: Record<string, unknown>; gain: number[] }> } };
+    expect(manifest.modulation.modulations[0]!.details['heads']).toEqual([best]);
+    expect(manifest.modulation.modulations[0]!.gain.slice(best * 4, best * 4 + 4)).toEqual([0, 0, 0, 0]);
+  });
 });
