@@ -56,8 +56,9 @@ export function modulationSites(inspection: ModelInspection): Map<string, SiteSh
     }
   }
   for (const skipped of inspection.skippedTensors) {
-    // only tensors skipped for where their batch axis is (not constants, not integer shape arithmetic)
-    if ((skipped.reason as string) === 'constant' || (skipped.reason as string) === 'type') continue;
+    // only tensors skipped for where their batch axis is (batch later, merged): not constants, not
+    // integer shape arithmetic, not tensors without a batch axis
+    if (!(skipped.reason as string).startsWith('batch')) continue;
     const probed = inspection.probed.get(skipped.name);
     if (!probed || probed.type !== 'float32' || probed.dims.length < 2) continue;
     const rank = probed.dims.length;
