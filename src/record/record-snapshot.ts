@@ -18,7 +18,8 @@ import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js'
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor, type StoredTensor } from '../session/network-session.js';
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
-import { BackgroundWriter } from '../snapshot/background-writer.js';
+import { BackgroundWriteError, BackgroundWriter } from '../snapshot/background-writer.js';
+import { writeFailure } from '../disk/write-failure.js';
 import { parseCompression, type LayerCompression } from '../snapshot/compression.js';
 import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
@@ -315,7 +316,12 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     // NaN/±Inf counts: per layer as written, per stimulus row as fed (the feeds run one batch ahead)
     const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);
     const fedNonFinite = new Uint32Array(rowsTotal);
+    // a checkpoint's progress record is written only if no later checkpoint was written before it
+    let generation = 0;
+    let inFlight: Promise<void> | null = null;
+    let checkpointError: unknown = null;
     const takeCheckpoint = (batches: number, stimuli: number) => {
+      generation += 1;
       const files: Record<string, number> = {};
       const sha256: Record<string, string> = {};
       background?.syncAll(); // all layer files at once; each writer's own fsync below then finds them clean
@@ -327,6 +333,41 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       sha256[DIGEST_LOG_FILE] = log.sha256();
       writeProgress(folder, { format: 1, batches, stimuli, files, sha256, ...(tally ? { nonFinite: fedTally(tally, fedNonFinite, doneRows, stimuli).toRecord() } : {}) });
       lastCheckpoint = performance.now();
+    };
+    /**
+     * A checkpoint that does not stop the pipeline: the writer thread takes the files' hashes at this
+     * point and fsyncs them while recording goes on; the progress record follows once they are on disk.
+     */
+    const takeCheckpointBeside = (batches: number, stimuli: number) => {
+      // after every batch (--checkpoint-every 0) each checkpoint is complete before the next batch is written
+      if (!background || run.checkpointSeconds === 0) return takeCheckpoint(batches, stimuli);
+      if (inFlight) return; // one at a time; the next falls due soon enough
+      const mine = ++generation;
+      log.sync();
+      const logSha256 = log.sha256();
+      const nonFinite = tally ? fedTally(tally, fedNonFinite, doneRows, stimuli).toRecord() : null;
+      lastCheckpoint = performance.now();
+      inFlight = background
+        .checkpointAll()
+        .then((result) => {
+          if (mine !== generation) return;
+          const files: Record<string, number> = {};
+          const sha256: Record<string, string> = {};
+          for (const entry of layerEntries) {
+            const at = result.get(`${folder}/${entry.file}.partial`);
+            if (!at) throw new RuntimeFailure('E_WRITE', `${folder}/${entry.file}.partial: no checkpoint from the writer thread`);
+            files[entry.file] = at.bytes;
+            sha256[entry.file] = at.sha256;
+          }
+          sha256[DIGEST_LOG_FILE] = logSha256;
+          writeProgress(folder, { format: 1, batches, stimuli, files, sha256, ...(nonFinite ? { nonFinite } : {}) });
+        })
+        .catch((error: unknown) => {
+          checkpointError ??= error instanceof BackgroundWriteError ? writeFailure(error.path ?? folder, error) : error;
+        })
+        .finally(() => {
+          inFlight = null;
+        });
     };
     if (!checkpoint) takeCheckpoint(0, 0);
     // float16 activations: Cast nodes in the graph convert them, so the runtime hands over half the bytes
@@ -359,14 +400,20 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
           const done = first + rows - range.start;
           // checkpoints fall on whole batches (a resume counts in batches of --batch), however the runtime calls split them
           const batchEnd = done % batch === 0 || done === rowsTotal;
-          if (batchEnd && (done === rowsTotal || (performance.now() - lastCheckpoint) / 1000 >= run.checkpointSeconds)) takeCheckpoint(Math.ceil(done / batch), done);
+          if (checkpointError) throw checkpointError;
+          if (batchEnd && done === rowsTotal) takeCheckpoint(Math.ceil(done / batch), done);
+          else if (batchEnd && (performance.now() - lastCheckpoint) / 1000 >= run.checkpointSeconds) takeCheckpointBeside(Math.ceil(done / batch), done);
           bytesWritten += selected.reduce((sum, l) => sum + rows * ((keep === 'full' ? l.elements * (dtype === 'float16' ? 2 : 4) : 0) + channelsOf(l) * 4), 0);
           options.onProgress?.({ done, total: rowsTotal, elapsedSeconds: (performance.now() - run.started) / 1000, bytesWritten });
         },
       );
     } finally {
+      // a checkpoint on its way still writes its progress record (a resume can start there), then none does
+      if (inFlight) await inFlight;
+      generation += 1;
       await session.close();
     }
+    if (checkpointError) throw checkpointError;
     let total = 0;
     background?.syncAll();
     writers.forEach((writer, i) => {

@@ -80,6 +80,13 @@ function handle(m) {
       digest.set(s.hash.copy().digest());
     } else if (m.type === 'close') {
       streams.delete(m.stream);
+    } else if (m.type === 'checkpoint') {
+      // the hashes now, in the order of the writes; the fsyncs run beside the writes that follow
+      const open = [...streams.entries()].filter(([, s]) => !failed && s);
+      const sha256 = open.map(([id, s]) => [id, s.hash.copy().digest('hex')]);
+      Promise.all(open.map(([id, s]) => new Promise((resolve, reject) => fsync(s.fd, (e) => (e ? reject(Object.assign(e, { stream: id })) : resolve())))))
+        .then(() => parentPort.postMessage({ checkpoint: m.id, sha256: failed ? null : sha256 }))
+        .catch((e) => { if (!failed) fail(e, e && e.stream); parentPort.postMessage({ checkpoint: m.id, sha256: null }); });
     }
   } catch (e) {
     if (!failed) fail(e, m.stream);
@@ -116,6 +123,10 @@ export class BackgroundWriter {
   private queuedBytes = 0;
   private closed = false;
   private readonly paths = new Map<number, string>();
+  /** Bytes each stream's file will hold once its queued writes are done. */
+  private readonly lengths = new Map<number, number>();
+  private nextCheckpoint = 1;
+  private readonly checkpoints = new Map<number, { resolve: (result: Map<string, { bytes: number; sha256: string }>) => void; reject: (error: Error) => void; lengths: Map<number, number> }>();
   /** Per stream: hands on what its sink still holds back (called before `syncAll`). */
   private readonly flushers = new Map<number, () => void>();
 
@@ -124,6 +135,51 @@ export class BackgroundWriter {
     const execArgv = process.execArgv.filter((arg) => !arg.startsWith('--input-type'));
     this.worker = new Worker(WORKER_SOURCE, { eval: true, execArgv, workerData: { state: this.state.buffer, digest: this.digestBytes.buffer, error: this.errorBytes.buffer } });
     this.worker.unref();
+    this.worker.on('message', (reply: { checkpoint: number; sha256: Array<[number, string]> | null }) => {
+      const waiter = this.checkpoints.get(reply.checkpoint);
+      if (!waiter) return;
+      this.checkpoints.delete(reply.checkpoint);
+      if (this.checkpoints.size === 0) this.worker.unref();
+      if (reply.sha256 === null) {
+        try {
+          this.throwIfFailed();
+          waiter.reject(new BackgroundWriteError(undefined, 'the checkpoint failed'));
+        } catch (error) {
+          waiter.reject(error as Error);
+        }
+        return;
+      }
+      const result = new Map<string, { bytes: number; sha256: string }>();
+      for (const [stream, sha256] of reply.sha256) {
+        const path = this.paths.get(stream);
+        if (path !== undefined) result.set(path, { bytes: waiter.lengths.get(stream) ?? 0, sha256 });
+      }
+      waiter.resolve(result);
+    });
+    // a worker that dies fails the checkpoints still waiting
+    this.worker.on('exit', () => {
+      for (const waiter of this.checkpoints.values()) waiter.reject(new BackgroundWriteError(undefined, 'the writer thread stopped'));
+      this.checkpoints.clear();
+    });
+  }
+
+  /**
+   * A checkpoint that does not stop the caller: every sink hands on what it holds back, the worker takes
+   * each open file's SHA-256 at this point of the writes and fsyncs the files while later writes go on;
+   * the promise resolves (per temporary path: bytes and SHA-256 at the checkpoint) once those fsyncs are
+   * done, so a progress record written then never points at bytes not yet on disk.
+   * @throws (rejects) BackgroundWriteError when a write or fsync failed.
+   */
+  checkpointAll(): Promise<Map<string, { bytes: number; sha256: string }>> {
+    for (const flush of this.flushers.values()) flush();
+    this.throwIfFailed();
+    const id = this.nextCheckpoint++;
+    const lengths = new Map(this.lengths);
+    return new Promise((resolve, reject) => {
+      this.checkpoints.set(id, { resolve, reject, lengths });
+      this.worker.ref();
+      this.post({ type: 'checkpoint', id }, 0);
+    });
   }
 
   /**
@@ -135,6 +191,7 @@ export class BackgroundWriter {
   open(fd: number, path: string, prefix = 0, flush?: () => void): number {
     const stream = this.nextStream++;
     this.paths.set(stream, path);
+    this.lengths.set(stream, prefix);
     if (flush) this.flushers.set(stream, flush);
     this.post({ type: 'open', stream, fd, prefix }, 0);
     return stream;
@@ -157,6 +214,7 @@ export class BackgroundWriter {
       buffer = bytes.slice().buffer;
       offset = 0;
     }
+    this.lengths.set(stream, Math.max(this.lengths.get(stream) ?? 0, position + bytes.byteLength));
     this.post({ type: 'write', stream, buffer, offset, length: bytes.byteLength, position }, bytes.byteLength, [buffer]);
     while (this.queuedBytes > this.maxQueuedBytes) this.waitFor(this.queue[0]!.seq);
   }
@@ -188,6 +246,7 @@ export class BackgroundWriter {
   /** Waits for the stream's queued writes and forgets it (the caller closes the descriptor afterwards). Never throws. */
   close(stream: number): void {
     this.flushers.delete(stream);
+    this.lengths.delete(stream);
     if (this.closed) return;
     try {
       this.waitFor(this.post({ type: 'close', stream }, 0));

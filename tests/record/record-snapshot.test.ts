@@ -265,4 +265,24 @@ describe('recordSnapshot', () => {
     }
     expect(overflowed).toBeGreaterThan(0);
   });
+
+  it('recordSnapshot with checkpoints beside the writes (fsync on the writer thread while recording goes on) stops at any batch and resumes byte-identical to an uninterrupted recording', async () => {
+    const own = join(folder, 'beside-stimuli');
+    mkdirSync(own, { recursive: true });
+    const twenty = writeStimuliNpy(own, [20, 3, 16, 16], 31);
+    const args = { model: modelPath, stimuli: twenty.npy, batch: 2, layers: 'all' };
+    const whole = await recordSnapshot({ ...args, out: join(folder, 'beside-whole') });
+    for (const stopAt of [4, 10, 16]) {
+      const out = join(folder, `beside-${stopAt}`);
+      // a tiny interval: a checkpoint falls due at every batch, at most one on its way at a time
+      await expect(recordSnapshot({ ...args, out, checkpointSeconds: 1e-6, onProgress: (p) => { if (p.done >= stopAt) throw new Error('stopped'); } })).rejects.toThrow('stopped');
+      const progress = JSON.parse(readFileSync(join(out, 'progress.json'), 'utf8')) as { stimuli: number; files: Record<string, number> };
+      expect(progress.stimuli).toBeGreaterThan(0);
+      expect(progress.stimuli).toBeLessThanOrEqual(stopAt);
+      for (const [file, length] of Object.entries(progress.files)) expect(readFileSync(join(out, `${file}.partial`)).length).toBeGreaterThanOrEqual(length);
+      const resumed = await recordSnapshot({ ...args, out, resume: true, checkpointSeconds: 1e-6 });
+      expect(resumed.resumed).toBe(progress.stimuli);
+      for (const layer of whole.manifest.layers) expect(readFileSync(join(out, layer.file)).equals(readFileSync(join(whole.folder, layer.file))), layer.file).toBe(true);
+    }
+  });
 });
