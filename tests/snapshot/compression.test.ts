@@ -20,6 +20,7 @@ import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { recordModulated } from '../../src/record/record-modulated.js';
 import { diffSnapshots } from '../../src/compare/diff-snapshots.js';
 import { tuneSnapshot } from '../../src/compare/tune.js';
+import { sweepModulations } from '../../src/replay/sweep.js';
 import { LayerBlockFile } from '../../src/snapshot/block-reader.js';
 import { compressBodyBuffers, compressSync, decodeBuffer, decodeBufferSync, FRAME_BOUND_FACTOR, frameOutputBound, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
@@ -276,4 +277,23 @@ describe('recordSnapshot with compression', () => {
     const tunedPlain = await tuneSnapshot({ snapshot: join(dir, 'none') });
     expect(JSON.stringify(tunedZstd.blocks)).toBe(JSON.stringify(tunedPlain.blocks));
   });
+});
+
+describe('sweepModulations from a compressed baseline', () => {
+  it('sweepModulations from a ZSTD baseline gives the cells it gives from the uncompressed baseline', async () => {
+    const dir = tempFolder('sonde-compress-sweep-');
+    const model = join(dir, 'net.onnx');
+    const kinds = ['alpha', 'beta', 'gamma'];
+    writeFileSync(model, buildTinyNet({ bias: true, seed: 41, classes: 3 }));
+    writeFileSync(join(dir, 'net.json'), JSON.stringify({ outputs: { name: 'logits', kinds, threshold: 0 } }));
+    const stim = writeStimuliNpy(dir, [18, 3, 16, 16], 43, Array.from({ length: 18 }, (_, i) => kinds[i % 3]!));
+    const cells: string[] = [];
+    for (const compress of ['none', 'zstd'] as const) {
+      await recordSnapshot({ model, stimuli: stim.npy, labels: stim.labels, out: join(dir, compress), batch: 4, threads: 1, compress });
+      const result = await sweepModulations({ model, from: join(dir, compress), sites: ['relu1'], schemes: ['uniform'], strengths: [0, 0.5], task: 'detect:all', out: join(dir, `sweep-${compress}`), threads: 1 });
+      cells.push(JSON.stringify(result.cells.map((c) => [c.site, c.scheme, c.strength, c.category, c.base, c.mod, c.change])));
+    }
+    expect(cells[1]).toBe(cells[0]);
+    expect(JSON.parse(cells[0]!).length).toBe(6);
+  }, 60_000);
 });
