@@ -376,7 +376,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     // and their channel means too, in float32 before the rounding (the stored means stay those of the float32 values)
     const fetch = castInGraph ? [...names.map(halfOutputName), ...names.map(meansOutputName)] : names;
     const geometries = selected.map((l) => layoutGeometry(l.shape, l.layout));
-    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false });
+    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
     let bytesWritten = 0;
     try {
       const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows(run));

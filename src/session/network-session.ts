@@ -33,6 +33,12 @@ export interface NetworkSessionOptions {
    * recording's channel means and its writer thread — when there are few cores.
    */
   spinning?: boolean;
+  /**
+   * The caller gives up the model bytes: they move to the worker thread instead of being copied (a
+   * large model then is not held twice while the runtime loads it). Only a Uint8Array that spans its
+   * whole buffer moves; any other is copied as usual.
+   */
+  giveBytes?: boolean;
 }
 
 /** A loaded network ready to run batches. */
@@ -82,7 +88,7 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
     }
     return new OrtNetworkSession(session, label);
   }
-  return WorkerNetworkSession.create(bytes, sessionOptions, label);
+  return WorkerNetworkSession.create(bytes, sessionOptions, label, options.giveBytes === true && bytes.byteOffset === 0 && bytes.byteLength === bytes.buffer.byteLength && !(bytes.buffer instanceof SharedArrayBuffer));
 }
 
 /** The runtime's log severities by name (onnxruntime: 0 verbose, 1 info, 2 warning, 3 error, 4 fatal). */
@@ -231,13 +237,13 @@ class WorkerNetworkSession implements NetworkSession {
     });
   }
 
-  static async create(bytes: Uint8Array, options: ort.InferenceSession.SessionOptions, label: string): Promise<WorkerNetworkSession> {
+  static async create(bytes: Uint8Array, options: ort.InferenceSession.SessionOptions, label: string, give = false): Promise<WorkerNetworkSession> {
     // the source is CommonJS: drop an inherited --input-type=module (node -e with ES modules), which would make it ESM
     const execArgv = process.execArgv.filter((arg) => !arg.startsWith('--input-type'));
     const worker = new Worker(WORKER_SOURCE, { eval: true, execArgv, workerData: { ortPath: ORT_PATH } });
     worker.unref();
     const session = new WorkerNetworkSession(worker, label);
-    const reply = await session.call({ type: 'create', bytes, options });
+    const reply = await session.call({ type: 'create', bytes, options }, give ? [bytes.buffer as ArrayBuffer] : []);
     if (reply.error) {
       await worker.terminate();
       throw rejected(label, reply.error);
@@ -252,12 +258,12 @@ class WorkerNetworkSession implements NetworkSession {
     this.pending.clear();
   }
 
-  private call(message: Record<string, unknown>): Promise<WorkerReply> {
+  private call(message: Record<string, unknown>, transfer: ArrayBuffer[] = []): Promise<WorkerReply> {
     const id = this.nextId++;
     return new Promise((resolve, reject) => {
       this.pending.set(id, { resolve, reject });
       this.worker.ref();
-      this.worker.postMessage({ ...message, id });
+      this.worker.postMessage({ ...message, id }, transfer);
     }).finally(() => {
       if (this.pending.size === 0) this.worker.unref();
     }) as Promise<WorkerReply>;
