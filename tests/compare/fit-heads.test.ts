@@ -105,7 +105,7 @@ describe('fitReadoutHeads', () => {
     await expect(fitReadoutHeads({ ...opts, out: join(dir, 'x.model') })).rejects.toThrow(/must end in \.onnx/);
     await expect(fitReadoutHeads({ ...opts, categories: ['ring', 'star'] })).rejects.toThrow(/no stimulus .* is labelled "star"/);
     await expect(fitReadoutHeads({ ...opts, heldOut: 0.9 })).rejects.toThrow(/--held-out 0.9/);
-    await expect(fitReadoutHeads({ ...opts, layer: 'fc', folds: 3 })).resolves.toBeTruthy(); // a vector layer [C]
+    await expect(fitReadoutHeads({ ...opts, layer: 'logits', folds: 3 })).resolves.toBeTruthy(); // a vector layer [C] (the bias Add; the MatMul before it is not recorded by default)
     writeFileSync(join(dir, 'taken.onnx'), 'x');
     await expect(fitReadoutHeads({ ...opts, out: join(dir, 'taken.onnx') })).rejects.toThrow(/already exists/);
   });
