@@ -7,7 +7,7 @@ import { execFileSync } from 'node:child_process';
 import { mkdirSync, rmSync, statfsSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { LayerFileWriter } from '../../src/snapshot/layer-file.js';
+import { LayerFileWriter, manifestFields } from '../../src/snapshot/layer-file.js';
 import { FORMAT_VERSION, writeManifest, type ManifestLayer, type SnapshotManifest } from '../../src/snapshot/manifest.js';
 import { stimuliDigest, writeStimuliFile } from '../../src/snapshot/stimuli-file.js';
 import { listingDigest } from '../../src/stimuli/source.js';
@@ -48,7 +48,7 @@ function writeSnapshot(folder: string, gain: number, modulation: unknown): void 
       for (let i = 0; i < batch.length; i++) batch[i] = pattern[(i + shift) % pattern.length]! * gain;
       writer.write(first, Math.min(BATCH, STIMULI - first), batch.subarray(0, Math.min(BATCH, STIMULI - first) * elements));
     }
-    Object.assign(entry, writer.finish());
+    Object.assign(entry, manifestFields(entry.file, writer.finish()));
     layers.push(entry);
   }
   const digests = new Uint8Array(STIMULI * 32);
