@@ -29,8 +29,8 @@ export function meansOutputName(name: string): string {
  * Returns ONNX bytes of `model` with every tensor in `names` cast to float16 and exposed as
  * `halfOutputName(name)` (the model's own outputs stay as they are). With `geometries` (one per name:
  * outer × features × inner per stimulus, graph/layout.ts), each tensor's feature means over its
- * positions are exposed too, as `meansOutputName(name)` — a Reshape to [N, outer, features, inner] and a
- * ReduceMean over axes 1 and 3, in float32 before any rounding to float16. Nodes and initializers of the
+ * positions are exposed too, as `meansOutputName(name)` — a Reshape that groups the positions and a
+ * ReduceMean over them, in float32 before any rounding to float16. Nodes and initializers of the
  * model are untouched, so weights stay byte-identical.
  * @throws RangeError when an output name is already taken in the graph.
  */
@@ -60,14 +60,17 @@ export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly strin
     const shape = fresh(`sonde_means/${name}/shape`);
     const grouped = fresh(`sonde_means/${name}/grouped`);
     const means = fresh(meansOutputName(name));
-    initializers.push(onnx.TensorProto.create({ name: shape, dataType: INT64, dims: [4], int64Data: [-1, g.outer, g.features, g.inner] }));
+    // the fewest axes: [N, F, inner] over the trailing axis (a feature map), [N, outer, F] over axis 1
+    // (tokens), else [N, outer, F, inner] over 1 and 3 — the runtime's reductions are fastest on contiguous runs
+    const [dims, reduce] = g.outer === 1 ? [[-1, g.features, g.inner], [2]] : g.inner === 1 ? [[-1, g.outer, g.features], [1]] : [[-1, g.outer, g.features, g.inner], [1, 3]];
+    initializers.push(onnx.TensorProto.create({ name: shape, dataType: INT64, dims: [dims.length], int64Data: dims }));
     added.push({ name: `sonde_means/${name}/reshape`, opType: 'Reshape', input: [name, shape], output: [grouped] });
     if (model.opset >= 18) {
       const axes = fresh(`sonde_means/${name}/axes`);
-      initializers.push(onnx.TensorProto.create({ name: axes, dataType: INT64, dims: [2], int64Data: [1, 3] }));
+      initializers.push(onnx.TensorProto.create({ name: axes, dataType: INT64, dims: [reduce.length], int64Data: reduce }));
       added.push({ name: `sonde_means/${name}/mean`, opType: 'ReduceMean', input: [grouped, axes], output: [means], attribute: [{ name: 'keepdims', type: 2, i: 0 }] });
     } else {
-      added.push({ name: `sonde_means/${name}/mean`, opType: 'ReduceMean', input: [grouped], output: [means], attribute: [{ name: 'keepdims', type: 2, i: 0 }, { name: 'axes', type: 7, ints: [1, 3] }] });
+      added.push({ name: `sonde_means/${name}/mean`, opType: 'ReduceMean', input: [grouped], output: [means], attribute: [{ name: 'keepdims', type: 2, i: 0 }, { name: 'axes', type: 7, ints: reduce }] });
     }
     outputs.push(makeValueInfo(means, FLOAT32));
   });
