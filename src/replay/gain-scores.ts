@@ -15,6 +15,7 @@ import type { ModelInspection } from '../record/inspect-model.js';
 import { planTail } from '../record/record-modulated.js';
 import { runPipelined } from '../record/record-snapshot.js';
 import { replicateBoundaryFeeds } from './replicate-feeds.js';
+import { evenRows, runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import { siteGeometryOf } from './sense-run.js';
 
 /** Options of `scoreGains`. */
@@ -29,8 +30,10 @@ export interface GainScoringOptions {
   gains: readonly (readonly Float32Array[])[];
   /** Readout tensor whose values are returned (per stimulus: its channel means, e.g. one logit per unit). */
   readout: string;
-  /** Patterns evaluated per runtime call (default 16). */
+  /** Patterns evaluated per runtime call (default 16; fewer where a call would hold more than `runBytes`). */
   patternsPerRun?: number;
+  /** Bytes of tensors one runtime call may hold (default `DEFAULT_RUN_BYTES`, src/graph/run-memory.ts). */
+  runBytes?: number;
   /** Runtime threads (0: the runtime chooses). */
   threads?: number;
 }
@@ -61,11 +64,17 @@ export async function scoreGains(options: GainScoringOptions): Promise<Float64Ar
   if (!('tail' in plan)) throw new UsageError('E_GAINS_TAIL', `gains at ${sites.join(', ')}: ${plan.reason}`, { hint: 'record the baseline with --keep full --dtype float32 and the default (or a wider) --layers selector' });
   const tail = plan.tail;
   const injections: InjectionSite[] = sites.map((site, s) => ({ site, shape: shapes[s]!, spatial: false, featureAxis: geometry[s]!.featureAxis }));
-  const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, injections), [readout]), { threads: options.threads ?? 0, label: `${options.model.fileName} downstream of ${sites.join(', ')}` });
+  const injected = injectModulations(tail.model, injections);
+  const session = await createNetworkSession(exposeTensors(injected, [readout]), { threads: options.threads ?? 0, label: `${options.model.fileName} downstream of ${sites.join(', ')}` });
   const n = baseline.manifest.stimuli.count;
   const units = baseline.layerGeometry(readout).channels;
   const results = gains.map(() => new Float64Array(n * units));
-  const perRun = options.patternsPerRun ?? 16;
+  // patterns per call within the run bytes: a call holds patterns × a baseline batch of rows
+  const batchRows = baseline.manifest.run.batch;
+  const elementsOf = new Map(options.inspection.layers.map((l) => [l.name, l.elements]));
+  const rowBytes = runRowBytes(injected, (name) => elementsOf.get(name.endsWith('::raw') ? name.slice(0, -5) : name), { fed: tail.boundary.map((name) => (sites.includes(name) ? `${name}::raw` : name)), fetched: [readout] });
+  const requested = options.patternsPerRun ?? 16;
+  const perRun = evenRows(Math.min(requested, gains.length), Math.max(1, Math.floor(rowsWithin(runBytesOption(options.runBytes), rowBytes, requested * batchRows) / batchRows)));
   const siteSet = new Set(sites);
   try {
     for (let start = 0; start < gains.length; start += perRun) {
