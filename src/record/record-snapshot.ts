@@ -11,6 +11,7 @@ import { extname, relative } from 'node:path';
 import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
 import { exposeTensors } from '../graph/instrument.js';
 import { exposeTensorsAsFloat16, halfOutputName, meansOutputName } from '../graph/expose-half.js';
+import { fusionNotice } from '../graph/fusions.js';
 import { layoutGeometry } from '../graph/layout.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
@@ -180,6 +181,10 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const declared = model.input.dims;
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
   const selected = options.layerNames ? pickLayers(inspection.layers, options.layerNames, model.fileName) : selectLayers(inspection.layers, options.layers);
+  if (!options.layerNames && options.layers !== undefined && options.layers !== 'default') {
+    const notice = fusionNotice(model, selected.map((l) => l.name));
+    if (notice) options.onNotice?.(`--layers ${options.layers}: ${notice}`);
+  }
   if (!options.layerNames && /(^|[\s+])all($|[\s+])/.test(options.layers ?? '')) {
     const skipped = describeSkipped(inspection, typeof options.model === 'string' ? options.model : model.path);
     if (skipped) options.onNotice?.(`--layers all: ${skipped}`);

@@ -285,4 +285,13 @@ describe('recordSnapshot', () => {
       for (const layer of whole.manifest.layers) expect(readFileSync(join(out, layer.file)).equals(readFileSync(join(whole.folder, layer.file))), layer.file).toBe(true);
     }
   });
+
+  it('recordSnapshot with a selection that holds convolution outputs before their Relu says in one notice that they cost the runtime its fusions', async () => {
+    const notices: string[] = [];
+    await recordSnapshot({ model: modelPath, stimuli: stimuli.npy, out: join(folder, 'snap-conv'), layers: 'op:Conv', onNotice: (line) => notices.push(line) });
+    expect(notices.filter((line) => /^--layers op:Conv: 3 of the 3 recorded tensors .*conv0, conv1, conv2.*costs those fusions/.test(line))).toHaveLength(1);
+    const quiet: string[] = [];
+    await recordSnapshot({ model: modelPath, stimuli: stimuli.npy, out: join(folder, 'snap-relu'), layers: 'op:Relu', onNotice: (line) => quiet.push(line) });
+    expect(quiet.filter((line) => line.includes('fusions'))).toHaveLength(0);
+  });
 });
