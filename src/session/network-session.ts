@@ -294,9 +294,17 @@ class WorkerNetworkSession implements NetworkSession {
 
 const ORT_PATH = createRequire(import.meta.url).resolve('onnxruntime-node');
 
+/** Bytes of outputs one probe run may fetch (the probe exposes every tensor of the model). */
+export const PROBE_RUN_BYTES = 256 * 2 ** 20;
+
+/** Bytes per element of the runtime's tensor types (strings and unknown types count 8). */
+const ELEMENT_BYTES: Readonly<Record<string, number>> = { float32: 4, float16: 2, float64: 8, int64: 8, uint64: 8, int32: 4, uint32: 4, int16: 2, uint16: 2, int8: 1, uint8: 1, bool: 1 };
+
 /**
- * Runs the model once and returns every output's element type and dims, whatever its type
- * (probe runs need to see non-float tensors to exclude them).
+ * Runs the model and returns every output's element type and dims, whatever its type (probe runs
+ * need to see non-float tensors to exclude them). The outputs are fetched in groups, each run holding
+ * about `PROBE_RUN_BYTES` of them (sized from the outputs seen so far), so that probing a model with
+ * every tensor exposed does not hold all of them at once; one session serves every group.
  */
 export async function probeOutputs(
   bytes: Uint8Array,
@@ -315,18 +323,29 @@ export async function probeOutputs(
   try {
     const ortFeeds: Record<string, ort.Tensor> = {};
     for (const [name, tensor] of Object.entries(feeds)) ortFeeds[name] = new ort.Tensor('float32', tensor.data, tensor.dims);
-    let results: ort.InferenceSession.OnnxValueMapType;
-    try {
-      results = await session.run(ortFeeds);
-    } catch (error) {
-      throw new RuntimeFailure('E_RUNTIME_RUN', `probe run of ${label} failed: ${firstLine(error)}`, {
-        hint: 'the input shape may not fit the model; pass --input-shape',
-      });
-    }
     const shapes = new Map<string, { type: string; dims: number[] }>();
-    for (const [name, value] of Object.entries(results)) {
-      const tensor = value as ort.Tensor;
-      shapes.set(name, { type: tensor.type, dims: tensor.dims.slice() });
+    const names = session.outputNames;
+    let group = Math.min(names.length, 64);
+    let seenBytes = 0;
+    for (let at = 0; at < names.length; ) {
+      const fetch = names.slice(at, at + group);
+      let results: ort.InferenceSession.OnnxValueMapType;
+      try {
+        results = await session.run(ortFeeds, fetch);
+      } catch (error) {
+        throw new RuntimeFailure('E_RUNTIME_RUN', `probe run of ${label} failed: ${firstLine(error)}`, {
+          hint: 'the input shape may not fit the model; pass --input-shape',
+        });
+      }
+      for (const [name, value] of Object.entries(results)) {
+        const tensor = value as ort.Tensor;
+        shapes.set(name, { type: tensor.type, dims: tensor.dims.slice() });
+        seenBytes += tensor.size * (ELEMENT_BYTES[tensor.type] ?? 8);
+        (tensor as { dispose?: () => void }).dispose?.();
+      }
+      at += fetch.length;
+      // the next group from the average size so far
+      group = Math.max(1, Math.floor(PROBE_RUN_BYTES / Math.max(1, seenBytes / at)));
     }
     return shapes;
   } finally {
