@@ -156,6 +156,8 @@ export async function recordModulated(options: RecordModulatedOptions): Promise<
       ...options,
       model,
       layerNames,
+      // the baseline's codec unless --compress says otherwise (as a tail replay does)
+      ...(options.compress === undefined ? { compress: baseline.manifest.layers.find((l) => l.from !== 'baseline')?.compression ?? 'none' } : {}),
       extension: {
         transformModel: (m) => injectModulations(m, sites),
         extraFeeds: (first, rows) => modulationFeeds(resolved, sites, first, rows),

@@ -25,7 +25,7 @@ import { LayerBlockFile } from '../../src/snapshot/block-reader.js';
 import { compressBodyBuffers, compressSync, decodeBuffer, decodeBufferSync, FRAME_BOUND_FACTOR, frameOutputBound, parseCompression, type LayerCompression } from '../../src/snapshot/compression.js';
 import { openSnapshot } from '../../src/snapshot/snapshot.js';
 import { createRandom } from '../../src/random.js';
-import { buildTinyNet, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
+import { buildTinyNet, runSonde, tempFolder, writeStimuliNpy } from '../helpers/onnx-builder.js';
 
 const PYTHON = '/usr/bin/python3';
 const hasCodecs = spawnSync(PYTHON, ['-c', 'import lz4.frame, zstandard'], { encoding: 'utf8' }).status === 0;
@@ -295,5 +295,27 @@ describe('sweepModulations from a compressed baseline', () => {
     }
     expect(cells[1]).toBe(cells[0]);
     expect(JSON.parse(cells[0]!).length).toBe(6);
+  }, 60_000);
+});
+
+describe('sonde record --compress', () => {
+  it('sonde record compresses with ZSTD by default, --compress none keeps plain files, and a modulated run (tail or full) keeps its baseline\'s codec', async () => {
+    const dir = tempFolder('sonde-compress-cli-');
+    const model = join(dir, 'net.onnx');
+    writeFileSync(model, buildTinyNet({ bias: true, seed: 44 }));
+    const stim = writeStimuliNpy(dir, [6, 3, 16, 16], 45);
+    writeFileSync(join(dir, 'gain.yaml'), 'site: relu1\nkind: uniform\ngain: 1.5\n');
+    const codecs = (folder: string) => [...new Set(openSnapshot(folder).manifest.layers.map((l) => l.compression ?? 'none'))];
+    const record = async (out: string, extra: string[]) => {
+      const result = await runSonde(['record', model, '--stimuli', stim.npy, '--labels', stim.labels, '--out', join(dir, out), '--threads', '1', ...extra]);
+      expect(result.code, result.stderr).toBe(0);
+      return join(dir, out);
+    };
+    expect(codecs(await record('default', []))).toEqual(['zstd']);
+    expect(codecs(await record('plain', ['--compress', 'none']))).toEqual(['none']);
+    expect(codecs(await record('mod-tail', ['--modulate', join(dir, 'gain.yaml'), '--from', join(dir, 'plain')]))).toEqual(['none']);
+    expect(codecs(await record('mod-full', ['--modulate', join(dir, 'gain.yaml'), '--from', join(dir, 'plain'), '--full-run']))).toEqual(['none']);
+    expect(codecs(await record('mod-full-z', ['--modulate', join(dir, 'gain.yaml'), '--from', join(dir, 'default'), '--full-run']))).toEqual(['zstd']);
+    expect(codecs(await record('mod-lz4', ['--modulate', join(dir, 'gain.yaml'), '--from', join(dir, 'default'), '--compress', 'lz4']))).toEqual(['zstd', 'lz4']); // upstream layers stay the baseline's files
   }, 60_000);
 });

@@ -52,7 +52,7 @@ export function registerRecord(program: Command): void {
     .option('--layers <selector>', 'default | all | op:Relu,Conv | name globs, joined by +', 'default')
     .option('--keep <what>', 'full (activations and channel means) or channels (channel means only)', 'full')
     .option('--dtype <type>', 'activation storage: float32 or float16', 'float32')
-    .option('--compress <codec>', 'compress the layer files (Arrow IPC buffer compression): none, lz4 or zstd (default none; with --from: the baseline\'s)')
+    .option('--compress <codec>', 'compress the layer files (Arrow IPC buffer compression): zstd, lz4 or none (default zstd; with --from: the baseline\'s)')
     .option('--batch <n>', 'stimuli per batch', positiveInteger, 16)
     .option('--threads <n>', 'runtime threads (0: let the runtime choose)', nonNegativeInteger, 0)
     .option('--size <HxW>', 'image size (default: the model input size)')
@@ -87,7 +87,8 @@ export function registerRecord(program: Command): void {
           layers: opts.layers,
           keep: opts.keep,
           dtype: opts.dtype,
-          ...(opts.compress !== undefined ? { compress: parseCompression(opts.compress) } : {}),
+          // zstd by default (npm run bench -- compressed-record); a modulated run keeps its baseline's codec
+          ...(opts.compress !== undefined ? { compress: parseCompression(opts.compress) } : opts.from ? {} : { compress: 'zstd' as const }),
           batch: opts.batch,
           threads: opts.threads,
           ...(opts.labels ? { labels: opts.labels } : {}),
