@@ -15,7 +15,7 @@ import { fusionNotice } from '../graph/fusions.js';
 import { layoutGeometry } from '../graph/layout.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
-import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
+import { runBytesOption } from '../graph/run-memory.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor, type StoredTensor } from '../session/network-session.js';
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
@@ -30,9 +30,10 @@ import { parseFit, parseInterpolation, parseNormalise, presetValues, resolvedFit
 import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from '../outputs/output-folder.js';
-import { countNonFinite, nonFiniteNotice, NonFiniteTally, STIMULI_KEY } from './non-finite.js';
+import { nonFiniteNotice, NonFiniteTally, STIMULI_KEY } from './non-finite.js';
 import { checkpointSha256, DIGEST_LOG_FILE, DigestLog, removeProgress, writeProgress, type ProgressRecord } from '../snapshot/progress-file.js';
 import { shardRange, type ShardSpec } from './shard.js';
+import { callRows, runtimeCalls, stimulusBatches, type FeedBatch } from './runtime-calls.js';
 
 /** Progress of a recording, reported after every batch. */
 export interface RecordProgress {
@@ -181,7 +182,8 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const declared = model.input.dims;
   const inspection = await inspectModel(model, inputShape ? { inputShape } : {});
   const selected = options.layerNames ? pickLayers(inspection.layers, options.layerNames, model.fileName) : selectLayers(inspection.layers, options.layers);
-  if (!options.layerNames && options.layers !== undefined && options.layers !== 'default') {
+  // a narrower choice than `all` (which records everything knowingly) that holds pre-activations: say what they cost
+  if (!options.layerNames && options.layers !== undefined && !/^\s*(default|all)\s*$/.test(options.layers)) {
     const notice = fusionNotice(model, selected.map((l) => l.name));
     if (notice) options.onNotice?.(`--layers ${options.layers}: ${notice}`);
   }
@@ -384,7 +386,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
     let bytesWritten = 0;
     try {
-      const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows(run));
+      const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows({ model: run.model, fetched: names, inputElements: run.channels * run.height * run.width, elements: run.elements, batch, fixedBatch, runBytes: options.runBytes }));
       const read = stimulusBatches(source, fixedBatch, range, run.model.input.name, [run.channels, run.height, run.width], log.digests, options.extension?.extraFeeds?.bind(options.extension), fedNonFinite);
       await runPipelined(
         calls.length,
@@ -550,12 +552,7 @@ function checkShape(layer: LayerInfo, tensor: StoredTensor, rows: number, fixedB
   }
 }
 
-/** One batch of network feeds, covering stimuli [first, first + rows). */
-export interface FeedBatch {
-  first: number;
-  rows: number;
-  feeds: Record<string, FloatTensor>;
-}
+export type { FeedBatch } from './runtime-calls.js';
 
 /**
  * The pipelined loop: while the runtime computes batch k, the feeds of batch k+1 are prepared and the
@@ -582,55 +579,6 @@ export async function runPipelined<T = Record<string, FloatTensor>>(
   if (pending) write(pending.first, pending.rows, pending.outputs);
 }
 
-/**
- * Rows per runtime call: a fixed-batch model's batch; otherwise as many of a batch as keep the call's
- * tensors — the fed stimuli, every exposed output, the largest node's working set (graph/run-memory.ts) —
- * within the run-bytes budget (`runBytes`, default 512 MiB), so that peak memory does not grow with the
- * batch size or the bytes of the recorded layers.
- */
-export function callRows(run: Pick<RecordRun, 'options' | 'model' | 'selected' | 'batch' | 'fixedBatch' | 'channels' | 'height' | 'width' | 'elements'>): number {
-  if (run.fixedBatch !== null) return run.fixedBatch;
-  const input = run.channels * run.height * run.width;
-  const rowBytes = runRowBytes(run.model, (name) => (name === run.model.input.name ? input : run.elements(name)), { fed: [run.model.input.name], fetched: run.selected.map((l) => l.name) });
-  return rowsWithin(runBytesOption(run.options.runBytes), rowBytes, run.batch);
-}
-
-/**
- * The runtime calls of local rows [from, total): each batch of `batch` rows (batch k covers
- * [k·batch, (k+1)·batch)) split into calls of at most `perCall` rows.
- * @param from where the recording continues (a multiple of `batch`, or `total`).
- */
-export function runtimeCalls(from: number, total: number, batch: number, perCall: number): Array<{ first: number; rows: number }> {
-  const calls: Array<{ first: number; rows: number }> = [];
-  for (let start = from; start < total; start += batch) {
-    const end = Math.min(total, start + batch);
-    for (let first = start; first < end; first += perCall) calls.push({ first, rows: Math.min(perCall, end - first) });
-  }
-  return calls;
-}
-
-/**
- * Reads stimuli of `range` as input feeds (`local` rows from the start of the range), and stores the
- * SHA-256 of each stimulus's exact input bytes at its local row in `digests`.
- */
-function stimulusBatches(source: StimulusSource, fixedBatch: number | null, range: { start: number; end: number }, inputName: string, shape: [number, number, number], digests: Uint8Array, extraFeeds: RecordExtension['extraFeeds'], nonFinite: Uint32Array) {
-  const [c, h, w] = shape;
-  const per = c * h * w;
-  return async (local: number, rows: number): Promise<FeedBatch> => {
-    const first = range.start + local;
-    const padded = fixedBatch ?? rows;
-    const data = new Float32Array(padded * per); // zero padding for fixed-batch models
-    await source.read(first, rows, data);
-    for (let r = 0; r < rows; r++) {
-      const digest = createHash('sha256').update(new Uint8Array(data.buffer, r * per * 4, per * 4)).digest();
-      digests.set(digest, (first - range.start + r) * STIMULUS_DIGEST_BYTES);
-      nonFinite[first - range.start + r] = countNonFinite(data, r * per, (r + 1) * per);
-    }
-    const feeds: Record<string, FloatTensor> = { [inputName]: { data, dims: [padded, c, h, w] } };
-    if (extraFeeds) Object.assign(feeds, extraFeeds(first, padded));
-    return { first, rows, feeds };
-  };
-}
 
 /**
  * Resuming: re-reads the stimuli the checkpoint says are recorded and compares the SHA-256 of each one's
