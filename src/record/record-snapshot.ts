@@ -22,7 +22,7 @@ import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer
 import { BackgroundWriteError, BackgroundWriter } from '../snapshot/background-writer.js';
 import { writeFailure } from '../disk/write-failure.js';
 import { parseCompression, type LayerCompression } from '../snapshot/compression.js';
-import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
+import { FORMAT_VERSION, readManifest, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import { readNpyHeader } from '../stimuli/npy.js';
@@ -174,7 +174,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const dtype = options.dtype ?? 'float32';
   if (keep !== 'full' && keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${String(keep)}"`);
   if (dtype !== 'float32' && dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${String(dtype)}"`);
-  const compression = parseCompression(options.compress ?? 'none');
+  const compression = parseCompression(options.compress ?? (options.resume ? storedCompression(resolveOutFolder(options.out)) : 'none'));
   const requestedBatch = options.batch ?? 16;
   if (!Number.isInteger(requestedBatch) || requestedBatch <= 0) throw new UsageError('E_BATCH', `--batch must be a positive integer, got ${requestedBatch}`);
   runBytesOption(options.runBytes);
@@ -501,6 +501,19 @@ export function settleOutputFolder(opened: OpenedOutput, manifest: SnapshotManif
   assertSameRecording(opened.resume.manifest, manifest, folder);
   manifest.created = opened.resume.manifest.created;
   return { checkpoint: opened.resume.progress };
+}
+
+/**
+ * The codec of the recording a `--resume` continues, when `compress` is not given: its manifest's (the
+ * first layer's own file), `none` when there is no readable manifest (the folder's state is reported
+ * when it is opened).
+ */
+function storedCompression(folder: string): LayerCompression {
+  try {
+    return readManifest(folder).layers.find((l) => l.from !== 'baseline')?.compression ?? 'none';
+  } catch {
+    return 'none';
+  }
 }
 
 export function assertSameRecording(stored: SnapshotManifest, wanted: SnapshotManifest, folder: string): void {

@@ -1,4 +1,7 @@
 import type { Command } from 'commander';
+import { existsSync } from 'node:fs';
+import { join } from 'node:path';
+import { resolveOutFolder } from '../../outputs/output-folder.js';
 import { recordSnapshot, displayPath } from '../../record/record-snapshot.js';
 import { recordModulated } from '../../record/record-modulated.js';
 import { loadModulationTables } from '../../replay/modulation-tables.js';
@@ -87,8 +90,9 @@ export function registerRecord(program: Command): void {
           layers: opts.layers,
           keep: opts.keep,
           dtype: opts.dtype,
-          // zstd by default (npm run bench -- compressed-record); a modulated run keeps its baseline's codec
-          ...(opts.compress !== undefined ? { compress: parseCompression(opts.compress) } : opts.from ? {} : { compress: 'zstd' as const }),
+          // zstd by default (npm run bench -- compressed-record); a modulated run keeps its baseline's
+          // codec, a resumed one the interrupted run's
+          ...(opts.compress !== undefined ? { compress: parseCompression(opts.compress) } : opts.from || (opts.resume && existsSync(join(resolveOutFolder(opts.out), 'manifest.json'))) ? {} : { compress: 'zstd' as const }),
           batch: opts.batch,
           threads: opts.threads,
           ...(opts.labels ? { labels: opts.labels } : {}),
