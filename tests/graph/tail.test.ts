@@ -19,6 +19,7 @@ import { createRandom } from '../../src/random.js';
 import { inspectModel } from '../../src/record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../../src/session/network-session.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
+import { maxRelativeError } from '../helpers/max-relative-error.js';
 
 const FIXTURES = new URL('../reference/fixtures/', import.meta.url).pathname;
 
@@ -27,16 +28,6 @@ function npy(path: string): FloatTensor {
   return { data: parsed.data as Float32Array, dims: parsed.shape };
 }
 
-/** max |a − b| over max |b|. */
-function maxRelative(a: Float32Array, b: Float32Array): number {
-  let diff = 0;
-  let scale = 0;
-  for (let i = 0; i < b.length; i++) {
-    diff = Math.max(diff, Math.abs(a[i]! - b[i]!));
-    scale = Math.max(scale, Math.abs(b[i]!));
-  }
-  return diff / scale;
-}
 
 describe('upstreamCut', () => {
   const model = loadModel(join(FIXTURES, 'residual.onnx'));
@@ -114,7 +105,7 @@ describe('extractTail fed from an upstream cut', () => {
         expect(got[name]!.dims).toEqual(want[name]!.dims);
         // no convolution below the site, so the runtime's layout optimisation (which makes the residual
         // network's tail differ within float32 rounding, tests/record/record-modulated.test.ts) has nothing to convert
-        expect(maxRelative(got[name]!.data, want[name]!.data), `${name} fed from ${fedFrom.join(', ')}`).toBe(0);
+        expect(maxRelativeError(got[name]!.data, want[name]!.data), `${name} fed from ${fedFrom.join(', ')}`).toBe(0);
       }
     }
   });

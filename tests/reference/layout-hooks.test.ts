@@ -19,6 +19,7 @@ import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
 import { tempFolder } from '../helpers/onnx-builder.js';
+import { maxRelativeError } from '../helpers/max-relative-error.js';
 
 const ATTENTION = new URL('./fixtures/attention/', import.meta.url).pathname;
 const LAYOUTS = new URL('./fixtures/layouts/', import.meta.url).pathname;
@@ -40,16 +41,6 @@ async function read(snap: Snapshot, name: string): Promise<{ values: Float32Arra
   return { values, means };
 }
 
-function maxRelativeError(got: ArrayLike<number>, want: ArrayLike<number>): number {
-  expect(got.length).toBe(want.length);
-  let diff = 0;
-  let scale = 0;
-  for (let i = 0; i < want.length; i++) {
-    diff = Math.max(diff, Math.abs(got[i]! - want[i]!));
-    scale = Math.max(scale, Math.abs(want[i]!));
-  }
-  return diff / scale;
-}
 
 describe.each([14, 17])('recordSnapshot on the seeded VisionTransformer at opset %i vs PyTorch hooks', (opset) => {
   const model = join(ATTENTION, `vit-opset${opset}.onnx`);

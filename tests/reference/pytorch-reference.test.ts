@@ -11,6 +11,7 @@ import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
 import { tempFolder } from '../helpers/onnx-builder.js';
+import { maxRelativeError } from '../helpers/max-relative-error.js';
 
 const FIXTURES = new URL('./fixtures/', import.meta.url).pathname;
 const MODELS = ['residual', 'branching', 'homogeneous', 'gated'] as const;
@@ -30,15 +31,6 @@ async function layerValues(snap: Snapshot, name: string): Promise<Float32Array> 
   return out;
 }
 
-function maxRelativeError(got: Float32Array, want: Float32Array): number {
-  let diff = 0;
-  let scale = 0;
-  for (let i = 0; i < want.length; i++) {
-    diff = Math.max(diff, Math.abs(got[i]! - want[i]!));
-    scale = Math.max(scale, Math.abs(want[i]!));
-  }
-  return diff / scale;
-}
 
 describe('recordSnapshot vs PyTorch forward hooks', () => {
   for (const model of MODELS) {

@@ -16,6 +16,7 @@ import { recordSnapshot } from '../../src/record/record-snapshot.js';
 import { openSnapshot, type Snapshot } from '../../src/snapshot/snapshot.js';
 import { parseNpy } from '../../src/stimuli/npy.js';
 import { tempFolder } from '../helpers/onnx-builder.js';
+import { maxRelativeError } from '../helpers/max-relative-error.js';
 
 const FOLDER = new URL('./fixtures/attention/', import.meta.url).pathname;
 const TOKENS = join(FOLDER, 'tokens');
@@ -35,15 +36,6 @@ async function layerValues(snap: Snapshot, name: string): Promise<Float32Array> 
   return out;
 }
 
-function maxRelativeError(got: ArrayLike<number>, want: ArrayLike<number>): number {
-  let diff = 0;
-  let scale = 0;
-  for (let i = 0; i < want.length; i++) {
-    diff = Math.max(diff, Math.abs(got[i]! - want[i]!));
-    scale = Math.max(scale, Math.abs(want[i]!));
-  }
-  return diff / scale;
-}
 
 describe('recordModulated at token tensors vs PyTorch hooks (small seeded VisionTransformer)', () => {
   const dir = tempFolder();
