@@ -13,7 +13,7 @@
  */
 import { UsageError } from '../errors.js';
 import type { LoadedModel } from './load-model.js';
-import { makeValueInfo, onnx, type NodeProto, type TensorProto } from './onnx.js';
+import { freshNames, makeValueInfo, onnx, type NodeProto, type TensorProto } from './onnx.js';
 
 /** The model with the score output, and that output's name. */
 export interface CategoryScoresModel {
@@ -34,20 +34,9 @@ export interface CategoryScoresModel {
 export function withCategoryScores(model: LoadedModel, readout: string, groups: ReadonlyArray<readonly number[]>): CategoryScoresModel {
   const graph = model.proto.graph!;
   if (model.opset < 11) throw new UsageError('E_READOUT_MAP', `${model.fileName} uses opset ${model.opset}; a readout map needs opset 11 or later`, { hint: 'export the model with a newer opset (torch.onnx.export(..., opset_version=17))' });
-  const names = new Set<string>();
-  for (const node of graph.node ?? []) {
-    for (const t of [...(node.input ?? []), ...(node.output ?? [])]) names.add(t);
-    if (node.name) names.add(node.name);
-  }
-  for (const t of graph.initializer ?? []) if (t.name) names.add(t.name);
-  for (const t of graph.input ?? []) if (t.name) names.add(t.name);
-  if (!names.has(readout)) throw new UsageError('E_READOUT_MAP', `"${readout}" is not a tensor of ${model.fileName}`);
-  const fresh = (wanted: string): string => {
-    let name = wanted;
-    for (let i = 2; names.has(name); i++) name = `${wanted}_${i}`;
-    names.add(name);
-    return name;
-  };
+  const namer = freshNames(graph);
+  if (!namer.has(readout)) throw new UsageError('E_READOUT_MAP', `"${readout}" is not a tensor of ${model.fileName}`);
+  const fresh = namer.fresh;
   const nodes: NodeProto[] = [];
   const initializers: TensorProto[] = [];
   const parts: string[] = [];

@@ -47,3 +47,26 @@ export function makeValueInfo(name: string, elemType?: number, dims?: Array<numb
   }
   return info;
 }
+
+/**
+ * A name maker for nodes and tensors added to `graph`: returns `wanted`, or `wanted_2`, `wanted_3`, … when
+ * a node, tensor, initializer or input of the graph (or an earlier call) already has that name.
+ */
+export function freshNames(graph: NonNullable<ModelProto['graph']>): { has(name: string): boolean; fresh(wanted: string): string } {
+  const names = new Set<string>();
+  for (const node of graph.node ?? []) {
+    for (const t of [...(node.input ?? []), ...(node.output ?? [])]) names.add(t);
+    if (node.name) names.add(node.name);
+  }
+  for (const t of graph.initializer ?? []) if (t.name) names.add(t.name);
+  for (const t of graph.input ?? []) if (t.name) names.add(t.name);
+  return {
+    has: (name) => names.has(name),
+    fresh(wanted) {
+      let name = wanted;
+      for (let i = 2; names.has(name); i++) name = `${wanted}_${i}`;
+      names.add(name);
+      return name;
+    },
+  };
+}

@@ -13,7 +13,7 @@
  */
 import { UsageError } from '../errors.js';
 import type { LoadedModel } from './load-model.js';
-import { encodeModel, makeValueInfo, type NodeProto, type TensorProto } from './onnx.js';
+import { encodeModel, freshNames, makeValueInfo, type NodeProto, type TensorProto } from './onnx.js';
 
 /** What `addReadoutHeads` appends. */
 export interface ReadoutHeadsSpec {
@@ -63,20 +63,9 @@ export function addReadoutHeads(model: LoadedModel, spec: ReadoutHeadsSpec): Rea
   for (const h of spec.heads) {
     if (!Number.isFinite(h.intercept) || h.weights.some((w) => !Number.isFinite(w))) throw new UsageError('E_HEADS', `the head of "${h.category}" has a non-finite weight`);
   }
-  const names = new Set<string>();
-  for (const node of graph.node ?? []) {
-    for (const t of [...(node.input ?? []), ...(node.output ?? [])]) names.add(t);
-    if (node.name) names.add(node.name);
-  }
-  for (const t of graph.initializer ?? []) if (t.name) names.add(t.name);
-  for (const t of graph.input ?? []) if (t.name) names.add(t.name);
-  if (!names.has(spec.layer)) throw new UsageError('E_HEADS', `"${spec.layer}" is not a tensor of ${model.fileName}`);
-  const fresh = (wanted: string): string => {
-    let name = wanted;
-    for (let i = 2; names.has(name); i++) name = `${wanted}_${i}`;
-    names.add(name);
-    return name;
-  };
+  const namer = freshNames(graph);
+  if (!namer.has(spec.layer)) throw new UsageError('E_HEADS', `"${spec.layer}" is not a tensor of ${model.fileName}`);
+  const fresh = namer.fresh;
   const nodes: NodeProto[] = [];
   const initializers: TensorProto[] = [];
   let features = spec.layer;
