@@ -29,7 +29,8 @@ export { composeStimulusSet, type ComposeOptions, type ComposeSummary, type Comp
 
 // snapshot
 export { openSnapshot, type Snapshot, type LayerBatch, type ReadLayerOptions } from './snapshot/snapshot.js';
-export { readManifest, FORMAT_VERSION, type SnapshotManifest, type ManifestLayer, type KeepMode, type ActivationDtype } from './snapshot/manifest.js';
+export { readManifest, FORMAT_VERSION, READABLE_FORMATS, type SnapshotManifest, type ManifestLayer, type KeepMode, type ActivationDtype } from './snapshot/manifest.js';
+export { LAYER_COMPRESSIONS, type LayerCompression } from './snapshot/compression.js';
 
 // record: inspect, record (baseline and modulated), shards
 export { inspectModel, type ModelInspection, type LayerInfo, type InspectOptions } from './record/inspect-model.js';
