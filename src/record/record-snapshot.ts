@@ -21,8 +21,8 @@ import { createNetworkSession, type FloatTensor, type StoredTensor } from '../se
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
 import { BackgroundWriteError, BackgroundWriter } from '../snapshot/background-writer.js';
 import { writeFailure } from '../disk/write-failure.js';
-import { parseCompression, type LayerCompression } from '../snapshot/compression.js';
-import { FORMAT_VERSION, readManifest, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
+import { parseCompression, recordedCompression, type LayerCompression } from '../snapshot/compression.js';
+import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import { readNpyHeader } from '../stimuli/npy.js';
@@ -174,7 +174,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   const dtype = options.dtype ?? 'float32';
   if (keep !== 'full' && keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${String(keep)}"`);
   if (dtype !== 'float32' && dtype !== 'float16') throw new UsageError('E_DTYPE', `--dtype must be "float32" or "float16", got "${String(dtype)}"`);
-  const compression = parseCompression(options.compress ?? (options.resume ? storedCompression(resolveOutFolder(options.out)) : 'none'));
+  const compression = parseCompression(options.compress ?? (options.resume ? recordedCompression(resolveOutFolder(options.out)) : 'none'));
   const requestedBatch = options.batch ?? 16;
   if (!Number.isInteger(requestedBatch) || requestedBatch <= 0) throw new UsageError('E_BATCH', `--batch must be a positive integer, got ${requestedBatch}`);
   runBytesOption(options.runBytes);
@@ -331,7 +331,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       generation += 1;
       const files: Record<string, number> = {};
       const sha256: Record<string, string> = {};
-      background?.syncAll(); // all layer files at once; each writer's own fsync below then finds them clean
+      syncAll(background, folder); // all layer files at once; each writer's own fsync below then finds them clean
       writers.forEach((writer, i) => {
         files[layerEntries[i]!.file] = writer.checkpoint();
         sha256[layerEntries[i]!.file] = writer.checkpointSha256();
@@ -422,7 +422,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     }
     if (checkpointError) throw checkpointError;
     let total = 0;
-    background?.syncAll();
+    syncAll(background, folder);
     writers.forEach((writer, i) => {
       const result = writer.finish();
       Object.assign(layerEntries[i]!, manifestFields(layerEntries[i]!.file, result));
@@ -455,6 +455,15 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     throw markIncomplete(folder, manifest, error);
   } finally {
     await background?.terminate();
+  }
+}
+
+/** Fsyncs every layer file on the writer thread; a failure there becomes the one-line write failure naming its file. */
+function syncAll(background: BackgroundWriter | undefined, folder: string): void {
+  try {
+    background?.syncAll();
+  } catch (error) {
+    throw error instanceof BackgroundWriteError ? writeFailure(error.path ?? folder, error) : error;
   }
 }
 
@@ -501,19 +510,6 @@ export function settleOutputFolder(opened: OpenedOutput, manifest: SnapshotManif
   assertSameRecording(opened.resume.manifest, manifest, folder);
   manifest.created = opened.resume.manifest.created;
   return { checkpoint: opened.resume.progress };
-}
-
-/**
- * The codec of the recording a `--resume` continues, when `compress` is not given: its manifest's (the
- * first layer's own file), `none` when there is no readable manifest (the folder's state is reported
- * when it is opened).
- */
-function storedCompression(folder: string): LayerCompression {
-  try {
-    return readManifest(folder).layers.find((l) => l.from !== 'baseline')?.compression ?? 'none';
-  } catch {
-    return 'none';
-  }
 }
 
 export function assertSameRecording(stored: SnapshotManifest, wanted: SnapshotManifest, folder: string): void {

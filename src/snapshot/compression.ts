@@ -17,6 +17,7 @@ import { createRequire } from 'node:module';
 import { CompressionType, compressionRegistry } from 'apache-arrow';
 import { BufferRegion } from 'apache-arrow/ipc/metadata/message';
 import { RuntimeFailure, UsageError } from '../errors.js';
+import { readManifest } from './manifest.js';
 
 /** How a layer file's record batches are stored: `none` (plain buffers), `lz4` (LZ4 frame) or `zstd`. */
 export type LayerCompression = 'none' | 'lz4' | 'zstd';
@@ -93,6 +94,19 @@ export function compressionName(type: number): Exclude<LayerCompression, 'none'>
 export function parseCompression(value: string, option = '--compress'): LayerCompression {
   if ((LAYER_COMPRESSIONS as readonly string[]).includes(value)) return value as LayerCompression;
   throw new UsageError('E_COMPRESS', `${option} must be one of ${LAYER_COMPRESSIONS.join(', ')}, got "${value}"`, { hint: `${option} zstd (smallest), lz4, or none` });
+}
+
+/**
+ * The codec of the snapshot in `folder` (what a `--resume` without `compress` continues with): its
+ * first own layer's, `none` when there is no readable manifest (the folder's state is reported when it
+ * is opened).
+ */
+export function recordedCompression(folder: string): LayerCompression {
+  try {
+    return readManifest(folder).layers.find((l) => l.from !== 'baseline')?.compression ?? 'none';
+  } catch {
+    return 'none';
+  }
 }
 
 /** Compresses one buffer with the codec (a complete LZ4 frame or Zstandard frame). */
