@@ -14,6 +14,7 @@ import { categoryReadout, type CategoryReadout } from './category-readout.js';
 import { mapTag } from '../graph/category-map.js';
 import { groupScores } from '../stats/log-sum-exp.js';
 import type { DiffOptions } from './diff-types.js';
+import { tuningUnit, type TuningUnit } from './tune.js';
 
 /**
  * Checks that two snapshots can be compared: same model file hash, same stimuli (content digest) and
@@ -53,6 +54,8 @@ export interface CollectedLayer {
   floor: LayerDiffAccumulator | null;
   /** Tuning values for the signature, when a tuning lookup gives them. */
   tuning: Float64Array | null;
+  /** What a channel mean is of at this layer, from its layout (`tuningUnit`): channels, or features of a token tensor. */
+  unit?: TuningUnit;
 }
 
 
@@ -103,7 +106,7 @@ export async function collectDiff(base: Snapshot, mod: Snapshot, options: DiffOp
     const accumulator = await accumulateLayer(base, mod, entry, tolerance, tuning !== undefined, range);
     const floor = floorSnapshot ? await accumulateLayer(base, floorSnapshot, entry, tolerance, false, range) : null;
     const modEntry = mod.layer(entry.name);
-    collected.push({ name: entry.name, op: entry.op, depth: entry.depth, weightDepth: entry.weightDepth ?? null, baseDtype: entry.dtype, modDtype: modEntry.dtype, unchanged: modEntry.from === 'baseline', accumulator, floor, tuning: tuning ?? null });
+    collected.push({ name: entry.name, op: entry.op, depth: entry.depth, weightDepth: entry.weightDepth ?? null, baseDtype: entry.dtype, modDtype: modEntry.dtype, unchanged: modEntry.from === 'baseline', accumulator, floor, tuning: tuning ?? null, unit: tuningUnit(layerLayout(entry)) });
     options.onLayer?.(ordinal + 1, layers.length, entry.name);
   }
   if (readout) {

@@ -155,6 +155,7 @@ export async function finishDiff(collection: DiffCollection, options: Pick<DiffO
       relativeChangeCi: ci,
       signature,
       unchanged: layer.unchanged,
+      ...(layer.unit ? { unit: layer.unit } : {}),
     });
   }
   const below = rows.filter((r) => r.downstream);

@@ -4,6 +4,7 @@ import type { SignatureFit } from '../analysis/signature.js';
 import type { DetectionStats } from '../stats/signal-detection.js';
 import type { Snapshot } from '../snapshot/snapshot.js';
 import type { ReadoutMap, ReadoutMapTag } from '../graph/category-map.js';
+import type { TuningUnit } from './tune.js';
 
 /** Per-channel tuning values of one layer for the target category (e.g. from a tuning table). */
 export type TuningLookup = (layer: string) => Float64Array | undefined;
@@ -76,6 +77,8 @@ export interface LayerDiffRow {
   signature: (Omit<SignatureFit, 'normalisedRank' | 'ratio'>) | null;
   /** The values were identical files (upstream of the modulation, referenced from the baseline). */
   unchanged: boolean;
+  /** What the channel means, ratios and up/down are of, from the layer's layout: `features` of a token tensor (over all tokens), `heads`, or `channels` (absent in reports of older builds: channels). */
+  unit?: TuningUnit;
 }
 
 /** Detection read-out of one category. */

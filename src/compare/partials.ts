@@ -68,6 +68,7 @@ export async function diffPartial(options: DiffOptions, shard: ShardSpec): Promi
       accumulator: encodeState(l.accumulator.exportState()),
       floor: l.floor ? encodeState(l.floor.exportState()) : null,
       tuning: l.tuning ? encodeArray(l.tuning) : null,
+      ...(l.unit ? { unit: l.unit } : {}),
     })),
     task: collection.task
       ? { ...collection.task, baseScores: encodeArray(collection.task.baseScores), modScores: encodeArray(collection.task.modScores) }
@@ -138,6 +139,7 @@ function decodeCollection(part: PartialFile, where: string): DiffCollection {
       weightDepth: typeof l['weightDepth'] === 'number' ? l['weightDepth'] : null,
       baseDtype: String(l['baseDtype']),
       modDtype: String(l['modDtype']),
+      ...(l['unit'] === 'channels' || l['unit'] === 'features' || l['unit'] === 'heads' ? { unit: l['unit'] } : {}),
       unchanged: l['unchanged'] === true,
       accumulator: LayerDiffAccumulator.fromState(decodeState(l['accumulator'], `${at}.accumulator`)),
       floor: l['floor'] === null ? null : LayerDiffAccumulator.fromState(decodeState(l['floor'], `${at}.floor`)),

@@ -3,6 +3,7 @@ import type { DiffReport, SchemeComparison } from '../compare/diff-types.js';
 import { bar, compact, csvField, fixed, signed } from '../format.js';
 import { shortLayerLabels } from './layer-labels.js';
 import { fitTable, NARROW_COLUMNS, wrapText } from './terminal-table.js';
+import { unitWords } from './unit-words.js';
 
 /** Bar length for a relative change on a log scale between the floor and the largest change. */
 function logBar(value: number, low: number, high: number): string {
@@ -138,10 +139,10 @@ export function renderComparison(comparison: SchemeComparison, labels: [string, 
 
 /** One CSV row per layer, for spreadsheets. */
 export function diffToCsv(report: DiffReport): string {
-  const header = ['depth', 'layer', 'op', 'site', 'below_site', 'relative_change', 'relative_change_low', 'relative_change_high', 'relative_change_median', 'cosine', 'pearson', 'channel_ratio_mean', 'channel_ratio_sd', 'fraction_up', 'fraction_down', 'effect_size', 'floor', 'above_floor', 'signature_slope', 'signature_intercept', 'feature_matching_fraction', 'nonfinite_base', 'nonfinite_mod'];
+  const header = ['depth', 'layer', 'op', 'site', 'below_site', 'relative_change', 'relative_change_low', 'relative_change_high', 'relative_change_median', 'cosine', 'pearson', 'channel_ratio_mean', 'channel_ratio_sd', 'fraction_up', 'fraction_down', 'effect_size', 'floor', 'above_floor', 'signature_slope', 'signature_intercept', 'feature_matching_fraction', 'nonfinite_base', 'nonfinite_mod', 'unit'];
   const lines = [header.join(',')];
   for (const l of report.layers) {
-    lines.push([l.depth, l.name, l.op, l.site, l.belowSite, l.relativeChange, l.relativeChangeCi?.[0], l.relativeChangeCi?.[1], l.relativeChangeMedian, l.cosine, l.pearson, l.channelRatioMean, l.channelRatioSd, l.fractionUp, l.fractionDown, l.effectSize, l.floor, l.aboveFloor, l.signature?.slope, l.signature?.intercept, l.signature?.featureMatchingFraction, l.nonFinite.base, l.nonFinite.mod].map(csvField).join(','));
+    lines.push([l.depth, l.name, l.op, l.site, l.belowSite, l.relativeChange, l.relativeChangeCi?.[0], l.relativeChangeCi?.[1], l.relativeChangeMedian, l.cosine, l.pearson, l.channelRatioMean, l.channelRatioSd, l.fractionUp, l.fractionDown, l.effectSize, l.floor, l.aboveFloor, l.signature?.slope, l.signature?.intercept, l.signature?.featureMatchingFraction, l.nonFinite.base, l.nonFinite.mod, l.unit ?? 'channels'].map(csvField).join(','));
   }
   return `${lines.join('\n')}\n`;
 }
@@ -160,19 +161,23 @@ export function matchedRangeText(range: readonly [number, number] | undefined): 
 /**
  * What every column of the per-layer diff table means, in one paragraph under it (wrapped to the width by
  * the caller's fitting): depth, rel. change, profile, ratio (and "signed"), up/down, effect, the signature
- * columns when shown, and floor.
+ * columns when shown, and floor. Ratios are of channels, of features at token layers, or of "units" when
+ * the table mixes them (then one clause says which is which; see unit-words.ts).
  */
 export function diffTableFooter(report: DiffReport, withSignature: boolean): string {
+  const labels = shortLayerLabels(report.layers.map((l) => l.name));
+  const { one, many, note } = unitWords(report.layers.map((l) => l.unit), report.layers.map((l) => labels.get(l.name)!));
   const parts = [
     '◆ modulation site',
     'depth: position among the model\'s recordable tensors',
     'rel. change: ‖mod − base‖ / ‖base‖ [95% bootstrap interval]',
     'profile: rel. change on a log scale',
-    'ratio: modulated ÷ baseline channel means (mean ± sd over channels); "signed": some baseline channel mean is negative, so no ratio is shown and up/down count channel mean shifts beyond ±tolerance × the RMS channel mean',
-    'up/down: channels changed beyond ±tolerance',
-    'effect: mean over channels of |Δ channel mean| ÷ its baseline sd across stimuli',
+    `ratio: modulated ÷ baseline ${one} means (mean ± sd over ${many}); "signed": some baseline ${one} mean is negative, so no ratio is shown and up/down count ${one} mean shifts beyond ±tolerance × the RMS ${one} mean`,
+    `up/down: ${many} changed beyond ±tolerance`,
+    `effect: mean over ${many} of |Δ ${one} mean| ÷ its baseline sd across stimuli`,
   ];
-  if (withSignature) parts.push('slope, intercept: least-squares line of channel ratio against tuning rank (0 = most preferred; the feature-similarity-gain signature is a negative slope and an intercept above 1)', 'match: fraction of channels that do not prefer the target and are enhanced anyway (feature matching)');
+  if (note) parts.push(note);
+  if (withSignature) parts.push(`slope, intercept: least-squares line of ${one} ratio against tuning rank (0 = most preferred; the feature-similarity-gain signature is a negative slope and an intercept above 1)`, `match: fraction of ${many} that do not prefer the target and are enhanced anyway (feature matching)`);
   parts.push(`floor: rel. change above or below the floor (${report.floor.description}); "same file": the baseline's own file (upstream of the site)`);
   return parts.join('; ');
 }

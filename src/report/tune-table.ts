@@ -10,6 +10,7 @@ import type { TableComparison } from '../compare/compare-tables.js';
 import type { LayerTuningSummary } from '../compare/tune.js';
 import { shortLayerLabels } from './layer-labels.js';
 import { fitTable, wrapText } from './terminal-table.js';
+import { unitCount, unitWords, type UnitName } from './unit-words.js';
 
 /** Most categories shown one column each in the agreement table; more are summarised. */
 export const MAX_CATEGORY_COLUMNS = 12;
@@ -48,17 +49,19 @@ export function renderTuningSummaries(summaries: readonly LayerTuningSummary[], 
  * The tuning–sensitivity agreement table of `tune --against` with its depth sparkline and trend.
  * @param comparison the table comparison.
  * @param path the sensitivity table as the user named it.
- * @param options width: terminal columns to fit (default: no limit).
+ * @param options width: terminal columns to fit (default: no limit); units: each layer's unit (tune's
+ *   summaries), so token layers count features (layers not in it, or no map: channels).
  */
-export function renderAgreement(comparison: TableComparison, path: string, options: { width?: number } = {}): string {
+export function renderAgreement(comparison: TableComparison, path: string, options: { width?: number; units?: ReadonlyMap<string, UnitName> } = {}): string {
   const width = options.width ?? Number.POSITIVE_INFINITY;
   const labels = shortLayerLabels(comparison.layers.map((l) => l.layer));
   const many = comparison.categories.length > MAX_CATEGORY_COLUMNS;
-  const head = ['depth', 'layer', 'channels', 'pooled r', 'pooled ρ'];
+  const words = unitWords(comparison.layers.map((l) => options.units?.get(l.layer)));
+  const head = ['depth', 'layer', words.many, 'pooled r', 'pooled ρ'];
   if (many) head.push('median r', 'lowest r', 'highest r');
   else head.push(...comparison.categories.map((c) => `r ${c}`));
   const rows = comparison.layers.map((l) => {
-    const row = [String(l.depth), labels.get(l.layer)!, String(l.channels), number(l.pooled.pearson, 3), number(l.pooled.spearman, 3)];
+    const row = [String(l.depth), labels.get(l.layer)!, unitCount(l.channels, options.units?.get(l.layer), words), number(l.pooled.pearson, 3), number(l.pooled.spearman, 3)];
     if (!many) return [...row, ...l.byCategory.map((c) => number(c.pearson, 2))];
     const finite = l.byCategory.filter((c) => Number.isFinite(c.pearson)).sort((a, b) => a.pearson - b.pearson);
     if (finite.length === 0) return [...row, '–', '–', '–'];

@@ -55,7 +55,7 @@ export function registerDiff(program: Command): void {
     .option('--measure <name>', 'detection measure the verdict and --vs lead with: auc (ROC area, threshold-free) or dprime (d′ at the fixed threshold)', 'auc')
     .option('--bootstrap <n>', 'bootstrap resamples over stimuli (0: none)', nonNegativeInteger, 1000)
     .option('--seed <n>', 'bootstrap seed', nonNegativeInteger, 0)
-    .option('--tolerance <x>', 'channel ratio tolerance for up/down', finiteNumber, 0.01)
+    .option('--tolerance <x>', 'ratio tolerance for up/down (of channel means, or feature means at token layers)', finiteNumber, 0.01)
     .option('--json', 'print the full report as JSON')
     .option('--csv <file>', 'also write one CSV row per layer (an existing file only with --force)')
     .option('--force', 'replace an existing --csv file')

@@ -95,7 +95,7 @@ export function registerTune(program: Command): void {
         io.stdout(`${renderTuningSummaries(summaries, { width: outputColumns() })}\n`);
         io.stdout(`${wrapText(`across depth: selective ${sparkline(summaries.map((s) => s.selectiveFraction), { min: 0, max: 1 })}  mean selectivity ${sparkline(summaries.map((s) => s.meanSelectivity), { min: 0, max: 1 })}  (selective: index ≥ ${SELECTIVE_INDEX.toFixed(2)}, preferred category ≥ 2× the others)`, outputColumns(), '  ')}\n`);
       }
-      if (comparison) io.stdout(`${renderAgreement(comparison, displayPath(opts.against!), { width: outputColumns() })}\n`);
+      if (comparison) io.stdout(`${renderAgreement(comparison, displayPath(opts.against!), { width: outputColumns(), units: new Map(summaries.map((s) => [s.layer, s.unit])) })}\n`);
     });
 }
 

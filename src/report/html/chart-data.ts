@@ -9,6 +9,7 @@ import type { DiffReport } from '../../compare/diff-types.js';
 import { tokensLabel, windowLabel } from '../../modulation/label.js';
 import type { SweepCell, SweepResult } from '../../replay/sweep-types.js';
 import { num, type TuningSummaries } from './inputs.js';
+import { unitWords } from '../unit-words.js';
 
 /** One layer of one diff run, for the relative-change-vs-depth chart. */
 export interface ChangePoint {
@@ -293,14 +294,20 @@ export function agreementData(agreement: TableComparison): { values: DepthValue[
   return { values, trend: [{ depth: lo, value: intercept + slope * lo }, { depth: hi, value: intercept + slope * hi }] };
 }
 
+/** The name of the selective-fraction measure: "selective channels (fraction)", features at token layers, units when mixed (unit-words.ts). */
+export function selectiveMeasure(tuning: TuningSummaries): string {
+  return `selective ${unitWords(tuning.layers.map((l) => l.unit)).many} (fraction)`;
+}
+
 /**
  * Category tuning against depth: the fraction of selective channels and the mean selectivity per layer.
  * @param tuning tuning summaries.
  * @returns two values per layer with a known depth (≥ 0).
  */
 export function tuningData(tuning: TuningSummaries): DepthValue[] {
+  const selective = selectiveMeasure(tuning);
   return tuning.layers.filter((l) => num(l.depth) >= 0).flatMap((l) => [
-    { layer: l.layer, depth: num(l.depth), measure: 'selective channels (fraction)', value: num(l.selectiveFraction) },
+    { layer: l.layer, depth: num(l.depth), measure: selective, value: num(l.selectiveFraction) },
     { layer: l.layer, depth: num(l.depth), measure: 'mean selectivity index', value: num(l.meanSelectivity) },
   ]);
 }

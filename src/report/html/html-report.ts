@@ -19,7 +19,8 @@ import { TOOL_VERSION } from '../../version.js';
 import type { DiffReport } from '../../compare/diff-types.js';
 import type { SweepResult } from '../../replay/sweep-types.js';
 import type { SizeMatchedComparison } from '../../replay/size-matched.js';
-import { agreementData, propagationMatrix, relativeChangeData, runLabel, taskCurves, tuningData, uniqueLabels } from './chart-data.js';
+import { agreementData, propagationMatrix, relativeChangeData, runLabel, selectiveMeasure, taskCurves, tuningData, uniqueLabels } from './chart-data.js';
+import { unitWords } from '../unit-words.js';
 import { depthLinesSpec, depthProfileSpec, PALETTE, propagationMatrixSpec, relativeChangeSpec, taskCurveSpec } from './chart-specs.js';
 import { classifyReportInput, num, readReportInput, type ReportInput } from './inputs.js';
 import { html, type HtmlValue, type SafeHtml } from './markup.js';
@@ -248,8 +249,8 @@ async function tuningSections(inputs: readonly ReportInput[], charts: ChartRende
   const parts: SafeHtml[] = [];
   for (const input of list) {
     const figure = await charts.figure(
-      depthLinesSpec(tuningData(input.tuning), { yDomain: [0, 1], yTitle: 'fraction / index', measures: ['selective channels (fraction)', 'mean selectivity index'], colours: [PALETTE[2]!, PALETTE[6]!] }),
-      `Category tuning across depth: fraction of channels whose preferred category drives them at least twice as strongly as the others${Number.isFinite(num(input.tuning.selectiveIndex)) ? ` (index ≥ ${fmt(input.tuning.selectiveIndex, 2)})` : ''}, and the mean selectivity index.`,
+      depthLinesSpec(tuningData(input.tuning), { yDomain: [0, 1], yTitle: 'fraction / index', measures: [selectiveMeasure(input.tuning), 'mean selectivity index'], colours: [PALETTE[2]!, PALETTE[6]!] }),
+      `Category tuning across depth: fraction of ${unitWords(input.tuning.layers.map((l) => l.unit)).many} whose preferred category drives them at least twice as strongly as the others${Number.isFinite(num(input.tuning.selectiveIndex)) ? ` (index ≥ ${fmt(input.tuning.selectiveIndex, 2)})` : ''}, and the mean selectivity index.`,
     );
     parts.push(html`${list.length > 1 ? html`<h3>${input.name}</h3>` : ''}${pair(figure, tuningTable(input.tuning))}`);
   }

@@ -80,7 +80,7 @@ const CAVEAT = 'These results describe an artificial neural network and modulati
 
 const DEFINITIONS: ReadonlyArray<[string, string]> = [
   ['relative change', '‖mod − base‖ / ‖base‖ over all values of a layer and all stimuli'],
-  ['channel ratio', 'modulated ÷ baseline mean activity of a channel'],
+  ['channel ratio', 'modulated ÷ baseline mean activity of a channel (at token layers: of a feature, over all tokens — the feature ratio; tables mixing both say unit ratio)'],
   ['signature slope', 'slope of channel ratio against the channel\u2019s tuning rank for the attended category (negative: preferring channels gain more)'],
   ['depth profile', 'least-squares fit of ln(relative change) against layers below the site; half-depth = ln 2 / |rate|'],
   ['d′, criterion', 'z(H) − z(F) and −(z(H) + z(F)) / 2 from hit rate H and false-alarm rate F (log-linear correction at 0 and 1)'],

@@ -10,6 +10,7 @@ import type { TaskCurvePoint } from './chart-data.js';
 import { num, type TuningSummaries } from './inputs.js';
 import { html, SafeHtml, type HtmlValue } from './markup.js';
 import { shortLayerLabels } from '../layer-labels.js';
+import { unitCount, unitWords } from '../unit-words.js';
 
 /** A short layer label with the full tensor name on hover (`title`); the full name alone when they agree. */
 export function layerCell(name: string, labels: ReadonlyMap<string, string>): HtmlValue {
@@ -79,13 +80,15 @@ function table(head: readonly string[], rows: readonly Row[], numeric: readonly 
 
 /**
  * Per-layer table of one diff: depth (◆ at the site), layer, op, relative change with its bootstrap
- * interval, cosine, channel ratio, fraction of channels up/down, effect size, signature slope (when a
+ * interval, cosine, channel ratio (feature ratio at token layers, see unit-words.ts), fraction of channels up/down, effect size, signature slope (when a
  * tuning table was given) and whether the change is above the noise floor.
  * @param diff a diff report.
  */
 export function diffLayerTable(diff: DiffReport): SafeHtml {
   const withSignature = diff.layers.some((l) => l.signature);
-  const head = ['depth', 'layer', 'op', 'relative change [95 % CI]', 'cosine', 'channel ratio', 'up / down', 'effect size'];
+  const shortNames = shortLayerLabels(diff.layers.map((l) => l.name));
+  const words = unitWords(diff.layers.map((l) => l.unit), diff.layers.map((l) => shortNames.get(l.name)!));
+  const head = ['depth', 'layer', 'op', 'relative change [95 % CI]', 'cosine', `${words.one} ratio`, 'up / down', 'effect size'];
   if (withSignature) head.push('signature slope');
   head.push('vs floor');
   const cell = labelled(diff.layers.map((l) => l.name));
@@ -112,7 +115,7 @@ export function diffLayerTable(diff: DiffReport): SafeHtml {
     return l.site ? { cells, className: 'site' as const } : { cells };
   })];
   const numeric = withSignature ? [0, 3, 4, 5, 6, 7, 8] : [0, 3, 4, 5, 6, 7];
-  return table(head, rows, numeric, `◆ modulation site · channel ratio = modulated ÷ baseline channel mean (mean ± sd over channels) · floor: ${diff.floor?.description ?? 'not given'}`);
+  return table(head, rows, numeric, `◆ modulation site · ${words.one} ratio = modulated ÷ baseline ${words.one} mean (mean ± sd over ${words.many})${words.note ? ` · ${words.note}` : ''} · floor: ${diff.floor?.description ?? 'not given'}`);
 }
 
 function profileText(diff: DiffReport): string {
@@ -281,7 +284,10 @@ export function agreementTable(agreement: TableComparison): SafeHtml {
  */
 export function tuningTable(tuning: TuningSummaries): SafeHtml {
   const cell = labelled(tuning.layers.map((l) => l.layer));
-  const rows: Row[] = tuning.layers.map((l) => ({ cells: [fmt(l.depth, 0), cell(l.layer), l.op ?? '', fmt(l.channels, 0), pct(l.selectiveFraction, 0), fmt(l.meanSelectivity), fmt(l.zeroVarianceChannels, 0), fmt(l.nonFiniteChannels, 0)] }));
+  const shortNames = shortLayerLabels(tuning.layers.map((l) => l.layer));
+  const words = unitWords(tuning.layers.map((l) => l.unit), tuning.layers.map((l) => shortNames.get(l.layer)!));
+  const rows: Row[] = tuning.layers.map((l) => ({ cells: [fmt(l.depth, 0), cell(l.layer), l.op ?? '', unitCount(fmt(l.channels, 0), l.unit, words), pct(l.selectiveFraction, 0), fmt(l.meanSelectivity), fmt(l.zeroVarianceChannels, 0), fmt(l.nonFiniteChannels, 0)] }));
   const index = Number.isFinite(num(tuning.selectiveIndex)) ? `selective: index ≥ ${fmt(tuning.selectiveIndex, 2)} (preferred category at least twice the others)` : undefined;
-  return table(['depth', 'layer', 'op', 'channels', 'selective', 'mean selectivity', 'zero-variance', 'NaN'], rows, [0, 3, 4, 5, 6, 7], index);
+  const caption = [index, words.note].filter((t) => t).join(' · ');
+  return table(['depth', 'layer', 'op', words.many, 'selective', 'mean selectivity', 'zero-variance', 'NaN'], rows, [0, 3, 4, 5, 6, 7], caption || undefined);
 }
