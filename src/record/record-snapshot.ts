@@ -331,7 +331,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
       generation += 1;
       const files: Record<string, number> = {};
       const sha256: Record<string, string> = {};
-      syncAll(background, folder); // all layer files at once; each writer's own fsync below then finds them clean
+      background?.syncAll(); // all layer files at once; each writer's own fsync below then finds them clean
       writers.forEach((writer, i) => {
         files[layerEntries[i]!.file] = writer.checkpoint();
         sha256[layerEntries[i]!.file] = writer.checkpointSha256();
@@ -422,7 +422,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     }
     if (checkpointError) throw checkpointError;
     let total = 0;
-    syncAll(background, folder);
+    background?.syncAll();
     writers.forEach((writer, i) => {
       const result = writer.finish();
       Object.assign(layerEntries[i]!, manifestFields(layerEntries[i]!.file, result));
@@ -455,15 +455,6 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     throw markIncomplete(folder, manifest, error);
   } finally {
     await background?.terminate();
-  }
-}
-
-/** Fsyncs every layer file on the writer thread; a failure there becomes the one-line write failure naming its file. */
-function syncAll(background: BackgroundWriter | undefined, folder: string): void {
-  try {
-    background?.syncAll();
-  } catch (error) {
-    throw error instanceof BackgroundWriteError ? writeFailure(error.path ?? folder, error) : error;
   }
 }
 

@@ -15,6 +15,7 @@
  * synchronous, as the single-threaded sink's is.
  */
 import { Worker } from 'node:worker_threads';
+import { writeFailure } from '../disk/write-failure.js';
 
 /** Bytes that may wait in the queue before `write` blocks: enough to cover one batch being written while the next is computed. */
 export const DEFAULT_QUEUED_BYTES = 256 * 2 ** 20;
@@ -228,12 +229,17 @@ export class BackgroundWriter {
   /**
    * Waits until everything queued is written, then fsyncs every open stream's file at once (the file
    * system can commit them together, where one fsync after another waits for a commit each).
-   * @throws BackgroundWriteError
+   * @throws RuntimeFailure E_WRITE naming the file whose write or fsync failed
    */
   syncAll(): void {
-    for (const flush of this.flushers.values()) flush();
-    this.waitFor(this.post({ type: 'syncAll' }, 0));
-    this.throwIfFailed();
+    try {
+      for (const flush of this.flushers.values()) flush();
+      this.waitFor(this.post({ type: 'syncAll' }, 0));
+      this.throwIfFailed();
+    } catch (error) {
+      // worded as every write failure: the file and the reason, in one line
+      throw error instanceof BackgroundWriteError ? writeFailure(error.path ?? 'a layer file', error) : error;
+    }
   }
 
   /** SHA-256 of every byte of `stream` so far (its prefix and all writes), after they are written. @throws BackgroundWriteError */
