@@ -99,22 +99,31 @@ const globalAveragePool: GradientRule = (ctx) => {
   return [e.emit('Expand', [e.emit('Mul', [gradOut(ctx), e.scalar(1 / size)]), e.emit('Shape', [x])])];
 };
 
+/**
+ * The axes a Reduce* node reduces over (non-negative, sorted, without repeats) and its keepdims; null when
+ * the node is a no-op (no axes and noop_with_empty_axes = 1). `axesAsInput`: the opset gives the axes as
+ * the second input rather than an attribute.
+ */
+function reducedAxes(ctx: Parameters<GradientRule>[0], rank: number, axesAsInput: boolean): { normal: number[]; keep: boolean } | null {
+  let axes: number[] | null = axesAsInput ? (ctx.inputs[1] ? ctx.constant(ctx.inputs[1]) : null) : readAttribute<number[] | null>(ctx.node, 'axes', null);
+  if (axesAsInput && ctx.inputs[1] && !axes) ctx.unsupported('its axes are not constant');
+  if (!axes || axes.length === 0) {
+    if (readAttribute(ctx.node, 'noop_with_empty_axes', 0) === 1) return null;
+    axes = Array.from({ length: rank }, (_, i) => i);
+  }
+  const normal = [...new Set(axes.map((a) => (a < 0 ? a + rank : a)))].sort((a, b) => a - b);
+  if (normal.includes(0)) ctx.unsupported('it reduces over the batch axis');
+  return { normal, keep: readAttribute(ctx.node, 'keepdims', 1) === 1 };
+}
+
 function reduction(mean: boolean): GradientRule {
   return (ctx) => {
     const e = ctx.e;
     const x = ctx.inputs[0]!;
     const dims = knownDims(ctx, x);
-    const rank = dims.length;
-    const axesAsInput = ctx.node.opType === 'ReduceSum' ? e.opset >= 13 : e.opset >= 18;
-    let axes: number[] | null = axesAsInput ? (ctx.inputs[1] ? ctx.constant(ctx.inputs[1]) : null) : readAttribute<number[] | null>(ctx.node, 'axes', null);
-    if (axesAsInput && ctx.inputs[1] && !axes) ctx.unsupported('its axes are not constant');
-    if (!axes || axes.length === 0) {
-      if (readAttribute(ctx.node, 'noop_with_empty_axes', 0) === 1) return [gradOut(ctx), null];
-      axes = Array.from({ length: rank }, (_, i) => i);
-    }
-    const normal = [...new Set(axes.map((a) => (a < 0 ? a + rank : a)))].sort((a, b) => a - b);
-    if (normal.includes(0)) ctx.unsupported('it reduces over the batch axis');
-    const keep = readAttribute(ctx.node, 'keepdims', 1) === 1;
+    const reduced = reducedAxes(ctx, dims.length, ctx.node.opType === 'ReduceSum' ? e.opset >= 13 : e.opset >= 18);
+    if (!reduced) return [gradOut(ctx), null];
+    const { normal, keep } = reduced;
     let g = gradOut(ctx);
     if (!keep) g = e.unsqueeze(g, normal);
     if (mean) g = e.emit('Mul', [g, e.scalar(1 / normal.reduce((a, i) => a * dims[i]!, 1))]);
@@ -129,17 +138,9 @@ function reduction(mean: boolean): GradientRule {
 const reduceLogSumExp: GradientRule = (ctx) => {
   const e = ctx.e;
   const x = ctx.inputs[0]!;
-  const rank = knownDims(ctx, x).length;
-  const axesAsInput = e.opset >= 18;
-  let axes: number[] | null = axesAsInput ? (ctx.inputs[1] ? ctx.constant(ctx.inputs[1]) : null) : readAttribute<number[] | null>(ctx.node, 'axes', null);
-  if (axesAsInput && ctx.inputs[1] && !axes) ctx.unsupported('its axes are not constant');
-  if (!axes || axes.length === 0) {
-    if (readAttribute(ctx.node, 'noop_with_empty_axes', 0) === 1) return [gradOut(ctx), null];
-    axes = Array.from({ length: rank }, (_, i) => i);
-  }
-  const normal = [...new Set(axes.map((a) => (a < 0 ? a + rank : a)))].sort((a, b) => a - b);
-  if (normal.includes(0)) ctx.unsupported('it reduces over the batch axis');
-  const keep = readAttribute(ctx.node, 'keepdims', 1) === 1;
+  const reduced = reducedAxes(ctx, knownDims(ctx, x).length, e.opset >= 18);
+  if (!reduced) return [gradOut(ctx), null];
+  const { normal, keep } = reduced;
   const g = keep ? gradOut(ctx) : e.unsqueeze(gradOut(ctx), normal);
   const y = keep ? ctx.outputs[0]! : e.unsqueeze(ctx.outputs[0]!, normal);
   return [e.emit('Mul', [g, e.emit('Exp', [e.emit('Sub', [x, y])])]), null];
