@@ -1,21 +1,10 @@
-import { execFileSync } from 'node:child_process';
-import { existsSync } from 'node:fs';
 import { describe, expect, it } from 'vitest';
 import { LayerDiffAccumulator } from '../../src/analysis/layer-diff.js';
 import type { LayerDiffMetrics } from '../../src/analysis/layer-diff-metrics.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
+import { torchReference, TORCH } from '../helpers/torch-reference.js';
 
-/** Runs `script` under Debian's /usr/bin/python3 (which has torch) with `input` as JSON on stdin; null when unavailable. */
-function torchReference(script: string, input: unknown): unknown {
-  if (!existsSync('/usr/bin/python3')) return null;
-  try {
-    return JSON.parse(execFileSync('/usr/bin/python3', ['-c', script], { input: JSON.stringify(input), encoding: 'utf8', timeout: 60_000 })) as unknown;
-  } catch {
-    return null;
-  }
-}
-const TORCH = torchReference('import json, torch; print(json.dumps(1))', null) === 1;
 
 const N = 10;
 const C = 4;

@@ -1,10 +1,9 @@
-import { execFileSync } from 'node:child_process';
-import { existsSync } from 'node:fs';
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
 import { averageRanks, linearFit, pearson, spearman } from '../../src/stats/correlation.js';
 import { UsageError } from '../../src/errors.js';
 import { createRandom } from '../../src/random.js';
+import { torchReference, TORCH } from '../helpers/torch-reference.js';
 
 // Anscombe (1973), The American Statistician 27:17. Set I is in ../shared/DOMAIN.md; sets II–IV are
 // recalled from memory. The paper's point is that all four share mean x 9, mean y 7.50, the line
@@ -17,16 +16,6 @@ const ANSCOMBE = [
   { name: 'IV', x: [8, 8, 8, 8, 8, 8, 8, 19, 8, 8, 8], y: [6.58, 5.76, 7.71, 8.84, 8.47, 7.04, 5.25, 12.5, 5.56, 7.91, 6.89] },
 ];
 
-/** Runs `script` under Debian's /usr/bin/python3 (which has torch) with `input` as JSON on stdin; null when unavailable. */
-function torchReference(script: string, input: unknown): unknown {
-  if (!existsSync('/usr/bin/python3')) return null;
-  try {
-    return JSON.parse(execFileSync('/usr/bin/python3', ['-c', script], { input: JSON.stringify(input), encoding: 'utf8', timeout: 60_000 })) as unknown;
-  } catch {
-    return null;
-  }
-}
-const TORCH = torchReference('import json, torch; print(json.dumps(1))', null) === 1;
 
 describe('pearson', () => {
   it('pearson(x, y) matches Anscombe set I: r ≈ 0.816', () => {

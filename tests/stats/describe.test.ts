@@ -1,24 +1,13 @@
-import { execFileSync } from 'node:child_process';
-import { existsSync } from 'node:fs';
 import { describe as group, expect, it } from 'vitest';
 import { describe, mean, median, quantile, quantileSorted, standardDeviation, variance } from '../../src/stats/describe.js';
 import { createRandom } from '../../src/random.js';
 import { UsageError } from '../../src/errors.js';
+import { torchReference, TORCH } from '../helpers/torch-reference.js';
 
 // Anscombe (1973), The American Statistician 27:17, set I (values in ../shared/DOMAIN.md).
 const ANSCOMBE_X = [10, 8, 13, 9, 11, 14, 6, 4, 12, 7, 5];
 const ANSCOMBE_Y1 = [8.04, 6.95, 7.58, 8.81, 8.33, 9.96, 7.24, 4.26, 10.84, 4.82, 5.68];
 
-/** Runs `script` under Debian's /usr/bin/python3 (which has torch) with `input` as JSON on stdin; null when unavailable. */
-function torchReference(script: string, input: unknown): unknown {
-  if (!existsSync('/usr/bin/python3')) return null;
-  try {
-    return JSON.parse(execFileSync('/usr/bin/python3', ['-c', script], { input: JSON.stringify(input), encoding: 'utf8', timeout: 60_000 })) as unknown;
-  } catch {
-    return null;
-  }
-}
-const TORCH = torchReference('import json, torch; print(json.dumps(1))', null) === 1;
 
 group('describe', () => {
   it('describe(values) matches Anscombe set I: mean x 9, Σ(x − x̄)² = 110, mean y 7.50', () => {

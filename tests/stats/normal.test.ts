@@ -1,23 +1,11 @@
-import { execFileSync } from 'node:child_process';
-import { existsSync } from 'node:fs';
 import stdlibQuantile from '@stdlib/stats-base-dists-normal-quantile';
 import { describe, expect, it } from 'vitest';
 import { normalCdf, normalQuantile } from '../../src/stats/normal.js';
+import { torchReference, TORCH } from '../helpers/torch-reference.js';
 
 const DOUBLE_EPSILON = 2 ** -52;
 
-/** Runs `script` under Debian's /usr/bin/python3 (which has torch) with `input` as JSON on stdin; null when unavailable. */
-function torchReference(script: string, input: unknown): unknown {
-  if (!existsSync('/usr/bin/python3')) return null;
-  try {
-    const text = execFileSync('/usr/bin/python3', ['-c', script], { input: JSON.stringify(input), encoding: 'utf8', timeout: 60_000 });
-    return JSON.parse(text) as unknown;
-  } catch {
-    return null;
-  }
-}
 
-const TORCH = torchReference('import json, torch; print(json.dumps(1))', null) === 1;
 
 describe('normalQuantile', () => {
   it('normalQuantile(p) matches the standard normal table at 0.975, 0.84 and 0.5', () => {
