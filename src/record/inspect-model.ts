@@ -1,12 +1,11 @@
 import { UsageError } from '../errors.js';
 import { loadModel, type Dim, type LoadedModel } from '../graph/load-model.js';
-import { exposeTensors } from '../graph/instrument.js';
 import { defaultTensors } from '../graph/default-layers.js';
 import { inferLayouts, type LayoutDeclaration } from '../graph/infer-layout.js';
 import type { TensorLayout } from '../graph/layout.js';
 import { readSidecar, sidecarPath } from '../graph/sidecar.js';
 import { analyseGraph, weightLayerDepths, type GraphStructure } from '../graph/structure.js';
-import { probeOutputs } from '../session/network-session.js';
+import { probeTensors } from './probe-tensors.js';
 
 /** A tensor Sonde can record: a float32 node output whose first axis is the batch. */
 export interface LayerInfo {
@@ -87,8 +86,8 @@ export interface InspectOptions {
 }
 
 /**
- * Loads a model and finds every recordable tensor with its per-stimulus shape, by one probe run on a
- * batch of zeros with every node output exposed.
+ * Loads a model and finds every recordable tensor with its per-stimulus shape, by probing a batch of
+ * zeros with every node output exposed (in slices of about `PROBE_SESSION_BYTES`, src/record/probe-tensors.ts).
  * @throws UsageError when the input has dynamic non-batch axes and no `inputShape` is given, or when
  *   `inputShape` does not fit the declared input.
  */
@@ -100,20 +99,21 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const batchIsDynamic = typeof model.input.dims[0] !== 'number';
   const probeBatch = batchIsDynamic ? 2 : inputShape[0]!;
   const probeShape = [probeBatch, ...inputShape.slice(1)];
-  const allOutputs = structure.nodes.flatMap((n) => n.outputs);
-  const bytes = exposeTensors(model, allOutputs);
-  const elements = probeShape.reduce((a, b) => a * b, 1);
-  const shapes = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName);
-  const declaredOutputs = new Set(model.outputs);
-  const found: Array<Omit<LayerInfo, 'layout' | 'default'>> = [];
-  const weightDepths = weightLayerDepths(structure);
-  const skippedTensors: SkippedTensor[] = [];
   // tensors that depend on the data input (nodes in topological order): the rest are constants, whatever
   // their shape — with a fixed batch of 1 a [1, C, 1, 1] constant would otherwise pass for an activation
   const dependent = new Set<string>([model.input.name]);
   for (const node of structure.nodes) {
     if (node.opType !== 'Constant' && node.inputs.some((i) => i && dependent.has(i))) for (const name of node.outputs) dependent.add(name);
   }
+  // constants (small: shapes, indices, scalars) ride with the first slice; the activations are sliced by bytes
+  const allOutputs = structure.nodes.flatMap((n) => n.outputs);
+  const constants = allOutputs.filter((name) => !dependent.has(name));
+  const elements = probeShape.reduce((a, b) => a * b, 1);
+  const shapes = await probeTensors(model, [...constants, ...allOutputs.filter((name) => dependent.has(name))], { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName, { small: constants.length });
+  const declaredOutputs = new Set(model.outputs);
+  const found: Array<Omit<LayerInfo, 'layout' | 'default'>> = [];
+  const weightDepths = weightLayerDepths(structure);
+  const skippedTensors: SkippedTensor[] = [];
   for (const node of structure.nodes) {
     for (const name of node.outputs) {
       const probed = shapes.get(name);
@@ -175,9 +175,13 @@ async function placeBatchAxes(model: LoadedModel, skipped: SkippedTensor[], prob
   const open = skipped.filter((t) => t.reason === 'batch' && t.dims !== undefined);
   if (open.length === 0) return;
   const shape = [probeBatch + 1, ...probeShape.slice(1)];
-  const bytes = exposeTensors(model, open.map((t) => t.name));
   const elements = shape.reduce((a, b) => a * b, 1);
-  const second = await probeOutputs(bytes, { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, model.fileName);
+  // sizes known from the first probe, scaled to one more stimulus
+  const sizeOf = (name: string) => {
+    const dims = open.find((t) => t.name === name)?.dims;
+    return dims ? (dims.reduce((a, d) => a * Number(d), 1) * 4 * (probeBatch + 1)) / probeBatch : undefined;
+  };
+  const second = await probeTensors(model, open.map((t) => t.name), { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, model.fileName, { sizeOf });
   for (const t of open) {
     const before = t.dims!.map(Number);
     const after = second.get(t.name)?.dims;

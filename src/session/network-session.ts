@@ -298,7 +298,7 @@ const ORT_PATH = createRequire(import.meta.url).resolve('onnxruntime-node');
 export const PROBE_RUN_BYTES = 256 * 2 ** 20;
 
 /** Bytes per element of the runtime's tensor types (strings and unknown types count 8). */
-const ELEMENT_BYTES: Readonly<Record<string, number>> = { float32: 4, float16: 2, float64: 8, int64: 8, uint64: 8, int32: 4, uint32: 4, int16: 2, uint16: 2, int8: 1, uint8: 1, bool: 1 };
+export const ELEMENT_BYTES: Readonly<Record<string, number>> = { float32: 4, float16: 2, float64: 8, int64: 8, uint64: 8, int32: 4, uint32: 4, int16: 2, uint16: 2, int8: 1, uint8: 1, bool: 1 };
 
 /**
  * Runs the model and returns every output's element type and dims, whatever its type (probe runs
@@ -307,14 +307,16 @@ const ELEMENT_BYTES: Readonly<Record<string, number>> = { float32: 4, float16: 2
  * every tensor exposed does not hold all of them at once; one session serves every group.
  */
 export async function probeOutputs(
-  bytes: Uint8Array,
+  bytes: Uint8Array | null,
   feeds: Record<string, FloatTensor>,
   label: string,
 ): Promise<Map<string, { type: string; dims: number[] }>> {
   const logSeverityLevel = runtimeLogSeverity();
   let session: ort.InferenceSession;
   try {
-    session = await ort.InferenceSession.create(bytes, { executionProviders: ['cpu'], graphOptimizationLevel: 'basic', intraOpNumThreads: 1, logSeverityLevel });
+    session = await ort.InferenceSession.create(bytes!, { executionProviders: ['cpu'], graphOptimizationLevel: 'basic', intraOpNumThreads: 0, extra: { session: { intra_op: { allow_spinning: '0' } } }, logSeverityLevel });
+    // the runtime holds its own copy now: let the model bytes go before the runs (a large model is not held twice)
+    bytes = null;
   } catch (error) {
     throw new RuntimeFailure('E_RUNTIME_LOAD', `the ONNX runtime rejected ${label}: ${firstLine(error)}`, {
       hint: 'check that the model is valid (onnx.checker) and uses operators the CPU runtime supports',
@@ -344,8 +346,8 @@ export async function probeOutputs(
         (tensor as { dispose?: () => void }).dispose?.();
       }
       at += fetch.length;
-      // the next group from the average size so far
-      group = Math.max(1, Math.floor(PROBE_RUN_BYTES / Math.max(1, seenBytes / at)));
+      // the next group from the mean size so far (at least 64 KiB an output: scalars first say nothing)
+      group = Math.max(1, Math.floor(PROBE_RUN_BYTES / Math.max(64 * 2 ** 10, seenBytes / at)));
     }
     return shapes;
   } finally {
