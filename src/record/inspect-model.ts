@@ -5,6 +5,7 @@ import { inferLayouts, type LayoutDeclaration } from '../graph/infer-layout.js';
 import type { TensorLayout } from '../graph/layout.js';
 import { readSidecar, sidecarPath } from '../graph/sidecar.js';
 import { analyseGraph, weightLayerDepths, type GraphStructure } from '../graph/structure.js';
+import { weightlessModel } from '../graph/weightless.js';
 import { probeTensors } from './probe-tensors.js';
 
 /** A tensor Sonde can record: a float32 node output whose first axis is the batch. */
@@ -109,7 +110,9 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const allOutputs = structure.nodes.flatMap((n) => n.outputs);
   const constants = allOutputs.filter((name) => !dependent.has(name));
   const elements = probeShape.reduce((a, b) => a * b, 1);
-  const shapes = await probeTensors(model, [...constants, ...allOutputs.filter((name) => dependent.has(name))], { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName, { small: constants.length });
+  // the probe needs shapes only: a weightless copy of the model spares the runtime the weights
+  const probeModel = weightlessModel(model);
+  const shapes = await probeTensors(probeModel, [...constants, ...allOutputs.filter((name) => dependent.has(name))], { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName, { small: constants.length });
   const declaredOutputs = new Set(model.outputs);
   const found: Array<Omit<LayerInfo, 'layout' | 'default'>> = [];
   const weightDepths = weightLayerDepths(structure);
@@ -126,7 +129,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
       found.push({ name, op: node.opType, depth: found.length, weightDepth: weightDepths.get(name) ?? 0, shape, elements: shape.reduce((a, b) => a * b, 1), isOutput: declaredOutputs.has(name) });
     }
   }
-  if (batchIsDynamic) await placeBatchAxes(model, skippedTensors, probeShape, probeBatch);
+  if (batchIsDynamic) await placeBatchAxes(probeModel, skippedTensors, probeShape, probeBatch);
   const declared = options.layouts === undefined ? readSidecar(model.path)?.layouts : options.layouts ?? undefined;
   const layouts = inferLayouts(model, structure, {
     shapes: new Map(found.map((l) => [l.name, l.shape])),

@@ -303,13 +303,16 @@ export const ELEMENT_BYTES: Readonly<Record<string, number>> = { float32: 4, flo
 /**
  * Runs the model and returns every output's element type and dims, whatever its type (probe runs
  * need to see non-float tensors to exclude them). The outputs are fetched in groups, each run holding
- * about `PROBE_RUN_BYTES` of them (sized from the outputs seen so far), so that probing a model with
- * every tensor exposed does not hold all of them at once; one session serves every group.
+ * about `runBytes` of them (default `PROBE_RUN_BYTES`, sized from the outputs seen so far; Infinity:
+ * one run fetches all), so that the fetched copies of a model with every tensor exposed are not all
+ * held at once; one session serves every group (each group is a run of the whole network, and the
+ * runtime keeps every exposed tensor of a run allocated anyway: `probeTensors` in src/record/ bounds that).
  */
 export async function probeOutputs(
   bytes: Uint8Array | null,
   feeds: Record<string, FloatTensor>,
   label: string,
+  runBytes = PROBE_RUN_BYTES,
 ): Promise<Map<string, { type: string; dims: number[] }>> {
   const logSeverityLevel = runtimeLogSeverity();
   let session: ort.InferenceSession;
@@ -327,7 +330,7 @@ export async function probeOutputs(
     for (const [name, tensor] of Object.entries(feeds)) ortFeeds[name] = new ort.Tensor('float32', tensor.data, tensor.dims);
     const shapes = new Map<string, { type: string; dims: number[] }>();
     const names = session.outputNames;
-    let group = Math.min(names.length, 64);
+    let group = Number.isFinite(runBytes) ? Math.min(names.length, 64) : names.length;
     let seenBytes = 0;
     for (let at = 0; at < names.length; ) {
       const fetch = names.slice(at, at + group);
@@ -347,7 +350,7 @@ export async function probeOutputs(
       }
       at += fetch.length;
       // the next group from the mean size so far (at least 64 KiB an output: scalars first say nothing)
-      group = Math.max(1, Math.floor(PROBE_RUN_BYTES / Math.max(64 * 2 ** 10, seenBytes / at)));
+      group = Math.max(1, Math.floor(runBytes / Math.max(64 * 2 ** 10, seenBytes / at)));
     }
     return shapes;
   } finally {
