@@ -1,4 +1,6 @@
 import { closeSync, fsyncSync, mkdirSync, openSync, readFileSync, rmSync, writeSync } from 'node:fs';
+import { createHash } from 'node:crypto';
+import { availableParallelism } from 'node:os';
 import { join } from 'node:path';
 import { exposeTensors } from '../graph/instrument.js';
 import { tensorsFusedAway } from '../graph/fusions.js';
@@ -33,14 +35,45 @@ export function fsyncWriteRate(folder: string, bytes = 512 * 2 ** 20): number {
 }
 
 /**
+ * The rate at which this machine's page cache takes writes (no fsync: the kernel's copy and page
+ * allocation, what a recording's writes cost the CPU), as bytes per second: `bytes` in 4 MiB chunks.
+ */
+export function pageCacheWriteRate(folder: string, bytes = 512 * 2 ** 20): number {
+  const path = join(folder, 'page-cache-rate.bin');
+  const chunk = new Uint8Array(4 * 2 ** 20).fill(7);
+  const start = performance.now();
+  const fd = openSync(path, 'w');
+  try {
+    for (let at = 0; at < bytes; at += chunk.length) writeSync(fd, chunk, 0, Math.min(chunk.length, bytes - at));
+  } finally {
+    closeSync(fd);
+  }
+  const seconds = (performance.now() - start) / 1000;
+  rmSync(path, { force: true });
+  return bytes / seconds;
+}
+
+/** SHA-256 throughput of one core (node:crypto over 256 MiB in 4 MiB updates), bytes per second. */
+export function sha256Rate(bytes = 256 * 2 ** 20): number {
+  const chunk = new Uint8Array(4 * 2 ** 20).fill(11);
+  const start = performance.now();
+  const hash = createHash('sha256');
+  for (let at = 0; at < bytes; at += chunk.length) hash.update(chunk);
+  hash.digest();
+  return bytes / ((performance.now() - start) / 1000);
+}
+
+/**
  * Record against the machine's floor, measured alternately in one process: wall time of `record` over
  * max(bare inference of the unmodified model on the same inputs, same batch and threads; bytes written ÷
  * the disk's fsync write rate measured in the same run), for the default layers and `--layers all`;
  * float16 (cast in the graph) over float32; what the writer thread and the in-graph cast gain (the same
  * record with writes on the main thread, with float16 converted in JavaScript); and what exposing the
  * recorded tensors costs the runtime itself (inference with the default layers exposed but not fetched,
- * and the tensors the optimised graph does not hold as they are — fused into another kernel or kept only
- * in the runtime's blocked layout).
+ * and exposed and fetched — the runtime's share of any recording through it — and the tensors the
+ * optimised graph does not hold as they are: fused into another kernel or kept only in the runtime's
+ * blocked layout). Where the time goes: the CPU time (user and kernel, every thread) of a record and
+ * of inference, against the cores, and this machine's SHA-256 and page-cache write rates.
  *
  * Default: the residual reference model, 1024 stimuli 3×64×64, batch 8. SONDE_BENCH_RECORD_MODEL (e.g.
  * a seeded torchvision VGG16 at 224 px), SONDE_BENCH_RECORD_STIMULI, SONDE_BENCH_RECORD_BATCH and
@@ -66,21 +99,27 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
     const exposedSession = await createNetworkSession(exposeTensors(loaded, defaultNames), { threads: THREADS });
     sessions.push(bareSession, exposedSession);
     const logits = loaded.proto.graph!.output![0]!.name!;
-    const infer = async (session: NetworkSession): Promise<number> => {
+    const cpu = { bare: [] as number[], fetched: [] as number[], default: [] as number[], defaultSystem: [] as number[], float16: [] as number[], float16System: [] as number[] };
+    const infer = async (session: NetworkSession, fetch: readonly string[] = [logits], cpuInto?: number[]): Promise<number> => {
       const start = performance.now();
+      const used = process.cpuUsage();
       for (let first = 0; first < stimuliCount; first += batch) {
         const rows = Math.min(batch, stimuliCount - first);
-        await session.run({ [loaded.input.name]: { data: data.slice(first * per, (first + rows) * per), dims: [rows, 3, size, size] } }, [logits]);
+        await session.run({ [loaded.input.name]: { data: data.slice(first * per, (first + rows) * per), dims: [rows, 3, size, size] } }, fetch);
       }
+      const spent = process.cpuUsage(used);
+      cpuInto?.push((spent.user + spent.system) / 1e6);
       return (performance.now() - start) / 1000;
     };
     let out = 0;
-    const record = async (options: Partial<RecordOptions>): Promise<{ seconds: number; bytes: number }> => {
+    const record = async (options: Partial<RecordOptions>): Promise<{ seconds: number; bytes: number; cpu: number; system: number }> => {
       const start = performance.now();
+      const used = process.cpuUsage();
       const summary = await recordSnapshot({ model, stimuli: path, out: join(work.folder, `snap${out++}`), layers: 'default', batch, threads: THREADS, ...options });
       const seconds = (performance.now() - start) / 1000;
+      const spent = process.cpuUsage(used);
       rmSync(summary.folder, { recursive: true, force: true }); // so the next run does not wait on this one's writeback
-      return { seconds, bytes: summary.bytesWritten };
+      return { seconds, bytes: summary.bytesWritten, cpu: (spent.user + spent.system) / 1e6, system: spent.system / 1e6 };
     };
     const variants: Record<string, Partial<RecordOptions>> = {
       default: {},
@@ -92,19 +131,25 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
     };
     await infer(bareSession); // warm-up
     await record({});
-    const times: Record<string, number[]> = { bare: [], exposed: [], fsync: [], setup: [] };
+    const times: Record<string, number[]> = { bare: [], exposed: [], fetched: [], fsync: [], setup: [], sha256: [], pageCache: [] };
     const bytes: Record<string, number> = {};
     for (let r = 0; r < repeats; r++) {
       times['fsync']!.push(fsyncWriteRate(work.folder));
-      times['bare']!.push(await infer(bareSession));
+      times['pageCache']!.push(pageCacheWriteRate(work.folder));
+      times['sha256']!.push(sha256Rate());
+      times['bare']!.push(await infer(bareSession, [logits], cpu.bare));
       times['exposed']!.push(await infer(exposedSession));
+      times['fetched']!.push(await infer(exposedSession, defaultNames, cpu.fetched));
       times['setup']!.push((await record({ stimuli: one })).seconds);
       for (const [name, options] of Object.entries(variants)) {
         const result = await record(options);
         (times[name] ??= []).push(result.seconds);
         bytes[name] = result.bytes;
+        if (name === 'default') cpu.default.push(result.cpu), cpu.defaultSystem.push(result.system);
+        if (name === 'default float16') cpu.float16.push(result.cpu), cpu.float16System.push(result.system);
       }
     }
+    const cores = Math.min(THREADS, availableParallelism());
     const fusedAway = await tensorsFusedAway(loaded, defaultNames);
     const bare = median(times['bare']!);
     const rate = median(times['fsync']!);
@@ -137,11 +182,24 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
         'float16 converted in JavaScript / float32': t('default float16 converted in JavaScript') / t('default'),
         'inference with the default layers exposed, not fetched s': t('exposed'),
         'exposure cost (exposed / bare inference)': t('exposed') / bare,
+        'inference with the default layers exposed and fetched s': t('fetched'),
+        'runtime share of a record (exposed and fetched / bare inference)': t('fetched') / bare,
+        'record default over exposed and fetched inference': t('default') / t('fetched'),
+        'bare inference CPU s (all threads)': median(cpu.bare),
+        'exposed and fetched inference CPU s': median(cpu.fetched),
+        'record default CPU s (all threads)': median(cpu.default),
+        'record default kernel CPU s': median(cpu.defaultSystem),
+        [`record default CPU use (share of ${cores} cores over its wall time)`]: median(cpu.default) / (cores * t('default')),
+        'record default float16 CPU s': median(cpu.float16),
+        'record default float16 kernel CPU s': median(cpu.float16System),
+        'SHA-256 MB/s (one core)': median(times['sha256']!) / 1e6,
+        'page-cache write MB/s (no fsync)': median(times['pageCache']!) / 1e6,
         'default layers': defaultNames.length,
         'default layers the runtime fuses away or re-lays': fusedAway.length,
       },
       targets: { 'ratio default to floor': '<= 1.3', 'ratio all to floor': '<= 1.3', 'float16 / float32': '<= 0.6' },
       notes: [
+        'runtime share: what onnxruntime-node itself takes to hand the tensors over (layout conversions of exposed tensors, the copy into JavaScript buffers), the least any recorder built on it pays; CPU s: user + kernel time of every thread of the process during the run (the runtime\'s, the main thread\'s, the writer thread\'s)',
         'floor = max(bare inference, bytes written ÷ fsync write rate); record time includes model loading and hashing, inspection (probe run), session creation, stimulus reading, channel means, Arrow encoding, SHA-256 and fsync; setup = a record of one stimulus (bare inference times runs only)',
         `fused away or re-laid (not held as they are in the optimised graph): ${[...new Set(fusedAway.map((n) => inspection.layers.find((l) => l.name === n)!.op))].join(', ') || 'none'}`,
       ],
