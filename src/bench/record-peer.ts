@@ -13,12 +13,14 @@
  * SONDE_BENCH_PEER_STIMULI / _BATCH / _REPEATS resize it.
  */
 import { execFileSync } from 'node:child_process';
-import { closeSync, existsSync, openSync, readSync, rmSync, writeFileSync } from 'node:fs';
+import { closeSync, existsSync, openSync, readFileSync, readSync, rmSync, writeFileSync } from 'node:fs';
 import { basename, join } from 'node:path';
+import { exposeTensors } from '../graph/instrument.js';
 import { loadModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { recordSnapshot } from '../record/record-snapshot.js';
+import { createNetworkSession, type NetworkSession } from '../session/network-session.js';
 import { openSnapshot } from '../snapshot/snapshot.js';
 import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
@@ -87,19 +89,30 @@ export async function benchRecordPeer(): Promise<BenchResult> {
   const size = typeof loaded.input.dims[2] === 'number' ? loaded.input.dims[2] : 224;
   const work = scratch('sonde-bench-peer-');
   try {
-    const { path } = benchStimuli(work.folder, count, size);
+    const { path, data: stimuli } = benchStimuli(work.folder, count, size);
     const inspection = await inspectModel(loaded, { inputShape: [1, 3, size, size] });
     const producers = new Map<string, string>();
     for (const node of loaded.proto.graph!.node ?? []) for (const out of node.output ?? []) producers.set(out, node.name ?? '');
     const layers = selectLayers(inspection.layers, 'default').filter((l) => MODULE_OPS.has(l.op) && moduleOfNode(producers.get(l.name) ?? '') !== null);
     const tensors = layers.map((l) => moduleOfNode(producers.get(l.name)!)!);
     const names = layers.map((l) => l.name);
-    const spec = (out: string) => {
+    const spec = (out: string, forwardOnly: boolean) => {
       const file = join(work.folder, 'peer.json');
-      writeFileSync(file, JSON.stringify({ kind, stimuli: path, batch, threads: THREADS, out, tensors }));
+      writeFileSync(file, JSON.stringify({ kind, stimuli: path, batch, threads: THREADS, out, tensors, forward_only: forwardOnly }));
       return file;
     };
-    const peer = (out: string): { seconds: number; bytes: number } => JSON.parse(execFileSync(python, [PEER_SCRIPT, spec(out)], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'] }).toString().trim().split('\n').pop()!) as { seconds: number; bytes: number };
+    const peer = (out: string, forwardOnly = false): { seconds: number; bytes: number } => JSON.parse(execFileSync(python, [PEER_SCRIPT, spec(out, forwardOnly)], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'] }).toString().trim().split('\n').pop()!) as { seconds: number; bytes: number };
+    // the two runtimes' bare inference over the same stimuli, batch and threads: what the network costs each
+    const per = stimuli.length / count;
+    const logits = loaded.outputs[0]!;
+    const infer = async (session: NetworkSession, fetch: readonly string[]): Promise<number> => {
+      const start = performance.now();
+      for (let first = 0; first < count; first += batch) {
+        const rows = Math.min(batch, count - first);
+        await session.run({ [loaded.input.name]: { data: stimuli.slice(first * per, (first + rows) * per), dims: [rows, 3, size, size] } }, fetch);
+      }
+      return (performance.now() - start) / 1000;
+    };
     let run = 0;
     const record = async (keep: boolean) => {
       const start = performance.now();
@@ -133,17 +146,31 @@ export async function benchRecordPeer(): Promise<BenchResult> {
     rmSync(peerOut, { recursive: true, force: true });
     const ours: number[] = [];
     const theirs: number[] = [];
+    const bare: number[] = [];
+    const fetched: number[] = [];
+    const forward: number[] = [];
     let bytes = 0;
     let peerBytes = 0;
-    for (let r = 0; r < repeats; r++) {
-      const a = await record(false);
-      ours.push(a.seconds);
-      bytes = a.bytes;
-      const out = join(work.folder, `peer${r}`);
-      const b = peer(out);
-      rmSync(out, { recursive: true, force: true });
-      theirs.push(b.seconds);
-      peerBytes = b.bytes;
+    const bareSession = await createNetworkSession(readFileSync(model), { threads: THREADS, spinning: false });
+    const exposedSession = await createNetworkSession(exposeTensors(loaded, names), { threads: THREADS, spinning: false });
+    try {
+      await infer(bareSession, [logits]); // warm-up
+      for (let r = 0; r < repeats; r++) {
+        const a = await record(false);
+        ours.push(a.seconds);
+        bytes = a.bytes;
+        const out = join(work.folder, `peer${r}`);
+        const b = peer(out);
+        rmSync(out, { recursive: true, force: true });
+        theirs.push(b.seconds);
+        peerBytes = b.bytes;
+        bare.push(await infer(bareSession, [logits]));
+        fetched.push(await infer(exposedSession, names));
+        forward.push(peer(join(work.folder, 'forward'), true).seconds);
+      }
+    } finally {
+      await bareSession.close();
+      await exposedSession.close();
     }
     return {
       name: 'record-peer',
@@ -153,6 +180,11 @@ export async function benchRecordPeer(): Promise<BenchResult> {
         'record s': median(ours),
         'PyTorch hooks to .npy s': median(theirs),
         'record / PyTorch hooks': median(ours) / median(theirs),
+        'onnxruntime bare inference s': median(bare),
+        'PyTorch forward passes alone s': median(forward),
+        'onnxruntime / PyTorch, bare inference': median(bare) / median(forward),
+        'onnxruntime with the same tensors exposed and fetched s': median(fetched),
+        'record / onnxruntime with the tensors exposed and fetched': median(ours) / median(fetched),
         'record written MB': bytes / 1e6,
         'PyTorch hooks written MB': peerBytes / 1e6,
         'largest difference of the first rows, relative to the tensor maximum': worst,
@@ -160,6 +192,7 @@ export async function benchRecordPeer(): Promise<BenchResult> {
       targets: { 'record / PyTorch hooks': '<= 0.7' },
       notes: [
         "record: the whole command (model inspection, stimulus reading and hashing, channel means, Arrow files, SHA-256, fsync); the script: its loop only (forward passes with hooks, .npy writes, fsync), not building the model",
+        'bare inference: the same stimuli, batch and threads through each runtime with nothing recorded (onnxruntime fetching the logits; PyTorch\'s loop without hooks); exposed and fetched: onnxruntime handing over the recorded tensors, nothing else done with them',
       ],
     };
   } finally {

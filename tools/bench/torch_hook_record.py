@@ -8,7 +8,8 @@ reading, forward passes, saving, fsync; model building excluded) and the bytes w
 
 Usage (Debian's PyTorch): /usr/bin/python3 tools/bench/torch_hook_record.py SPEC.json
 SPEC: {"kind": "residual" | a torchvision builder name (vgg16, resnet50, …), "stimuli": path, "batch": n,
-       "threads": n, "out": folder, "tensors": [{"module": "features.0.2", "call": 0}, …]}
+       "threads": n, "out": folder, "tensors": [{"module": "features.0.2", "call": 0}, …],
+       "forward_only": false}   (true: time the forward passes alone, no hooks, nothing saved)
 """
 import json
 import os
@@ -45,6 +46,15 @@ def main() -> None:
         if t['module'] not in modules:
             sys.exit(f"no module {t['module']!r} in {spec['kind']}")
         wanted.setdefault(t['module'], {})[int(t['call'])] = i
+    batch = int(spec['batch'])
+    if spec.get('forward_only'):
+        # the same loop without hooks or saving: what the network alone costs PyTorch here
+        start = time.perf_counter()
+        with torch.no_grad():
+            for first in range(0, count, batch):
+                model(torch.from_numpy(np.array(x[first:first + batch], dtype=np.float32)))
+        print(json.dumps({'seconds': time.perf_counter() - start, 'bytes': 0, 'tensors': 0}))
+        return
     os.makedirs(spec['out'], exist_ok=True)
     files = [open(os.path.join(spec['out'], f'{i:03d}.npy'), 'wb') for i in range(len(spec['tensors']))]
     started = [False] * len(files)
@@ -69,7 +79,6 @@ def main() -> None:
 
     for path in wanted:
         modules[path].register_forward_hook(hook_for(path))
-    batch = int(spec['batch'])
     start = time.perf_counter()
     with torch.no_grad():
         for first in range(0, count, batch):
