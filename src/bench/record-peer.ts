@@ -185,6 +185,7 @@ export async function benchRecordPeer(): Promise<BenchResult> {
         'onnxruntime / PyTorch, bare inference': median(bare) / median(forward),
         'onnxruntime with the same tensors exposed and fetched s': median(fetched),
         'record / onnxruntime with the tensors exposed and fetched': median(ours) / median(fetched),
+        'onnxruntime with the tensors exposed and fetched / PyTorch hooks (above 0.7: the target cannot be met through onnxruntime-node here)': median(fetched) / median(theirs),
         'record written MB': bytes / 1e6,
         'PyTorch hooks written MB': peerBytes / 1e6,
         'largest difference of the first rows, relative to the tensor maximum': worst,

@@ -6,7 +6,7 @@ import type { TensorLayout } from '../graph/layout.js';
 import { readSidecar, sidecarPath } from '../graph/sidecar.js';
 import { analyseGraph, weightLayerDepths, type GraphStructure } from '../graph/structure.js';
 import { weightlessModel } from '../graph/weightless.js';
-import { probeTensors } from './probe-tensors.js';
+import { probeTensors, type ProbedShapes, type ProbeOptions } from './probe-tensors.js';
 
 /** A tensor Sonde can record: a float32 node output whose first axis is the batch. */
 export interface LayerInfo {
@@ -112,7 +112,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const elements = probeShape.reduce((a, b) => a * b, 1);
   // the probe needs shapes only: a weightless copy of the model spares the runtime the weights
   const probeModel = weightlessModel(model);
-  const shapes = await probeTensors(probeModel, [...constants, ...allOutputs.filter((name) => dependent.has(name))], { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, model.fileName, { small: constants.length });
+  const shapes = await probeWithWeightsAsFallback(model, probeModel, [...constants, ...allOutputs.filter((name) => dependent.has(name))], { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, { small: constants.length });
   const declaredOutputs = new Set(model.outputs);
   const found: Array<Omit<LayerInfo, 'layout' | 'default'>> = [];
   const weightDepths = weightLayerDepths(structure);
@@ -129,7 +129,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
       found.push({ name, op: node.opType, depth: found.length, weightDepth: weightDepths.get(name) ?? 0, shape, elements: shape.reduce((a, b) => a * b, 1), isOutput: declaredOutputs.has(name) });
     }
   }
-  if (batchIsDynamic) await placeBatchAxes(probeModel, skippedTensors, probeShape, probeBatch);
+  if (batchIsDynamic) await placeBatchAxes(model, probeModel, skippedTensors, probeShape, probeBatch);
   const declared = options.layouts === undefined ? readSidecar(model.path)?.layouts : options.layouts ?? undefined;
   const layouts = inferLayouts(model, structure, {
     shapes: new Map(found.map((l) => [l.name, l.shape])),
@@ -174,7 +174,7 @@ export function describeSkippedTensor(t: SkippedTensor): string {
  * holds it (size B: the batch on that axis; size B·k: merged with an axis of k). Updates `reason` and
  * writes the batch axis into `dims` as `N` or `N·k`.
  */
-async function placeBatchAxes(model: LoadedModel, skipped: SkippedTensor[], probeShape: number[], probeBatch: number): Promise<void> {
+async function placeBatchAxes(model: LoadedModel, probeModel: LoadedModel, skipped: SkippedTensor[], probeShape: number[], probeBatch: number): Promise<void> {
   const open = skipped.filter((t) => t.reason === 'batch' && t.dims !== undefined);
   if (open.length === 0) return;
   const shape = [probeBatch + 1, ...probeShape.slice(1)];
@@ -184,7 +184,7 @@ async function placeBatchAxes(model: LoadedModel, skipped: SkippedTensor[], prob
     const dims = open.find((t) => t.name === name)?.dims;
     return dims ? (dims.reduce((a, d) => a * Number(d), 1) * 4 * (probeBatch + 1)) / probeBatch : undefined;
   };
-  const second = await probeTensors(model, open.map((t) => t.name), { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, model.fileName, { sizeOf });
+  const second = await probeWithWeightsAsFallback(model, probeModel, open.map((t) => t.name), { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, { sizeOf });
   for (const t of open) {
     const before = t.dims!.map(Number);
     const after = second.get(t.name)?.dims;
@@ -198,6 +198,20 @@ async function placeBatchAxes(model: LoadedModel, skipped: SkippedTensor[], prob
     if (!Number.isInteger(k) || after[axis] !== (probeBatch + 1) * k) continue;
     t.reason = k === 1 ? 'batch-later' : 'batch-merged';
     t.dims = t.dims!.map((d, i) => (i === axis ? (k === 1 ? 'N' : `N·${k}`) : d));
+  }
+}
+
+/**
+ * Probes the weightless copy of the model; should the runtime refuse it or its run fail (an operator that
+ * wants its weights constant, a shape computed from weight values), probes the model with its weights,
+ * whose failure, if any, is the one reported.
+ */
+async function probeWithWeightsAsFallback(model: LoadedModel, probeModel: LoadedModel, names: readonly string[], feeds: Parameters<typeof probeTensors>[2], options: ProbeOptions): Promise<ProbedShapes> {
+  if (probeModel === model) return probeTensors(model, names, feeds, model.fileName, options);
+  try {
+    return await probeTensors(probeModel, names, feeds, model.fileName, options);
+  } catch {
+    return probeTensors(model, names, feeds, model.fileName, options);
   }
 }
 

@@ -3,6 +3,7 @@
  * bytes, feed float32 tensors, fetch named outputs as Float32Arrays.
  */
 import { createRequire } from 'node:module';
+import { availableParallelism } from 'node:os';
 import { Worker } from 'node:worker_threads';
 import * as ort from 'onnxruntime-node';
 import { RuntimeFailure, UsageError } from '../errors.js';
@@ -294,6 +295,9 @@ class WorkerNetworkSession implements NetworkSession {
 
 const ORT_PATH = createRequire(import.meta.url).resolve('onnxruntime-node');
 
+/** Intra-op threads of a probe session: the cores this process may use, at most 4 (probes are short runs at batch 2). */
+const PROBE_THREADS = Math.min(4, availableParallelism());
+
 /** Bytes of outputs one probe run may fetch (the probe exposes every tensor of the model). */
 export const PROBE_RUN_BYTES = 256 * 2 ** 20;
 
@@ -317,7 +321,7 @@ export async function probeOutputs(
   const logSeverityLevel = runtimeLogSeverity();
   let session: ort.InferenceSession;
   try {
-    session = await ort.InferenceSession.create(bytes!, { executionProviders: ['cpu'], graphOptimizationLevel: 'basic', intraOpNumThreads: 0, extra: { session: { intra_op: { allow_spinning: '0' } } }, logSeverityLevel });
+    session = await ort.InferenceSession.create(bytes!, { executionProviders: ['cpu'], graphOptimizationLevel: 'basic', intraOpNumThreads: PROBE_THREADS, extra: { session: { intra_op: { allow_spinning: '0' } } }, logSeverityLevel });
     // the runtime holds its own copy now: let the model bytes go before the runs (a large model is not held twice)
     bytes = null;
   } catch (error) {
