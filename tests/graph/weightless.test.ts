@@ -1,5 +1,8 @@
+import { rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
+import { buildTinyNet, externalise, tempFolder } from '../helpers/onnx-builder.js';
+import { inspectModel } from '../../src/record/inspect-model.js';
 import { exposeTensors } from '../../src/graph/instrument.js';
 import { loadModel } from '../../src/graph/load-model.js';
 import { encodeModel } from '../../src/graph/onnx.js';
@@ -54,5 +57,25 @@ describe('weightlessModel', () => {
     expect(fills.map((n) => n.output![0]).sort()).toEqual(large.map((t) => t.name).sort());
     const keptNames = new Set((lightGraph.initializer ?? []).map((t) => t.name));
     for (const t of graph.initializer ?? []) expect(keptNames.has(t.name!), t.name!).toBe(!large.includes(t));
+  });
+
+  it('a model with its weights in an external file: the inspection of the weightless copy equals the probe with the weights (exact property)', async () => {
+    const folder = tempFolder();
+    try {
+      const path = join(folder, 'external.onnx');
+      writeFileSync(path, externalise(buildTinyNet({ widths: [8, 16, 16], residual: true, bias: true, externalData: false }), folder));
+      const model = loadModel(path);
+      const inspection = await inspectModel(model);
+      // the same tensors probed with the weights inlined by loadModel, every output exposed at once
+      const names = analyseGraph(model).nodes.flatMap((n) => n.outputs);
+      const dims = [inspection.probeBatch, ...inspection.input.shape.slice(1)];
+      const feeds = { [model.input.name]: { data: new Float32Array(dims.reduce((a, b) => a * b, 1)), dims } };
+      const withWeights = await probeOutputs(exposeTensors(model, names), feeds, 'external.onnx');
+      expect(inspection.layers.length).toBeGreaterThan(3);
+      for (const layer of inspection.layers) expect([inspection.probeBatch, ...layer.shape], layer.name).toEqual(withWeights.get(layer.name)!.dims);
+      for (const name of names) expect(inspection.probed.get(name), name).toEqual(withWeights.get(name));
+    } finally {
+      rmSync(folder, { recursive: true, force: true });
+    }
   });
 });
