@@ -333,7 +333,9 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
           return { first: part.first, rows: take, feeds };
         },
         (feeds) => session.run(feeds, fetch),
-        (first, rows, outputs) => {
+        async (first, rows, outputs) => {
+          // compressed layers: every layer's values compressed side by side on the thread pool first
+          await Promise.all(changedEntries.map((entry, i) => (outputs[entry.name] ? writers[i]!.precompress(outputs[entry.name]!.data, rows) : undefined)));
           changedEntries.forEach((entry, i) => {
             const tensor = outputs[entry.name];
             if (!tensor) throw new RuntimeFailure('E_RUNTIME_OUTPUT', `the runtime returned no value for "${entry.name}"`);

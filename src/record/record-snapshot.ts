@@ -392,7 +392,9 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
         calls.length,
         (k) => read(calls[k]!.first, calls[k]!.rows),
         (feeds) => session.runStored(feeds, fetch),
-        (first, rows, outputs) => {
+        async (first, rows, outputs) => {
+          // compressed layers: every layer's values compressed side by side on the thread pool first
+          await Promise.all(selected.map((_, i) => (outputs[fetch[i]!] ? writers[i]!.precompress(outputs[fetch[i]!]!.data, rows) : undefined)));
           selected.forEach((layer, i) => {
             const tensor = outputs[fetch[i]!];
             if (!tensor) throw new UsageError('E_RUNTIME_OUTPUT', `the runtime returned no value for "${layer.name}"`);
@@ -562,7 +564,7 @@ export async function runPipelined<T = Record<string, FloatTensor>>(
   batches: number,
   readBatch: (k: number) => Promise<FeedBatch>,
   run: (feeds: Record<string, FloatTensor>) => Promise<T>,
-  write: (first: number, rows: number, outputs: T) => void,
+  write: (first: number, rows: number, outputs: T) => void | Promise<void>,
 ): Promise<void> {
   let nextInput = batches > 0 ? readBatch(0) : null;
   nextInput?.catch(() => undefined);
@@ -573,10 +575,10 @@ export async function runPipelined<T = Record<string, FloatTensor>>(
     nextInput?.catch(() => undefined); // surfaced when awaited
     const running = run(input.feeds);
     running.catch(() => undefined);
-    if (pending) write(pending.first, pending.rows, pending.outputs);
+    if (pending) await write(pending.first, pending.rows, pending.outputs);
     pending = { first: input.first, rows: input.rows, outputs: await running };
   }
-  if (pending) write(pending.first, pending.rows, pending.outputs);
+  if (pending) await write(pending.first, pending.rows, pending.outputs);
 }
 
 

@@ -34,17 +34,18 @@ export const UNCOMPRESSED_LENGTH = -1n;
 
 interface Lz4Module {
   compressFrameSync(data: Buffer): Buffer;
+  compressFrame(data: Buffer): Promise<Buffer>;
   decompressFrameSync(data: Buffer): Buffer;
   decompressFrame(data: Uint8Array): Promise<Buffer>;
 }
 interface ZstdModule {
-  Encoder: new (level: number) => { encodeSync(data: Buffer): Buffer };
+  Encoder: new (level: number) => { encodeSync(data: Buffer): Buffer; encode(data: Buffer): Promise<Buffer> };
   Decoder: new () => { decodeSync(data: Buffer): Buffer; decode(data: Buffer): Promise<Buffer> };
 }
 
 const require = createRequire(import.meta.url);
 let lz4: Lz4Module | null = null;
-let zstd: { encoder: { encodeSync(data: Buffer): Buffer }; decoder: { decodeSync(data: Buffer): Buffer; decode(data: Buffer): Promise<Buffer> } } | null = null;
+let zstd: { module: ZstdModule; encoder: { encodeSync(data: Buffer): Buffer }; decoder: { decodeSync(data: Buffer): Buffer; decode(data: Buffer): Promise<Buffer> } } | null = null;
 
 function loadLz4(): Lz4Module {
   if (!lz4) {
@@ -63,7 +64,7 @@ function loadZstd(): NonNullable<typeof zstd> {
   if (!zstd) {
     try {
       const module = require('@toondepauw/node-zstd') as ZstdModule;
-      zstd = { encoder: new module.Encoder(ZSTD_LEVEL), decoder: new module.Decoder() };
+      zstd = { module, encoder: new module.Encoder(ZSTD_LEVEL), decoder: new module.Decoder() };
     } catch (error) {
       throw new RuntimeFailure('E_CODEC', `the ZSTD codec (npm package @toondepauw/node-zstd) cannot be loaded on this platform (${(error as Error).message.split('\n')[0]})`, {
         hint: 'reinstall with `npm install`, or record with --compress none / lz4',
@@ -112,6 +113,16 @@ export function recordedCompression(folder: string): LayerCompression {
 /** Compresses one buffer with the codec (a complete LZ4 frame or Zstandard frame). */
 export function compressSync(compression: Exclude<LayerCompression, 'none'>, data: Uint8Array): Uint8Array {
   return compression === 'lz4' ? loadLz4().compressFrameSync(asBuffer(data)) : loadZstd().encoder.encodeSync(asBuffer(data));
+}
+
+/**
+ * Compresses one buffer on the thread pool, giving the same frame as `compressSync` (a recording
+ * compresses the large buffers of a batch side by side while its thread goes on). The buffer must not
+ * change or move until the promise settles.
+ */
+export function compressAsync(compression: Exclude<LayerCompression, 'none'>, data: Uint8Array): Promise<Uint8Array> {
+  // an encoder of its own per call: calls run concurrently
+  return compression === 'lz4' ? loadLz4().compressFrame(asBuffer(data)) : new (loadZstd().module.Encoder)(ZSTD_LEVEL).encode(asBuffer(data));
 }
 
 /** Decompresses one frame (synchronously, on the calling thread). */
@@ -272,9 +283,14 @@ function boundedDecode(compression: Exclude<LayerCompression, 'none'>, frame: Ui
  * Arrow readers refuse, so Sonde's writer (resume.ts) lays the body out here.
  * @param compression the codec.
  * @param buffers the batch's body buffers in order (from apache-arrow's VectorAssembler).
+ * @param ready a frame already made for a buffer (by `compressAsync` over exactly its bytes), if any.
  * @returns the body length, one region per buffer (prefix included) and the pieces to write.
  */
-export function compressBodyBuffers(compression: Exclude<LayerCompression, 'none'>, buffers: readonly ArrayBufferView[]): { byteLength: number; bufferRegions: BufferRegion[]; buffers: ArrayBufferView[] } {
+export function compressBodyBuffers(
+  compression: Exclude<LayerCompression, 'none'>,
+  buffers: readonly ArrayBufferView[],
+  ready: (raw: Uint8Array) => Uint8Array | undefined = () => undefined,
+): { byteLength: number; bufferRegions: BufferRegion[]; buffers: ArrayBufferView[] } {
   const pieces: ArrayBufferView[] = [];
   const bufferRegions: BufferRegion[] = [];
   let offset = 0;
@@ -285,7 +301,7 @@ export function compressBodyBuffers(compression: Exclude<LayerCompression, 'none
       bufferRegions.push(new BufferRegion(offset, 0));
       continue;
     }
-    const frame = compressSync(compression, raw);
+    const frame = ready(raw) ?? compressSync(compression, raw);
     const kept = frame.byteLength < raw.byteLength;
     const prefix = new Uint8Array(LENGTH_PREFIX_BYTES);
     new DataView(prefix.buffer).setBigInt64(0, kept ? BigInt(raw.byteLength) : UNCOMPRESSED_LENGTH, true);

@@ -5,7 +5,7 @@ import {
 import { float32ToFloat16 } from './float16.js';
 import { HashingFileSink } from './arrow-sink.js';
 import { ResumableFileWriter, scanRecordBatches } from './resume.js';
-import { arrowCompressionType, registerArrowCodecs, type LayerCompression } from './compression.js';
+import { arrowCompressionType, compressAsync, registerArrowCodecs, type LayerCompression } from './compression.js';
 import { LayerBlockFile } from './block-reader.js';
 import type { ActivationDtype, KeepMode } from './manifest.js';
 import { layoutGeometry, type LayoutGeometry, type TensorLayout } from '../graph/layout.js';
@@ -13,6 +13,9 @@ import { float16Pass, float32Pass, countHalfNonFinite, countNonFiniteValues } fr
 import type { BackgroundWriter } from './background-writer.js';
 
 /** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
+/** Activation arrays from this size on are compressed beforehand on the thread pool (`precompress`). */
+const PRECOMPRESS_BYTES = 64 * 2 ** 10;
+
 export const SHAPE_METADATA_KEY = 'sonde.shape';
 
 /** What a layer file holds. */
@@ -140,6 +143,31 @@ export class LayerFileWriter {
     return this.sink.prefixSha256();
   }
 
+  /** Batches whose values were stored from a frame `precompress` made. */
+  get batchesCompressedAhead(): number {
+    return this.writer.framesUsed;
+  }
+
+  /**
+   * Compresses the activation values `write` will store for `rows` rows on the thread pool, so that the
+   * next `write` of the same array finds their frame made (compressing is most of the cost of a
+   * compressed batch; the layers of a batch are compressed side by side this way). Nothing to do (resolves
+   * at once) without compression, for channel-means layers, for float32 values of a float16 layer
+   * (converted in `write` itself) and for small arrays. `activation` must not change or move until the
+   * promise settles.
+   */
+  async precompress(activation: Float32Array | Uint16Array, rows: number): Promise<void> {
+    const codec = this.layout.compression ?? 'none';
+    if (codec === 'none' || this.layout.keep !== 'full') return;
+    const half = activation instanceof Uint16Array;
+    if (this.layout.dtype === 'float16' && !half) return;
+    const count = rows * this.elements;
+    const values = activation.length === count ? activation : activation.subarray(0, count);
+    if (values.byteLength < PRECOMPRESS_BYTES) return;
+    const raw = new Uint8Array(values.buffer, values.byteOffset, values.byteLength);
+    this.writer.addFrame(raw, await compressAsync(codec, raw));
+  }
+
   /**
    * Appends `rows` stimuli. `activation` holds rows × elements values, row-major (the runtime's output
    * buffer): float32 values, or — for a float16 layout only — float16 bit patterns already converted
@@ -184,6 +212,7 @@ export class LayerFileWriter {
       this.writer.write(new RecordBatch(this.schema, struct));
     } finally {
       this.sink.undonate();
+      this.writer.dropFrames();
     }
     this.rows += rows;
     return nonFinite;

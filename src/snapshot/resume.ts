@@ -81,10 +81,38 @@ export function scanRecordBatches(path: string, byteLength: number): ScannedBatc
  * specifies (see compression.ts).
  */
 export class ResumableFileWriter extends RecordBatchFileWriter {
+  /** Frames made beforehand (`compressAsync`) for body buffers of the next batches, by their memory. */
+  private readonly frames = new Map<ArrayBufferLike, Array<{ byteOffset: number; byteLength: number; frame: Uint8Array }>>();
+
+  /** Hands over the frame of `raw`'s bytes, used (once) when a batch's body holds exactly those bytes. */
+  addFrame(raw: Uint8Array, frame: Uint8Array): void {
+    const list = this.frames.get(raw.buffer) ?? [];
+    list.push({ byteOffset: raw.byteOffset, byteLength: raw.byteLength, frame });
+    this.frames.set(raw.buffer, list);
+  }
+
+  /** How many body buffers were stored from a frame made beforehand (the rest were compressed in `write`). */
+  framesUsed = 0;
+
+  private takeFrame(raw: Uint8Array): Uint8Array | undefined {
+    const list = this.frames.get(raw.buffer);
+    const at = list?.findIndex((f) => f.byteOffset === raw.byteOffset && f.byteLength === raw.byteLength) ?? -1;
+    if (at < 0) return undefined;
+    const [found] = list!.splice(at, 1);
+    if (list!.length === 0) this.frames.delete(raw.buffer);
+    this.framesUsed += 1;
+    return found!.frame;
+  }
+
+  /** Drops frames no batch took (a batch that failed). */
+  dropFrames(): void {
+    this.frames.clear();
+  }
+
   protected override _compressBodyBuffers(buffers: ArrayBufferView[]): ReturnType<RecordBatchFileWriter['_compressBodyBuffers']> {
     const codec = this._compression ? compressionName(this._compression.type) : null;
     if (!codec) throw new Error(`unsupported Arrow compression codec ${String(this._compression?.type)}`);
-    return compressBodyBuffers(codec, buffers);
+    return compressBodyBuffers(codec, buffers, (raw) => this.takeFrame(raw));
   }
 
   /**

@@ -7,6 +7,7 @@ import { BackgroundWriteError, BackgroundWriter } from '../../src/snapshot/backg
 import { writeFailure } from '../../src/disk/write-failure.js';
 import { HashingFileSink } from '../../src/snapshot/arrow-sink.js';
 import { LayerFileWriter } from '../../src/snapshot/layer-file.js';
+import { float32ToFloat16 } from '../../src/snapshot/float16.js';
 import { createRandom } from '../../src/random.js';
 
 const dir = mkdtempSync(join(tmpdir(), 'sonde-bg-'));
@@ -60,6 +61,37 @@ describe('BackgroundWriter', () => {
       const t = threaded.finish();
       expect(t.sha256).toBe(p.sha256);
       expect(readFileSync(join(dir, 'threaded.arrow')).equals(readFileSync(join(dir, 'plain.arrow')))).toBe(true);
+    } finally {
+      await background.terminate();
+    }
+  });
+
+  it.each(['zstd', 'lz4'] as const)('LayerFileWriter.precompress (%s on the thread pool, then write) produces a file byte-identical to write alone, for float32 values and float16 bits (exact property)', async (compression) => {
+    const background = new BackgroundWriter();
+    try {
+      for (const dtype of ['float32', 'float16'] as const) {
+        // 16 × 32 × 32 values a row: 64 KiB a row as float32, so two rows pass the size from which values are compressed beforehand
+        const layout = { name: 'conv', shape: [16, 32, 32], dtype, keep: 'full' as const, compression };
+        const plain = new LayerFileWriter(join(dir, `plain-${compression}-${dtype}.arrow`), layout);
+        const ahead = new LayerFileWriter(join(dir, `ahead-${compression}-${dtype}.arrow`), layout, { background });
+        const rng = createRandom(9);
+        for (let b = 0; b < 3; b++) {
+          const values = new Float32Array(2 * 16 * 32 * 32).map(() => Math.max(0, rng.uniform() - 0.5));
+          // float16 layers get the runtime's float16 bits (as a Cast in the graph hands them over)
+          const data = dtype === 'float16' ? float32ToFloat16(values) : values;
+          const means = dtype === 'float16' ? new Float32Array(2 * 16).fill(0.25) : undefined;
+          plain.write(b * 2, 2, data.slice(), false, means);
+          await ahead.precompress(data, 2);
+          ahead.write(b * 2, 2, data, true, means);
+        }
+        // every batch's values went in from the frame made beforehand
+        expect(ahead.batchesCompressedAhead, dtype).toBe(3);
+        expect(plain.batchesCompressedAhead, dtype).toBe(0);
+        const p = plain.finish();
+        const a = ahead.finish();
+        expect(a.sha256, dtype).toBe(p.sha256);
+        expect(readFileSync(join(dir, `ahead-${compression}-${dtype}.arrow`)).equals(readFileSync(join(dir, `plain-${compression}-${dtype}.arrow`))), dtype).toBe(true);
+      }
     } finally {
       await background.terminate();
     }
