@@ -15,17 +15,19 @@ import type { BenchResult } from './types.js';
 const THREADS = 2;
 
 /**
- * The disk's write rate with fsync, as `dd bs=4M conv=fsync` measures it: `bytes` written in 4 MiB
- * chunks to a new file in `folder`, then fsync, then deleted. Bytes per second.
+ * A write rate of this machine, bytes per second: `bytes` written in 4 MiB chunks to a new file in
+ * `folder`, then deleted. With `fsync` the file is fsynced before the clock stops — the disk's rate, as
+ * `dd bs=4M conv=fsync` measures it; without, the page cache's (the kernel's copy and page allocation,
+ * what a recording's writes cost the CPU).
  */
-export function fsyncWriteRate(folder: string, bytes = 512 * 2 ** 20): number {
-  const path = join(folder, 'fsync-rate.bin');
+function writeRate(folder: string, bytes: number, fsync: boolean): number {
+  const path = join(folder, fsync ? 'fsync-rate.bin' : 'page-cache-rate.bin');
   const chunk = new Uint8Array(4 * 2 ** 20).fill(7);
   const start = performance.now();
   const fd = openSync(path, 'w');
   try {
     for (let at = 0; at < bytes; at += chunk.length) writeSync(fd, chunk, 0, Math.min(chunk.length, bytes - at));
-    fsyncSync(fd);
+    if (fsync) fsyncSync(fd);
   } finally {
     closeSync(fd);
   }
@@ -34,23 +36,14 @@ export function fsyncWriteRate(folder: string, bytes = 512 * 2 ** 20): number {
   return bytes / seconds;
 }
 
-/**
- * The rate at which this machine's page cache takes writes (no fsync: the kernel's copy and page
- * allocation, what a recording's writes cost the CPU), as bytes per second: `bytes` in 4 MiB chunks.
- */
+/** The disk's write rate with fsync (`writeRate`), bytes per second. */
+export function fsyncWriteRate(folder: string, bytes = 512 * 2 ** 20): number {
+  return writeRate(folder, bytes, true);
+}
+
+/** The page cache's write rate, no fsync (`writeRate`), bytes per second. */
 export function pageCacheWriteRate(folder: string, bytes = 512 * 2 ** 20): number {
-  const path = join(folder, 'page-cache-rate.bin');
-  const chunk = new Uint8Array(4 * 2 ** 20).fill(7);
-  const start = performance.now();
-  const fd = openSync(path, 'w');
-  try {
-    for (let at = 0; at < bytes; at += chunk.length) writeSync(fd, chunk, 0, Math.min(chunk.length, bytes - at));
-  } finally {
-    closeSync(fd);
-  }
-  const seconds = (performance.now() - start) / 1000;
-  rmSync(path, { force: true });
-  return bytes / seconds;
+  return writeRate(folder, bytes, false);
 }
 
 /** SHA-256 throughput of one core (node:crypto over 256 MiB in 4 MiB updates), bytes per second. */
