@@ -3,7 +3,7 @@
  * process of its own (peak resident set from `process.resourceUsage().maxRSS`: the runtime's worker
  * thread and the writer thread included), at two stimulus counts, for the default layers, `--layers all`
  * and float16; the bound is 1.5 × bare + 512 MB. Runtime calls are split by bytes (`--run-memory`,
- * default 512 MiB) and the writer thread's queue is bounded (256 MiB), so the peak should not grow with
+ * default 512 MiB) and the writer thread's queue is bounded (128 MiB), so the peak should not grow with
  * the stimulus count.
  *
  * Default: the residual reference model (64 px), 256 and 1024 stimuli, batch 16.

@@ -18,7 +18,7 @@ import { Worker } from 'node:worker_threads';
 import { writeFailure } from '../disk/write-failure.js';
 
 /** Bytes that may wait in the queue before `write` blocks: enough to cover one batch being written while the next is computed. */
-export const DEFAULT_QUEUED_BYTES = 256 * 2 ** 20;
+export const DEFAULT_QUEUED_BYTES = 128 * 2 ** 20;
 
 // Plain CommonJS evaluated from a string, so it runs the same from compiled code and under the test runner.
 const WORKER_SOURCE = `
