@@ -180,10 +180,8 @@ async function placeBatchAxes(model: LoadedModel, probeModel: LoadedModel, skipp
   const shape = [probeBatch + 1, ...probeShape.slice(1)];
   const elements = shape.reduce((a, b) => a * b, 1);
   // sizes known from the first probe, scaled to one more stimulus
-  const sizeOf = (name: string) => {
-    const dims = open.find((t) => t.name === name)?.dims;
-    return dims ? (dims.reduce((a, d) => a * Number(d), 1) * 4 * (probeBatch + 1)) / probeBatch : undefined;
-  };
+  const known = new Map(open.map((t) => [t.name, (t.dims!.reduce((a, d) => a * Number(d), 1) * 4 * (probeBatch + 1)) / probeBatch]));
+  const sizeOf = (name: string) => known.get(name);
   const second = await probeWithWeightsAsFallback(model, probeModel, open.map((t) => t.name), { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, { sizeOf });
   for (const t of open) {
     const before = t.dims!.map(Number);

@@ -53,8 +53,7 @@ export async function probeTensors(model: LoadedModel, names: readonly string[],
       planned += bytes;
     }
     const slice = names.slice(at, at + free + count);
-    // one run per slice: the slice itself bounds what the run holds
-    const probed = await probeOutputs(exposeTensors(model, slice), feeds, label, Infinity);
+    const probed = await probeOutputs(exposeTensors(model, slice), feeds, label);
     let sliceBytes = 0;
     for (const name of slice.slice(free)) {
       const found = probed.get(name);

@@ -298,25 +298,19 @@ const ORT_PATH = createRequire(import.meta.url).resolve('onnxruntime-node');
 /** Intra-op threads of a probe session: the cores this process may use, at most 4 (probes are short runs at batch 2). */
 const PROBE_THREADS = Math.min(4, availableParallelism());
 
-/** Bytes of outputs one probe run may fetch (the probe exposes every tensor of the model). */
-export const PROBE_RUN_BYTES = 256 * 2 ** 20;
-
 /** Bytes per element of the runtime's tensor types (strings and unknown types count 8). */
 export const ELEMENT_BYTES: Readonly<Record<string, number>> = { float32: 4, float16: 2, float64: 8, int64: 8, uint64: 8, int32: 4, uint32: 4, int16: 2, uint16: 2, int8: 1, uint8: 1, bool: 1 };
 
 /**
- * Runs the model and returns every output's element type and dims, whatever its type (probe runs
- * need to see non-float tensors to exclude them). The outputs are fetched in groups, each run holding
- * about `runBytes` of them (default `PROBE_RUN_BYTES`, sized from the outputs seen so far; Infinity:
- * one run fetches all), so that the fetched copies of a model with every tensor exposed are not all
- * held at once; one session serves every group (each group is a run of the whole network, and the
- * runtime keeps every exposed tensor of a run allocated anyway: `probeTensors` in src/record/ bounds that).
+ * Runs the model once and returns every output's element type and dims, whatever its type (probe runs
+ * need to see non-float tensors to exclude them). The runtime keeps every output of a run allocated
+ * until the run ends, so the caller bounds the memory by what it exposes (`probeTensors` in
+ * src/record/ exposes a slice of the tensors per call).
  */
 export async function probeOutputs(
   bytes: Uint8Array | null,
   feeds: Record<string, FloatTensor>,
   label: string,
-  runBytes = PROBE_RUN_BYTES,
 ): Promise<Map<string, { type: string; dims: number[] }>> {
   const logSeverityLevel = runtimeLogSeverity();
   let session: ort.InferenceSession;
@@ -332,29 +326,18 @@ export async function probeOutputs(
   try {
     const ortFeeds: Record<string, ort.Tensor> = {};
     for (const [name, tensor] of Object.entries(feeds)) ortFeeds[name] = new ort.Tensor('float32', tensor.data, tensor.dims);
+    let results: ort.InferenceSession.OnnxValueMapType;
+    try {
+      results = await session.run(ortFeeds);
+    } catch (error) {
+      throw new RuntimeFailure('E_RUNTIME_RUN', `probe run of ${label} failed: ${firstLine(error)}`, {
+        hint: 'the input shape may not fit the model; pass --input-shape',
+      });
+    }
     const shapes = new Map<string, { type: string; dims: number[] }>();
-    const names = session.outputNames;
-    let group = Number.isFinite(runBytes) ? Math.min(names.length, 64) : names.length;
-    let seenBytes = 0;
-    for (let at = 0; at < names.length; ) {
-      const fetch = names.slice(at, at + group);
-      let results: ort.InferenceSession.OnnxValueMapType;
-      try {
-        results = await session.run(ortFeeds, fetch);
-      } catch (error) {
-        throw new RuntimeFailure('E_RUNTIME_RUN', `probe run of ${label} failed: ${firstLine(error)}`, {
-          hint: 'the input shape may not fit the model; pass --input-shape',
-        });
-      }
-      for (const [name, value] of Object.entries(results)) {
-        const tensor = value as ort.Tensor;
-        shapes.set(name, { type: tensor.type, dims: tensor.dims.slice() });
-        seenBytes += tensor.size * (ELEMENT_BYTES[tensor.type] ?? 8);
-        (tensor as { dispose?: () => void }).dispose?.();
-      }
-      at += fetch.length;
-      // the next group from the mean size so far (at least 64 KiB an output: scalars first say nothing)
-      group = Math.max(1, Math.floor(runBytes / Math.max(64 * 2 ** 10, seenBytes / at)));
+    for (const [name, value] of Object.entries(results)) {
+      const tensor = value as ort.Tensor;
+      shapes.set(name, { type: tensor.type, dims: tensor.dims.slice() });
     }
     return shapes;
   } finally {

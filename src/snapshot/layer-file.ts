@@ -13,10 +13,10 @@ import { float16Pass, float32Pass, countHalfNonFinite, countNonFiniteValues } fr
 import type { BackgroundWriter } from './background-writer.js';
 
 /** Field metadata key holding the per-stimulus shape (JSON array) of the `activation` column. */
+export const SHAPE_METADATA_KEY = 'sonde.shape';
+
 /** Activation arrays from this size on are compressed beforehand on the thread pool (`precompress`). */
 const PRECOMPRESS_BYTES = 64 * 2 ** 10;
-
-export const SHAPE_METADATA_KEY = 'sonde.shape';
 
 /** What a layer file holds. */
 export interface LayerFileLayout {

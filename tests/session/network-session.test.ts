@@ -7,9 +7,9 @@ import { createNetworkSession, probeOutputs } from '../../src/session/network-se
 const RESIDUAL = join(import.meta.dirname, '..', 'reference', 'fixtures', 'residual.onnx');
 
 describe('probeOutputs', () => {
-  it('probeOutputs(bytes, feeds) fetched in groups gives every output with the dims of one run that fetches them all (exact property)', async () => {
+  it('probeOutputs(bytes, feeds) gives every output with the dims of a session run that fetches them all (exact property)', async () => {
     const model = loadModel(RESIDUAL);
-    // every Conv and Clip output of the reference network: far more than the first group of 64
+    // every Conv and Clip output of the reference network
     const names = (model.proto.graph!.node ?? []).filter((n) => n.opType === 'Conv' || n.opType === 'Clip').map((n) => n.output![0]!);
     expect(names.length).toBeGreaterThan(64);
     const bytes = exposeTensors(model, names);
