@@ -19,7 +19,8 @@ import { runBytesOption } from '../graph/run-memory.js';
 import { readSidecar } from '../graph/sidecar.js';
 import { createNetworkSession, type FloatTensor, type StoredTensor } from '../session/network-session.js';
 import { channelCount, LayerFileWriter, manifestFields } from '../snapshot/layer-file.js';
-import { BackgroundWriteError, BackgroundWriter } from '../snapshot/background-writer.js';
+import { BackgroundWriteError, BackgroundWriter, DEFAULT_QUEUED_BYTES } from '../snapshot/background-writer.js';
+import type { DiskWriteMode } from '../disk/write-mode.js';
 import { writeFailure } from '../disk/write-failure.js';
 import { parseCompression, recordedCompression, type LayerCompression } from '../snapshot/compression.js';
 import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, type ManifestLayer, type ShardInfo, type SnapshotManifest } from '../snapshot/manifest.js';
@@ -99,6 +100,11 @@ export interface RecordOptions {
    * false writes them on the calling thread (the benchmark measures the difference).
    */
   writeInBackground?: boolean;
+  /**
+   * How the background writer's files reach the disk (default `auto`: O_DIRECT on local disk file
+   * systems, the page cache elsewhere; disk/write-mode.ts). The bytes are the same either way.
+   */
+  diskWrites?: DiskWriteMode;
   /**
    * With `dtype: 'float16'` (and `keep: 'full'`): convert in the graph with ONNX Cast nodes (default
    * true; graph/expose-half.ts) rather than in JavaScript after the run (the benchmark compares them).
@@ -299,7 +305,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
   let digests: DigestLog | null = null;
   let lastCheckpoint = performance.now();
   // layer bytes are written and hashed on a thread of their own, beside the network's
-  const background = options.writeInBackground === false ? undefined : new BackgroundWriter();
+  const background = options.writeInBackground === false ? undefined : new BackgroundWriter(DEFAULT_QUEUED_BYTES, options.diskWrites ?? 'auto');
   try {
     // resuming: the digest log and the stimuli first (nothing of the layer files is touched before the
     // stimuli are known to be the same), then each partial file against its checkpoint hash

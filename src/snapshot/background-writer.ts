@@ -16,6 +16,7 @@
  */
 import { Worker } from 'node:worker_threads';
 import { writeFailure } from '../disk/write-failure.js';
+import { wantsDirectWrites, type DiskWriteMode } from '../disk/write-mode.js';
 
 /** Bytes that may wait in the queue before `write` blocks: enough to cover one batch being written while the next is computed. */
 export const DEFAULT_QUEUED_BYTES = 128 * 2 ** 20;
@@ -23,13 +24,14 @@ export const DEFAULT_QUEUED_BYTES = 128 * 2 ** 20;
 // Plain CommonJS evaluated from a string, so it runs the same from compiled code and under the test runner.
 const WORKER_SOURCE = `
 const { parentPort, workerData } = require('node:worker_threads');
-const { writeSync, fsyncSync, readSync, fsync } = require('node:fs');
+const { writeSync, fsyncSync, readSync, fsync, openSync, closeSync, ftruncateSync, constants } = require('node:fs');
 const { createHash } = require('node:crypto');
 const state = new Int32Array(workerData.state);
 const digest = new Uint8Array(workerData.digest);
 const errorText = new Uint8Array(workerData.error);
 const streams = new Map();
 let failed = false;
+let directStreams = 0;
 function fail(e, stream) {
   failed = true;
   const text = JSON.stringify({ stream, code: e && e.code ? String(e.code) : null, message: String(e && e.message ? e.message : e).split('\\n')[0] });
@@ -40,7 +42,119 @@ function fail(e, stream) {
 }
 // fsync of every open file at once: the file system can commit them together
 function syncAll() {
+  for (const s of streams.values()) settle(s);
   return Promise.all([...streams.entries()].map(([id, s]) => new Promise((resolve, reject) => fsync(s.fd, (e) => (e ? reject(Object.assign(e, { stream: id })) : resolve())))));
+}
+// Direct writes (disk/write-mode.ts): a second descriptor of the file, opened with O_DIRECT, takes whole
+// blocks at block-aligned positions from one aligned stage shared by every stream. Each stream keeps
+// only its last part-block (its tail, under BLOCK bytes) between writes; the next write sends the tail
+// and the new bytes on together, so that block is written again, whole. settle() puts a tail on disk,
+// padded to a block, and truncates the file back to its true length.
+const BLOCK = 4096;
+const DIRECT_STAGE = 16 << 20;
+let stage = null; // the aligned stage: DIRECT_STAGE bytes inside a larger allocation
+function writeAll(fd, bytes, offset, length, position) {
+  let done = 0;
+  while (done < length) done += writeSync(fd, bytes, offset + done, length - done, position + done);
+}
+// O_DIRECT wants the memory of a write aligned too (to the device's block or DMA alignment), which
+// JavaScript cannot ask for: the first offset into an over-allocated buffer whose write of one block
+// the file system accepts is aligned. Each file's probe writes back the file's own bytes of its last
+// block (the bytes before prefix), then truncates the file to prefix again.
+function openDirect(fd, prefix) {
+  if (process.platform !== 'linux' || !constants.O_DIRECT) return null;
+  let dfd;
+  try {
+    // an empty write first: opening the file again through /proc must not write where the caller's
+    // descriptor may not (that one's refusal is then reported by the first real write)
+    writeSync(fd, Buffer.alloc(0), 0, 0, prefix);
+    dfd = openSync('/proc/self/fd/' + fd, constants.O_WRONLY | constants.O_DIRECT);
+  } catch {
+    return null;
+  }
+  const start = prefix - (prefix % BLOCK);
+  const tail = Buffer.alloc(BLOCK);
+  let got = 0;
+  while (got < prefix - start) {
+    const n = readSync(fd, tail, got, prefix - start - got, start + got);
+    if (n <= 0) break;
+    got += n;
+  }
+  const raw = stage ? stage.raw : Buffer.allocUnsafeSlow(DIRECT_STAGE + BLOCK);
+  const offsets = stage ? [stage.offset] : Array.from({ length: BLOCK / 16 }, (_, i) => i * 16);
+  for (const k of offsets) {
+    raw.set(tail, k);
+    try {
+      writeSync(dfd, raw, k, BLOCK, start);
+    } catch (e) {
+      if (e && e.code === 'EINVAL') continue;
+      break;
+    }
+    ftruncateSync(fd, prefix);
+    if (!stage) stage = { raw, offset: k, bytes: raw.subarray(k, k + DIRECT_STAGE) };
+    return { fd: dfd, start, tail, fill: prefix - start, settled: prefix - start };
+  }
+  closeSync(dfd);
+  return null;
+}
+// the stream's tail reaches the file: one block, padded, then the file truncated to its true length
+function settle(s) {
+  const d = s.direct;
+  if (!d || d.fill === d.settled) return;
+  stage.bytes.set(d.tail.subarray(0, d.fill), 0);
+  stage.bytes.fill(0, d.fill, BLOCK);
+  writeAll(d.fd, stage.bytes, 0, BLOCK, d.start);
+  ftruncateSync(s.fd, d.start + d.fill);
+  d.settled = d.fill;
+}
+// back to writes through the page cache (a write out of sequence): the tail's unsettled bytes first
+function leaveDirect(s) {
+  const d = s.direct;
+  s.direct = null;
+  try {
+    if (d.fill > d.settled) writeAll(s.fd, d.tail, d.settled, d.fill - d.settled, d.start + d.settled);
+  } finally {
+    closeSync(d.fd);
+  }
+}
+function writeDirect(s, bytes, position) {
+  const d = s.direct;
+  if (position !== d.start + d.fill) {
+    leaveDirect(s);
+    writeAll(s.fd, bytes, 0, bytes.length, position);
+    return;
+  }
+  const S = stage.bytes;
+  S.set(d.tail.subarray(0, d.fill), 0);
+  let n = d.fill;
+  let at = 0;
+  for (;;) {
+    const take = Math.min(bytes.length - at, DIRECT_STAGE - n);
+    S.set(bytes.subarray(at, at + take), n);
+    n += take;
+    at += take;
+    const whole = n - (n % BLOCK);
+    if (whole > 0) {
+      writeAll(d.fd, S, 0, whole, d.start);
+      d.start += whole;
+      d.settled = 0;
+    }
+    if (at === bytes.length) {
+      d.tail.set(S.subarray(whole, n), 0);
+      d.fill = n - whole;
+      return;
+    }
+    n = 0; // the stage was full: DIRECT_STAGE is whole blocks
+  }
+}
+function closeStream(s) {
+  if (!s.direct) return;
+  try {
+    settle(s);
+  } finally {
+    closeSync(s.direct.fd);
+    s.direct = null;
+  }
 }
 let queue = Promise.resolve();
 parentPort.on('message', (m) => {
@@ -65,25 +179,36 @@ function handle(m) {
         hash.update(chunk.subarray(0, n));
         at += n;
       }
-      streams.set(m.stream, { fd: m.fd, hash });
+      const direct = m.direct ? openDirect(m.fd, m.prefix) : null;
+      streams.set(m.stream, { fd: m.fd, hash, direct });
+      directStreams += direct ? 1 : 0;
+      Atomics.store(state, 2, directStreams);
     } else if (m.type === 'write') {
       if (!failed) {
         const s = streams.get(m.stream);
         const bytes = new Uint8Array(m.buffer, m.offset, m.length);
-        let off = 0;
-        while (off < bytes.length) off += writeSync(s.fd, bytes, off, bytes.length - off, m.position + off);
+        if (s.direct) writeDirect(s, bytes, m.position);
+        else writeAll(s.fd, bytes, 0, bytes.length, m.position);
         s.hash.update(bytes);
       }
     } else if (m.type === 'sync') {
-      if (!failed) fsyncSync(streams.get(m.stream).fd);
+      if (!failed) {
+        const s = streams.get(m.stream);
+        settle(s);
+        fsyncSync(s.fd);
+      }
     } else if (m.type === 'digest') {
       const s = streams.get(m.stream);
       digest.set(s.hash.copy().digest());
     } else if (m.type === 'close') {
+      const s = streams.get(m.stream);
       streams.delete(m.stream);
+      if (s && !failed) closeStream(s);
+      else if (s && s.direct) { try { closeSync(s.direct.fd); } catch {} }
     } else if (m.type === 'checkpoint') {
       // the hashes now, in the order of the writes; the fsyncs run beside the writes that follow
       const open = [...streams.entries()].filter(([, s]) => !failed && s);
+      for (const [, s] of open) settle(s);
       const sha256 = open.map(([id, s]) => [id, s.hash.copy().digest('hex')]);
       Promise.all(open.map(([id, s]) => new Promise((resolve, reject) => fsync(s.fd, (e) => (e ? reject(Object.assign(e, { stream: id })) : resolve())))))
         .then(() => parentPort.postMessage({ checkpoint: m.id, sha256: failed ? null : sha256 }))
@@ -114,7 +239,7 @@ export class BackgroundWriteError extends Error {
 /** One worker thread writing and hashing the files of one recording. */
 export class BackgroundWriter {
   private readonly worker: Worker;
-  private readonly state = new Int32Array(new SharedArrayBuffer(8));
+  private readonly state = new Int32Array(new SharedArrayBuffer(12));
   private readonly digestBytes = new Uint8Array(new SharedArrayBuffer(32));
   private readonly errorBytes = new Uint8Array(new SharedArrayBuffer(1024));
   private seq = 0;
@@ -131,8 +256,12 @@ export class BackgroundWriter {
   /** Per stream: hands on what its sink still holds back (called before `syncAll`). */
   private readonly flushers = new Map<number, () => void>();
 
-  /** @param maxQueuedBytes bytes that may wait before `write` blocks (default `DEFAULT_QUEUED_BYTES`). */
-  constructor(readonly maxQueuedBytes = DEFAULT_QUEUED_BYTES) {
+  /**
+   * @param maxQueuedBytes bytes that may wait before `write` blocks (default `DEFAULT_QUEUED_BYTES`).
+   * @param diskWrites how files reach the disk (default `auto`; disk/write-mode.ts): with O_DIRECT from
+   *   an aligned stage of the worker's, or through the page cache.
+   */
+  constructor(readonly maxQueuedBytes = DEFAULT_QUEUED_BYTES, readonly diskWrites: DiskWriteMode = 'auto') {
     const execArgv = process.execArgv.filter((arg) => !arg.startsWith('--input-type'));
     this.worker = new Worker(WORKER_SOURCE, { eval: true, execArgv, workerData: { state: this.state.buffer, digest: this.digestBytes.buffer, error: this.errorBytes.buffer } });
     this.worker.unref();
@@ -194,8 +323,14 @@ export class BackgroundWriter {
     this.paths.set(stream, path);
     this.lengths.set(stream, prefix);
     if (flush) this.flushers.set(stream, flush);
-    this.post({ type: 'open', stream, fd, prefix }, 0);
+    this.post({ type: 'open', stream, fd, prefix, direct: wantsDirectWrites(path, this.diskWrites) }, 0);
     return stream;
+  }
+
+  /** Streams opened so far whose file takes O_DIRECT writes (after the open requests before this call are done). */
+  directStreams(): number {
+    this.waitFor(this.seq);
+    return Atomics.load(this.state, 2);
   }
 
   /**

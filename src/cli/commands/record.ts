@@ -10,6 +10,7 @@ import { UsageError } from '../../errors.js';
 import { finiteNumber, megabytes, nonNegativeInteger, positiveInteger } from '../options.js';
 import { parseShard } from '../../record/shard.js';
 import { parseCompression } from '../../snapshot/compression.js';
+import { parseDiskWriteMode } from '../../disk/write-mode.js';
 import { createProgressBar } from '../progress.js';
 import { cliIo } from '../io.js';
 
@@ -41,6 +42,7 @@ interface RecordCliOptions {
   resume?: boolean;
   shard?: string;
   checkpointEvery: number;
+  diskWrites?: string;
 }
 
 /** `sonde record MODEL --stimuli SRC --out DIR`: record a snapshot. */
@@ -76,6 +78,7 @@ export function registerRecord(program: Command): void {
     .option('--resume', 'continue an interrupted recording in --out from its last checkpoint (same options); a complete one is left alone')
     .option('--shard <K/N>', 'record only shard K of N of the stimuli (contiguous, balanced; 1-based K), e.g. $SLURM_ARRAY_TASK_ID/8')
     .option('--checkpoint-every <seconds>', 'seconds between resume checkpoints (0: after every batch)', finiteNumber, 2)
+    .option('--disk-writes <mode>', 'how layer files reach the disk: auto (default: O_DIRECT on local ext4/XFS/btrfs, the page cache elsewhere), direct or cached (keeps the written bytes in the page cache for an immediate re-read)')
     .action(async (modelPath: string, opts: RecordCliOptions) => {
       const io = cliIo();
       if (opts.keep !== 'full' && opts.keep !== 'channels') throw new UsageError('E_KEEP', `--keep must be "full" or "channels", got "${opts.keep}"`);
@@ -108,6 +111,7 @@ export function registerRecord(program: Command): void {
           ...(opts.resume ? { resume: true } : {}),
           ...(opts.shard !== undefined ? { shard: parseShard(opts.shard) } : {}),
           checkpointSeconds: opts.checkpointEvery,
+          ...(opts.diskWrites !== undefined ? { diskWrites: parseDiskWriteMode(opts.diskWrites) } : {}),
           onNotice: (text: string) => io.stderr(`sonde: ${text}\n`),
           onProgress: (p: { done: number; total: number; bytesWritten: number }) => bar.update(p.done, p.total, megabytes(p.bytesWritten)),
         } as const;
