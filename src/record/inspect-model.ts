@@ -6,6 +6,8 @@ import type { TensorLayout } from '../graph/layout.js';
 import { readSidecar, sidecarPath } from '../graph/sidecar.js';
 import { analyseGraph, weightLayerDepths, type GraphStructure } from '../graph/structure.js';
 import { weightlessModel } from '../graph/weightless.js';
+import { exposeTensors } from '../graph/instrument.js';
+import { inferOutputShapes } from '../session/network-session.js';
 import { probeTensors, type ProbedShapes, type ProbeOptions } from './probe-tensors.js';
 
 /** A tensor Sonde can record: a float32 node output whose first axis is the batch. */
@@ -84,11 +86,18 @@ export interface InspectOptions {
   inputShape?: number[];
   /** Layout declarations (tensor name → declaration) that override the graph; by default the sidecar's `layouts` (null: none). */
   layouts?: Readonly<Record<string, LayoutDeclaration>> | null;
+  /**
+   * Probe every tensor by running the model, even those whose shapes the runtime's shape inference
+   * fixes without a run (default false; the tests compare the two ways).
+   */
+  probeAll?: boolean;
 }
 
 /**
- * Loads a model and finds every recordable tensor with its per-stimulus shape, by probing a batch of
- * zeros with every node output exposed (in slices of about `PROBE_SESSION_BYTES`, src/record/probe-tensors.ts).
+ * Loads a model and finds every recordable tensor with its per-stimulus shape: from the runtime's shape
+ * inference where it fixes every dim (no run: a session over a weightless copy, created with no graph
+ * optimisation), else by probing a batch of zeros with the remaining node outputs exposed (in slices of
+ * about `PROBE_SESSION_BYTES`, src/record/probe-tensors.ts).
  * @throws UsageError when the input has dynamic non-batch axes and no `inputShape` is given, or when
  *   `inputShape` does not fit the declared input.
  */
@@ -112,7 +121,20 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
   const elements = probeShape.reduce((a, b) => a * b, 1);
   // the probe needs shapes only: a weightless copy of the model spares the runtime the weights
   const probeModel = weightlessModel(model);
-  const shapes = await probeWithWeightsAsFallback(model, probeModel, [...constants, ...allOutputs.filter((name) => dependent.has(name))], { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, { small: constants.length });
+  const names = [...constants, ...allOutputs.filter((name) => dependent.has(name))];
+  // what the runtime's shape inference fixes needs no run; the rest is probed
+  const inferred = options.probeAll ? new Map() : await inferredShapes(model, probeModel, names, inputShape);
+  const shapes: ProbedShapes = new Map();
+  const scalars = scalarConstants(model);
+  for (const name of names) {
+    const dims = concreteDims(inferred.get(name), model, probeBatch, scalars);
+    if (dims) shapes.set(name, { type: inferred.get(name)!.type, dims });
+  }
+  const rest = names.filter((name) => !shapes.has(name));
+  if (rest.length > 0) {
+    const probed = await probeWithWeightsAsFallback(model, probeModel, rest, { [model.input.name]: { data: new Float32Array(elements), dims: probeShape } }, { small: rest.filter((name) => !dependent.has(name)).length });
+    for (const [name, found] of probed) shapes.set(name, found);
+  }
   const declaredOutputs = new Set(model.outputs);
   const found: Array<Omit<LayerInfo, 'layout' | 'default'>> = [];
   const weightDepths = weightLayerDepths(structure);
@@ -129,7 +151,7 @@ export async function inspectModel(modelOrPath: string | LoadedModel, options: I
       found.push({ name, op: node.opType, depth: found.length, weightDepth: weightDepths.get(name) ?? 0, shape, elements: shape.reduce((a, b) => a * b, 1), isOutput: declaredOutputs.has(name) });
     }
   }
-  if (batchIsDynamic) await placeBatchAxes(model, probeModel, skippedTensors, probeShape, probeBatch);
+  if (batchIsDynamic) await placeBatchAxes(model, probeModel, skippedTensors, probeShape, probeBatch, inferred);
   const declared = options.layouts === undefined ? readSidecar(model.path)?.layouts : options.layouts ?? undefined;
   const layouts = inferLayouts(model, structure, {
     shapes: new Map(found.map((l) => [l.name, l.shape])),
@@ -174,15 +196,25 @@ export function describeSkippedTensor(t: SkippedTensor): string {
  * holds it (size B: the batch on that axis; size B·k: merged with an axis of k). Updates `reason` and
  * writes the batch axis into `dims` as `N` or `N·k`.
  */
-async function placeBatchAxes(model: LoadedModel, probeModel: LoadedModel, skipped: SkippedTensor[], probeShape: number[], probeBatch: number): Promise<void> {
+async function placeBatchAxes(model: LoadedModel, probeModel: LoadedModel, skipped: SkippedTensor[], probeShape: number[], probeBatch: number, inferred: InferredShapes): Promise<void> {
   const open = skipped.filter((t) => t.reason === 'batch' && t.dims !== undefined);
   if (open.length === 0) return;
   const shape = [probeBatch + 1, ...probeShape.slice(1)];
   const elements = shape.reduce((a, b) => a * b, 1);
+  // what shape inference fixed is known at one more stimulus too; the rest runs a second probe
+  const second: ProbedShapes = new Map();
+  for (const t of open) {
+    const dims = concreteDims(inferred.get(t.name), model, probeBatch + 1, new Set());
+    if (dims) second.set(t.name, { type: inferred.get(t.name)!.type, dims });
+  }
+  const rest = open.filter((t) => !second.has(t.name));
   // sizes known from the first probe, scaled to one more stimulus
-  const known = new Map(open.map((t) => [t.name, (t.dims!.reduce((a, d) => a * Number(d), 1) * 4 * (probeBatch + 1)) / probeBatch]));
+  const known = new Map(rest.map((t) => [t.name, (t.dims!.reduce((a, d) => a * Number(d), 1) * 4 * (probeBatch + 1)) / probeBatch]));
   const sizeOf = (name: string) => known.get(name);
-  const second = await probeWithWeightsAsFallback(model, probeModel, open.map((t) => t.name), { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, { sizeOf });
+  if (rest.length > 0) {
+    const probed = await probeWithWeightsAsFallback(model, probeModel, rest.map((t) => t.name), { [model.input.name]: { data: new Float32Array(elements), dims: shape } }, { sizeOf });
+    for (const [name, found] of probed) second.set(name, found);
+  }
   for (const t of open) {
     const before = t.dims!.map(Number);
     const after = second.get(t.name)?.dims;
@@ -197,6 +229,61 @@ async function placeBatchAxes(model: LoadedModel, probeModel: LoadedModel, skipp
     t.reason = k === 1 ? 'batch-later' : 'batch-merged';
     t.dims = t.dims!.map((d, i) => (i === axis ? (k === 1 ? 'N' : `N·${k}`) : d));
   }
+}
+
+/** Dims from the runtime's shape inference, some of them symbolic (`inferOutputShapes`). */
+type InferredShapes = Map<string, { name: string; type: string; dims: Array<number | string> }>;
+
+/** Outputs of Constant nodes whose value is a scalar (a tensor with no dims). */
+function scalarConstants(model: LoadedModel): Set<string> {
+  const out = new Set<string>();
+  for (const node of model.proto.graph?.node ?? []) {
+    if (node.opType !== 'Constant' || !node.output?.[0]) continue;
+    const value = node.attribute?.find((a) => a.name === 'value')?.t;
+    const floatOrInt = node.attribute?.find((a) => a.name === 'value_float' || a.name === 'value_int');
+    if ((value && (value.dims ?? []).length === 0) || floatOrInt) out.add(node.output[0]);
+  }
+  return out;
+}
+
+/**
+ * The runtime's shape inference over the weightless copy with `names` exposed (the model itself should
+ * the copy be refused), the input's free non-batch dims fixed to `inputShape`. An empty map when
+ * neither loads: the probe then finds every shape, and reports the failure.
+ */
+async function inferredShapes(model: LoadedModel, probeModel: LoadedModel, names: readonly string[], inputShape: number[]): Promise<InferredShapes> {
+  const fixedDims: Record<string, number> = {};
+  model.input.dims.forEach((d, i) => {
+    if (i > 0 && typeof d === 'string' && d !== '?' && d !== model.input.dims[0]) fixedDims[d] = inputShape[i]!;
+  });
+  for (const candidate of probeModel === model ? [model] : [probeModel, model]) {
+    try {
+      const found = await inferOutputShapes(exposeTensors(candidate, names), model.fileName, fixedDims);
+      return new Map([...found].map(([name, shape]) => [name, { name, ...shape }]));
+    } catch {
+      // the next candidate, or the probe
+    }
+  }
+  return new Map();
+}
+
+/**
+ * Inferred dims made concrete at a batch of `batch`: numbers stay, the input's named batch dim becomes
+ * `batch`; undefined when any other dim is symbolic (inference could not fix it: the probe must run).
+ * No dims at all is how the runtime reports a shape it knows nothing of, as well as a scalar's: taken
+ * as a scalar only for the outputs of Constant nodes whose value has no dims (`scalars`).
+ */
+function concreteDims(inferred: { name: string; dims: Array<number | string> } | undefined, model: LoadedModel, batch: number, scalars: ReadonlySet<string>): number[] | undefined {
+  if (!inferred) return undefined;
+  if (inferred.dims.length === 0) return scalars.has(inferred.name) ? [] : undefined;
+  const batchName = model.input.dims[0];
+  const dims: number[] = [];
+  for (const d of inferred.dims) {
+    if (typeof d === 'number' && Number.isInteger(d) && d >= 0) dims.push(d);
+    else if (typeof batchName === 'string' && batchName !== '?' && d === batchName) dims.push(batch);
+    else return undefined;
+  }
+  return dims;
 }
 
 /**

@@ -345,6 +345,32 @@ export async function probeOutputs(
   }
 }
 
+/**
+ * The element type and dims the runtime's shape inference gives every output of `bytes` (a model with
+ * the wanted tensors exposed as outputs), without running it: a session created with no graph
+ * optimisation, whose output metadata holds what inference found. Dims it could not fix stay symbolic
+ * (the input's batch name, or a name the runtime made up); `fixedDims` sets named free dims of the
+ * input (e.g. a dynamic height) before inference. Non-tensor outputs are left out.
+ * @throws RuntimeFailure E_RUNTIME_LOAD when the runtime refuses the model.
+ */
+export async function inferOutputShapes(bytes: Uint8Array, label: string, fixedDims: Record<string, number> = {}): Promise<Map<string, { type: string; dims: Array<number | string> }>> {
+  let session: ort.InferenceSession;
+  try {
+    session = await ort.InferenceSession.create(bytes, { executionProviders: ['cpu'], graphOptimizationLevel: 'disabled', freeDimensionOverrides: fixedDims, intraOpNumThreads: 1, logSeverityLevel: runtimeLogSeverity() });
+  } catch (error) {
+    throw new RuntimeFailure('E_RUNTIME_LOAD', `the ONNX runtime rejected ${label}: ${firstLine(error)}`, {
+      hint: 'check that the model is valid (onnx.checker) and uses operators the CPU runtime supports',
+    });
+  }
+  try {
+    const shapes = new Map<string, { type: string; dims: Array<number | string> }>();
+    for (const meta of session.outputMetadata) if (meta.isTensor) shapes.set(meta.name, { type: meta.type, dims: meta.shape.slice() });
+    return shapes;
+  } finally {
+    await session.release();
+  }
+}
+
 function firstLine(error: unknown): string {
   const message = error instanceof Error ? error.message : String(error);
   return message.split('\n')[0]!.trim();

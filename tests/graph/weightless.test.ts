@@ -59,13 +59,13 @@ describe('weightlessModel', () => {
     for (const t of graph.initializer ?? []) expect(keptNames.has(t.name!), t.name!).toBe(!large.includes(t));
   });
 
-  it('a model with its weights in an external file: the inspection of the weightless copy equals the probe with the weights (exact property)', async () => {
+  it.each([false, true])('a model with its weights in an external file: the inspection of the weightless copy (probeAll %s: every tensor run, not inferred) equals the probe with the weights (exact property)', async (probeAll) => {
     const folder = tempFolder();
     try {
       const path = join(folder, 'external.onnx');
       writeFileSync(path, externalise(buildTinyNet({ widths: [8, 16, 16], residual: true, bias: true, externalData: false }), folder));
       const model = loadModel(path);
-      const inspection = await inspectModel(model);
+      const inspection = await inspectModel(model, { probeAll });
       // the same tensors probed with the weights inlined by loadModel, every output exposed at once
       const names = analyseGraph(model).nodes.flatMap((n) => n.outputs);
       const dims = [inspection.probeBatch, ...inspection.input.shape.slice(1)];
