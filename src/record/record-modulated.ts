@@ -312,6 +312,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     const rowBytes = runRowBytes(injected, (name) => elements(name.endsWith('::raw') ? name.slice(0, -5) : name), { fed, fetched: fetch });
     const rowsPerCall = evenRows(batchRows, rowsWithin(runBytesOption(options.runBytes), rowBytes, batchRows));
     const session = await createNetworkSession(exposeTensors(injected, fetch), { threads: options.threads ?? 0, label: `${run.model.fileName} (downstream part)` });
+    const setupSeconds = (performance.now() - started) / 1000;
     const firstIndex = baseline.firstIndex;
     const streams = tail.boundary.map((name) => baseline.readLayer(name, doneRows > 0 ? { range: [firstIndex + doneRows, firstIndex + count] } : {}));
     const rows = new BoundaryRows(streams, tail.boundary, tail.boundary.map((name) => byName.get(name)!.elements), options.from!);
@@ -370,7 +371,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     removeProgress(folder);
     const notice = nonFiniteNotice(manifest);
     if (notice) options.onNotice?.(notice);
-    return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: count, layers: manifest.layers.length, bytesWritten: total, wallSeconds, stimuliPerSecond: (count - doneRows) / wallSeconds };
+    return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: count, layers: manifest.layers.length, bytesWritten: total, wallSeconds, setupSeconds, stimuliPerSecond: (count - doneRows) / wallSeconds };
   } catch (error) {
     for (const writer of writers) writer.suspend();
     throw markIncomplete(folder, manifest, error);

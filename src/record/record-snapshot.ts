@@ -159,6 +159,8 @@ export interface RecordSummary {
   layers: number;
   bytesWritten: number;
   wallSeconds: number;
+  /** Seconds from the start until the runtime session was ready for the first batch (model loading, inspection, session creation). */
+  setupSeconds: number;
   stimuliPerSecond: number;
 }
 
@@ -390,6 +392,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     const fetch = castInGraph ? [...names.map(halfOutputName), ...names.map(meansOutputName)] : names;
     const geometries = selected.map((l) => layoutGeometry(l.shape, l.layout));
     const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
+    const setupSeconds = (performance.now() - run.started) / 1000;
     let bytesWritten = 0;
     try {
       const calls = runtimeCalls(doneRows, rowsTotal, batch, callRows({ model: run.model, fetched: names, inputElements: run.channels * run.height * run.width, elements: run.elements, batch, fixedBatch, runBytes: options.runBytes }));
@@ -455,7 +458,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     removeProgress(folder);
     const notice = nonFiniteNotice(manifest);
     if (notice) options.onNotice?.(notice);
-    return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: rowsTotal, layers: selected.length, bytesWritten: total, wallSeconds, stimuliPerSecond: (rowsTotal - doneRows) / wallSeconds };
+    return { folder, manifest, ...(options.resume ? { resumed: doneRows } : {}), stimuli: rowsTotal, layers: selected.length, bytesWritten: total, wallSeconds, setupSeconds, stimuliPerSecond: (rowsTotal - doneRows) / wallSeconds };
   } catch (error) {
     // keep the partial files and the last checkpoint: `--resume` continues from there
     for (const writer of writers) writer.suspend();
@@ -503,7 +506,7 @@ export function settleOutputFolder(opened: OpenedOutput, manifest: SnapshotManif
     assertSameRecording(opened.complete, manifest, folder);
     removeProgress(folder);
     onNotice?.(`${displayPath(folder)} already holds this complete snapshot; nothing to resume`);
-    return { done: { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, stimuliPerSecond: 0 } };
+    return { done: { folder, manifest: opened.complete, resumed: 'complete', stimuli: opened.complete.stimuli.count, layers: opened.complete.layers.length, bytesWritten: 0, wallSeconds: 0, setupSeconds: 0, stimuliPerSecond: 0 } };
   }
   if (!opened.resume) return { checkpoint: null };
   assertSameRecording(opened.resume.manifest, manifest, folder);
