@@ -124,6 +124,12 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
       'default float16': { dtype: 'float16' },
       'default float16 converted in JavaScript': { dtype: 'float16', float16InGraph: false },
     };
+    // before each timed run: the garbage of the last one collected (node --expose-gc, as `npm run bench`
+    // starts it) and a moment for its freed memory to go back, so no run pays for another's
+    const settle = async (): Promise<void> => {
+      (globalThis as { gc?: () => void }).gc?.();
+      await new Promise((resolve) => setTimeout(resolve, 300));
+    };
     await infer(bareSession); // warm-up
     await record({});
     const times: Record<string, number[]> = { bare: [], exposed: [], fetched: [], fsync: [], setup: [], setupAll: [], sha256: [], pageCache: [] };
@@ -132,10 +138,16 @@ export async function benchRecordOverhead(): Promise<BenchResult> {
       times['fsync']!.push(fsyncWriteRate(work.folder));
       times['pageCache']!.push(pageCacheWriteRate(work.folder));
       times['sha256']!.push(sha256Rate());
+      await settle();
       times['bare']!.push(await infer(bareSession, [logits], cpu.bare));
+      await settle();
       times['exposed']!.push(await infer(exposedSession));
+      await settle();
       times['fetched']!.push(await infer(fetchingSession, defaultNames, cpu.fetched));
-      for (const [name, options] of Object.entries(variants)) {
+      // each repeat starts at another variant, so that none is always the first after the inference runs
+      const order = Object.entries(variants);
+      for (const [name, options] of [...order.slice((r * 3) % order.length), ...order.slice(0, (r * 3) % order.length)]) {
+        await settle();
         const result = await record(options);
         (times[name] ??= []).push(result.seconds);
         bytes[name] = result.bytes;
