@@ -324,9 +324,9 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
         const resumeSha256 = checkpointSha256(folder, checkpoint, file);
         // killed after the file was finished and renamed, before the manifest was: take it back
         if (!existsSync(`${path}.partial`) && existsSync(path)) renameSync(path, `${path}.partial`);
-        writers.push(new LayerFileWriter(path, layout, { resumeAt: at, resumeSha256, ...(background ? { background } : {}) }));
+        writers.push(new LayerFileWriter(path, layout, { resumeAt: at, resumeSha256, ...(background ? { background, rowsPerWrite: batch } : {}) }));
         if (writers[i]!.rows !== doneRows) throw new RuntimeFailure('E_RESUME', `${path}.partial holds ${writers[i]!.rows} rows at the checkpoint, expected ${doneRows}`, { hint: 'record again without --resume' });
-      } else writers.push(new LayerFileWriter(path, layout, background ? { background } : {}));
+      } else writers.push(new LayerFileWriter(path, layout, background ? { background, rowsPerWrite: batch } : {}));
     });
     // NaN/±Inf counts: per layer as written, per stimulus row as fed (the feeds run one batch ahead)
     const tally = checkpoint && !checkpoint.nonFinite ? null : new NonFiniteTally(checkpoint?.nonFinite);

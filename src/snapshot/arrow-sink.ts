@@ -44,11 +44,11 @@ export class HashingFileSink extends AsyncByteQueue {
    *   anything after them) and append after them; `resumeSha256`: the SHA-256 those bytes had at the
    *   checkpoint (from `prefixSha256`), checked before anything is truncated; `unique`: see above;
    *   `background`: write and hash on that writer's thread (see background-writer.ts) instead of the
-   *   caller's.
+   *   caller's; `writeBytes`: the usual size of one write, for that writer's choice of direct writes.
    * @throws RuntimeFailure when the file cannot be opened, or (resuming) is missing, shorter than
    *   `resumeAt`, or its first `resumeAt` bytes no longer have the checkpoint's SHA-256.
    */
-  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string; unique?: boolean; background?: BackgroundWriter } = {}) {
+  constructor(readonly finalPath: string, options: { resumeAt?: number; resumeSha256?: string; unique?: boolean; background?: BackgroundWriter; writeBytes?: number } = {}) {
     super();
     this.temporaryPath = options.unique ? uniqueTemporary(finalPath) : `${finalPath}.partial`;
     this.background = options.background ?? null;
@@ -60,7 +60,7 @@ export class HashingFileSink extends AsyncByteQueue {
       } catch (error) {
         throw writeFailure(this.temporaryPath, error);
       }
-      if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, 0, () => this.handOver());
+      if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, 0, () => this.handOver(), options.writeBytes);
       return;
     }
     try {
@@ -101,7 +101,7 @@ export class HashingFileSink extends AsyncByteQueue {
       throw writeFailure(this.temporaryPath, error);
     }
     this.bytesWritten = resumeAt;
-    if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, resumeAt, () => this.handOver());
+    if (this.background) this.stream = this.background.open(this.fd, this.temporaryPath, resumeAt, () => this.handOver(), options.writeBytes);
   }
 
   /** SHA-256 (hex) of the bytes written so far (the file stays open; hashing continues). */

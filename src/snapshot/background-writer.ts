@@ -24,7 +24,7 @@ export const DEFAULT_QUEUED_BYTES = 128 * 2 ** 20;
 // Plain CommonJS evaluated from a string, so it runs the same from compiled code and under the test runner.
 const WORKER_SOURCE = `
 const { parentPort, workerData } = require('node:worker_threads');
-const { writeSync, fsyncSync, readSync, fsync, openSync, closeSync, ftruncateSync, constants } = require('node:fs');
+const { write, writeSync, fsyncSync, readSync, fsync, openSync, closeSync, ftruncateSync, constants } = require('node:fs');
 const { createHash } = require('node:crypto');
 const state = new Int32Array(workerData.state);
 const digest = new Uint8Array(workerData.digest);
@@ -41,18 +41,36 @@ function fail(e, stream) {
   Atomics.store(state, 1, 1);
 }
 // fsync of every open file at once: the file system can commit them together
-function syncAll() {
+async function syncAll() {
+  await drainAll();
   for (const s of streams.values()) settle(s);
   return Promise.all([...streams.entries()].map(([id, s]) => new Promise((resolve, reject) => fsync(s.fd, (e) => (e ? reject(Object.assign(e, { stream: id })) : resolve())))));
 }
 // Direct writes (disk/write-mode.ts): a second descriptor of the file, opened with O_DIRECT, takes whole
-// blocks at block-aligned positions from one aligned stage shared by every stream. Each stream keeps
-// only its last part-block (its tail, under BLOCK bytes) between writes; the next write sends the tail
-// and the new bytes on together, so that block is written again, whole. settle() puts a tail on disk,
-// padded to a block, and truncates the file back to its true length.
+// blocks at block-aligned positions from a few aligned stages shared by every stream, written
+// asynchronously (the device works while this thread hashes and stages the next bytes; a full set of
+// stages in flight makes the next write wait). Each stream keeps only its last part-block (its tail,
+// under BLOCK bytes) between writes; the next write sends the tail and the new bytes on together, so
+// that block is written again, whole. settle() puts a tail on disk, padded to a block, and truncates the
+// file back to its true length; it and every fsync first wait for the stream's writes in flight.
 const BLOCK = 4096;
-const DIRECT_STAGE = 16 << 20;
-let stage = null; // the aligned stage: DIRECT_STAGE bytes inside a larger allocation
+const STAGE_BYTES = 8 << 20;
+// three in flight at most: libuv's pool has four threads, and compression shares them
+const STAGES = 3;
+let pool = null; // { raw, offset }: STAGES aligned stages inside one allocation
+const freeStages = [];
+const stageWaiters = [];
+function stage(i) {
+  return pool.raw.subarray(pool.offset + i * STAGE_BYTES, pool.offset + (i + 1) * STAGE_BYTES);
+}
+function acquireStage() {
+  return freeStages.length > 0 ? Promise.resolve(freeStages.pop()) : new Promise((resolve) => stageWaiters.push(resolve));
+}
+function releaseStage(i) {
+  const waiter = stageWaiters.shift();
+  if (waiter) waiter(i);
+  else freeStages.push(i);
+}
 function writeAll(fd, bytes, offset, length, position) {
   let done = 0;
   while (done < length) done += writeSync(fd, bytes, offset + done, length - done, position + done);
@@ -61,7 +79,7 @@ function writeAll(fd, bytes, offset, length, position) {
 // JavaScript cannot ask for: the first offset into an over-allocated buffer whose write of one block
 // the file system accepts is aligned. Each file's probe writes back the file's own bytes of its last
 // block (the bytes before prefix), then truncates the file to prefix again.
-function openDirect(fd, prefix) {
+function openDirect(fd, prefix, id) {
   if (process.platform !== 'linux' || !constants.O_DIRECT) return null;
   let dfd;
   try {
@@ -80,8 +98,8 @@ function openDirect(fd, prefix) {
     if (n <= 0) break;
     got += n;
   }
-  const raw = stage ? stage.raw : Buffer.allocUnsafeSlow(DIRECT_STAGE + BLOCK);
-  const offsets = stage ? [stage.offset] : Array.from({ length: BLOCK / 16 }, (_, i) => i * 16);
+  const raw = pool ? pool.raw : Buffer.allocUnsafeSlow(STAGES * STAGE_BYTES + BLOCK);
+  const offsets = pool ? [pool.offset] : Array.from({ length: BLOCK / 16 }, (_, i) => i * 16);
   for (const k of offsets) {
     raw.set(tail, k);
     try {
@@ -91,23 +109,61 @@ function openDirect(fd, prefix) {
       break;
     }
     ftruncateSync(fd, prefix);
-    if (!stage) stage = { raw, offset: k, bytes: raw.subarray(k, k + DIRECT_STAGE) };
-    return { fd: dfd, start, tail, fill: prefix - start, settled: prefix - start };
+    if (!pool) {
+      pool = { raw, offset: k };
+      for (let i = STAGES - 1; i >= 0; i--) freeStages.push(i);
+    }
+    return { fd: dfd, start, tail, fill: prefix - start, settled: prefix - start, inFlight: 0, drained: [], id };
   }
   closeSync(dfd);
   return null;
 }
+// the stream's writes in flight are done (their failure, if any, is already recorded)
+function drain(s) {
+  const d = s.direct;
+  if (!d || d.inFlight === 0) return Promise.resolve();
+  return new Promise((resolve) => d.drained.push(resolve));
+}
+function drainAll() {
+  return Promise.all([...streams.values()].map(drain));
+}
+function issue(d, i, length, position) {
+  d.inFlight++;
+  write(d.fd, stage(i), 0, length, position, (e, written) => {
+    try {
+      if (!e && written < length) writeAll(d.fd, stage(i), written, length - written, position + written);
+    } catch (retry) {
+      e = retry;
+    }
+    releaseStage(i);
+    if (e && !failed) fail(e, d.id);
+    if (--d.inFlight === 0) for (const resolve of d.drained.splice(0)) resolve();
+  });
+}
 // the stream's tail reaches the file: one block, padded, then the file truncated to its true length
+// (after drain: nothing of the stream is in flight)
 function settle(s) {
   const d = s.direct;
   if (!d || d.fill === d.settled) return;
-  stage.bytes.set(d.tail.subarray(0, d.fill), 0);
-  stage.bytes.fill(0, d.fill, BLOCK);
-  writeAll(d.fd, stage.bytes, 0, BLOCK, d.start);
+  const i = freeStages.pop();
+  const S = i === undefined ? null : stage(i);
+  try {
+    if (S) {
+      S.set(d.tail.subarray(0, d.fill), 0);
+      S.fill(0, d.fill, BLOCK);
+      writeAll(d.fd, S, 0, BLOCK, d.start);
+    } else {
+      // every stage is another stream's write in flight: this tail goes through the page cache
+      writeAll(s.fd, d.tail, d.settled, d.fill - d.settled, d.start + d.settled);
+    }
+  } finally {
+    if (i !== undefined) releaseStage(i);
+  }
   ftruncateSync(s.fd, d.start + d.fill);
   d.settled = d.fill;
 }
 // back to writes through the page cache (a write out of sequence): the tail's unsettled bytes first
+// (after drain)
 function leaveDirect(s) {
   const d = s.direct;
   s.direct = null;
@@ -117,39 +173,40 @@ function leaveDirect(s) {
     closeSync(d.fd);
   }
 }
-function writeDirect(s, bytes, position) {
+async function writeDirect(s, bytes, position) {
   const d = s.direct;
   if (position !== d.start + d.fill) {
+    await drain(s);
     leaveDirect(s);
     writeAll(s.fd, bytes, 0, bytes.length, position);
     return;
   }
-  const S = stage.bytes;
-  S.set(d.tail.subarray(0, d.fill), 0);
-  let n = d.fill;
   let at = 0;
-  for (;;) {
-    const take = Math.min(bytes.length - at, DIRECT_STAGE - n);
-    S.set(bytes.subarray(at, at + take), n);
-    n += take;
+  // the tail and the new bytes, a stage at a time: whole blocks go to the device, the last part-block
+  // becomes the tail
+  while (d.fill + (bytes.length - at) >= BLOCK) {
+    const i = await acquireStage();
+    const S = stage(i);
+    S.set(d.tail.subarray(0, d.fill), 0);
+    const take = Math.min(bytes.length - at, STAGE_BYTES - d.fill);
+    S.set(bytes.subarray(at, at + take), d.fill);
     at += take;
+    const n = d.fill + take;
     const whole = n - (n % BLOCK);
-    if (whole > 0) {
-      writeAll(d.fd, S, 0, whole, d.start);
-      d.start += whole;
-      d.settled = 0;
-    }
-    if (at === bytes.length) {
-      d.tail.set(S.subarray(whole, n), 0);
-      d.fill = n - whole;
-      return;
-    }
-    n = 0; // the stage was full: DIRECT_STAGE is whole blocks
+    d.tail.set(S.subarray(whole, n), 0);
+    const position = d.start;
+    d.start += whole;
+    d.fill = n - whole;
+    d.settled = 0;
+    issue(d, i, whole, position);
   }
+  d.tail.set(bytes.subarray(at), d.fill);
+  d.fill += bytes.length - at;
 }
-function closeStream(s) {
+async function closeStream(s) {
   if (!s.direct) return;
   try {
+    await drain(s);
     settle(s);
   } finally {
     closeSync(s.direct.fd);
@@ -167,7 +224,7 @@ parentPort.on('message', (m) => {
   }
   queue = queue.then(() => handle(m));
 });
-function handle(m) {
+async function handle(m) {
   try {
     if (m.type === 'open') {
       const hash = createHash('sha256');
@@ -179,7 +236,7 @@ function handle(m) {
         hash.update(chunk.subarray(0, n));
         at += n;
       }
-      const direct = m.direct ? openDirect(m.fd, m.prefix) : null;
+      const direct = m.direct ? openDirect(m.fd, m.prefix, m.stream) : null;
       streams.set(m.stream, { fd: m.fd, hash, direct });
       directStreams += direct ? 1 : 0;
       Atomics.store(state, 2, directStreams);
@@ -187,13 +244,14 @@ function handle(m) {
       if (!failed) {
         const s = streams.get(m.stream);
         const bytes = new Uint8Array(m.buffer, m.offset, m.length);
-        if (s.direct) writeDirect(s, bytes, m.position);
+        if (s.direct) await writeDirect(s, bytes, m.position);
         else writeAll(s.fd, bytes, 0, bytes.length, m.position);
         s.hash.update(bytes);
       }
     } else if (m.type === 'sync') {
       if (!failed) {
         const s = streams.get(m.stream);
+        await drain(s);
         settle(s);
         fsyncSync(s.fd);
       }
@@ -203,10 +261,14 @@ function handle(m) {
     } else if (m.type === 'close') {
       const s = streams.get(m.stream);
       streams.delete(m.stream);
-      if (s && !failed) closeStream(s);
-      else if (s && s.direct) { try { closeSync(s.direct.fd); } catch {} }
+      if (s && !failed) await closeStream(s);
+      else if (s && s.direct) {
+        await drain(s);
+        try { closeSync(s.direct.fd); } catch {}
+      }
     } else if (m.type === 'checkpoint') {
       // the hashes now, in the order of the writes; the fsyncs run beside the writes that follow
+      await drainAll();
       const open = [...streams.entries()].filter(([, s]) => !failed && s);
       for (const [, s] of open) settle(s);
       const sha256 = open.map(([id, s]) => [id, s.hash.copy().digest('hex')]);
@@ -315,15 +377,16 @@ export class BackgroundWriter {
   /**
    * Starts a stream on an open file descriptor (`path` names it in errors; `flush` hands on chunks its
    * sink holds back, before `syncAll`) whose first `prefix` bytes are already in the file (0 for
-   * a new file); the worker hashes that prefix again before anything is appended.
+   * a new file); the worker hashes that prefix again before anything is appended. `writeBytes`, the
+   * usual size of one write when known, lets `auto` keep small writers on the page cache.
    * @returns the stream's id for the other calls.
    */
-  open(fd: number, path: string, prefix = 0, flush?: () => void): number {
+  open(fd: number, path: string, prefix = 0, flush?: () => void, writeBytes?: number): number {
     const stream = this.nextStream++;
     this.paths.set(stream, path);
     this.lengths.set(stream, prefix);
     if (flush) this.flushers.set(stream, flush);
-    this.post({ type: 'open', stream, fd, prefix, direct: wantsDirectWrites(path, this.diskWrites) }, 0);
+    this.post({ type: 'open', stream, fd, prefix, direct: wantsDirectWrites(path, this.diskWrites, writeBytes) }, 0);
     return stream;
   }
 

@@ -107,11 +107,13 @@ export class LayerFileWriter {
    * @param options `resumeAt`: continue an interrupted `path.partial` after its first `resumeAt` bytes
    *   (a checkpoint from `checkpoint()`); the rows already there count in `rows`. `resumeSha256`: the
    *   SHA-256 of those bytes at the checkpoint (`checkpointSha256()`), verified before resuming.
-   *   `background`: write and hash on that writer's thread (background-writer.ts).
+   *   `background`: write and hash on that writer's thread (background-writer.ts); `rowsPerWrite`: rows
+   *   each `write` will usually bring (the batch), from which that writer judges whether the file's
+   *   writes are large enough to go to the disk directly (disk/write-mode.ts).
    * @throws RuntimeFailure when the file cannot be created, or the partial file does not hold complete
    *   record batches up to `resumeAt`, or those bytes do not have `resumeSha256`.
    */
-  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string; background?: BackgroundWriter } = {}) {
+  constructor(path: string, layout: LayerFileLayout, options: { resumeAt?: number; resumeSha256?: string; background?: BackgroundWriter; rowsPerWrite?: number } = {}) {
     this.layout = layout;
     this.path = path;
     this.schema = layerSchema(layout);
@@ -121,12 +123,15 @@ export class LayerFileWriter {
     const compressionType = arrowCompressionType(layout.compression ?? 'none');
     if (compressionType !== null) registerArrowCodecs();
     this.writer = new ResumableFileWriter(compressionType !== null ? { compressionType } : undefined);
+    // bytes one write of `rowsPerWrite` rows brings, uncompressed (what the direct-write choice looks at)
+    const writeBytes = options.rowsPerWrite === undefined ? undefined : options.rowsPerWrite * (layout.keep === 'full' ? this.elements * (layout.dtype === 'float16' ? 2 : 4) : this.channels * 4);
+    const background = options.background ? { background: options.background, ...(writeBytes !== undefined ? { writeBytes } : {}) } : {};
     if (options.resumeAt === undefined) {
-      this.sink = new HashingFileSink(path, options.background ? { background: options.background } : {});
+      this.sink = new HashingFileSink(path, background);
       this.writer.reset(this.sink, this.schema);
     } else {
       const scanned = scanRecordBatches(`${path}.partial`, options.resumeAt);
-      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt, ...(options.resumeSha256 !== undefined ? { resumeSha256: options.resumeSha256 } : {}), ...(options.background ? { background: options.background } : {}) });
+      this.sink = new HashingFileSink(path, { resumeAt: options.resumeAt, ...(options.resumeSha256 !== undefined ? { resumeSha256: options.resumeSha256 } : {}), ...background });
       this.writer.resume(this.sink, this.schema, options.resumeAt, scanned.blocks);
       this.rows = scanned.rows.reduce((a, b) => a + b, 0);
     }

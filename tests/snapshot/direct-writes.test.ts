@@ -67,6 +67,31 @@ describe('direct disk writes', () => {
     }
   });
 
+  it('direct: five files written in turn (more streams than writes in flight), synced one by one and all at once, each hold exactly their bytes', async () => {
+    const background = new BackgroundWriter(8 * MiB, 'direct');
+    try {
+      const sinks = [0, 1, 2, 3, 4].map((k) => new HashingFileSink(join(dir, `turns-${k}.bin`), { background }));
+      const parts: Uint8Array[][] = sinks.map(() => []);
+      for (let round = 0; round < 6; round++) {
+        sinks.forEach((sink, k) => {
+          const part = bytes(100 + round * 5 + k, (round % 2 === 0 ? 3 * MiB : 5000) + 17 * k + round);
+          parts[k]!.push(part.slice());
+          sink.write(part);
+        });
+        if (round === 2) sinks[1]!.sync(); // one stream's sync while the others' writes are in flight
+        if (round === 4) background.syncAll();
+      }
+      sinks.forEach((sink, k) => {
+        const all = concat(parts[k]!);
+        const result = sink.commit();
+        expect(result.sha256).toBe(createHash('sha256').update(all).digest('hex'));
+        expect(readFileSync(join(dir, `turns-${k}.bin`)).equals(Buffer.from(all)), `file ${k}`).toBe(true);
+      });
+    } finally {
+      await background.terminate();
+    }
+  });
+
   it('direct: a file resumed at a prefix that ends mid-block continues to the same bytes and SHA-256 as one written in one go', async () => {
     const whole = bytes(42, 3 * MiB + 1234);
     const cut = 2 * MiB + 777; // not a multiple of 4096
