@@ -13,6 +13,11 @@
  * it finished (and an error, if one happened), and the caller waits on it with `Atomics.wait` at the few
  * points that need a result — a checkpoint's fsync and hash, the end of a file. The API therefore stays
  * synchronous, as the single-threaded sink's is.
+ *
+ * Files on local disk file systems (disk/write-mode.ts) go to the device with O_DIRECT: the worker
+ * stages whole aligned blocks and keeps up to three writes in flight, so the kernel copies nothing into
+ * the page cache; a write request then counts as done once its bytes are staged and hashed, and every
+ * sync, checkpoint and close first waits for that file's writes in flight.
  */
 import { Worker } from 'node:worker_threads';
 import { writeFailure } from '../disk/write-failure.js';
