@@ -8,5 +8,7 @@ export default defineConfig({
     // onnxruntime-node and nodejs-polars are native addons: forks isolate them more reliably than threads.
     pool: 'forks',
     maxWorkers: 2,
+    // one temporary folder per run, removed at its end (tests/helpers/test-tmpdir.ts)
+    globalSetup: ['tests/helpers/test-tmpdir.ts'],
   },
 });
