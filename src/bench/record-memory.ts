@@ -14,18 +14,22 @@ import { execFileSync } from 'node:child_process';
 import { mkdirSync } from 'node:fs';
 import { join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
+import { withHugePageMalloc } from '../malloc-huge-pages.js';
 import { benchStimuli, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
 
-/** Runs `body` (an async function body; `dist` is the compiled package folder URL) in a fresh Node process and returns its peak RSS in MB. */
+/**
+ * Runs `body` (an async function body; `dist` is the compiled package folder URL) in a fresh Node process
+ * and returns its peak RSS in MB. The process gets malloc on huge pages, as `bin/sonde` gives every command.
+ */
 function peakRss(body: string): number {
   const dist = new URL('../', import.meta.url).href;
   const script = `const dist = ${JSON.stringify(dist)};
 await (async () => { ${body} })();
 process.stdout.write(JSON.stringify({ maxRssKb: process.resourceUsage().maxRSS }));`;
-  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'] }).toString();
+  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withHugePageMalloc() }).toString();
   return (JSON.parse(out) as { maxRssKb: number }).maxRssKb / 1024;
 }
 
@@ -82,7 +86,7 @@ await recordSnapshot({ model: ${js(model)}, stimuli: ${js(s.path)}, out: ${js(ou
       description: `peak RSS of record vs bare inference, ${loaded.fileName} at ${size} px, batch ${batch}, ${THREADS} threads, stimulus counts ${counts.join(' and ')}`,
       figures,
       targets,
-      notes: ['each figure from a fresh child process (process.resourceUsage().maxRSS)'],
+      notes: [`each figure from a fresh child process (process.resourceUsage().maxRSS), malloc on transparent huge pages as bin/sonde runs (GLIBC_TUNABLES=${withHugePageMalloc()['GLIBC_TUNABLES']})`],
     };
   } finally {
     work.dispose();

@@ -1,0 +1,101 @@
+/**
+ * What malloc on transparent huge pages (`bin/sonde`'s glibc.malloc.hugetlb=1, src/malloc-huge-pages.ts)
+ * does to a recording: the same record in fresh child processes, alternately with glibc.malloc.hugetlb=0
+ * and =1 in GLIBC_TUNABLES — wall time of the whole process (Node.js start, model loading, set-up,
+ * inference, writes), user and kernel CPU time, peak RSS — and bare inference of the same model both
+ * ways, which should not move.
+ *
+ * Default: the residual reference model, 1024 stimuli 3×64×64, batch 8. SONDE_BENCH_RECORD_MODEL (e.g. a
+ * seeded torchvision VGG16 at 224 px), SONDE_BENCH_RECORD_STIMULI, SONDE_BENCH_RECORD_BATCH and
+ * SONDE_BENCH_RECORD_REPEATS resize it, as for record-overhead.
+ */
+import { execFileSync } from 'node:child_process';
+import { join } from 'node:path';
+import { loadModel } from '../graph/load-model.js';
+import { transparentHugePageMode, withHugePageSetting } from '../malloc-huge-pages.js';
+import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import type { BenchResult } from './types.js';
+
+const THREADS = 2;
+
+interface ChildRun {
+  seconds: number;
+  user: number;
+  system: number;
+  rssMb: number;
+}
+
+/** Runs `body` (an async function body; `dist` is the compiled package folder URL) in a fresh Node.js process with huge pages `on` or off. */
+function childRun(body: string, on: boolean): ChildRun {
+  const dist = new URL('../', import.meta.url).href;
+  const script = `const dist = ${JSON.stringify(dist)};
+await (async () => { ${body} })();
+const u = process.resourceUsage();
+process.stdout.write(JSON.stringify({ user: u.userCPUTime / 1e6, system: u.systemCPUTime / 1e6, rssMb: u.maxRSS / 1024 }));`;
+  const start = performance.now();
+  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withHugePageSetting(on) }).toString();
+  return { seconds: (performance.now() - start) / 1000, ...(JSON.parse(out) as Omit<ChildRun, 'seconds'>) };
+}
+
+const js = (value: unknown): string => JSON.stringify(value);
+
+export async function benchRecordHugePages(): Promise<BenchResult> {
+  const model = process.env['SONDE_BENCH_RECORD_MODEL'] || join(REFERENCE_FIXTURES, 'residual.onnx');
+  const stimuliCount = Number(process.env['SONDE_BENCH_RECORD_STIMULI'] || 1024);
+  const batch = Number(process.env['SONDE_BENCH_RECORD_BATCH'] || 8);
+  const repeats = Number(process.env['SONDE_BENCH_RECORD_REPEATS'] || 3);
+  const loaded = loadModel(model);
+  const size = typeof loaded.input.dims[2] === 'number' ? loaded.input.dims[2] : 224;
+  const work = scratch('sonde-bench-huge-pages-');
+  try {
+    const { path } = benchStimuli(work.folder, stimuliCount, size);
+    const out = join(work.folder, 'snap');
+    const record = `const { recordSnapshot } = await import(dist + 'record/record-snapshot.js');
+await recordSnapshot({ model: ${js(model)}, stimuli: ${js(path)}, out: ${js(out)}, batch: ${batch}, threads: ${THREADS} });
+(await import('node:fs')).rmSync(${js(out)}, { recursive: true, force: true });`;
+    const bare = `const { readFileSync } = await import('node:fs');
+const { createNetworkSession } = await import(dist + 'session/network-session.js');
+const { parseNpy } = await import(dist + 'stimuli/npy.js');
+const x = parseNpy(readFileSync(${js(path)}));
+const per = x.data.length / x.shape[0];
+const session = await createNetworkSession(readFileSync(${js(model)}), { threads: ${THREADS} });
+for (let first = 0; first < x.shape[0]; first += ${batch}) {
+  const rows = Math.min(${batch}, x.shape[0] - first);
+  await session.run({ ${js(loaded.input.name)}: { data: x.data.slice(first * per, (first + rows) * per), dims: [rows, ...x.shape.slice(1)] } });
+}
+await session.close();`;
+    childRun(record, true); // warm-up: the model and stimuli in the page cache
+    const runs: Record<string, ChildRun[]> = { 'record 4 KiB': [], 'record huge': [], 'bare 4 KiB': [], 'bare huge': [] };
+    for (let r = 0; r < repeats; r++) {
+      // alternate which goes first, so neither always follows the other
+      for (const on of r % 2 === 0 ? [false, true] : [true, false]) runs[`record ${on ? 'huge' : '4 KiB'}`]!.push(childRun(record, on));
+      for (const on of r % 2 === 0 ? [false, true] : [true, false]) runs[`bare ${on ? 'huge' : '4 KiB'}`]!.push(childRun(bare, on));
+    }
+    const m = (name: string, key: keyof ChildRun) => median(runs[name]!.map((run) => run[key]));
+    return {
+      name: 'record-huge-pages',
+      description: `record with malloc on 4 KiB vs transparent huge pages (glibc.malloc.hugetlb=0 / =1; kernel THP mode: ${transparentHugePageMode() ?? 'unknown'}), ${loaded.fileName}, ${stimuliCount} stimuli 3×${size}×${size}, batch ${batch}, ${THREADS} threads, each run a fresh process, median of ${repeats}`,
+      figures: {
+        'record, 4 KiB pages s': m('record 4 KiB', 'seconds'),
+        'record, huge pages s': m('record huge', 'seconds'),
+        'huge-page gain (4 KiB / huge)': m('record 4 KiB', 'seconds') / m('record huge', 'seconds'),
+        'record kernel CPU, 4 KiB pages s': m('record 4 KiB', 'system'),
+        'record kernel CPU, huge pages s': m('record huge', 'system'),
+        'record user CPU, 4 KiB pages s': m('record 4 KiB', 'user'),
+        'record user CPU, huge pages s': m('record huge', 'user'),
+        'record peak RSS, 4 KiB pages MB': m('record 4 KiB', 'rssMb'),
+        'record peak RSS, huge pages MB': m('record huge', 'rssMb'),
+        'bare inference process, 4 KiB pages s': m('bare 4 KiB', 'seconds'),
+        'bare inference process, huge pages s': m('bare huge', 'seconds'),
+        'bare inference peak RSS, 4 KiB pages MB': m('bare 4 KiB', 'rssMb'),
+        'bare inference peak RSS, huge pages MB': m('bare huge', 'rssMb'),
+      },
+      notes: [
+        'times are whole child processes (Node.js start, imports, model loading included), so they run above record-overhead\'s in-process figures',
+        'bin/sonde runs every command with glibc.malloc.hugetlb=1 unless GLIBC_TUNABLES already sets it; glibc < 2.35, other C libraries and THP mode "never" ignore it',
+      ],
+    };
+  } finally {
+    work.dispose();
+  }
+}
