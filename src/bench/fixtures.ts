@@ -34,6 +34,16 @@ export function benchStimuli(folder: string, count: number, size = 64, seed = 1)
   return { path, data };
 }
 
+/**
+ * JavaScript source of an expression for the ES-module scripts benchmarks run in child processes: the
+ * child's own peak resident set in KiB — VmHWM from /proc/self/status (proc(5)), which belongs to the
+ * address space the child's program got at execve. Not `process.resourceUsage().maxRSS`: getrusage(2)
+ * metrics "are preserved across an execve(2)", and Node.js starts children by fork and exec, so maxRSS
+ * reports at least the resident set the parent had when it forked (a bench process that holds a 553 MB
+ * model gives every child at least that). Where /proc is missing, maxRSS is the fallback.
+ */
+export const PEAK_RSS_KB = `(await (async () => { try { const { readFileSync } = await import('node:fs'); return Number(/VmHWM:\\s+(\\d+)\\s+kB/.exec(readFileSync('/proc/self/status', 'utf8'))[1]); } catch { return process.resourceUsage().maxRSS; } })())`;
+
 /** Median of a few timings (seconds). */
 export function median(values: number[]): number {
   const sorted = [...values].sort((a, b) => a - b);

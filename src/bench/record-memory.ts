@@ -1,6 +1,6 @@
 /**
  * Peak memory of `record` against bare inference of the same model at the same batch, each in a child
- * process of its own (peak resident set from `process.resourceUsage().maxRSS`: the runtime's worker
+ * process of its own (peak resident set, VmHWM (`PEAK_RSS_KB` in fixtures.ts): the runtime's worker
  * thread and the writer thread included), at two stimulus counts, for the default layers, `--layers all`
  * and float16; the bound is 1.5 × bare + 512 MB. Runtime calls are split by bytes (`--run-memory`,
  * default 512 MiB) and the writer thread's queue is bounded (128 MiB), so the peak should not grow with
@@ -15,7 +15,7 @@ import { mkdirSync } from 'node:fs';
 import { join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
 import { withHugePageMalloc } from '../malloc-huge-pages.js';
-import { benchStimuli, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -28,7 +28,7 @@ function peakRss(body: string): number {
   const dist = new URL('../', import.meta.url).href;
   const script = `const dist = ${JSON.stringify(dist)};
 await (async () => { ${body} })();
-process.stdout.write(JSON.stringify({ maxRssKb: process.resourceUsage().maxRSS }));`;
+process.stdout.write(JSON.stringify({ maxRssKb: ${PEAK_RSS_KB} }));`;
   const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withHugePageMalloc() }).toString();
   return (JSON.parse(out) as { maxRssKb: number }).maxRssKb / 1024;
 }
@@ -86,7 +86,7 @@ await recordSnapshot({ model: ${js(model)}, stimuli: ${js(s.path)}, out: ${js(ou
       description: `peak RSS of record vs bare inference, ${loaded.fileName} at ${size} px, batch ${batch}, ${THREADS} threads, stimulus counts ${counts.join(' and ')}`,
       figures,
       targets,
-      notes: [`each figure from a fresh child process (process.resourceUsage().maxRSS), malloc on transparent huge pages as bin/sonde runs (GLIBC_TUNABLES=${withHugePageMalloc()['GLIBC_TUNABLES']})`],
+      notes: [`each figure from a fresh child process (its own peak RSS, VmHWM), malloc on transparent huge pages as bin/sonde runs (GLIBC_TUNABLES=${withHugePageMalloc()['GLIBC_TUNABLES']})`],
     };
   } finally {
     work.dispose();

@@ -2,7 +2,7 @@
  * Peak memory of the replays — `record --modulate --from` (tail replay, at a recorded site and at a
  * site the baseline did not record), `sweep` and `sense` (exact) — against bare inference of the same
  * model at the same batch, each in a child process of its own (peak resident set from
- * `process.resourceUsage().maxRSS`, the runtime's worker thread included). Every replay runs twice:
+ * VmHWM (`PEAK_RSS_KB` in fixtures.ts), the runtime's worker thread included). Every replay runs twice:
  * with the default run-bytes budget (batches split into runtime calls by bytes) and with the budget
  * lifted (calls as large as before the split: a whole baseline batch, × every gain vector of a pass
  * for the sweep, × every readout category for sense), at two stimulus counts.
@@ -20,7 +20,7 @@ import { ACTIVATION_OPS } from '../graph/select.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { recordSnapshot } from '../record/record-snapshot.js';
 import { openSnapshot } from '../snapshot/snapshot.js';
-import { benchStimuli, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -40,7 +40,7 @@ function child(body: string): ChildResult {
   const script = `const dist = ${JSON.stringify(dist)};
 const t = performance.now();
 const detail = await (async () => { ${body} })();
-process.stdout.write(JSON.stringify({ seconds: (performance.now() - t) / 1000, maxRssKb: process.resourceUsage().maxRSS, detail: String(detail ?? '') }));`;
+process.stdout.write(JSON.stringify({ seconds: (performance.now() - t) / 1000, maxRssKb: ${PEAK_RSS_KB}, detail: String(detail ?? '') }));`;
   const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 26, stdio: ['ignore', 'pipe', 'inherit'] }).toString();
   return JSON.parse(out) as ChildResult;
 }
