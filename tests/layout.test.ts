@@ -23,7 +23,6 @@ const LAYERS: readonly string[] = [
   'json.ts',
   'random.ts',
   'format.ts',
-  'malloc-huge-pages.ts',
   // pure numbers; the disk's safe-file primitives
   'stats',
   'analysis',

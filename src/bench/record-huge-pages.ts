@@ -1,6 +1,6 @@
 /**
- * What malloc on transparent huge pages (`bin/sonde`'s glibc.malloc.hugetlb=1, src/malloc-huge-pages.ts)
- * does to a recording: the same record in fresh child processes, alternately with glibc.malloc.hugetlb=0
+ * What glibc's malloc on transparent huge pages (GLIBC_TUNABLES=glibc.malloc.hugetlb=1, glibc ≥ 2.35;
+ * a setting of the user's, not Sonde's default) does to a recording: the same record in fresh child processes, alternately with glibc.malloc.hugetlb=0
  * and =1 in GLIBC_TUNABLES — wall time of the whole process (Node.js start, model loading, set-up,
  * inference, writes), user and kernel CPU time, peak RSS — and bare inference of the same model both
  * ways, which should not move.
@@ -10,13 +10,28 @@
  * SONDE_BENCH_RECORD_REPEATS resize it, as for record-overhead.
  */
 import { execFileSync } from 'node:child_process';
+import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
-import { transparentHugePageMode, withHugePageSetting } from '../malloc-huge-pages.js';
 import { benchStimuli, median, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
+
+/** `env` with glibc.malloc.hugetlb set to 1 (`on`) or 0, replacing any setting of it and keeping the other tunables. */
+function withHugePageSetting(on: boolean, env: NodeJS.ProcessEnv = process.env): NodeJS.ProcessEnv {
+  const kept = (env['GLIBC_TUNABLES'] ?? '').split(':').filter((entry) => entry !== '' && !entry.startsWith('glibc.malloc.hugetlb='));
+  return { ...env, GLIBC_TUNABLES: [...kept, `glibc.malloc.hugetlb=${on ? 1 : 0}`].join(':') };
+}
+
+/** The kernel's transparent huge page mode (`always`, `madvise` or `never`), or null where it cannot be read. */
+function transparentHugePageMode(): string | null {
+  try {
+    return /\[(\w+)\]/.exec(readFileSync('/sys/kernel/mm/transparent_hugepage/enabled', 'utf8'))?.[1] ?? null;
+  } catch {
+    return null;
+  }
+}
 
 interface ChildRun {
   seconds: number;
@@ -92,7 +107,7 @@ await session.close();`;
       },
       notes: [
         'times are whole child processes (Node.js start, imports, model loading included), so they run above record-overhead\'s in-process figures',
-        'bin/sonde runs every command with glibc.malloc.hugetlb=1 unless GLIBC_TUNABLES already sets it; glibc < 2.35, other C libraries and THP mode "never" ignore it',
+        'glibc < 2.35, other C libraries and THP mode "never" ignore the setting; Sonde leaves it to the user (README, Performance: it helps convolutional networks at 224 px and costs ViT-B/16 time and memory)',
       ],
     };
   } finally {

@@ -23,7 +23,6 @@ import { selectLayers } from '../graph/select.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { createNetworkSession, type NetworkSession } from '../session/network-session.js';
 import { openSnapshot } from '../snapshot/snapshot.js';
-import { withHugePageMalloc } from '../malloc-huge-pages.js';
 import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
@@ -124,9 +123,8 @@ export async function benchRecordPeer(): Promise<BenchResult> {
     };
     let run = 0;
     /**
-     * `record` as a process of its own, the way the script runs (Node.js started with malloc on huge
-     * pages, as bin/sonde starts it): its whole wall time, and its set-up (until the runtime session is
-     * ready) and in-process time as recordSnapshot reports them.
+     * `record` as a process of its own, the way the script runs: its whole wall time, and its set-up
+     * (until the runtime session is ready) and in-process time as recordSnapshot reports them.
      */
     const record = (keep: boolean): { whole: number; seconds: number; setup: number; bytes: number; folder: string } => {
       const out = join(work.folder, `snap${run++}`);
@@ -135,7 +133,7 @@ export async function benchRecordPeer(): Promise<BenchResult> {
 const s = await recordSnapshot(${JSON.stringify({ model, stimuli: path, out, layerNames: names, batch, threads: THREADS })});
 process.stdout.write(JSON.stringify({ seconds: s.wallSeconds, setup: s.setupSeconds, bytes: s.bytesWritten }));`;
       const start = performance.now();
-      const printed = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'], env: withHugePageMalloc() }).toString();
+      const printed = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'] }).toString();
       const whole = (performance.now() - start) / 1000;
       if (!keep) rmSync(out, { recursive: true, force: true });
       return { whole, ...(JSON.parse(printed) as { seconds: number; setup: number; bytes: number }), folder: out };

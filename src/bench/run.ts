@@ -2,21 +2,10 @@
  * `npm run bench`: runs every benchmark side by side in one process and prints their figures, with
  * the targets they are held to. `npm run bench -- NAME...` runs only those. Results also go to
  * `bench-results.json` in the working folder.
- *
- * The benchmarks run with glibc's malloc on transparent huge pages, as `bin/sonde` runs every command
- * (src/malloc-huge-pages.ts): where GLIBC_TUNABLES does not set glibc.malloc.hugetlb, the runner starts
- * itself again with it (`GLIBC_TUNABLES=glibc.malloc.hugetlb=0 npm run bench` measures without).
  */
-import { spawnSync } from 'node:child_process';
 import { writeFileSync } from 'node:fs';
-import { hugePageSetting, withHugePageMalloc } from '../malloc-huge-pages.js';
 import { BENCHMARKS } from './registry.js';
 import type { BenchResult } from './types.js';
-
-if (process.platform === 'linux' && hugePageSetting() === undefined) {
-  const again = spawnSync(process.execPath, [...process.execArgv, ...process.argv.slice(1)], { stdio: 'inherit', env: withHugePageMalloc() });
-  process.exit(again.status ?? 1);
-}
 
 const wanted = process.argv.slice(2);
 const results: BenchResult[] = [];
