@@ -23,6 +23,7 @@ const LAYERS: readonly string[] = [
   'json.ts',
   'random.ts',
   'format.ts',
+  'malloc-arenas.ts',
   // pure numbers; the disk's safe-file primitives
   'stats',
   'analysis',

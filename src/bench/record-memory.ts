@@ -14,6 +14,7 @@ import { execFileSync } from 'node:child_process';
 import { mkdirSync } from 'node:fs';
 import { join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
+import { withSondeMalloc } from '../malloc-arenas.js';
 import { benchStimuli, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
@@ -21,14 +22,14 @@ const THREADS = 2;
 
 /**
  * Runs `body` (an async function body; `dist` is the compiled package folder URL) in a fresh Node process
- * and returns its peak RSS in MB.
+ * and returns its peak RSS in MB. The process gets the malloc settings `bin/sonde` gives every command.
  */
 function peakRss(body: string): number {
   const dist = new URL('../', import.meta.url).href;
   const script = `const dist = ${JSON.stringify(dist)};
 await (async () => { ${body} })();
 process.stdout.write(JSON.stringify({ maxRssKb: ${PEAK_RSS_KB} }));`;
-  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'] }).toString();
+  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withSondeMalloc() }).toString();
   return (JSON.parse(out) as { maxRssKb: number }).maxRssKb / 1024;
 }
 
@@ -85,7 +86,7 @@ await recordSnapshot({ model: ${js(model)}, stimuli: ${js(s.path)}, out: ${js(ou
       description: `peak RSS of record vs bare inference, ${loaded.fileName} at ${size} px, batch ${batch}, ${THREADS} threads, stimulus counts ${counts.join(' and ')}`,
       figures,
       targets,
-      notes: [`each figure from a fresh child process (its own peak RSS, VmHWM); GLIBC_TUNABLES=${process.env['GLIBC_TUNABLES'] ?? '(unset)'}`],
+      notes: [`each figure from a fresh child process (its own peak RSS, VmHWM), with the malloc settings bin/sonde gives every command: GLIBC_TUNABLES=${withSondeMalloc()['GLIBC_TUNABLES']}`],
     };
   } finally {
     work.dispose();

@@ -19,6 +19,7 @@ import { closeSync, existsSync, openSync, readFileSync, readSync, rmSync, writeF
 import { basename, join } from 'node:path';
 import { exposeTensors } from '../graph/instrument.js';
 import { loadModel } from '../graph/load-model.js';
+import { withSondeMalloc } from '../malloc-arenas.js';
 import { selectLayers } from '../graph/select.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { createNetworkSession, type NetworkSession } from '../session/network-session.js';
@@ -123,8 +124,9 @@ export async function benchRecordPeer(): Promise<BenchResult> {
     };
     let run = 0;
     /**
-     * `record` as a process of its own, the way the script runs: its whole wall time, and its set-up
-     * (until the runtime session is ready) and in-process time as recordSnapshot reports them.
+     * `record` as a process of its own, the way the script runs (with the malloc settings bin/sonde gives
+     * every command): its whole wall time, and its set-up (until the runtime session is ready) and
+     * in-process time as recordSnapshot reports them.
      */
     const record = (keep: boolean): { whole: number; seconds: number; setup: number; bytes: number; folder: string } => {
       const out = join(work.folder, `snap${run++}`);
@@ -133,7 +135,7 @@ export async function benchRecordPeer(): Promise<BenchResult> {
 const s = await recordSnapshot(${JSON.stringify({ model, stimuli: path, out, layerNames: names, batch, threads: THREADS })});
 process.stdout.write(JSON.stringify({ seconds: s.wallSeconds, setup: s.setupSeconds, bytes: s.bytesWritten }));`;
       const start = performance.now();
-      const printed = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'] }).toString();
+      const printed = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'], env: withSondeMalloc() }).toString();
       const whole = (performance.now() - start) / 1000;
       if (!keep) rmSync(out, { recursive: true, force: true });
       return { whole, ...(JSON.parse(printed) as { seconds: number; setup: number; bytes: number }), folder: out };

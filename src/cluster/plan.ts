@@ -46,7 +46,7 @@ export interface ClusterPlanOptions {
   account?: string;
   /** Further `#SBATCH` arguments, e.g. `--qos=long`. */
   sbatchArgs?: readonly string[];
-  /** How the nodes run Sonde, as words (default: this Node.js and this installation's bin/sonde). */
+  /** How the nodes run Sonde, as words (default: this installation's bin/sonde on this Node.js). */
   sonde?: readonly string[];
   /** Write over a different plan in RUN and let the merge replace an existing result. */
   force?: boolean;
@@ -57,9 +57,12 @@ export interface ClusterPlanOptions {
 /** Entries a run folder may hold; anything else makes `cluster plan` refuse the folder. */
 const RUN_ENTRIES = new Set([PLAN_FILE, `${PLAN_FILE}.partial`, 'array.sbatch', 'array.sbatch.partial', 'merge.sbatch', 'merge.sbatch.partial', 'shards', 'logs', 'submitted.jsonl', 'result.json', 'result.json.partial', 'cells.jsonl.partial']);
 
-/** This installation's `bin/sonde` (from src/cluster or dist/cluster alike). */
+/**
+ * This installation's `bin/sonde` (from src/cluster or dist/cluster alike), run as a program so that its
+ * shell lines set malloc's arenas (src/malloc-arenas.ts), on this Node.js.
+ */
 function defaultSonde(): string[] {
-  return [process.execPath, fileURLToPath(new URL('../../bin/sonde', import.meta.url))];
+  return ['env', `SONDE_NODE=${process.execPath}`, fileURLToPath(new URL('../../bin/sonde', import.meta.url))];
 }
 
 /**

@@ -1,5 +1,5 @@
 /**
- * Runs the built CLI (`node bin/sonde …`) as a separate process, for tests that must kill a process or
+ * Runs the built CLI (`bin/sonde …`) as a separate process, for tests that must kill a process or
  * run several at once. `ensureBuilt()` compiles `dist/` first when any source file is newer than it.
  */
 import { execFileSync, spawn, type ChildProcess } from 'node:child_process';
@@ -31,12 +31,15 @@ export function ensureBuilt(): void {
   }
 }
 
-/** Starts `node bin/sonde ARGS` in `cwd`. */
+/**
+ * Starts `bin/sonde ARGS` in `cwd` as a user does: its shell lines set malloc's arenas and replace
+ * themselves with this Node.js (same pid, so signals reach the recording itself).
+ */
 export function startSonde(args: readonly string[], cwd = ROOT): ChildProcess {
-  return spawn(process.execPath, [BIN, ...args], { cwd, stdio: ['ignore', 'pipe', 'pipe'] });
+  return spawn(BIN, args, { cwd, stdio: ['ignore', 'pipe', 'pipe'], env: { ...process.env, SONDE_NODE: process.execPath } });
 }
 
-/** Runs `node bin/sonde ARGS` to the end. */
+/** Runs `bin/sonde ARGS` to the end. */
 export function runSondeProcess(args: readonly string[], cwd = ROOT): Promise<{ code: number | null; signal: NodeJS.Signals | null; stdout: string; stderr: string }> {
   return finished(startSonde(args, cwd));
 }
