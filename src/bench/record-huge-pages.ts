@@ -9,11 +9,9 @@
  * seeded torchvision VGG16 at 224 px), SONDE_BENCH_RECORD_STIMULI, SONDE_BENCH_RECORD_BATCH and
  * SONDE_BENCH_RECORD_REPEATS resize it, as for record-overhead.
  */
-import { execFileSync } from 'node:child_process';
 import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { loadModel } from '../graph/load-model.js';
-import { benchStimuli, median, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, median, recordBenchSettings, runInChild, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -33,34 +31,24 @@ function transparentHugePageMode(): string | null {
   }
 }
 
-interface ChildRun {
+/** What one run measured, as the figures name it. */
+interface Measured {
   seconds: number;
   user: number;
   system: number;
   rssMb: number;
 }
 
-/** Runs `body` (an async function body; `dist` is the compiled package folder URL) in a fresh Node.js process with huge pages `on` or off. */
-function childRun(body: string, on: boolean): ChildRun {
-  const dist = new URL('../', import.meta.url).href;
-  const script = `const dist = ${JSON.stringify(dist)};
-await (async () => { ${body} })();
-const u = process.resourceUsage();
-process.stdout.write(JSON.stringify({ user: u.userCPUTime / 1e6, system: u.systemCPUTime / 1e6, rssMb: ${PEAK_RSS_KB} / 1024 }));`;
-  const start = performance.now();
-  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withHugePageSetting(on) }).toString();
-  return { seconds: (performance.now() - start) / 1000, ...(JSON.parse(out) as Omit<ChildRun, 'seconds'>) };
+/** Runs `body` in a fresh Node.js process with huge pages `on` or off (`runInChild`). */
+function childRun(body: string, on: boolean): Measured {
+  const run = runInChild(body, withHugePageSetting(on));
+  return { seconds: run.wallSeconds, user: run.userSeconds, system: run.systemSeconds, rssMb: run.peakRssMb };
 }
 
 const js = (value: unknown): string => JSON.stringify(value);
 
 export async function benchRecordHugePages(): Promise<BenchResult> {
-  const model = process.env['SONDE_BENCH_RECORD_MODEL'] || join(REFERENCE_FIXTURES, 'residual.onnx');
-  const stimuliCount = Number(process.env['SONDE_BENCH_RECORD_STIMULI'] || 1024);
-  const batch = Number(process.env['SONDE_BENCH_RECORD_BATCH'] || 8);
-  const repeats = Number(process.env['SONDE_BENCH_RECORD_REPEATS'] || 3);
-  const loaded = loadModel(model);
-  const size = typeof loaded.input.dims[2] === 'number' ? loaded.input.dims[2] : 224;
+  const { model, stimuliCount, batch, repeats, loaded, size } = recordBenchSettings();
   const work = scratch('sonde-bench-huge-pages-');
   try {
     const { path } = benchStimuli(work.folder, stimuliCount, size);
@@ -80,13 +68,13 @@ for (let first = 0; first < x.shape[0]; first += ${batch}) {
 }
 await session.close();`;
     childRun(record, true); // warm-up: the model and stimuli in the page cache
-    const runs: Record<string, ChildRun[]> = { 'record 4 KiB': [], 'record huge': [], 'bare 4 KiB': [], 'bare huge': [] };
+    const runs: Record<string, Measured[]> = { 'record 4 KiB': [], 'record huge': [], 'bare 4 KiB': [], 'bare huge': [] };
     for (let r = 0; r < repeats; r++) {
       // alternate which goes first, so neither always follows the other
       for (const on of r % 2 === 0 ? [false, true] : [true, false]) runs[`record ${on ? 'huge' : '4 KiB'}`]!.push(childRun(record, on));
       for (const on of r % 2 === 0 ? [false, true] : [true, false]) runs[`bare ${on ? 'huge' : '4 KiB'}`]!.push(childRun(bare, on));
     }
-    const m = (name: string, key: keyof ChildRun) => median(runs[name]!.map((run) => run[key]));
+    const m = (name: string, key: keyof Measured) => median(runs[name]!.map((run) => run[key]));
     return {
       name: 'record-huge-pages',
       description: `record with malloc on 4 KiB vs transparent huge pages (glibc.malloc.hugetlb=0 / =1; kernel THP mode: ${transparentHugePageMode() ?? 'unknown'}), ${loaded.fileName}, ${stimuliCount} stimuli 3×${size}×${size}, batch ${batch}, ${THREADS} threads, each run a fresh process, median of ${repeats}`,

@@ -10,27 +10,18 @@
  * SONDE_BENCH_RECORD_MEMORY_MODEL=/path/model.onnx (e.g. a torchvision VGG16 or ViT-B/16 at 224 px),
  * SONDE_BENCH_RECORD_MEMORY_COUNTS=16,48 and SONDE_BENCH_RECORD_MEMORY_BATCH resize it.
  */
-import { execFileSync } from 'node:child_process';
 import { mkdirSync } from 'node:fs';
 import { join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
 import { withSondeMalloc } from '../malloc-arenas.js';
-import { benchStimuli, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, REFERENCE_FIXTURES, runInChild, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
 
-/**
- * Runs `body` (an async function body; `dist` is the compiled package folder URL) in a fresh Node process
- * and returns its peak RSS in MB. The process gets the malloc settings `bin/sonde` gives every command.
- */
+/** Peak RSS in MB of `body` run in a fresh Node.js process (`runInChild`) with the malloc settings `bin/sonde` gives every command. */
 function peakRss(body: string): number {
-  const dist = new URL('../', import.meta.url).href;
-  const script = `const dist = ${JSON.stringify(dist)};
-await (async () => { ${body} })();
-process.stdout.write(JSON.stringify({ maxRssKb: ${PEAK_RSS_KB} }));`;
-  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 24, stdio: ['ignore', 'pipe', 'inherit'], env: withSondeMalloc() }).toString();
-  return (JSON.parse(out) as { maxRssKb: number }).maxRssKb / 1024;
+  return runInChild(body, withSondeMalloc()).peakRssMb;
 }
 
 const js = (value: unknown): string => JSON.stringify(value);

@@ -6,13 +6,12 @@ import { setFlagsFromString } from 'node:v8';
 import { runInNewContext } from 'node:vm';
 import { exposeTensors } from '../graph/instrument.js';
 import { tensorsFusedAway } from '../graph/fusions.js';
-import { loadModel } from '../graph/load-model.js';
 import { selectLayers } from '../graph/select.js';
 import { wantsDirectWrites } from '../disk/write-mode.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { recordSnapshot, type RecordOptions } from '../record/record-snapshot.js';
 import { createNetworkSession, type NetworkSession } from '../session/network-session.js';
-import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, median, recordBenchSettings, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -85,12 +84,7 @@ export function sha256Rate(bytes = 256 * 2 ** 20): number {
  * SONDE_BENCH_RECORD_REPEATS resize it.
  */
 export async function benchRecordOverhead(): Promise<BenchResult> {
-  const model = process.env['SONDE_BENCH_RECORD_MODEL'] || join(REFERENCE_FIXTURES, 'residual.onnx');
-  const stimuliCount = Number(process.env['SONDE_BENCH_RECORD_STIMULI'] || 1024);
-  const batch = Number(process.env['SONDE_BENCH_RECORD_BATCH'] || 8);
-  const repeats = Number(process.env['SONDE_BENCH_RECORD_REPEATS'] || 3);
-  const loaded = loadModel(model);
-  const size = typeof loaded.input.dims[2] === 'number' ? loaded.input.dims[2] : 224;
+  const { model, stimuliCount, batch, repeats, loaded, size } = recordBenchSettings();
   const work = scratch();
   const sessions: NetworkSession[] = [];
   try {

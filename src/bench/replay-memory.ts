@@ -11,7 +11,6 @@
  * another model (its sidecar gives the categories; e.g. a seeded torchvision VGG16 at 224 px), and
  * SONDE_BENCH_MEMORY_COUNTS=16,48 sets the stimulus counts (the sweep and sense use the first).
  */
-import { execFileSync } from 'node:child_process';
 import { copyFileSync, mkdirSync, symlinkSync, writeFileSync } from 'node:fs';
 import { basename, join } from 'node:path';
 import { loadModel } from '../graph/load-model.js';
@@ -20,7 +19,7 @@ import { ACTIVATION_OPS } from '../graph/select.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { recordSnapshot } from '../record/record-snapshot.js';
 import { openSnapshot } from '../snapshot/snapshot.js';
-import { benchStimuli, PEAK_RSS_KB, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, REFERENCE_FIXTURES, runInChild, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -28,21 +27,10 @@ const BATCH = 16;
 /** A budget no call reaches: the calls are as large as they were before batches were split by bytes. */
 const UNSPLIT = 1e15;
 
-interface ChildResult {
-  seconds: number;
-  maxRssKb: number;
-  detail: string;
-}
-
-/** Runs `body` (an async function body with `dist` = the compiled package folder URL) in a fresh Node process. */
-function child(body: string): ChildResult {
-  const dist = new URL('../', import.meta.url).href;
-  const script = `const dist = ${JSON.stringify(dist)};
-const t = performance.now();
-const detail = await (async () => { ${body} })();
-process.stdout.write(JSON.stringify({ seconds: (performance.now() - t) / 1000, maxRssKb: ${PEAK_RSS_KB}, detail: String(detail ?? '') }));`;
-  const out = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 26, stdio: ['ignore', 'pipe', 'inherit'] }).toString();
-  return JSON.parse(out) as ChildResult;
+/** Runs `body` (an async function body with `dist` = the compiled package folder URL) in a fresh Node process (`runInChild`): the body's seconds, peak RSS and what it returned. */
+function child(body: string): { seconds: number; rssMb: number; detail: string } {
+  const run = runInChild(body);
+  return { seconds: run.bodySeconds, rssMb: run.peakRssMb, detail: run.detail };
 }
 
 const js = (value: unknown): string => JSON.stringify(value);
@@ -108,8 +96,8 @@ for (let first = 0; first < x.shape[0]; first += ${BATCH}) {
   await session.run({ ${js(loaded.input.name)}: { data: x.data.slice(first * per, (first + rows) * per), dims: [rows, ...x.shape.slice(1)] } });
 }
 await session.close();`);
-      figures[`bare inference, ${s.count} stimuli: peak RSS MB`] = result.maxRssKb / 1024;
-      bare = Math.max(bare, result.maxRssKb / 1024);
+      figures[`bare inference, ${s.count} stimuli: peak RSS MB`] = result.rssMb;
+      bare = Math.max(bare, result.rssMb);
     }
     const bound = 1.5 * bare + 512;
     figures['bound 1.5 × bare + 512 MB'] = bound;
@@ -117,7 +105,7 @@ await session.close();`);
       for (const [variant, runBytes] of [['split by bytes', undefined], ['unsplit', UNSPLIT]] as const) {
         const result = child(body.replaceAll('RUN_BYTES', runBytes === undefined ? 'undefined' : String(runBytes)));
         const key = `${label}, ${variant}: peak RSS MB`;
-        figures[key] = result.maxRssKb / 1024;
+        figures[key] = result.rssMb;
         figures[`${label}, ${variant}: s`] = result.seconds;
         if (variant === 'split by bytes') targets[key] = `<= ${bound.toFixed(0)} (1.5 × bare + 512)`;
         if (result.detail) notes.push(`${label}, ${variant}: ${result.detail}`);
