@@ -19,12 +19,12 @@ import { closeSync, existsSync, openSync, readFileSync, readSync, rmSync, writeF
 import { basename, join } from 'node:path';
 import { exposeTensors } from '../graph/instrument.js';
 import { loadModel } from '../graph/load-model.js';
-import { withSondeMalloc } from '../malloc-arenas.js';
 import { selectLayers } from '../graph/select.js';
+import { withSondeMalloc } from '../malloc-arenas.js';
 import { inspectModel } from '../record/inspect-model.js';
 import { createNetworkSession, type NetworkSession } from '../session/network-session.js';
 import { openSnapshot } from '../snapshot/snapshot.js';
-import { benchStimuli, median, REFERENCE_FIXTURES, scratch } from './fixtures.js';
+import { benchStimuli, median, REFERENCE_FIXTURES, runInChild, scratch } from './fixtures.js';
 import type { BenchResult } from './types.js';
 
 const THREADS = 2;
@@ -130,15 +130,11 @@ export async function benchRecordPeer(): Promise<BenchResult> {
      */
     const record = (keep: boolean): { whole: number; seconds: number; setup: number; bytes: number; folder: string } => {
       const out = join(work.folder, `snap${run++}`);
-      const dist = new URL('../', import.meta.url).href;
-      const script = `const { recordSnapshot } = await import(${JSON.stringify(`${dist}record/record-snapshot.js`)});
+      const child = runInChild(`const { recordSnapshot } = await import(dist + 'record/record-snapshot.js');
 const s = await recordSnapshot(${JSON.stringify({ model, stimuli: path, out, layerNames: names, batch, threads: THREADS })});
-process.stdout.write(JSON.stringify({ seconds: s.wallSeconds, setup: s.setupSeconds, bytes: s.bytesWritten }));`;
-      const start = performance.now();
-      const printed = execFileSync(process.execPath, ['--input-type=module', '-e', script], { maxBuffer: 1 << 20, stdio: ['ignore', 'pipe', 'inherit'], env: withSondeMalloc() }).toString();
-      const whole = (performance.now() - start) / 1000;
+return JSON.stringify({ seconds: s.wallSeconds, setup: s.setupSeconds, bytes: s.bytesWritten });`, withSondeMalloc());
       if (!keep) rmSync(out, { recursive: true, force: true });
-      return { whole, ...(JSON.parse(printed) as { seconds: number; setup: number; bytes: number }), folder: out };
+      return { whole: child.wallSeconds, ...(JSON.parse(child.detail) as { seconds: number; setup: number; bytes: number }), folder: out };
     };
     // one pair kept to check that both sides wrote the same tensors (first rows of every tensor)
     const checkRows = Math.min(batch, count);
