@@ -8,7 +8,8 @@
  */
 import type { LoadedModel } from './load-model.js';
 import type { LayoutGeometry } from './layout.js';
-import { encodeModel, makeValueInfo, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
+import { encodeWithAdditions } from './append.js';
+import { makeValueInfo, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
 
 /** ONNX TensorProto.DataType of float16, float32 and int64. */
 const FLOAT16 = 10;
@@ -37,7 +38,6 @@ export function meansOutputName(name: string): string {
 export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly string[], geometries?: readonly LayoutGeometry[]): Uint8Array {
   const graph = model.proto.graph!;
   const originalNodes = graph.node ?? [];
-  const originalOutputs = graph.output ?? [];
   const originalInitializers = graph.initializer ?? [];
   const taken = new Set<string>();
   for (const node of originalNodes) for (const out of node.output ?? []) taken.add(out);
@@ -74,14 +74,5 @@ export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly strin
     }
     outputs.push(makeValueInfo(means, FLOAT32));
   });
-  graph.node = [...originalNodes, ...added];
-  graph.output = [...originalOutputs, ...outputs];
-  graph.initializer = [...originalInitializers, ...initializers];
-  try {
-    return encodeModel(model.proto);
-  } finally {
-    graph.node = originalNodes;
-    graph.output = originalOutputs;
-    graph.initializer = originalInitializers;
-  }
+  return encodeWithAdditions(model, { node: added, output: outputs, initializer: initializers });
 }

@@ -1,5 +1,6 @@
 import type { LoadedModel } from './load-model.js';
-import { encodeModel, makeValueInfo, type ValueInfoProto } from './onnx.js';
+import { encodeWithAdditions } from './append.js';
+import { makeValueInfo, type ValueInfoProto } from './onnx.js';
 
 /**
  * Returns ONNX bytes of `model` with `names` added as graph outputs (after the existing ones, skipping
@@ -20,10 +21,5 @@ export function exposeTensors(model: LoadedModel, names: readonly string[]): Uin
     const info = known.get(name);
     extra.push(info?.type?.tensorType ? { name, type: { tensorType: { elemType: info.type.tensorType.elemType } } } : makeValueInfo(name));
   }
-  graph.output = [...original, ...extra];
-  try {
-    return encodeModel(model.proto);
-  } finally {
-    graph.output = original;
-  }
+  return encodeWithAdditions(model, { output: extra });
 }

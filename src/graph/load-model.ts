@@ -33,6 +33,20 @@ export interface LoadedModel {
 }
 
 /**
+ * The bytes each model came from, by its decoded proto: kept only where the proto is exactly the file's
+ * content (no external weights inlined), so that graph/append.ts can add to the graph without encoding
+ * the model again. Models derived from a loaded one (`{ ...model, proto }`) carry a new proto and have
+ * no entry. The decoded proto holds views of these bytes already (raw weight data), so keeping them
+ * costs no memory.
+ */
+const fileBytes = new WeakMap<ModelProto, Uint8Array>();
+
+/** The file bytes `model.proto` was decoded from, where it is still exactly them; undefined otherwise. */
+export function modelFileBytes(model: LoadedModel): Uint8Array | undefined {
+  return fileBytes.get(model.proto);
+}
+
+/**
  * Reads, decodes and validates an ONNX model. Weights stored in external data files are read from
  * paths relative to the model's folder and inlined, so that the model can be handed to the runtime
  * as bytes after instrumentation.
@@ -71,6 +85,7 @@ export function loadModel(path: string): LoadedModel {
   const opsetEntry = (proto.opsetImport ?? []).find((o) => !o.domain || o.domain === 'ai.onnx');
   if (!opsetEntry) throw new UsageError('E_MODEL_FORMAT', `model ${path} declares no opset for the default ONNX domain`);
   const weightFiles = inlineExternalData(proto, dirname(absolute), path);
+  if (weightFiles.size === 0) fileBytes.set(proto, bytes);
 
   const initializerNames = new Set((graph.initializer ?? []).map((t) => t.name ?? ''));
   const inputs = (graph.input ?? []).filter((i) => !initializerNames.has(i.name ?? ''));

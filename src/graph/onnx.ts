@@ -24,9 +24,83 @@ export function toNumber(value: number | { toNumber(): number } | null | undefin
   return typeof value === 'number' ? value : value.toNumber();
 }
 
-/** Decodes ONNX bytes; throws whatever protobufjs throws (callers wrap it with the file name). */
+/**
+ * Decodes ONNX bytes; throws whatever protobufjs throws (callers wrap it with the file name). Where the
+ * bytes hold the `graph` field more than once (as graph/append.ts writes them), the occurrences are
+ * merged as the Protocol Buffers rules say and the runtime does (protobuf.dev, "Encoding", Last One
+ * Wins: repeated fields concatenated, a singular field set later replaces an earlier one); protobufjs
+ * by itself keeps only the last occurrence.
+ */
 export function decodeModel(bytes: Uint8Array): ModelProto {
-  return onnx.ModelProto.decode(bytes);
+  const model = onnx.ModelProto.decode(bytes);
+  const ranges = graphFieldRanges(bytes);
+  if (ranges && ranges.length > 1) {
+    const graphs = ranges.map(([start, end]) => onnx.GraphProto.decode(bytes.subarray(start, end)));
+    model.graph = graphs.reduce(mergeGraphs);
+  }
+  return model;
+}
+
+/** ModelProto's field number of `graph` (onnx.proto). */
+const MODEL_GRAPH_FIELD = 7;
+
+/**
+ * Byte ranges of the payloads of every top-level `graph` field in `bytes`, in order; null where the scan
+ * meets something it does not step over (a group or a malformed length: the plain decode then decides).
+ */
+function graphFieldRanges(bytes: Uint8Array): Array<[number, number]> | null {
+  const ranges: Array<[number, number]> = [];
+  let at = 0;
+  const varint = (): number => {
+    let value = 0;
+    let scale = 1;
+    for (;;) {
+      if (at >= bytes.length) return -1;
+      const byte = bytes[at++]!;
+      value += (byte & 0x7f) * scale;
+      if (byte < 0x80) return value;
+      scale *= 128;
+      if (scale > 2 ** 63) return -1;
+    }
+  };
+  while (at < bytes.length) {
+    const tag = varint();
+    if (tag < 0) return null;
+    const wire = tag % 8;
+    if (wire === 0) {
+      if (varint() < 0) return null;
+    } else if (wire === 1) {
+      at += 8;
+    } else if (wire === 5) {
+      at += 4;
+    } else if (wire === 2) {
+      const length = varint();
+      if (length < 0 || at + length > bytes.length) return null;
+      if (Math.floor(tag / 8) === MODEL_GRAPH_FIELD) ranges.push([at, at + length]);
+      at += length;
+    } else {
+      return null;
+    }
+  }
+  return at === bytes.length ? ranges : null;
+}
+
+/** `a` followed by `b`: repeated fields concatenated, name and doc string from `b` where it sets them. */
+function mergeGraphs(a: onnxProto.onnx.GraphProto, b: onnxProto.onnx.GraphProto): onnxProto.onnx.GraphProto {
+  const merged = onnx.GraphProto.create({
+    node: [...a.node, ...b.node],
+    initializer: [...a.initializer, ...b.initializer],
+    sparseInitializer: [...a.sparseInitializer, ...b.sparseInitializer],
+    input: [...a.input, ...b.input],
+    output: [...a.output, ...b.output],
+    valueInfo: [...a.valueInfo, ...b.valueInfo],
+    quantizationAnnotation: [...a.quantizationAnnotation, ...b.quantizationAnnotation],
+  });
+  for (const key of ['name', 'docString'] as const) {
+    if (Object.hasOwn(b, key)) merged[key] = b[key];
+    else if (Object.hasOwn(a, key)) merged[key] = a[key];
+  }
+  return merged;
 }
 
 /** Encodes a (possibly modified) model back to bytes. */

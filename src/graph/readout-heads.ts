@@ -13,7 +13,8 @@
  */
 import { UsageError } from '../errors.js';
 import type { LoadedModel } from './load-model.js';
-import { encodeModel, freshNames, makeValueInfo, type NodeProto, type TensorProto } from './onnx.js';
+import { encodeWithAdditions } from './append.js';
+import { freshNames, makeValueInfo, type NodeProto, type TensorProto } from './onnx.js';
 
 /** What `addReadoutHeads` appends. */
 export interface ReadoutHeadsSpec {
@@ -94,15 +95,6 @@ export function addReadoutHeads(model: LoadedModel, spec: ReadoutHeadsSpec): Rea
   const output = fresh(spec.output ?? 'readout_heads');
   nodes.push({ name: fresh('heads_concat'), opType: 'Concat', input: headOutputs, output: [output], attribute: [{ name: 'axis', type: 2, i: 1 }] });
 
-  const original = { node: graph.node, initializer: graph.initializer, output: graph.output };
-  graph.node = [...(graph.node ?? []), ...nodes];
-  graph.initializer = [...(graph.initializer ?? []), ...initializers];
-  graph.output = [...(graph.output ?? []), makeValueInfo(output, 1), ...headOutputs.map((h) => makeValueInfo(h, 1))];
-  try {
-    return { bytes: encodeModel(model.proto), output, headOutputs };
-  } finally {
-    graph.node = original.node;
-    graph.initializer = original.initializer;
-    graph.output = original.output;
-  }
+  const bytes = encodeWithAdditions(model, { node: nodes, initializer: initializers, output: [makeValueInfo(output, 1), ...headOutputs.map((h) => makeValueInfo(h, 1))] });
+  return { bytes, output, headOutputs };
 }

@@ -1,15 +1,15 @@
 import { readFileSync } from 'node:fs';
 import { describe, expect, it } from 'vitest';
-import onnxProto from 'onnx-proto';
 import { exposeTensors } from '../../src/graph/instrument.js';
 import { injectModulations } from '../../src/graph/inject.js';
 import { loadModel } from '../../src/graph/load-model.js';
+import { decodeModel } from '../../src/graph/onnx.js';
 import { selectLayers, globToRegExp } from '../../src/graph/select.js';
 
 const RESIDUAL = new URL('../reference/fixtures/residual.onnx', import.meta.url).pathname;
 
 function initializerBytes(bytes: Uint8Array): Map<string, string> {
-  const model = onnxProto.onnx.ModelProto.decode(bytes);
+  const model = decodeModel(bytes);
   return new Map((model.graph!.initializer ?? []).map((t) => [t.name!, Buffer.from(t.rawData ?? new Uint8Array()).toString('base64') + JSON.stringify(t.floatData ?? []) + JSON.stringify(t.dims)]));
 }
 
@@ -23,8 +23,8 @@ describe('exposeTensors', () => {
     const after = initializerBytes(exposed);
     expect(after.size).toBe(before.size);
     for (const [name, value] of before) expect(after.get(name), name).toBe(value);
-    const decoded = onnxProto.onnx.ModelProto.decode(exposed);
-    const originalDecoded = onnxProto.onnx.ModelProto.decode(original);
+    const decoded = decodeModel(exposed);
+    const originalDecoded = decodeModel(original);
     expect(JSON.stringify(decoded.graph!.node)).toBe(JSON.stringify(originalDecoded.graph!.node));
     const outputs = decoded.graph!.output!.map((o) => o.name);
     expect(outputs[0]).toBe('logits');
