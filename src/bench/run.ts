@@ -2,10 +2,22 @@
  * `npm run bench`: runs every benchmark side by side in one process and prints their figures, with
  * the targets they are held to. `npm run bench -- NAME...` runs only those. Results also go to
  * `bench-results.json` in the working folder.
+ *
+ * The benchmarks run with the malloc setting `bin/sonde` gives every command (src/malloc-arenas.ts):
+ * where GLIBC_TUNABLES does not set it, this process starts itself again with it (glibc reads the
+ * tunables once, at process start), so the in-process figures and every child process measure what a
+ * user's commands run with.
  */
+import { spawnSync } from 'node:child_process';
 import { writeFileSync } from 'node:fs';
+import { arenaSetting, withSondeMalloc } from '../malloc-arenas.js';
 import { BENCHMARKS } from './registry.js';
 import type { BenchResult } from './types.js';
+
+if (arenaSetting() === undefined) {
+  const again = spawnSync(process.execPath, [...process.execArgv, ...process.argv.slice(1)], { stdio: 'inherit', env: withSondeMalloc() });
+  process.exit(again.status ?? 1);
+}
 
 const wanted = process.argv.slice(2);
 const results: BenchResult[] = [];
