@@ -4,7 +4,7 @@
  * stimulus's digest and non-finite count as it goes.
  */
 import { createHash } from 'node:crypto';
-import { runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
+import { evenRows, HEAP_BLOCK_BYTES, runBytesOption, runRowBytes, rowsWithin } from '../graph/run-memory.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { FloatTensor } from '../session/network-session.js';
 import { STIMULUS_DIGEST_BYTES } from '../snapshot/stimuli-file.js';
@@ -22,12 +22,17 @@ export interface FeedBatch {
  * Rows per runtime call: a fixed-batch model's batch; otherwise as many of a batch as keep the call's
  * tensors — the fed stimuli, every exposed output, the largest node's working set (graph/run-memory.ts) —
  * within the run-bytes budget (`runBytes`, default 512 MiB), so that peak memory does not grow with the
- * batch size or the bytes of the recorded layers.
+ * batch size or the bytes of the recorded layers; and few enough that every fetched tensor of a call
+ * fits in a reused heap block (`HEAP_BLOCK_BYTES`), so that the runtime's outputs do not come from
+ * freshly mapped memory at every call. The batch is split into calls of about the same size.
  */
 export function callRows(run: { model: LoadedModel; fetched: readonly string[]; inputElements: number; elements: (tensor: string) => number | undefined; batch: number; fixedBatch: number | null; runBytes?: number | undefined }): number {
   if (run.fixedBatch !== null) return run.fixedBatch;
   const rowBytes = runRowBytes(run.model, (name) => (name === run.model.input.name ? run.inputElements : run.elements(name)), { fed: [run.model.input.name], fetched: run.fetched });
-  return rowsWithin(runBytesOption(run.runBytes), rowBytes, run.batch);
+  let largest = 0;
+  for (const name of run.fetched) largest = Math.max(largest, 4 * (run.elements(name) ?? 0));
+  const cap = Math.min(rowsWithin(runBytesOption(run.runBytes), rowBytes, run.batch), rowsWithin(HEAP_BLOCK_BYTES, largest, run.batch));
+  return evenRows(run.batch, cap);
 }
 
 /**
