@@ -34,10 +34,7 @@ export function toNumber(value: number | { toNumber(): number } | null | undefin
 export function decodeModel(bytes: Uint8Array): ModelProto {
   const model = onnx.ModelProto.decode(bytes);
   const ranges = graphFieldRanges(bytes);
-  if (ranges && ranges.length > 1) {
-    const graphs = ranges.map(([start, end]) => onnx.GraphProto.decode(bytes.subarray(start, end)));
-    model.graph = graphs.reduce(mergeGraphs);
-  }
+  if (ranges && ranges.length > 1) model.graph = mergeGraphs(ranges.map(([start, end]) => onnx.GraphProto.decode(bytes.subarray(start, end))));
   return model;
 }
 
@@ -85,20 +82,19 @@ function graphFieldRanges(bytes: Uint8Array): Array<[number, number]> | null {
   return at === bytes.length ? ranges : null;
 }
 
-/** `a` followed by `b`: repeated fields concatenated, name and doc string from `b` where it sets them. */
-function mergeGraphs(a: onnxProto.onnx.GraphProto, b: onnxProto.onnx.GraphProto): onnxProto.onnx.GraphProto {
-  const merged = onnx.GraphProto.create({
-    node: [...a.node, ...b.node],
-    initializer: [...a.initializer, ...b.initializer],
-    sparseInitializer: [...a.sparseInitializer, ...b.sparseInitializer],
-    input: [...a.input, ...b.input],
-    output: [...a.output, ...b.output],
-    valueInfo: [...a.valueInfo, ...b.valueInfo],
-    quantizationAnnotation: [...a.quantizationAnnotation, ...b.quantizationAnnotation],
-  });
-  for (const key of ['name', 'docString'] as const) {
-    if (Object.hasOwn(b, key)) merged[key] = b[key];
-    else if (Object.hasOwn(a, key)) merged[key] = a[key];
+/**
+ * The graphs in order as one: repeated fields concatenated, name and doc string from the last graph
+ * that sets them. Linear in the total size, however many occurrences a file holds.
+ */
+function mergeGraphs(graphs: readonly onnxProto.onnx.GraphProto[]): onnxProto.onnx.GraphProto {
+  const merged = onnx.GraphProto.create({ node: [], initializer: [], sparseInitializer: [], input: [], output: [], valueInfo: [], quantizationAnnotation: [] });
+  const repeated = ['node', 'initializer', 'sparseInitializer', 'input', 'output', 'valueInfo', 'quantizationAnnotation'] as const;
+  for (const graph of graphs) {
+    for (const key of repeated) {
+      const into = merged[key] as unknown[];
+      for (const item of graph[key] as unknown[]) into.push(item);
+    }
+    for (const key of ['name', 'docString'] as const) if (Object.hasOwn(graph, key)) merged[key] = graph[key];
   }
   return merged;
 }

@@ -7,7 +7,7 @@ import { exposeTensorsAsFloat16 } from '../../src/graph/expose-half.js';
 import { exposeTensors } from '../../src/graph/instrument.js';
 import { layoutGeometry } from '../../src/graph/layout.js';
 import { loadModel, modelFileBytes, type LoadedModel } from '../../src/graph/load-model.js';
-import { decodeModel, makeValueInfo } from '../../src/graph/onnx.js';
+import { decodeModel, makeValueInfo, onnx } from '../../src/graph/onnx.js';
 import { createNetworkSession } from '../../src/session/network-session.js';
 import { createRandom } from '../../src/random.js';
 import { buildTinyNet, externalise, tempFolder } from '../helpers/onnx-builder.js';
@@ -111,5 +111,21 @@ describe('encodeWithAdditions', () => {
     const name = firstTensors(model, 1)[0]!;
     const graph = decodeModel(encodeWithAdditions(model, { output: [makeValueInfo(name)] })).graph!;
     expect(graph.output!.map((o) => o.name)).toEqual(['logits', name]);
+  });
+});
+
+describe('decodeModel', () => {
+  it('merges every occurrence of the graph field in order, later names replacing earlier ones (20 000 occurrences, as a hostile file may hold)', () => {
+    const file = readFileSync(RESIDUAL);
+    const parts: Uint8Array[] = [file];
+    for (let i = 0; i < 20_000; i++) parts.push(onnx.ModelProto.encode({ graph: { output: [{ name: `extra${i}` }], ...(i === 19_999 ? { name: 'renamed' } : {}) } }).finish());
+    const bytes = Buffer.concat(parts);
+    const graph = decodeModel(bytes).graph!;
+    const own = decodeModel(file).graph!;
+    expect(graph.output!.length).toBe(own.output!.length + 20_000);
+    expect(graph.output![own.output!.length]!.name).toBe('extra0');
+    expect(graph.output!.at(-1)!.name).toBe('extra19999');
+    expect(graph.node!.length).toBe(own.node!.length);
+    expect(graph.name).toBe('renamed');
   });
 });
