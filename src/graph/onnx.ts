@@ -43,7 +43,8 @@ const MODEL_GRAPH_FIELD = 7;
 
 /**
  * Byte ranges of the payloads of every top-level `graph` field in `bytes`, in order; null where the scan
- * meets something it does not step over (a group or a malformed length: the plain decode then decides).
+ * meets something malformed (a length past the end, an unknown wire type, unbalanced groups: the plain
+ * decode then decides).
  */
 function graphFieldRanges(bytes: Uint8Array): Array<[number, number]> | null {
   const ranges: Array<[number, number]> = [];
@@ -60,6 +61,8 @@ function graphFieldRanges(bytes: Uint8Array): Array<[number, number]> | null {
       if (scale > 2 ** 63) return -1;
     }
   };
+  // fields inside (deprecated) groups are not the model's own: only depth 0 counts
+  let depth = 0;
   while (at < bytes.length) {
     const tag = varint();
     if (tag < 0) return null;
@@ -73,13 +76,18 @@ function graphFieldRanges(bytes: Uint8Array): Array<[number, number]> | null {
     } else if (wire === 2) {
       const length = varint();
       if (length < 0 || at + length > bytes.length) return null;
-      if (Math.floor(tag / 8) === MODEL_GRAPH_FIELD) ranges.push([at, at + length]);
+      if (depth === 0 && Math.floor(tag / 8) === MODEL_GRAPH_FIELD) ranges.push([at, at + length]);
       at += length;
+    } else if (wire === 3) {
+      depth += 1;
+    } else if (wire === 4) {
+      if (depth === 0) return null;
+      depth -= 1;
     } else {
       return null;
     }
   }
-  return at === bytes.length ? ranges : null;
+  return at === bytes.length && depth === 0 ? ranges : null;
 }
 
 /**

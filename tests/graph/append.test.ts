@@ -128,4 +128,17 @@ describe('decodeModel', () => {
     expect(graph.node!.length).toBe(own.node!.length);
     expect(graph.name).toBe('renamed');
   });
+
+  it('does not count a graph field inside a (deprecated) group of an unknown field as the model\'s own (protobuf wire types 3 and 4)', () => {
+    const file = readFileSync(RESIDUAL);
+    const inner = onnx.ModelProto.encode({ graph: { output: [{ name: 'inside_a_group' }] } }).finish();
+    const outer = onnx.ModelProto.encode({ graph: { output: [{ name: 'after_the_group' }] } }).finish();
+    // field 99 as a group: start tag (99 << 3 | 3) and end tag (99 << 3 | 4), each a two-byte varint
+    const start = Buffer.from([(99 << 3 | 3) & 0x7f | 0x80, (99 << 3 | 3) >> 7]);
+    const end = Buffer.from([(99 << 3 | 4) & 0x7f | 0x80, (99 << 3 | 4) >> 7]);
+    const names = decodeModel(Buffer.concat([file, start, inner, end, outer])).graph!.output!.map((o) => o.name);
+    expect(names).toContain('logits');
+    expect(names).toContain('after_the_group');
+    expect(names).not.toContain('inside_a_group');
+  });
 });
