@@ -12,7 +12,7 @@
  * set-up; the concatenation is one copy.
  */
 import type { LoadedModel } from './load-model.js';
-import { modelFileBytes } from './load-model.js';
+import { modelFileBytes, takeModelFileBytes } from './load-model.js';
 import { encodeModel, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
 
 /** What to add to a model's graph, each after the entries the graph already has. */
@@ -22,11 +22,35 @@ export interface GraphAdditions {
   output?: readonly ValueInfoProto[];
 }
 
-/** ONNX bytes of `model` with `add` appended to its graph; `model` itself is left as it was. */
-export function encodeWithAdditions(model: LoadedModel, add: GraphAdditions): Uint8Array {
+/** How encodeWithAdditions may treat the model. */
+export interface AppendOptions {
+  /**
+   * The caller owns `model` and needs nothing of its weights afterwards: the additions are written into
+   * the room loadModel left after the file's bytes, and the result is a view of that same buffer, which
+   * the caller gives away whole (a runtime session takes it over: createNetworkSession's `giveBytes`).
+   * After that the model's raw weight data are detached (empty); its graph structure stays readable.
+   * Saves a copy of the model (553 MB for VGG16) and frees the file's bytes once the runtime has read
+   * them, instead of holding them for the whole recording.
+   */
+  consume?: boolean;
+}
+
+/**
+ * ONNX bytes of `model` with `add` appended to its graph; `model` itself is left as it was (but see
+ * `consume`). The bytes' ArrayBuffer is the caller's alone: a fresh one, or with `consume` the model
+ * file's own.
+ */
+export function encodeWithAdditions(model: LoadedModel, add: GraphAdditions, options: AppendOptions = {}): Uint8Array {
   const file = modelFileBytes(model);
   if (file) {
     const tail = onnx.ModelProto.encode({ graph: { node: [...(add.node ?? [])], initializer: [...(add.initializer ?? [])], output: [...(add.output ?? [])] } }).finish();
+    const end = file.byteOffset + file.length;
+    if (options.consume && !(file.buffer instanceof SharedArrayBuffer) && file.buffer.byteLength - end >= tail.length) {
+      takeModelFileBytes(model);
+      const bytes = new Uint8Array(file.buffer, file.byteOffset, file.length + tail.length);
+      bytes.set(tail, file.length);
+      return bytes;
+    }
     // a whole ArrayBuffer of its own, so a session may take it over without a copy (giveBytes)
     const bytes = new Uint8Array(new ArrayBuffer(file.length + tail.length));
     bytes.set(file, 0);
@@ -38,11 +62,14 @@ export function encodeWithAdditions(model: LoadedModel, add: GraphAdditions): Ui
   graph.node = [...(graph.node ?? []), ...(add.node ?? [])];
   graph.initializer = [...(graph.initializer ?? []), ...(add.initializer ?? [])];
   graph.output = [...(graph.output ?? []), ...(add.output ?? [])];
+  let encoded: Uint8Array;
   try {
-    return encodeModel(model.proto);
+    encoded = encodeModel(model.proto);
   } finally {
     graph.node = original.node;
     graph.initializer = original.initializer;
     graph.output = original.output;
   }
+  // protobufjs takes small results from Node's shared Buffer pool: copy those into a buffer of their own
+  return encoded.byteOffset === 0 && encoded.byteLength === encoded.buffer.byteLength ? encoded : new Uint8Array(encoded);
 }

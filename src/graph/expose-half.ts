@@ -8,7 +8,7 @@
  */
 import type { LoadedModel } from './load-model.js';
 import type { LayoutGeometry } from './layout.js';
-import { encodeWithAdditions } from './append.js';
+import { encodeWithAdditions, type AppendOptions } from './append.js';
 import { makeValueInfo, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
 
 /** ONNX TensorProto.DataType of float16, float32 and int64. */
@@ -32,10 +32,10 @@ export function meansOutputName(name: string): string {
  * outer × features × inner per stimulus, graph/layout.ts), each tensor's feature means over its
  * positions are exposed too, as `meansOutputName(name)` — a Reshape that groups the positions and a
  * ReduceMean over them, in float32 before any rounding to float16. Nodes and initializers of the
- * model are untouched, so weights stay byte-identical.
+ * model are untouched, so weights stay byte-identical. `options.consume`: see graph/append.ts.
  * @throws RangeError when an output name is already taken in the graph.
  */
-export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly string[], geometries?: readonly LayoutGeometry[]): Uint8Array {
+export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly string[], geometries?: readonly LayoutGeometry[], options: AppendOptions = {}): Uint8Array {
   const graph = model.proto.graph!;
   const originalNodes = graph.node ?? [];
   const originalInitializers = graph.initializer ?? [];
@@ -74,5 +74,5 @@ export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly strin
     }
     outputs.push(makeValueInfo(means, FLOAT32));
   });
-  return encodeWithAdditions(model, { node: added, output: outputs, initializer: initializers });
+  return encodeWithAdditions(model, { node: added, output: outputs, initializer: initializers }, options);
 }

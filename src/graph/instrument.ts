@@ -1,14 +1,14 @@
 import type { LoadedModel } from './load-model.js';
-import { encodeWithAdditions } from './append.js';
+import { encodeWithAdditions, type AppendOptions } from './append.js';
 import { makeValueInfo, type ValueInfoProto } from './onnx.js';
 
 /**
  * Returns ONNX bytes of `model` with `names` added as graph outputs (after the existing ones, skipping
  * names that already are outputs). Nodes and initializers are untouched, so weights stay
  * byte-identical. Output types are taken from the model's value_info when present; the runtime infers
- * them otherwise.
+ * them otherwise. `options.consume`: see graph/append.ts.
  */
-export function exposeTensors(model: LoadedModel, names: readonly string[]): Uint8Array {
+export function exposeTensors(model: LoadedModel, names: readonly string[], options: AppendOptions = {}): Uint8Array {
   const graph = model.proto.graph!;
   const original = graph.output ?? [];
   const known = new Map<string, ValueInfoProto>();
@@ -21,5 +21,5 @@ export function exposeTensors(model: LoadedModel, names: readonly string[]): Uin
     const info = known.get(name);
     extra.push(info?.type?.tensorType ? { name, type: { tensorType: { elemType: info.type.tensorType.elemType } } } : makeValueInfo(name));
   }
-  return encodeWithAdditions(model, { output: extra });
+  return encodeWithAdditions(model, { output: extra }, options);
 }

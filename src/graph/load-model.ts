@@ -1,5 +1,5 @@
 import { createHash } from 'node:crypto';
-import { readFileSync, realpathSync, statSync } from 'node:fs';
+import { closeSync, fstatSync, openSync, readFileSync, readSync, realpathSync, statSync } from 'node:fs';
 import { basename, dirname, isAbsolute, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { assertRegularFile, realPathInside } from '../disk/input-file.js';
@@ -47,6 +47,38 @@ export function modelFileBytes(model: LoadedModel): Uint8Array | undefined {
 }
 
 /**
+ * Takes the file bytes of `model` for good (modelFileBytes then has none): for a caller that writes
+ * into the room after them and gives their buffer away (graph/append.ts, `consume`).
+ */
+export function takeModelFileBytes(model: LoadedModel): Uint8Array | undefined {
+  const bytes = fileBytes.get(model.proto);
+  fileBytes.delete(model.proto);
+  return bytes;
+}
+
+/**
+ * Reads a file into a buffer of its own with unused room after the bytes (2 MiB plus 1/64 of the
+ * size; untouched pages take no memory), where graph/append.ts can write the additions to a model
+ * without copying it. The Buffer returned spans the file's bytes only.
+ */
+function readWithRoom(path: string): Buffer {
+  const fd = openSync(path, 'r');
+  try {
+    const size = fstatSync(fd).size;
+    const bytes = Buffer.from(new ArrayBuffer(size + 2 * 2 ** 20 + Math.ceil(size / 64)), 0, size);
+    let at = 0;
+    while (at < size) {
+      const read = readSync(fd, bytes, at, size - at, at);
+      if (read === 0) break; // the file shrank while it was read
+      at += read;
+    }
+    return at < size ? bytes.subarray(0, at) : bytes;
+  } finally {
+    closeSync(fd);
+  }
+}
+
+/**
  * Reads, decodes and validates an ONNX model. Weights stored in external data files are read from
  * paths relative to the model's folder and inlined, so that the model can be handed to the runtime
  * as bytes after instrumentation.
@@ -61,7 +93,7 @@ export function loadModel(path: string): LoadedModel {
       throw new UsageError('E_MODEL_READ', `model ${path} is a directory, not an .onnx file`);
     }
     assertRegularFile(absolute, `model ${path}`); // a FIFO or device would block or never end
-    bytes = readFileSync(absolute);
+    bytes = readWithRoom(absolute);
   } catch (error) {
     if (error instanceof UsageError) throw error;
     const code = (error as NodeJS.ErrnoException).code;

@@ -218,7 +218,6 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
   }
   const fixedBatch = typeof declared[0] === 'number' ? declared[0] : null;
   const batch = fixedBatch ?? requestedBatch;
-
   const range = options.shard ? shardRange(options.shard.index, options.shard.count, source.count) : { start: 0, end: source.count };
   const rowsTotal = range.end - range.start;
   const shard: ShardInfo | null = options.shard ? { index: options.shard.index, count: options.shard.count, stimuli: [range.start, range.end - 1], total: source.count } : null;
@@ -269,7 +268,7 @@ export async function recordSnapshot(options: RecordOptions): Promise<RecordSumm
     }
     writeManifest(folder, manifest);
     const elementsByName = new Map(inspection.layers.map((l) => [l.name, l.elements]));
-    return await recordInto(folder, manifest, checkpoint, { options, elements: (name) => elementsByName.get(name), model: transformed, source, selected, batch, fixedBatch, range, channels: channels!, height: height!, width: width!, started, checkpointSeconds, keep, dtype });
+    return await recordInto(folder, manifest, checkpoint, { options, elements: (name) => elementsByName.get(name), model: transformed, ownsModel: typeof options.model === 'string' && transformed === model, source, selected, batch, fixedBatch, range, channels: channels!, height: height!, width: width!, started, checkpointSeconds, keep, dtype });
   } finally {
     opened.lock.release();
   }
@@ -280,6 +279,8 @@ interface RecordRun {
   /** Per-stimulus element count of a tensor of the model (undefined when unknown, e.g. weights). */
   elements: (tensor: string) => number | undefined;
   model: LoadedModel;
+  /** `model` is this recording's alone (loaded here, untransformed): its file buffer goes to the runtime uncopied (graph/append.ts, consume). */
+  ownsModel: boolean;
   source: StimulusSource;
   selected: LayerInfo[];
   batch: number;
@@ -391,7 +392,7 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     // and their channel means too, in float32 before the rounding (the stored means stay those of the float32 values)
     const fetch = castInGraph ? [...names.map(halfOutputName), ...names.map(meansOutputName)] : names;
     const geometries = selected.map((l) => layoutGeometry(l.shape, l.layout));
-    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries) : exposeTensors(run.model, names), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
+    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries, { consume: run.ownsModel }) : exposeTensors(run.model, names, { consume: run.ownsModel }), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
     const setupSeconds = (performance.now() - run.started) / 1000;
     let bytesWritten = 0;
     try {

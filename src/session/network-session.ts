@@ -35,9 +35,10 @@ export interface NetworkSessionOptions {
    */
   spinning?: boolean;
   /**
-   * The caller gives up the model bytes: they move to the worker thread instead of being copied (a
-   * large model then is not held twice while the runtime loads it). Only a Uint8Array that spans its
-   * whole buffer moves; any other is copied as usual.
+   * The caller gives up the model bytes' whole ArrayBuffer (it must be the caller's alone: every other
+   * view of it is detached): it moves to the worker thread instead of being copied, so a large model
+   * is not held twice while the runtime loads it, and is freed once the runtime has read it. A
+   * SharedArrayBuffer is copied as usual.
    */
   giveBytes?: boolean;
 }
@@ -89,7 +90,7 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
     }
     return new OrtNetworkSession(session, label);
   }
-  return WorkerNetworkSession.create(bytes, sessionOptions, label, options.giveBytes === true && bytes.byteOffset === 0 && bytes.byteLength === bytes.buffer.byteLength && !(bytes.buffer instanceof SharedArrayBuffer));
+  return WorkerNetworkSession.create(bytes, sessionOptions, label, options.giveBytes === true && !(bytes.buffer instanceof SharedArrayBuffer));
 }
 
 /** The runtime's log severities by name (onnxruntime: 0 verbose, 1 info, 2 warning, 3 error, 4 fatal). */

@@ -7,6 +7,7 @@ import { exposeTensorsAsFloat16 } from '../../src/graph/expose-half.js';
 import { exposeTensors } from '../../src/graph/instrument.js';
 import { layoutGeometry } from '../../src/graph/layout.js';
 import { loadModel, modelFileBytes, type LoadedModel } from '../../src/graph/load-model.js';
+import { runRowBytes } from '../../src/graph/run-memory.js';
 import { decodeModel, makeValueInfo, onnx } from '../../src/graph/onnx.js';
 import { createNetworkSession } from '../../src/session/network-session.js';
 import { createRandom } from '../../src/random.js';
@@ -111,6 +112,58 @@ describe('encodeWithAdditions', () => {
     const name = firstTensors(model, 1)[0]!;
     const graph = decodeModel(encodeWithAdditions(model, { output: [makeValueInfo(name)] })).graph!;
     expect(graph.output!.map((o) => o.name)).toEqual(['logits', name]);
+  });
+});
+
+describe('encodeWithAdditions, consume', () => {
+  it('writes the additions after the file\'s bytes in their own buffer, which a session then takes whole; the graph structure stays readable and the outputs are the full encoding\'s (exact)', async () => {
+    const model = loadModel(RESIDUAL);
+    const file = modelFileBytes(model)!;
+    const names = firstTensors(model, 6);
+    const rowBytesBefore = runRowBytes(model, () => 10, { fed: [model.input.name], fetched: names });
+    const bytes = exposeTensors(model, names, { consume: true });
+    expect(bytes.buffer).toBe(file.buffer);
+    expect(bytes.byteOffset).toBe(file.byteOffset);
+    expect(modelFileBytes(model)).toBeUndefined(); // taken: nothing appends there again
+    const reference = exposeTensors(derived(model), names);
+    expect(JSON.stringify(decodeModel(bytes).graph!.output)).toBe(JSON.stringify(decodeModel(reference).graph!.output));
+    const rng = createRandom(5);
+    const data = new Float32Array(2 * 3 * 64 * 64).map(() => rng.normal());
+    const results = [];
+    for (const [b, give] of [[bytes, true], [reference, false]] as const) {
+      const session = await createNetworkSession(b, { threads: 1, giveBytes: give });
+      try {
+        results.push(await session.run({ [model.input.name]: { data, dims: [2, 3, 64, 64] } }, ['logits', ...names]));
+      } finally {
+        await session.close();
+      }
+    }
+    for (const name of ['logits', ...names]) expect(Buffer.from(results[0]![name]!.data.buffer).equals(Buffer.from(results[1]![name]!.data.buffer)), name).toBe(true);
+    // given away: the weights' views are detached, the structure (what a recording reads afterwards) is not
+    expect(file.byteLength).toBe(0);
+    expect(runRowBytes(model, () => 10, { fed: [model.input.name], fetched: names })).toBe(rowBytesBefore);
+  });
+
+  it('copies where the additions do not fit in the room after the file (2 MiB and 1/64 of its size)', () => {
+    const model = loadModel(RESIDUAL);
+    const file = modelFileBytes(model)!;
+    const name = firstTensors(model, 1)[0]!;
+    // 40 000 declarations of a long name: about 2.7 MB, more than the residual model's room
+    const many = Array.from({ length: 40_000 }, () => makeValueInfo(`${name}/${'x'.repeat(40)}`));
+    const bytes = encodeWithAdditions(model, { output: many }, { consume: true });
+    expect(bytes.buffer).not.toBe(file.buffer);
+    expect(bytes.byteLength).toBe(bytes.buffer.byteLength);
+    expect(modelFileBytes(model)).toBe(file); // not taken
+  });
+
+  it('hands back a buffer of its own when the model is encoded in full, even a small one protobufjs takes from the shared Buffer pool', () => {
+    const folder = tempFolder();
+    const path = join(folder, 'tiny.onnx');
+    writeFileSync(path, externalise(buildTinyNet({ bias: true }), folder));
+    const model = loadModel(path); // external weights: encoded in full
+    const bytes = exposeTensors(model, ['relu0']);
+    expect(bytes.byteOffset).toBe(0);
+    expect(bytes.byteLength).toBe(bytes.buffer.byteLength);
   });
 });
 
