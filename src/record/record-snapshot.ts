@@ -279,8 +279,7 @@ interface RecordRun {
   /** Per-stimulus element count of a tensor of the model (undefined when unknown, e.g. weights). */
   elements: (tensor: string) => number | undefined;
   model: LoadedModel;
-  /** `model` is this recording's alone (loaded here, untransformed): its file buffer goes to the runtime uncopied (graph/append.ts, consume). */
-  ownsModel: boolean;
+  ownsModel: boolean; // `model` is this recording's alone (loaded here, untransformed): its file buffer goes to the runtime uncopied (graph/append.ts, consume)
   source: StimulusSource;
   selected: LayerInfo[];
   batch: number;
