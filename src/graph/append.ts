@@ -11,8 +11,7 @@
  * and outputs, then the added ones. For VGG16 (553 MB) a full encoding took 0.24–0.96 s of a record's
  * set-up; the concatenation is one copy.
  */
-import type { LoadedModel } from './load-model.js';
-import { modelFileBytes, takeModelFileBytes } from './load-model.js';
+import { modelFileBytes, takeModelFileBytes, type LoadedModel } from './load-model.js';
 import { encodeModel, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
 
 /** What to add to a model's graph, each after the entries the graph already has. */
