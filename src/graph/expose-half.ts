@@ -8,7 +8,7 @@
  */
 import type { LoadedModel } from './load-model.js';
 import type { LayoutGeometry } from './layout.js';
-import { encodeWithAdditions, type AppendOptions } from './append.js';
+import { encodeWithAdditions, type AppendOptions, type GraphAdditions } from './append.js';
 import { makeValueInfo, onnx, type NodeProto, type TensorProto, type ValueInfoProto } from './onnx.js';
 
 /** ONNX TensorProto.DataType of float16, float32 and int64. */
@@ -36,6 +36,11 @@ export function meansOutputName(name: string): string {
  * @throws RangeError when an output name is already taken in the graph.
  */
 export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly string[], geometries?: readonly LayoutGeometry[], options: AppendOptions = {}): Uint8Array {
+  return encodeWithAdditions(model, float16Additions(model, names, geometries), options);
+}
+
+/** What exposeTensorsAsFloat16 adds to the graph of `model` (for graph/weights-by-reference.ts's encodeForRuntime). */
+export function float16Additions(model: LoadedModel, names: readonly string[], geometries?: readonly LayoutGeometry[]): GraphAdditions {
   const graph = model.proto.graph!;
   const originalNodes = graph.node ?? [];
   const originalInitializers = graph.initializer ?? [];
@@ -74,5 +79,5 @@ export function exposeTensorsAsFloat16(model: LoadedModel, names: readonly strin
     }
     outputs.push(makeValueInfo(means, FLOAT32));
   });
-  return encodeWithAdditions(model, { node: added, output: outputs, initializer: initializers }, options);
+  return { node: added, output: outputs, initializer: initializers };
 }

@@ -1,6 +1,8 @@
 import type { LoadedModel } from './load-model.js';
-import { encodeWithAdditions, type AppendOptions } from './append.js';
+import { encodeWithAdditions, type AppendOptions, type GraphAdditions } from './append.js';
 import { makeValueInfo, type ValueInfoProto } from './onnx.js';
+import { encodeForRuntime, type ReferenceOptions } from './weights-by-reference.js';
+import type { RuntimeModel } from '../session/network-session.js';
 
 /**
  * Returns ONNX bytes of `model` with `names` added as graph outputs (after the existing ones, skipping
@@ -9,6 +11,11 @@ import { makeValueInfo, type ValueInfoProto } from './onnx.js';
  * them otherwise. `options.consume`: see graph/append.ts.
  */
 export function exposeTensors(model: LoadedModel, names: readonly string[], options: AppendOptions = {}): Uint8Array {
+  return encodeWithAdditions(model, exposureAdditions(model, names), options);
+}
+
+/** What exposeTensors adds to the graph of `model` (for graph/weights-by-reference.ts's encodeForRuntime). */
+export function exposureAdditions(model: LoadedModel, names: readonly string[]): GraphAdditions {
   const graph = model.proto.graph!;
   const original = graph.output ?? [];
   const known = new Map<string, ValueInfoProto>();
@@ -21,5 +28,13 @@ export function exposeTensors(model: LoadedModel, names: readonly string[], opti
     const info = known.get(name);
     extra.push(info?.type?.tensorType ? { name, type: { tensorType: { elemType: info.type.tensorType.elemType } } } : makeValueInfo(name));
   }
-  return encodeWithAdditions(model, { output: extra }, options);
+  return { output: extra };
+}
+
+/**
+ * As exposeTensors, for a runtime session: large weights by reference into the files they were read
+ * from where that is possible (graph/weights-by-reference.ts), so the runtime reads them itself.
+ */
+export function exposeForRuntime(model: LoadedModel, names: readonly string[], options: ReferenceOptions = {}): RuntimeModel {
+  return encodeForRuntime(model, exposureAdditions(model, names), options);
 }

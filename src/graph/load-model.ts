@@ -1,9 +1,11 @@
 import { createHash } from 'node:crypto';
-import { closeSync, fstatSync, openSync, readFileSync, readSync, realpathSync, statSync } from 'node:fs';
+import { closeSync, openSync, readSync, realpathSync, statSync } from 'node:fs';
 import { basename, dirname, isAbsolute, relative, resolve } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
+import { identityOfOpen, sameState, type FileIdentity } from '../disk/file-identity.js';
 import { assertRegularFile, realPathInside } from '../disk/input-file.js';
 import { decodeModel, ONNX_DTYPE_NAMES, toNumber, type ModelProto, type TensorProto } from './onnx.js';
+import { readSkeleton, type SkeletonFile } from './read-skeleton.js';
 
 /** One dimension of a declared input: a number, or the `dim_param` name of a dynamic axis. */
 export type Dim = number | string;
@@ -57,43 +59,152 @@ export function takeModelFileBytes(model: LoadedModel): Uint8Array | undefined {
 }
 
 /**
- * Reads a file into a buffer of its own with unused room after the bytes (2 MiB plus 1/64 of the
- * size; untouched pages take no memory), where graph/append.ts can write the additions to a model
- * without copying it. The Buffer returned spans the file's bytes only.
+ * Where the bytes of each file loadModel read lie: by the buffer that holds them, the file (its real
+ * path and identity when it was read) and the position of its first byte in that buffer. Weights the
+ * decoded model holds are views of these buffers, so graph/weights-by-reference.ts can tell the runtime
+ * to read them from the file instead of being handed a copy.
  */
-function readWithRoom(path: string): Buffer {
+const origins = new WeakMap<ArrayBufferLike, { identity: FileIdentity; start: number; length: number }>();
+
+/**
+ * The file a view's bytes were read from, and the offset of the view's first byte in it; undefined
+ * unless the view lies wholly within the bytes of a file loadModel read (the model or an external weight
+ * file).
+ */
+export function fileRangeOf(view: Uint8Array): { identity: FileIdentity; offset: number } | undefined {
+  const origin = origins.get(view.buffer);
+  if (!origin) return undefined;
+  const offset = view.byteOffset - origin.start;
+  return offset >= 0 && offset + view.byteLength <= origin.length ? { identity: origin.identity, offset } : undefined;
+}
+
+/** Where the raw data of an initializer not read yet lie (see `unreadWeightRange`). */
+const unread = new WeakMap<TensorProto, { identity: FileIdentity; offset: number; length: number }>();
+
+/**
+ * Where an initializer's raw data lie in its file while they have not been read: loadModel leaves the
+ * large weights of a large model in the file (graph/read-skeleton.ts) and reads each the first time its
+ * `rawData` is asked for. Undefined once read or replaced, and for every other tensor.
+ */
+export function unreadWeightRange(tensor: TensorProto): { identity: FileIdentity; offset: number; length: number } | undefined {
+  return unread.get(tensor);
+}
+
+/** Makes `tensor.rawData` read bytes [offset, offset + length) of the file the first time it is asked for. */
+function readWhenAsked(tensor: TensorProto, identity: FileIdentity, offset: number, length: number): void {
+  unread.set(tensor, { identity, offset, length });
+  const settle = (value: Uint8Array | null | undefined): void => {
+    unread.delete(tensor);
+    Object.defineProperty(tensor, 'rawData', { value, writable: true, enumerable: true, configurable: true });
+  };
+  Object.defineProperty(tensor, 'rawData', {
+    enumerable: true,
+    configurable: true,
+    get(): Uint8Array {
+      const bytes = readRange(identity, offset, length);
+      settle(bytes);
+      return bytes;
+    },
+    set: settle,
+  });
+}
+
+/**
+ * Bytes [offset, offset + length) of the file `identity` names, in a buffer of their own registered for
+ * `fileRangeOf`.
+ * @throws RuntimeFailure `E_MODEL_CHANGED` when the file is no longer as it was read (the hash Sonde
+ *   computed would not describe these bytes); RuntimeFailure `E_MODEL_READ` when it cannot be read.
+ */
+function readRange(identity: FileIdentity, offset: number, length: number): Uint8Array {
+  let fd: number;
+  try {
+    fd = openSync(identity.path, 'r');
+  } catch (error) {
+    throw new RuntimeFailure('E_MODEL_READ', `cannot read the weights in ${identity.path}: ${(error as Error).message}`);
+  }
+  try {
+    if (!sameState(identityOfOpen(identity.path, fd), identity)) {
+      throw new RuntimeFailure('E_MODEL_CHANGED', `${identity.path} changed since Sonde read it (its large weights are read when needed)`, { hint: 'leave the model file as it is while a command runs, and run the command again' });
+    }
+    const bytes = new Uint8Array(new ArrayBuffer(length));
+    for (let done = 0; done < length; ) {
+      const read = readSync(fd, bytes, done, length - done, offset + done);
+      if (read === 0) throw new RuntimeFailure('E_MODEL_CHANGED', `${identity.path} ended before the weights Sonde found in it`);
+      done += read;
+    }
+    origins.set(bytes.buffer, { identity, start: -offset, length: identity.size });
+    return bytes;
+  } finally {
+    closeSync(fd);
+  }
+}
+
+/** Models from this size (bytes) leave their large weights in the file until asked for (graph/read-skeleton.ts). */
+export const SKELETON_FROM_BYTES = 32 * 2 ** 20;
+/** The smallest raw data left in the file. */
+const UNREAD_MIN_BYTES = 64 * 1024;
+
+/**
+ * Reads a file into a buffer of its own (never Node's shared pool) with `room` unused bytes after the
+ * file's (untouched pages take no memory), where graph/append.ts can write the additions to a model
+ * without copying it, and registers where the bytes came from (`fileRangeOf`). The Buffer returned spans
+ * the file's bytes only.
+ */
+function readWithRoom(path: string, room: (size: number) => number): Buffer {
   const fd = openSync(path, 'r');
   try {
-    const size = fstatSync(fd).size;
-    const bytes = Buffer.from(new ArrayBuffer(size + 2 * 2 ** 20 + Math.ceil(size / 64)), 0, size);
+    const identity = identityOfOpen(realpathSync(path), fd);
+    const size = identity.size;
+    const bytes = Buffer.from(new ArrayBuffer(size + room(size)), 0, size);
     let at = 0;
     while (at < size) {
       const read = readSync(fd, bytes, at, size - at, at);
       if (read === 0) break; // the file shrank while it was read
       at += read;
     }
+    // a file that changed while it was read is not registered: its bytes may be no single state of it
+    const whole = at === size && identityOfOpen(identity.path, fd).mtimeMs === identity.mtimeMs;
+    if (whole) origins.set(bytes.buffer, { identity, start: bytes.byteOffset, length: size });
     return at < size ? bytes.subarray(0, at) : bytes;
   } finally {
     closeSync(fd);
   }
 }
 
+/** Room after a model file's bytes: 2 MiB plus 1/64 of the size. */
+const MODEL_ROOM = (size: number): number => 2 * 2 ** 20 + Math.ceil(size / 64);
+
+/** Options of `loadModel`. */
+export interface LoadOptions {
+  /**
+   * Files of at least this many bytes leave their large weights (raw data of 64 KiB and more) in the
+   * file, read the first time they are asked for (`unreadWeightRange`, graph/read-skeleton.ts); the
+   * runtime then reads them itself (graph/weights-by-reference.ts). Default SKELETON_FROM_BYTES (32 MiB);
+   * Infinity reads every file whole.
+   */
+  skeletonFromBytes?: number;
+}
+
 /**
  * Reads, decodes and validates an ONNX model. Weights stored in external data files are read from
  * paths relative to the model's folder and inlined, so that the model can be handed to the runtime
- * as bytes after instrumentation.
+ * as bytes after instrumentation. A large model's large weights stay in its file until asked for
+ * (`options.skeletonFromBytes`).
  * @throws UsageError when the file is missing, not ONNX, truncated, has no graph, or has zero or
  *   several non-initializer inputs; RuntimeFailure when it cannot be read.
  */
-export function loadModel(path: string): LoadedModel {
+export function loadModel(path: string, options: LoadOptions = {}): LoadedModel {
   const absolute = resolve(path);
-  let bytes: Buffer;
+  let bytes: Uint8Array;
+  let skeleton: SkeletonFile | null = null;
   try {
-    if (statSync(absolute).isDirectory()) {
+    const stats = statSync(absolute);
+    if (stats.isDirectory()) {
       throw new UsageError('E_MODEL_READ', `model ${path} is a directory, not an .onnx file`);
     }
     assertRegularFile(absolute, `model ${path}`); // a FIFO or device would block or never end
-    bytes = readWithRoom(absolute);
+    if (stats.size >= (options.skeletonFromBytes ?? SKELETON_FROM_BYTES)) skeleton = readSkeleton(absolute, UNREAD_MIN_BYTES);
+    bytes = skeleton ? skeleton.skeleton : readWithRoom(absolute, MODEL_ROOM);
   } catch (error) {
     if (error instanceof UsageError) throw error;
     const code = (error as NodeJS.ErrnoException).code;
@@ -101,13 +212,12 @@ export function loadModel(path: string): LoadedModel {
     throw new RuntimeFailure('E_MODEL_READ', `cannot read model ${path}: ${(error as Error).message}`);
   }
   if (bytes.length === 0) throw new UsageError('E_MODEL_FORMAT', `model ${path} is empty (0 bytes)`);
-  let proto: ModelProto;
-  try {
-    proto = decodeModel(bytes);
-  } catch (error) {
-    throw new UsageError('E_MODEL_FORMAT', `model ${path} is not a valid ONNX file (${(error as Error).message.split('\n')[0]})`, {
-      hint: 'the file may be truncated or not an ONNX model',
-    });
+  let proto = decodeOrRefuse(bytes, path);
+  if (skeleton && !leaveWeightsUnread(proto, skeleton)) {
+    // external weight files (the hash covers them), or a skeleton that does not match its decoding: read whole
+    skeleton = null;
+    bytes = readWithRoom(absolute, MODEL_ROOM);
+    proto = decodeOrRefuse(bytes, path);
   }
   const graph = proto.graph;
   if (!graph || !graph.node || graph.node.length === 0) {
@@ -117,7 +227,7 @@ export function loadModel(path: string): LoadedModel {
   const opsetEntry = (proto.opsetImport ?? []).find((o) => !o.domain || o.domain === 'ai.onnx');
   if (!opsetEntry) throw new UsageError('E_MODEL_FORMAT', `model ${path} declares no opset for the default ONNX domain`);
   const weightFiles = inlineExternalData(proto, dirname(absolute), path);
-  if (weightFiles.size === 0) fileBytes.set(proto, bytes);
+  if (weightFiles.size === 0 && !skeleton) fileBytes.set(proto, bytes);
 
   const initializerNames = new Set((graph.initializer ?? []).map((t) => t.name ?? ''));
   const inputs = (graph.input ?? []).filter((i) => !initializerNames.has(i.name ?? ''));
@@ -150,13 +260,38 @@ export function loadModel(path: string): LoadedModel {
   return {
     path: absolute,
     fileName: basename(absolute),
-    sha256: modelDigest(bytes, weightFiles),
+    sha256: skeleton ? skeleton.sha256 : modelDigest(bytes, weightFiles),
     proto,
     input: { name: input.name ?? '', dims, elemType },
     outputs: (graph.output ?? []).map((o) => o.name ?? ''),
     opset: toNumber(opsetEntry.version),
     parameterCount,
   };
+}
+
+/** `bytes` decoded. @throws UsageError `E_MODEL_FORMAT` naming the file when they are not ONNX. */
+function decodeOrRefuse(bytes: Uint8Array, path: string): ModelProto {
+  try {
+    return decodeModel(bytes);
+  } catch (error) {
+    throw new UsageError('E_MODEL_FORMAT', `model ${path} is not a valid ONNX file (${(error as Error).message.split('\n')[0]})`, {
+      hint: 'the file may be truncated or not an ONNX model',
+    });
+  }
+}
+
+/**
+ * Makes the initializers whose raw data the skeleton left out read them from the file when asked for;
+ * false (nothing changed) where the model has external weight files or the skeleton does not match
+ * its decoding.
+ */
+function leaveWeightsUnread(proto: ModelProto, skeleton: SkeletonFile): boolean {
+  const initializers = proto.graph?.initializer ?? [];
+  if (initializers.some((t) => t.dataLocation === 1)) return false;
+  const targets = skeleton.weights.map((w) => initializers[w.ordinal]);
+  if (targets.some((t) => !t || (t.rawData?.byteLength ?? 0) > 0)) return false;
+  skeleton.weights.forEach((w, i) => readWhenAsked(targets[i]!, skeleton.identity, w.offset, w.length));
+  return true;
 }
 
 /**
@@ -212,7 +347,7 @@ function inlineExternalData(proto: ModelProto, folder: string, modelPath: string
         // a symbolic link may not lead the weights out of the model's folder, nor to a FIFO or device
         assertWeightsInside(folder, file, modelPath, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
         assertRegularFile(file, `model ${modelPath}: external data file "${location}" of "${tensor.name}"`);
-        data = readFileSync(file);
+        data = readWithRoom(file, () => 0);
       } catch (error) {
         if (error instanceof UsageError) throw error;
         throw new UsageError('E_MODEL_EXTERNAL', `model ${modelPath}: external data file "${location}" for "${tensor.name}" cannot be read (looked in ${folder})`, {

@@ -2,7 +2,7 @@ import { createHash } from 'node:crypto';
 import { existsSync, readFileSync, renameSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { exposeTensors } from '../graph/instrument.js';
+import { exposeForRuntime } from '../graph/instrument.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { weightLayerDepths } from '../graph/structure.js';
@@ -311,7 +311,7 @@ async function replayInto(folder: string, manifest: SnapshotManifest, checkpoint
     const fed = tail.boundary.map((name) => (siteNames.has(name) ? `${name}::raw` : name));
     const rowBytes = runRowBytes(injected, (name) => elements(name.endsWith('::raw') ? name.slice(0, -5) : name), { fed, fetched: fetch });
     const rowsPerCall = evenRows(batchRows, rowsWithin(runBytesOption(options.runBytes), rowBytes, batchRows));
-    const session = await createNetworkSession(exposeTensors(injected, fetch), { threads: options.threads ?? 0, label: `${run.model.fileName} (downstream part)` });
+    const session = await createNetworkSession(exposeForRuntime(injected, fetch), { threads: options.threads ?? 0, label: `${run.model.fileName} (downstream part)` });
     const setupSeconds = (performance.now() - started) / 1000;
     const firstIndex = baseline.firstIndex;
     const streams = tail.boundary.map((name) => baseline.readLayer(name, doneRows > 0 ? { range: [firstIndex + doneRows, firstIndex + count] } : {}));

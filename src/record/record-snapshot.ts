@@ -9,8 +9,9 @@ import { createHash } from 'node:crypto';
 import { existsSync, renameSync, statSync } from 'node:fs';
 import { extname, relative } from 'node:path';
 import { closestHint, RuntimeFailure, SondeError, UsageError } from '../errors.js';
-import { exposeTensors } from '../graph/instrument.js';
-import { exposeTensorsAsFloat16, halfOutputName, meansOutputName } from '../graph/expose-half.js';
+import { exposureAdditions } from '../graph/instrument.js';
+import { float16Additions, halfOutputName, meansOutputName } from '../graph/expose-half.js';
+import { encodeForRuntime } from '../graph/weights-by-reference.js';
 import { fusionNotice } from '../graph/fusions.js';
 import { layoutGeometry } from '../graph/layout.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
@@ -27,7 +28,8 @@ import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, typ
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import { readNpyHeader } from '../stimuli/npy.js';
-import { parseFit, parseInterpolation, parseNormalise, presetValues, resolvedFit, type FitMode, type Interpolation, type NormalisePreset, type Preprocessing } from '../stimuli/preprocess.js';
+import type { FitMode, Interpolation, NormalisePreset } from '../stimuli/preprocess.js';
+import { resolvePreprocessing } from './resolve-preprocessing.js';
 import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from '../outputs/output-folder.js';
@@ -279,7 +281,7 @@ interface RecordRun {
   /** Per-stimulus element count of a tensor of the model (undefined when unknown, e.g. weights). */
   elements: (tensor: string) => number | undefined;
   model: LoadedModel;
-  ownsModel: boolean; // `model` is this recording's alone (loaded here, untransformed): its file buffer goes to the runtime uncopied (graph/append.ts, consume)
+  ownsModel: boolean; // `model` is this recording's alone (loaded here, untransformed): its weights are dropped once the runtime has them (graph/weights-by-reference.ts, release)
   source: StimulusSource;
   selected: LayerInfo[];
   batch: number;
@@ -391,7 +393,9 @@ async function recordInto(folder: string, manifest: SnapshotManifest, checkpoint
     // and their channel means too, in float32 before the rounding (the stored means stay those of the float32 values)
     const fetch = castInGraph ? [...names.map(halfOutputName), ...names.map(meansOutputName)] : names;
     const geometries = selected.map((l) => layoutGeometry(l.shape, l.layout));
-    const session = await createNetworkSession(castInGraph ? exposeTensorsAsFloat16(run.model, names, geometries, { consume: run.ownsModel }) : exposeTensors(run.model, names, { consume: run.ownsModel }), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
+    const additions = castInGraph ? float16Additions(run.model, names, geometries) : exposureAdditions(run.model, names);
+    // large weights by reference into the model's file, which the runtime reads itself (graph/weights-by-reference.ts)
+    const session = await createNetworkSession(encodeForRuntime(run.model, additions, { release: run.ownsModel }), { threads: options.threads ?? 0, label: run.model.fileName, inWorker: options.sessionInWorker ?? true, spinning: options.runtimeSpinning ?? false, giveBytes: true });
     const setupSeconds = (performance.now() - run.started) / 1000;
     let bytesWritten = 0;
     try {
@@ -645,51 +649,6 @@ export function chooseInputShape(model: LoadedModel, options: Pick<RecordOptions
     }
   }
   return undefined;
-}
-
-/**
- * The preprocessing of a recording: options first, then the model's sidecar (`preprocessing.mean`,
- * `std`, `bgr`, and `normalise`, `fit` — e.g. "crop:256" — and `interpolation`), then scaling to [0, 1]
- * with `squash` and `lanczos3`; every field set, so the manifest says exactly how images were fed.
- * @throws UsageError for a preset given with `mean`/`std`, or an unknown fit, kernel or preset (the
- *   sidecar's named as such).
- */
-export function resolvePreprocessing(options: Pick<RecordOptions, 'mean' | 'std' | 'bgr' | 'normalise' | 'fit' | 'shorterSide' | 'interpolation'>, sidecar: { mean?: number[]; std?: number[]; bgr?: boolean } | undefined, channels: number, size: [number, number]): Preprocessing {
-  if (options.normalise && (options.mean || options.std)) {
-    throw new UsageError('E_PREPROCESS', `--normalise ${options.normalise} sets the mean and std; it cannot be combined with --mean or --std`, { hint: 'pass either the preset or both values' });
-  }
-  if (options.shorterSide !== undefined && options.fit !== 'crop') throw new UsageError('E_PREPROCESS', `a shorter side (${options.shorterSide}) only applies to --fit crop`);
-  const extra = (sidecar ?? {}) as { normalise?: unknown; fit?: unknown; interpolation?: unknown };
-  const sidecarText = (key: 'normalise' | 'fit' | 'interpolation'): string | undefined => {
-    const value = extra[key];
-    if (value === undefined) return undefined;
-    if (typeof value !== 'string') throw new UsageError('E_SIDECAR', `model sidecar preprocessing.${key} must be a string, got ${JSON.stringify(value)}`);
-    return value;
-  };
-  const sidecarPreset = sidecarText('normalise');
-  const sidecarFit = sidecarText('fit');
-  const sidecarKernel = sidecarText('interpolation');
-  const ownValues = options.mean !== undefined || options.std !== undefined;
-  const presetName = options.normalise ?? (ownValues || sidecar?.mean || sidecar?.std || sidecarPreset === undefined ? undefined : parseNormalise(sidecarPreset, 'model sidecar preprocessing.normalise'));
-  const preset = presetName ? presetValues(presetName, channels) : null;
-  const fromSidecar = !options.normalise; // a sidecar's mean or std fills what the options leave open, unless a preset was named
-  const mean = options.mean ?? preset?.mean ?? (fromSidecar ? sidecar?.mean : undefined) ?? new Array<number>(channels).fill(0);
-  const std = options.std ?? preset?.std ?? (fromSidecar ? sidecar?.std : undefined) ?? new Array<number>(channels).fill(1);
-  const unit = mean.every((v) => v === 0) && std.every((v) => v === 1);
-  const fitted = options.fit !== undefined ? { fit: options.fit, shorterSide: options.shorterSide } : sidecarFit !== undefined ? parseFit(sidecarFit, 'model sidecar preprocessing.fit') : { fit: 'squash' as const, shorterSide: undefined };
-  const fit = fitted.fit;
-  const preprocessing: Preprocessing = {
-    size,
-    mean,
-    std,
-    bgr: options.bgr ?? sidecar?.bgr ?? false,
-    fit,
-    ...(fit === 'crop' ? { shorterSide: fitted.shorterSide ?? Math.max(size[0], size[1]) } : {}),
-    interpolation: options.interpolation ?? (sidecarKernel !== undefined ? parseInterpolation(sidecarKernel, 'model sidecar preprocessing.interpolation') : 'lanczos3'),
-    normalise: presetName ?? (unit ? 'unit' : 'custom'),
-  };
-  resolvedFit(preprocessing);
-  return preprocessing;
 }
 
 /** For messages: a path relative to the working folder. */

@@ -6,7 +6,7 @@
  * derivatives and fitted gains) and by the size-matched scheme comparison (one site or all at once).
  */
 import { UsageError } from '../errors.js';
-import { exposeTensors } from '../graph/instrument.js';
+import { exposeForRuntime } from '../graph/instrument.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import { createNetworkSession } from '../session/network-session.js';
@@ -65,7 +65,7 @@ export async function scoreGains(options: GainScoringOptions): Promise<Float64Ar
   const tail = plan.tail;
   const injections: InjectionSite[] = sites.map((site, s) => ({ site, shape: shapes[s]!, spatial: false, featureAxis: geometry[s]!.featureAxis }));
   const injected = injectModulations(tail.model, injections);
-  const session = await createNetworkSession(exposeTensors(injected, [readout]), { threads: options.threads ?? 0, label: `${options.model.fileName} downstream of ${sites.join(', ')}` });
+  const session = await createNetworkSession(exposeForRuntime(injected, [readout]), { threads: options.threads ?? 0, label: `${options.model.fileName} downstream of ${sites.join(', ')}` });
   const n = baseline.manifest.stimuli.count;
   const units = baseline.layerGeometry(readout).channels;
   const results = gains.map(() => new Float64Array(n * units));

@@ -9,7 +9,7 @@
  */
 import { RuntimeFailure, UsageError } from '../errors.js';
 import { buildGradientGraph } from '../graph/gradient/build.js';
-import { exposeTensors } from '../graph/instrument.js';
+import { exposeForRuntime } from '../graph/instrument.js';
 import type { LoadedModel } from '../graph/load-model.js';
 import type { ModelInspection } from '../record/inspect-model.js';
 import { createNetworkSession, type FloatTensor } from '../session/network-session.js';
@@ -91,7 +91,7 @@ async function streamGradients(run: SiteRun, visit: (rows: GradientRows) => void
     return seed;
   };
 
-  const session = await createNetworkSession(exposeTensors(graph.model, []), { threads: run.threads, label: `${run.model.fileName} (gradient downstream of ${site})` });
+  const session = await createNetworkSession(exposeForRuntime(graph.model, []), { threads: run.threads, label: `${run.model.fileName} (gradient downstream of ${site})` });
   const runGroup = async (stimuli: StimulusValues[]): Promise<void> => {
     const n = stimuli.length;
     const feeds: Record<string, FloatTensor> = {};

@@ -5,7 +5,7 @@
  * The formulas turning the sums into sensitivities are in sense-estimate.ts.
  */
 import { RuntimeFailure, UsageError } from '../errors.js';
-import { exposeTensors } from '../graph/instrument.js';
+import { exposeForRuntime } from '../graph/instrument.js';
 import { siteGeometry } from '../modulation/site-shape.js';
 import type { SiteShape } from '../modulation/types.js';
 import { siteShapes } from '../record/site-shapes.js';
@@ -147,7 +147,7 @@ export async function senseOneSite(run: SiteRun): Promise<SiteSensitivity> {
   const siteIndex = boundary.indexOf(site);
   const { outer: siteOuter, inner: siteInner } = siteInfo;
 
-  const session = await createNetworkSession(exposeTensors(injected, [readout.tensor]), { threads: run.threads, label: `${run.model.fileName} (downstream of ${site})` });
+  const session = await createNetworkSession(exposeForRuntime(injected, [readout.tensor]), { threads: run.threads, label: `${run.model.fileName} (downstream of ${site})` });
   const buffers = [new RowBuffer(capacity, perRow, C), new RowBuffer(capacity, perRow, C)];
   let current = 0;
   let pending: Promise<void> | null = null;
@@ -354,7 +354,7 @@ export async function* boundaryStream(run: SiteRun, boundary: readonly string[])
   const source = run.source!;
   const inputName = run.model.input.name;
   const fetched = boundary.filter((name) => name !== inputName);
-  const session: NetworkSession = await createNetworkSession(exposeTensors(run.model, fetched), { threads: run.threads, label: run.model.fileName });
+  const session: NetworkSession = await createNetworkSession(exposeForRuntime(run.model, fetched), { threads: run.threads, label: run.model.fileName });
   try {
     const [c, h, w] = source.shape;
     const per = c * h * w;

@@ -11,7 +11,7 @@ import { readoutChanges } from '../analysis/readout-change.js';
 import { rocAuc } from '../stats/roc.js';
 import { detectFromScores, type ScoreDetection } from '../stats/signal-detection.js';
 import { UsageError } from '../errors.js';
-import { exposeTensors } from '../graph/instrument.js';
+import { exposeForRuntime } from '../graph/instrument.js';
 import { injectModulations, modulationInputDims, modulationInputNames, type InjectionSite } from '../graph/inject.js';
 import { loadModel, type LoadedModel } from '../graph/load-model.js';
 import { resolveModulations } from '../modulation/resolve.js';
@@ -389,7 +389,7 @@ async function evaluateGroup(run: GroupRun): Promise<SweepCell[]> {
   // features along the site's layout (channels of a map, D of tokens): G is [rows, C, 1, 1] or [rows, 1, D]
   const siteInfo = siteShapes(run.inspection.layers).get(site);
   const injection: InjectionSite = { site, shape: siteShape, spatial: false, featureAxis: siteInfo?.layout.featureAxis ?? 0 };
-  const session = await createNetworkSession(exposeTensors(injectModulations(tail.model, [injection]), fetch), { threads: run.threads, label: `${run.model.fileName} downstream of ${site}` });
+  const session = await createNetworkSession(exposeForRuntime(injectModulations(tail.model, [injection]), fetch), { threads: run.threads, label: `${run.model.fileName} downstream of ${site}` });
   const vectors: Float32Array[] = [];
   const vectorOfCell: number[] = [];
   const seenVectors = new Map<string, number>();

@@ -6,6 +6,7 @@ import { createRequire } from 'node:module';
 import { availableParallelism } from 'node:os';
 import { Worker } from 'node:worker_threads';
 import * as ort from 'onnxruntime-node';
+import { unchanged, type FileIdentity } from '../disk/file-identity.js';
 import { RuntimeFailure, UsageError } from '../errors.js';
 
 /** A float32 tensor in row-major (C) order. */
@@ -43,6 +44,18 @@ export interface NetworkSessionOptions {
   giveBytes?: boolean;
 }
 
+/**
+ * ONNX bytes for the runtime whose large weights may be stored by reference: TensorProto external-data
+ * entries (a location relative to `weights.folder`, an offset and a length) into files the runtime
+ * reads itself while it builds the session, instead of being handed a copy of them
+ * (graph/weights-by-reference.ts). Plain bytes are a model that holds all its weights.
+ */
+export interface RuntimeModel {
+  bytes: Uint8Array;
+  /** The folder external-data locations are relative to, and the identity of every file they name as Sonde read it. */
+  weights?: { folder: string; files: readonly FileIdentity[] };
+}
+
 /** A loaded network ready to run batches. */
 export interface NetworkSession {
   readonly inputNames: readonly string[];
@@ -66,21 +79,28 @@ export interface NetworkSession {
  * transferred buffers (no copy); inputs are copied, so callers may reuse them.
  * @throws RuntimeFailure when the runtime rejects the model (the message is the runtime's first line).
  */
-export async function createNetworkSession(bytes: Uint8Array, options: NetworkSessionOptions = {}): Promise<NetworkSession> {
+export async function createNetworkSession(model: Uint8Array | RuntimeModel, options: NetworkSessionOptions = {}): Promise<NetworkSession> {
   const threads = options.threads ?? 0;
   if (!Number.isInteger(threads) || threads < 0) {
     throw new UsageError('E_THREADS', `--threads must be a non-negative integer, got ${threads}`);
   }
+  const { bytes, weights } = model instanceof Uint8Array ? { bytes: model, weights: undefined } : model;
+  const config: Record<string, unknown> = {};
+  if (options.spinning === false) config['intra_op'] = { allow_spinning: '0' };
+  // onnxruntime's session config key for external data of a model given as bytes (onnxruntime_session_options_config_keys.h)
+  if (weights) config['model_external_initializers_file_folder_path'] = weights.folder;
   const sessionOptions: ort.InferenceSession.SessionOptions = {
     executionProviders: ['cpu'],
     graphOptimizationLevel: 'all',
     executionMode: 'sequential',
     intraOpNumThreads: threads,
     interOpNumThreads: 1,
-    ...(options.spinning === false ? { extra: { session: { intra_op: { allow_spinning: '0' } } } } : {}),
+    ...(Object.keys(config).length > 0 ? { extra: { session: config } } : {}),
     logSeverityLevel: runtimeLogSeverity(),
   };
   const label = options.label ?? 'the model';
+  if (weights) assertWeightsUnchanged(weights.files, label, 'before');
+  let created: NetworkSession;
   if (options.inWorker === false) {
     let session: ort.InferenceSession;
     try {
@@ -88,9 +108,32 @@ export async function createNetworkSession(bytes: Uint8Array, options: NetworkSe
     } catch (error) {
       throw rejected(label, error);
     }
-    return new OrtNetworkSession(session, label);
+    created = new OrtNetworkSession(session, label);
+  } else {
+    created = await WorkerNetworkSession.create(bytes, sessionOptions, label, options.giveBytes === true && !(bytes.buffer instanceof SharedArrayBuffer));
   }
-  return WorkerNetworkSession.create(bytes, sessionOptions, label, options.giveBytes === true && !(bytes.buffer instanceof SharedArrayBuffer));
+  if (weights) {
+    try {
+      assertWeightsUnchanged(weights.files, label, 'while');
+    } catch (error) {
+      await created.close();
+      throw error;
+    }
+  }
+  return created;
+}
+
+/**
+ * Throws unless every file the runtime reads weights from is still as Sonde read (and hashed) it, so a
+ * session never runs weights other than those a snapshot's manifest names.
+ * @throws RuntimeFailure `E_MODEL_CHANGED` naming the file.
+ */
+function assertWeightsUnchanged(files: readonly FileIdentity[], label: string, when: 'before' | 'while'): void {
+  for (const file of files) {
+    if (unchanged(file)) continue;
+    const how = when === 'before' ? 'since Sonde read it' : 'while the runtime read its weights';
+    throw new RuntimeFailure('E_MODEL_CHANGED', `${file.path} (weights of ${label}) changed ${how}`, { hint: 'leave the model file as it is while a command runs, and run the command again' });
+  }
 }
 
 /** The runtime's log severities by name (onnxruntime: 0 verbose, 1 info, 2 warning, 3 error, 4 fatal). */
