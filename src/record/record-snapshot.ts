@@ -28,8 +28,7 @@ import { FORMAT_VERSION, writeManifest, type ActivationDtype, type KeepMode, typ
 import { STIMULUS_DIGEST_BYTES, stimuliDigest, writeStimuliFile } from '../snapshot/stimuli-file.js';
 import { listingDigest, openStimulusSource, type StimulusSource } from '../stimuli/source.js';
 import { readNpyHeader } from '../stimuli/npy.js';
-import type { FitMode, Interpolation, NormalisePreset } from '../stimuli/preprocess.js';
-import { resolvePreprocessing } from './resolve-preprocessing.js';
+import { resolvePreprocessing, type PreprocessingOptions } from './resolve-preprocessing.js';
 import { TOOL_VERSION } from '../version.js';
 import { describeSkipped, inspectModel, type LayerInfo, type ModelInspection } from './inspect-model.js';
 import { assertApartFromInputs, openOutputFolder, resolveOutFolder, slugify, type OpenedOutput } from '../outputs/output-folder.js';
@@ -47,7 +46,7 @@ export interface RecordProgress {
 }
 
 /** Options of `recordSnapshot`. Only `model`, `stimuli` and `out` are required. */
-export interface RecordOptions {
+export interface RecordOptions extends PreprocessingOptions {
   /** Path of the .onnx model (or a model already loaded). */
   model: string | LoadedModel;
   /** Folder of category subfolders, a `path,label` CSV, or a float32 `.npy` [N,C,H,W]. */
@@ -77,19 +76,6 @@ export interface RecordOptions {
   threads?: number;
   /** Image size HxW; defaults to the model's input size. */
   size?: [number, number];
-  /** Per-channel mean/std applied after scaling pixels to [0,1]; default from the model's sidecar, else 0 and 1. */
-  mean?: number[];
-  std?: number[];
-  /** Feed BGR instead of RGB. */
-  bgr?: boolean;
-  /** A named mean/std (`imagenet`, `unit` [0, 1], `signed` [−1, 1]); not together with `mean`/`std`. */
-  normalise?: NormalisePreset;
-  /** How images reach the input size: `squash` (default), `crop` (shorter side, then the centre) or `letterbox`. */
-  fit?: FitMode;
-  /** For `crop`: the shorter side before the centre cut (default the larger input side). */
-  shorterSide?: number;
-  /** Resizing kernel (default `lanczos3`). */
-  interpolation?: Interpolation;
   /** Full input shape for models with dynamic spatial axes. */
   inputShape?: number[];
   /**

@@ -5,14 +5,20 @@
 import { UsageError } from '../errors.js';
 import { parseFit, parseInterpolation, parseNormalise, presetValues, resolvedFit, type FitMode, type Interpolation, type NormalisePreset, type Preprocessing } from '../stimuli/preprocess.js';
 
-/** The preprocessing options of a recording (RecordOptions in record-snapshot.ts documents each). */
+/** The preprocessing options of a recording (part of RecordOptions, record-snapshot.ts). */
 export interface PreprocessingOptions {
+  /** Per-channel mean/std applied after scaling pixels to [0,1]; default from the model's sidecar, else 0 and 1. */
   mean?: number[];
   std?: number[];
+  /** Feed BGR instead of RGB. */
   bgr?: boolean;
+  /** A named mean/std (`imagenet`, `unit` [0, 1], `signed` [−1, 1]); not together with `mean`/`std`. */
   normalise?: NormalisePreset;
+  /** How images reach the input size: `squash` (default), `crop` (shorter side, then the centre) or `letterbox`. */
   fit?: FitMode;
+  /** For `crop`: the shorter side before the centre cut (default the larger input side). */
   shorterSide?: number;
+  /** Resizing kernel (default `lanczos3`). */
   interpolation?: Interpolation;
 }
 

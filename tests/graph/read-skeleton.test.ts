@@ -1,46 +1,27 @@
 import { createHash } from 'node:crypto';
-import { copyFileSync, readFileSync, utimesSync, writeFileSync } from 'node:fs';
+import { readFileSync, utimesSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { encodeWithAdditions } from '../../src/graph/append.js';
 import { exposeTensors, exposureAdditions } from '../../src/graph/instrument.js';
-import { loadModel, unreadWeightRange, type LoadedModel } from '../../src/graph/load-model.js';
+import { loadModel, unreadWeightRange } from '../../src/graph/load-model.js';
 import { decodeModel } from '../../src/graph/onnx.js';
 import { readSkeleton } from '../../src/graph/read-skeleton.js';
 import { encodeForRuntime } from '../../src/graph/weights-by-reference.js';
-import { createRandom } from '../../src/random.js';
-import { createNetworkSession, type RuntimeModel } from '../../src/session/network-session.js';
+import type { RuntimeModel } from '../../src/session/network-session.js';
 import { buildTinyNet, externalise, tempFolder } from '../helpers/onnx-builder.js';
+import { firstTensors, RESIDUAL, residualCopy, residualOutputs } from '../helpers/residual-runs.js';
 
 // The skeleton read leaves large raw weights in the file. Every check compares against the whole file:
 // its SHA-256 from node:crypto, its decoding by protobufjs (the same decoder Sonde uses for whole reads,
 // checked elsewhere against Debian's python3-onnx), and the runtime's outputs from the whole file's bytes.
 
-const RESIDUAL = new URL('../reference/fixtures/residual.onnx', import.meta.url).pathname;
 const MIN = 64 * 1024;
 
-function residualCopy(): string {
-  const path = join(tempFolder(), 'residual.onnx');
-  copyFileSync(RESIDUAL, path);
-  return path;
-}
 
-/** Outputs of `fetch` for one fixed random batch of the residual network's 3×64×64 input. */
-async function outputs(model: Uint8Array | RuntimeModel, input: string, fetch: string[]): Promise<Record<string, Buffer>> {
-  const rng = createRandom(11);
-  const data = new Float32Array(2 * 3 * 64 * 64).map(() => rng.normal());
-  const session = await createNetworkSession(model, { threads: 1 });
-  try {
-    const out = await session.run({ [input]: { data, dims: [2, 3, 64, 64] } }, fetch);
-    return Object.fromEntries(fetch.map((name) => [name, Buffer.from(out[name]!.data.buffer, out[name]!.data.byteOffset, out[name]!.data.byteLength)]));
-  } finally {
-    await session.close();
-  }
-}
 
-function firstTensors(model: LoadedModel, count: number): string[] {
-  return (model.proto.graph!.node ?? []).slice(0, count).flatMap((n) => n.output ?? []);
-}
+
+const outputs11 = (model: Uint8Array | RuntimeModel, input: string, fetch: string[]) => residualOutputs(model, input, fetch, 11);
 
 describe('readSkeleton', () => {
   it('decodes like the whole file with the large raw data left out, and says where each lies in the file (exact)', () => {
@@ -145,10 +126,10 @@ describe('loadModel leaving large weights in the file', () => {
     expect(stillUnread).toBeGreaterThan(2);
     const whole = loadModel(path);
     const fetch = ['logits', ...names];
-    const a = await outputs(runtime, lazy.input.name, fetch);
-    const b = await outputs(encodeWithAdditions(whole, exposureAdditions(whole, names)), whole.input.name, fetch);
+    const a = await outputs11(runtime, lazy.input.name, fetch);
+    const b = await outputs11(encodeWithAdditions(whole, exposureAdditions(whole, names)), whole.input.name, fetch);
     // the path that hands bytes over reads the unread weights as it encodes them
-    const c = await outputs(exposeTensors(lazy, names), lazy.input.name, fetch);
+    const c = await outputs11(exposeTensors(lazy, names), lazy.input.name, fetch);
     for (const name of fetch) {
       expect(a[name]!.equals(b[name]!), name).toBe(true);
       expect(c[name]!.equals(b[name]!), name).toBe(true);

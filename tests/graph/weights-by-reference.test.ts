@@ -7,36 +7,13 @@ import { loadModel, modelFileBytes, type LoadedModel } from '../../src/graph/loa
 import { decodeModel, toNumber } from '../../src/graph/onnx.js';
 import { runRowBytes } from '../../src/graph/run-memory.js';
 import { encodeForRuntime } from '../../src/graph/weights-by-reference.js';
-import { createRandom } from '../../src/random.js';
-import { createNetworkSession, type RuntimeModel } from '../../src/session/network-session.js';
+import { createNetworkSession } from '../../src/session/network-session.js';
 import { buildTinyNet, externalise, tempFolder } from '../helpers/onnx-builder.js';
+import { firstTensors, RESIDUAL, residualCopy, residualOutputs } from '../helpers/residual-runs.js';
 
-const RESIDUAL = new URL('../reference/fixtures/residual.onnx', import.meta.url).pathname;
 
-/** A copy of the residual fixture in a folder of its own (tests below change or link it). */
-function residualCopy(): string {
-  const path = join(tempFolder(), 'residual.onnx');
-  copyFileSync(RESIDUAL, path);
-  return path;
-}
 
-/** Names of the first `count` node outputs of `model`. */
-function firstTensors(model: LoadedModel, count: number): string[] {
-  return (model.proto.graph!.node ?? []).slice(0, count).flatMap((n) => n.output ?? []);
-}
 
-/** Outputs of `fetch` for one fixed random batch of the residual network's 3×64×64 input. */
-async function outputs(model: Uint8Array | RuntimeModel, input: string, fetch: string[]): Promise<Record<string, Buffer>> {
-  const rng = createRandom(7);
-  const data = new Float32Array(2 * 3 * 64 * 64).map(() => rng.normal());
-  const session = await createNetworkSession(model, { threads: 1 });
-  try {
-    const out = await session.run({ [input]: { data, dims: [2, 3, 64, 64] } }, fetch);
-    return Object.fromEntries(fetch.map((name) => [name, Buffer.from(out[name]!.data.buffer, out[name]!.data.byteOffset, out[name]!.data.byteLength)]));
-  } finally {
-    await session.close();
-  }
-}
 
 /** The external-data entries of each initializer of `bytes`, by name. */
 function externalEntries(bytes: Uint8Array): Map<string, { location: string; offset: number; length: number }> {
@@ -106,8 +83,8 @@ print(json.dumps({"external": external, "same": sorted(a) == sorted(b) and all(a
     expect(referenced.weights).toBeDefined();
     const embedded = encodeForRuntime({ ...model, proto: decodeModel(readFileSync(path)) }, exposureAdditions(model, names));
     expect(embedded.weights).toBeUndefined(); // a proto of its own, decoded from bytes Sonde did not register
-    const a = await outputs(referenced, model.input.name, ['logits', ...names]);
-    const b = await outputs(embedded, model.input.name, ['logits', ...names]);
+    const a = await residualOutputs(referenced, model.input.name, ['logits', ...names]);
+    const b = await residualOutputs(embedded, model.input.name, ['logits', ...names]);
     for (const name of ['logits', ...names]) expect(a[name]!.equals(b[name]!), name).toBe(true);
   });
 
@@ -149,8 +126,8 @@ print(json.dumps({"external": external, "same": sorted(a) == sorted(b) and all(a
     const runtime = encodeForRuntime(model, {}, { minBytes: 1 });
     expect(runtime.weights?.folder).toBe(join(path, '..'));
     expect([...externalEntries(runtime.bytes).values()][0]!.location).toBe('residual.onnx');
-    const a = await outputs(runtime, model.input.name, ['logits']);
-    const b = await outputs(readFileSync(path), model.input.name, ['logits']);
+    const a = await residualOutputs(runtime, model.input.name, ['logits']);
+    const b = await residualOutputs(readFileSync(path), model.input.name, ['logits']);
     expect(a['logits']!.equals(b['logits']!)).toBe(true);
   });
 
@@ -192,7 +169,7 @@ print(json.dumps({"external": external, "same": sorted(a) == sorted(b) and all(a
     const path = residualCopy();
     const model = loadModel(path);
     const names = firstTensors(model, 4);
-    const before = await outputs(readFileSync(path), model.input.name, ['logits']);
+    const before = await residualOutputs(readFileSync(path), model.input.name, ['logits']);
     const rowBytes = runRowBytes(model, () => 10, { fed: [model.input.name], fetched: names });
     const runtime = encodeForRuntime(model, exposureAdditions(model, names), { minBytes: 1, release: true });
     expect(modelFileBytes(model)).toBeUndefined();
@@ -200,7 +177,7 @@ print(json.dumps({"external": external, "same": sorted(a) == sorted(b) and all(a
     for (const tensor of model.proto.graph!.initializer ?? []) if (referenced.has(tensor.name!)) expect(tensor.rawData!.byteLength, tensor.name!).toBe(0);
     expect(runRowBytes(model, () => 10, { fed: [model.input.name], fetched: names })).toBe(rowBytes);
     expect((model.proto.graph!.initializer ?? []).every((t) => (t.dims ?? []).every((d) => toNumber(d) >= 0))).toBe(true);
-    const after = await outputs(runtime, model.input.name, ['logits']);
+    const after = await residualOutputs(runtime, model.input.name, ['logits']);
     expect(after['logits']!.equals(before['logits']!)).toBe(true);
   });
 
