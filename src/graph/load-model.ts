@@ -163,7 +163,7 @@ function readWithRoom(path: string, room: (size: number) => number): Buffer {
       at += read;
     }
     // a file that changed while it was read is not registered: its bytes may be no single state of it
-    const whole = at === size && identityOfOpen(identity.path, fd).mtimeMs === identity.mtimeMs;
+    const whole = at === size && sameState(identityOfOpen(identity.path, fd), identity);
     if (whole) origins.set(bytes.buffer, { identity, start: bytes.byteOffset, length: size });
     return at < size ? bytes.subarray(0, at) : bytes;
   } finally {

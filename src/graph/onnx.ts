@@ -39,7 +39,7 @@ export function decodeModel(bytes: Uint8Array): ModelProto {
 }
 
 /** ModelProto's field number of `graph` (onnx.proto). */
-const MODEL_GRAPH_FIELD = 7;
+export const MODEL_GRAPH_FIELD = 7;
 
 /**
  * Byte ranges of the payloads of every top-level `graph` field in `bytes`, in order; null where the scan

@@ -12,7 +12,8 @@
  */
 import { createHash } from 'node:crypto';
 import { closeSync, openSync, readSync, realpathSync } from 'node:fs';
-import { identityOfOpen, type FileIdentity } from '../disk/file-identity.js';
+import { identityOfOpen, sameState, type FileIdentity } from '../disk/file-identity.js';
+import { MODEL_GRAPH_FIELD } from './onnx.js';
 
 /** An ONNX file's structure with its large weights left out (see the module comment). */
 export interface SkeletonFile {
@@ -30,8 +31,7 @@ export interface SkeletonFile {
   identity: FileIdentity;
 }
 
-/** ModelProto.graph, GraphProto.initializer and TensorProto.raw_data field numbers (onnx.proto). */
-const MODEL_GRAPH = 7;
+/** GraphProto.initializer and TensorProto.raw_data field numbers (onnx.proto; ModelProto.graph is MODEL_GRAPH_FIELD). */
 const GRAPH_INITIALIZER = 5;
 const TENSOR_RAW_DATA = 9;
 /** Bytes hashed at a time, and the most the walk reads at once. */
@@ -55,7 +55,7 @@ export function readSkeleton(path: string, minBytes: number): SkeletonFile | nul
     const walk = new SkeletonWalk(reader, minBytes);
     const skeleton = walk.model();
     const after = identityOfOpen(identity.path, fd);
-    if (skeleton === null || after.size !== identity.size || after.mtimeMs !== identity.mtimeMs || after.ctimeMs !== identity.ctimeMs) return null;
+    if (skeleton === null || !sameState(after, identity)) return null;
     return { skeleton, weights: walk.weights, sha256, identity };
   } finally {
     closeSync(fd);
@@ -147,7 +147,7 @@ class SkeletonWalk {
     const fields = this.fields(0, this.reader.size);
     if (fields === null) return null;
     for (const field of fields) {
-      if (field.number === MODEL_GRAPH && field.wireType === 2) {
+      if (field.number === MODEL_GRAPH_FIELD && field.wireType === 2) {
         const graph = this.graph(field);
         if (graph === null) return null;
         pieces.push(...graph);
